@@ -1,0 +1,496 @@
+//! The run folder: stage order, manifest, and the glue between saved tables and stages.
+//!
+//! Layout: `manifest.json` and one folder per stage (`1-ingest/` ... `5-report/`), each with
+//! its table(s), `rejected.csv` and `summary.json`. `run` does every stage; `stage NAME`
+//! reruns one from the previous stage's saved output and marks later stages stale.
+
+use crate::io;
+use crate::stage::Stage;
+use anyhow::{anyhow, bail, Context, Result};
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use plotsieve_stages::adjust::FitSettings;
+use plotsieve_stages::config::TrialConfig;
+use plotsieve_stages::table::{Rejection, StageSummary};
+use plotsieve_stages::{adjust, clean, ingest, plots, report, simulate};
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+use std::collections::BTreeMap;
+use std::io::IsTerminal;
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+/// SHA-256 of one input file.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct InputHash {
+    pub path: String,
+    pub bytes: u64,
+    pub sha256: String,
+}
+
+/// One stage's record in the manifest.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct StageRecord {
+    /// `done` or `stale` (an upstream stage was rerun after this one).
+    pub status: String,
+    pub seconds: f64,
+    pub unit: String,
+    pub count_in: u64,
+    pub kept: u64,
+    pub rejected: u64,
+    /// The settings section this stage ran with.
+    pub settings: serde_json::Value,
+}
+
+/// `manifest.json`.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct Manifest {
+    pub tool: String,
+    pub version: String,
+    pub trial_file: String,
+    /// The configuration after defaults and overrides, as last used.
+    pub config: serde_json::Value,
+    pub inputs: Vec<InputHash>,
+    pub stages: BTreeMap<String, StageRecord>,
+}
+
+/// A loaded trial.
+pub struct Trial {
+    pub path: PathBuf,
+    pub base: PathBuf,
+    pub cfg: TrialConfig,
+}
+
+/// Load a trial file with overrides.
+pub fn load(trial: &Path, set: &[String]) -> Result<Trial> {
+    let text = std::fs::read_to_string(trial)
+        .with_context(|| format!("reading trial file {}", trial.display()))?;
+    let cfg = TrialConfig::from_toml(&text, &trial.display().to_string(), set)?;
+    let base = trial.parent().map(Path::to_path_buf).unwrap_or_default();
+    let base = if base.as_os_str().is_empty() {
+        PathBuf::from(".")
+    } else {
+        base
+    };
+    Ok(Trial {
+        path: trial.to_path_buf(),
+        base,
+        cfg,
+    })
+}
+
+fn default_out(trial: &Path) -> PathBuf {
+    let stem = trial
+        .file_stem()
+        .and_then(|s| s.to_str())
+        .unwrap_or("trial");
+    PathBuf::from("runs").join(stem)
+}
+
+fn sha256_file(path: &Path) -> Result<(u64, String)> {
+    let bytes = std::fs::read(path).with_context(|| format!("reading {}", path.display()))?;
+    let digest = Sha256::digest(&bytes);
+    Ok((
+        bytes.len() as u64,
+        digest.iter().map(|b| format!("{b:02x}")).collect(),
+    ))
+}
+
+fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
+    let mut paths = vec![t.path.clone()];
+    paths.extend(ingest::monitor_files(&t.cfg, &t.base)?);
+    paths.push(t.base.join(&t.cfg.inputs.plots));
+    paths.push(t.base.join(&t.cfg.inputs.design));
+    paths
+        .iter()
+        .map(|p| {
+            let (bytes, sha256) = sha256_file(p)?;
+            let shown = p
+                .strip_prefix(&t.base)
+                .unwrap_or(p)
+                .to_string_lossy()
+                .replace('\\', "/");
+            Ok(InputHash {
+                path: shown,
+                bytes,
+                sha256,
+            })
+        })
+        .collect()
+}
+
+fn read_manifest(out: &Path) -> Result<Option<Manifest>> {
+    let p = out.join("manifest.json");
+    if !p.exists() {
+        return Ok(None);
+    }
+    let text = std::fs::read_to_string(&p).with_context(|| format!("reading {}", p.display()))?;
+    Ok(Some(serde_json::from_str(&text).with_context(|| {
+        format!("{}: not a plotsieve manifest", p.display())
+    })?))
+}
+
+fn settings_of(cfg: &TrialConfig, stage: Stage) -> serde_json::Value {
+    let v = serde_json::to_value(cfg).unwrap_or_default();
+    let pick = |k: &str| v.get(k).cloned().unwrap_or_default();
+    match stage {
+        Stage::Ingest => {
+            serde_json::json!({"inputs": pick("inputs"), "columns": pick("columns"), "ingest": pick("ingest")})
+        }
+        Stage::Clean => serde_json::json!({"trial": pick("trial"), "clean": pick("clean")}),
+        Stage::Plots => pick("plots"),
+        Stage::Adjust => serde_json::json!({"check": cfg.trial.check, "adjust": pick("adjust")}),
+        Stage::Report => pick("report"),
+    }
+}
+
+fn read_summary(out: &Path, stage: Stage) -> Result<StageSummary> {
+    let p = out.join(stage.dir()).join("summary.json");
+    let text = std::fs::read_to_string(&p).with_context(|| {
+        format!(
+            "{} is missing: run stage {} first",
+            p.display(),
+            stage.name()
+        )
+    })?;
+    Ok(serde_json::from_str(&text).with_context(|| format!("reading {}", p.display()))?)
+}
+
+fn write_stage_tables(dir: &Path, rejections: &[Rejection], summary: &StageSummary) -> Result<()> {
+    io::write_rejections(&dir.join("rejected.csv"), rejections)?;
+    io::write_json(&dir.join("summary.json"), summary)
+}
+
+/// Run one stage against the run folder; returns its summary.
+fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
+    let cfg = &t.cfg;
+    let dir = out.join(stage.dir());
+    let unit = cfg.trial.output_unit;
+    let crop = cfg.crop()?;
+    match stage {
+        Stage::Ingest => {
+            let o = ingest::run(cfg, &t.base)?;
+            io::write_points(&dir.join("points.parquet"), &o.points)?;
+            io::write_projected_plots(&dir.join("plots.geojson"), &o.polygons, o.points.epsg)?;
+            io::write_design(&dir.join("design.csv"), &o.design)?;
+            write_stage_tables(&dir, &o.rejections, &o.summary)?;
+            Ok(o.summary)
+        }
+        Stage::Clean => {
+            let epsg = read_summary(out, Stage::Ingest)?
+                .details
+                .get("epsg")
+                .and_then(|v| v.as_u64())
+                .ok_or_else(|| anyhow!("1-ingest/summary.json has no epsg; rerun stage ingest"))?
+                as u32;
+            let pts = io::read_points(&out.join(Stage::Ingest.dir()).join("points.parquet"), epsg)?;
+            let o = clean::run(&pts, &cfg.clean, &crop);
+            let y: Vec<f64> = o
+                .points
+                .iter()
+                .map(|p| unit.from_kg_ha(p.yield_std_kg_ha, &crop))
+                .collect();
+            let col = format!("yield_{}", unit.suffix());
+            io::write_clean_points(
+                &dir.join("points.parquet"),
+                &pts.files,
+                &o.points,
+                Some((&col, y)),
+                None,
+            )?;
+            write_stage_tables(&dir, &o.rejections, &o.summary)?;
+            Ok(o.summary)
+        }
+        Stage::Plots => {
+            let (files, pts) =
+                io::read_clean_points(&out.join(Stage::Clean.dir()).join("points.parquet"))?;
+            let ing = out.join(Stage::Ingest.dir());
+            let polys = ingest::read_geojson(
+                &ing.join("plots.geojson"),
+                "1-ingest/plots.geojson",
+                "plot_id",
+            )?;
+            let design = io::read_design(&ing.join("design.csv"))?;
+            let o = plots::run(
+                &pts,
+                &files,
+                &polys,
+                &design,
+                &cfg.inputs.design,
+                cfg.plots.min_points as u64,
+                unit,
+                &crop,
+            );
+            let kept: Vec<_> = o.assignment.iter().map(|&(i, _)| pts[i].clone()).collect();
+            let ids: Vec<&str> = o
+                .assignment
+                .iter()
+                .map(|&(_, k)| o.plots[k].plot_id.as_str())
+                .collect();
+            let y: Vec<f64> = kept
+                .iter()
+                .map(|p| unit.from_kg_ha(p.yield_std_kg_ha, &crop))
+                .collect();
+            let col = format!("yield_{}", unit.suffix());
+            io::write_clean_points(
+                &dir.join("points.parquet"),
+                &files,
+                &kept,
+                Some((&col, y)),
+                Some(ids),
+            )?;
+            io::write_plots(&dir.join("plots.csv"), &o.plots, unit.suffix())?;
+            write_stage_tables(&dir, &o.rejections, &o.summary)?;
+            Ok(o.summary)
+        }
+        Stage::Adjust => {
+            let plots = io::read_plots(
+                &out.join(Stage::Plots.dir()).join("plots.csv"),
+                unit.suffix(),
+            )?;
+            let s = FitSettings {
+                check: cfg.trial.check.clone(),
+                blocks: cfg.adjust.blocks,
+                min_range_m: cfg.adjust.min_range_m,
+                max_range_m: cfg.adjust.max_range_m,
+                starts_per_axis: cfg.adjust.starts_per_axis as usize,
+            };
+            let o = adjust::run(&plots, &s)?;
+            io::write_adjusted(&dir.join("adjusted_plots.csv"), &o.plots, unit.suffix())?;
+            io::write_treatments(&dir.join("treatments.csv"), &o.treatments, unit.suffix())?;
+            io::write_hyper(&dir.join("hyperparameters.csv"), &o.hyper, unit.suffix())?;
+            // Kept plots of fields that could not be fitted are this stage's rejections.
+            let fitted: std::collections::BTreeSet<&str> =
+                o.hyper.iter().map(|h| h.field.as_str()).collect();
+            let rejections: Vec<Rejection> = plots
+                .iter()
+                .filter(|p| p.status == "kept" && !fitted.contains(p.field.as_str()))
+                .map(|p| Rejection {
+                    source_file: "3-plots/plots.csv".into(),
+                    source_row: 0,
+                    id: p.plot_id.clone(),
+                    rule: "field_not_fitted".into(),
+                    column: "field".into(),
+                    value: p.field.clone(),
+                    limit: "a field with a check, two or more treatments and varying yields".into(),
+                })
+                .collect();
+            let kept_in = plots.iter().filter(|p| p.status == "kept").count() as u64;
+            let mut summary =
+                StageSummary::from_rejections("adjust", "plots", kept_in, &rejections);
+            summary
+                .details
+                .insert("warnings".into(), serde_json::json!(o.warnings));
+            write_stage_tables(&dir, &rejections, &summary)?;
+            Ok(summary)
+        }
+        Stage::Report => {
+            let summaries: Vec<StageSummary> =
+                [Stage::Ingest, Stage::Clean, Stage::Plots, Stage::Adjust]
+                    .iter()
+                    .map(|s| read_summary(out, *s))
+                    .collect::<Result<_>>()?;
+            let adj = out.join(Stage::Adjust.dir());
+            let treatments = io::read_treatments(&adj.join("treatments.csv"), unit.suffix())?;
+            let hyper = io::read_hyper(&adj.join("hyperparameters.csv"))?;
+            let warnings: Vec<String> = summaries[3]
+                .details
+                .get("warnings")
+                .and_then(|w| serde_json::from_value(w.clone()).ok())
+                .unwrap_or_default();
+            let md = report::markdown(&report::ReportInput {
+                trial_name: &cfg.trial.name,
+                unit_label: unit.label(),
+                check: &cfg.trial.check,
+                decimals: cfg.report.decimals as usize,
+                summaries: &summaries,
+                treatments: &treatments,
+                hyper: &hyper,
+                warnings: &warnings,
+            });
+            io::write_atomic(&dir.join("report.md"), md.as_bytes())?;
+            let summary = StageSummary {
+                stage: "report".into(),
+                unit: "plots".into(),
+                ..Default::default()
+            };
+            io::write_json(&dir.join("summary.json"), &summary)?;
+            Ok(summary)
+        }
+    }
+}
+
+fn progress(n: u64, quiet: bool) -> ProgressBar {
+    let pb = ProgressBar::with_draw_target(
+        Some(n),
+        if quiet || !std::io::stderr().is_terminal() {
+            ProgressDrawTarget::hidden()
+        } else {
+            ProgressDrawTarget::stderr()
+        },
+    );
+    pb.set_style(
+        ProgressStyle::with_template("{spinner} stage {pos}/{len} {msg} [{elapsed}]")
+            .expect("static template")
+            .tick_chars("-\\|/ "),
+    );
+    pb.enable_steady_tick(std::time::Duration::from_millis(120));
+    pb
+}
+
+/// Run the given stages in order, updating the manifest after each.
+fn run_stages(
+    stages: &[Stage],
+    t: &Trial,
+    out: &Path,
+    mut manifest: Manifest,
+    quiet: bool,
+) -> Result<()> {
+    let pb = progress(stages.len() as u64, quiet);
+    for &stage in stages {
+        pb.set_message(stage.name());
+        let start = Instant::now();
+        let summary = execute(stage, t, out).with_context(|| format!("stage {}", stage.name()))?;
+        manifest.stages.insert(
+            stage.name().into(),
+            StageRecord {
+                status: "done".into(),
+                seconds: (start.elapsed().as_secs_f64() * 1000.0).round() / 1000.0,
+                unit: summary.unit.clone(),
+                count_in: summary.count_in,
+                kept: summary.kept,
+                rejected: summary.rejected,
+                settings: settings_of(&t.cfg, stage),
+            },
+        );
+        for later in Stage::ALL.iter().filter(|s| **s > stage) {
+            if let Some(r) = manifest.stages.get_mut(later.name()) {
+                if !stages.contains(later) {
+                    r.status = "stale".into();
+                }
+            }
+        }
+        manifest.config = serde_json::to_value(&t.cfg)?;
+        io::write_json(&out.join("manifest.json"), &manifest)?;
+        pb.inc(1);
+    }
+    pb.finish_and_clear();
+    Ok(())
+}
+
+fn new_manifest(t: &Trial) -> Result<Manifest> {
+    Ok(Manifest {
+        tool: "plotsieve".into(),
+        version: env!("CARGO_PKG_VERSION").into(),
+        trial_file: t.path.display().to_string(),
+        config: serde_json::to_value(&t.cfg)?,
+        inputs: hash_inputs(t)?,
+        stages: BTreeMap::new(),
+    })
+}
+
+/// `plotsieve run`.
+pub fn run_all(trial: &Path, out: Option<PathBuf>, set: &[String], quiet: bool) -> Result<()> {
+    let t = load(trial, set)?;
+    let out = out.unwrap_or_else(|| default_out(trial));
+    std::fs::create_dir_all(&out)
+        .with_context(|| format!("creating run folder {}", out.display()))?;
+    let manifest = new_manifest(&t)?;
+    run_stages(&Stage::ALL, &t, &out, manifest, quiet)?;
+    if !quiet {
+        eprintln!("done: {}", out.display());
+    }
+    Ok(())
+}
+
+/// `plotsieve stage NAME`.
+pub fn run_one(
+    stage: Stage,
+    trial: &Path,
+    out: Option<PathBuf>,
+    set: &[String],
+    quiet: bool,
+) -> Result<()> {
+    let t = load(trial, set)?;
+    let out = out.unwrap_or_else(|| default_out(trial));
+    let mut manifest = match (read_manifest(&out)?, stage) {
+        (Some(m), _) => m,
+        (None, Stage::Ingest) => new_manifest(&t)?,
+        (None, _) => bail!(
+            "{} has no manifest.json: run stage ingest first (plotsieve stage ingest {} --out {}), or plotsieve run",
+            out.display(),
+            trial.display(),
+            out.display()
+        ),
+    };
+    if let Some(prev) = stage.previous() {
+        let status = manifest.stages.get(prev.name()).map(|r| r.status.as_str());
+        match status {
+            Some("done") => {}
+            Some(s) => bail!(
+                "stage {} needs stage {}, which is {s}: rerun stage {} first",
+                stage.name(),
+                prev.name(),
+                prev.name()
+            ),
+            None => bail!(
+                "stage {} needs the output of stage {} in {}: run stage {} first",
+                stage.name(),
+                prev.name(),
+                out.join(prev.dir()).display(),
+                prev.name()
+            ),
+        }
+    }
+    if stage == Stage::Ingest {
+        manifest.inputs = hash_inputs(&t)?;
+    }
+    std::fs::create_dir_all(&out)?;
+    run_stages(&[stage], &t, &out, manifest, quiet)
+}
+
+/// `plotsieve check`.
+pub fn check(trial: &Path, set: &[String]) -> Result<()> {
+    let t = load(trial, set)?;
+    let problems = ingest::check(&t.cfg, &t.base);
+    if problems.is_empty() {
+        println!("{}: configuration and inputs look right", trial.display());
+        Ok(())
+    } else {
+        for p in &problems {
+            println!("problem: {p}");
+        }
+        bail!("{}: {} problem(s) found", trial.display(), problems.len())
+    }
+}
+
+/// `plotsieve simulate`.
+pub fn simulate(
+    dir: &Path,
+    seed: u64,
+    fields: usize,
+    blocks: usize,
+    effect_scale: f64,
+    trend_sd: f64,
+) -> Result<()> {
+    if fields == 0 || blocks < 2 {
+        bail!("simulate needs at least one field and two blocks (got --fields {fields} --blocks {blocks})");
+    }
+    let sim = simulate::generate(&simulate::SimOptions {
+        seed,
+        fields,
+        blocks,
+        effect_scale,
+        trend_sd_kg_ha: trend_sd,
+        ..Default::default()
+    });
+    for (rel, text) in &sim.files {
+        io::write_atomic(&dir.join(rel), text.as_bytes())?;
+    }
+    println!(
+        "wrote {} files ({} monitor points) to {}",
+        sim.files.len(),
+        sim.points,
+        dir.display()
+    );
+    Ok(())
+}

@@ -1,0 +1,629 @@
+//! Adjust: Gaussian-process spatial adjustment of plot yields and treatment contrasts.
+//!
+//! Model, per field (Rasmussen & Williams 2006, "Gaussian Processes for Machine Learning",
+//! section 2.7, explicit basis functions):
+//!
+//!   y = X b + f + e,  f ~ GP(0, k),  e ~ N(0, s_n^2 I),
+//!
+//! where y are plot mean yields, X holds one indicator column per treatment (plus
+//! sum-to-zero block columns when `adjust.blocks`), and k is the Matern 5/2 kernel
+//! k(d) = s_f^2 (1 + sqrt5 d/l + 5 d^2 / (3 l^2)) exp(-sqrt5 d/l) (R&W eq. 4.17) on plot
+//! centroid distances in metres. With a flat prior on b the hyperparameters (l, s_f, s_n)
+//! maximise the restricted (REML) log marginal likelihood
+//!
+//!   -1/2 [(n-p) log 2pi + log|K_y| + log|X' K_y^-1 X| + r' K_y^-1 r],  r = y - X b_hat
+//!
+//! searched by Nelder-Mead on the log scale from a grid of starts, within bounds scaled to the
+//! field (`adjust.min_range_m`, `adjust.max_range_m`; 1e-3 to 10 times the SD of y for both
+//! SDs). Given them, b_hat = (X' K_y^-1 X)^-1 X' K_y^-1 y with covariance (X' K_y^-1 X)^-1,
+//! and the spatial effect at the plots has mean K K_y^-1 r and covariance
+//! K - K K_y^-1 K + R' (X' K_y^-1 X)^-1 R with R = X' K_y^-1 K (R&W eq. 2.42).
+//!
+//! This is a plug-in fit: intervals do not yet include the uncertainty of the
+//! hyperparameters. Fields are fitted independently (in parallel); the pooled rows combine
+//! the per-field uplifts by inverse-variance weighting (a fixed-effect combination).
+//!
+//! Errors: [`AdjustError`] when no field can be fitted; a field that cannot be fitted (one
+//! treatment, no kept check plot, fewer plots than parameters + 2, all yields equal) is
+//! skipped with a warning that names it.
+//! Complexity: O(n^3) per likelihood evaluation for n plots in a field (dense Cholesky, faer).
+
+use crate::plots::PlotStats;
+use crate::util::{normal_cdf, sd};
+use faer::linalg::solvers::Solve;
+use faer::{Mat, Side};
+use rayon::prelude::*;
+use std::collections::{BTreeMap, BTreeSet};
+
+/// z value of a two-sided 95 % normal interval.
+const Z95: f64 = 1.959_963_984_540_054;
+
+/// No field could be fitted.
+#[derive(Debug, thiserror::Error)]
+pub enum AdjustError {
+    #[error("no field could be adjusted:\n  {}", .0.join("\n  "))]
+    NothingToFit(Vec<String>),
+}
+
+/// Settings of the fit (from `[adjust]`).
+#[derive(Clone, Debug)]
+pub struct FitSettings {
+    pub check: String,
+    pub blocks: bool,
+    pub min_range_m: f64,
+    pub max_range_m: f64,
+    pub starts_per_axis: usize,
+}
+
+/// A plot after adjustment.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AdjustedPlot {
+    pub plot_id: String,
+    pub field: String,
+    pub treatment: String,
+    pub block: String,
+    pub raw: f64,
+    pub spatial_mean: f64,
+    pub spatial_sd: f64,
+    pub adjusted: f64,
+    pub adjusted_sd: f64,
+}
+
+/// A treatment in a field (or pooled over fields: field = "all").
+#[derive(Clone, Debug, PartialEq)]
+pub struct TreatmentRow {
+    pub field: String,
+    pub treatment: String,
+    pub plots: u64,
+    pub estimate: f64,
+    pub sd: f64,
+    pub lo95: f64,
+    pub hi95: f64,
+    /// Uplift over the check; NaN for the check itself.
+    pub uplift: f64,
+    pub uplift_sd: f64,
+    pub uplift_lo95: f64,
+    pub uplift_hi95: f64,
+    pub p_uplift_gt0: f64,
+}
+
+/// Fitted hyperparameters of one field.
+#[derive(Clone, Debug, PartialEq)]
+pub struct FieldHyper {
+    pub field: String,
+    pub plots: u64,
+    pub range_m: f64,
+    pub spatial_sd: f64,
+    pub noise_sd: f64,
+    pub spatial_share: f64,
+    pub log_marginal_likelihood: f64,
+    /// Empty, or a warning such as the range sitting at a bound.
+    pub warning: String,
+}
+
+/// What adjust hands on.
+#[derive(Clone, Debug)]
+pub struct AdjustOutput {
+    pub plots: Vec<AdjustedPlot>,
+    pub treatments: Vec<TreatmentRow>,
+    pub hyper: Vec<FieldHyper>,
+    pub warnings: Vec<String>,
+}
+
+/// Matern 5/2 covariance at distance `d` (R&W 2006 eq. 4.17).
+pub fn matern52(d: f64, range: f64, sd: f64) -> f64 {
+    let r = 5f64.sqrt() * d / range;
+    sd * sd * (1.0 + r + r * r / 3.0) * (-r).exp()
+}
+
+/// A field's data: yields, centroids and design matrix.
+#[derive(Clone, Debug)]
+pub struct FieldData {
+    pub y: Vec<f64>,
+    pub xy: Vec<(f64, f64)>,
+    /// n x p design matrix, row major.
+    pub x: Vec<Vec<f64>>,
+    pub p: usize,
+}
+
+/// Everything computed at one set of hyperparameters.
+pub struct Evaluation {
+    pub reml: f64,
+    pub b: Vec<f64>,
+    pub cov_b: Mat<f64>,
+    pub spatial_mean: Vec<f64>,
+    pub spatial_var: Vec<f64>,
+}
+
+fn kernel_matrix(data: &FieldData, range: f64, sf: f64) -> Mat<f64> {
+    let n = data.y.len();
+    Mat::from_fn(n, n, |i, j| {
+        let (a, b) = (data.xy[i], data.xy[j]);
+        matern52(
+            ((a.0 - b.0).powi(2) + (a.1 - b.1).powi(2)).sqrt(),
+            range,
+            sf,
+        )
+    })
+}
+
+/// REML log marginal likelihood and the conditional posterior at (range, sf, sn).
+/// `full` also computes the spatial effect and its variance. None if not positive definite.
+pub fn evaluate(data: &FieldData, range: f64, sf: f64, sn: f64, full: bool) -> Option<Evaluation> {
+    let n = data.y.len();
+    let p = data.p;
+    let k = kernel_matrix(data, range, sf);
+    let mut ky = k.clone();
+    for i in 0..n {
+        ky[(i, i)] += sn * sn;
+    }
+    let llt = ky.llt(Side::Lower).ok()?;
+    let l = llt.L();
+    let logdet_ky: f64 = (0..n).map(|i| 2.0 * l[(i, i)].ln()).sum();
+    let x = Mat::from_fn(n, p, |i, j| data.x[i][j]);
+    let y = Mat::from_fn(n, 1, |i, _| data.y[i]);
+    let kinv_x = llt.solve(&x);
+    let kinv_y = llt.solve(&y);
+    let a = x.transpose() * &kinv_x; // X' Ky^-1 X
+    let a_llt = a.llt(Side::Lower).ok()?;
+    let al = a_llt.L();
+    let logdet_a: f64 = (0..p).map(|i| 2.0 * al[(i, i)].ln()).sum();
+    let xty = x.transpose() * &kinv_y;
+    let b = a_llt.solve(&xty);
+    let r = Mat::from_fn(n, 1, |i, _| {
+        data.y[i] - (0..p).map(|j| data.x[i][j] * b[(j, 0)]).sum::<f64>()
+    });
+    let kinv_r = llt.solve(&r);
+    let quad: f64 = (0..n).map(|i| r[(i, 0)] * kinv_r[(i, 0)]).sum();
+    let reml =
+        -0.5 * ((n - p) as f64 * (2.0 * std::f64::consts::PI).ln() + logdet_ky + logdet_a + quad);
+    let eye = Mat::<f64>::identity(p, p);
+    let cov_b = a_llt.solve(&eye);
+    let (spatial_mean, spatial_var) = if full {
+        let m = &k * &kinv_r;
+        let kinv_k = llt.solve(&k);
+        let rr = x.transpose() * &kinv_k; // p x n
+        let cov_rr = &cov_b * &rr;
+        let var: Vec<f64> = (0..n)
+            .map(|i| {
+                let kk: f64 = (0..n).map(|j| k[(i, j)] * kinv_k[(j, i)]).sum();
+                let extra: f64 = (0..p).map(|a| rr[(a, i)] * cov_rr[(a, i)]).sum();
+                (k[(i, i)] - kk + extra).max(0.0)
+            })
+            .collect();
+        ((0..n).map(|i| m[(i, 0)]).collect(), var)
+    } else {
+        (Vec::new(), Vec::new())
+    };
+    Some(Evaluation {
+        reml,
+        b: (0..p).map(|j| b[(j, 0)]).collect(),
+        cov_b,
+        spatial_mean,
+        spatial_var,
+    })
+}
+
+/// Nelder-Mead minimisation (Nelder & Mead 1965) with standard coefficients.
+pub fn nelder_mead(
+    f: &dyn Fn(&[f64]) -> f64,
+    start: &[f64],
+    step: f64,
+    iters: usize,
+) -> (Vec<f64>, f64) {
+    let d = start.len();
+    let mut simplex: Vec<Vec<f64>> = vec![start.to_vec()];
+    for i in 0..d {
+        let mut v = start.to_vec();
+        v[i] += step;
+        simplex.push(v);
+    }
+    let mut vals: Vec<f64> = simplex.iter().map(|v| f(v)).collect();
+    for _ in 0..iters {
+        let mut order: Vec<usize> = (0..=d).collect();
+        order.sort_by(|&a, &b| vals[a].total_cmp(&vals[b]));
+        simplex = order.iter().map(|&i| simplex[i].clone()).collect();
+        vals = order.iter().map(|&i| vals[i]).collect();
+        if (vals[d] - vals[0]).abs() < 1e-9 {
+            break;
+        }
+        let centroid: Vec<f64> = (0..d)
+            .map(|k| simplex[..d].iter().map(|v| v[k]).sum::<f64>() / d as f64)
+            .collect();
+        let along = |t: f64| -> Vec<f64> {
+            (0..d)
+                .map(|k| centroid[k] + t * (simplex[d][k] - centroid[k]))
+                .collect()
+        };
+        let xr = along(-1.0);
+        let fr = f(&xr);
+        if fr < vals[0] {
+            let xe = along(-2.0);
+            let fe = f(&xe);
+            if fe < fr {
+                simplex[d] = xe;
+                vals[d] = fe;
+            } else {
+                simplex[d] = xr;
+                vals[d] = fr;
+            }
+        } else if fr < vals[d - 1] {
+            simplex[d] = xr;
+            vals[d] = fr;
+        } else {
+            let xc = if fr < vals[d] {
+                along(-0.5)
+            } else {
+                along(0.5)
+            };
+            let fc = f(&xc);
+            if fc < vals[d].min(fr) {
+                simplex[d] = xc;
+                vals[d] = fc;
+            } else {
+                for i in 1..=d {
+                    for k in 0..d {
+                        simplex[i][k] = simplex[0][k] + 0.5 * (simplex[i][k] - simplex[0][k]);
+                    }
+                    vals[i] = f(&simplex[i]);
+                }
+            }
+        }
+    }
+    let best = (0..=d)
+        .min_by(|&a, &b| vals[a].total_cmp(&vals[b]))
+        .unwrap_or(0);
+    (simplex[best].clone(), vals[best])
+}
+
+/// Fit result of one field.
+struct FieldFit {
+    plots: Vec<AdjustedPlot>,
+    treatments: Vec<TreatmentRow>,
+    hyper: FieldHyper,
+    /// (treatment, uplift, variance) for pooling.
+    uplifts: Vec<(String, f64, f64, f64, f64, u64)>,
+}
+
+fn fit_field(field: &str, plots: &[&PlotStats], s: &FitSettings) -> Result<FieldFit, String> {
+    let treatments: Vec<String> = {
+        let set: BTreeSet<&str> = plots.iter().map(|p| p.treatment.as_str()).collect();
+        let mut v: Vec<String> = set.into_iter().map(String::from).collect();
+        // Check first, the rest sorted.
+        v.sort_by_key(|t| (t != &s.check, t.clone()));
+        v
+    };
+    if !treatments.contains(&s.check) {
+        return Err(format!(
+            "field {field}: no kept plot of the check {:?}; contrasts cannot be formed",
+            s.check
+        ));
+    }
+    if treatments.len() < 2 {
+        return Err(format!(
+            "field {field}: only one treatment ({}); nothing to compare",
+            treatments[0]
+        ));
+    }
+    let blocks: Vec<String> = if s.blocks {
+        plots
+            .iter()
+            .map(|p| p.block.clone())
+            .collect::<BTreeSet<_>>()
+            .into_iter()
+            .collect()
+    } else {
+        Vec::new()
+    };
+    let p = treatments.len() + blocks.len().saturating_sub(1);
+    let n = plots.len();
+    if n < p + 2 {
+        return Err(format!(
+            "field {field}: {n} kept plots for {p} mean parameters; at least {} needed",
+            p + 2
+        ));
+    }
+    let y: Vec<f64> = plots.iter().map(|p| p.yield_mean).collect();
+    let sy = sd(&y);
+    if !(sy > 0.0) {
+        return Err(format!(
+            "field {field}: all plot yields are equal; no variation to model"
+        ));
+    }
+    let x: Vec<Vec<f64>> = plots
+        .iter()
+        .map(|pl| {
+            let mut row = vec![0.0; p];
+            let t = treatments
+                .iter()
+                .position(|t| *t == pl.treatment)
+                .unwrap_or(0);
+            row[t] = 1.0;
+            if blocks.len() > 1 {
+                let b = blocks.iter().position(|b| *b == pl.block).unwrap_or(0);
+                for j in 1..blocks.len() {
+                    row[treatments.len() + j - 1] = if b == j {
+                        1.0
+                    } else if b == 0 {
+                        -1.0
+                    } else {
+                        0.0
+                    };
+                }
+            }
+            row
+        })
+        .collect();
+    let xy: Vec<(f64, f64)> = plots
+        .iter()
+        .map(|p| (p.centroid_x_m, p.centroid_y_m))
+        .collect();
+    let data = FieldData {
+        y,
+        xy: xy.clone(),
+        x,
+        p,
+    };
+    // Bounds of the length scale from the plot layout.
+    let mut dmin = f64::INFINITY;
+    let mut dmax: f64 = 0.0;
+    for i in 0..n {
+        for j in i + 1..n {
+            let d = ((xy[i].0 - xy[j].0).powi(2) + (xy[i].1 - xy[j].1).powi(2)).sqrt();
+            if d > 0.0 {
+                dmin = dmin.min(d);
+            }
+            dmax = dmax.max(d);
+        }
+    }
+    let lo_r = if s.min_range_m > 0.0 {
+        s.min_range_m
+    } else {
+        0.5 * dmin
+    };
+    let hi_r = if s.max_range_m > 0.0 {
+        s.max_range_m
+    } else {
+        10.0 * dmax
+    };
+    let bounds = [
+        (lo_r.ln(), hi_r.ln()),
+        ((1e-3 * sy).ln(), (10.0 * sy).ln()),
+        ((1e-3 * sy).ln(), (10.0 * sy).ln()),
+    ];
+    let objective = |t: &[f64]| -> f64 {
+        if t.iter().zip(&bounds).any(|(v, (lo, hi))| v < lo || v > hi) {
+            return f64::INFINITY;
+        }
+        match evaluate(&data, t[0].exp(), t[1].exp(), t[2].exp(), false) {
+            Some(e) => -e.reml,
+            None => f64::INFINITY,
+        }
+    };
+    let k = s.starts_per_axis.max(1);
+    let frac = |i: usize| {
+        if k == 1 {
+            0.5
+        } else {
+            0.15 + 0.7 * i as f64 / (k - 1) as f64
+        }
+    };
+    let mut best: Option<(Vec<f64>, f64)> = None;
+    for i in 0..k {
+        for j in 0..k {
+            // Range spread over its log bounds; the spatial share over (0.15..0.85).
+            let lr = bounds[0].0 + (bounds[0].1 - bounds[0].0) * (0.1 + 0.5 * frac(i));
+            let share = frac(j);
+            let start = [
+                lr,
+                (sy * share.sqrt()).ln(),
+                (sy * (1.0 - share).sqrt()).ln(),
+            ];
+            let r = nelder_mead(&objective, &start, 0.5, 400);
+            if best.as_ref().is_none_or(|b| r.1 < b.1) {
+                best = Some(r);
+            }
+        }
+    }
+    let (theta, _) = best.expect("at least one start");
+    let (range, sf, sn) = (theta[0].exp(), theta[1].exp(), theta[2].exp());
+    let e = evaluate(&data, range, sf, sn, true)
+        .ok_or_else(|| format!("field {field}: covariance not positive definite at the optimum"))?;
+    let mut warning = String::new();
+    if theta[0] - bounds[0].0 < 0.05 || bounds[0].1 - theta[0] < 0.05 {
+        warning = format!(
+            "range {range:.1} m is at a bound of its search ({lo_r:.1}..{hi_r:.1} m); the field may be too small to tell"
+        );
+    }
+    let adjusted = plots
+        .iter()
+        .enumerate()
+        .map(|(i, pl)| AdjustedPlot {
+            plot_id: pl.plot_id.clone(),
+            field: field.to_string(),
+            treatment: pl.treatment.clone(),
+            block: pl.block.clone(),
+            raw: pl.yield_mean,
+            spatial_mean: e.spatial_mean[i],
+            spatial_sd: e.spatial_var[i].sqrt(),
+            adjusted: pl.yield_mean - e.spatial_mean[i],
+            adjusted_sd: e.spatial_var[i].sqrt(),
+        })
+        .collect();
+    let mut rows = Vec::new();
+    let mut uplifts = Vec::new();
+    for (t, name) in treatments.iter().enumerate() {
+        let count = plots.iter().filter(|p| &p.treatment == name).count() as u64;
+        let est = e.b[t];
+        let v = e.cov_b[(t, t)];
+        let (up, upv) = if t == 0 {
+            (f64::NAN, f64::NAN)
+        } else {
+            (est - e.b[0], v + e.cov_b[(0, 0)] - 2.0 * e.cov_b[(t, 0)])
+        };
+        let usd = upv.sqrt();
+        if t > 0 {
+            uplifts.push((name.clone(), up, upv, est, v, count));
+        }
+        rows.push(TreatmentRow {
+            field: field.to_string(),
+            treatment: name.clone(),
+            plots: count,
+            estimate: est,
+            sd: v.sqrt(),
+            lo95: est - Z95 * v.sqrt(),
+            hi95: est + Z95 * v.sqrt(),
+            uplift: up,
+            uplift_sd: usd,
+            uplift_lo95: up - Z95 * usd,
+            uplift_hi95: up + Z95 * usd,
+            p_uplift_gt0: if t == 0 {
+                f64::NAN
+            } else {
+                normal_cdf(up / usd)
+            },
+        });
+    }
+    let check_count = plots.iter().filter(|p| p.treatment == s.check).count() as u64;
+    uplifts.push((
+        s.check.clone(),
+        f64::NAN,
+        f64::NAN,
+        e.b[0],
+        e.cov_b[(0, 0)],
+        check_count,
+    ));
+    Ok(FieldFit {
+        plots: adjusted,
+        treatments: rows,
+        hyper: FieldHyper {
+            field: field.to_string(),
+            plots: n as u64,
+            range_m: range,
+            spatial_sd: sf,
+            noise_sd: sn,
+            spatial_share: sf * sf / (sf * sf + sn * sn),
+            log_marginal_likelihood: e.reml,
+            warning,
+        },
+        uplifts,
+    })
+}
+
+/// Run adjust on the kept plots.
+pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustError> {
+    let mut fields: BTreeMap<&str, Vec<&PlotStats>> = BTreeMap::new();
+    for p in plots
+        .iter()
+        .filter(|p| p.status == "kept" && p.yield_mean.is_finite())
+    {
+        fields.entry(&p.field).or_default().push(p);
+    }
+    let fits: Vec<(String, Result<FieldFit, String>)> = fields
+        .par_iter()
+        .map(|(f, ps)| (f.to_string(), fit_field(f, ps, s)))
+        .collect();
+    let mut out = AdjustOutput {
+        plots: Vec::new(),
+        treatments: Vec::new(),
+        hyper: Vec::new(),
+        warnings: Vec::new(),
+    };
+    let mut pool: BTreeMap<String, Vec<(f64, f64, f64, f64, u64)>> = BTreeMap::new();
+    for (_, fit) in fits {
+        match fit {
+            Ok(f) => {
+                out.plots.extend(f.plots);
+                out.treatments.extend(f.treatments);
+                if !f.hyper.warning.is_empty() {
+                    out.warnings
+                        .push(format!("field {}: {}", f.hyper.field, f.hyper.warning));
+                }
+                out.hyper.push(f.hyper);
+                for (t, u, uv, est, v, c) in f.uplifts {
+                    pool.entry(t).or_default().push((u, uv, est, v, c));
+                }
+            }
+            Err(w) => out.warnings.push(w),
+        }
+    }
+    if out.hyper.is_empty() {
+        return Err(AdjustError::NothingToFit(out.warnings));
+    }
+    // Pooled rows: inverse-variance weighted over the fields holding the treatment.
+    let mut pooled: Vec<TreatmentRow> = pool
+        .into_iter()
+        .map(|(t, v)| {
+            let w_est: f64 = v.iter().map(|x| 1.0 / x.3).sum();
+            let est = v.iter().map(|x| x.2 / x.3).sum::<f64>() / w_est;
+            let is_check = t == s.check;
+            let (up, upv) = if is_check {
+                (f64::NAN, f64::NAN)
+            } else {
+                let w: f64 = v.iter().map(|x| 1.0 / x.1).sum();
+                (v.iter().map(|x| x.0 / x.1).sum::<f64>() / w, 1.0 / w)
+            };
+            let usd = upv.sqrt();
+            let esd = (1.0 / w_est).sqrt();
+            TreatmentRow {
+                field: "all".into(),
+                treatment: t.clone(),
+                plots: v.iter().map(|x| x.4).sum(),
+                estimate: est,
+                sd: esd,
+                lo95: est - Z95 * esd,
+                hi95: est + Z95 * esd,
+                uplift: up,
+                uplift_sd: usd,
+                uplift_lo95: up - Z95 * usd,
+                uplift_hi95: up + Z95 * usd,
+                p_uplift_gt0: if is_check {
+                    f64::NAN
+                } else {
+                    normal_cdf(up / usd)
+                },
+            }
+        })
+        .collect();
+    pooled.sort_by_key(|r| (r.treatment != s.check, r.treatment.clone()));
+    out.treatments.extend(pooled);
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn matern_by_hand() {
+        // d = 0 gives the variance; at d = l: (1 + sqrt5 + 5/3) exp(-sqrt5) = 0.523994.
+        assert!((matern52(0.0, 10.0, 2.0) - 4.0).abs() < 1e-12);
+        assert!((matern52(10.0, 10.0, 1.0) - 0.523_994_2).abs() < 1e-6);
+    }
+
+    #[test]
+    fn nelder_mead_finds_quadratic_minimum() {
+        let f = |x: &[f64]| (x[0] - 1.0).powi(2) + 3.0 * (x[1] + 2.0).powi(2);
+        let (x, v) = nelder_mead(&f, &[0.0, 0.0], 0.5, 500);
+        assert!((x[0] - 1.0).abs() < 1e-3 && (x[1] + 2.0).abs() < 1e-3 && v < 1e-6);
+    }
+
+    #[test]
+    fn gls_reduces_to_means_without_spatial_field() {
+        // With s_f tiny, b_hat are the treatment means and var = s_n^2 / n_t.
+        let data = FieldData {
+            y: vec![1.0, 3.0, 5.0, 9.0],
+            xy: vec![(0.0, 0.0), (10.0, 0.0), (20.0, 0.0), (30.0, 0.0)],
+            x: vec![
+                vec![1.0, 0.0],
+                vec![1.0, 0.0],
+                vec![0.0, 1.0],
+                vec![0.0, 1.0],
+            ],
+            p: 2,
+        };
+        let e = evaluate(&data, 5.0, 1e-6, 2.0, true).unwrap();
+        assert!((e.b[0] - 2.0).abs() < 1e-9 && (e.b[1] - 7.0).abs() < 1e-9);
+        assert!((e.cov_b[(0, 0)] - 2.0).abs() < 1e-9);
+    }
+}

@@ -1,0 +1,666 @@
+//! Trial configuration: two-phase loading and validation.
+//!
+//! Phase one merges three layers into one TOML tree: the embedded defaults
+//! (`config/defaults.toml`), the trial file, and `--set key=value` overrides. A key of a
+//! settings section (`inputs`, `ingest`, `clean`, `plots`, `adjust`, `report`) that is not in
+//! the defaults is an error naming it, and so is a value whose type differs from the
+//! default's. Phase two deserialises the tree into typed structs (unknown keys in any section
+//! are errors, with the key path) and [`TrialConfig::validate`] checks every range and
+//! ordering, naming each offending key.
+//!
+//! Errors: [`ConfigError`], each naming the key or file to fix.
+
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+use toml::Value;
+
+/// The defaults of every stage setting, as shipped in `config/defaults.toml`.
+pub const DEFAULTS_TOML: &str = include_str!("../../config/defaults.toml");
+/// The crop table, as shipped in `config/crops.toml`.
+pub const CROPS_TOML: &str = include_str!("../../config/crops.toml");
+
+/// Sections whose every key must appear in the defaults.
+const SETTINGS_SECTIONS: &[&str] = &["inputs", "ingest", "clean", "plots", "adjust", "report"];
+/// Keys of `inputs` that the trial file must give (they have no default).
+const TRIAL_INPUT_KEYS: &[&str] = &["monitor", "plots", "design"];
+
+/// A configuration problem, naming the key or file.
+#[derive(Debug, thiserror::Error)]
+pub enum ConfigError {
+    /// The TOML text does not parse.
+    #[error("{file}: not valid TOML: {message}")]
+    Syntax { file: String, message: String },
+    /// A key that no section knows.
+    #[error("unknown key {key}: {hint}")]
+    UnknownKey { key: String, hint: String },
+    /// A value of the wrong type.
+    #[error("{key} expects {expected}, got {found}")]
+    WrongType {
+        key: String,
+        expected: String,
+        found: String,
+    },
+    /// `--set` without `=`.
+    #[error("--set {0}: expected KEY=VALUE, e.g. clean.speed.min_m_s=0.8")]
+    BadOverride(String),
+    /// Structural problem found while reading the merged tree.
+    #[error("trial configuration: {path}: {message}")]
+    Shape { path: String, message: String },
+    /// Values that are individually fine but not together, or out of range.
+    #[error("invalid settings:\n  {}", .0.join("\n  "))]
+    Invalid(Vec<String>),
+    /// Crop not in the crop table.
+    #[error("trial.crop = {crop:?} is not in config/crops.toml (known: {known})")]
+    UnknownCrop { crop: String, known: String },
+}
+
+/// Unit of the output yields.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum OutputUnit {
+    /// Tonnes per hectare.
+    THa,
+    /// Bushels per acre (bushel weight from the crop table).
+    BuAc,
+}
+
+impl OutputUnit {
+    /// Suffix used in column names, e.g. `yield_mean_t_ha`.
+    pub fn suffix(self) -> &'static str {
+        match self {
+            OutputUnit::THa => "t_ha",
+            OutputUnit::BuAc => "bu_ac",
+        }
+    }
+    /// Human label, e.g. `t/ha`.
+    pub fn label(self) -> &'static str {
+        match self {
+            OutputUnit::THa => "t/ha",
+            OutputUnit::BuAc => "bu/ac",
+        }
+    }
+    /// Convert kg/ha at standard moisture to this unit.
+    pub fn from_kg_ha(self, kg_ha: f64, crop: &Crop) -> f64 {
+        match self {
+            OutputUnit::THa => kg_ha / 1000.0,
+            // 1 lb/ac = 1.120851 kg/ha (definitions of the pound and the acre).
+            OutputUnit::BuAc => kg_ha / LB_AC_IN_KG_HA / crop.bushel_lb,
+        }
+    }
+}
+
+/// 1 lb/ac in kg/ha: 0.45359237 kg / 0.40468564224 ha (definitions of pound and acre).
+pub const LB_AC_IN_KG_HA: f64 = 0.45359237 / 0.40468564224;
+
+/// `[trial]`: what the trial is.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TrialSection {
+    pub name: String,
+    /// A crop of `config/crops.toml`.
+    pub crop: String,
+    pub output_unit: OutputUnit,
+    /// The check (control) treatment name, as in the design table.
+    pub check: String,
+}
+
+/// `[inputs]`: files, relative to the trial file.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct InputsSection {
+    /// Monitor export CSVs, or folders whose `*.csv` files are all taken (sorted by name).
+    pub monitor: Vec<String>,
+    /// Plot boundaries, GeoJSON (RFC 7946, WGS84 lon/lat).
+    pub plots: String,
+    /// Feature property holding the plot id.
+    pub plot_id_property: String,
+    /// Design table CSV with columns plot_id, treatment, block, field.
+    pub design: String,
+}
+
+/// Mass-flow units a monitor may log.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum FlowUnit {
+    KgS,
+    LbS,
+}
+/// Speed units a monitor may log.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum SpeedUnit {
+    MS,
+    KmH,
+    Mph,
+}
+/// Width units a monitor may log.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum WidthUnit {
+    M,
+    Ft,
+    In,
+}
+/// Timestamp formats a monitor may log.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum TimeFormat {
+    /// `2026-09-14T10:22:05Z`, `2026-09-14 10:22:05.5`, optional offset `+02:00`.
+    Iso8601,
+    /// Seconds since 1970-01-01 UTC.
+    UnixS,
+}
+
+/// A mapped column with its unit.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Mapped<U> {
+    pub name: String,
+    pub unit: U,
+}
+
+/// `[columns]`: how the monitor export names and scales its columns.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ColumnsSection {
+    /// Field delimiter, one character.
+    pub delimiter: String,
+    pub time: TimeColumn,
+    pub longitude: String,
+    pub latitude: String,
+    pub flow: Mapped<FlowUnit>,
+    pub speed: Mapped<SpeedUnit>,
+    pub width: Mapped<WidthUnit>,
+    /// Grain moisture column, in percent (wet basis).
+    pub moisture: String,
+}
+
+/// Time column and its format.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TimeColumn {
+    pub name: String,
+    pub format: TimeFormat,
+}
+
+/// `[ingest]` settings.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct IngestSettings {
+    pub utm_zone: i64,
+    pub hemisphere: String,
+}
+
+/// `[clean.pass]`.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PassSettings {
+    pub max_gap_s: f64,
+    pub max_heading_change_deg: f64,
+    pub min_pass_s: f64,
+    pub start_trim_s: f64,
+    pub end_trim_s: f64,
+}
+/// `[clean.speed]`.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SpeedSettings {
+    pub min_m_s: f64,
+    pub max_m_s: f64,
+}
+/// `[clean.swath]`.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SwathSettings {
+    pub min_fraction: f64,
+}
+/// `[clean.moisture]`.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct MoistureSettings {
+    pub min_pct: f64,
+    pub max_pct: f64,
+}
+/// `[clean.gps]`.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct GpsSettings {
+    pub jump_factor: f64,
+    pub jump_tolerance_m: f64,
+}
+/// `[clean.outlier]`.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct OutlierSettings {
+    pub k_mad: f64,
+}
+
+/// `[clean]` settings.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct CleanSettings {
+    pub header_width_m: f64,
+    pub flow_delay_s: f64,
+    pub moisture_delay_s: f64,
+    pub pass: PassSettings,
+    pub speed: SpeedSettings,
+    pub swath: SwathSettings,
+    pub moisture: MoistureSettings,
+    pub gps: GpsSettings,
+    pub outlier: OutlierSettings,
+}
+
+/// `[plots]` settings.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PlotsSettings {
+    pub min_points: i64,
+}
+
+/// `[adjust]` settings.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AdjustSettings {
+    pub kernel: String,
+    pub blocks: bool,
+    pub min_range_m: f64,
+    pub max_range_m: f64,
+    pub starts_per_axis: i64,
+}
+
+/// `[report]` settings.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReportSettings {
+    pub decimals: i64,
+}
+
+/// The whole trial configuration after defaults and overrides.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TrialConfig {
+    pub trial: TrialSection,
+    pub inputs: InputsSection,
+    pub columns: ColumnsSection,
+    pub ingest: IngestSettings,
+    pub clean: CleanSettings,
+    pub plots: PlotsSettings,
+    pub adjust: AdjustSettings,
+    pub report: ReportSettings,
+}
+
+/// One crop of the crop table.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct Crop {
+    pub standard_moisture_pct: f64,
+    pub bushel_lb: f64,
+    pub yield_min_kg_ha: f64,
+    pub yield_max_kg_ha: f64,
+}
+
+/// The crop table of `config/crops.toml`.
+pub fn crop_table() -> BTreeMap<String, Crop> {
+    toml::from_str(CROPS_TOML).expect("config/crops.toml is valid (checked by a unit test)")
+}
+
+fn type_name(v: &Value) -> &'static str {
+    match v {
+        Value::String(_) => "a string",
+        Value::Integer(_) => "an integer",
+        Value::Float(_) => "a number",
+        Value::Boolean(_) => "true or false",
+        Value::Datetime(_) => "a date-time",
+        Value::Array(_) => "a list",
+        Value::Table(_) => "a table",
+    }
+}
+
+/// Merge `over` into `base`, checking settings keys against the defaults.
+fn merge(base: &mut Value, over: Value, path: &str, strict: bool) -> Result<(), ConfigError> {
+    match (base, over) {
+        (Value::Table(bt), Value::Table(ot)) => {
+            for (k, ov) in ot {
+                let key = if path.is_empty() {
+                    k.clone()
+                } else {
+                    format!("{path}.{k}")
+                };
+                let child_strict = strict
+                    || (path.is_empty()
+                        && SETTINGS_SECTIONS.contains(&k.as_str())
+                        && k != "inputs")
+                    || (path == "inputs" && !TRIAL_INPUT_KEYS.contains(&k.as_str()));
+                match bt.get_mut(&k) {
+                    Some(bv) => merge(bv, ov, &key, child_strict)?,
+                    None => {
+                        if child_strict {
+                            return Err(ConfigError::UnknownKey {
+                                key,
+                                hint: "not a setting (see config/defaults.toml for every key)"
+                                    .into(),
+                            });
+                        }
+                        bt.insert(k, ov);
+                    }
+                }
+            }
+            Ok(())
+        }
+        (b, o) => {
+            if !strict {
+                *b = o;
+                return Ok(());
+            }
+            let ok = std::mem::discriminant(b) == std::mem::discriminant(&o)
+                || matches!((&*b, &o), (Value::Float(_), Value::Integer(_)));
+            if !ok {
+                return Err(ConfigError::WrongType {
+                    key: path.to_string(),
+                    expected: type_name(b).to_string(),
+                    found: format!("{} ({})", type_name(&o), o),
+                });
+            }
+            *b = match (&*b, o) {
+                (Value::Float(_), Value::Integer(i)) => Value::Float(i as f64),
+                (_, o) => o,
+            };
+            Ok(())
+        }
+    }
+}
+
+/// Parse a `--set` value: TOML syntax (numbers, booleans, quoted strings, lists), or a bare
+/// word taken as a string.
+fn parse_override_value(text: &str) -> Value {
+    match toml::from_str::<toml::Table>(&format!("v = {text}")) {
+        Ok(mut t) => t.remove("v").unwrap_or(Value::String(text.to_string())),
+        Err(_) => Value::String(text.to_string()),
+    }
+}
+
+/// Apply one `KEY=VALUE` override to a merged tree; the key must exist.
+fn apply_override(tree: &mut Value, spec: &str) -> Result<(), ConfigError> {
+    let (key, text) = spec
+        .split_once('=')
+        .ok_or_else(|| ConfigError::BadOverride(spec.to_string()))?;
+    let key = key.trim();
+    let mut node = &mut *tree;
+    for part in key.split('.') {
+        node = match node {
+            Value::Table(t) => t.get_mut(part).ok_or_else(|| ConfigError::UnknownKey {
+                key: key.to_string(),
+                hint: "no such key in the configuration (see config/defaults.toml)".into(),
+            })?,
+            _ => {
+                return Err(ConfigError::UnknownKey {
+                    key: key.to_string(),
+                    hint: "a part of it is a value, not a section".into(),
+                })
+            }
+        };
+    }
+    if let Value::Table(_) = node {
+        return Err(ConfigError::UnknownKey {
+            key: key.to_string(),
+            hint: "this is a section; set one of its keys".into(),
+        });
+    }
+    let new = parse_override_value(text.trim());
+    let mut tmp = node.clone();
+    merge(&mut tmp, new, key, true)?;
+    *node = tmp;
+    Ok(())
+}
+
+impl TrialConfig {
+    /// Load from the trial file's text with overrides; `file` names it in errors.
+    pub fn from_toml(text: &str, file: &str, overrides: &[String]) -> Result<Self, ConfigError> {
+        let mut tree: Value =
+            Value::Table(
+                toml::from_str(DEFAULTS_TOML).map_err(|e| ConfigError::Syntax {
+                    file: "config/defaults.toml".into(),
+                    message: e.to_string(),
+                })?,
+            );
+        let trial: Value = Value::Table(toml::from_str(text).map_err(|e| ConfigError::Syntax {
+            file: file.to_string(),
+            message: e.to_string(),
+        })?);
+        merge(&mut tree, trial, "", false)?;
+        for o in overrides {
+            apply_override(&mut tree, o)?;
+        }
+        let cfg: TrialConfig =
+            serde_path_to_error::deserialize(tree).map_err(|e| ConfigError::Shape {
+                path: e.path().to_string(),
+                message: e.inner().to_string(),
+            })?;
+        cfg.validate()?;
+        Ok(cfg)
+    }
+
+    /// The crop of this trial from the crop table.
+    pub fn crop(&self) -> Result<Crop, ConfigError> {
+        let table = crop_table();
+        table
+            .get(&self.trial.crop)
+            .cloned()
+            .ok_or_else(|| ConfigError::UnknownCrop {
+                crop: self.trial.crop.clone(),
+                known: table.keys().cloned().collect::<Vec<_>>().join(", "),
+            })
+    }
+
+    /// Check ranges and orderings; every problem names its key.
+    pub fn validate(&self) -> Result<(), ConfigError> {
+        let mut p = Vec::new();
+        let c = &self.clean;
+        let mut nonneg = |key: &str, v: f64| {
+            if !(v >= 0.0) || !v.is_finite() {
+                p.push(format!("{key} must be a finite number >= 0 (got {v})"));
+            }
+        };
+        nonneg("clean.header_width_m", c.header_width_m);
+        nonneg("clean.flow_delay_s", c.flow_delay_s);
+        nonneg("clean.moisture_delay_s", c.moisture_delay_s);
+        nonneg("clean.pass.max_gap_s", c.pass.max_gap_s);
+        nonneg(
+            "clean.pass.max_heading_change_deg",
+            c.pass.max_heading_change_deg,
+        );
+        nonneg("clean.pass.min_pass_s", c.pass.min_pass_s);
+        nonneg("clean.pass.start_trim_s", c.pass.start_trim_s);
+        nonneg("clean.pass.end_trim_s", c.pass.end_trim_s);
+        nonneg("clean.speed.min_m_s", c.speed.min_m_s);
+        nonneg("clean.speed.max_m_s", c.speed.max_m_s);
+        nonneg("clean.swath.min_fraction", c.swath.min_fraction);
+        nonneg("clean.moisture.min_pct", c.moisture.min_pct);
+        nonneg("clean.moisture.max_pct", c.moisture.max_pct);
+        nonneg("clean.gps.jump_factor", c.gps.jump_factor);
+        nonneg("clean.gps.jump_tolerance_m", c.gps.jump_tolerance_m);
+        nonneg("clean.outlier.k_mad", c.outlier.k_mad);
+        nonneg("adjust.min_range_m", self.adjust.min_range_m);
+        nonneg("adjust.max_range_m", self.adjust.max_range_m);
+        if c.speed.min_m_s >= c.speed.max_m_s {
+            p.push(format!(
+                "clean.speed.min_m_s must be below clean.speed.max_m_s (got {} and {})",
+                c.speed.min_m_s, c.speed.max_m_s
+            ));
+        }
+        if c.moisture.min_pct >= c.moisture.max_pct {
+            p.push(format!(
+                "clean.moisture.min_pct must be below clean.moisture.max_pct (got {} and {})",
+                c.moisture.min_pct, c.moisture.max_pct
+            ));
+        }
+        if c.moisture.max_pct >= 100.0 {
+            p.push(format!(
+                "clean.moisture.max_pct must be below 100 (got {})",
+                c.moisture.max_pct
+            ));
+        }
+        if c.swath.min_fraction > 1.0 {
+            p.push(format!(
+                "clean.swath.min_fraction must be at most 1 (got {})",
+                c.swath.min_fraction
+            ));
+        }
+        if c.gps.jump_factor < 1.0 {
+            p.push(format!(
+                "clean.gps.jump_factor must be at least 1 (got {})",
+                c.gps.jump_factor
+            ));
+        }
+        if self.adjust.max_range_m > 0.0 && self.adjust.min_range_m >= self.adjust.max_range_m {
+            p.push(format!(
+                "adjust.min_range_m must be below adjust.max_range_m (got {} and {})",
+                self.adjust.min_range_m, self.adjust.max_range_m
+            ));
+        }
+        if self.adjust.kernel != "matern52" {
+            p.push(format!(
+                "adjust.kernel: unknown kernel {:?} (known: matern52)",
+                self.adjust.kernel
+            ));
+        }
+        if !(1..=9).contains(&self.adjust.starts_per_axis) {
+            p.push(format!(
+                "adjust.starts_per_axis must be between 1 and 9 (got {})",
+                self.adjust.starts_per_axis
+            ));
+        }
+        if self.plots.min_points < 1 {
+            p.push(format!(
+                "plots.min_points must be at least 1 (got {})",
+                self.plots.min_points
+            ));
+        }
+        if !(0..=6).contains(&self.report.decimals) {
+            p.push(format!(
+                "report.decimals must be between 0 and 6 (got {})",
+                self.report.decimals
+            ));
+        }
+        if !(0..=60).contains(&self.ingest.utm_zone) {
+            p.push(format!(
+                "ingest.utm_zone must be 0 (automatic) or a zone 1-60 (got {})",
+                self.ingest.utm_zone
+            ));
+        }
+        if !["auto", "north", "south"].contains(&self.ingest.hemisphere.as_str()) {
+            p.push(format!(
+                "ingest.hemisphere must be \"auto\", \"north\" or \"south\" (got {:?})",
+                self.ingest.hemisphere
+            ));
+        }
+        if self.columns.delimiter.chars().count() != 1 {
+            p.push(format!(
+                "columns.delimiter must be one character (got {:?})",
+                self.columns.delimiter
+            ));
+        }
+        if self.inputs.monitor.is_empty() {
+            p.push("inputs.monitor must list at least one export file or folder".into());
+        }
+        if p.is_empty() {
+            Ok(())
+        } else {
+            Err(ConfigError::Invalid(p))
+        }
+    }
+}
+
+#[cfg(test)]
+pub(crate) const TEST_TRIAL: &str = r#"
+[trial]
+name = "unit"
+crop = "corn"
+output_unit = "t_ha"
+check = "CHK"
+[inputs]
+monitor = ["m.csv"]
+plots = "p.geojson"
+design = "d.csv"
+[columns]
+delimiter = ","
+time = { name = "t", format = "unix_s" }
+longitude = "lon"
+latitude = "lat"
+flow = { name = "f", unit = "kg_s" }
+speed = { name = "s", unit = "m_s" }
+width = { name = "w", unit = "m" }
+moisture = "m"
+"#;
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn defaults_and_crops_parse() {
+        let cfg = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[]).unwrap();
+        assert_eq!(cfg.clean.speed.min_m_s, 0.5);
+        assert_eq!(cfg.inputs.plot_id_property, "plot_id");
+        let crops = crop_table();
+        // Standard moistures as listed in ../shared/CHECKS.md (EDIS AG442 for corn, OSU for
+        // soybean) and bushel weights (USDA ERS AH-697).
+        assert_eq!(crops["corn"].standard_moisture_pct, 15.5);
+        assert_eq!(crops["soybean"].standard_moisture_pct, 13.0);
+        assert_eq!(crops["corn"].bushel_lb, 56.0);
+        assert_eq!(crops["oats"].bushel_lb, 32.0);
+    }
+
+    #[test]
+    fn override_changes_value_and_converts_integers() {
+        let o = vec!["clean.speed.min_m_s=1".to_string()];
+        let cfg = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &o).unwrap();
+        assert_eq!(cfg.clean.speed.min_m_s, 1.0);
+    }
+
+    #[test]
+    fn unknown_key_and_wrong_type_name_the_key() {
+        let e = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &["clean.speed.minn=1".into()])
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("clean.speed.minn"), "{e}");
+        let e = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &["clean.speed.min_m_s=abc".into()])
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("clean.speed.min_m_s") && e.contains("a number"),
+            "{e}"
+        );
+        let bad = format!("{TEST_TRIAL}\n[plots]\nmin_pointz = 3\n");
+        let e = TrialConfig::from_toml(&bad, "t.toml", &[])
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("plots.min_pointz"), "{e}");
+    }
+
+    #[test]
+    fn invalid_ranges_name_the_keys() {
+        let o = vec![
+            "clean.speed.min_m_s=3.0".to_string(),
+            "clean.speed.max_m_s=2.5".to_string(),
+            "clean.flow_delay_s=-1".to_string(),
+        ];
+        let e = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &o)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("clean.speed.min_m_s must be below clean.speed.max_m_s (got 3 and 2.5)"),
+            "{e}"
+        );
+        assert!(e.contains("clean.flow_delay_s must be"), "{e}");
+    }
+
+    #[test]
+    fn unit_conversion_matches_checks_table() {
+        // ../shared/CHECKS.md: 1 lb/ac = 1.120851 kg/ha; corn 1 bu/ac = 62.77 kg/ha.
+        assert!((LB_AC_IN_KG_HA - 1.120851).abs() < 1e-6);
+        let corn = crop_table()["corn"].clone();
+        let one_bu = OutputUnit::BuAc.from_kg_ha(62.77, &corn);
+        assert!((one_bu - 1.0).abs() < 1e-3, "{one_bu}");
+    }
+}

@@ -1,0 +1,15 @@
+//! plotsieve's stages as a library: each stage takes typed input and settings and returns
+//! typed output with its rejections, with no knowledge of the command line or the run
+//! folder. Stage order: [`ingest`] -> [`clean`] -> [`plots`] -> [`adjust`] -> [`report`].
+//! [`simulate`] invents complete trials with known truth for tests and demos.
+
+pub mod adjust;
+pub mod clean;
+pub mod config;
+pub mod ingest;
+pub mod plots;
+pub mod projection;
+pub mod report;
+pub mod simulate;
+pub mod table;
+pub mod util;

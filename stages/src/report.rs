@@ -1,0 +1,117 @@
+//! Report: a Markdown summary of a run: counts per stage and rule, the fitted spatial
+//! hyperparameters and the treatment table, with the cautions that go with them.
+
+use crate::adjust::{FieldHyper, TreatmentRow};
+use crate::table::StageSummary;
+use crate::util::fmt;
+use std::fmt::Write as _;
+
+/// What the report is made from.
+pub struct ReportInput<'a> {
+    pub trial_name: &'a str,
+    pub unit_label: &'a str,
+    pub check: &'a str,
+    pub decimals: usize,
+    pub summaries: &'a [StageSummary],
+    pub treatments: &'a [TreatmentRow],
+    pub hyper: &'a [FieldHyper],
+    pub warnings: &'a [String],
+}
+
+/// The cautions printed with every report.
+pub const CAUTION: &str = "Results are statistical estimates under the model's assumptions \
+(a Gaussian-process spatial trend, independent plot noise, effects constant within a field, \
+hyperparameters fixed at their best fit). They are not proof of product performance. \
+Product claims must follow local regulations and licensed agronomic advice.";
+
+/// Render the Markdown report.
+pub fn markdown(r: &ReportInput) -> String {
+    let d = r.decimals;
+    let mut s = String::new();
+    let _ = writeln!(s, "# plotsieve report: {}\n", r.trial_name);
+    let _ = writeln!(s, "> **Caution.** {CAUTION}\n");
+    let _ = writeln!(s, "## Points and plots per stage\n");
+    let _ = writeln!(s, "| stage | counted | in | kept | rejected |");
+    let _ = writeln!(s, "|---|---|---:|---:|---:|");
+    for x in r.summaries {
+        let _ = writeln!(
+            s,
+            "| {} | {} | {} | {} | {} |",
+            x.stage, x.unit, x.count_in, x.kept, x.rejected
+        );
+        if let Some(p) = &x.plots {
+            let _ = writeln!(
+                s,
+                "| {} | plots | {} | {} | {} |",
+                x.stage, p.count_in, p.kept, p.set_aside
+            );
+        }
+    }
+    let _ = writeln!(s, "\n## Removals by rule\n");
+    let _ = writeln!(s, "| stage | rule | removed |");
+    let _ = writeln!(s, "|---|---|---:|");
+    for x in r.summaries {
+        for (rule, n) in &x.by_rule {
+            let _ = writeln!(s, "| {} | {} | {} |", x.stage, rule, n);
+        }
+        if let Some(p) = &x.plots {
+            for (rule, n) in &p.by_rule {
+                let _ = writeln!(s, "| {} | {} (plots) | {} |", x.stage, rule, n);
+            }
+        }
+    }
+    let _ = writeln!(s, "\n## Spatial model per field\n");
+    let _ = writeln!(
+        s,
+        "| field | plots | range (m) | spatial SD ({u}) | noise SD ({u}) | spatial share | note |",
+        u = r.unit_label
+    );
+    let _ = writeln!(s, "|---|---:|---:|---:|---:|---:|---|");
+    for h in r.hyper {
+        let _ = writeln!(
+            s,
+            "| {} | {} | {:.1} | {} | {} | {:.2} | {} |",
+            h.field,
+            h.plots,
+            h.range_m,
+            fmt(h.spatial_sd, d + 1),
+            fmt(h.noise_sd, d + 1),
+            h.spatial_share,
+            h.warning
+        );
+    }
+    let _ = writeln!(s, "\n## Treatments against the check ({})\n", r.check);
+    let _ = writeln!(s, "Yields in {u} at standard moisture; uplift = treatment minus check; 95 % intervals; field `all` pools the fields by inverse-variance weighting.\n", u = r.unit_label);
+    let _ = writeln!(s, "| field | treatment | plots | estimate | SD | uplift | uplift 95 % interval | P(uplift > 0) |");
+    let _ = writeln!(s, "|---|---|---:|---:|---:|---:|---|---:|");
+    for t in r.treatments {
+        let (up, ci, p) = if t.uplift.is_nan() {
+            ("(check)".to_string(), String::new(), String::new())
+        } else {
+            (
+                fmt(t.uplift, d),
+                format!("{} to {}", fmt(t.uplift_lo95, d), fmt(t.uplift_hi95, d)),
+                format!("{:.3}", t.p_uplift_gt0),
+            )
+        };
+        let _ = writeln!(
+            s,
+            "| {} | {} | {} | {} | {} | {} | {} | {} |",
+            t.field,
+            t.treatment,
+            t.plots,
+            fmt(t.estimate, d),
+            fmt(t.sd, d),
+            up,
+            ci,
+            p
+        );
+    }
+    if !r.warnings.is_empty() {
+        let _ = writeln!(s, "\n## Warnings\n");
+        for w in r.warnings {
+            let _ = writeln!(s, "- {w}");
+        }
+    }
+    s
+}

@@ -1,0 +1,535 @@
+//! Simulator: an invented replicated trial harvested by a yield-monitor combine, with known
+//! truth.
+//!
+//! Scenario (invented): the "Brackenmoor trial station" runs a randomised complete block
+//! trial of a check and five products on two or more fields. Each field is a grid of plots
+//! (two header passes wide, blocks along the direction of travel) rotated to its own
+//! bearing. A combine with a 9.144 m (30 ft) header harvests it in serpentine passes at
+//! 1 Hz, at 2.0-2.4 m/s, turning on the headlands with the header up.
+//!
+//! Truth: yield at standard moisture = base + smooth trend + product effect + plot noise +
+//! point noise. The trend is a Gaussian-process sample drawn by random Fourier features
+//! (Rahimi & Recht 2007) of a squared-exponential kernel, with an SD several times the
+//! product effects.
+//!
+//! Artifacts, each labelled per record in `truth.json`: a flow delay of 8-14 s and a
+//! first-order grain-mixing lag (fill ramps at pass starts, `pass_fill`), header-up turns
+//! (`turn`), speed dips (`speed_dip`), a partial-width pass (`partial_swath`), GPS jumps
+//! (`gps_jump`) and flow-sensor spikes (`spike`); moisture varies between 14 and 24 %.
+
+use crate::util::Rng;
+use serde_json::json;
+use std::collections::BTreeMap;
+use std::fmt::Write as _;
+
+/// Header width of the simulated combine, metres (30 ft).
+pub const HEADER_M: f64 = 9.144;
+/// Metres per degree of latitude on the local tangent plane (mean Earth radius 6 371 km).
+const M_PER_DEG: f64 = 6_371_000.0 * std::f64::consts::PI / 180.0;
+
+/// Size and seed of a simulated trial.
+#[derive(Clone, Debug)]
+pub struct SimOptions {
+    pub seed: u64,
+    pub fields: usize,
+    /// Blocks (replicates) per field; each block is one range of plots.
+    pub blocks: usize,
+    /// Plot length along the direction of travel, metres.
+    pub plot_length_m: f64,
+    /// SD of the spatial trend, kg/ha.
+    pub trend_sd_kg_ha: f64,
+    /// Scale of all product effects (1 = the defaults below; 0 = no true effects).
+    pub effect_scale: f64,
+}
+
+impl Default for SimOptions {
+    fn default() -> Self {
+        SimOptions {
+            seed: 1,
+            fields: 2,
+            blocks: 4,
+            plot_length_m: 60.0,
+            trend_sd_kg_ha: 1200.0,
+            effect_scale: 1.0,
+        }
+    }
+}
+
+/// Treatments and their true effects in kg/ha at standard moisture.
+pub const TREATMENTS: &[(&str, f64)] = &[
+    ("check", 0.0),
+    ("prod-a", 400.0),
+    ("prod-b", 200.0),
+    ("prod-c", 0.0),
+    ("prod-d", 600.0),
+    ("prod-e", -200.0),
+];
+
+/// A simulated trial, as file contents.
+pub struct SimTrial {
+    /// (relative path, contents) of every file, including `trial.toml` and `truth.json`.
+    pub files: Vec<(String, String)>,
+    pub points: usize,
+}
+
+/// A smooth random field: random Fourier features of a squared-exponential kernel.
+struct Trend {
+    w: Vec<(f64, f64, f64)>,
+    sd: f64,
+}
+
+impl Trend {
+    fn new(rng: &mut Rng, length_m: f64, sd: f64) -> Self {
+        let w = (0..300)
+            .map(|_| {
+                (
+                    rng.normal() / length_m,
+                    rng.normal() / length_m,
+                    rng.range(0.0, 2.0 * std::f64::consts::PI),
+                )
+            })
+            .collect();
+        Trend { w, sd }
+    }
+    fn at(&self, x: f64, y: f64) -> f64 {
+        let m = self.w.len() as f64;
+        self.sd
+            * (2.0 / m).sqrt()
+            * self
+                .w
+                .iter()
+                .map(|(a, b, c)| (a * x + b * y + c).cos())
+                .sum::<f64>()
+    }
+}
+
+/// One field's geometry: origin, bearing and the local frame (u along travel, v across).
+struct Frame {
+    lon0: f64,
+    lat0: f64,
+    sin: f64,
+    cos: f64,
+}
+
+impl Frame {
+    /// East and north metres of local (u, v).
+    fn en(&self, u: f64, v: f64) -> (f64, f64) {
+        (u * self.sin + v * self.cos, u * self.cos - v * self.sin)
+    }
+    fn lonlat(&self, u: f64, v: f64) -> (f64, f64) {
+        let (e, n) = self.en(u, v);
+        (
+            self.lon0 + e / (M_PER_DEG * self.lat0.to_radians().cos()),
+            self.lat0 + n / M_PER_DEG,
+        )
+    }
+}
+
+/// Generate a trial.
+pub fn generate(o: &SimOptions) -> SimTrial {
+    let mut rng = Rng::new(o.seed);
+    let delay = rng.range(8.0, 14.0);
+    let moisture_delay = (delay - 3.0).max(4.0);
+    let tau: f64 = 2.5; // grain-mixing time constant, s
+    let base = 11_000.0;
+    let width_plot = 2.0 * HEADER_M;
+    let alley = 6.0;
+    let headland = 20.0;
+    let ncol = TREATMENTS.len();
+    let length_u =
+        2.0 * headland + o.blocks as f64 * o.plot_length_m + (o.blocks - 1) as f64 * alley;
+    let mut files = Vec::new();
+    let mut design = String::from("plot_id,treatment,block,field\n");
+    let mut features = Vec::new();
+    let mut truth_plots = Vec::new();
+    let mut artifacts: BTreeMap<String, BTreeMap<&str, Vec<u64>>> = BTreeMap::new();
+    let mut total_points = 0;
+    let t_start = 1_789_722_000.0; // 2026-09-18T09:00:00Z
+    for f in 0..o.fields {
+        let fname = format!("{}", (b'A' + (f % 26) as u8) as char);
+        let bearing = rng.range(-30.0f64, 30.0).to_radians();
+        let frame = Frame {
+            lon0: -97.80 + 0.02 * f as f64,
+            lat0: 40.60 + 0.004 * (f % 3) as f64,
+            sin: bearing.sin(),
+            cos: bearing.cos(),
+        };
+        let trend = Trend::new(&mut rng, 70.0, o.trend_sd_kg_ha);
+        let moist = Trend::new(&mut rng, 120.0, 2.5);
+        // RCBD: each block a range, treatments shuffled across its columns.
+        let mut layout = vec![vec![0usize; ncol]; o.blocks];
+        let mut plot_noise = vec![vec![0.0; ncol]; o.blocks];
+        for (b, row) in layout.iter_mut().enumerate() {
+            let mut perm: Vec<usize> = (0..ncol).collect();
+            rng.shuffle(&mut perm);
+            *row = perm;
+            for c in 0..ncol {
+                plot_noise[b][c] = 250.0 * rng.normal();
+            }
+        }
+        let plot_at = |u: f64, v: f64| -> Option<(usize, usize)> {
+            if v < 0.0 || v >= ncol as f64 * width_plot {
+                return None;
+            }
+            let c = (v / width_plot) as usize;
+            let uu = u - headland;
+            if uu < 0.0 {
+                return None;
+            }
+            let b = (uu / (o.plot_length_m + alley)) as usize;
+            if b >= o.blocks || uu - b as f64 * (o.plot_length_m + alley) > o.plot_length_m {
+                return None;
+            }
+            Some((b, c))
+        };
+        for b in 0..o.blocks {
+            for c in 0..ncol {
+                let id = format!("{fname}-{}{:02}", b + 1, c + 1);
+                let (t, eff) = TREATMENTS[layout[b][c]];
+                let _ = writeln!(design, "{id},{t},{},{fname}", b + 1);
+                let u0 = headland + b as f64 * (o.plot_length_m + alley);
+                let (u1, v0, v1) = (
+                    u0 + o.plot_length_m,
+                    c as f64 * width_plot,
+                    (c + 1) as f64 * width_plot,
+                );
+                let mut ring: Vec<(f64, f64)> = [(u0, v0), (u1, v0), (u1, v1), (u0, v1), (u0, v0)]
+                    .iter()
+                    .map(|&(u, v)| frame.lonlat(u, v))
+                    .collect();
+                // RFC 7946: exterior rings counterclockwise.
+                let area2: f64 = ring
+                    .windows(2)
+                    .map(|w| w[0].0 * w[1].1 - w[1].0 * w[0].1)
+                    .sum();
+                if area2 < 0.0 {
+                    ring.reverse();
+                }
+                let coords: Vec<serde_json::Value> = ring
+                    .iter()
+                    .map(|&(x, y)| json!([(x * 1e8).round() / 1e8, (y * 1e8).round() / 1e8]))
+                    .collect();
+                features.push(json!({
+                    "type": "Feature",
+                    "properties": {"plot_id": id, "field": fname},
+                    "geometry": {"type": "Polygon", "coordinates": [coords]}
+                }));
+                let (cu, cv) = (0.5 * (u0 + u1), 0.5 * (v0 + v1));
+                let (ce, cn) = frame.en(cu, cv);
+                let tr = trend.at(ce, cn);
+                truth_plots.push(json!({
+                    "plot_id": id, "field": fname, "treatment": t, "block": (b + 1).to_string(),
+                    "trend_t_ha": tr / 1000.0,
+                    "true_yield_t_ha": (base + tr + eff * o.effect_scale + plot_noise[b][c]) / 1000.0,
+                }));
+            }
+        }
+        // The harvest: serpentine passes, one header width apart.
+        let npass = 2 * ncol;
+        let partial_pass = rng.below(npass);
+        let mut rows: Vec<Rec> = Vec::new();
+        let mut t = t_start + 7200.0 * f as f64;
+        for k in 0..npass {
+            let v = (k as f64 + 0.5) * HEADER_M;
+            let forward = k % 2 == 0;
+            let speed0 = rng.range(2.0, 2.4);
+            let width = if k == partial_pass {
+                HEADER_M * rng.range(0.5, 0.75)
+            } else {
+                HEADER_M
+            };
+            let mut u = 0.0;
+            let mut pass_t = 0.0;
+            let mut dip_left = 0.0f64;
+            let mut dip_speed = 0.0;
+            let mut after_dip = 0.0f64;
+            while u <= length_u {
+                if dip_left <= 0.0 && rng.uniform() < 0.006 && pass_t > 15.0 {
+                    dip_left = rng.range(4.0, 8.0);
+                    dip_speed = rng.range(0.5, 0.9);
+                }
+                let speed = if dip_left > 0.0 {
+                    dip_speed
+                } else {
+                    speed0 + 0.05 * rng.normal()
+                };
+                let pu = if forward { u } else { length_u - u };
+                let (e, n) = frame.en(pu, v);
+                let std = base
+                    + trend.at(e, n)
+                    + plot_at(pu, v)
+                        .map(|(b, c)| {
+                            TREATMENTS[layout[b][c]].1 * o.effect_scale + plot_noise[b][c]
+                        })
+                        .unwrap_or(0.0)
+                    + 400.0 * rng.normal();
+                let m = (18.0 + moist.at(e, n) + 0.2 * rng.normal()).clamp(14.0, 24.0);
+                let mut labels = Vec::new();
+                if pass_t < 3.0 * tau {
+                    labels.push("pass_fill");
+                }
+                if dip_left > 0.0 || after_dip > 0.0 {
+                    labels.push("speed_dip");
+                }
+                if k == partial_pass {
+                    labels.push("partial_swath");
+                }
+                rows.push(Rec {
+                    t,
+                    pu,
+                    v,
+                    speed,
+                    width,
+                    qin: std * (100.0 - 15.5) / (100.0 - m) * speed * width / 10_000.0,
+                    moisture: m,
+                    labels,
+                    frame_lonlat: (0.0, 0.0),
+                });
+                if dip_left > 0.0 {
+                    dip_left -= 1.0;
+                    if dip_left <= 0.0 {
+                        after_dip = 3.0;
+                    }
+                } else if after_dip > 0.0 {
+                    after_dip -= 1.0;
+                }
+                u += speed;
+                t += 1.0;
+                pass_t += 1.0;
+            }
+            // Header-up turn: a half circle beyond the end of the pass at 1.5 m/s.
+            if k + 1 < npass {
+                let r = 0.5 * HEADER_M;
+                let steps = (std::f64::consts::PI * r / 1.5).ceil() as usize;
+                let end_u = if forward { length_u } else { 0.0 };
+                for s in 1..=steps {
+                    let a = std::f64::consts::PI * s as f64 / steps as f64;
+                    let du = r * a.sin();
+                    let pu = if forward { end_u + du } else { end_u - du };
+                    let pv = v + r * (1.0 - a.cos());
+                    rows.push(Rec {
+                        t,
+                        pu,
+                        v: pv,
+                        speed: 1.5,
+                        width,
+                        qin: 0.0,
+                        moisture: 18.0,
+                        labels: vec!["turn"],
+                        frame_lonlat: (0.0, 0.0),
+                    });
+                    t += 1.0;
+                }
+            }
+        }
+        // Sensors: mixing lag then transport delay for flow; delay for moisture.
+        let n = rows.len();
+        let mut mixed = vec![0.0; n];
+        let alpha = 1.0 - (-1.0 / tau).exp();
+        let mut state = 0.0;
+        for i in 0..n {
+            state += alpha * (rows[i].qin - state);
+            mixed[i] = state;
+        }
+        let lag = |series: &[f64], i: usize, d: f64| -> f64 {
+            let x = i as f64 - d;
+            if x <= 0.0 {
+                return 0.0;
+            }
+            let j = x.floor() as usize;
+            let w = x - j as f64;
+            series[j] * (1.0 - w) + series[(j + 1).min(n - 1)] * w
+        };
+        let moist_series: Vec<f64> = rows.iter().map(|r| r.moisture).collect();
+        let mut csv = String::from(
+            "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg\n",
+        );
+        let file_name = format!("monitor/field-{fname}.csv");
+        let mut labels_out: BTreeMap<&str, Vec<u64>> = BTreeMap::new();
+        for i in 0..n {
+            let mut flow = lag(&mixed, i, delay) * (1.0 + 0.02 * rng.normal());
+            let mut moisture =
+                lag(&moist_series, i, moisture_delay).max(14.0) + 0.15 * rng.normal();
+            if i as f64 <= moisture_delay {
+                moisture = 18.0;
+            }
+            let r = &mut rows[i];
+            if rng.uniform() < 0.004 {
+                flow *= if rng.uniform() < 0.5 {
+                    rng.range(3.0, 5.0)
+                } else {
+                    0.1
+                };
+                r.labels.push("spike");
+            }
+            let (mut pu, mut pv) = (r.pu, r.v);
+            if rng.uniform() < 0.003 {
+                let a = rng.range(0.0, 2.0 * std::f64::consts::PI);
+                let d = rng.range(25.0, 60.0);
+                pu += d * a.cos();
+                pv += d * a.sin();
+                r.labels.push("gps_jump");
+            }
+            r.frame_lonlat = frame.lonlat(pu, pv);
+            let line = i as u64 + 2;
+            for l in &r.labels {
+                labels_out.entry(l).or_default().push(line);
+            }
+            let heading = if i + 1 < n {
+                let (e0, n0) = frame.en(rows[i].pu, rows[i].v);
+                let (e1, n1) = frame.en(rows[i + 1].pu, rows[i + 1].v);
+                (e1 - e0).atan2(n1 - n0).to_degrees().rem_euclid(360.0)
+            } else {
+                0.0
+            };
+            let r = &rows[i];
+            let _ = writeln!(
+                csv,
+                "{},{:.8},{:.8},{:.4},{:.3},{:.2},{:.2},{:.1}",
+                iso(r.t),
+                r.frame_lonlat.0,
+                r.frame_lonlat.1,
+                flow.max(0.0) / 0.45359237,
+                r.speed / 0.44704,
+                r.width / 0.3048,
+                moisture.clamp(5.0, 40.0),
+                heading
+            );
+        }
+        total_points += n;
+        artifacts.insert(file_name.clone(), labels_out);
+        files.push((file_name, csv));
+    }
+    let geo = json!({"type": "FeatureCollection", "features": features});
+    files.push((
+        "plots.geojson".into(),
+        serde_json::to_string_pretty(&geo).unwrap() + "\n",
+    ));
+    files.push(("design.csv".into(), design));
+    let effects: BTreeMap<&str, f64> = TREATMENTS
+        .iter()
+        .map(|(t, e)| (*t, e * o.effect_scale / 1000.0))
+        .collect();
+    let truth = json!({
+        "scenario": "Brackenmoor trial station (invented)",
+        "seed": o.seed,
+        "unit": "t_ha",
+        "flow_delay_s": delay,
+        "moisture_delay_s": moisture_delay,
+        "mixing_time_constant_s": tau,
+        "header_width_m": HEADER_M,
+        "effects_t_ha": effects,
+        "plots": truth_plots,
+        "artifacts": artifacts,
+    });
+    files.push((
+        "truth.json".into(),
+        serde_json::to_string_pretty(&truth).unwrap() + "\n",
+    ));
+    files.push((
+        "trial.toml".into(),
+        trial_toml(o.seed, delay.round(), moisture_delay.round()),
+    ));
+    SimTrial {
+        files,
+        points: total_points,
+    }
+}
+
+struct Rec {
+    t: f64,
+    pu: f64,
+    v: f64,
+    speed: f64,
+    width: f64,
+    qin: f64,
+    moisture: f64,
+    labels: Vec<&'static str>,
+    frame_lonlat: (f64, f64),
+}
+
+/// ISO 8601 UTC from seconds since the epoch (Hinnant's `civil_from_days`).
+pub fn iso(t: f64) -> String {
+    let secs = t.floor() as i64;
+    let days = secs.div_euclid(86_400);
+    let rem = secs.rem_euclid(86_400);
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let d = doy - (153 * mp + 2) / 5 + 1;
+    let m = if mp < 10 { mp + 3 } else { mp - 9 };
+    let y = yoe + era * 400 + if m <= 2 { 1 } else { 0 };
+    format!(
+        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
+        rem / 3600,
+        rem / 60 % 60,
+        rem % 60
+    )
+}
+
+fn trial_toml(seed: u64, delay: f64, moisture_delay: f64) -> String {
+    format!(
+        r#"# An invented trial made by `plotsieve simulate --seed {seed}` (Brackenmoor trial station,
+# a made-up place). Paths are relative to this file.
+
+[trial]
+name = "Brackenmoor product trial, seed {seed}"
+crop = "corn"
+output_unit = "t_ha"
+check = "check"
+
+[inputs]
+monitor = ["monitor"]
+plots = "plots.geojson"
+plot_id_property = "plot_id"
+design = "design.csv"
+
+# How this combine's monitor names and scales its columns.
+[columns]
+delimiter = ","
+time = {{ name = "time_utc", format = "iso8601" }}
+longitude = "lon_deg"
+latitude = "lat_deg"
+flow = {{ name = "mass_flow_lb_s", unit = "lb_s" }}
+speed = {{ name = "speed_mph", unit = "mph" }}
+width = {{ name = "swath_ft", unit = "ft" }}
+moisture = "moisture_pct"
+
+[clean]
+# The delays calibrated on this combine, whole seconds.
+flow_delay_s = {delay:.1}
+moisture_delay_s = {moisture_delay:.1}
+"#
+    )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn iso_round_trip() {
+        assert_eq!(iso(946_684_800.0), "2000-01-01T00:00:00Z");
+        assert_eq!(iso(1_789_722_000.0), "2026-09-18T09:00:00Z");
+        assert_eq!(
+            crate::ingest::parse_iso8601(&iso(1_789_722_061.0)),
+            Some(1_789_722_061.0)
+        );
+    }
+
+    #[test]
+    fn same_seed_same_trial() {
+        let a = generate(&SimOptions::default());
+        let b = generate(&SimOptions::default());
+        assert_eq!(a.files, b.files);
+        let c = generate(&SimOptions {
+            seed: 2,
+            ..Default::default()
+        });
+        assert_ne!(a.files[0].1, c.files[0].1);
+        assert!(a.points > 3000, "{}", a.points);
+    }
+}

@@ -1,0 +1,144 @@
+//! Typed tables passed between stages: monitor points, rejections and stage summaries.
+
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+
+/// One monitor record after ingest: SI units, projected coordinates.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Point {
+    /// Sequence number over all exports of the trial, in ingest order.
+    pub id: u64,
+    /// Index into [`PointSet::files`].
+    pub file: u32,
+    /// Line number in the source file (the header is line 1).
+    pub row: u64,
+    /// Seconds since 1970-01-01 UTC.
+    pub time_s: f64,
+    pub lon: f64,
+    pub lat: f64,
+    /// UTM easting and northing, metres.
+    pub x_m: f64,
+    pub y_m: f64,
+    pub flow_kg_s: f64,
+    pub speed_m_s: f64,
+    pub width_m: f64,
+    pub moisture_pct: f64,
+}
+
+/// The monitor points of a trial with the names of their source files.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct PointSet {
+    pub files: Vec<String>,
+    pub points: Vec<Point>,
+    /// EPSG code of the projected coordinates.
+    pub epsg: u32,
+}
+
+/// A point after cleaning: the ingest record plus what clean derived.
+#[derive(Clone, Debug, PartialEq)]
+pub struct CleanPoint {
+    pub base: Point,
+    /// Pass number within its source file.
+    pub pass: u32,
+    /// Mass flow moved back by the flow delay to the position it belongs to.
+    pub flow_shifted_kg_s: f64,
+    /// Moisture moved back by the moisture delay.
+    pub moisture_shifted_pct: f64,
+    /// Wet yield from mass flow, speed and swath width.
+    pub yield_wet_kg_ha: f64,
+    /// Yield at the crop's standard moisture.
+    pub yield_std_kg_ha: f64,
+}
+
+/// A row of a stage's rejection table: what was removed, by which rule, with the value found
+/// and the limit it broke.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Rejection {
+    pub source_file: String,
+    /// Line number in the source file (header = 1); for plots, the design table's line.
+    pub source_row: u64,
+    /// Point id (sequence number) or plot id.
+    pub id: String,
+    pub rule: String,
+    /// The quantity or input column the rule looked at.
+    pub column: String,
+    pub value: String,
+    pub limit: String,
+}
+
+/// Counts of a stage for its `summary.json` and the manifest.
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+pub struct StageSummary {
+    pub stage: String,
+    /// What the counts count: "points" or "plots".
+    pub unit: String,
+    pub count_in: u64,
+    pub kept: u64,
+    pub rejected: u64,
+    pub by_rule: BTreeMap<String, u64>,
+    /// Rejections per source file and rule.
+    pub by_file: BTreeMap<String, BTreeMap<String, u64>>,
+    /// Further stage-specific facts (settings derived from data, estimates).
+    pub details: BTreeMap<String, serde_json::Value>,
+    /// A second count (plots stage: plots in / kept / set aside).
+    #[serde(skip_serializing_if = "Option::is_none", default)]
+    pub plots: Option<PlotCounts>,
+}
+
+/// Plot counts of the plots stage.
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+pub struct PlotCounts {
+    pub count_in: u64,
+    pub kept: u64,
+    pub set_aside: u64,
+    pub by_rule: BTreeMap<String, u64>,
+}
+
+impl StageSummary {
+    /// A summary whose counts are derived from the rejection rows.
+    pub fn from_rejections(
+        stage: &str,
+        unit: &str,
+        count_in: u64,
+        rejections: &[Rejection],
+    ) -> Self {
+        let mut s = StageSummary {
+            stage: stage.into(),
+            unit: unit.into(),
+            count_in,
+            rejected: rejections.len() as u64,
+            kept: count_in - rejections.len() as u64,
+            ..Default::default()
+        };
+        for r in rejections {
+            *s.by_rule.entry(r.rule.clone()).or_default() += 1;
+            *s.by_file
+                .entry(r.source_file.clone())
+                .or_default()
+                .entry(r.rule.clone())
+                .or_default() += 1;
+        }
+        s
+    }
+}
+
+/// A plot boundary, projected.
+#[derive(Clone, Debug, PartialEq)]
+pub struct PlotPolygon {
+    pub plot_id: String,
+    /// Exterior ring in projected metres (closed).
+    pub exterior: Vec<(f64, f64)>,
+    /// Interior rings (holes), if any.
+    pub holes: Vec<Vec<(f64, f64)>>,
+}
+
+/// A row of the design table.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct DesignRow {
+    pub plot_id: String,
+    pub treatment: String,
+    pub block: String,
+    pub field: String,
+    /// Line in the design file (header = 1).
+    pub row: u64,
+}

@@ -1,0 +1,767 @@
+//! Integration tests: the real `plotsieve` binary in fresh temporary folders, on
+//! `sample-input/` and on small inputs the tests write themselves.
+
+use polars::prelude::*;
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+use std::sync::atomic::{AtomicUsize, Ordering};
+
+const BIN: &str = env!("CARGO_BIN_EXE_plotsieve");
+
+fn repo() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .parent()
+        .unwrap()
+        .to_path_buf()
+}
+
+/// A fresh temporary folder, removed when the test passes.
+struct Workdir(PathBuf);
+static COUNTER: AtomicUsize = AtomicUsize::new(0);
+impl Workdir {
+    fn new(name: &str) -> Self {
+        let n = COUNTER.fetch_add(1, Ordering::SeqCst);
+        let p =
+            std::env::temp_dir().join(format!("plotsieve-test-{name}-{}-{n}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&p);
+        std::fs::create_dir_all(&p).unwrap();
+        Workdir(p)
+    }
+    fn path(&self, rel: &str) -> PathBuf {
+        self.0.join(rel)
+    }
+}
+impl Drop for Workdir {
+    fn drop(&mut self) {
+        if !std::thread::panicking() {
+            let _ = std::fs::remove_dir_all(&self.0);
+        }
+    }
+}
+
+fn plotsieve(cwd: &Path, args: &[&str]) -> Output {
+    Command::new(BIN)
+        .args(args)
+        .current_dir(cwd)
+        .output()
+        .expect("binary runs")
+}
+
+fn ok(o: &Output) {
+    assert!(
+        o.status.success(),
+        "exit {:?}\n--- stdout\n{}\n--- stderr\n{}",
+        o.status.code(),
+        String::from_utf8_lossy(&o.stdout),
+        String::from_utf8_lossy(&o.stderr)
+    );
+}
+
+fn json(p: &Path) -> serde_json::Value {
+    serde_json::from_str(
+        &std::fs::read_to_string(p).unwrap_or_else(|e| panic!("{}: {e}", p.display())),
+    )
+    .unwrap()
+}
+
+fn csv_rows(p: &Path) -> Vec<BTreeMap<String, String>> {
+    let mut r = csv::Reader::from_path(p).unwrap_or_else(|e| panic!("{}: {e}", p.display()));
+    let h = r.headers().unwrap().clone();
+    r.records()
+        .map(|rec| {
+            h.iter()
+                .zip(rec.unwrap().iter())
+                .map(|(k, v)| (k.to_string(), v.to_string()))
+                .collect()
+        })
+        .collect()
+}
+
+fn parquet(p: &Path) -> DataFrame {
+    ParquetReader::new(std::fs::File::open(p).unwrap())
+        .finish()
+        .unwrap()
+}
+
+fn f64s(df: &DataFrame, c: &str) -> Vec<f64> {
+    df.column(c)
+        .unwrap()
+        .f64()
+        .unwrap()
+        .iter()
+        .map(|v| v.unwrap())
+        .collect()
+}
+
+fn simulate(w: &Workdir, dir: &str, extra: &[&str]) -> PathBuf {
+    let mut args = vec!["simulate", dir];
+    args.extend_from_slice(extra);
+    ok(&plotsieve(&w.0, &args));
+    w.path(dir).join("trial.toml")
+}
+
+fn all_files(dir: &Path) -> BTreeMap<String, Vec<u8>> {
+    let mut out = BTreeMap::new();
+    for e in std::fs::read_dir(dir).unwrap() {
+        let p = e.unwrap().path();
+        if p.is_dir() {
+            for (k, v) in all_files(&p) {
+                out.insert(
+                    format!("{}/{k}", p.file_name().unwrap().to_string_lossy()),
+                    v,
+                );
+            }
+        } else {
+            out.insert(
+                p.file_name().unwrap().to_string_lossy().to_string(),
+                std::fs::read(&p).unwrap(),
+            );
+        }
+    }
+    out
+}
+
+const STAGES: [&str; 4] = ["1-ingest", "2-clean", "3-plots", "4-adjust"];
+
+#[test]
+fn sample_input_runs_end_to_end_and_accounts_for_every_point() {
+    let w = Workdir::new("sample");
+    let sample = repo().join("sample-input");
+    let before = all_files(&sample);
+    let out = w.path("run");
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            sample.join("trial.toml").to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--quiet",
+        ],
+    ));
+    assert_eq!(before, all_files(&sample), "inputs must never be modified");
+    for f in [
+        "manifest.json",
+        "1-ingest/points.parquet",
+        "1-ingest/plots.geojson",
+        "2-clean/points.parquet",
+        "3-plots/plots.csv",
+        "3-plots/points.parquet",
+        "4-adjust/adjusted_plots.csv",
+        "4-adjust/treatments.csv",
+        "4-adjust/hyperparameters.csv",
+        "5-report/report.md",
+    ] {
+        assert!(out.join(f).is_file(), "missing {f}");
+    }
+    let mut prev_kept = None;
+    for s in STAGES {
+        let sum = json(&out.join(s).join("summary.json"));
+        let (cin, kept, rej) = (
+            sum["count_in"].as_u64().unwrap(),
+            sum["kept"].as_u64().unwrap(),
+            sum["rejected"].as_u64().unwrap(),
+        );
+        assert_eq!(cin, kept + rej, "{s}: count in = kept + rejected");
+        let by_rule: u64 = sum["by_rule"]
+            .as_object()
+            .unwrap()
+            .values()
+            .map(|v| v.as_u64().unwrap())
+            .sum();
+        assert_eq!(by_rule, rej, "{s}: rules add up");
+        let rows = csv_rows(&out.join(s).join("rejected.csv"));
+        let plot_rows = sum
+            .get("plots")
+            .and_then(|p| p["set_aside"].as_u64())
+            .unwrap_or(0);
+        assert_eq!(rows.len() as u64, rej + plot_rows, "{s}: rejected.csv rows");
+        if s == "4-adjust" {
+            assert_eq!(
+                Some(cin),
+                prev_kept,
+                "adjust takes the plots stage's kept plots"
+            );
+        } else if let Some(k) = prev_kept {
+            assert_eq!(cin, k, "{s} takes the previous stage's kept points");
+        }
+        prev_kept = Some(match sum.get("plots") {
+            Some(p) => {
+                let (pi, pk, ps) = (
+                    p["count_in"].as_u64().unwrap(),
+                    p["kept"].as_u64().unwrap(),
+                    p["set_aside"].as_u64().unwrap(),
+                );
+                assert_eq!(pi, pk + ps, "plots: plots in = kept + set aside");
+                pk
+            }
+            None => kept,
+        });
+    }
+    // The ingest count equals the data lines of the exports.
+    let lines: u64 = std::fs::read_dir(sample.join("monitor"))
+        .unwrap()
+        .map(|e| {
+            std::fs::read_to_string(e.unwrap().path())
+                .unwrap()
+                .lines()
+                .count() as u64
+                - 1
+        })
+        .sum();
+    assert_eq!(
+        json(&out.join("1-ingest/summary.json"))["count_in"]
+            .as_u64()
+            .unwrap(),
+        lines
+    );
+    // Plot points: every kept clean point is in exactly one plot or rejected.
+    let pp = parquet(&out.join("3-plots/points.parquet"));
+    let plots_sum = json(&out.join("3-plots/summary.json"));
+    assert_eq!(pp.height() as u64, plots_sum["kept"].as_u64().unwrap());
+    let manifest = json(&out.join("manifest.json"));
+    for s in ["ingest", "clean", "plots", "adjust", "report"] {
+        assert_eq!(manifest["stages"][s]["status"], "done", "{s}");
+    }
+    assert_eq!(
+        manifest["inputs"].as_array().unwrap().len(),
+        5,
+        "trial, two exports, plots, design"
+    );
+    assert_eq!(manifest["inputs"][0]["sha256"].as_str().unwrap().len(), 64);
+    let treatments = csv_rows(&out.join("4-adjust/treatments.csv"));
+    for field in ["A", "B", "all"] {
+        let n = treatments.iter().filter(|r| r["field"] == field).count();
+        assert_eq!(n, 6, "six treatments in field {field}");
+    }
+    for r in treatments.iter().filter(|r| r["treatment"] != "check") {
+        let p: f64 = r["p_uplift_gt0"].parse().unwrap();
+        assert!((0.0..=1.0).contains(&p));
+        let (lo, up, hi): (f64, f64, f64) = (
+            r["uplift_lo95_t_ha"].parse().unwrap(),
+            r["uplift_t_ha"].parse().unwrap(),
+            r["uplift_hi95_t_ha"].parse().unwrap(),
+        );
+        assert!(lo < up && up < hi);
+    }
+    let report = std::fs::read_to_string(out.join("5-report/report.md")).unwrap();
+    assert!(
+        report.contains("statistical estimates") && report.contains("licensed agronomic advice")
+    );
+    assert!(
+        report.contains("| clean | pass_start |"),
+        "removals by rule listed"
+    );
+}
+
+#[test]
+fn rerun_gives_identical_tables() {
+    let w = Workdir::new("rerun");
+    let trial = simulate(&w, "trial", &["--seed", "5"]);
+    let t = trial.to_str().unwrap();
+    ok(&plotsieve(&w.0, &["run", t, "--out", "a", "--quiet"]));
+    ok(&plotsieve(&w.0, &["run", t, "--out", "b", "--quiet"]));
+    let mut a = all_files(&w.path("a"));
+    let mut b = all_files(&w.path("b"));
+    a.remove("manifest.json");
+    b.remove("manifest.json");
+    assert_eq!(a.keys().collect::<Vec<_>>(), b.keys().collect::<Vec<_>>());
+    for (k, v) in &a {
+        assert!(v == &b[k], "{k} differs between reruns");
+    }
+}
+
+#[test]
+fn stage_clean_with_set_changes_clean_and_leaves_ingest_untouched() {
+    let w = Workdir::new("stage");
+    let trial = simulate(&w, "trial", &["--seed", "2"]);
+    let t = trial.to_str().unwrap();
+    ok(&plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]));
+    let ingest_before = all_files(&w.path("run/1-ingest"));
+    let mtime = std::fs::metadata(w.path("run/1-ingest/points.parquet"))
+        .unwrap()
+        .modified()
+        .unwrap();
+    let clean_before = json(&w.path("run/2-clean/summary.json"));
+    let clean_pts_before = std::fs::read(w.path("run/2-clean/points.parquet")).unwrap();
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "clean",
+            t,
+            "--out",
+            "run",
+            "--quiet",
+            "--set",
+            "clean.speed.min_m_s=2.1",
+        ],
+    ));
+    let clean_after = json(&w.path("run/2-clean/summary.json"));
+    assert!(
+        clean_after["by_rule"]["speed_min"].as_u64().unwrap()
+            > clean_before["by_rule"]["speed_min"].as_u64().unwrap_or(0) + 100,
+        "raising the speed minimum removes more points: {} -> {}",
+        clean_before["by_rule"]["speed_min"],
+        clean_after["by_rule"]["speed_min"]
+    );
+    assert_ne!(
+        clean_pts_before,
+        std::fs::read(w.path("run/2-clean/points.parquet")).unwrap()
+    );
+    assert_eq!(
+        ingest_before,
+        all_files(&w.path("run/1-ingest")),
+        "ingest outputs untouched"
+    );
+    assert_eq!(
+        mtime,
+        std::fs::metadata(w.path("run/1-ingest/points.parquet"))
+            .unwrap()
+            .modified()
+            .unwrap()
+    );
+    let m = json(&w.path("run/manifest.json"));
+    assert_eq!(m["stages"]["ingest"]["status"], "done");
+    assert_eq!(m["stages"]["clean"]["status"], "done");
+    assert_eq!(
+        m["stages"]["clean"]["settings"]["clean"]["speed"]["min_m_s"],
+        2.1
+    );
+    for s in ["plots", "adjust", "report"] {
+        assert_eq!(m["stages"][s]["status"], "stale", "{s}");
+    }
+    // A stale upstream must be rerun before the stage after it.
+    let o = plotsieve(&w.0, &["stage", "adjust", t, "--out", "run", "--quiet"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("rerun stage plots first"));
+    ok(&plotsieve(
+        &w.0,
+        &["stage", "plots", t, "--out", "run", "--quiet"],
+    ));
+}
+
+#[test]
+fn missing_upstream_output_says_which_stage_to_run() {
+    let w = Workdir::new("upstream");
+    let trial = simulate(&w, "trial", &["--seed", "3"]);
+    let t = trial.to_str().unwrap();
+    let o = plotsieve(&w.0, &["stage", "plots", t, "--out", "run"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        String::from_utf8_lossy(&o.stderr).contains("run stage ingest first"),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    ok(&plotsieve(
+        &w.0,
+        &["stage", "ingest", t, "--out", "run", "--quiet"],
+    ));
+    let o = plotsieve(&w.0, &["stage", "plots", t, "--out", "run"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        String::from_utf8_lossy(&o.stderr).contains("run stage clean first"),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+}
+
+#[test]
+fn malformed_rows_land_in_rejected_csv() {
+    let w = Workdir::new("malformed");
+    let trial = simulate(&w, "trial", &["--seed", "4"]);
+    let export = w.path("trial/monitor/field-A.csv");
+    let text = std::fs::read_to_string(&export).unwrap();
+    let mut lines: Vec<String> = text.lines().map(String::from).collect();
+    let n_before = lines.len() - 1;
+    // Line 11: a flow that is not a number; line 21: a truncated record; line 31: a bad time.
+    let mut f: Vec<String> = lines[10].split(',').map(String::from).collect();
+    f[3] = "abc".into();
+    lines[10] = f.join(",");
+    lines[20] = lines[20].split(',').take(4).collect::<Vec<_>>().join(",");
+    let mut g: Vec<String> = lines[30].split(',').map(String::from).collect();
+    g[0] = "2026-09-18 noon".into();
+    lines[30] = g.join(",");
+    std::fs::write(&export, lines.join("\n") + "\n").unwrap();
+    let t = trial.to_str().unwrap();
+    ok(&plotsieve(
+        &w.0,
+        &["stage", "ingest", t, "--out", "run", "--quiet"],
+    ));
+    let rej = csv_rows(&w.path("run/1-ingest/rejected.csv"));
+    let find = |line: &str| {
+        rej.iter()
+            .find(|r| r["source_file"] == "monitor/field-A.csv" && r["source_row"] == line)
+            .cloned()
+    };
+    let r = find("11").expect("line 11 rejected");
+    assert_eq!(
+        (
+            r["rule"].as_str(),
+            r["column"].as_str(),
+            r["value"].as_str()
+        ),
+        ("unparseable", "mass_flow_lb_s", "abc")
+    );
+    let r = find("21").expect("line 21 rejected");
+    assert_eq!(
+        (r["rule"].as_str(), r["value"].as_str(), r["limit"].as_str()),
+        ("wrong_field_count", "4 fields", "8 fields")
+    );
+    let r = find("31").expect("line 31 rejected");
+    assert_eq!(
+        (
+            r["rule"].as_str(),
+            r["column"].as_str(),
+            r["value"].as_str()
+        ),
+        ("unparseable", "time_utc", "2026-09-18 noon")
+    );
+    let sum = json(&w.path("run/1-ingest/summary.json"));
+    assert_eq!(sum["by_file"]["monitor/field-A.csv"]["unparseable"], 2);
+    let pts = parquet(&w.path("run/1-ingest/points.parquet"));
+    let from_a = pts
+        .column("file_index")
+        .unwrap()
+        .u32()
+        .unwrap()
+        .iter()
+        .filter(|v| *v == Some(0))
+        .count();
+    assert_eq!(from_a, n_before - 3);
+}
+
+/// A tiny one-field trial: a straight pass north at `speed` m/s with constant readings.
+fn tiny_trial(
+    w: &Workdir,
+    flow_kg_s: f64,
+    speed: f64,
+    width_ft: f64,
+    moisture: f64,
+    unit: &str,
+    extra_cols: &str,
+    rows: &[(f64, f64)],
+) -> PathBuf {
+    let dir = w.path("tiny");
+    std::fs::create_dir_all(dir.join("monitor")).unwrap();
+    let (lon0, lat0) = rows.first().copied().unwrap_or((-97.8, 40.6));
+    let mpd = 6_371_000.0 * std::f64::consts::PI / 180.0;
+    let mut csv = String::from("t,lon,lat,flow,speed,swath,moist\n");
+    if rows.is_empty() {
+        for i in 0..100 {
+            let lat = lat0 + speed * i as f64 / mpd;
+            csv += &format!(
+                "{},{lon0:.8},{lat:.9},{flow_kg_s},{speed},{width_ft},{moisture}\n",
+                1_000_000 + i
+            );
+        }
+    } else {
+        for (i, (lon, lat)) in rows.iter().enumerate() {
+            csv += &format!(
+                "{},{lon:.8},{lat:.8},{flow_kg_s},{speed},{width_ft},{moisture}\n",
+                1_000_000 + i
+            );
+        }
+    }
+    std::fs::write(dir.join("monitor/m.csv"), csv).unwrap();
+    let d = 200.0 / mpd;
+    let sq = |lo: f64, la: f64| {
+        format!(
+            "[[{lo},{la}],[{},{la}],[{},{}],[{lo},{}],[{lo},{la}]]",
+            lo + d,
+            lo + d,
+            la + d,
+            la + d
+        )
+    };
+    let geo = format!(
+        r#"{{"type":"FeatureCollection","features":[
+        {{"type":"Feature","properties":{{"plot_id":"p1"}},"geometry":{{"type":"Polygon","coordinates":[{}]}}}},
+        {{"type":"Feature","properties":{{"plot_id":"p2"}},"geometry":{{"type":"Polygon","coordinates":[{}]}}}}]}}"#,
+        sq(lon0 - d / 2.0, lat0 - 0.1 * d),
+        sq(lon0 + d, lat0)
+    );
+    std::fs::write(dir.join("plots.geojson"), geo).unwrap();
+    std::fs::write(
+        dir.join("design.csv"),
+        "plot_id,treatment,block,field\np1,chk,1,F\np2,x,1,F\n",
+    )
+    .unwrap();
+    let toml = format!(
+        r#"[trial]
+name = "tiny"
+crop = "corn"
+output_unit = "{unit}"
+check = "chk"
+[inputs]
+monitor = ["monitor/m.csv"]
+plots = "plots.geojson"
+design = "design.csv"
+[columns]
+delimiter = ","
+time = {{ name = "t", format = "unix_s" }}
+longitude = "lon"
+latitude = "lat"
+flow = {{ name = "flow", unit = "kg_s" }}
+speed = {{ name = "speed", unit = "m_s" }}
+width = {{ name = "swath", unit = "ft" }}
+moisture = "moist"
+[clean]
+flow_delay_s = 0.0
+moisture_delay_s = 0.0
+{extra_cols}
+[clean.pass]
+start_trim_s = 0.0
+end_trim_s = 0.0
+"#
+    );
+    std::fs::write(dir.join("trial.toml"), toml).unwrap();
+    dir.join("trial.toml")
+}
+
+#[test]
+fn worked_yield_and_moisture_examples_through_the_binary() {
+    // ../shared/CHECKS.md, arithmetic: 20 kg/s at 1.8 m/s with a 9.144 m (30 ft) header is
+    // 12,151.26 kg/ha wet; at 15.5 % moisture that is also the corn standard-moisture yield.
+    let w = Workdir::new("worked1");
+    let t = tiny_trial(&w, 20.0, 1.8, 30.0, 15.5, "t_ha", "", &[]);
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "ingest",
+            t.to_str().unwrap(),
+            "--out",
+            "run",
+            "--quiet",
+        ],
+    ));
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "clean",
+            t.to_str().unwrap(),
+            "--out",
+            "run",
+            "--quiet",
+        ],
+    ));
+    let df = parquet(&w.path("run/2-clean/points.parquet"));
+    assert!(df.height() >= 90, "kept {}", df.height());
+    for (wet, std, t_ha) in f64s(&df, "yield_wet_kg_ha")
+        .iter()
+        .zip(f64s(&df, "yield_std_kg_ha"))
+        .zip(f64s(&df, "yield_t_ha"))
+        .map(|((a, b), c)| (*a, b, c))
+    {
+        assert!((wet - 12_151.26).abs() < 0.01, "{wet}");
+        assert!((std - 12_151.26).abs() < 0.01, "{std}");
+        assert!((t_ha - 12.15126).abs() < 1e-5, "{t_ha}");
+    }
+    drop(w);
+    // UF/IFAS EDIS AG442: 10,000 lb/ac wet at 20 % moisture is 9,467.46 lb/ac at 15.5 %,
+    // i.e. 169.06 bu/ac of corn at 56 lb/bu (USDA ERS AH-697). 10,000 lb/ac = 11,208.51 kg/ha
+    // (1 lb/ac = 1.120851 kg/ha), so the flow is 11,208.51 x 1.8 x 9.144 / 10,000 kg/s.
+    let w = Workdir::new("worked2");
+    let lb_ac = 0.45359237 / 0.40468564224;
+    let flow = 10_000.0 * lb_ac * 1.8 * 9.144 / 10_000.0;
+    let t = tiny_trial(&w, flow, 1.8, 30.0, 20.0, "bu_ac", "", &[]);
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "ingest",
+            t.to_str().unwrap(),
+            "--out",
+            "run",
+            "--quiet",
+        ],
+    ));
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "clean",
+            t.to_str().unwrap(),
+            "--out",
+            "run",
+            "--quiet",
+        ],
+    ));
+    let df = parquet(&w.path("run/2-clean/points.parquet"));
+    for (std, bu) in f64s(&df, "yield_std_kg_ha")
+        .iter()
+        .zip(f64s(&df, "yield_bu_ac"))
+    {
+        assert!((std / lb_ac - 9_467.46).abs() < 0.01, "{}", std / lb_ac);
+        assert!((bu - 169.0618).abs() < 1e-3, "{bu}");
+    }
+}
+
+#[test]
+fn utm_coordinates_match_pyproj_to_the_millimetre() {
+    let text = std::fs::read_to_string(repo().join("tests/fixtures/utm_pyproj.csv")).unwrap();
+    let mut groups: BTreeMap<(String, String), Vec<(f64, f64, f64, f64)>> = BTreeMap::new();
+    for line in text.lines().filter(|l| !l.starts_with('#')).skip(1) {
+        let f: Vec<&str> = line.split(',').collect();
+        let v: Vec<f64> = f[2..].iter().map(|x| x.parse().unwrap()).collect();
+        groups
+            .entry((f[0].into(), f[1].into()))
+            .or_default()
+            .push((v[0], v[1], v[2], v[3]));
+    }
+    assert!(groups.len() >= 2);
+    for ((zone, hemi), rows) in groups {
+        let w = Workdir::new("utm");
+        let ll: Vec<(f64, f64)> = rows.iter().map(|r| (r.0, r.1)).collect();
+        let t = tiny_trial(&w, 10.0, 2.0, 30.0, 15.5, "t_ha", "", &ll);
+        let zs = format!("ingest.utm_zone={zone}");
+        let hs = format!("ingest.hemisphere={hemi}");
+        ok(&plotsieve(
+            &w.0,
+            &[
+                "stage",
+                "ingest",
+                t.to_str().unwrap(),
+                "--out",
+                "run",
+                "--quiet",
+                "--set",
+                &zs,
+                "--set",
+                &hs,
+            ],
+        ));
+        let df = parquet(&w.path("run/1-ingest/points.parquet"));
+        let (x, y) = (f64s(&df, "x_m"), f64s(&df, "y_m"));
+        assert_eq!(x.len(), rows.len());
+        for (i, r) in rows.iter().enumerate() {
+            assert!(
+                (x[i] - r.2).abs() < 1e-3 && (y[i] - r.3).abs() < 1e-3,
+                "zone {zone}{hemi} lon {} lat {}: ours ({}, {}) pyproj ({}, {})",
+                r.0,
+                r.1,
+                x[i],
+                y[i],
+                r.2,
+                r.3
+            );
+        }
+    }
+}
+
+#[test]
+fn simulated_trials_recover_true_effects_and_trend() {
+    let mut covered = 0;
+    let mut total = 0;
+    for seed in [11u64, 12, 13] {
+        let w = Workdir::new("truth");
+        let trial = simulate(&w, "trial", &["--seed", &seed.to_string()]);
+        ok(&plotsieve(
+            &w.0,
+            &["run", trial.to_str().unwrap(), "--out", "run", "--quiet"],
+        ));
+        let truth = json(&w.path("trial/truth.json"));
+        let effects = truth["effects_t_ha"].as_object().unwrap();
+        for r in csv_rows(&w.path("run/4-adjust/treatments.csv"))
+            .iter()
+            .filter(|r| r["treatment"] != "check" && r["field"] != "all")
+        {
+            let true_up = effects[&r["treatment"]].as_f64().unwrap();
+            let lo: f64 = r["uplift_lo95_t_ha"].parse().unwrap();
+            let hi: f64 = r["uplift_hi95_t_ha"].parse().unwrap();
+            total += 1;
+            if lo <= true_up && true_up <= hi {
+                covered += 1;
+            }
+        }
+        // The estimated spatial effect follows the true trend at the plot centroids.
+        let trend: BTreeMap<String, f64> = truth["plots"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|p| {
+                (
+                    p["plot_id"].as_str().unwrap().to_string(),
+                    p["trend_t_ha"].as_f64().unwrap(),
+                )
+            })
+            .collect();
+        let adj = csv_rows(&w.path("run/4-adjust/adjusted_plots.csv"));
+        for field in ["A", "B"] {
+            let rows: Vec<_> = adj.iter().filter(|r| r["field"] == field).collect();
+            let est: Vec<f64> = rows
+                .iter()
+                .map(|r| r["spatial_effect_t_ha"].parse().unwrap())
+                .collect();
+            let tru: Vec<f64> = rows.iter().map(|r| trend[&r["plot_id"]]).collect();
+            let c = plotsieve_stages::util::correlation(&est, &tru);
+            assert!(
+                c > 0.6,
+                "seed {seed} field {field}: correlation of spatial effect with true trend {c:.3}"
+            );
+        }
+    }
+    assert_eq!(total, 30);
+    assert!(
+        covered >= 24,
+        "{covered} of {total} true uplifts inside their 95 % intervals"
+    );
+}
+
+#[test]
+fn check_lists_every_problem_and_writes_nothing() {
+    let w = Workdir::new("check");
+    let trial = simulate(&w, "trial", &["--seed", "6"]);
+    let t = trial.to_str().unwrap();
+    let o = plotsieve(&w.0, &["check", t]);
+    ok(&o);
+    // Break two things: a mapped column and the design.
+    let design = w.path("trial/design.csv");
+    let text = std::fs::read_to_string(&design).unwrap();
+    let kept: Vec<&str> = text.lines().filter(|l| !l.starts_with("A-101,")).collect();
+    std::fs::write(&design, kept.join("\n") + "\n").unwrap();
+    let before = all_files(&w.0);
+    let o = plotsieve(&w.0, &["check", t, "--set", "columns.flow.name=grain_kg"]);
+    assert_eq!(o.status.code(), Some(1));
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("\"grain_kg\"")
+            && out.contains("monitor/field-A.csv")
+            && out.contains("monitor/field-B.csv"),
+        "{out}"
+    );
+    assert!(
+        out.contains("A-101"),
+        "the plot missing from the design is named: {out}"
+    );
+    assert_eq!(before, all_files(&w.0), "check writes nothing");
+}
+
+#[test]
+fn bad_settings_name_the_key() {
+    let w = Workdir::new("settings");
+    let trial = simulate(&w, "trial", &["--seed", "7"]);
+    let t = trial.to_str().unwrap();
+    let cases = [
+        ("clean.speed.bogus=1", "unknown key clean.speed.bogus"),
+        (
+            "clean.speed.min_m_s=fast",
+            "clean.speed.min_m_s expects a number",
+        ),
+        (
+            "clean.speed.min_m_s=5",
+            "clean.speed.min_m_s must be below clean.speed.max_m_s (got 5 and 4)",
+        ),
+        ("plots.min_points=0", "plots.min_points must be at least 1"),
+    ];
+    for (set, msg) in cases {
+        let o = plotsieve(&w.0, &["run", t, "--out", "run", "--set", set]);
+        assert_eq!(o.status.code(), Some(1), "{set}");
+        let e = String::from_utf8_lossy(&o.stderr);
+        assert!(e.contains(msg), "--set {set}: expected {msg:?} in {e}");
+    }
+    assert!(!w.path("run").exists(), "a bad setting writes nothing");
+}
