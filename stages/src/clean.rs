@@ -501,7 +501,7 @@ mod tests {
         pts[30].speed_m_s = 0.3; // speed_min
         pts[40].x_m += 60.0; // gps_jump
         pts[80].width_m = 4.0; // swath_fraction (4 < 0.9 x 9)
-        pts[90].flow_kg_s = 100.0; // lands on point 88 after the 2 s shift: outlier
+        pts[90].flow_kg_s = 30.0; // lands on point 88 after the 2 s shift: outlier
         let out = run(&set(pts), &s, &crop);
         let rule = |id: u64| {
             out.rejections
