@@ -407,7 +407,7 @@ fn malformed_rows_land_in_rejected_csv() {
     let r = find("21").expect("line 21 rejected");
     assert_eq!(
         (r["rule"].as_str(), r["value"].as_str(), r["limit"].as_str()),
-        ("wrong_field_count", "4 fields", "8 fields")
+        ("wrong_field_count", "4 fields", "10 fields")
     );
     let r = find("31").expect("line 31 rejected");
     assert_eq!(
@@ -514,6 +514,9 @@ moisture_delay_s = 0.0
 [clean.pass]
 start_trim_s = 0.0
 end_trim_s = 0.0
+# The readings are constant by construction: not a stuck sensor here.
+[clean.moisture]
+stuck_s = 0.0
 "#
     );
     std::fs::write(dir.join("trial.toml"), toml).unwrap();

@@ -120,6 +120,9 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point> + Clo
         f("speed_m_s", |p| p.speed_m_s),
         f("width_m", |p| p.width_m),
         f("moisture_pct", |p| p.moisture_pct),
+        f("work_state", |p| p.work_state),
+        f("hdop", |p| p.hdop),
+        f("fix_quality", |p| p.fix_quality),
     ]
 }
 
@@ -232,6 +235,9 @@ fn read_base(df: &DataFrame, path: &Path, epsg: u32) -> Result<PointSet> {
         "speed_m_s",
         "width_m",
         "moisture_pct",
+        "work_state",
+        "hdop",
+        "fix_quality",
     ]
     .iter()
     .map(|c| col_f64(df, c, path))
@@ -250,6 +256,9 @@ fn read_base(df: &DataFrame, path: &Path, epsg: u32) -> Result<PointSet> {
             speed_m_s: cols[6][i],
             width_m: cols[7][i],
             moisture_pct: cols[8][i],
+            work_state: cols[9][i],
+            hdop: cols[10][i],
+            fix_quality: cols[11][i],
         })
         .collect();
     Ok(PointSet {

@@ -9,6 +9,7 @@ mod run;
 mod stage;
 
 use clap::{Parser, Subcommand};
+use plotsieve_stages::simulate;
 use stage::Stage;
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -71,6 +72,9 @@ enum Command {
         /// SD of the spatial trend in kg/ha.
         #[arg(long, default_value_t = 1200.0)]
         trend_sd: f64,
+        /// True flow delay in seconds [default: drawn from 8-14 s].
+        #[arg(long)]
+        flow_delay: Option<f64>,
     },
 }
 
@@ -92,7 +96,19 @@ fn main() -> ExitCode {
             blocks,
             effect_scale,
             trend_sd,
-        } => run::simulate(&dir, seed, fields, blocks, effect_scale, trend_sd),
+            flow_delay,
+        } => run::simulate(
+            &dir,
+            &simulate::SimOptions {
+                seed,
+                fields,
+                blocks,
+                effect_scale,
+                trend_sd_kg_ha: trend_sd,
+                flow_delay_s: flow_delay,
+                ..Default::default()
+            },
+        ),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -464,25 +464,20 @@ pub fn check(trial: &Path, set: &[String]) -> Result<()> {
 }
 
 /// `plotsieve simulate`.
-pub fn simulate(
-    dir: &Path,
-    seed: u64,
-    fields: usize,
-    blocks: usize,
-    effect_scale: f64,
-    trend_sd: f64,
-) -> Result<()> {
-    if fields == 0 || blocks < 2 {
-        bail!("simulate needs at least one field and two blocks (got --fields {fields} --blocks {blocks})");
+pub fn simulate(dir: &Path, o: &simulate::SimOptions) -> Result<()> {
+    if o.fields == 0 || o.blocks < 2 {
+        bail!(
+            "simulate needs at least one field and two blocks (got --fields {} --blocks {})",
+            o.fields,
+            o.blocks
+        );
     }
-    let sim = simulate::generate(&simulate::SimOptions {
-        seed,
-        fields,
-        blocks,
-        effect_scale,
-        trend_sd_kg_ha: trend_sd,
-        ..Default::default()
-    });
+    if let Some(d) = o.flow_delay_s {
+        if !(0.0..=30.0).contains(&d) {
+            bail!("--flow-delay must be between 0 and 30 s (got {d})");
+        }
+    }
+    let sim = simulate::generate(o);
     for (rel, text) in &sim.files {
         io::write_atomic(&dir.join(rel), text.as_bytes())?;
     }

@@ -173,6 +173,15 @@ pub struct ColumnsSection {
     pub width: Mapped<WidthUnit>,
     /// Grain moisture column, in percent (wet basis).
     pub moisture: String,
+    /// Optional: work-state / header column (0 = not harvesting, anything else = harvesting).
+    #[serde(default)]
+    pub work_state: String,
+    /// Optional: GPS horizontal dilution of precision.
+    #[serde(default)]
+    pub hdop: String,
+    /// Optional: GPS fix quality (NMEA GGA: 0 invalid, 1 GPS, 2 DGPS, 4 RTK fixed, 5 RTK float).
+    #[serde(default)]
+    pub fix_quality: String,
 }
 
 /// Time column and its format.
@@ -191,6 +200,18 @@ pub struct IngestSettings {
     pub hemisphere: String,
 }
 
+/// `[clean.delay]`.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct DelaySettings {
+    pub mode: String,
+    pub min_s: f64,
+    pub max_s: f64,
+    pub step_s: f64,
+    pub pair_distance_m: f64,
+    pub min_pairs: i64,
+    pub estimate_moisture: bool,
+}
 /// `[clean.pass]`.
 #[derive(Clone, Debug, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -198,8 +219,10 @@ pub struct PassSettings {
     pub max_gap_s: f64,
     pub max_heading_change_deg: f64,
     pub min_pass_s: f64,
+    pub fill_mode: String,
     pub start_trim_s: f64,
     pub end_trim_s: f64,
+    pub fill_fraction: f64,
 }
 /// `[clean.speed]`.
 #[derive(Clone, Debug, Serialize, Deserialize)]
@@ -207,12 +230,16 @@ pub struct PassSettings {
 pub struct SpeedSettings {
     pub min_m_s: f64,
     pub max_m_s: f64,
+    pub max_change_fraction: f64,
+    pub settle_s: f64,
+    pub min_fraction_of_pass_median: f64,
 }
 /// `[clean.swath]`.
 #[derive(Clone, Debug, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SwathSettings {
     pub min_fraction: f64,
+    pub max_overlap_fraction: f64,
 }
 /// `[clean.moisture]`.
 #[derive(Clone, Debug, Serialize, Deserialize)]
@@ -220,6 +247,7 @@ pub struct SwathSettings {
 pub struct MoistureSettings {
     pub min_pct: f64,
     pub max_pct: f64,
+    pub stuck_s: f64,
 }
 /// `[clean.gps]`.
 #[derive(Clone, Debug, Serialize, Deserialize)]
@@ -227,12 +255,19 @@ pub struct MoistureSettings {
 pub struct GpsSettings {
     pub jump_factor: f64,
     pub jump_tolerance_m: f64,
+    pub max_hdop: f64,
+    pub min_fix_quality: i64,
 }
 /// `[clean.outlier]`.
 #[derive(Clone, Debug, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct OutlierSettings {
+    pub method: String,
     pub k_mad: f64,
+    pub tukey_k: f64,
+    pub local_radius_m: f64,
+    pub local_k: f64,
+    pub local_min_neighbours: i64,
 }
 
 /// `[clean]` settings.
@@ -242,6 +277,8 @@ pub struct CleanSettings {
     pub header_width_m: f64,
     pub flow_delay_s: f64,
     pub moisture_delay_s: f64,
+    pub disabled_rules: Vec<String>,
+    pub delay: DelaySettings,
     pub pass: PassSettings,
     pub speed: SpeedSettings,
     pub swath: SwathSettings,
@@ -480,6 +517,28 @@ impl TrialConfig {
         nonneg("clean.gps.jump_factor", c.gps.jump_factor);
         nonneg("clean.gps.jump_tolerance_m", c.gps.jump_tolerance_m);
         nonneg("clean.outlier.k_mad", c.outlier.k_mad);
+        nonneg("clean.outlier.tukey_k", c.outlier.tukey_k);
+        nonneg("clean.outlier.local_radius_m", c.outlier.local_radius_m);
+        nonneg("clean.outlier.local_k", c.outlier.local_k);
+        nonneg("clean.delay.min_s", c.delay.min_s);
+        nonneg("clean.delay.max_s", c.delay.max_s);
+        nonneg("clean.delay.pair_distance_m", c.delay.pair_distance_m);
+        nonneg(
+            "clean.speed.max_change_fraction",
+            c.speed.max_change_fraction,
+        );
+        nonneg("clean.speed.settle_s", c.speed.settle_s);
+        nonneg(
+            "clean.speed.min_fraction_of_pass_median",
+            c.speed.min_fraction_of_pass_median,
+        );
+        nonneg(
+            "clean.swath.max_overlap_fraction",
+            c.swath.max_overlap_fraction,
+        );
+        nonneg("clean.moisture.stuck_s", c.moisture.stuck_s);
+        nonneg("clean.gps.max_hdop", c.gps.max_hdop);
+        nonneg("clean.pass.fill_fraction", c.pass.fill_fraction);
         nonneg("adjust.min_range_m", self.adjust.min_range_m);
         nonneg("adjust.max_range_m", self.adjust.max_range_m);
         if c.speed.min_m_s >= c.speed.max_m_s {
@@ -499,6 +558,71 @@ impl TrialConfig {
                 "clean.moisture.max_pct must be below 100 (got {})",
                 c.moisture.max_pct
             ));
+        }
+        if c.delay.min_s > c.delay.max_s {
+            p.push(format!(
+                "clean.delay.min_s must not be above clean.delay.max_s (got {} and {})",
+                c.delay.min_s, c.delay.max_s
+            ));
+        }
+        if !(c.delay.step_s > 0.0) {
+            p.push(format!(
+                "clean.delay.step_s must be above 0 (got {})",
+                c.delay.step_s
+            ));
+        }
+        if !["auto", "fixed"].contains(&c.delay.mode.as_str()) {
+            p.push(format!(
+                "clean.delay.mode must be \"auto\" or \"fixed\" (got {:?})",
+                c.delay.mode
+            ));
+        }
+        if !["fixed", "flow"].contains(&c.pass.fill_mode.as_str()) {
+            p.push(format!(
+                "clean.pass.fill_mode must be \"fixed\" or \"flow\" (got {:?})",
+                c.pass.fill_mode
+            ));
+        }
+        if !["mad", "tukey"].contains(&c.outlier.method.as_str()) {
+            p.push(format!(
+                "clean.outlier.method must be \"mad\" or \"tukey\" (got {:?})",
+                c.outlier.method
+            ));
+        }
+        for r in &c.disabled_rules {
+            if !crate::clean::RULES.contains(&r.as_str()) {
+                p.push(format!(
+                    "clean.disabled_rules: unknown rule {r:?} (rules: {})",
+                    crate::clean::RULES.join(", ")
+                ));
+            }
+        }
+        if c.delay.min_pairs < 1 {
+            p.push(format!(
+                "clean.delay.min_pairs must be at least 1 (got {})",
+                c.delay.min_pairs
+            ));
+        }
+        if c.outlier.local_min_neighbours < 1 {
+            p.push(format!(
+                "clean.outlier.local_min_neighbours must be at least 1 (got {})",
+                c.outlier.local_min_neighbours
+            ));
+        }
+        for (k, v) in [
+            ("clean.pass.fill_fraction", c.pass.fill_fraction),
+            (
+                "clean.swath.max_overlap_fraction",
+                c.swath.max_overlap_fraction,
+            ),
+            (
+                "clean.speed.min_fraction_of_pass_median",
+                c.speed.min_fraction_of_pass_median,
+            ),
+        ] {
+            if v > 1.0 {
+                p.push(format!("{k} must be at most 1 (got {v})"));
+            }
         }
         if c.swath.min_fraction > 1.0 {
             p.push(format!(

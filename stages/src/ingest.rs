@@ -166,6 +166,8 @@ struct ColumnIndex {
     speed: usize,
     width: usize,
     moisture: usize,
+    /// Optional columns: (index, name) when mapped.
+    optional: [Option<(usize, String)>; 3],
 }
 
 fn column_index(
@@ -193,6 +195,22 @@ fn column_index(
         speed: find(&c.speed.name, "speed.name")?,
         width: find(&c.width.name, "width.name")?,
         moisture: find(&c.moisture, "moisture")?,
+        optional: [
+            (&c.work_state, "work_state"),
+            (&c.hdop, "hdop"),
+            (&c.fix_quality, "fix_quality"),
+        ]
+        .map(|(name, key)| {
+            if name.is_empty() {
+                Ok(None)
+            } else {
+                find(name, key).map(|i| Some((i, name.clone())))
+            }
+        })
+        .into_iter()
+        .collect::<Result<Vec<_>, _>>()?
+        .try_into()
+        .expect("three optional columns"),
     })
 }
 
@@ -229,6 +247,7 @@ struct RawPoint {
     speed_m_s: f64,
     width_m: f64,
     moisture_pct: f64,
+    optional: [f64; 3],
 }
 
 fn reject(file: &str, row: u64, rule: &str, column: &str, value: &str, limit: &str) -> Rejection {
@@ -352,6 +371,22 @@ fn read_export(
             rej.push(reject(name, line, "unparseable", cname, &text, "a number"));
             continue;
         }
+        let mut optional = [f64::NAN; 3];
+        for (k, o) in idx.optional.iter().enumerate() {
+            if let Some((ci, cname)) = o {
+                match record[*ci].trim().parse::<f64>() {
+                    Ok(v) if v.is_finite() => optional[k] = v,
+                    _ => {
+                        bad = Some((cname.as_str(), record[*ci].to_string()));
+                        break;
+                    }
+                }
+            }
+        }
+        if let Some((cname, text)) = bad {
+            rej.push(reject(name, line, "unparseable", cname, &text, "a number"));
+            continue;
+        }
         let [lon, lat, flow, speed, width, moisture] = vals;
         if !(-180.0..=180.0).contains(&lon) || !(-90.0..=90.0).contains(&lat) {
             let (cn, v, lim) = if !(-180.0..=180.0).contains(&lon) {
@@ -409,6 +444,7 @@ fn read_export(
             speed_m_s: speed * sf,
             width_m: width * wf,
             moisture_pct: moisture,
+            optional,
         });
     }
     if n == 0 {
@@ -486,6 +522,9 @@ pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> 
             speed_m_s: r.speed_m_s,
             width_m: r.width_m,
             moisture_pct: r.moisture_pct,
+            work_state: r.optional[0],
+            hdop: r.optional[1],
+            fix_quality: r.optional[2],
         })
         .collect();
     let polygons = polygons_ll

@@ -40,6 +40,9 @@ pub struct SimOptions {
     pub trend_sd_kg_ha: f64,
     /// Scale of all product effects (1 = the defaults below; 0 = no true effects).
     pub effect_scale: f64,
+    /// Flow delay (centre of the grain-mixing kernel), seconds;
+    /// `None` draws it from 8-14 s.
+    pub flow_delay_s: Option<f64>,
 }
 
 impl Default for SimOptions {
@@ -51,6 +54,7 @@ impl Default for SimOptions {
             plot_length_m: 60.0,
             trend_sd_kg_ha: 1200.0,
             effect_scale: 1.0,
+            flow_delay_s: None,
         }
     }
 }
@@ -128,9 +132,25 @@ impl Frame {
 /// Generate a trial.
 pub fn generate(o: &SimOptions) -> SimTrial {
     let mut rng = Rng::new(o.seed);
-    let delay = rng.range(8.0, 14.0);
+    let drawn = rng.range(8.0, 14.0);
+    let delay = o.flow_delay_s.unwrap_or(drawn);
     let moisture_delay = (delay - 3.0).max(4.0);
-    let tau: f64 = 2.5; // grain-mixing time constant, s
+    // Grain mixing: each reading is a Gaussian-weighted mean of the grain cut around
+    // `delay` seconds earlier, SD 2.5 s, cut at 3 SD (about 30 m of travel at 2.2 m/s, as
+    // Knight & Pettitt 2003 describe). Being symmetric, it leaves the delay unambiguous.
+    let mix_sd: f64 = 2.5;
+    let kernel: Vec<(f64, f64)> = {
+        let half = (3.0 * mix_sd).ceil() as i64;
+        let raw: Vec<(f64, f64)> = (-half..=half)
+            .map(|k| (k as f64, (-0.5 * (k as f64 / mix_sd).powi(2)).exp()))
+            .collect();
+        let total: f64 = raw.iter().map(|x| x.1).sum();
+        raw.into_iter().map(|(k, w)| (k, w / total)).collect()
+    };
+    // Labels: where the shifted flow of a pass start or end is off its level by more than
+    // 10 % (the normal distribution's 90 % point, 1.2816 SD).
+    let fill_s = 1.2816 * mix_sd;
+    let empty_s = fill_s;
     let base = 11_000.0;
     let width_plot = 2.0 * HEADER_M;
     let alley = 6.0;
@@ -265,11 +285,22 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                     + 400.0 * rng.normal();
                 let m = (18.0 + moist.at(e, n) + 0.2 * rng.normal()).clamp(14.0, 24.0);
                 let mut labels = Vec::new();
-                if pass_t < 3.0 * tau {
+                if pass_t < fill_s {
                     labels.push("pass_fill");
                 }
                 if dip_left > 0.0 || after_dip > 0.0 {
                     labels.push("speed_dip");
+                    if dip_left > 0.0
+                        && !rows
+                            .last()
+                            .is_some_and(|r: &Rec| r.labels.contains(&"speed_dip"))
+                    {
+                        // Mixing spreads the dip's low flow onto the records just before it.
+                        let from = rows.len().saturating_sub(2);
+                        for r in rows[from..].iter_mut().filter(|r| r.working) {
+                            r.labels.push("speed_dip");
+                        }
+                    }
                 }
                 if k == partial_pass {
                     labels.push("partial_swath");
@@ -284,6 +315,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                     moisture: m,
                     labels,
                     frame_lonlat: (0.0, 0.0),
+                    working: true,
                 });
                 if dip_left > 0.0 {
                     dip_left -= 1.0;
@@ -296,6 +328,14 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                 u += speed;
                 t += 1.0;
                 pass_t += 1.0;
+            }
+            let pass_end_t = t - 1.0;
+            for r in rows
+                .iter_mut()
+                .rev()
+                .take_while(|r| r.working && pass_end_t - r.t < empty_s)
+            {
+                r.labels.push("pass_empty");
             }
             // Header-up turn: a half circle beyond the end of the pass at 1.5 m/s.
             if k + 1 < npass {
@@ -317,20 +357,29 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                         moisture: 18.0,
                         labels: vec!["turn"],
                         frame_lonlat: (0.0, 0.0),
+                        working: false,
                     });
                     t += 1.0;
                 }
             }
         }
-        // Sensors: mixing lag then transport delay for flow; delay for moisture.
+        // Sensors: mixing then transport delay for flow; delay for moisture.
         let n = rows.len();
-        let mut mixed = vec![0.0; n];
-        let alpha = 1.0 - (-1.0 / tau).exp();
-        let mut state = 0.0;
-        for i in 0..n {
-            state += alpha * (rows[i].qin - state);
-            mixed[i] = state;
-        }
+        let mixed: Vec<f64> = (0..n)
+            .map(|i| {
+                kernel
+                    .iter()
+                    .map(|&(k, w)| {
+                        let j = i as i64 + k as i64;
+                        if j < 0 || j >= n as i64 {
+                            0.0
+                        } else {
+                            w * rows[j as usize].qin
+                        }
+                    })
+                    .sum()
+            })
+            .collect();
         let lag = |series: &[f64], i: usize, d: f64| -> f64 {
             let x = i as f64 - d;
             if x <= 0.0 {
@@ -342,10 +391,13 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         };
         let moist_series: Vec<f64> = rows.iter().map(|r| r.moisture).collect();
         let mut csv = String::from(
-            "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg\n",
+            "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
         );
         let file_name = format!("monitor/field-{fname}.csv");
         let mut labels_out: BTreeMap<&str, Vec<u64>> = BTreeMap::new();
+        let mut flows_out = Vec::with_capacity(n);
+        let mut moist_out = Vec::with_capacity(n);
+        let mut hdop_out = Vec::with_capacity(n);
         for i in 0..n {
             let mut flow = lag(&mixed, i, delay) * (1.0 + 0.02 * rng.normal());
             let mut moisture =
@@ -353,15 +405,21 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             if i as f64 <= moisture_delay {
                 moisture = 18.0;
             }
-            let r = &mut rows[i];
             if rng.uniform() < 0.004 {
                 flow *= if rng.uniform() < 0.5 {
                     rng.range(3.0, 5.0)
                 } else {
                     0.1
                 };
-                r.labels.push("spike");
+                // After the shift back by the delay the spike lands mostly on the position
+                // logged `delay` earlier (the nearer of the two records it is interpolated to).
+                let src = (i as f64 - delay).round();
+                if src >= 0.0 && !rows[src as usize].labels.contains(&"spike") {
+                    rows[src as usize].labels.push("spike");
+                }
             }
+            flows_out.push(flow);
+            let r = &mut rows[i];
             let (mut pu, mut pv) = (r.pu, r.v);
             if rng.uniform() < 0.003 {
                 let a = rng.range(0.0, 2.0 * std::f64::consts::PI);
@@ -371,8 +429,12 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                 r.labels.push("gps_jump");
             }
             r.frame_lonlat = frame.lonlat(pu, pv);
+            moist_out.push(moisture);
+            hdop_out.push(rng.range(0.6, 1.4));
+        }
+        for i in 0..n {
             let line = i as u64 + 2;
-            for l in &r.labels {
+            for l in &rows[i].labels {
                 labels_out.entry(l).or_default().push(line);
             }
             let heading = if i + 1 < n {
@@ -385,15 +447,17 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             let r = &rows[i];
             let _ = writeln!(
                 csv,
-                "{},{:.8},{:.8},{:.4},{:.3},{:.2},{:.2},{:.1}",
+                "{},{:.8},{:.8},{:.4},{:.3},{:.2},{:.2},{:.1},{},{:.2}",
                 iso(r.t),
                 r.frame_lonlat.0,
                 r.frame_lonlat.1,
-                flow.max(0.0) / 0.45359237,
+                flows_out[i].max(0.0) / 0.45359237,
                 r.speed / 0.44704,
                 r.width / 0.3048,
-                moisture.clamp(5.0, 40.0),
-                heading
+                moist_out[i].clamp(5.0, 40.0),
+                heading,
+                u8::from(r.working),
+                hdop_out[i]
             );
         }
         total_points += n;
@@ -415,8 +479,9 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         "seed": o.seed,
         "unit": "t_ha",
         "flow_delay_s": delay,
+        "flow_delay_note": "centre of the symmetric grain-mixing kernel",
         "moisture_delay_s": moisture_delay,
-        "mixing_time_constant_s": tau,
+        "mixing_sd_s": mix_sd,
         "header_width_m": HEADER_M,
         "effects_t_ha": effects,
         "plots": truth_plots,
@@ -426,10 +491,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         "truth.json".into(),
         serde_json::to_string_pretty(&truth).unwrap() + "\n",
     ));
-    files.push((
-        "trial.toml".into(),
-        trial_toml(o.seed, delay.round(), moisture_delay.round()),
-    ));
+    files.push(("trial.toml".into(), trial_toml(o.seed)));
     SimTrial {
         files,
         points: total_points,
@@ -446,6 +508,7 @@ struct Rec {
     moisture: f64,
     labels: Vec<&'static str>,
     frame_lonlat: (f64, f64),
+    working: bool,
 }
 
 /// ISO 8601 UTC from seconds since the epoch (Hinnant's `civil_from_days`).
@@ -470,7 +533,7 @@ pub fn iso(t: f64) -> String {
     )
 }
 
-fn trial_toml(seed: u64, delay: f64, moisture_delay: f64) -> String {
+fn trial_toml(seed: u64) -> String {
     format!(
         r#"# An invented trial made by `plotsieve simulate --seed {seed}` (Brackenmoor trial station,
 # a made-up place). Paths are relative to this file.
@@ -497,11 +560,14 @@ flow = {{ name = "mass_flow_lb_s", unit = "lb_s" }}
 speed = {{ name = "speed_mph", unit = "mph" }}
 width = {{ name = "swath_ft", unit = "ft" }}
 moisture = "moisture_pct"
+work_state = "header_state"
+hdop = "hdop"
 
 [clean]
-# The delays calibrated on this combine, whole seconds.
-flow_delay_s = {delay:.1}
-moisture_delay_s = {moisture_delay:.1}
+# Flow and moisture delays are estimated per export (clean.delay.mode = "auto"); these are
+# the fallbacks when an export has too few opposite passes.
+flow_delay_s = 11.0
+moisture_delay_s = 8.0
 "#
     )
 }

@@ -23,6 +23,12 @@ pub struct Point {
     pub speed_m_s: f64,
     pub width_m: f64,
     pub moisture_pct: f64,
+    /// Work state (0 = not harvesting); NaN when the export has no such column.
+    pub work_state: f64,
+    /// GPS HDOP; NaN when absent.
+    pub hdop: f64,
+    /// GPS fix quality; NaN when absent.
+    pub fix_quality: f64,
 }
 
 /// The monitor points of a trial with the names of their source files.
