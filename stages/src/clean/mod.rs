@@ -1000,6 +1000,7 @@ mod tests {
         let crop = crop_table()["corn"].clone();
         let mut s = cfg.clean.clone();
         s.delay.mode = "fixed".into();
+        s.moisture.stuck_s = 0.0; // constant moisture by construction
         s.flow_delay_s = 2.0;
         s.moisture_delay_s = 2.0;
         s.pass.start_trim_s = 3.0;
@@ -1037,5 +1038,137 @@ mod tests {
         assert!((p.yield_std_kg_ha - 5555.555).abs() < 0.01);
         assert!(out.points.iter().any(|p| p.pass == 1));
         assert_eq!(out.points.len() + out.rejections.len(), 120);
+    }
+
+    fn plain_settings() -> CleanSettings {
+        let cfg = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[]).unwrap();
+        let mut s = cfg.clean.clone();
+        s.delay.mode = "fixed".into();
+        s.flow_delay_s = 0.0;
+        s.moisture_delay_s = 0.0;
+        s.pass.start_trim_s = 0.0;
+        s.pass.end_trim_s = 0.0;
+        s
+    }
+
+    #[test]
+    fn more_rules_by_hand() {
+        let crop = crop_table()["corn"].clone();
+        let s = plain_settings();
+        let mut pts = line(90, 2.0, true, 0.0, 0.0);
+        for (i, p) in pts.iter_mut().enumerate() {
+            p.work_state = 1.0;
+            p.hdop = 1.0;
+            p.moisture_pct = 15.0 + 0.01 * i as f64;
+        }
+        pts[5].work_state = 0.0; // work_state_off
+        pts[10].time_s = pts[9].time_s; // gps_duplicate (the later row goes)
+        pts[15].hdop = 6.0; // gps_quality (> 4)
+        for p in &mut pts[18..=50] {
+            p.moisture_pct = 16.0; // 32 s unchanged: moisture_stuck (>= 30 s)
+        }
+        // Abrupt change: 2.0 -> 1.0 m/s at 60 (50 %), back to 2.0 at 63: speed_change at
+        // 60 and 63 and within 3 s of either (57..=66).
+        for p in &mut pts[60..63] {
+            p.speed_m_s = 1.0;
+        }
+        // Gradual slow-down (each step 10 %, under the 25 % limit) to 1.2 m/s: the records
+        // under 0.7 x the pass median 2.0 = 1.4 m/s (73..=77) go as speed_drop.
+        for (k, v) in [1.8, 1.62, 1.46, 1.31, 1.2, 1.2, 1.2, 1.31, 1.46, 1.62, 1.8]
+            .iter()
+            .enumerate()
+        {
+            pts[70 + k].speed_m_s = *v;
+        }
+        // Keep positions consistent with the speeds (no GPS jumps) and the flow proportional
+        // to speed (constant yield).
+        for p in pts.iter_mut() {
+            p.flow_kg_s = 5.0 * p.speed_m_s;
+        }
+        for i in 1..pts.len() {
+            pts[i].x_m = pts[i - 1].x_m + pts[i].speed_m_s * (pts[i].time_s - pts[i - 1].time_s);
+        }
+        let out = run(&set(pts), &s, &crop);
+        let rule = |id: u64| {
+            out.rejections
+                .iter()
+                .find(|r| r.id == id.to_string())
+                .map(|r| r.rule.clone())
+        };
+        assert_eq!(rule(5).as_deref(), Some("work_state_off"));
+        assert_eq!(rule(10).as_deref(), Some("gps_duplicate"));
+        assert_eq!(rule(9), None);
+        assert_eq!(rule(15).as_deref(), Some("gps_quality"));
+        for id in 18..=50 {
+            assert_eq!(rule(id).as_deref(), Some("moisture_stuck"), "{id}");
+        }
+        assert_eq!(rule(17), None);
+        assert_eq!(rule(51), None);
+        for id in 57..=66 {
+            assert_eq!(rule(id).as_deref(), Some("speed_change"), "{id}");
+        }
+        assert_eq!(rule(56), None);
+        for id in 73..=77 {
+            assert_eq!(
+                rule(id).as_deref(),
+                Some("speed_drop"),
+                "{id}: 1.31 and 1.2 m/s < 1.4"
+            );
+        }
+        assert_eq!(rule(72), None, "1.46 m/s is above 1.4");
+        // Switching a rule off keeps its points.
+        let mut off = plain_settings();
+        off.disabled_rules = vec!["moisture_stuck".into()];
+        let mut pts2 = line(90, 2.0, true, 0.0, 0.0);
+        for p in &mut pts2[18..=50] {
+            p.moisture_pct = 16.0;
+        }
+        let out = run(&set(pts2), &off, &crop);
+        assert!(out.rejections.iter().all(|r| r.rule != "moisture_stuck"));
+    }
+
+    #[test]
+    fn tukey_fences_by_hand() {
+        // Sorted 1..9, 100: Q1 = 3.25, Q3 = 7.75 (linear interpolation), IQR 4.5;
+        // k = 1.5 gives -3.5 .. 14.5.
+        let mut v: Vec<f64> = (1..=9).map(f64::from).collect();
+        v.push(100.0);
+        let (lo, hi) = tukey_fences(&v, 1.5);
+        assert!(
+            (lo + 3.5).abs() < 1e-12 && (hi - 14.5).abs() < 1e-12,
+            "{lo} {hi}"
+        );
+    }
+
+    #[test]
+    fn flow_driven_fill_trims_the_ramp() {
+        let crop = crop_table()["corn"].clone();
+        let mut s = plain_settings();
+        s.pass.fill_mode = "flow".into();
+        s.pass.fill_fraction = 0.9;
+        s.moisture.stuck_s = 0.0;
+        // The 95 % record would be a 5 % yield outlier on otherwise identical records.
+        s.disabled_rules = vec!["yield_outlier".into(), "yield_local_outlier".into()];
+        let mut pts = line(60, 2.0, true, 0.0, 0.0);
+        // Fill: 20 %, 40 %, 60 %, 80 %, 95 % of the level; empty: 85 %, 50 % at the end.
+        for (i, f) in [0.2, 0.4, 0.6, 0.8, 0.95].iter().enumerate() {
+            pts[i].flow_kg_s = 10.0 * f;
+        }
+        pts[58].flow_kg_s = 8.5;
+        pts[59].flow_kg_s = 5.0;
+        let out = run(&set(pts), &s, &crop);
+        let rule = |id: u64| {
+            out.rejections
+                .iter()
+                .find(|r| r.id == id.to_string())
+                .map(|r| r.rule.clone())
+        };
+        for id in 0..4 {
+            assert_eq!(rule(id).as_deref(), Some("pass_start"), "{id}");
+        }
+        assert_eq!(rule(4), None, "95 % reaches the 90 % target");
+        assert_eq!(rule(58).as_deref(), Some("pass_end"));
+        assert_eq!(rule(59).as_deref(), Some("pass_end"));
+        assert_eq!(rule(57), None);
     }
 }
