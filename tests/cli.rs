@@ -759,6 +759,9 @@ fn bad_settings_name_the_key() {
             "clean.speed.min_m_s must be below clean.speed.max_m_s (got 5 and 4)",
         ),
         ("plots.min_points=0", "plots.min_points must be at least 1"),
+        ("clean.disabled_rules=[\"no_such_rule\"]", "clean.disabled_rules: unknown rule \"no_such_rule\""),
+        ("clean.speed.settle_s=-1", "clean.speed.settle_s must be a finite number >= 0 (got -1)"),
+        ("clean.delay.min_s=25", "clean.delay.min_s must not be above clean.delay.max_s (got 25 and 20)"),
     ];
     for (set, msg) in cases {
         let o = plotsieve(&w.0, &["run", t, "--out", "run", "--set", set]);
@@ -767,4 +770,95 @@ fn bad_settings_name_the_key() {
         assert!(e.contains(msg), "--set {set}: expected {msg:?} in {e}");
     }
     assert!(!w.path("run").exists(), "a bad setting writes nothing");
+}
+
+#[test]
+fn automatic_flow_delay_is_within_one_second_of_the_truth() {
+    // Known-truth simulation: true delays across the typical 8-14 s range (Beal & Tian 2001),
+    // on fields of eight blocks (passes of about 530 m), two exports each.
+    let mut worst: f64 = 0.0;
+    for (delay, seed) in [(8.0, 41u64), (9.5, 42), (11.0, 43), (12.5, 44), (14.0, 45)] {
+        let w = Workdir::new("delay");
+        let d = delay.to_string();
+        let trial = simulate(&w, "trial", &["--seed", &seed.to_string(), "--blocks", "8", "--flow-delay", &d]);
+        let t = trial.to_str().unwrap();
+        ok(&plotsieve(&w.0, &["stage", "ingest", t, "--out", "run", "--quiet"]));
+        ok(&plotsieve(&w.0, &["stage", "clean", t, "--out", "run", "--quiet"]));
+        let sum = json(&w.path("run/2-clean/summary.json"));
+        let exports = sum["details"]["exports"].as_object().unwrap();
+        assert_eq!(exports.len(), 2);
+        for (f, e) in exports {
+            assert_eq!(e["flow_delay_source"], "estimated", "{f}");
+            let est = e["flow_delay_s"].as_f64().unwrap();
+            assert!(e["flow_delay_estimate"]["curve"].as_array().unwrap().len() == 21, "curve 0..20 s");
+            let err = (est - delay).abs();
+            worst = worst.max(err);
+            assert!(err < 1.0, "seed {seed} {f}: estimated {est:.2} s, true {delay} s");
+        }
+    }
+    eprintln!("largest flow-delay error over 10 exports: {worst:.2} s");
+}
+
+#[test]
+fn cleaning_removes_injected_artifacts_and_spares_clean_points() {
+    // Truth labels from the simulator say which records carry which artifact.
+    let mut art_total = 0usize;
+    let mut art_removed = 0usize;
+    let mut clean_total = 0usize;
+    let mut clean_removed = 0usize;
+    let mut by_label: BTreeMap<String, (usize, usize)> = BTreeMap::new();
+    let mut clean_by_rule: BTreeMap<String, usize> = BTreeMap::new();
+    for seed in [51u64, 52, 53] {
+        let w = Workdir::new("artifacts");
+        let trial = simulate(&w, "trial", &["--seed", &seed.to_string()]);
+        let t = trial.to_str().unwrap();
+        ok(&plotsieve(&w.0, &["stage", "ingest", t, "--out", "run", "--quiet"]));
+        ok(&plotsieve(&w.0, &["stage", "clean", t, "--out", "run", "--quiet"]));
+        let truth = json(&w.path("trial/truth.json"));
+        let rejected: BTreeMap<(String, u64), String> = csv_rows(&w.path("run/2-clean/rejected.csv"))
+            .into_iter()
+            .map(|r| ((r["source_file"].clone(), r["source_row"].parse().unwrap()), r["rule"].clone()))
+            .collect();
+        for (file, labels) in truth["artifacts"].as_object().unwrap() {
+            let lines = std::fs::read_to_string(w.path("trial").join(file)).unwrap().lines().count() as u64;
+            let mut labelled = std::collections::BTreeSet::new();
+            for (label, rows) in labels.as_object().unwrap() {
+                let e = by_label.entry(label.clone()).or_default();
+                for r in rows.as_array().unwrap() {
+                    let r = r.as_u64().unwrap();
+                    labelled.insert(r);
+                    e.0 += 1;
+                    e.1 += usize::from(rejected.contains_key(&(file.clone(), r)));
+                }
+            }
+            for row in 2..=lines {
+                let gone = rejected.get(&(file.clone(), row));
+                if labelled.contains(&row) {
+                    art_total += 1;
+                    art_removed += usize::from(gone.is_some());
+                } else {
+                    clean_total += 1;
+                    if let Some(rule) = gone {
+                        clean_removed += 1;
+                        *clean_by_rule.entry(rule.clone()).or_default() += 1;
+                    }
+                }
+            }
+        }
+    }
+    eprintln!("artifact label: removed / labelled");
+    for (l, (n, r)) in &by_label {
+        eprintln!("  {l:14} {r:5} / {n:5}");
+    }
+    eprintln!("clean records removed, by rule: {clean_by_rule:?}");
+    let art = art_removed as f64 / art_total as f64;
+    let clean = clean_removed as f64 / clean_total as f64;
+    eprintln!("artifact records removed {:.1} %, clean records removed {:.1} %", 100.0 * art, 100.0 * clean);
+    assert!(art >= 0.90, "only {:.1} % of artifact records removed", 100.0 * art);
+    assert!(clean < 0.05, "{:.1} % of clean records removed", 100.0 * clean);
+    for (l, (n, r)) in &by_label {
+        if l != "spike" {
+            assert!(*r as f64 >= 0.9 * *n as f64, "{l}: {r} of {n} removed");
+        }
+    }
 }
