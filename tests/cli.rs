@@ -759,9 +759,18 @@ fn bad_settings_name_the_key() {
             "clean.speed.min_m_s must be below clean.speed.max_m_s (got 5 and 4)",
         ),
         ("plots.min_points=0", "plots.min_points must be at least 1"),
-        ("clean.disabled_rules=[\"no_such_rule\"]", "clean.disabled_rules: unknown rule \"no_such_rule\""),
-        ("clean.speed.settle_s=-1", "clean.speed.settle_s must be a finite number >= 0 (got -1)"),
-        ("clean.delay.min_s=25", "clean.delay.min_s must not be above clean.delay.max_s (got 25 and 20)"),
+        (
+            "clean.disabled_rules=[\"no_such_rule\"]",
+            "clean.disabled_rules: unknown rule \"no_such_rule\"",
+        ),
+        (
+            "clean.speed.settle_s=-1",
+            "clean.speed.settle_s must be a finite number >= 0 (got -1)",
+        ),
+        (
+            "clean.delay.min_s=25",
+            "clean.delay.min_s must not be above clean.delay.max_s (got 25 and 20)",
+        ),
     ];
     for (set, msg) in cases {
         let o = plotsieve(&w.0, &["run", t, "--out", "run", "--set", set]);
@@ -780,20 +789,43 @@ fn automatic_flow_delay_is_within_one_second_of_the_truth() {
     for (delay, seed) in [(8.0, 41u64), (9.5, 42), (11.0, 43), (12.5, 44), (14.0, 45)] {
         let w = Workdir::new("delay");
         let d = delay.to_string();
-        let trial = simulate(&w, "trial", &["--seed", &seed.to_string(), "--blocks", "8", "--flow-delay", &d]);
+        let trial = simulate(
+            &w,
+            "trial",
+            &[
+                "--seed",
+                &seed.to_string(),
+                "--blocks",
+                "8",
+                "--flow-delay",
+                &d,
+            ],
+        );
         let t = trial.to_str().unwrap();
-        ok(&plotsieve(&w.0, &["stage", "ingest", t, "--out", "run", "--quiet"]));
-        ok(&plotsieve(&w.0, &["stage", "clean", t, "--out", "run", "--quiet"]));
+        ok(&plotsieve(
+            &w.0,
+            &["stage", "ingest", t, "--out", "run", "--quiet"],
+        ));
+        ok(&plotsieve(
+            &w.0,
+            &["stage", "clean", t, "--out", "run", "--quiet"],
+        ));
         let sum = json(&w.path("run/2-clean/summary.json"));
         let exports = sum["details"]["exports"].as_object().unwrap();
         assert_eq!(exports.len(), 2);
         for (f, e) in exports {
             assert_eq!(e["flow_delay_source"], "estimated", "{f}");
             let est = e["flow_delay_s"].as_f64().unwrap();
-            assert!(e["flow_delay_estimate"]["curve"].as_array().unwrap().len() == 21, "curve 0..20 s");
+            assert!(
+                e["flow_delay_estimate"]["curve"].as_array().unwrap().len() == 21,
+                "curve 0..20 s"
+            );
             let err = (est - delay).abs();
             worst = worst.max(err);
-            assert!(err < 1.0, "seed {seed} {f}: estimated {est:.2} s, true {delay} s");
+            assert!(
+                err < 1.0,
+                "seed {seed} {f}: estimated {est:.2} s, true {delay} s"
+            );
         }
     }
     eprintln!("largest flow-delay error over 10 exports: {worst:.2} s");
@@ -812,15 +844,30 @@ fn cleaning_removes_injected_artifacts_and_spares_clean_points() {
         let w = Workdir::new("artifacts");
         let trial = simulate(&w, "trial", &["--seed", &seed.to_string()]);
         let t = trial.to_str().unwrap();
-        ok(&plotsieve(&w.0, &["stage", "ingest", t, "--out", "run", "--quiet"]));
-        ok(&plotsieve(&w.0, &["stage", "clean", t, "--out", "run", "--quiet"]));
+        ok(&plotsieve(
+            &w.0,
+            &["stage", "ingest", t, "--out", "run", "--quiet"],
+        ));
+        ok(&plotsieve(
+            &w.0,
+            &["stage", "clean", t, "--out", "run", "--quiet"],
+        ));
         let truth = json(&w.path("trial/truth.json"));
-        let rejected: BTreeMap<(String, u64), String> = csv_rows(&w.path("run/2-clean/rejected.csv"))
-            .into_iter()
-            .map(|r| ((r["source_file"].clone(), r["source_row"].parse().unwrap()), r["rule"].clone()))
-            .collect();
+        let rejected: BTreeMap<(String, u64), String> =
+            csv_rows(&w.path("run/2-clean/rejected.csv"))
+                .into_iter()
+                .map(|r| {
+                    (
+                        (r["source_file"].clone(), r["source_row"].parse().unwrap()),
+                        r["rule"].clone(),
+                    )
+                })
+                .collect();
         for (file, labels) in truth["artifacts"].as_object().unwrap() {
-            let lines = std::fs::read_to_string(w.path("trial").join(file)).unwrap().lines().count() as u64;
+            let lines = std::fs::read_to_string(w.path("trial").join(file))
+                .unwrap()
+                .lines()
+                .count() as u64;
             let mut labelled = std::collections::BTreeSet::new();
             for (label, rows) in labels.as_object().unwrap() {
                 let e = by_label.entry(label.clone()).or_default();
@@ -853,9 +900,21 @@ fn cleaning_removes_injected_artifacts_and_spares_clean_points() {
     eprintln!("clean records removed, by rule: {clean_by_rule:?}");
     let art = art_removed as f64 / art_total as f64;
     let clean = clean_removed as f64 / clean_total as f64;
-    eprintln!("artifact records removed {:.1} %, clean records removed {:.1} %", 100.0 * art, 100.0 * clean);
-    assert!(art >= 0.90, "only {:.1} % of artifact records removed", 100.0 * art);
-    assert!(clean < 0.05, "{:.1} % of clean records removed", 100.0 * clean);
+    eprintln!(
+        "artifact records removed {:.1} %, clean records removed {:.1} %",
+        100.0 * art,
+        100.0 * clean
+    );
+    assert!(
+        art >= 0.90,
+        "only {:.1} % of artifact records removed",
+        100.0 * art
+    );
+    assert!(
+        clean < 0.05,
+        "{:.1} % of clean records removed",
+        100.0 * clean
+    );
     for (l, (n, r)) in &by_label {
         if l != "spike" {
             assert!(*r as f64 >= 0.9 * *n as f64, "{l}: {r} of {n} removed");

@@ -166,7 +166,13 @@ pub fn generate(o: &SimOptions) -> SimTrial {
     let mut total_points = 0;
     let t_start = 1_789_722_000.0; // 2026-09-18T09:00:00Z
     for f in 0..o.fields {
-        let fname = format!("{}", (b'A' + (f % 26) as u8) as char);
+        // A, B, ..., Z, then A2, B2, ...
+        let letter = (b'A' + (f % 26) as u8) as char;
+        let fname = if f < 26 {
+            letter.to_string()
+        } else {
+            format!("{letter}{}", f / 26 + 1)
+        };
         let bearing = rng.range(-30.0f64, 30.0).to_radians();
         let frame = Frame {
             lon0: -97.80 + 0.02 * f as f64,

@@ -73,11 +73,7 @@ pub fn opposite_pairs(pts: &[PairPoint], dist: f64) -> Vec<(usize, usize)> {
                 da.total_cmp(&db).then(a.data.cmp(&b.data))
             });
         if let Some(g) = best {
-            if i < g.data {
-                pairs.push((i, g.data));
-            } else if !pairs.contains(&(g.data, i)) {
-                pairs.push((g.data, i));
-            }
+            pairs.push((i.min(g.data), i.max(g.data)));
         }
     }
     pairs.sort_unstable();
@@ -102,23 +98,79 @@ pub fn estimate(
         let n = ((hi - lo) / step).floor() as usize;
         (0..=n).map(|k| lo + k as f64 * step).collect()
     };
-    // The value at a point: the series around its time + lag, averaged over five records
-    // (two either side) to damp point noise, over the point's divisor.
-    let value = |p: &PairPoint, lag: f64| -> Option<f64> {
-        let mut sum = 0.0;
-        for k in -2..=2 {
-            sum += super::interpolate_at(times, series, p.time_s + lag + k as f64, max_gap)?;
+    // Sample each point's series on a fine grid of offsets (a quarter of the lag step) from
+    // lo - 2 s to hi + 2 s once, walking the time line forward; every objective evaluation
+    // then only reads these samples.
+    let fine_step = step / 4.0;
+    let base = lo - 2.0;
+    let n_samples = ((hi + 2.0 - base) / fine_step).round() as usize + 1;
+    let sample_all = |p: &PairPoint| -> Vec<f64> {
+        let mut out = Vec::with_capacity(n_samples);
+        let mut j = times.partition_point(|&x| x < p.time_s + base).max(1);
+        for k in 0..n_samples {
+            let t = p.time_s + base + k as f64 * fine_step;
+            while j < times.len() && times[j] < t {
+                j += 1;
+            }
+            let v = if t < times[0] || j >= times.len() {
+                if times.last() == Some(&t) {
+                    series[times.len() - 1]
+                } else {
+                    f64::NAN
+                }
+            } else if times[j] == t {
+                series[j]
+            } else {
+                let dt = times[j] - times[j - 1];
+                if dt > max_gap {
+                    f64::NAN
+                } else {
+                    let w = (t - times[j - 1]) / dt;
+                    series[j - 1] * (1.0 - w) + series[j] * w
+                }
+            };
+            out.push(v / p.divisor);
         }
-        Some(sum / 5.0 / p.divisor)
+        out
+    };
+    // The value at a point for a lag: the mean of five samples one second apart around
+    // time + lag (damping point noise), precomputed per point.
+    let offsets: Vec<isize> = (-2..=2)
+        .map(|k| (k as f64 / fine_step).round() as isize)
+        .collect();
+    let smooth = |raw: Vec<f64>| -> Vec<f64> {
+        (0..raw.len() as isize)
+            .map(|c| {
+                offsets
+                    .iter()
+                    .map(|o| raw.get((c + o) as usize).copied().unwrap_or(f64::NAN))
+                    .sum::<f64>()
+                    / 5.0
+            })
+            .collect()
+    };
+    let at = |samples: &[f64], lag: f64| -> f64 {
+        let c = ((lag - base) / fine_step).round() as usize;
+        samples.get(c).copied().unwrap_or(f64::NAN)
     };
     // Keep pairs whose values exist at both ends of the lag range, so that each lag is
     // judged on (nearly) the same pairs.
-    let pairs: Vec<(usize, usize)> = opposite_pairs(pts, dist)
+    let candidate = opposite_pairs(pts, dist);
+    let mut samples: Vec<Option<Vec<f64>>> = vec![None; pts.len()];
+    for &(i, j) in &candidate {
+        for k in [i, j] {
+            if samples[k].is_none() {
+                samples[k] = Some(smooth(sample_all(&pts[k])));
+            }
+        }
+    }
+    let sampled = |k: usize| samples[k].as_deref().unwrap_or(&[]);
+    let pairs: Vec<(usize, usize)> = candidate
         .into_iter()
         .filter(|&(i, j)| {
             [lo, hi]
                 .iter()
-                .all(|&l| value(&pts[i], l).is_some() && value(&pts[j], l).is_some())
+                .all(|&l| at(sampled(i), l).is_finite() && at(sampled(j), l).is_finite())
         })
         .collect();
     if pairs.len() < min_pairs {
@@ -129,11 +181,17 @@ pub fn estimate(
     let objective = |l: f64| -> f64 {
         let mut d: Vec<f64> = pairs
             .iter()
-            .filter_map(|&(i, j)| Some((value(&pts[i], l)? - value(&pts[j], l)?).powi(2)))
+            .map(|&(i, j)| (at(sampled(i), l) - at(sampled(j), l)).powi(2))
+            .filter(|v| v.is_finite())
             .collect();
-        d.sort_by(|a, b| a.total_cmp(b));
-        let keep = (d.len() as f64 * 0.98).ceil() as usize;
-        d[..keep.min(d.len())].iter().sum::<f64>() / keep.max(1) as f64
+        let keep = ((d.len() as f64 * 0.98).ceil() as usize).min(d.len());
+        if keep == 0 {
+            return f64::INFINITY;
+        }
+        if keep < d.len() {
+            d.select_nth_unstable_by(keep - 1, |a, b| a.total_cmp(b));
+        }
+        d[..keep].iter().sum::<f64>() / keep as f64
     };
     let curve: Vec<(f64, f64)> = lags.iter().map(|&l| (l, objective(l))).collect();
     let k = (0..curve.len())
@@ -141,7 +199,6 @@ pub fn estimate(
         .unwrap_or(0);
     // Refine on a quarter-step grid around the best lag, then a parabola through the best
     // fine lag and its neighbours.
-    let fine_step = step / 4.0;
     let fine: Vec<(f64, f64)> = (-6..=6)
         .map(|j| curve[k].0 + j as f64 * fine_step)
         .filter(|l| *l >= lo && *l <= hi)
