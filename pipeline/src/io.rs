@@ -366,7 +366,7 @@ pub fn read_design(path: &Path) -> Result<Vec<DesignRow>> {
     Ok(out)
 }
 
-const PLOT_COLUMNS: [&str; 14] = [
+const PLOT_COLUMNS: [&str; 23] = [
     "plot_id",
     "field",
     "treatment",
@@ -376,11 +376,20 @@ const PLOT_COLUMNS: [&str; 14] = [
     "points",
     "yield_mean",
     "yield_median",
+    "yield_trimmed_mean",
     "yield_sd",
     "moisture_mean_pct",
     "centroid_x_m",
     "centroid_y_m",
     "area_m2",
+    "net_area_m2",
+    "harvested_m2",
+    "coverage",
+    "grid_range",
+    "grid_row",
+    "along_m",
+    "across_m",
+    "source",
 ];
 
 fn plot_header(unit: &str) -> Vec<String> {
@@ -396,31 +405,98 @@ fn plot_header(unit: &str) -> Vec<String> {
         .collect()
 }
 
+fn plot_values(p: &PlotStats) -> Vec<String> {
+    vec![
+        p.plot_id.clone(),
+        p.field.clone(),
+        p.treatment.clone(),
+        p.block.clone(),
+        p.status.clone(),
+        p.reason.clone(),
+        p.points.to_string(),
+        fmt(p.yield_mean, 6),
+        fmt(p.yield_median, 6),
+        fmt(p.yield_trimmed_mean, 6),
+        fmt(p.yield_sd, 6),
+        fmt(p.moisture_mean_pct, 4),
+        fmt(p.centroid_x_m, 4),
+        fmt(p.centroid_y_m, 4),
+        fmt(p.area_m2, 4),
+        fmt(p.net_area_m2, 4),
+        fmt(p.harvested_m2, 4),
+        fmt(p.coverage, 6),
+        p.grid_range.to_string(),
+        p.grid_row.to_string(),
+        fmt(p.along_m, 4),
+        fmt(p.across_m, 4),
+        "monitor".into(),
+    ]
+}
+
+/// The plot's statistics as GeoJSON properties (same names as `plots.csv`).
+pub fn plot_properties(p: &PlotStats, unit: &str) -> serde_json::Map<String, serde_json::Value> {
+    plot_header(unit)
+        .into_iter()
+        .zip(plot_values(p))
+        .map(|(k, v)| {
+            let val = match v.parse::<f64>() {
+                Ok(x) if !["plot_id", "field", "treatment", "block"].contains(&k.as_str()) => {
+                    serde_json::json!(x)
+                }
+                _ => serde_json::json!(v),
+            };
+            (k, val)
+        })
+        .collect()
+}
+
+/// Polygons back in WGS84 lon/lat (RFC 7946: counterclockwise exterior, 8 decimals).
+pub fn write_plots_wgs84<'a>(
+    path: &Path,
+    utm: &plotsieve_stages::projection::Utm,
+    items: impl Iterator<
+        Item = (
+            &'a str,
+            &'a [(f64, f64)],
+            serde_json::Map<String, serde_json::Value>,
+        ),
+    >,
+) -> Result<()> {
+    let mut features = Vec::new();
+    for (id, ring, mut props) in items {
+        let mut ll: Vec<(f64, f64)> = ring
+            .iter()
+            .map(|&(x, y)| utm.inverse(x, y))
+            .collect::<Result<_, _>>()?;
+        if ll.first() != ll.last() {
+            ll.push(ll[0]);
+        }
+        let area2: f64 = ll
+            .windows(2)
+            .map(|w| w[0].0 * w[1].1 - w[1].0 * w[0].1)
+            .sum();
+        if area2 < 0.0 {
+            ll.reverse();
+        }
+        props.insert("plot_id".into(), serde_json::json!(id));
+        let coords: Vec<serde_json::Value> = ll
+            .iter()
+            .map(|(x, y)| serde_json::json!([(x * 1e8).round() / 1e8, (y * 1e8).round() / 1e8]))
+            .collect();
+        features.push(serde_json::json!({"type": "Feature", "properties": props,
+            "geometry": {"type": "Polygon", "coordinates": [coords]}}));
+    }
+    write_json(
+        path,
+        &serde_json::json!({"type": "FeatureCollection", "features": features}),
+    )
+}
+
 /// `plots.csv`; yield columns carry the unit, e.g. `yield_mean_t_ha`.
 pub fn write_plots(path: &Path, plots: &[PlotStats], unit: &str) -> Result<()> {
     let header = plot_header(unit);
     let h: Vec<&str> = header.iter().map(|s| s.as_str()).collect();
-    let bytes = csv_bytes(
-        &h,
-        plots.iter().map(|p| {
-            vec![
-                p.plot_id.clone(),
-                p.field.clone(),
-                p.treatment.clone(),
-                p.block.clone(),
-                p.status.clone(),
-                p.reason.clone(),
-                p.points.to_string(),
-                fmt(p.yield_mean, 6),
-                fmt(p.yield_median, 6),
-                fmt(p.yield_sd, 6),
-                fmt(p.moisture_mean_pct, 4),
-                fmt(p.centroid_x_m, 4),
-                fmt(p.centroid_y_m, 4),
-                fmt(p.area_m2, 4),
-            ]
-        }),
-    )?;
+    let bytes = csv_bytes(&h, plots.iter().map(plot_values))?;
     write_atomic(path, &bytes)
 }
 
@@ -470,11 +546,20 @@ pub fn read_plots(path: &Path, unit: &str) -> Result<Vec<PlotStats>> {
             points: num(6)? as u64,
             yield_mean: num(7)?,
             yield_median: num(8)?,
-            yield_sd: num(9)?,
-            moisture_mean_pct: num(10)?,
-            centroid_x_m: num(11)?,
-            centroid_y_m: num(12)?,
-            area_m2: num(13)?,
+            yield_trimmed_mean: num(9)?,
+            yield_sd: num(10)?,
+            moisture_mean_pct: num(11)?,
+            centroid_x_m: num(12)?,
+            centroid_y_m: num(13)?,
+            area_m2: num(14)?,
+            net_area_m2: num(15)?,
+            harvested_m2: num(16)?,
+            coverage: num(17)?,
+            grid_range: num(18)? as u32,
+            grid_row: num(19)? as u32,
+            along_m: num(20)?,
+            across_m: num(21)?,
+            net_ring: Vec::new(),
         });
     }
     if out.is_empty() {

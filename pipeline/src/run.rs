@@ -98,7 +98,9 @@ fn sha256_file(path: &Path) -> Result<(u64, String)> {
 fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
     let mut paths = vec![t.path.clone()];
     paths.extend(ingest::monitor_files(&t.cfg, &t.base)?);
-    paths.push(t.base.join(&t.cfg.inputs.plots));
+    if !t.cfg.inputs.plots.is_empty() {
+        paths.push(t.base.join(&t.cfg.inputs.plots));
+    }
     paths.push(t.base.join(&t.cfg.inputs.design));
     paths
         .iter()
@@ -171,6 +173,18 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
             let o = ingest::run(cfg, &t.base)?;
             io::write_points(&dir.join("points.parquet"), &o.points)?;
             io::write_projected_plots(&dir.join("plots.geojson"), &o.polygons, o.points.epsg)?;
+            let utm = plotsieve_stages::projection::Utm::from_epsg(o.points.epsg)?;
+            io::write_plots_wgs84(
+                &dir.join("plots_wgs84.geojson"),
+                &utm,
+                o.polygons.iter().map(|p| {
+                    (
+                        p.plot_id.as_str(),
+                        p.exterior.as_slice(),
+                        serde_json::Map::new(),
+                    )
+                }),
+            )?;
             io::write_design(&dir.join("design.csv"), &o.design)?;
             write_stage_tables(&dir, &o.rejections, &o.summary)?;
             Ok(o.summary)
@@ -216,7 +230,7 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
                 &polys,
                 &design,
                 &cfg.inputs.design,
-                cfg.plots.min_points as u64,
+                &cfg.plots,
                 unit,
                 &crop,
             );
@@ -239,6 +253,23 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
                 Some(ids),
             )?;
             io::write_plots(&dir.join("plots.csv"), &o.plots, unit.suffix())?;
+            let epsg = read_summary(out, Stage::Ingest)?
+                .details
+                .get("epsg")
+                .and_then(|v| v.as_u64())
+                .unwrap_or(0) as u32;
+            let utm = plotsieve_stages::projection::Utm::from_epsg(epsg)?;
+            io::write_plots_wgs84(
+                &dir.join("plots.geojson"),
+                &utm,
+                o.plots.iter().filter(|p| !p.net_ring.is_empty()).map(|p| {
+                    (
+                        p.plot_id.as_str(),
+                        p.net_ring.as_slice(),
+                        io::plot_properties(p, unit.suffix()),
+                    )
+                }),
+            )?;
             write_stage_tables(&dir, &o.rejections, &o.summary)?;
             Ok(o.summary)
         }
@@ -451,7 +482,12 @@ pub fn run_one(
 /// `plotsieve check`.
 pub fn check(trial: &Path, set: &[String]) -> Result<()> {
     let t = load(trial, set)?;
-    let problems = ingest::check(&t.cfg, &t.base);
+    let found = ingest::check(&t.cfg, &t.base);
+    let (warnings, problems): (Vec<String>, Vec<String>) =
+        found.into_iter().partition(|p| p.starts_with("warning: "));
+    for w in &warnings {
+        println!("{w}");
+    }
     if problems.is_empty() {
         println!("{}: configuration and inputs look right", trial.display());
         Ok(())

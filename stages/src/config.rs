@@ -22,7 +22,7 @@ pub const CROPS_TOML: &str = include_str!("../../config/crops.toml");
 /// Sections whose every key must appear in the defaults.
 const SETTINGS_SECTIONS: &[&str] = &["inputs", "ingest", "clean", "plots", "adjust", "report"];
 /// Keys of `inputs` that the trial file must give (they have no default).
-const TRIAL_INPUT_KEYS: &[&str] = &["monitor", "plots", "design"];
+const TRIAL_INPUT_KEYS: &[&str] = &["monitor", "design"];
 
 /// A configuration problem, naming the key or file.
 #[derive(Debug, thiserror::Error)]
@@ -110,7 +110,8 @@ pub struct TrialSection {
 pub struct InputsSection {
     /// Monitor export CSVs, or folders whose `*.csv` files are all taken (sorted by name).
     pub monitor: Vec<String>,
-    /// Plot boundaries, GeoJSON (RFC 7946, WGS84 lon/lat).
+    /// Plot boundaries, GeoJSON (RFC 7946, WGS84 lon/lat); empty when `[[layout]]` gives
+    /// the plots as grids.
     pub plots: String,
     /// Feature property holding the plot id.
     pub plot_id_property: String,
@@ -292,6 +293,14 @@ pub struct CleanSettings {
 #[serde(deny_unknown_fields)]
 pub struct PlotsSettings {
     pub min_points: i64,
+    pub min_coverage: f64,
+    pub end_trim_m: f64,
+    pub side_trim_m: f64,
+    pub min_swath_inside: f64,
+    pub trim_fraction: f64,
+    pub far_m: f64,
+    pub coverage_cell_m: f64,
+    pub design_mismatch: String,
 }
 
 /// `[adjust]` settings.
@@ -324,6 +333,9 @@ pub struct TrialConfig {
     pub plots: PlotsSettings,
     pub adjust: AdjustSettings,
     pub report: ReportSettings,
+    /// Plot grids, one per field, for trials without a boundary file.
+    #[serde(default)]
+    pub layout: Vec<crate::plots::layout::GridLayout>,
 }
 
 /// One crop of the crop table.
@@ -653,6 +665,53 @@ impl TrialConfig {
                 "adjust.starts_per_axis must be between 1 and 9 (got {})",
                 self.adjust.starts_per_axis
             ));
+        }
+        let pl = &self.plots;
+        for (k, v) in [
+            ("plots.min_coverage", pl.min_coverage),
+            ("plots.end_trim_m", pl.end_trim_m),
+            ("plots.side_trim_m", pl.side_trim_m),
+            ("plots.min_swath_inside", pl.min_swath_inside),
+            ("plots.trim_fraction", pl.trim_fraction),
+            ("plots.far_m", pl.far_m),
+        ] {
+            if !(v >= 0.0) || !v.is_finite() {
+                p.push(format!("{k} must be a finite number >= 0 (got {v})"));
+            }
+        }
+        if pl.min_coverage > 1.0 || pl.min_swath_inside > 1.0 {
+            p.push(format!(
+                "plots.min_coverage and plots.min_swath_inside must be at most 1 (got {} and {})",
+                pl.min_coverage, pl.min_swath_inside
+            ));
+        }
+        if pl.trim_fraction >= 0.5 {
+            p.push(format!(
+                "plots.trim_fraction must be below 0.5 (got {})",
+                pl.trim_fraction
+            ));
+        }
+        if !(pl.coverage_cell_m > 0.0) {
+            p.push(format!(
+                "plots.coverage_cell_m must be above 0 (got {})",
+                pl.coverage_cell_m
+            ));
+        }
+        if !["error", "warn"].contains(&pl.design_mismatch.as_str()) {
+            p.push(format!(
+                "plots.design_mismatch must be \"error\" or \"warn\" (got {:?})",
+                pl.design_mismatch
+            ));
+        }
+        match (self.inputs.plots.is_empty(), self.layout.is_empty()) {
+            (true, true) => {
+                p.push("inputs.plots is empty and there is no [[layout]]: give one of them".into())
+            }
+            (false, false) => p.push("give inputs.plots or [[layout]], not both".into()),
+            _ => {}
+        }
+        for (i, l) in self.layout.iter().enumerate() {
+            p.extend(l.problems(i));
         }
         if self.plots.min_points < 1 {
             p.push(format!(

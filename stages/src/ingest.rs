@@ -485,10 +485,26 @@ pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> 
     for (i, (p, name)) in files.iter().zip(&names).enumerate() {
         count_in += read_export(cfg, p, name, i as u32, &mut raw, &mut rejections)?;
     }
-    let (polygons_ll, design) = read_plots_and_design(cfg, base)?;
+    let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design)?;
+    let polygons_ll = if cfg.layout.is_empty() {
+        read_geojson(
+            &base.join(&cfg.inputs.plots),
+            &cfg.inputs.plots,
+            &cfg.inputs.plot_id_property,
+        )?
+    } else {
+        Vec::new()
+    };
     let lons: Vec<f64> = raw.iter().map(|r| r.lon).collect();
     let lats: Vec<f64> = raw.iter().map(|r| r.lat).collect();
-    let (lons, lats) = if lons.is_empty() {
+    let (lons, lats) = if !lons.is_empty() {
+        (lons, lats)
+    } else if !cfg.layout.is_empty() {
+        (
+            cfg.layout.iter().map(|l| l.origin_lon).collect(),
+            cfg.layout.iter().map(|l| l.origin_lat).collect(),
+        )
+    } else {
         // No readable point at all: take the zone from the plots.
         let pts: Vec<(f64, f64)> = polygons_ll
             .iter()
@@ -498,8 +514,6 @@ pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> 
             pts.iter().map(|p| p.0).collect(),
             pts.iter().map(|p| p.1).collect(),
         )
-    } else {
-        (lons, lats)
     };
     let utm = choose_projection(cfg, &lons, &lats)?;
     let projected: Result<Vec<(f64, f64)>, _> =
@@ -527,21 +541,22 @@ pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> 
             fix_quality: r.optional[2],
         })
         .collect();
-    let polygons = polygons_ll
-        .into_iter()
-        .map(|p| -> Result<PlotPolygon, IngestError> {
-            let proj = |ring: &[(f64, f64)]| -> Result<Vec<(f64, f64)>, IngestError> {
-                ring.iter()
-                    .map(|&(lon, lat)| utm.forward(lon, lat).map_err(IngestError::from))
-                    .collect()
-            };
-            Ok(PlotPolygon {
-                exterior: proj(&p.exterior)?,
-                holes: p.holes.iter().map(|h| proj(h)).collect::<Result<_, _>>()?,
-                plot_id: p.plot_id,
-            })
-        })
-        .collect::<Result<Vec<_>, _>>()?;
+    let polygons = if cfg.layout.is_empty() {
+        project_polygons(&utm, polygons_ll)?
+    } else {
+        let mut v = Vec::new();
+        for l in &cfg.layout {
+            let (ox, oy) = utm.forward(l.origin_lon, l.origin_lat)?;
+            v.extend(l.polygons(ox, oy));
+        }
+        v
+    };
+    let plots_name = if cfg.layout.is_empty() {
+        cfg.inputs.plots.clone()
+    } else {
+        "[[layout]]".to_string()
+    };
+    let (polygons, design, warnings) = reconcile(cfg, &plots_name, polygons, design)?;
     let mut summary = StageSummary::from_rejections("ingest", "points", count_in, &rejections);
     summary
         .details
@@ -552,6 +567,9 @@ pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> 
     summary
         .details
         .insert("plots".into(), serde_json::json!(polygons.len()));
+    summary
+        .details
+        .insert("warnings".into(), serde_json::json!(warnings));
     Ok(IngestOutput {
         points: PointSet {
             files: names,
@@ -565,55 +583,92 @@ pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> 
     })
 }
 
-/// Read the plot GeoJSON (lon/lat) and the design table and check that they match.
-pub fn read_plots_and_design(
+fn project_polygons(utm: &Utm, polys: Vec<PlotPolygon>) -> Result<Vec<PlotPolygon>, IngestError> {
+    polys
+        .into_iter()
+        .map(|p| -> Result<PlotPolygon, IngestError> {
+            let proj = |ring: &[(f64, f64)]| -> Result<Vec<(f64, f64)>, IngestError> {
+                ring.iter()
+                    .map(|&(lon, lat)| utm.forward(lon, lat).map_err(IngestError::from))
+                    .collect()
+            };
+            Ok(PlotPolygon {
+                exterior: proj(&p.exterior)?,
+                holes: p.holes.iter().map(|h| proj(h)).collect::<Result<_, _>>()?,
+                plot_id: p.plot_id,
+            })
+        })
+        .collect()
+}
+
+/// Check that the design and the plot geometry match: ids in one and not the other, duplicate
+/// ids, a field without the check. With `plots.design_mismatch = "error"` every problem is in
+/// one error; with "warn" unmatched plots and design rows are dropped and the problems come
+/// back as warnings (a field without the check stays an error: nothing could be compared).
+pub fn reconcile(
     cfg: &TrialConfig,
-    base: &Path,
-) -> Result<(Vec<PlotPolygon>, Vec<DesignRow>), IngestError> {
-    let polys = read_geojson(
-        &base.join(&cfg.inputs.plots),
-        &cfg.inputs.plots,
-        &cfg.inputs.plot_id_property,
-    )?;
-    let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design)?;
+    plots_name: &str,
+    polys: Vec<PlotPolygon>,
+    design: Vec<DesignRow>,
+) -> Result<(Vec<PlotPolygon>, Vec<DesignRow>, Vec<String>), IngestError> {
     let mut problems = Vec::new();
-    let geo_ids: BTreeSet<&str> = polys.iter().map(|p| p.plot_id.as_str()).collect();
-    let des_ids: BTreeSet<&str> = design.iter().map(|d| d.plot_id.as_str()).collect();
-    let missing_geo: Vec<&str> = des_ids.difference(&geo_ids).copied().collect();
-    let missing_des: Vec<&str> = geo_ids.difference(&des_ids).copied().collect();
+    let mut fatal = Vec::new();
+    let mut seen = BTreeSet::new();
+    let dups: BTreeSet<String> = polys
+        .iter()
+        .map(|p| p.plot_id.clone())
+        .filter(|id| !seen.insert(id.clone()))
+        .collect();
+    if !dups.is_empty() {
+        fatal.push(format!(
+            "{plots_name}: duplicate plot ids: {}",
+            dups.iter().cloned().collect::<Vec<_>>().join(", ")
+        ));
+    }
+    let geo_ids: BTreeSet<String> = polys.iter().map(|p| p.plot_id.clone()).collect();
+    let des_ids: BTreeSet<String> = design.iter().map(|d| d.plot_id.clone()).collect();
+    let missing_geo: Vec<&str> = des_ids.difference(&geo_ids).map(|s| s.as_str()).collect();
+    let missing_des: Vec<&str> = geo_ids.difference(&des_ids).map(|s| s.as_str()).collect();
     if !missing_geo.is_empty() {
         problems.push(format!(
-            "{}: plot ids with no polygon in {}: {}",
+            "{}: plot ids with no polygon in {plots_name}: {}",
             cfg.inputs.design,
-            cfg.inputs.plots,
             missing_geo.join(", ")
         ));
     }
     if !missing_des.is_empty() {
         problems.push(format!(
-            "{}: plot ids with no row in {}: {}",
-            cfg.inputs.plots,
+            "{plots_name}: plot ids with no row in {}: {}",
             cfg.inputs.design,
             missing_des.join(", ")
         ));
     }
     let mut fields: BTreeMap<&str, BTreeSet<&str>> = BTreeMap::new();
-    for d in &design {
+    for d in design.iter().filter(|d| geo_ids.contains(&d.plot_id)) {
         fields.entry(&d.field).or_default().insert(&d.treatment);
     }
     for (f, ts) in &fields {
         if !ts.contains(cfg.trial.check.as_str()) {
-            problems.push(format!(
+            fatal.push(format!(
                 "{}: field {f} has no plot of the check treatment {:?} (trial.check)",
                 cfg.inputs.design, cfg.trial.check
             ));
         }
     }
-    if problems.is_empty() {
-        Ok((polys, design))
-    } else {
-        Err(IngestError::Mismatch(problems))
+    let warn = cfg.plots.design_mismatch == "warn";
+    if !fatal.is_empty() || (!problems.is_empty() && !warn) {
+        problems.extend(fatal);
+        return Err(IngestError::Mismatch(problems));
     }
+    let polys: Vec<PlotPolygon> = polys
+        .into_iter()
+        .filter(|p| des_ids.contains(&p.plot_id))
+        .collect();
+    let design: Vec<DesignRow> = design
+        .into_iter()
+        .filter(|d| geo_ids.contains(&d.plot_id))
+        .collect();
+    Ok((polys, design, problems))
 }
 
 fn ring_from_json(v: &serde_json::Value) -> Option<Vec<(f64, f64)>> {
@@ -647,7 +702,6 @@ pub fn read_geojson(
         .and_then(|f| f.as_array())
         .ok_or_else(|| unusable("expected a GeoJSON FeatureCollection with \"features\"".into()))?;
     let mut out = Vec::new();
-    let mut seen = BTreeSet::new();
     for (i, f) in feats.iter().enumerate() {
         let id = match f.get("properties").and_then(|p| p.get(id_prop)) {
             Some(serde_json::Value::String(s)) => s.clone(),
@@ -701,9 +755,6 @@ pub fn read_geojson(
         }
         if parsed.is_empty() {
             return Err(unusable(format!("feature {i} (plot {id}): empty polygon")));
-        }
-        if !seen.insert(id.clone()) {
-            return Err(unusable(format!("feature {i}: duplicate plot id {id}")));
         }
         let exterior = parsed.remove(0);
         out.push(PlotPolygon {
@@ -823,8 +874,39 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
             }
         }
     }
-    if let Err(e) = read_plots_and_design(cfg, base) {
-        problems.push(e.to_string());
+    let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design);
+    let polys = if cfg.layout.is_empty() {
+        read_geojson(
+            &base.join(&cfg.inputs.plots),
+            &cfg.inputs.plots,
+            &cfg.inputs.plot_id_property,
+        )
+        .map(|p| (p, cfg.inputs.plots.clone()))
+    } else {
+        // Ids do not depend on where the grid lies.
+        Ok((
+            cfg.layout
+                .iter()
+                .flat_map(|l| l.polygons(0.0, 0.0))
+                .collect(),
+            "[[layout]]".to_string(),
+        ))
+    };
+    match (polys, design) {
+        (Ok((p, name)), Ok(d)) => match reconcile(cfg, &name, p, d) {
+            Err(e) => problems.push(e.to_string()),
+            Ok((_, _, warnings)) => {
+                problems.extend(warnings.into_iter().map(|w| format!("warning: {w}")))
+            }
+        },
+        (p, d) => {
+            if let Err(e) = p {
+                problems.push(e.to_string());
+            }
+            if let Err(e) = d {
+                problems.push(e.to_string());
+            }
+        }
     }
     problems
 }

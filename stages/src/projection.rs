@@ -53,6 +53,15 @@ impl Utm {
         })
     }
 
+    /// The zone of an EPSG code 326zz or 327zz.
+    pub fn from_epsg(epsg: u32) -> Result<Self, ProjectionError> {
+        match epsg {
+            32601..=32660 => Utm::new((epsg - 32600) as i64, false),
+            32701..=32760 => Utm::new((epsg - 32700) as i64, true),
+            _ => Err(ProjectionError::Zone(epsg as i64)),
+        }
+    }
+
     /// EPSG code of this zone: 32600 + zone (north) or 32700 + zone (south).
     pub fn epsg(&self) -> u32 {
         if self.south {

@@ -1,0 +1,289 @@
+//! Plane geometry for plot trimming and swath footprints, in projected metres.
+//!
+//! - [`clip_area`]: area of a simple polygon inside a convex polygon, by Sutherland-Hodgman
+//!   clipping (Sutherland & Hodgman 1974, CACM 17:32) and the shoelace formula; exact for any
+//!   simple subject polygon clipped by a convex one.
+//! - [`Frame`]: a plot's own axes (along = direction of the longer side of its minimum
+//!   rotated rectangle), with [`net_polygon`] shrinking the plot by an end trim along and a
+//!   side trim across.
+//! - [`coverage`]: the fraction of a polygon covered by the union of footprints, on a raster of
+//!   `cell` metres (cell centres tested), so it is exact to about one cell along the edges.
+
+use geo::{Contains, LineString, MinimumRotatedRect, Polygon};
+
+/// Signed area of a ring (counterclockwise positive), shoelace formula.
+pub fn signed_area(ring: &[(f64, f64)]) -> f64 {
+    let n = ring.len();
+    if n < 3 {
+        return 0.0;
+    }
+    // Relative to the first vertex: projected coordinates are ~1e6 m, and the plain formula
+    // would lose most of its digits to cancellation.
+    let o = ring[0];
+    let mut s = 0.0;
+    for i in 1..n - 1 {
+        let (a, b) = (ring[i], ring[i + 1]);
+        s += (a.0 - o.0) * (b.1 - o.1) - (b.0 - o.0) * (a.1 - o.1);
+    }
+    0.5 * s
+}
+
+/// Area of `subject` (a simple ring, any orientation, closing point optional) inside the
+/// convex ring `clip`.
+pub fn clip_area(subject: &[(f64, f64)], clip: &[(f64, f64)]) -> f64 {
+    signed_area(&clip_ring(subject, clip)).abs()
+}
+
+/// A plot's own axes: origin, unit vector along (travel) and across.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Frame {
+    pub ox: f64,
+    pub oy: f64,
+    pub ax: f64,
+    pub ay: f64,
+}
+
+impl Frame {
+    /// Along and across coordinates of a point.
+    pub fn local(&self, x: f64, y: f64) -> (f64, f64) {
+        let (dx, dy) = (x - self.ox, y - self.oy);
+        (dx * self.ax + dy * self.ay, -dx * self.ay + dy * self.ax)
+    }
+    /// World coordinates of (along, across).
+    pub fn world(&self, u: f64, v: f64) -> (f64, f64) {
+        (
+            self.ox + u * self.ax - v * self.ay,
+            self.oy + u * self.ay + v * self.ax,
+        )
+    }
+}
+
+/// The frame of a polygon from its minimum rotated rectangle: origin at the rectangle's
+/// centre, along its longer side (pointing into the half-plane of increasing x, or of
+/// increasing y when the side runs north-south, so the result does not depend on vertex
+/// order), and the rectangle's length and width.
+pub fn frame_of(poly: &Polygon<f64>) -> Option<(Frame, f64, f64)> {
+    let r = poly.minimum_rotated_rect()?;
+    let c: Vec<(f64, f64)> = r.exterior().points().map(|p| (p.x(), p.y())).collect();
+    if c.len() < 4 {
+        return None;
+    }
+    let e1 = (c[1].0 - c[0].0, c[1].1 - c[0].1);
+    let e2 = (c[2].0 - c[1].0, c[2].1 - c[1].1);
+    let (l1, l2) = (e1.0.hypot(e1.1), e2.0.hypot(e2.1));
+    let (long, len, wid) = if l1 >= l2 { (e1, l1, l2) } else { (e2, l2, l1) };
+    let (mut ax, mut ay) = (long.0 / len, long.1 / len);
+    if ax < -1e-9 || (ax.abs() <= 1e-9 && ay < 0.0) {
+        ax = -ax;
+        ay = -ay;
+    }
+    let ox = (c[0].0 + c[2].0) / 2.0;
+    let oy = (c[0].1 + c[2].1) / 2.0;
+    Some((Frame { ox, oy, ax, ay }, len, wid))
+}
+
+/// The net plot: the plot's rectangle shrunk by `end_trim` at each end (along) and
+/// `side_trim` at each side (across), clipped to the plot polygon itself. `None` when the
+/// trims leave nothing.
+pub fn net_polygon(poly: &Polygon<f64>, end_trim: f64, side_trim: f64) -> Option<Vec<(f64, f64)>> {
+    let (f, len, wid) = frame_of(poly)?;
+    let (hu, hv) = (0.5 * len - end_trim, 0.5 * wid - side_trim);
+    if hu <= 0.0 || hv <= 0.0 {
+        return None;
+    }
+    let rect: Vec<(f64, f64)> = [(-hu, -hv), (hu, -hv), (hu, hv), (-hu, hv)]
+        .iter()
+        .map(|&(u, v)| f.world(u, v))
+        .collect();
+    let ring: Vec<(f64, f64)> = poly.exterior().points().map(|p| (p.x(), p.y())).collect();
+    // A plot that is (nearly) its own rectangle: the shrunk rectangle is the net plot.
+    if (signed_area(&ring).abs() - len * wid).abs() <= 1e-6 * len * wid
+        && poly.interiors().is_empty()
+    {
+        return Some(rect);
+    }
+    // Otherwise keep the rectangle only where it lies in the plot: clip the plot by it.
+    let clipped = clip_ring(&ring, &rect);
+    (clipped.len() >= 3).then_some(clipped)
+}
+
+/// Sutherland-Hodgman clip of a ring by a convex ring (returns the clipped ring, open).
+pub fn clip_ring(subject: &[(f64, f64)], clip: &[(f64, f64)]) -> Vec<(f64, f64)> {
+    // Work relative to the clip's first vertex (see `signed_area`).
+    let Some(&o) = clip.first() else {
+        return Vec::new();
+    };
+    let shift = |r: &[(f64, f64)]| -> Vec<(f64, f64)> {
+        r.iter().map(|p| (p.0 - o.0, p.1 - o.1)).collect()
+    };
+    let (subject, clip) = (shift(subject), shift(clip));
+    clip_local(&subject, &clip)
+        .into_iter()
+        .map(|p| (p.0 + o.0, p.1 + o.1))
+        .collect()
+}
+
+fn clip_local(subject: &[(f64, f64)], clip: &[(f64, f64)]) -> Vec<(f64, f64)> {
+    let mut c = clip.to_vec();
+    if c.len() > 1 && c.first() == c.last() {
+        c.pop();
+    }
+    if signed_area(&c) < 0.0 {
+        c.reverse();
+    }
+    let mut out = subject.to_vec();
+    if out.len() > 1 && out.first() == out.last() {
+        out.pop();
+    }
+    for i in 0..c.len() {
+        if out.is_empty() {
+            break;
+        }
+        let (a, b) = (c[i], c[(i + 1) % c.len()]);
+        let inside = |p: (f64, f64)| (b.0 - a.0) * (p.1 - a.1) - (b.1 - a.1) * (p.0 - a.0) >= 0.0;
+        let cross = |p: (f64, f64), q: (f64, f64)| {
+            let (dx, dy) = (q.0 - p.0, q.1 - p.1);
+            let (ex, ey) = (b.0 - a.0, b.1 - a.1);
+            let t = ((a.0 - p.0) * ey - (a.1 - p.1) * ex) / (dx * ey - dy * ex);
+            (p.0 + t * dx, p.1 + t * dy)
+        };
+        let input = std::mem::take(&mut out);
+        for j in 0..input.len() {
+            let (p, q) = (input[j], input[(j + 1) % input.len()]);
+            match (inside(p), inside(q)) {
+                (true, true) => out.push(q),
+                (true, false) => out.push(cross(p, q)),
+                (false, true) => {
+                    out.push(cross(p, q));
+                    out.push(q);
+                }
+                (false, false) => {}
+            }
+        }
+    }
+    out
+}
+
+/// An oriented rectangle (a swath footprint): centre, unit heading, length along, width.
+pub fn oriented_rect(x: f64, y: f64, ux: f64, uy: f64, length: f64, width: f64) -> Vec<(f64, f64)> {
+    let (hl, hw) = (0.5 * length, 0.5 * width);
+    [(-hl, -hw), (hl, -hw), (hl, hw), (-hl, hw)]
+        .iter()
+        .map(|&(a, c)| (x + a * ux - c * uy, y + a * uy + c * ux))
+        .collect()
+}
+
+/// Fraction of `area_of` covered by the union of convex `footprints`, on a raster of `cell`
+/// metres over the polygon's bounding box (cell centres inside the polygon are counted).
+pub fn coverage(polygon: &[(f64, f64)], footprints: &[Vec<(f64, f64)>], cell: f64) -> f64 {
+    let mut ring = polygon.to_vec();
+    if ring.first() != ring.last() {
+        ring.push(ring[0]);
+    }
+    let poly = Polygon::new(LineString::from(ring.clone()), vec![]);
+    let (mut x0, mut y0, mut x1, mut y1) = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
+    for &(x, y) in &ring {
+        x0 = x0.min(x);
+        y0 = y0.min(y);
+        x1 = x1.max(x);
+        y1 = y1.max(y);
+    }
+    let nx = ((x1 - x0) / cell).ceil().max(1.0) as usize;
+    let ny = ((y1 - y0) / cell).ceil().max(1.0) as usize;
+    let mut inside = vec![false; nx * ny];
+    let mut covered = vec![false; nx * ny];
+    let centre = |i: usize, j: usize| (x0 + (i as f64 + 0.5) * cell, y0 + (j as f64 + 0.5) * cell);
+    for j in 0..ny {
+        for i in 0..nx {
+            let (x, y) = centre(i, j);
+            inside[j * nx + i] = poly.contains(&geo::Point::new(x, y));
+        }
+    }
+    for fp in footprints {
+        let (mut fx0, mut fy0, mut fx1, mut fy1) = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
+        for &(x, y) in fp {
+            fx0 = fx0.min(x);
+            fy0 = fy0.min(y);
+            fx1 = fx1.max(x);
+            fy1 = fy1.max(y);
+        }
+        let i0 = (((fx0 - x0) / cell).floor().max(0.0)) as usize;
+        let j0 = (((fy0 - y0) / cell).floor().max(0.0)) as usize;
+        let i1 = (((fx1 - x0) / cell).ceil().max(0.0) as usize).min(nx);
+        let j1 = (((fy1 - y0) / cell).ceil().max(0.0) as usize).min(ny);
+        let mut c = fp.clone();
+        if signed_area(&c) < 0.0 {
+            c.reverse();
+        }
+        for j in j0..j1 {
+            for i in i0..i1 {
+                let k = j * nx + i;
+                if covered[k] || !inside[k] {
+                    continue;
+                }
+                let (x, y) = centre(i, j);
+                let hit = (0..c.len()).all(|e| {
+                    let (a, b) = (c[e], c[(e + 1) % c.len()]);
+                    (b.0 - a.0) * (y - a.1) - (b.1 - a.1) * (x - a.0) >= 0.0
+                });
+                covered[k] = hit;
+            }
+        }
+    }
+    let n_in = inside.iter().filter(|&&b| b).count();
+    if n_in == 0 {
+        return 0.0;
+    }
+    covered.iter().filter(|&&b| b).count() as f64 / n_in as f64
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn clip_area_by_hand() {
+        // Unit square half inside a square from (0.5, -1) to (2, 2): overlap 0.5.
+        let a = [(0.0, 0.0), (1.0, 0.0), (1.0, 1.0), (0.0, 1.0)];
+        let b = [(0.5, -1.0), (2.0, -1.0), (2.0, 2.0), (0.5, 2.0)];
+        assert!((clip_area(&a, &b) - 0.5).abs() < 1e-12);
+        // Disjoint.
+        let c = [(5.0, 5.0), (6.0, 5.0), (6.0, 6.0)];
+        assert_eq!(clip_area(&a, &c), 0.0);
+    }
+
+    #[test]
+    fn net_plot_of_a_rotated_rectangle() {
+        // 60 x 18 m rectangle along bearing 30 degrees; trims 15 m and 1 m leave 30 x 16 m.
+        let f = Frame {
+            ox: 1000.0,
+            oy: 2000.0,
+            ax: 30f64.to_radians().sin(),
+            ay: 30f64.to_radians().cos(),
+        };
+        let ring: Vec<(f64, f64)> = [
+            (-30.0, -9.0),
+            (30.0, -9.0),
+            (30.0, 9.0),
+            (-30.0, 9.0),
+            (-30.0, -9.0),
+        ]
+        .iter()
+        .map(|&(u, v)| f.world(u, v))
+        .collect();
+        let poly = Polygon::new(LineString::from(ring), vec![]);
+        let net = net_polygon(&poly, 15.0, 1.0).unwrap();
+        assert!((signed_area(&net).abs() - 30.0 * 16.0).abs() < 1e-6);
+        let (g, len, wid) = frame_of(&poly).unwrap();
+        assert!((len - 60.0).abs() < 1e-9 && (wid - 18.0).abs() < 1e-9);
+        assert!((g.ax - f.ax).abs() < 1e-9 && (g.ay - f.ay).abs() < 1e-9);
+        assert!(net_polygon(&poly, 31.0, 1.0).is_none());
+    }
+
+    #[test]
+    fn coverage_of_half_a_square() {
+        let sq = [(0.0, 0.0), (10.0, 0.0), (10.0, 10.0), (0.0, 10.0)];
+        let half = vec![vec![(-1.0, -1.0), (5.0, -1.0), (5.0, 11.0), (-1.0, 11.0)]];
+        assert!((coverage(&sq, &half, 0.25) - 0.5).abs() < 1e-9);
+    }
+}

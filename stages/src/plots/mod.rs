@@ -1,0 +1,504 @@
+//! Plots: clean points to trial-grade plot yields.
+//!
+//! Parameters: clean points, projected plot polygons (from GeoJSON or a grid [`layout`]), the
+//! design table and `[plots]` settings.
+//! Steps, each removal logged with its rule, value and limit:
+//!
+//! 1. Join: each point goes to the first plot polygon (in design order) that contains it,
+//!    found through an R-tree (rstar) of polygon bounding boxes and an exact test (geo
+//!    `Contains`). A point in no plot is `outside_plots`, or `far_from_trial` when it lies
+//!    more than `far_m` from every plot's bounding box (an export that strayed onto another
+//!    field or a road).
+//! 2. Border trimming: the net plot is the plot's own rectangle (minimum rotated rectangle,
+//!    along its longer side) shrunk by `end_trim_m` at each end and `side_trim_m` at each side.
+//!    A point of the plot outside the net plot is `border_trim`.
+//! 3. Swath straddle: the point's swath footprint (logged width across its heading, distance
+//!    since the previous point along it) must lie at least `min_swath_inside` inside the net
+//!    plot (exact clipping, [`geometry::clip_area`]), else `swath_straddle`.
+//! 4. Per plot: point count, harvested area (union of footprints within the net plot, on a
+//!    raster of `coverage_cell_m`) and its fraction of the net area, mean, median, trimmed
+//!    mean (`trim_fraction` off each tail) and SD of yield at standard moisture, mean
+//!    moisture, centroid, and grid coordinates (range along travel, row across, and metres
+//!    along and across from the field's first plot). Plots with fewer than `min_points`
+//!    points or a coverage below `min_coverage` are set aside (`min_points`,
+//!    `min_coverage`) and stay in the table, flagged.
+//!
+//! Complexity: O(n log m) for n points and m plots, plus the footprint raster per plot.
+
+pub mod geometry;
+pub mod layout;
+
+use crate::config::{Crop, OutputUnit, PlotsSettings};
+use crate::table::{CleanPoint, DesignRow, PlotCounts, PlotPolygon, Rejection, StageSummary};
+use crate::util::{mean, median, sd};
+use geo::{Area, Centroid, Contains, LineString, Polygon};
+use geometry::{clip_area, net_polygon, oriented_rect, Frame};
+use rstar::primitives::{GeomWithData, Rectangle};
+use rstar::{PointDistance, RTree};
+use std::collections::{BTreeMap, HashMap};
+
+/// Statistics of one plot.
+#[derive(Clone, Debug, PartialEq)]
+pub struct PlotStats {
+    pub plot_id: String,
+    pub field: String,
+    pub treatment: String,
+    pub block: String,
+    /// `kept`, or `set_aside` with the rule in `reason`.
+    pub status: String,
+    pub reason: String,
+    pub points: u64,
+    /// Yields at standard moisture in the trial's output unit.
+    pub yield_mean: f64,
+    pub yield_median: f64,
+    pub yield_trimmed_mean: f64,
+    pub yield_sd: f64,
+    pub moisture_mean_pct: f64,
+    pub centroid_x_m: f64,
+    pub centroid_y_m: f64,
+    pub area_m2: f64,
+    pub net_area_m2: f64,
+    pub harvested_m2: f64,
+    pub coverage: f64,
+    /// Grid position: range (along travel) and row (across), from 1, and metres.
+    pub grid_range: u32,
+    pub grid_row: u32,
+    pub along_m: f64,
+    pub across_m: f64,
+    /// The net plot ring (projected metres), empty when the trims leave nothing.
+    pub net_ring: Vec<(f64, f64)>,
+}
+
+/// What the plots stage hands on.
+#[derive(Clone, Debug)]
+pub struct PlotsOutput {
+    /// For each kept clean point (by index into the input), the plot index it counts for.
+    pub assignment: Vec<(usize, usize)>,
+    pub plots: Vec<PlotStats>,
+    pub rejections: Vec<Rejection>,
+    pub summary: StageSummary,
+}
+
+/// A geo polygon from a plot ring set.
+pub fn to_geo(p: &PlotPolygon) -> Polygon<f64> {
+    Polygon::new(
+        LineString::from(p.exterior.clone()),
+        p.holes
+            .iter()
+            .map(|h| LineString::from(h.clone()))
+            .collect(),
+    )
+}
+
+type BoxTree = RTree<GeomWithData<Rectangle<[f64; 2]>, usize>>;
+
+/// Index polygons by their bounding boxes.
+pub fn index(polys: &[Polygon<f64>]) -> BoxTree {
+    use geo::BoundingRect;
+    let items = polys
+        .iter()
+        .enumerate()
+        .filter_map(|(i, p)| {
+            let r = p.bounding_rect()?;
+            Some(GeomWithData::new(
+                Rectangle::from_corners([r.min().x, r.min().y], [r.max().x, r.max().y]),
+                i,
+            ))
+        })
+        .collect();
+    RTree::bulk_load(items)
+}
+
+/// The first polygon (lowest index) that contains the point.
+pub fn locate(tree: &BoxTree, polys: &[Polygon<f64>], x: f64, y: f64) -> Option<usize> {
+    tree.locate_all_at_point(&[x, y])
+        .map(|g| g.data)
+        .filter(|&i| polys[i].contains(&geo::Point::new(x, y)))
+        .min()
+}
+
+/// Mean of the values left after cutting `fraction` of them off each tail.
+pub fn trimmed_mean(values: &[f64], fraction: f64) -> f64 {
+    if values.is_empty() {
+        return f64::NAN;
+    }
+    let mut v = values.to_vec();
+    v.sort_by(|a, b| a.total_cmp(b));
+    let k = (fraction * v.len() as f64).floor() as usize;
+    let core = &v[k.min(v.len() / 2)..v.len() - k.min((v.len() - 1) / 2)];
+    mean(core)
+}
+
+/// Group sorted coordinates into ranks: a new rank after a gap wider than `gap`.
+fn ranks(values: &[f64], gap: f64) -> Vec<u32> {
+    let mut order: Vec<usize> = (0..values.len()).collect();
+    order.sort_by(|&a, &b| values[a].total_cmp(&values[b]));
+    let mut out = vec![0u32; values.len()];
+    let mut rank = 1;
+    for (k, &i) in order.iter().enumerate() {
+        if k > 0 && values[i] - values[order[k - 1]] > gap {
+            rank += 1;
+        }
+        out[i] = rank;
+    }
+    out
+}
+
+fn point_rejection(
+    p: &CleanPoint,
+    files: &[String],
+    rule: &str,
+    column: &str,
+    value: String,
+    limit: String,
+) -> Rejection {
+    Rejection {
+        source_file: files[p.base.file as usize].clone(),
+        source_row: p.base.row,
+        id: p.base.id.to_string(),
+        rule: rule.into(),
+        column: column.into(),
+        value,
+        limit,
+    }
+}
+
+/// Run the plots stage.
+#[allow(clippy::too_many_arguments)]
+pub fn run(
+    points: &[CleanPoint],
+    files: &[String],
+    polygons: &[PlotPolygon],
+    design: &[DesignRow],
+    design_file: &str,
+    s: &PlotsSettings,
+    unit: OutputUnit,
+    crop: &Crop,
+) -> PlotsOutput {
+    // Plots in design order, so that overlaps and ties resolve the same way every run.
+    let by_id: HashMap<&str, &PlotPolygon> =
+        polygons.iter().map(|p| (p.plot_id.as_str(), p)).collect();
+    let ordered: Vec<(&DesignRow, &PlotPolygon)> = design
+        .iter()
+        .filter_map(|d| by_id.get(d.plot_id.as_str()).map(|p| (d, *p)))
+        .collect();
+    let polys: Vec<Polygon<f64>> = ordered.iter().map(|(_, p)| to_geo(p)).collect();
+    let nets: Vec<Option<Vec<(f64, f64)>>> = polys
+        .iter()
+        .map(|p| net_polygon(p, s.end_trim_m, s.side_trim_m))
+        .collect();
+    let net_geo: Vec<Option<Polygon<f64>>> = nets
+        .iter()
+        .map(|n| {
+            n.as_ref().map(|r| {
+                let mut ring = r.clone();
+                ring.push(r[0]);
+                Polygon::new(LineString::from(ring), vec![])
+            })
+        })
+        .collect();
+    let tree = index(&polys);
+    // Headings and footprints from consecutive points of the same export and pass.
+    let mut order: Vec<usize> = (0..points.len()).collect();
+    order.sort_by(|&a, &b| {
+        let (p, q) = (&points[a].base, &points[b].base);
+        (p.file, points[a].pass)
+            .cmp(&(q.file, points[b].pass))
+            .then(p.time_s.total_cmp(&q.time_s))
+    });
+    let mut footprint: Vec<Vec<(f64, f64)>> = vec![Vec::new(); points.len()];
+    for (k, &i) in order.iter().enumerate() {
+        let same = |j: usize| {
+            points[j].base.file == points[i].base.file && points[j].pass == points[i].pass
+        };
+        let prev = (k > 0).then(|| order[k - 1]).filter(|&j| same(j));
+        let next = order.get(k + 1).copied().filter(|&j| same(j));
+        let (a, b) = (prev.unwrap_or(i), next.unwrap_or(i));
+        let p = &points[i].base;
+        let (dx, dy) = (
+            points[b].base.x_m - points[a].base.x_m,
+            points[b].base.y_m - points[a].base.y_m,
+        );
+        let d = dx.hypot(dy);
+        let (ux, uy) = if d > 1e-9 {
+            (dx / d, dy / d)
+        } else {
+            (0.0, 1.0)
+        };
+        let dt = prev
+            .map(|j| (p.time_s - points[j].base.time_s).clamp(0.0, 2.0))
+            .unwrap_or(1.0);
+        footprint[i] = oriented_rect(p.x_m, p.y_m, ux, uy, (p.speed_m_s * dt).max(0.1), p.width_m);
+    }
+    let mut assignment = Vec::new();
+    let mut rejections = Vec::new();
+    let mut members: Vec<Vec<usize>> = vec![Vec::new(); polys.len()];
+    let mut export_fields: BTreeMap<String, BTreeMap<String, u64>> = BTreeMap::new();
+    for (i, p) in points.iter().enumerate() {
+        let (x, y) = (p.base.x_m, p.base.y_m);
+        let Some(k) = locate(&tree, &polys, x, y) else {
+            let near = tree
+                .nearest_neighbor(&[x, y])
+                .map(|g| g.geom().distance_2(&[x, y]).sqrt())
+                .unwrap_or(f64::INFINITY);
+            let (rule, limit) = if near > s.far_m {
+                ("far_from_trial", format!("within {} m of a plot", s.far_m))
+            } else {
+                ("outside_plots", "inside a plot polygon".to_string())
+            };
+            rejections.push(point_rejection(
+                p,
+                files,
+                rule,
+                "distance_to_nearest_plot_m",
+                format!("{near:.1}"),
+                limit,
+            ));
+            continue;
+        };
+        let Some(net) = &net_geo[k] else {
+            rejections.push(point_rejection(
+                p,
+                files,
+                "border_trim",
+                "x_m,y_m",
+                format!("{x:.2},{y:.2}"),
+                "plot too small for its trims".into(),
+            ));
+            continue;
+        };
+        if !net.contains(&geo::Point::new(x, y)) {
+            rejections.push(point_rejection(
+                p,
+                files,
+                "border_trim",
+                "x_m,y_m",
+                format!("{x:.2},{y:.2}"),
+                format!(
+                    "inside the net plot (end trim {} m, side trim {} m)",
+                    s.end_trim_m, s.side_trim_m
+                ),
+            ));
+            continue;
+        }
+        let fp = &footprint[i];
+        let fp_area = geometry::signed_area(fp).abs();
+        // The net plot (any simple polygon) clipped by the convex footprint.
+        let inside = if fp_area > 0.0 {
+            clip_area(nets[k].as_ref().expect("net exists"), fp) / fp_area
+        } else {
+            1.0
+        };
+        if inside < s.min_swath_inside {
+            rejections.push(point_rejection(
+                p,
+                files,
+                "swath_straddle",
+                "footprint_inside_fraction",
+                format!("{inside:.3}"),
+                format!(">= {}", s.min_swath_inside),
+            ));
+            continue;
+        }
+        assignment.push((i, k));
+        members[k].push(i);
+        *export_fields
+            .entry(files[p.base.file as usize].clone())
+            .or_default()
+            .entry(ordered[k].0.field.clone())
+            .or_default() += 1;
+    }
+    let mut summary =
+        StageSummary::from_rejections("plots", "points", points.len() as u64, &rejections);
+    // Grid coordinates per field, in the axes of the field's first plot.
+    let mut field_frames: BTreeMap<&str, (Frame, f64, f64)> = BTreeMap::new();
+    for (k, (d, _)) in ordered.iter().enumerate() {
+        if let Some(f) = geometry::frame_of(&polys[k]) {
+            field_frames.entry(d.field.as_str()).or_insert(f);
+        }
+    }
+    let centroids: Vec<(f64, f64)> = polys
+        .iter()
+        .map(|p| {
+            p.centroid()
+                .map(|c| (c.x(), c.y()))
+                .unwrap_or((f64::NAN, f64::NAN))
+        })
+        .collect();
+    let mut local = vec![(f64::NAN, f64::NAN); polys.len()];
+    let mut grid = vec![(0u32, 0u32); polys.len()];
+    for (field, (frame, len, wid)) in &field_frames {
+        let ks: Vec<usize> = (0..polys.len())
+            .filter(|&k| ordered[k].0.field == *field)
+            .collect();
+        let uv: Vec<(f64, f64)> = ks
+            .iter()
+            .map(|&k| frame.local(centroids[k].0, centroids[k].1))
+            .collect();
+        let (u0, v0) = uv.iter().fold((f64::INFINITY, f64::INFINITY), |a, b| {
+            (a.0.min(b.0), a.1.min(b.1))
+        });
+        let r_along = ranks(&uv.iter().map(|c| c.0).collect::<Vec<_>>(), 0.5 * len);
+        let r_across = ranks(&uv.iter().map(|c| c.1).collect::<Vec<_>>(), 0.5 * wid);
+        for (n, &k) in ks.iter().enumerate() {
+            local[k] = (uv[n].0 - u0, uv[n].1 - v0);
+            grid[k] = (r_along[n], r_across[n]);
+        }
+    }
+    let mut plots = Vec::new();
+    let mut plot_counts = PlotCounts {
+        count_in: ordered.len() as u64,
+        ..Default::default()
+    };
+    for (k, (d, _)) in ordered.iter().enumerate() {
+        let ys: Vec<f64> = members[k]
+            .iter()
+            .map(|&i| unit.from_kg_ha(points[i].yield_std_kg_ha, crop))
+            .collect();
+        let ms: Vec<f64> = members[k]
+            .iter()
+            .map(|&i| points[i].moisture_shifted_pct)
+            .collect();
+        let net_ring = nets[k].clone().unwrap_or_default();
+        let net_area = geometry::signed_area(&net_ring).abs();
+        let cov = if net_ring.is_empty() {
+            0.0
+        } else {
+            let fps: Vec<Vec<(f64, f64)>> =
+                members[k].iter().map(|&i| footprint[i].clone()).collect();
+            geometry::coverage(&net_ring, &fps, s.coverage_cell_m)
+        };
+        let n = ys.len() as u64;
+        let reason = if n < s.min_points as u64 {
+            Some((
+                "min_points",
+                "points",
+                n.to_string(),
+                format!(">= {}", s.min_points),
+            ))
+        } else if cov < s.min_coverage {
+            Some((
+                "min_coverage",
+                "coverage",
+                format!("{cov:.3}"),
+                format!(">= {}", s.min_coverage),
+            ))
+        } else {
+            None
+        };
+        match &reason {
+            Some((rule, column, value, limit)) => {
+                plot_counts.set_aside += 1;
+                *plot_counts.by_rule.entry(rule.to_string()).or_default() += 1;
+                rejections.push(Rejection {
+                    source_file: design_file.to_string(),
+                    source_row: d.row,
+                    id: d.plot_id.clone(),
+                    rule: rule.to_string(),
+                    column: column.to_string(),
+                    value: value.clone(),
+                    limit: limit.clone(),
+                });
+            }
+            None => plot_counts.kept += 1,
+        }
+        plots.push(PlotStats {
+            plot_id: d.plot_id.clone(),
+            field: d.field.clone(),
+            treatment: d.treatment.clone(),
+            block: d.block.clone(),
+            status: if reason.is_some() {
+                "set_aside"
+            } else {
+                "kept"
+            }
+            .into(),
+            reason: reason.map(|r| r.0.to_string()).unwrap_or_default(),
+            points: n,
+            yield_mean: mean(&ys),
+            yield_median: median(&ys),
+            yield_trimmed_mean: trimmed_mean(&ys, s.trim_fraction),
+            yield_sd: sd(&ys),
+            moisture_mean_pct: mean(&ms),
+            centroid_x_m: centroids[k].0,
+            centroid_y_m: centroids[k].1,
+            area_m2: polys[k].unsigned_area(),
+            net_area_m2: net_area,
+            harvested_m2: cov * net_area,
+            coverage: cov,
+            grid_range: grid[k].0,
+            grid_row: grid[k].1,
+            along_m: local[k].0,
+            across_m: local[k].1,
+            net_ring,
+        });
+    }
+    let mut per_field: BTreeMap<String, u64> = BTreeMap::new();
+    for p in plots.iter().filter(|p| p.status == "kept") {
+        *per_field.entry(p.field.clone()).or_default() += 1;
+    }
+    summary
+        .details
+        .insert("kept_plots_per_field".into(), serde_json::json!(per_field));
+    summary.details.insert(
+        "points_per_export_and_field".into(),
+        serde_json::json!(export_fields),
+    );
+    summary.plots = Some(plot_counts);
+    PlotsOutput {
+        assignment,
+        plots,
+        rejections,
+        summary,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn locate_in_square_and_hole() {
+        let sq = PlotPolygon {
+            plot_id: "a".into(),
+            exterior: vec![
+                (0.0, 0.0),
+                (10.0, 0.0),
+                (10.0, 10.0),
+                (0.0, 10.0),
+                (0.0, 0.0),
+            ],
+            holes: vec![vec![
+                (4.0, 4.0),
+                (6.0, 4.0),
+                (6.0, 6.0),
+                (4.0, 6.0),
+                (4.0, 4.0),
+            ]],
+        };
+        let polys = vec![to_geo(&sq)];
+        let t = index(&polys);
+        assert_eq!(locate(&t, &polys, 1.0, 1.0), Some(0));
+        assert_eq!(locate(&t, &polys, 5.0, 5.0), None, "inside the hole");
+        assert_eq!(locate(&t, &polys, 11.0, 1.0), None);
+        // Area 100 - 4 = 96 m2 by hand.
+        assert!((polys[0].unsigned_area() - 96.0).abs() < 1e-9);
+    }
+
+    #[test]
+    fn trimmed_mean_by_hand() {
+        // 10 values, 10 % off each tail: drop 1 and 100, mean of 2..=9 is 5.5.
+        let mut v: Vec<f64> = (1..=9).map(f64::from).collect();
+        v.push(100.0);
+        assert_eq!(trimmed_mean(&v, 0.1), 5.5);
+        assert_eq!(trimmed_mean(&[3.0], 0.4), 3.0);
+    }
+
+    #[test]
+    fn ranks_group_by_gaps() {
+        assert_eq!(
+            ranks(&[0.0, 66.0, 0.5, 132.0, 65.0], 30.0),
+            vec![1, 2, 1, 3, 2]
+        );
+    }
+}
