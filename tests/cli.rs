@@ -681,17 +681,7 @@ fn simulated_trials_recover_true_effects_and_trend() {
             }
         }
         // The estimated spatial effect follows the true trend at the plot centroids.
-        let trend: BTreeMap<String, f64> = truth["plots"]
-            .as_array()
-            .unwrap()
-            .iter()
-            .map(|p| {
-                (
-                    p["plot_id"].as_str().unwrap().to_string(),
-                    p["trend_t_ha"].as_f64().unwrap(),
-                )
-            })
-            .collect();
+        let trend: BTreeMap<String, f64> = truth_by_plot(&truth, "trend_t_ha");
         let adj = csv_rows(&w.path("run/4-adjust/adjusted_plots.csv"));
         for field in ["A", "B"] {
             let rows: Vec<_> = adj.iter().filter(|r| r["field"] == field).collect();
@@ -993,19 +983,24 @@ fn plot_geometry_matches_shapely() {
     );
 }
 
-/// Root-mean-square error of plot mean yields against the simulator's true plot yields.
-fn plot_rmse(plots_csv: &Path, truth: &serde_json::Value) -> (f64, usize) {
-    let t: BTreeMap<String, f64> = truth["plots"]
+/// One number per plot from the simulator's truth, by plot id.
+fn truth_by_plot(truth: &serde_json::Value, key: &str) -> BTreeMap<String, f64> {
+    truth["plots"]
         .as_array()
         .unwrap()
         .iter()
         .map(|p| {
             (
                 p["plot_id"].as_str().unwrap().to_string(),
-                p["true_yield_t_ha"].as_f64().unwrap(),
+                p[key].as_f64().unwrap(),
             )
         })
-        .collect();
+        .collect()
+}
+
+/// Root-mean-square error of plot mean yields against the simulator's true plot yields.
+fn plot_rmse(plots_csv: &Path, truth: &serde_json::Value) -> (f64, usize) {
+    let t: BTreeMap<String, f64> = truth_by_plot(truth, "true_yield_t_ha");
     let rows: Vec<_> = csv_rows(plots_csv)
         .into_iter()
         .filter(|r| r["status"] == "kept")
@@ -1020,11 +1015,24 @@ fn plot_rmse(plots_csv: &Path, truth: &serde_json::Value) -> (f64, usize) {
 #[test]
 fn border_trimming_brings_plot_means_closer_to_the_truth() {
     let (mut with, mut without) = (0.0, 0.0);
-    for seed in [61u64, 62, 63] {
+    // The simulator's grain mixing has an SD of 2.5 s, about 5.5 m of travel; an end trim of
+    // 8 m (1.5 SD) fits it. The 15 m default is for real combines' ~30 m mixing length.
+    for seed in [61u64, 62, 63, 64] {
         let w = Workdir::new("trim");
         let trial = simulate(&w, "trial", &["--seed", &seed.to_string()]);
         let t = trial.to_str().unwrap();
-        ok(&plotsieve(&w.0, &["run", t, "--out", "trimmed", "--quiet"]));
+        ok(&plotsieve(
+            &w.0,
+            &[
+                "run",
+                t,
+                "--out",
+                "trimmed",
+                "--quiet",
+                "--set",
+                "plots.end_trim_m=8",
+            ],
+        ));
         ok(&plotsieve(
             &w.0,
             &[
@@ -1074,11 +1082,16 @@ fn border_trimming_brings_plot_means_closer_to_the_truth() {
         let union: std::collections::BTreeSet<u64> = ids.union(&rejected).copied().collect();
         assert_eq!(union, all, "clean points = plot points + rejected");
     }
+    eprintln!(
+        "mean plot RMSE trimmed {:.4} vs untrimmed {:.4}",
+        with / 4.0,
+        without / 4.0
+    );
     assert!(
-        with < without,
-        "mean plot RMSE trimmed {:.3} vs untrimmed {:.3}",
-        with / 3.0,
-        without / 3.0
+        with < 0.95 * without,
+        "mean plot RMSE trimmed {:.4} vs untrimmed {:.4}",
+        with / 4.0,
+        without / 4.0
     );
 }
 
