@@ -4,7 +4,7 @@
 //! give the same bytes.
 
 use anyhow::{anyhow, bail, Context, Result};
-use plotsieve_stages::adjust::{AdjustedPlot, FieldHyper, TreatmentRow};
+use plotsieve_stages::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::table::{CleanPoint, DesignRow, PlotPolygon, Point, PointSet, Rejection};
 use plotsieve_stages::util::fmt;
@@ -601,6 +601,49 @@ pub fn write_adjusted(path: &Path, rows: &[AdjustedPlot], unit: &str) -> Result<
     write_atomic(path, &bytes)
 }
 
+/// Read `adjusted_plots.csv` back for the report.
+pub fn read_adjusted(path: &Path) -> Result<Vec<AdjustedPlot>> {
+    let mut rdr = csv::Reader::from_path(path)
+        .with_context(|| format!("{} is missing: run stage adjust first", path.display()))?;
+    let mut out = Vec::new();
+    for r in rdr.records() {
+        let r = r?;
+        let n = |k: usize| -> f64 { r[k].parse().unwrap_or(f64::NAN) };
+        out.push(AdjustedPlot {
+            plot_id: r[0].to_string(),
+            field: r[1].to_string(),
+            treatment: r[2].to_string(),
+            block: r[3].to_string(),
+            raw: n(4),
+            spatial_mean: n(5),
+            spatial_sd: n(6),
+            adjusted: n(7),
+            adjusted_sd: n(8),
+        });
+    }
+    Ok(out)
+}
+
+/// Read a stage's `rejected.csv` back.
+pub fn read_rejections(path: &Path) -> Result<Vec<Rejection>> {
+    let mut rdr = csv::Reader::from_path(path)
+        .with_context(|| format!("{} is missing: rerun its stage", path.display()))?;
+    let mut out = Vec::new();
+    for r in rdr.records() {
+        let r = r?;
+        out.push(Rejection {
+            source_file: r[0].to_string(),
+            source_row: r[1].parse().unwrap_or(0),
+            id: r[2].to_string(),
+            rule: r[3].to_string(),
+            column: r[4].to_string(),
+            value: r[5].to_string(),
+            limit: r[6].to_string(),
+        });
+    }
+    Ok(out)
+}
+
 /// `treatments.csv`.
 pub fn write_treatments(path: &Path, rows: &[TreatmentRow], unit: &str) -> Result<()> {
     let h: Vec<String> = ["field", "treatment", "plots"]
@@ -620,7 +663,12 @@ pub fn write_treatments(path: &Path, rows: &[TreatmentRow], unit: &str) -> Resul
             .iter()
             .map(|c| format!("{c}_{unit}")),
         )
-        .chain(["p_uplift_gt0".to_string()])
+        .chain([
+            "p_uplift_gt0".to_string(),
+            format!("break_even_{unit}"),
+            "p_uplift_gt_break_even".into(),
+            "expected_net_return_per_ha".into(),
+        ])
         .collect();
     let h: Vec<&str> = h.iter().map(|s| s.as_str()).collect();
     let bytes = csv_bytes(
@@ -639,6 +687,9 @@ pub fn write_treatments(path: &Path, rows: &[TreatmentRow], unit: &str) -> Resul
                 fmt(r.uplift_lo95, 6),
                 fmt(r.uplift_hi95, 6),
                 fmt(r.p_uplift_gt0, 6),
+                fmt(r.break_even, 6),
+                fmt(r.p_uplift_gt_break_even, 6),
+                fmt(r.expected_net_return_per_ha, 2),
             ]
         }),
     )?;
@@ -673,6 +724,57 @@ pub fn read_treatments(path: &Path, unit: &str) -> Result<Vec<TreatmentRow>> {
             uplift_lo95: n(9),
             uplift_hi95: n(10),
             p_uplift_gt0: n(11),
+            break_even: n(12),
+            p_uplift_gt_break_even: n(13),
+            expected_net_return_per_ha: n(14),
+        });
+    }
+    Ok(out)
+}
+
+/// `comparison.csv`: the spatial model against the model without the spatial field.
+pub fn write_comparison(path: &Path, rows: &[Comparison]) -> Result<()> {
+    let bytes = csv_bytes(
+        &[
+            "field",
+            "log_ml_spatial",
+            "log_ml_rcbd",
+            "efficiency",
+            "moran_i_rcbd",
+            "moran_i_spatial",
+            "rank_changes",
+        ],
+        rows.iter().map(|c| {
+            vec![
+                c.field.clone(),
+                fmt(c.log_ml_spatial, 6),
+                fmt(c.log_ml_rcbd, 6),
+                fmt(c.efficiency, 6),
+                fmt(c.moran_rcbd, 6),
+                fmt(c.moran_spatial, 6),
+                c.rank_changes.join(" "),
+            ]
+        }),
+    )?;
+    write_atomic(path, &bytes)
+}
+
+/// Read `comparison.csv` back for the report.
+pub fn read_comparison(path: &Path) -> Result<Vec<Comparison>> {
+    let mut rdr = csv::Reader::from_path(path)
+        .with_context(|| format!("{} is missing: run stage adjust first", path.display()))?;
+    let mut out = Vec::new();
+    for r in rdr.records() {
+        let r = r?;
+        let n = |k: usize| -> f64 { r[k].parse().unwrap_or(f64::NAN) };
+        out.push(Comparison {
+            field: r[0].to_string(),
+            log_ml_spatial: n(1),
+            log_ml_rcbd: n(2),
+            efficiency: n(3),
+            moran_rcbd: n(4),
+            moran_spatial: n(5),
+            rank_changes: r[6].split_whitespace().map(String::from).collect(),
         });
     }
     Ok(out)

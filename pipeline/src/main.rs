@@ -4,6 +4,7 @@
 //! stage; the message names the file, row and column or the key); 2 a usage error (unknown
 //! command or flag, from clap).
 
+mod intake;
 mod io;
 mod run;
 mod stage;
@@ -75,6 +76,20 @@ enum Command {
         /// True flow delay in seconds [default: drawn from 8-14 s].
         #[arg(long)]
         flow_delay: Option<f64>,
+        /// Longitude of the first field (WGS84 degrees).
+        #[arg(long, default_value_t = -97.80, allow_hyphen_values = true)]
+        origin_lon: f64,
+        /// Latitude of the first field (WGS84 degrees).
+        #[arg(long, default_value_t = 40.60, allow_hyphen_values = true)]
+        origin_lat: f64,
+    },
+    /// Take a harvest's exports from an inbox: match each to the trials its points fall in,
+    /// copy it there, and rerun only the trials that got something new.
+    Intake {
+        /// Folder of monitor exports (*.csv); nothing in it is modified, moved or deleted.
+        inbox: PathBuf,
+        /// Season file listing the trials ([[trial]] file = ..., out = ...).
+        season: PathBuf,
     },
 }
 
@@ -89,6 +104,7 @@ fn main() -> ExitCode {
             set,
         } => run::run_one(name, &trial, out, &set, cli.quiet),
         Command::Check { trial, set } => run::check(&trial, &set),
+        Command::Intake { inbox, season } => intake::intake(&inbox, &season, cli.quiet),
         Command::Simulate {
             dir,
             seed,
@@ -97,6 +113,8 @@ fn main() -> ExitCode {
             effect_scale,
             trend_sd,
             flow_delay,
+            origin_lon,
+            origin_lat,
         } => run::simulate(
             &dir,
             &simulate::SimOptions {
@@ -106,6 +124,8 @@ fn main() -> ExitCode {
                 effect_scale,
                 trend_sd_kg_ha: trend_sd,
                 flow_delay_s: flow_delay,
+                origin_lon,
+                origin_lat,
                 ..Default::default()
             },
         ),

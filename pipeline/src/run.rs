@@ -284,11 +284,15 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
                 min_range_m: cfg.adjust.min_range_m,
                 max_range_m: cfg.adjust.max_range_m,
                 starts_per_axis: cfg.adjust.starts_per_axis as usize,
+                grain_price_per_t: cfg.adjust.grain_price_per_t,
+                product_cost_per_ha: cfg.adjust.product_cost_per_ha.clone(),
+                t_ha_to_unit: unit.from_kg_ha(1000.0, &crop),
             };
             let o = adjust::run(&plots, &s)?;
             io::write_adjusted(&dir.join("adjusted_plots.csv"), &o.plots, unit.suffix())?;
             io::write_treatments(&dir.join("treatments.csv"), &o.treatments, unit.suffix())?;
             io::write_hyper(&dir.join("hyperparameters.csv"), &o.hyper, unit.suffix())?;
+            io::write_comparison(&dir.join("comparison.csv"), &o.comparisons)?;
             // Kept plots of fields that could not be fitted are this stage's rejections.
             let fitted: std::collections::BTreeSet<&str> =
                 o.hyper.iter().map(|h| h.field.as_str()).collect();
@@ -339,6 +343,72 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
                 warnings: &warnings,
             });
             io::write_atomic(&dir.join("report.md"), md.as_bytes())?;
+            // The HTML report: maps of every record, of what each rule removed, of the plots.
+            let ing = out.join(Stage::Ingest.dir());
+            let epsg = summaries[0]
+                .details
+                .get("epsg")
+                .and_then(|v| v.as_u64())
+                .unwrap_or(0) as u32;
+            let pts = io::read_points(&ing.join("points.parquet"), epsg)?;
+            let mut removed: BTreeMap<String, String> = BTreeMap::new();
+            for st in [Stage::Clean, Stage::Plots] {
+                for r in io::read_rejections(&out.join(st.dir()).join("rejected.csv"))? {
+                    if !r.id.is_empty() && r.source_file != cfg.inputs.design {
+                        removed.entry(r.id).or_insert(r.rule);
+                    }
+                }
+            }
+            let map_points: Vec<report::html::MapPoint> = pts
+                .points
+                .iter()
+                .map(|p| {
+                    let wet = clean::wet_yield_kg_ha(p.flow_kg_s, p.speed_m_s, p.width_m);
+                    let std = clean::to_standard_moisture(
+                        wet,
+                        p.moisture_pct.min(99.0),
+                        crop.standard_moisture_pct,
+                    );
+                    report::html::MapPoint {
+                        x: p.x_m,
+                        y: p.y_m,
+                        yield_unit: unit.from_kg_ha(std, &crop),
+                        rule: removed.get(&p.id.to_string()).cloned().unwrap_or_default(),
+                    }
+                })
+                .collect();
+            let polygons = ingest::read_geojson(
+                &ing.join("plots.geojson"),
+                "1-ingest/plots.geojson",
+                "plot_id",
+            )?;
+            let plots_tab = io::read_plots(
+                &out.join(Stage::Plots.dir()).join("plots.csv"),
+                unit.suffix(),
+            )?;
+            let adjusted = io::read_adjusted(&adj.join("adjusted_plots.csv"))?;
+            let comparisons = io::read_comparison(&adj.join("comparison.csv"))?;
+            let settings: Vec<(String, serde_json::Value)> = match read_manifest(out)? {
+                Some(m) => m.stages.into_iter().map(|(k, v)| (k, v.settings)).collect(),
+                None => Vec::new(),
+            };
+            let html = report::html::render(&report::html::HtmlInput {
+                trial_name: &cfg.trial.name,
+                unit_label: unit.label(),
+                check: &cfg.trial.check,
+                decimals: cfg.report.decimals as usize,
+                summaries: &summaries,
+                settings: &settings,
+                points: &map_points,
+                polygons: &polygons,
+                plots: &plots_tab,
+                adjusted: &adjusted,
+                treatments: &treatments,
+                hyper: &hyper,
+                comparisons: &comparisons,
+                warnings: &warnings,
+            });
+            io::write_atomic(&dir.join("report.html"), html.as_bytes())?;
             let summary = StageSummary {
                 stage: "report".into(),
                 unit: "plots".into(),

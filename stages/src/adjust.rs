@@ -19,6 +19,12 @@
 //! and the spatial effect at the plots has mean K K_y^-1 r and covariance
 //! K - K K_y^-1 K + R' (X' K_y^-1 X)^-1 R with R = X' K_y^-1 K (R&W eq. 2.42).
 //!
+//! Beside it the same mean model is fitted without the spatial field (the usual RCBD
+//! analysis when `adjust.blocks`), with the REML log marginal likelihoods of both, the
+//! efficiency (ratio of contrast variances), products whose ranking changes, and the
+//! residual Moran's I of both. With a grain price and product costs, each product also gets
+//! its break-even uplift (cost / price), P(uplift > break-even) and expected net return.
+//!
 //! This is a plug-in fit: intervals do not yet include the uncertainty of the
 //! hyperparameters. Fields are fitted independently (in parallel); the pooled rows combine
 //! the per-field uplifts by inverse-variance weighting (a fixed-effect combination).
@@ -53,6 +59,54 @@ pub struct FitSettings {
     pub min_range_m: f64,
     pub max_range_m: f64,
     pub starts_per_axis: usize,
+    /// Grain price per tonne at standard moisture (0 = no economics).
+    pub grain_price_per_t: f64,
+    /// Product cost per hectare, by treatment.
+    pub product_cost_per_ha: BTreeMap<String, f64>,
+    /// Converts t/ha to the output unit.
+    pub t_ha_to_unit: f64,
+}
+
+/// The spatial model against the same model without the spatial field (the usual RCBD
+/// analysis when blocks are in the mean model), per field.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Comparison {
+    pub field: String,
+    pub log_ml_spatial: f64,
+    pub log_ml_rcbd: f64,
+    /// Mean over products of var(uplift, RCBD) / var(uplift, spatial): above 1 means the
+    /// spatial model estimates the contrasts more precisely.
+    pub efficiency: f64,
+    /// Residual Moran's I without and with the spatial field (Moran 1950, Biometrika 37:17).
+    pub moran_rcbd: f64,
+    pub moran_spatial: f64,
+    /// Products whose rank by uplift differs between the two models.
+    pub rank_changes: Vec<String>,
+}
+
+/// Moran's I of values at points, with binary weights for pairs closer than `cutoff`
+/// (Moran 1950): I = n / W x sum_ij w_ij z_i z_j / sum_i z_i^2, z centred.
+pub fn morans_i(xy: &[(f64, f64)], v: &[f64], cutoff: f64) -> f64 {
+    let n = v.len();
+    let m = v.iter().sum::<f64>() / n as f64;
+    let z: Vec<f64> = v.iter().map(|x| x - m).collect();
+    let (mut num, mut w) = (0.0, 0.0);
+    for i in 0..n {
+        for j in 0..n {
+            if i != j {
+                let d = ((xy[i].0 - xy[j].0).powi(2) + (xy[i].1 - xy[j].1).powi(2)).sqrt();
+                if d <= cutoff {
+                    num += z[i] * z[j];
+                    w += 1.0;
+                }
+            }
+        }
+    }
+    let den: f64 = z.iter().map(|x| x * x).sum();
+    if w == 0.0 || den == 0.0 {
+        return f64::NAN;
+    }
+    n as f64 / w * num / den
 }
 
 /// A plot after adjustment.
@@ -85,6 +139,12 @@ pub struct TreatmentRow {
     pub uplift_lo95: f64,
     pub uplift_hi95: f64,
     pub p_uplift_gt0: f64,
+    /// Uplift that pays for the product (cost / price), in the output unit; NaN without
+    /// economics.
+    pub break_even: f64,
+    pub p_uplift_gt_break_even: f64,
+    /// Expected uplift x price - cost, per hectare.
+    pub expected_net_return_per_ha: f64,
 }
 
 /// Fitted hyperparameters of one field.
@@ -104,6 +164,7 @@ pub struct FieldHyper {
 /// What adjust hands on.
 #[derive(Clone, Debug)]
 pub struct AdjustOutput {
+    pub comparisons: Vec<Comparison>,
     pub plots: Vec<AdjustedPlot>,
     pub treatments: Vec<TreatmentRow>,
     pub hyper: Vec<FieldHyper>,
@@ -276,8 +337,24 @@ pub fn nelder_mead(
     (simplex[best].clone(), vals[best])
 }
 
+/// Break-even uplift, P(uplift > break-even) and expected net return for one product.
+fn economics(s: &FitSettings, treatment: &str, uplift: f64, sd: f64) -> (f64, f64, f64) {
+    let cost = s.product_cost_per_ha.get(treatment).copied().unwrap_or(0.0);
+    if !(s.grain_price_per_t > 0.0) || uplift.is_nan() {
+        return (f64::NAN, f64::NAN, f64::NAN);
+    }
+    let be = cost / s.grain_price_per_t * s.t_ha_to_unit;
+    let up_t = uplift / s.t_ha_to_unit;
+    (
+        be,
+        normal_cdf((uplift - be) / sd),
+        up_t * s.grain_price_per_t - cost,
+    )
+}
+
 /// Fit result of one field.
 struct FieldFit {
+    comparison: Comparison,
     plots: Vec<AdjustedPlot>,
     treatments: Vec<TreatmentRow>,
     hyper: FieldHyper,
@@ -482,8 +559,72 @@ fn fit_field(field: &str, plots: &[&PlotStats], s: &FitSettings) -> Result<Field
             } else {
                 normal_cdf(up / usd)
             },
+            break_even: f64::NAN,
+            p_uplift_gt_break_even: f64::NAN,
+            expected_net_return_per_ha: f64::NAN,
         });
+        let (be, pbe, ret) = economics(s, name, up, usd);
+        let last = rows.last_mut().expect("pushed");
+        (
+            last.break_even,
+            last.p_uplift_gt_break_even,
+            last.expected_net_return_per_ha,
+        ) = (be, pbe, ret);
     }
+    // The same mean model without the spatial field: REML noise variance RSS / (n - p).
+    let ols = evaluate(&data, range, 0.0, 1.0, false)
+        .ok_or_else(|| format!("field {field}: the design matrix is singular"))?;
+    let rss: f64 = (0..n)
+        .map(|i| (data.y[i] - (0..p).map(|j| data.x[i][j] * ols.b[j]).sum::<f64>()).powi(2))
+        .sum();
+    let rcbd = evaluate(
+        &data,
+        range,
+        0.0,
+        (rss / (n - p) as f64).sqrt().max(1e-9),
+        false,
+    )
+    .ok_or_else(|| format!("field {field}: the RCBD fit failed"))?;
+    let contrast_var =
+        |e: &Evaluation, t: usize| e.cov_b[(t, t)] + e.cov_b[(0, 0)] - 2.0 * e.cov_b[(t, 0)];
+    let nt = treatments.len();
+    let efficiency = (1..nt)
+        .map(|t| contrast_var(&rcbd, t) / contrast_var(&e, t))
+        .sum::<f64>()
+        / (nt - 1) as f64;
+    let rank = |b: &[f64]| -> Vec<usize> {
+        let mut idx: Vec<usize> = (1..nt).collect();
+        idx.sort_by(|&a, &c| b[c].total_cmp(&b[a]));
+        let mut r = vec![0; nt];
+        for (k, &i) in idx.iter().enumerate() {
+            r[i] = k + 1;
+        }
+        r
+    };
+    let (rs, rr) = (rank(&e.b), rank(&rcbd.b));
+    let rank_changes: Vec<String> = (1..nt)
+        .filter(|&t| rs[t] != rr[t])
+        .map(|t| treatments[t].clone())
+        .collect();
+    let resid = |b: &[f64], f: Option<&[f64]>| -> Vec<f64> {
+        (0..n)
+            .map(|i| {
+                data.y[i]
+                    - (0..p).map(|j| data.x[i][j] * b[j]).sum::<f64>()
+                    - f.map_or(0.0, |f| f[i])
+            })
+            .collect()
+    };
+    let cutoff = 1.5 * dmin;
+    let comparison = Comparison {
+        field: field.to_string(),
+        log_ml_spatial: e.reml,
+        log_ml_rcbd: rcbd.reml,
+        efficiency,
+        moran_rcbd: morans_i(&xy, &resid(&rcbd.b, None), cutoff),
+        moran_spatial: morans_i(&xy, &resid(&e.b, Some(&e.spatial_mean)), cutoff),
+        rank_changes,
+    };
     let check_count = plots.iter().filter(|p| p.treatment == s.check).count() as u64;
     uplifts.push((
         s.check.clone(),
@@ -494,6 +635,7 @@ fn fit_field(field: &str, plots: &[&PlotStats], s: &FitSettings) -> Result<Field
         check_count,
     ));
     Ok(FieldFit {
+        comparison,
         plots: adjusted,
         treatments: rows,
         hyper: FieldHyper {
@@ -524,6 +666,7 @@ pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustE
         .map(|(f, ps)| (f.to_string(), fit_field(f, ps, s)))
         .collect();
     let mut out = AdjustOutput {
+        comparisons: Vec::new(),
         plots: Vec::new(),
         treatments: Vec::new(),
         hyper: Vec::new(),
@@ -534,6 +677,7 @@ pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustE
         match fit {
             Ok(f) => {
                 out.plots.extend(f.plots);
+                out.comparisons.push(f.comparison);
                 out.treatments.extend(f.treatments);
                 if !f.hyper.warning.is_empty() {
                     out.warnings
@@ -582,7 +726,18 @@ pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustE
                 } else {
                     normal_cdf(up / usd)
                 },
+                break_even: f64::NAN,
+                p_uplift_gt_break_even: f64::NAN,
+                expected_net_return_per_ha: f64::NAN,
             }
+        })
+        .map(|mut r| {
+            (
+                r.break_even,
+                r.p_uplift_gt_break_even,
+                r.expected_net_return_per_ha,
+            ) = economics(s, &r.treatment, r.uplift, r.uplift_sd);
+            r
         })
         .collect();
     pooled.sort_by_key(|r| (r.treatment != s.check, r.treatment.clone()));

@@ -21,6 +21,8 @@ pub const CROPS_TOML: &str = include_str!("../../config/crops.toml");
 
 /// Sections whose every key must appear in the defaults.
 const SETTINGS_SECTIONS: &[&str] = &["inputs", "ingest", "clean", "plots", "adjust", "report"];
+/// Settings tables whose keys are names chosen by the user.
+const FREE_TABLES: &[&str] = &["adjust.product_cost_per_ha"];
 /// Keys of `inputs` that the trial file must give (they have no default).
 const TRIAL_INPUT_KEYS: &[&str] = &["monitor", "design"];
 
@@ -312,6 +314,8 @@ pub struct AdjustSettings {
     pub min_range_m: f64,
     pub max_range_m: f64,
     pub starts_per_axis: i64,
+    pub grain_price_per_t: f64,
+    pub product_cost_per_ha: BTreeMap<String, f64>,
 }
 
 /// `[report]` settings.
@@ -375,11 +379,14 @@ fn merge(base: &mut Value, over: Value, path: &str, strict: bool) -> Result<(), 
                 } else {
                     format!("{path}.{k}")
                 };
-                let child_strict = strict
-                    || (path.is_empty()
-                        && SETTINGS_SECTIONS.contains(&k.as_str())
-                        && k != "inputs")
-                    || (path == "inputs" && !TRIAL_INPUT_KEYS.contains(&k.as_str()));
+                // Tables whose keys are the user's own names (products) are free.
+                let free = FREE_TABLES.contains(&key.as_str()) || FREE_TABLES.contains(&path);
+                let child_strict = !free
+                    && (strict
+                        || (path.is_empty()
+                            && SETTINGS_SECTIONS.contains(&k.as_str())
+                            && k != "inputs")
+                        || (path == "inputs" && !TRIAL_INPUT_KEYS.contains(&k.as_str())));
                 match bt.get_mut(&k) {
                     Some(bv) => merge(bv, ov, &key, child_strict)?,
                     None => {
@@ -553,6 +560,10 @@ impl TrialConfig {
         nonneg("clean.pass.fill_fraction", c.pass.fill_fraction);
         nonneg("adjust.min_range_m", self.adjust.min_range_m);
         nonneg("adjust.max_range_m", self.adjust.max_range_m);
+        nonneg("adjust.grain_price_per_t", self.adjust.grain_price_per_t);
+        for (k, v) in &self.adjust.product_cost_per_ha {
+            nonneg(&format!("adjust.product_cost_per_ha.{k}"), *v);
+        }
         if c.speed.min_m_s >= c.speed.max_m_s {
             p.push(format!(
                 "clean.speed.min_m_s must be below clean.speed.max_m_s (got {} and {})",

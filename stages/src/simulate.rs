@@ -43,6 +43,9 @@ pub struct SimOptions {
     /// Flow delay (centre of the grain-mixing kernel), seconds;
     /// `None` draws it from 8-14 s.
     pub flow_delay_s: Option<f64>,
+    /// Where the first field lies (WGS84 degrees); later fields are 0.02 degrees east.
+    pub origin_lon: f64,
+    pub origin_lat: f64,
 }
 
 impl Default for SimOptions {
@@ -55,6 +58,8 @@ impl Default for SimOptions {
             trend_sd_kg_ha: 1200.0,
             effect_scale: 1.0,
             flow_delay_s: None,
+            origin_lon: -97.80,
+            origin_lat: 40.60,
         }
     }
 }
@@ -175,8 +180,8 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         };
         let bearing = rng.range(-30.0f64, 30.0).to_radians();
         let frame = Frame {
-            lon0: -97.80 + 0.02 * f as f64,
-            lat0: 40.60 + 0.004 * (f % 3) as f64,
+            lon0: o.origin_lon + 0.02 * f as f64,
+            lat0: o.origin_lat + 0.004 * (f % 3) as f64,
             sin: bearing.sin(),
             cos: bearing.cos(),
         };

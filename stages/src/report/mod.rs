@@ -115,3 +115,4 @@ pub fn markdown(r: &ReportInput) -> String {
     }
     s
 }
+pub mod html;

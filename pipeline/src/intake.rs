@@ -1,0 +1,333 @@
+//! `plotsieve intake`: field operations drop a harvest's exports in one folder; each export
+//! is matched to the trials whose plots its points fall near, copied into each such trial's
+//! monitor folder, and only the trials that received something new are rerun.
+//!
+//! - Matching: an export goes to every trial with at least `MIN_POINTS` of its records within
+//!   the trial's `plots.far_m` of the trial's plot extent (lon/lat bounding box). An export
+//!   may go to several trials (each trial's plots stage then rejects the other trial's records
+//!   as `far_from_trial`), or to none: then it is reported and left where it is.
+//! - An export already seen (same SHA-256, under any name) is skipped and not counted again;
+//!   a partial export (last line cut short, or a mapped column missing) is reported with the
+//!   reason and left in place; it is taken when a complete version (new SHA-256) arrives.
+//! - Nothing in the inbox is modified, moved or deleted. Exports are copied; a name already
+//!   used by a different file in a trial's folder gets the first 8 hex digits of the SHA-256.
+//! - `intake-manifest.json` beside the season file records every export seen (SHA-256, name,
+//!   status, trials it went to and the file name it was copied as).
+
+use crate::io;
+use crate::run;
+use anyhow::{bail, Context, Result};
+use plotsieve_stages::config::TrialConfig;
+use plotsieve_stages::ingest;
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+/// Records an export needs inside a trial's extent to be taken for it.
+const MIN_POINTS: usize = 10;
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Season {
+    #[serde(default)]
+    name: String,
+    trial: Vec<SeasonTrial>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct SeasonTrial {
+    /// Trial file, relative to the season file.
+    file: PathBuf,
+    /// Run folder, relative to the season file.
+    out: PathBuf,
+}
+
+/// One export in `intake-manifest.json`.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct ExportRecord {
+    pub name: String,
+    /// `taken`, `no_trial` or `partial`.
+    pub status: String,
+    pub reason: String,
+    /// Trial file -> name the export was copied as in that trial's monitor folder.
+    pub trials: BTreeMap<String, String>,
+}
+
+/// `intake-manifest.json`: every export seen, by SHA-256.
+#[derive(Clone, Debug, Default, Serialize, Deserialize)]
+pub struct IntakeManifest {
+    pub exports: BTreeMap<String, ExportRecord>,
+}
+
+struct TrialInfo {
+    key: String,
+    file: PathBuf,
+    out: PathBuf,
+    cfg: TrialConfig,
+    monitor_dir: PathBuf,
+    /// lon/lat box: min lon, min lat, max lon, max lat (with the far_m margin).
+    bbox: (f64, f64, f64, f64),
+}
+
+fn sha256(bytes: &[u8]) -> String {
+    Sha256::digest(bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
+}
+
+fn trial_info(season_dir: &Path, t: &SeasonTrial) -> Result<TrialInfo> {
+    let file = season_dir.join(&t.file);
+    let loaded = run::load(&file, &[])?;
+    let cfg = loaded.cfg;
+    let base = loaded.base;
+    let mon = cfg.inputs.monitor.first().cloned().unwrap_or_default();
+    let monitor_dir = base.join(&mon);
+    if monitor_dir
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("csv"))
+    {
+        bail!(
+            "{}: inputs.monitor must name a folder for intake to copy exports into (got {mon:?})",
+            file.display()
+        );
+    }
+    let mut pts: Vec<(f64, f64)> = Vec::new();
+    if cfg.layout.is_empty() {
+        for p in ingest::read_geojson(
+            &base.join(&cfg.inputs.plots),
+            &cfg.inputs.plots,
+            &cfg.inputs.plot_id_property,
+        )? {
+            pts.extend(p.exterior);
+        }
+    } else {
+        for l in &cfg.layout {
+            let utm = plotsieve_stages::projection::Utm::new(
+                plotsieve_stages::projection::zone_of(l.origin_lon) as i64,
+                l.origin_lat < 0.0,
+            )?;
+            let (ox, oy) = utm.forward(l.origin_lon, l.origin_lat)?;
+            for p in l.polygons(ox, oy) {
+                for (x, y) in p.exterior {
+                    pts.push(utm.inverse(x, y)?);
+                }
+            }
+        }
+    }
+    let (mut a, mut b, mut c, mut d) = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
+    for (lon, lat) in &pts {
+        a = a.min(*lon);
+        b = b.min(*lat);
+        c = c.max(*lon);
+        d = d.max(*lat);
+    }
+    let dlat = cfg.plots.far_m / 111_195.0;
+    let dlon = dlat / (0.5 * (b + d)).to_radians().cos().max(0.01);
+    Ok(TrialInfo {
+        key: t.file.to_string_lossy().replace('\\', "/"),
+        file,
+        out: season_dir.join(&t.out),
+        cfg,
+        monitor_dir,
+        bbox: (a - dlon, b - dlat, c + dlon, d + dlat),
+    })
+}
+
+/// How many records of the export fall in each trial's box, or why it cannot be read.
+fn match_export(bytes: &[u8], trials: &[TrialInfo]) -> Result<Vec<usize>, String> {
+    if !bytes.ends_with(b"\n") {
+        let lines = bytes.iter().filter(|&&c| c == b'\n').count() + 1;
+        return Err(format!(
+            "partial: the last line (line {lines}) is cut short (no line end)"
+        ));
+    }
+    let mut counts = vec![0usize; trials.len()];
+    let mut any_mapping = false;
+    for (k, t) in trials.iter().enumerate() {
+        let c = &t.cfg.columns;
+        let mut rdr = csv::ReaderBuilder::new()
+            .delimiter(c.delimiter.as_bytes()[0])
+            .flexible(true)
+            .from_reader(bytes);
+        let Ok(h) = rdr.headers().cloned() else {
+            continue;
+        };
+        let (Some(ilon), Some(ilat)) = (
+            h.iter().position(|x| x.trim() == c.longitude),
+            h.iter().position(|x| x.trim() == c.latitude),
+        ) else {
+            continue;
+        };
+        any_mapping = true;
+        let mut last_len = h.len();
+        for rec in rdr.records() {
+            let Ok(rec) = rec else { continue };
+            last_len = rec.len();
+            let (Some(lon), Some(lat)) = (
+                rec.get(ilon).and_then(|v| v.trim().parse::<f64>().ok()),
+                rec.get(ilat).and_then(|v| v.trim().parse::<f64>().ok()),
+            ) else {
+                continue;
+            };
+            let b = t.bbox;
+            if lon >= b.0 && lon <= b.2 && lat >= b.1 && lat <= b.3 {
+                counts[k] += 1;
+            }
+        }
+        if last_len != h.len() {
+            return Err(format!(
+                "partial: the last record has {last_len} fields, the header {}",
+                h.len()
+            ));
+        }
+    }
+    if !any_mapping {
+        return Err(
+            "unreadable: no trial's [columns] longitude and latitude are in its header".into(),
+        );
+    }
+    Ok(counts)
+}
+
+/// `plotsieve intake INBOX SEASON.toml`.
+pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
+    let text = std::fs::read_to_string(season_file)
+        .with_context(|| format!("reading season file {}", season_file.display()))?;
+    let season: Season = toml::from_str(&text)
+        .with_context(|| format!("{}: not a season file", season_file.display()))?;
+    let season_dir = season_file
+        .parent()
+        .map(Path::to_path_buf)
+        .unwrap_or_default();
+    let season_dir = if season_dir.as_os_str().is_empty() {
+        PathBuf::from(".")
+    } else {
+        season_dir
+    };
+    let trials: Vec<TrialInfo> = season
+        .trial
+        .iter()
+        .map(|t| trial_info(&season_dir, t))
+        .collect::<Result<_>>()?;
+    let manifest_path = season_dir.join("intake-manifest.json");
+    let mut manifest: IntakeManifest = match std::fs::read_to_string(&manifest_path) {
+        Ok(t) => serde_json::from_str(&t)
+            .with_context(|| format!("{}: not an intake manifest", manifest_path.display()))?,
+        Err(_) => IntakeManifest::default(),
+    };
+    let mut files: Vec<PathBuf> = std::fs::read_dir(inbox)
+        .with_context(|| format!("reading inbox {}", inbox.display()))?
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.is_file() && p.extension().is_some_and(|x| x.eq_ignore_ascii_case("csv")))
+        .collect();
+    files.sort();
+    let mut touched: Vec<usize> = Vec::new();
+    let mut lines = Vec::new();
+    let mut new_count = 0;
+    for path in &files {
+        let name = path
+            .file_name()
+            .map(|n| n.to_string_lossy().to_string())
+            .unwrap_or_default();
+        let bytes = std::fs::read(path).with_context(|| format!("reading {}", path.display()))?;
+        let sha = sha256(&bytes);
+        if let Some(prev) = manifest.exports.get(&sha) {
+            if prev.name != name || prev.status != "taken" {
+                lines.push(format!(
+                    "already seen: {name} (same content as {}, {})",
+                    prev.name, prev.status
+                ));
+            }
+            continue;
+        }
+        new_count += 1;
+        let mut record = ExportRecord {
+            name: name.clone(),
+            status: String::new(),
+            reason: String::new(),
+            trials: BTreeMap::new(),
+        };
+        match match_export(&bytes, &trials) {
+            Err(reason) => {
+                record.status = "partial".into();
+                lines.push(format!("left in the inbox: {name}: {reason}"));
+                record.reason = reason;
+            }
+            Ok(counts) => {
+                let hits: Vec<usize> = (0..trials.len())
+                    .filter(|&k| counts[k] >= MIN_POINTS)
+                    .collect();
+                if hits.is_empty() {
+                    record.status = "no_trial".into();
+                    record.reason =
+                        format!("fewer than {MIN_POINTS} records near any trial's plots");
+                    lines.push(format!(
+                        "left in the inbox: {name}: matches no trial ({})",
+                        record.reason
+                    ));
+                }
+                for k in hits {
+                    let t = &trials[k];
+                    std::fs::create_dir_all(&t.monitor_dir)
+                        .with_context(|| format!("creating {}", t.monitor_dir.display()))?;
+                    let mut target = t.monitor_dir.join(&name);
+                    if target.exists() && sha256(&std::fs::read(&target)?) != sha {
+                        let stem = Path::new(&name)
+                            .file_stem()
+                            .map(|s| s.to_string_lossy().to_string())
+                            .unwrap_or_default();
+                        target = t.monitor_dir.join(format!("{stem}-{}.csv", &sha[..8]));
+                    }
+                    io::write_atomic(&target, &bytes)?;
+                    let copied = target
+                        .file_name()
+                        .map(|n| n.to_string_lossy().to_string())
+                        .unwrap_or_default();
+                    lines.push(format!(
+                        "taken: {name} -> {} ({} records near its plots), as {copied}",
+                        t.key, counts[k]
+                    ));
+                    record.trials.insert(t.key.clone(), copied);
+                    if !touched.contains(&k) {
+                        touched.push(k);
+                    }
+                }
+                if !record.trials.is_empty() {
+                    record.status = "taken".into();
+                }
+            }
+        }
+        manifest.exports.insert(sha, record);
+    }
+    io::write_json(&manifest_path, &manifest)?;
+    touched.sort();
+    for &k in &touched {
+        let t = &trials[k];
+        run::run_all(&t.file, Some(t.out.clone()), &[], true)
+            .with_context(|| format!("rerunning {}", t.key))?;
+        lines.push(format!("reran {} into {}", t.key, t.out.display()));
+    }
+    if new_count == 0 {
+        lines.push(format!(
+            "nothing new in {}: no trial rerun",
+            inbox.display()
+        ));
+    }
+    let _ = quiet;
+    let title = if season.name.is_empty() {
+        String::new()
+    } else {
+        format!("{}: ", season.name)
+    };
+    println!(
+        "{title}{} exports in the inbox, {new_count} new",
+        files.len()
+    );
+    for l in lines {
+        println!("{l}");
+    }
+    Ok(())
+}

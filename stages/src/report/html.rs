@@ -1,0 +1,592 @@
+//! The QC report as one self-contained HTML file: inline CSS and SVG, no scripts, no
+//! external resources, so it opens in any browser without a network.
+//!
+//! Colour scales: sequential values use viridis (van der Walt & Smith, matplotlib 2015),
+//! signed values (spatial trend) use ColorBrewer's PuOr (Brewer, colorbrewer2.org), and rule
+//! categories the Okabe & Ito (2008) palette; all three are readable with the common forms
+//! of colour blindness. Every map has a legend and axes in metres.
+
+use crate::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
+use crate::plots::PlotStats;
+use crate::table::{PlotPolygon, StageSummary};
+use crate::util::fmt;
+use std::collections::BTreeMap;
+use std::fmt::Write as _;
+
+/// A point for the maps: position, yield and the rule that removed it (empty if kept).
+#[derive(Clone, Debug)]
+pub struct MapPoint {
+    pub x: f64,
+    pub y: f64,
+    pub yield_unit: f64,
+    pub rule: String,
+}
+
+/// Everything the HTML report shows.
+pub struct HtmlInput<'a> {
+    pub trial_name: &'a str,
+    pub unit_label: &'a str,
+    pub check: &'a str,
+    pub decimals: usize,
+    pub summaries: &'a [StageSummary],
+    /// Settings each stage ran with (stage name, JSON).
+    pub settings: &'a [(String, serde_json::Value)],
+    pub points: &'a [MapPoint],
+    pub polygons: &'a [PlotPolygon],
+    pub plots: &'a [PlotStats],
+    pub adjusted: &'a [AdjustedPlot],
+    pub treatments: &'a [TreatmentRow],
+    pub hyper: &'a [FieldHyper],
+    pub comparisons: &'a [Comparison],
+    pub warnings: &'a [String],
+}
+
+const VIRIDIS: [&str; 10] = [
+    "#440154", "#482878", "#3e4989", "#31688e", "#26828e", "#1f9e89", "#35b779", "#6ece58",
+    "#b5de2b", "#fde725",
+];
+const PUOR: [&str; 11] = [
+    "#2d004b", "#542788", "#8073ac", "#b2abd2", "#d8daeb", "#f7f7f7", "#fee0b6", "#fdb863",
+    "#e08214", "#b35806", "#7f3b08",
+];
+const OKABE_ITO: [&str; 8] = [
+    "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000",
+];
+
+fn hex(c: &str) -> (f64, f64, f64) {
+    let v = |i: usize| u8::from_str_radix(&c[i..i + 2], 16).unwrap_or(0) as f64;
+    (v(1), v(3), v(5))
+}
+
+/// Colour at t in [0, 1] on a scale given by anchors, by linear interpolation.
+pub fn scale(anchors: &[&str], t: f64) -> String {
+    let t = if t.is_finite() {
+        t.clamp(0.0, 1.0)
+    } else {
+        0.5
+    };
+    let x = t * (anchors.len() - 1) as f64;
+    let i = (x.floor() as usize).min(anchors.len() - 2);
+    let w = x - i as f64;
+    let (a, b) = (hex(anchors[i]), hex(anchors[i + 1]));
+    let m = |p: f64, q: f64| (p + (q - p) * w).round() as u8;
+    format!("#{:02x}{:02x}{:02x}", m(a.0, b.0), m(a.1, b.1), m(a.2, b.2))
+}
+
+fn esc(s: &str) -> String {
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+        .replace('"', "&quot;")
+}
+
+/// Map frame: projected extent to an SVG panel with axes in metres from the lower-left.
+struct Panel {
+    x0: f64,
+    y0: f64,
+    k: f64,
+    w: f64,
+    h: f64,
+}
+
+const PAD_L: f64 = 52.0;
+const PAD_B: f64 = 36.0;
+const PAD_T: f64 = 10.0;
+const LEGEND_W: f64 = 120.0;
+
+impl Panel {
+    fn new(x0: f64, y0: f64, x1: f64, y1: f64, width: f64) -> Panel {
+        let k = (width / (x1 - x0).max(1.0)).min(420.0 / (y1 - y0).max(1.0));
+        Panel {
+            x0,
+            y0,
+            k,
+            w: (x1 - x0) * k,
+            h: (y1 - y0) * k,
+        }
+    }
+    fn px(&self, x: f64) -> f64 {
+        PAD_L + (x - self.x0) * self.k
+    }
+    fn py(&self, y: f64) -> f64 {
+        PAD_T + self.h - (y - self.y0) * self.k
+    }
+    fn open(&self, s: &mut String, title: &str) {
+        let _ = write!(
+            s,
+            "<figure><figcaption>{}</figcaption><svg class=\"map\" role=\"img\" aria-label=\"{}\" width=\"{:.0}\" height=\"{:.0}\" viewBox=\"0 0 {:.0} {:.0}\" xmlns=\"http://www.w3.org/2000/svg\">",
+            esc(title),
+            esc(title),
+            PAD_L + self.w + LEGEND_W,
+            PAD_T + self.h + PAD_B,
+            PAD_L + self.w + LEGEND_W,
+            PAD_T + self.h + PAD_B
+        );
+        let _ = write!(
+            s,
+            "<rect x=\"{PAD_L}\" y=\"{PAD_T}\" width=\"{:.1}\" height=\"{:.1}\" class=\"frame\"/>",
+            self.w, self.h
+        );
+    }
+    fn axes(&self, s: &mut String) {
+        let step = nice_step((self.w / self.k).max(self.h / self.k) / 4.0);
+        let mut v = 0.0;
+        while v <= self.w / self.k + 1e-9 {
+            let x = PAD_L + v * self.k;
+            let _ = write!(s, "<line x1=\"{x:.1}\" y1=\"{:.1}\" x2=\"{x:.1}\" y2=\"{:.1}\" class=\"tick\"/><text x=\"{x:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"middle\">{v:.0}</text>", PAD_T + self.h, PAD_T + self.h + 4.0, PAD_T + self.h + 15.0);
+            v += step;
+        }
+        let mut v = 0.0;
+        while v <= self.h / self.k + 1e-9 {
+            let y = PAD_T + self.h - v * self.k;
+            let _ = write!(s, "<line x1=\"{:.1}\" y1=\"{y:.1}\" x2=\"{PAD_L}\" y2=\"{y:.1}\" class=\"tick\"/><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"end\">{v:.0}</text>", PAD_L - 4.0, PAD_L - 6.0, y + 4.0);
+            v += step;
+        }
+        let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"al\" text-anchor=\"middle\">east from map corner (m)</text>", PAD_L + self.w / 2.0, PAD_T + self.h + 31.0);
+        let _ = write!(s, "<text transform=\"translate(12 {:.1}) rotate(-90)\" class=\"al\" text-anchor=\"middle\">north (m)</text>", PAD_T + self.h / 2.0);
+    }
+    fn colourbar(&self, s: &mut String, anchors: &[&str], lo: f64, hi: f64, label: &str, d: usize) {
+        let x = PAD_L + self.w + 16.0;
+        let (top, hgt) = (PAD_T + 14.0, (self.h - 28.0).max(60.0));
+        let _ = write!(
+            s,
+            "<text x=\"{x:.1}\" y=\"{:.1}\" class=\"tl\">{}</text>",
+            PAD_T + 8.0,
+            esc(label)
+        );
+        for i in 0..20 {
+            let t = 1.0 - i as f64 / 19.0;
+            let _ = write!(
+                s,
+                "<rect x=\"{x:.1}\" y=\"{:.1}\" width=\"14\" height=\"{:.2}\" fill=\"{}\"/>",
+                top + hgt * i as f64 / 20.0,
+                hgt / 20.0 + 0.5,
+                scale(anchors, t)
+            );
+        }
+        let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\">{}</text><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\">{}</text>", x + 18.0, top + 8.0, fmt(hi, d), x + 18.0, top + hgt, fmt(lo, d));
+    }
+}
+
+fn nice_step(x: f64) -> f64 {
+    let p = 10f64.powf(x.max(1e-9).log10().floor());
+    [1.0, 2.0, 5.0, 10.0]
+        .iter()
+        .map(|m| m * p)
+        .find(|v| *v >= x)
+        .unwrap_or(10.0 * p)
+}
+
+fn quantile(v: &[f64], q: f64) -> f64 {
+    let mut s: Vec<f64> = v.iter().copied().filter(|x| x.is_finite()).collect();
+    if s.is_empty() {
+        return f64::NAN;
+    }
+    s.sort_by(|a, b| a.total_cmp(b));
+    s[((s.len() - 1) as f64 * q).round() as usize]
+}
+
+fn ring_path(p: &Panel, ring: &[(f64, f64)]) -> String {
+    let mut d = String::new();
+    for (i, (x, y)) in ring.iter().enumerate() {
+        let _ = write!(
+            d,
+            "{}{:.1},{:.1}",
+            if i == 0 { "M" } else { "L" },
+            p.px(*x),
+            p.py(*y)
+        );
+    }
+    d.push('Z');
+    d
+}
+
+/// Render the report.
+pub fn render(r: &HtmlInput) -> String {
+    let d = r.decimals;
+    let u = r.unit_label;
+    let mut s = String::new();
+    let _ = write!(s, "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; style-src 'unsafe-inline'\"><title>plotsieve QC report: {}</title><style>{CSS}</style></head><body>", esc(r.trial_name));
+    let _ = write!(
+        s,
+        "<header><h1>{}</h1><p class=\"sub\">plotsieve quality-control report</p></header>",
+        esc(r.trial_name)
+    );
+    let _ = write!(
+        s,
+        "<aside class=\"caution\"><strong>Caution.</strong> {}</aside>",
+        esc(super::CAUTION)
+    );
+    // Counts per stage.
+    let _ = write!(s, "<section><h2>Points and plots through the stages</h2><table><thead><tr><th>stage</th><th>counted</th><th>in</th><th>kept</th><th>rejected</th></tr></thead><tbody>");
+    for x in r.summaries {
+        let _ = write!(s, "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", x.stage, x.unit, x.count_in, x.kept, x.rejected);
+        if let Some(p) = &x.plots {
+            let _ = write!(s, "<tr><td>{}</td><td>plots</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", x.stage, p.count_in, p.kept, p.set_aside);
+        }
+    }
+    let _ = write!(s, "</tbody></table>");
+    // By rule and by source file.
+    let _ = write!(s, "<h3>Removed, by rule and source file</h3><table><thead><tr><th>stage</th><th>source file</th><th>rule</th><th>removed</th></tr></thead><tbody>");
+    for x in r.summaries {
+        for (file, rules) in &x.by_file {
+            for (rule, n) in rules {
+                let _ = write!(
+                    s,
+                    "<tr><td>{}</td><td>{}</td><td>{}</td><td class=\"n\">{}</td></tr>",
+                    x.stage,
+                    esc(file),
+                    esc(rule),
+                    n
+                );
+            }
+        }
+    }
+    let _ = write!(s, "</tbody></table>");
+    if let Some(pl) = r.summaries.iter().find(|x| x.stage == "plots") {
+        if let Some(serde_json::Value::Object(m)) = pl.details.get("points_per_export_and_field") {
+            let _ = write!(s, "<h3>Points kept in plots, by source file and field</h3><table><thead><tr><th>source file</th><th>field</th><th>points</th></tr></thead><tbody>");
+            for (file, fields) in m {
+                if let serde_json::Value::Object(f) = fields {
+                    for (field, n) in f {
+                        let _ = write!(
+                            s,
+                            "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td></tr>",
+                            esc(file),
+                            esc(field),
+                            n
+                        );
+                    }
+                }
+            }
+            let _ = write!(s, "</tbody></table>");
+        }
+    }
+    let _ = write!(s, "<h3>Thresholds used</h3>");
+    for (stage, v) in r.settings {
+        let _ = write!(
+            s,
+            "<details><summary>{}</summary><pre>{}</pre></details>",
+            esc(stage),
+            esc(&serde_json::to_string_pretty(v).unwrap_or_default())
+        );
+    }
+    let _ = write!(s, "</section>");
+    // Maps per field.
+    let mut fields: BTreeMap<&str, Vec<usize>> = BTreeMap::new();
+    let by_id: BTreeMap<&str, &PlotPolygon> =
+        r.polygons.iter().map(|p| (p.plot_id.as_str(), p)).collect();
+    for (i, p) in r.plots.iter().enumerate() {
+        fields.entry(&p.field).or_default().push(i);
+    }
+    let adjusted: BTreeMap<&str, &AdjustedPlot> =
+        r.adjusted.iter().map(|a| (a.plot_id.as_str(), a)).collect();
+    let mut rule_names: BTreeMap<&str, usize> = BTreeMap::new();
+    for p in r.points.iter().filter(|p| !p.rule.is_empty()) {
+        *rule_names.entry(&p.rule).or_default() += 1;
+    }
+    let mut top_rules: Vec<(&str, usize)> = rule_names.into_iter().collect();
+    top_rules.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(b.0)));
+    let colour_of: BTreeMap<&str, &str> = top_rules
+        .iter()
+        .take(7)
+        .enumerate()
+        .map(|(i, (r, _))| (*r, OKABE_ITO[i]))
+        .collect();
+    // The colour range of the raw map from the records kept through the plots stage (the
+    // removed ones would stretch it), 2nd to 98th percentile.
+    let kept: Vec<f64> = r
+        .points
+        .iter()
+        .filter(|p| p.rule.is_empty())
+        .map(|p| p.yield_unit)
+        .collect();
+    let ys: Vec<f64> = if kept.is_empty() {
+        r.points.iter().map(|p| p.yield_unit).collect()
+    } else {
+        kept
+    };
+    let (ylo, yhi) = (quantile(&ys, 0.02), quantile(&ys, 0.98));
+    for (field, idx) in &fields {
+        let rings: Vec<&PlotPolygon> = idx
+            .iter()
+            .filter_map(|&i| by_id.get(r.plots[i].plot_id.as_str()).copied())
+            .collect();
+        let (mut x0, mut y0, mut x1, mut y1) = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
+        for p in &rings {
+            for &(x, y) in &p.exterior {
+                x0 = x0.min(x);
+                y0 = y0.min(y);
+                x1 = x1.max(x);
+                y1 = y1.max(y);
+            }
+        }
+        if x0 > x1 {
+            continue;
+        }
+        let m = 30.0;
+        let (x0, y0, x1, y1) = (x0 - m, y0 - m, x1 + m, y1 + m);
+        let pts: Vec<&MapPoint> = r
+            .points
+            .iter()
+            .filter(|p| p.x >= x0 && p.x <= x1 && p.y >= y0 && p.y <= y1)
+            .collect();
+        let stride = (pts.len() / 4000).max(1);
+        let _ = write!(
+            s,
+            "<section><h2>Field {}</h2><div class=\"maps\">",
+            esc(field)
+        );
+        // Raw points by yield.
+        let p = Panel::new(x0, y0, x1, y1, 440.0);
+        p.open(
+            &mut s,
+            &format!("Field {field}: every record, raw yield ({u})"),
+        );
+        for q in pts.iter().step_by(stride) {
+            let t = (q.yield_unit - ylo) / (yhi - ylo);
+            let _ = write!(
+                s,
+                "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"1.3\" fill=\"{}\"/>",
+                p.px(q.x),
+                p.py(q.y),
+                scale(&VIRIDIS, t)
+            );
+        }
+        for ring in &rings {
+            let _ = write!(
+                s,
+                "<path d=\"{}\" class=\"outline\"/>",
+                ring_path(&p, &ring.exterior)
+            );
+        }
+        p.axes(&mut s);
+        p.colourbar(&mut s, &VIRIDIS, ylo, yhi, u, d);
+        let _ = write!(s, "</svg></figure>");
+        // Removed points by rule.
+        p.open(&mut s, &format!("Field {field}: records removed, by rule"));
+        for ring in &rings {
+            let _ = write!(
+                s,
+                "<path d=\"{}\" class=\"outline\"/>",
+                ring_path(&p, &ring.exterior)
+            );
+        }
+        for q in pts.iter().filter(|q| !q.rule.is_empty()).step_by(stride) {
+            let c = colour_of.get(q.rule.as_str()).copied().unwrap_or("#999999");
+            let _ = write!(
+                s,
+                "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"1.6\" fill=\"{c}\"/>",
+                p.px(q.x),
+                p.py(q.y)
+            );
+        }
+        p.axes(&mut s);
+        let lx = PAD_L + p.w + 12.0;
+        let mut ly = PAD_T + 10.0;
+        for (rule, _) in top_rules.iter().take(7) {
+            let _ = write!(s, "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"4\" fill=\"{}\"/><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\">{}</text>", lx + 4.0, ly - 3.0, colour_of[rule], lx + 12.0, ly, esc(rule));
+            ly += 14.0;
+        }
+        if top_rules.len() > 7 {
+            let _ = write!(s, "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"4\" fill=\"#999999\"/><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\">other rules</text>", lx + 4.0, ly - 3.0, lx + 12.0, ly);
+        }
+        let _ = write!(s, "</svg></figure>");
+        // Plot maps: raw means, spatial trend, adjusted means.
+        let vals = |f: &dyn Fn(&PlotStats) -> Option<f64>| -> Vec<(usize, f64)> {
+            idx.iter()
+                .filter_map(|&i| f(&r.plots[i]).filter(|v| v.is_finite()).map(|v| (i, v)))
+                .collect()
+        };
+        let raw = vals(&|pl| (pl.status == "kept").then_some(pl.yield_mean));
+        let trend = vals(&|pl| adjusted.get(pl.plot_id.as_str()).map(|a| a.spatial_mean));
+        let adj = vals(&|pl| adjusted.get(pl.plot_id.as_str()).map(|a| a.adjusted));
+        let both: Vec<f64> = raw.iter().chain(adj.iter()).map(|v| v.1).collect();
+        let (plo, phi) = (quantile(&both, 0.0), quantile(&both, 1.0));
+        let tmax = trend
+            .iter()
+            .map(|v| v.1.abs())
+            .fold(0.0, f64::max)
+            .max(1e-9);
+        for (title, values, anchors, lo, hi, label) in [
+            (
+                format!("Field {field}: plot raw means ({u})"),
+                &raw,
+                &VIRIDIS[..],
+                plo,
+                phi,
+                u.to_string(),
+            ),
+            (
+                format!("Field {field}: estimated spatial trend ({u})"),
+                &trend,
+                &PUOR[..],
+                -tmax,
+                tmax,
+                format!("{u}, +/-"),
+            ),
+            (
+                format!("Field {field}: spatially adjusted plot means ({u})"),
+                &adj,
+                &VIRIDIS[..],
+                plo,
+                phi,
+                u.to_string(),
+            ),
+        ] {
+            p.open(&mut s, &title);
+            for &(i, v) in values.iter() {
+                if let Some(ring) = by_id.get(r.plots[i].plot_id.as_str()) {
+                    let t = (v - lo) / (hi - lo);
+                    let _ = write!(
+                        s,
+                        "<path d=\"{}\" fill=\"{}\" class=\"plot\"><title>{} {}: {}</title></path>",
+                        ring_path(&p, &ring.exterior),
+                        scale(anchors, t),
+                        esc(&r.plots[i].plot_id),
+                        esc(&r.plots[i].treatment),
+                        fmt(v, d)
+                    );
+                }
+            }
+            for &i in idx {
+                if !values.iter().any(|v| v.0 == i) {
+                    if let Some(ring) = by_id.get(r.plots[i].plot_id.as_str()) {
+                        let _ = write!(
+                            s,
+                            "<path d=\"{}\" class=\"missing\"><title>{}: set aside</title></path>",
+                            ring_path(&p, &ring.exterior),
+                            esc(&r.plots[i].plot_id)
+                        );
+                    }
+                }
+            }
+            p.axes(&mut s);
+            p.colourbar(&mut s, anchors, lo, hi, &label, d);
+            let _ = write!(s, "</svg></figure>");
+        }
+        let _ = write!(s, "</div><p class=\"note\">Hatched grey plots were set aside or not adjusted. Maps are in the projected CRS, metres from the map's lower-left corner.</p></section>");
+    }
+    // Treatment table and forest plot.
+    let _ = write!(
+        s,
+        "<section><h2>Products against the check ({})</h2>",
+        esc(r.check)
+    );
+    let _ = write!(s, "<table><thead><tr><th>field</th><th>treatment</th><th>plots</th><th>estimate ({u})</th><th>uplift ({u})</th><th>95 % interval</th><th>P(uplift &gt; 0)</th><th>break-even ({u})</th><th>P(uplift &gt; break-even)</th><th>expected net return per ha</th></tr></thead><tbody>");
+    for t in r.treatments {
+        let up = if t.uplift.is_nan() {
+            "(check)".to_string()
+        } else {
+            fmt(t.uplift, d)
+        };
+        let ci = if t.uplift.is_nan() {
+            String::new()
+        } else {
+            format!("{} to {}", fmt(t.uplift_lo95, d), fmt(t.uplift_hi95, d))
+        };
+        let p0 = if t.uplift.is_nan() {
+            String::new()
+        } else {
+            format!("{:.3}", t.p_uplift_gt0)
+        };
+        let pbe = if t.p_uplift_gt_break_even.is_nan() {
+            String::new()
+        } else {
+            format!("{:.3}", t.p_uplift_gt_break_even)
+        };
+        let _ = write!(s, "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", esc(&t.field), esc(&t.treatment), t.plots, fmt(t.estimate, d), up, ci, p0, fmt(t.break_even, d), pbe, fmt(t.expected_net_return_per_ha, 0));
+    }
+    let _ = write!(s, "</tbody></table>");
+    let rows: Vec<&TreatmentRow> = r.treatments.iter().filter(|t| !t.uplift.is_nan()).collect();
+    if !rows.is_empty() {
+        let lo = rows
+            .iter()
+            .map(|t| t.uplift_lo95)
+            .chain(rows.iter().map(|t| t.break_even).filter(|v| v.is_finite()))
+            .fold(0.0, f64::min);
+        let hi = rows
+            .iter()
+            .map(|t| t.uplift_hi95)
+            .chain(rows.iter().map(|t| t.break_even).filter(|v| v.is_finite()))
+            .fold(0.0, f64::max);
+        let (w, rh, left) = (520.0, 18.0, 150.0);
+        let h = rows.len() as f64 * rh + 50.0;
+        let x = |v: f64| left + (v - lo) / (hi - lo).max(1e-9) * w;
+        let _ = write!(s, "<figure><figcaption>Uplift over the check with 95 % intervals; the dashed line is zero, ticks mark each product's break-even</figcaption><svg class=\"forest\" role=\"img\" aria-label=\"forest plot of uplifts\" width=\"{:.0}\" height=\"{h:.0}\" viewBox=\"0 0 {:.0} {h:.0}\" xmlns=\"http://www.w3.org/2000/svg\">", left + w + 20.0, left + w + 20.0);
+        let _ = write!(
+            s,
+            "<line x1=\"{:.1}\" y1=\"4\" x2=\"{:.1}\" y2=\"{:.1}\" class=\"zero\"/>",
+            x(0.0),
+            x(0.0),
+            h - 34.0
+        );
+        for (k, t) in rows.iter().enumerate() {
+            let y = 12.0 + k as f64 * rh;
+            let c = if t.field == "all" {
+                "#0072B2"
+            } else {
+                "#555555"
+            };
+            let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"end\">{} / {}</text><line x1=\"{:.1}\" y1=\"{y:.1}\" x2=\"{:.1}\" y2=\"{y:.1}\" stroke=\"{c}\" stroke-width=\"2\"/><circle cx=\"{:.1}\" cy=\"{y:.1}\" r=\"3.5\" fill=\"{c}\"/>", left - 8.0, y + 4.0, esc(&t.field), esc(&t.treatment), x(t.uplift_lo95), x(t.uplift_hi95), x(t.uplift));
+            if t.break_even.is_finite() {
+                let _ = write!(s, "<line x1=\"{:.1}\" y1=\"{:.1}\" x2=\"{:.1}\" y2=\"{:.1}\" stroke=\"#D55E00\" stroke-width=\"2\"/>", x(t.break_even), y - 6.0, x(t.break_even), y + 6.0);
+            }
+        }
+        let step = nice_step((hi - lo) / 5.0);
+        let mut v = (lo / step).ceil() * step;
+        while v <= hi + 1e-12 {
+            let _ = write!(s, "<line x1=\"{:.1}\" y1=\"{:.1}\" x2=\"{:.1}\" y2=\"{:.1}\" class=\"tick\"/><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"middle\">{}</text>", x(v), h - 34.0, x(v), h - 30.0, x(v), h - 19.0, fmt(v, 2));
+            v += step;
+        }
+        let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"al\" text-anchor=\"middle\">uplift over the check ({u})</text></svg></figure>", left + w / 2.0, h - 4.0);
+    }
+    let _ = write!(s, "</section>");
+    // Spatial model.
+    let _ = write!(s, "<section><h2>Spatial model</h2><table><thead><tr><th>field</th><th>plots</th><th>range (m)</th><th>spatial SD ({u})</th><th>noise SD ({u})</th><th>spatial share</th><th>note</th></tr></thead><tbody>");
+    for h in r.hyper {
+        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{:.1}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{:.2}</td><td>{}</td></tr>", esc(&h.field), h.plots, h.range_m, fmt(h.spatial_sd, d + 1), fmt(h.noise_sd, d + 1), h.spatial_share, esc(&h.warning));
+    }
+    let _ = write!(s, "</tbody></table><h3>Spatial model against the same model without the spatial field</h3><table><thead><tr><th>field</th><th>log marginal likelihood, spatial</th><th>without</th><th>efficiency (contrast variance ratio)</th><th>residual Moran's I without</th><th>with</th><th>products whose ranking changes</th></tr></thead><tbody>");
+    for c in r.comparisons {
+        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td></tr>", esc(&c.field), fmt(c.log_ml_spatial, 2), fmt(c.log_ml_rcbd, 2), fmt(c.efficiency, 2), fmt(c.moran_rcbd, 3), fmt(c.moran_spatial, 3), esc(&c.rank_changes.join(", ")));
+    }
+    let _ = write!(s, "</tbody></table></section>");
+    if !r.warnings.is_empty() {
+        let _ = write!(s, "<section><h2>Warnings</h2><ul>");
+        for w in r.warnings {
+            let _ = write!(s, "<li>{}</li>", esc(w));
+        }
+        let _ = write!(s, "</ul></section>");
+    }
+    let _ = write!(
+        s,
+        "<footer><p>{}</p></footer></body></html>\n",
+        esc(super::CAUTION)
+    );
+    s
+}
+
+const CSS: &str = "body{font:14px/1.45 system-ui,sans-serif;margin:0 auto;max-width:1500px;padding:0 24px 40px;color:#1d2528;background:#fbfaf6}\
+header{border-bottom:3px solid #2f5d50;margin-bottom:12px}h1{font-size:24px;margin:18px 0 2px;color:#2f5d50}.sub{margin:0 0 10px;color:#5b6b66}\
+h2{font-size:18px;color:#2f5d50;border-bottom:1px solid #d9d4c7;padding-bottom:3px;margin-top:28px}h3{font-size:15px;margin:18px 0 6px}\
+.caution{background:#fff4d6;border-left:5px solid #b58a00;padding:8px 12px;margin:10px 0}\
+table{border-collapse:collapse;margin:6px 0;font-size:13px}th,td{border:1px solid #d9d4c7;padding:3px 8px;text-align:left}th{background:#eef0ea}td.n{text-align:right;font-variant-numeric:tabular-nums}\
+.maps{display:flex;flex-wrap:wrap;gap:14px}figure{margin:4px 0;background:#fff;border:1px solid #e2ddd0;padding:6px}figcaption{font-weight:600;font-size:13px;margin-bottom:4px}\
+svg text{font:11px system-ui,sans-serif;fill:#1d2528}.al{font-size:11px;fill:#3d4a46}.frame{fill:#f3f1ea;stroke:#b9b3a3}.tick{stroke:#6b756f}\
+.outline{fill:none;stroke:#1d2528;stroke-width:.6;stroke-opacity:.55}.plot{stroke:#1d2528;stroke-width:.5}.missing{fill:#cfcac0;stroke:#8c877c;stroke-dasharray:2 2}\
+.zero{stroke:#1d2528;stroke-dasharray:4 3}pre{background:#f3f1ea;padding:6px;font-size:12px}.note{color:#5b6b66;font-size:12px}footer{margin-top:30px;color:#5b6b66;font-size:12px}";
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn scale_ends_and_middle() {
+        assert_eq!(scale(&VIRIDIS, 0.0), "#440154");
+        assert_eq!(scale(&VIRIDIS, 1.0), "#fde725");
+        assert_eq!(scale(&PUOR, 0.5), "#f7f7f7");
+        assert_eq!(nice_step(23.0), 50.0);
+        assert_eq!(nice_step(7.0), 10.0);
+    }
+}
