@@ -31,8 +31,15 @@ const MIN_POINTS: usize = 10;
 #[serde(deny_unknown_fields)]
 struct Season {
     #[serde(default)]
-    name: String,
+    season: SeasonMeta,
     trial: Vec<SeasonTrial>,
+}
+
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct SeasonMeta {
+    #[serde(default)]
+    name: String,
 }
 
 #[derive(Debug, Deserialize)]
@@ -317,10 +324,10 @@ pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
         ));
     }
     let _ = quiet;
-    let title = if season.name.is_empty() {
+    let title = if season.season.name.is_empty() {
         String::new()
     } else {
-        format!("{}: ", season.name)
+        format!("{}: ", season.season.name)
     };
     println!(
         "{title}{} exports in the inbox, {new_count} new",
