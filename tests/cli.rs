@@ -983,6 +983,22 @@ fn plot_geometry_matches_shapely() {
     );
 }
 
+/// A simulated export's lines with every longitude moved `deg` degrees east.
+fn shift_east(lines: &[String], deg: f64) -> Vec<String> {
+    lines
+        .iter()
+        .enumerate()
+        .map(|(i, l)| {
+            if i == 0 {
+                return l.clone();
+            }
+            let mut f: Vec<String> = l.split(',').map(String::from).collect();
+            f[1] = format!("{:.8}", f[1].parse::<f64>().unwrap() + deg);
+            f.join(",")
+        })
+        .collect()
+}
+
 /// One number per plot from the simulator's truth, by plot id.
 fn truth_by_plot(truth: &serde_json::Value, key: &str) -> BTreeMap<String, f64> {
     truth["plots"]
@@ -1100,19 +1116,12 @@ fn grid_layout_replaces_a_boundary_file_and_stray_exports_are_far_from_trial() {
     let w = Workdir::new("layout");
     let trial = simulate(&w, "trial", &["--seed", "8"]);
     // A stray export: field A's records moved about 4 km east.
-    let a = std::fs::read_to_string(w.path("trial/monitor/field-A.csv")).unwrap();
-    let stray: Vec<String> = a
+    let a: Vec<String> = std::fs::read_to_string(w.path("trial/monitor/field-A.csv"))
+        .unwrap()
         .lines()
-        .enumerate()
-        .map(|(i, l)| {
-            if i == 0 {
-                return l.to_string();
-            }
-            let mut f: Vec<String> = l.split(',').map(String::from).collect();
-            f[1] = format!("{:.8}", f[1].parse::<f64>().unwrap() + 0.05);
-            f.join(",")
-        })
+        .map(String::from)
         .collect();
+    let stray = shift_east(&a, 0.05);
     std::fs::write(w.path("trial/monitor/stray.csv"), stray.join("\n") + "\n").unwrap();
     let t = trial.to_str().unwrap();
     ok(&plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]));
@@ -1350,18 +1359,7 @@ fn intake_matches_exports_to_trials_and_reruns_only_what_changed() {
     span.extend_from_slice(&sa[1..]);
     write("span.csv", &span);
     // One export that matches no trial (north A moved about 40 km east).
-    let stray: Vec<String> = na
-        .iter()
-        .enumerate()
-        .map(|(i, l)| {
-            if i == 0 {
-                return l.clone();
-            }
-            let mut f: Vec<String> = l.split(',').map(String::from).collect();
-            f[1] = format!("{:.8}", f[1].parse::<f64>().unwrap() + 0.5);
-            f.join(",")
-        })
-        .collect();
+    let stray = shift_east(&na, 0.5);
     write("stray.csv", &stray);
     // One truncated file: south B cut in the middle of a line.
     let sb_text = sb.join("\n") + "\n";
