@@ -1479,3 +1479,67 @@ fn intake_matches_exports_to_trials_and_reruns_only_what_changed() {
             .unwrap()
     );
 }
+
+#[test]
+fn gp_likelihood_and_predictions_match_scipy_and_scikit_learn() {
+    use plotsieve_stages::adjust::{log_marginal_gaussian_prior, predict_latent, FieldData};
+    // Fixture made by tests/fixtures/make_fixtures.py (scipy, scikit-learn and numpy versions
+    // in "made_by"), at fixed hyperparameters.
+    let fx = json(&repo().join("tests/fixtures/gp_scipy_sklearn.json"));
+    assert!(fx["made_by"].as_str().unwrap().contains("scikit-learn"));
+    let v = |k: &str| -> Vec<f64> {
+        fx[k]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x.as_f64().unwrap())
+            .collect()
+    };
+    let pairs = |k: &str| -> Vec<(f64, f64)> {
+        fx[k]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|p| (p[0].as_f64().unwrap(), p[1].as_f64().unwrap()))
+            .collect()
+    };
+    let x: Vec<Vec<f64>> = fx["X"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|r| {
+            r.as_array()
+                .unwrap()
+                .iter()
+                .map(|x| x.as_f64().unwrap())
+                .collect()
+        })
+        .collect();
+    let (l, sf, sn) = (
+        fx["length_scale"].as_f64().unwrap(),
+        fx["spatial_sd"].as_f64().unwrap(),
+        fx["noise_sd"].as_f64().unwrap(),
+    );
+    let data = FieldData {
+        y: v("y"),
+        xy: pairs("xy"),
+        x,
+        p: 3,
+    };
+    let ours =
+        log_marginal_gaussian_prior(&data, l, sf, sn, &v("prior_mean"), &v("prior_var")).unwrap();
+    let theirs = fx["logpdf"].as_f64().unwrap();
+    assert!(
+        ((ours - theirs) / theirs).abs() < 1e-8,
+        "log marginal likelihood {ours} vs scipy {theirs}"
+    );
+    let (mean, sd) =
+        predict_latent(&pairs("xy"), &v("residual"), l, sf, sn, &pairs("new")).unwrap();
+    for (k, (m, s)) in mean.iter().zip(&sd).enumerate() {
+        let (tm, ts) = (v("pred_mean")[k], v("pred_sd")[k]);
+        assert!(
+            (m - tm).abs() < 1e-8 && (s - ts).abs() < 1e-8,
+            "prediction {k}: ({m}, {s}) vs scikit-learn ({tm}, {ts})"
+        );
+    }
+}
