@@ -465,7 +465,7 @@ pub fn render(r: &HtmlInput) -> String {
             p.colourbar(&mut s, anchors, lo, hi, &label, d);
             let _ = write!(s, "</svg></figure>");
         }
-        let _ = write!(s, "</div><p class=\"note\">Hatched grey plots were set aside or not adjusted. Maps are in the projected CRS, metres from the map's lower-left corner.</p></section>");
+        let _ = write!(s, "</div><p class=\"note\">Grey dashed plots were set aside or not adjusted. Maps are in the projected CRS, metres from the map's lower-left corner.</p></section>");
     }
     // Treatment table and forest plot.
     let _ = write!(

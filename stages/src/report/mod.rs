@@ -21,7 +21,7 @@ pub struct ReportInput<'a> {
 /// The cautions printed with every report.
 pub const CAUTION: &str = "Results are statistical estimates under the model's assumptions \
 (a Gaussian-process spatial trend, independent plot noise, effects constant within a field, \
-hyperparameters fixed at their best fit). They are not proof of product performance. \
+hyperparameters given penalised-complexity priors). They are not proof of product performance. \
 Product claims must follow local regulations and licensed agronomic advice.";
 
 /// Render the Markdown report.
