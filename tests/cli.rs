@@ -1521,6 +1521,7 @@ fn gp_likelihood_and_predictions_match_scipy_and_scikit_learn() {
         fx["noise_sd"].as_f64().unwrap(),
     );
     let data = FieldData {
+        kernel: plotsieve_stages::adjust::Kernel::Matern52,
         y: v("y"),
         xy: pairs("xy"),
         x,

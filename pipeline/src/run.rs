@@ -284,6 +284,7 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
                 min_range_m: cfg.adjust.min_range_m,
                 max_range_m: cfg.adjust.max_range_m,
                 starts_per_axis: cfg.adjust.starts_per_axis as usize,
+                kernel: adjust::Kernel::from_name(&cfg.adjust.kernel).unwrap_or_default(),
                 grain_price_per_t: cfg.adjust.grain_price_per_t,
                 product_cost_per_ha: cfg.adjust.product_cost_per_ha.clone(),
                 t_ha_to_unit: unit.from_kg_ha(1000.0, &crop),

@@ -61,6 +61,7 @@ pub struct FitSettings {
     pub min_range_m: f64,
     pub max_range_m: f64,
     pub starts_per_axis: usize,
+    pub kernel: Kernel,
     /// Grain price per tonne at standard moisture (0 = no economics).
     pub grain_price_per_t: f64,
     /// Product cost per hectare, by treatment.
@@ -179,6 +180,45 @@ pub fn matern52(d: f64, range: f64, sd: f64) -> f64 {
     sd * sd * (1.0 + r + r * r / 3.0) * (-r).exp()
 }
 
+/// Spatial covariance functions (R&W 2006 eq. 4.9 and 4.16-4.17).
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum Kernel {
+    /// Matern 1/2 (exponential): s^2 exp(-d/l).
+    Matern12,
+    /// Matern 3/2: s^2 (1 + sqrt3 d/l) exp(-sqrt3 d/l).
+    Matern32,
+    /// Matern 5/2: s^2 (1 + sqrt5 d/l + 5 d^2/(3 l^2)) exp(-sqrt5 d/l).
+    #[default]
+    Matern52,
+    /// Squared exponential: s^2 exp(-d^2 / (2 l^2)).
+    SquaredExponential,
+}
+
+impl Kernel {
+    /// The kernel named in `adjust.kernel`.
+    pub fn from_name(name: &str) -> Option<Kernel> {
+        Some(match name {
+            "matern12" => Kernel::Matern12,
+            "matern32" => Kernel::Matern32,
+            "matern52" => Kernel::Matern52,
+            "squared_exponential" => Kernel::SquaredExponential,
+            _ => return None,
+        })
+    }
+    /// Covariance at distance `d`.
+    pub fn cov(self, d: f64, range: f64, sd: f64) -> f64 {
+        match self {
+            Kernel::Matern12 => sd * sd * (-d / range).exp(),
+            Kernel::Matern32 => {
+                let r = 3f64.sqrt() * d / range;
+                sd * sd * (1.0 + r) * (-r).exp()
+            }
+            Kernel::Matern52 => matern52(d, range, sd),
+            Kernel::SquaredExponential => sd * sd * (-0.5 * (d / range).powi(2)).exp(),
+        }
+    }
+}
+
 /// A field's data: yields, centroids and design matrix.
 #[derive(Clone, Debug)]
 pub struct FieldData {
@@ -187,6 +227,7 @@ pub struct FieldData {
     /// n x p design matrix, row major.
     pub x: Vec<Vec<f64>>,
     pub p: usize,
+    pub kernel: Kernel,
 }
 
 /// Everything computed at one set of hyperparameters.
@@ -202,7 +243,7 @@ fn kernel_matrix(data: &FieldData, range: f64, sf: f64) -> Mat<f64> {
     let n = data.y.len();
     Mat::from_fn(n, n, |i, j| {
         let (a, b) = (data.xy[i], data.xy[j]);
-        matern52(
+        data.kernel.cov(
             ((a.0 - b.0).powi(2) + (a.1 - b.1).powi(2)).sqrt(),
             range,
             sf,
@@ -509,6 +550,7 @@ fn fit_field(field: &str, plots: &[&PlotStats], s: &FitSettings) -> Result<Field
         xy: xy.clone(),
         x,
         p,
+        kernel: s.kernel,
     };
     // Bounds of the length scale from the plot layout.
     let mut dmin = f64::INFINITY;
@@ -932,6 +974,18 @@ pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustE
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::plots::PlotStats;
+
+    #[test]
+    fn kernels_by_hand() {
+        // At d = l with unit SD: exp(-1) = 0.367879; (1 + sqrt3) exp(-sqrt3) = 0.483358;
+        // exp(-1/2) = 0.606531 (arithmetic).
+        assert!((Kernel::Matern12.cov(10.0, 10.0, 1.0) - 0.367_879_4).abs() < 1e-6);
+        assert!((Kernel::Matern32.cov(10.0, 10.0, 1.0) - 0.483_357_7).abs() < 1e-6);
+        assert!((Kernel::SquaredExponential.cov(10.0, 10.0, 1.0) - 0.606_530_7).abs() < 1e-6);
+        assert_eq!(Kernel::from_name("matern32"), Some(Kernel::Matern32));
+        assert_eq!(Kernel::from_name("rbf"), None);
+    }
 
     #[test]
     fn matern_by_hand() {
@@ -960,9 +1014,98 @@ mod tests {
                 vec![0.0, 1.0],
             ],
             p: 2,
+            kernel: Kernel::Matern52,
         };
         let e = evaluate(&data, 5.0, 1e-6, 2.0, true).unwrap();
         assert!((e.b[0] - 2.0).abs() < 1e-9 && (e.b[1] - 7.0).abs() < 1e-9);
         assert!((e.cov_b[(0, 0)] - 2.0).abs() < 1e-9);
+    }
+
+    fn grid_plots(treatments: &[&str], yields: impl Fn(usize) -> f64) -> Vec<PlotStats> {
+        (0..24)
+            .map(|i| PlotStats {
+                plot_id: format!("p{i}"),
+                field: "F".into(),
+                treatment: treatments[i % treatments.len()].into(),
+                block: (i / 6).to_string(),
+                status: "kept".into(),
+                reason: String::new(),
+                points: 30,
+                yield_mean: yields(i),
+                yield_median: f64::NAN,
+                yield_trimmed_mean: f64::NAN,
+                yield_sd: f64::NAN,
+                moisture_mean_pct: f64::NAN,
+                centroid_x_m: 18.0 * (i % 6) as f64,
+                centroid_y_m: 66.0 * (i / 6) as f64,
+                area_m2: 1000.0,
+                net_area_m2: 500.0,
+                harvested_m2: 500.0,
+                coverage: 1.0,
+                grid_range: (i / 6) as u32 + 1,
+                grid_row: (i % 6) as u32 + 1,
+                along_m: 0.0,
+                across_m: 0.0,
+                net_ring: Vec::new(),
+            })
+            .collect()
+    }
+
+    fn settings() -> FitSettings {
+        FitSettings {
+            check: "chk".into(),
+            blocks: false,
+            min_range_m: 0.0,
+            max_range_m: 0.0,
+            starts_per_axis: 2,
+            kernel: Kernel::Matern52,
+            grain_price_per_t: 0.0,
+            product_cost_per_ha: BTreeMap::new(),
+            t_ha_to_unit: 1.0,
+        }
+    }
+
+    #[test]
+    fn degenerate_designs_give_clear_messages() {
+        let wobble = |i: usize| 10.0 + 0.3 * ((i * 7) % 5) as f64;
+        let e = run(&grid_plots(&["chk"], wobble), &settings())
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("field F: only one treatment (chk)"), "{e}");
+        let e = run(&grid_plots(&["a", "b"], wobble), &settings())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("field F: no kept plot of the check \"chk\""),
+            "{e}"
+        );
+        let e = run(&grid_plots(&["chk", "a"], |_| 10.0), &settings())
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("all plot yields are equal"), "{e}");
+        // A product in a single plot: estimated, with a wider interval, no NaN.
+        let mut plots = grid_plots(&["chk", "a", "b"], wobble);
+        plots[5].treatment = "solo".into();
+        let out = run(&plots, &settings()).unwrap();
+        let solo = out
+            .treatments
+            .iter()
+            .find(|t| t.treatment == "solo" && t.field == "F")
+            .unwrap();
+        let a = out
+            .treatments
+            .iter()
+            .find(|t| t.treatment == "a" && t.field == "F")
+            .unwrap();
+        assert_eq!(solo.plots, 1);
+        assert!(
+            solo.uplift.is_finite() && solo.uplift_sd.is_finite() && solo.p_uplift_gt0.is_finite()
+        );
+        assert!(
+            solo.uplift_sd > a.uplift_sd,
+            "{} vs {}",
+            solo.uplift_sd,
+            a.uplift_sd
+        );
     }
 }

@@ -665,9 +665,9 @@ impl TrialConfig {
                 self.adjust.min_range_m, self.adjust.max_range_m
             ));
         }
-        if self.adjust.kernel != "matern52" {
+        if crate::adjust::Kernel::from_name(&self.adjust.kernel).is_none() {
             p.push(format!(
-                "adjust.kernel: unknown kernel {:?} (known: matern52)",
+                "adjust.kernel: unknown kernel {:?} (known: matern12, matern32, matern52, squared_exponential)",
                 self.adjust.kernel
             ));
         }
