@@ -1634,3 +1634,81 @@ fn spatial_model_is_more_efficient_with_a_trend_and_no_worse_without() {
     assert!(eff["strong"] > 1.5, "{eff:?}");
     assert!(eff["none"] > 0.85, "{eff:?}");
 }
+
+#[test]
+fn plot_table_entry_fits_an_analysts_own_table() {
+    let w = Workdir::new("table");
+    let trial = simulate(&w, "trial", &["--seed", "91"]);
+    ok(&plotsieve(
+        &w.0,
+        &["run", trial.to_str().unwrap(), "--out", "run", "--quiet"],
+    ));
+    // The analyst's table: the kept plots of that run, in the plot-table format.
+    let mut table = String::from("plot_id,field,treatment,block,yield_t_ha,x_m,y_m\n");
+    for r in csv_rows(&w.path("run/3-plots/plots.csv"))
+        .iter()
+        .filter(|r| r["status"] == "kept")
+    {
+        table += &format!(
+            "{},{},{},{},{},{},{}\n",
+            r["plot_id"],
+            r["field"],
+            r["treatment"],
+            r["block"],
+            r["yield_mean_t_ha"],
+            r["centroid_x_m"],
+            r["centroid_y_m"]
+        );
+    }
+    std::fs::write(w.path("trial/table.csv"), table).unwrap();
+    let text =
+        std::fs::read_to_string(&trial).unwrap() + "\n[adjust]\nplot_table = \"table.csv\"\n";
+    let t2 = w.path("trial/table-trial.toml");
+    std::fs::write(&t2, text).unwrap();
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "adjust",
+            t2.to_str().unwrap(),
+            "--out",
+            "fresh",
+            "--quiet",
+        ],
+    ));
+    assert_eq!(
+        std::fs::read(w.path("run/4-adjust/treatments.csv")).unwrap(),
+        std::fs::read(w.path("fresh/4-adjust/treatments.csv")).unwrap(),
+        "the same plots give the same treatment table"
+    );
+    let m = json(&w.path("fresh/manifest.json"));
+    assert_eq!(m["stages"]["adjust"]["status"], "done");
+    assert_eq!(
+        m["inputs"].as_array().unwrap().len(),
+        2,
+        "trial file and plot table"
+    );
+    // A bad cell is named by file, line and column.
+    std::fs::write(
+        w.path("trial/table.csv"),
+        "plot_id,field,treatment,block,yield_t_ha,x_m,y_m\nA-101,A,check,1,lots,0,0\n",
+    )
+    .unwrap();
+    let o = plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "adjust",
+            t2.to_str().unwrap(),
+            "--out",
+            "fresh2",
+            "--quiet",
+        ],
+    );
+    assert_eq!(o.status.code(), Some(1));
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("table.csv, line 2, column yield_t_ha: expected a number, found \"lots\""),
+        "{e}"
+    );
+}

@@ -568,6 +568,90 @@ pub fn read_plots(path: &Path, unit: &str) -> Result<Vec<PlotStats>> {
     Ok(out)
 }
 
+/// An analyst's plot table for plot-table entry: plot_id, field, treatment, block,
+/// `yield_<unit>`, and x_m and y_m, or row and range (times the spacings).
+pub fn read_plot_table(
+    path: &Path,
+    shown: &str,
+    unit: &str,
+    row_spacing: f64,
+    range_spacing: f64,
+) -> Result<Vec<PlotStats>> {
+    let mut rdr = csv::Reader::from_path(path)
+        .with_context(|| format!("{shown}: cannot read the plot table (adjust.plot_table)"))?;
+    let header = rdr.headers()?.clone();
+    let col = |name: &str| header.iter().position(|h| h.trim() == name);
+    let ycol = format!("yield_{unit}");
+    let need = ["plot_id", "field", "treatment", "block", ycol.as_str()];
+    let mut idx = Vec::new();
+    for n in need {
+        idx.push(col(n).ok_or_else(|| {
+            anyhow!(
+                "{shown}: no column {n} (found: {})",
+                header.iter().collect::<Vec<_>>().join(", ")
+            )
+        })?);
+    }
+    let coords = match (col("x_m"), col("y_m"), col("row"), col("range")) {
+        (Some(x), Some(y), _, _) => (x, y, 1.0, 1.0),
+        (_, _, Some(r), Some(g)) => {
+            if !(row_spacing > 0.0 && range_spacing > 0.0) {
+                bail!("{shown}: a table with row and range needs adjust.row_spacing_m and adjust.range_spacing_m above 0");
+            }
+            (r, g, row_spacing, range_spacing)
+        }
+        _ => bail!("{shown}: needs columns x_m and y_m, or row and range"),
+    };
+    let mut out = Vec::new();
+    for rec in rdr.records() {
+        let rec = rec.with_context(|| format!("reading {shown}"))?;
+        let line = rec.position().map(|p| p.line()).unwrap_or(0);
+        let num = |k: usize, name: &str| -> Result<f64> {
+            let t = rec.get(k).unwrap_or("").trim();
+            t.parse::<f64>()
+                .ok()
+                .filter(|v| v.is_finite())
+                .ok_or_else(|| {
+                    anyhow!("{shown}, line {line}, column {name}: expected a number, found {t:?}")
+                })
+        };
+        let s = |k: usize| rec.get(idx[k]).unwrap_or("").trim().to_string();
+        let (cx, cy) = (
+            num(coords.0, "x_m/row")? * coords.2,
+            num(coords.1, "y_m/range")? * coords.3,
+        );
+        out.push(PlotStats {
+            plot_id: s(0),
+            field: s(1),
+            treatment: s(2),
+            block: s(3),
+            status: "kept".into(),
+            reason: String::new(),
+            points: 0,
+            yield_mean: num(idx[4], &ycol)?,
+            yield_median: f64::NAN,
+            yield_trimmed_mean: f64::NAN,
+            yield_sd: f64::NAN,
+            moisture_mean_pct: f64::NAN,
+            centroid_x_m: cx,
+            centroid_y_m: cy,
+            area_m2: f64::NAN,
+            net_area_m2: f64::NAN,
+            harvested_m2: f64::NAN,
+            coverage: f64::NAN,
+            grid_range: 0,
+            grid_row: 0,
+            along_m: f64::NAN,
+            across_m: f64::NAN,
+            net_ring: Vec::new(),
+        });
+    }
+    if out.is_empty() {
+        bail!("{shown}: no plots");
+    }
+    Ok(out)
+}
+
 /// `adjusted_plots.csv`.
 pub fn write_adjusted(path: &Path, rows: &[AdjustedPlot], unit: &str) -> Result<()> {
     let h = [

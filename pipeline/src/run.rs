@@ -274,10 +274,20 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
             Ok(o.summary)
         }
         Stage::Adjust => {
-            let plots = io::read_plots(
-                &out.join(Stage::Plots.dir()).join("plots.csv"),
-                unit.suffix(),
-            )?;
+            let plots = if cfg.adjust.plot_table.is_empty() {
+                io::read_plots(
+                    &out.join(Stage::Plots.dir()).join("plots.csv"),
+                    unit.suffix(),
+                )?
+            } else {
+                io::read_plot_table(
+                    &t.base.join(&cfg.adjust.plot_table),
+                    &cfg.adjust.plot_table,
+                    unit.suffix(),
+                    cfg.adjust.row_spacing_m,
+                    cfg.adjust.range_spacing_m,
+                )?
+            };
             let s = FitSettings {
                 check: cfg.trial.check.clone(),
                 blocks: cfg.adjust.blocks,
@@ -480,12 +490,18 @@ fn run_stages(
 }
 
 fn new_manifest(t: &Trial) -> Result<Manifest> {
+    let mut m = new_manifest_without_inputs(t)?;
+    m.inputs = hash_inputs(t)?;
+    Ok(m)
+}
+
+fn new_manifest_without_inputs(t: &Trial) -> Result<Manifest> {
     Ok(Manifest {
         tool: "plotsieve".into(),
         version: env!("CARGO_PKG_VERSION").into(),
         trial_file: t.path.display().to_string(),
         config: serde_json::to_value(&t.cfg)?,
-        inputs: hash_inputs(t)?,
+        inputs: Vec::new(),
         stages: BTreeMap::new(),
     })
 }
@@ -514,9 +530,19 @@ pub fn run_one(
 ) -> Result<()> {
     let t = load(trial, set)?;
     let out = out.unwrap_or_else(|| default_out(trial));
+    let table_entry = stage == Stage::Adjust && !t.cfg.adjust.plot_table.is_empty();
     let mut manifest = match (read_manifest(&out)?, stage) {
         (Some(m), _) => m,
         (None, Stage::Ingest) => new_manifest(&t)?,
+        (None, Stage::Adjust) if table_entry => {
+            // Plot-table entry: the trial file and the table are the inputs.
+            let mut m = new_manifest_without_inputs(&t)?;
+            for p in [t.path.clone(), t.base.join(&t.cfg.adjust.plot_table)] {
+                let (bytes, sha256) = sha256_file(&p)?;
+                m.inputs.push(InputHash { path: p.display().to_string(), bytes, sha256 });
+            }
+            m
+        }
         (None, _) => bail!(
             "{} has no manifest.json: run stage ingest first (plotsieve stage ingest {} --out {}), or plotsieve run",
             out.display(),
@@ -524,7 +550,7 @@ pub fn run_one(
             out.display()
         ),
     };
-    if let Some(prev) = stage.previous() {
+    if let Some(prev) = stage.previous().filter(|_| !table_entry) {
         let status = manifest.stages.get(prev.name()).map(|r| r.status.as_str());
         match status {
             Some("done") => {}

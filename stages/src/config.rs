@@ -316,6 +316,9 @@ pub struct AdjustSettings {
     pub starts_per_axis: i64,
     pub grain_price_per_t: f64,
     pub product_cost_per_ha: BTreeMap<String, f64>,
+    pub plot_table: String,
+    pub row_spacing_m: f64,
+    pub range_spacing_m: f64,
 }
 
 /// `[report]` settings.
