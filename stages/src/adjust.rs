@@ -155,7 +155,10 @@ pub struct TreatmentRow {
 pub struct FieldHyper {
     pub field: String,
     pub plots: u64,
+    /// Posterior mean of the range and its 95 % interval (from the integration grid).
     pub range_m: f64,
+    pub range_lo95_m: f64,
+    pub range_hi95_m: f64,
     pub spatial_sd: f64,
     pub noise_sd: f64,
     pub spatial_share: f64,
@@ -790,6 +793,20 @@ fn fit_field(field: &str, plots: &[&PlotStats], s: &FitSettings) -> Result<Field
     // Posterior means of the hyperparameters over the grid.
     let post = |k: usize| evals.iter().map(|(w, t, _)| w * t[k].exp()).sum::<f64>();
     let (range_pm, sf_pm, sn_pm) = (post(0), post(1), post(2));
+    // Weighted quantiles of the range over the grid points (as coarse as the grid).
+    let range_q = |q: f64| -> f64 {
+        let mut v: Vec<(f64, f64)> = evals.iter().map(|(w, t, _)| (t[0].exp(), *w)).collect();
+        v.sort_by(|a, b| a.0.total_cmp(&b.0));
+        let mut acc = 0.0;
+        for (r, w) in &v {
+            acc += w;
+            if acc >= q {
+                return *r;
+            }
+        }
+        v.last().map(|x| x.0).unwrap_or(f64::NAN)
+    };
+    let (range_lo, range_hi) = (range_q(0.025), range_q(0.975));
     let share_pm: f64 = evals
         .iter()
         .map(|(w, t, _)| {
@@ -868,6 +885,8 @@ fn fit_field(field: &str, plots: &[&PlotStats], s: &FitSettings) -> Result<Field
             field: field.to_string(),
             plots: n as u64,
             range_m: range_pm,
+            range_lo95_m: range_lo,
+            range_hi95_m: range_hi,
             spatial_sd: sf_pm,
             noise_sd: sn_pm,
             spatial_share: share_pm,

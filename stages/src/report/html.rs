@@ -543,9 +543,9 @@ pub fn render(r: &HtmlInput) -> String {
     }
     let _ = write!(s, "</section>");
     // Spatial model.
-    let _ = write!(s, "<section><h2>Spatial model</h2><table><thead><tr><th>field</th><th>plots</th><th>range (m)</th><th>spatial SD ({u})</th><th>noise SD ({u})</th><th>spatial share</th><th>note</th></tr></thead><tbody>");
+    let _ = write!(s, "<section><h2>Spatial model</h2><table><thead><tr><th>field</th><th>plots</th><th>range (m), posterior mean</th><th>95 % interval</th><th>spatial SD ({u})</th><th>noise SD ({u})</th><th>spatial share</th><th>note</th></tr></thead><tbody>");
     for h in r.hyper {
-        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{:.1}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{:.2}</td><td>{}</td></tr>", esc(&h.field), h.plots, h.range_m, fmt(h.spatial_sd, d + 1), fmt(h.noise_sd, d + 1), h.spatial_share, esc(&h.warning));
+        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{:.1}</td><td>{:.0} to {:.0}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{:.2}</td><td>{}</td></tr>", esc(&h.field), h.plots, h.range_m, h.range_lo95_m, h.range_hi95_m, fmt(h.spatial_sd, d + 1), fmt(h.noise_sd, d + 1), h.spatial_share, esc(&h.warning));
     }
     let _ = write!(s, "</tbody></table><h3>Spatial model against the same model without the spatial field</h3><table><thead><tr><th>field</th><th>log marginal likelihood, spatial</th><th>without</th><th>efficiency (contrast variance ratio)</th><th>residual Moran's I without</th><th>with</th><th>products whose ranking changes</th></tr></thead><tbody>");
     for c in r.comparisons {

@@ -63,17 +63,19 @@ pub fn markdown(r: &ReportInput) -> String {
     let _ = writeln!(s, "\n## Spatial model per field\n");
     let _ = writeln!(
         s,
-        "| field | plots | range (m) | spatial SD ({u}) | noise SD ({u}) | spatial share | note |",
+        "| field | plots | range (m) | range 95 % interval (m) | spatial SD ({u}) | noise SD ({u}) | spatial share | note |",
         u = r.unit_label
     );
-    let _ = writeln!(s, "|---|---:|---:|---:|---:|---:|---|");
+    let _ = writeln!(s, "|---|---:|---:|---|---:|---:|---:|---|");
     for h in r.hyper {
         let _ = writeln!(
             s,
-            "| {} | {} | {:.1} | {} | {} | {:.2} | {} |",
+            "| {} | {} | {:.1} | {:.0} to {:.0} | {} | {} | {:.2} | {} |",
             h.field,
             h.plots,
             h.range_m,
+            h.range_lo95_m,
+            h.range_hi95_m,
             fmt(h.spatial_sd, d + 1),
             fmt(h.noise_sd, d + 1),
             h.spatial_share,
