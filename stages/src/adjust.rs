@@ -641,8 +641,9 @@ fn fit_field(field: &str, plots: &[&PlotStats], s: &FitSettings) -> Result<Field
     }
     // Integrate the hyperparameters numerically on the log scale around the posterior mode
     // (a grid in the spirit of Rue, Martino & Chopin 2009): 7 points per axis at
-    // 0, +-0.75, +-1.5, +-2.25 posterior SDs (from the curvature at the mode), weights
-    // proportional to the posterior density, points below 1e-4 of the mode's dropped.
+    // 0, +-0.75, +-1.5, +-2.25 posterior SDs (from the curvature at the mode, widened where
+    // the tails are heavier), weights proportional to the posterior density, points below
+    // 1e-4 of the mode's dropped.
     let lp = |t: &[f64]| -objective(t);
     let lp0 = lp(&theta);
     let h = 0.05;
@@ -661,25 +662,57 @@ fn fit_field(field: &str, plots: &[&PlotStats], s: &FitSettings) -> Result<Field
         })
         .collect();
     let zs = [-2.25, -1.5, -0.75, 0.0, 0.75, 1.5, 2.25];
+    // An axis whose outermost grid points hold more than 10 % of the mass is widened by 1.6
+    // and the grid evaluated again (up to twice): the curvature at the mode understates
+    // heavy tails.
+    let mut axis_sd = axis_sd;
     let mut evals: Vec<(f64, [f64; 3], Evaluation)> = Vec::new();
-    for &z0 in &zs {
-        for &z1 in &zs {
-            for &z2 in &zs {
-                let t = [
-                    theta[0] + z0 * axis_sd[0],
-                    theta[1] + z1 * axis_sd[1],
-                    theta[2] + z2 * axis_sd[2],
-                ];
-                let w = (lp(&t) - lp0).exp();
-                if !(w > 1e-4) {
-                    continue;
-                }
-                if let Some(ev) = evaluate(&data, t[0].exp(), t[1].exp(), t[2].exp(), true) {
-                    evals.push((w, t, ev));
+    for round in 0..3 {
+        evals.clear();
+        for &z0 in &zs {
+            for &z1 in &zs {
+                for &z2 in &zs {
+                    let t = [
+                        theta[0] + z0 * axis_sd[0],
+                        theta[1] + z1 * axis_sd[1],
+                        theta[2] + z2 * axis_sd[2],
+                    ];
+                    let w = (lp(&t) - lp0).exp();
+                    if !(w > 1e-4) {
+                        continue;
+                    }
+                    if let Some(ev) = evaluate(&data, t[0].exp(), t[1].exp(), t[2].exp(), false) {
+                        evals.push((w, t, ev));
+                    }
                 }
             }
         }
+        let total: f64 = evals.iter().map(|x| x.0).sum();
+        let mut widened = false;
+        for k in 0..3 {
+            let edge: f64 = evals
+                .iter()
+                .filter(|(_, t, _)| ((t[k] - theta[k]) / axis_sd[k]).abs() > 2.0)
+                .map(|(w, _, _)| w)
+                .sum::<f64>()
+                / total.max(1e-300);
+            if edge > 0.10 && round < 2 {
+                axis_sd[k] *= 1.6;
+                widened = true;
+            }
+        }
+        if !widened {
+            break;
+        }
     }
+    // The full evaluation (spatial effects) only at the grid points kept.
+    let mut full = Vec::with_capacity(evals.len());
+    for (w, t, _) in evals {
+        if let Some(ev) = evaluate(&data, t[0].exp(), t[1].exp(), t[2].exp(), true) {
+            full.push((w, t, ev));
+        }
+    }
+    let mut evals = full;
     if evals.is_empty() {
         return Err(format!(
             "field {field}: the hyperparameter posterior could not be evaluated"
@@ -807,6 +840,19 @@ fn fit_field(field: &str, plots: &[&PlotStats], s: &FitSettings) -> Result<Field
         v.last().map(|x| x.0).unwrap_or(f64::NAN)
     };
     let (range_lo, range_hi) = (range_q(0.025), range_q(0.975));
+    // Posterior mass on the outermost grid points of the range axis: the grid (or the prior)
+    // may be cutting the posterior off.
+    let edge: f64 = evals
+        .iter()
+        .filter(|(_, t, _)| ((t[0] - theta[0]) / axis_sd[0]).abs() > 2.0)
+        .map(|(w, _, _)| w)
+        .sum();
+    if edge > 0.15 && warning.is_empty() {
+        warning = format!(
+            "{:.0} % of the range posterior lies on the edge of the integration grid; the field may be too small to tell the range",
+            100.0 * edge
+        );
+    }
     let share_pm: f64 = evals
         .iter()
         .map(|(w, t, _)| {
