@@ -50,6 +50,19 @@ fn csv_bytes(header: &[&str], rows: impl Iterator<Item = Vec<String>>) -> Result
     Ok(w.into_inner().map_err(|e| anyhow!("{e}"))?)
 }
 
+/// Open a CSV the run folder should hold; a missing file says what to run.
+fn open_csv(path: &Path, hint: &str) -> Result<csv::Reader<std::fs::File>> {
+    csv::Reader::from_path(path).with_context(|| format!("{} is missing: {hint}", path.display()))
+}
+
+/// Every record of such a CSV.
+fn records(path: &Path, hint: &str) -> Result<Vec<csv::StringRecord>> {
+    open_csv(path, hint)?
+        .records()
+        .collect::<Result<Vec<_>, _>>()
+        .with_context(|| format!("reading {}", path.display()))
+}
+
 /// `rejected.csv`.
 pub fn write_rejections(path: &Path, rows: &[Rejection]) -> Result<()> {
     let bytes = csv_bytes(
@@ -687,11 +700,8 @@ pub fn write_adjusted(path: &Path, rows: &[AdjustedPlot], unit: &str) -> Result<
 
 /// Read `adjusted_plots.csv` back for the report.
 pub fn read_adjusted(path: &Path) -> Result<Vec<AdjustedPlot>> {
-    let mut rdr = csv::Reader::from_path(path)
-        .with_context(|| format!("{} is missing: run stage adjust first", path.display()))?;
     let mut out = Vec::new();
-    for r in rdr.records() {
-        let r = r?;
+    for r in records(path, "run stage adjust first")? {
         let n = |k: usize| -> f64 { r[k].parse().unwrap_or(f64::NAN) };
         out.push(AdjustedPlot {
             plot_id: r[0].to_string(),
@@ -710,11 +720,8 @@ pub fn read_adjusted(path: &Path) -> Result<Vec<AdjustedPlot>> {
 
 /// Read a stage's `rejected.csv` back.
 pub fn read_rejections(path: &Path) -> Result<Vec<Rejection>> {
-    let mut rdr = csv::Reader::from_path(path)
-        .with_context(|| format!("{} is missing: rerun its stage", path.display()))?;
     let mut out = Vec::new();
-    for r in rdr.records() {
-        let r = r?;
+    for r in records(path, "rerun its stage")? {
         out.push(Rejection {
             source_file: r[0].to_string(),
             source_row: r[1].parse().unwrap_or(0),
@@ -845,11 +852,8 @@ pub fn write_comparison(path: &Path, rows: &[Comparison]) -> Result<()> {
 
 /// Read `comparison.csv` back for the report.
 pub fn read_comparison(path: &Path) -> Result<Vec<Comparison>> {
-    let mut rdr = csv::Reader::from_path(path)
-        .with_context(|| format!("{} is missing: run stage adjust first", path.display()))?;
     let mut out = Vec::new();
-    for r in rdr.records() {
-        let r = r?;
+    for r in records(path, "run stage adjust first")? {
         let n = |k: usize| -> f64 { r[k].parse().unwrap_or(f64::NAN) };
         out.push(Comparison {
             field: r[0].to_string(),
@@ -901,11 +905,8 @@ pub fn write_hyper(path: &Path, rows: &[FieldHyper], unit: &str) -> Result<()> {
 
 /// Read `hyperparameters.csv` back for the report.
 pub fn read_hyper(path: &Path) -> Result<Vec<FieldHyper>> {
-    let mut rdr = csv::Reader::from_path(path)
-        .with_context(|| format!("{} is missing: run stage adjust first", path.display()))?;
     let mut out = Vec::new();
-    for r in rdr.records() {
-        let r = r?;
+    for r in records(path, "run stage adjust first")? {
         let n = |k: usize| -> f64 { r[k].parse().unwrap_or(f64::NAN) };
         out.push(FieldHyper {
             field: r[0].to_string(),
