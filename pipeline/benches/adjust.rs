@@ -1,0 +1,78 @@
+//! Benchmark: the adjust stage (GP fit with hyperparameter integration) on synthetic fields.
+//!
+//! Run: `cargo bench -p plotsieve --bench adjust` (add `-- 50 100 250` for other sizes).
+//! Each field is a grid of 18 m x 66 m plots with six treatments, a smooth trend and noise;
+//! the time is for `adjust::run` on one field (search, 7x7x7 integration grid, mixtures).
+
+use plotsieve_stages::adjust::{run, FitSettings, Kernel};
+use plotsieve_stages::plots::PlotStats;
+use plotsieve_stages::util::Rng;
+use std::collections::BTreeMap;
+use std::time::Instant;
+
+fn field(n: usize, seed: u64) -> Vec<PlotStats> {
+    let mut rng = Rng::new(seed);
+    let cols = 12;
+    (0..n)
+        .map(|i| {
+            let (x, y) = (18.0 * (i % cols) as f64, 66.0 * (i / cols) as f64);
+            let trend = (x / 90.0).sin() + (y / 200.0).cos();
+            PlotStats {
+                plot_id: format!("p{i}"),
+                field: "F".into(),
+                treatment: ["chk", "a", "b", "c", "d", "e"][i % 6].into(),
+                block: (i / 6).to_string(),
+                status: "kept".into(),
+                reason: String::new(),
+                points: 30,
+                yield_mean: 11.0 + trend + 0.2 * rng.normal(),
+                yield_median: f64::NAN,
+                yield_trimmed_mean: f64::NAN,
+                yield_sd: f64::NAN,
+                moisture_mean_pct: f64::NAN,
+                centroid_x_m: x,
+                centroid_y_m: y,
+                area_m2: f64::NAN,
+                net_area_m2: f64::NAN,
+                harvested_m2: f64::NAN,
+                coverage: f64::NAN,
+                grid_range: 0,
+                grid_row: 0,
+                along_m: f64::NAN,
+                across_m: f64::NAN,
+                net_ring: Vec::new(),
+            }
+        })
+        .collect()
+}
+
+fn main() {
+    let sizes: Vec<usize> = std::env::args()
+        .skip(1)
+        .filter_map(|a| a.parse().ok())
+        .collect();
+    let sizes = if sizes.is_empty() {
+        vec![24, 48, 100, 250]
+    } else {
+        sizes
+    };
+    let s = FitSettings {
+        check: "chk".into(),
+        blocks: false,
+        min_range_m: 0.0,
+        max_range_m: 0.0,
+        starts_per_axis: 3,
+        kernel: Kernel::Matern52,
+        grain_price_per_t: 0.0,
+        product_cost_per_ha: BTreeMap::new(),
+        t_ha_to_unit: 1.0,
+    };
+    println!("plots   seconds (one field, full hyperparameter integration)");
+    for n in sizes {
+        let plots = field(n, 7);
+        let t = Instant::now();
+        let out = run(&plots, &s).expect("fit");
+        println!("{n:5}   {:.2}", t.elapsed().as_secs_f64());
+        assert_eq!(out.plots.len(), n);
+    }
+}
