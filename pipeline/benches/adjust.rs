@@ -17,31 +17,15 @@ fn field(n: usize, seed: u64) -> Vec<PlotStats> {
         .map(|i| {
             let (x, y) = (18.0 * (i % cols) as f64, 66.0 * (i / cols) as f64);
             let trend = (x / 90.0).sin() + (y / 200.0).cos();
-            PlotStats {
-                plot_id: format!("p{i}"),
-                field: "F".into(),
-                treatment: ["chk", "a", "b", "c", "d", "e"][i % 6].into(),
-                block: (i / 6).to_string(),
-                status: "kept".into(),
-                reason: String::new(),
-                points: 30,
-                yield_mean: 11.0 + trend + 0.2 * rng.normal(),
-                yield_median: f64::NAN,
-                yield_trimmed_mean: f64::NAN,
-                yield_sd: f64::NAN,
-                moisture_mean_pct: f64::NAN,
-                centroid_x_m: x,
-                centroid_y_m: y,
-                area_m2: f64::NAN,
-                net_area_m2: f64::NAN,
-                harvested_m2: f64::NAN,
-                coverage: f64::NAN,
-                grid_range: 0,
-                grid_row: 0,
-                along_m: f64::NAN,
-                across_m: f64::NAN,
-                net_ring: Vec::new(),
-            }
+            PlotStats::from_yield(
+                &format!("p{i}"),
+                "F",
+                ["chk", "a", "b", "c", "d", "e"][i % 6],
+                &(i / 6).to_string(),
+                11.0 + trend + 0.2 * rng.normal(),
+                x,
+                y,
+            )
         })
         .collect()
 }

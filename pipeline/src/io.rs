@@ -633,31 +633,15 @@ pub fn read_plot_table(
             num(coords.0, "x_m/row")? * coords.2,
             num(coords.1, "y_m/range")? * coords.3,
         );
-        out.push(PlotStats {
-            plot_id: s(0),
-            field: s(1),
-            treatment: s(2),
-            block: s(3),
-            status: "kept".into(),
-            reason: String::new(),
-            points: 0,
-            yield_mean: num(idx[4], &ycol)?,
-            yield_median: f64::NAN,
-            yield_trimmed_mean: f64::NAN,
-            yield_sd: f64::NAN,
-            moisture_mean_pct: f64::NAN,
-            centroid_x_m: cx,
-            centroid_y_m: cy,
-            area_m2: f64::NAN,
-            net_area_m2: f64::NAN,
-            harvested_m2: f64::NAN,
-            coverage: f64::NAN,
-            grid_range: 0,
-            grid_row: 0,
-            along_m: f64::NAN,
-            across_m: f64::NAN,
-            net_ring: Vec::new(),
-        });
+        out.push(PlotStats::from_yield(
+            &s(0),
+            &s(1),
+            &s(2),
+            &s(3),
+            num(idx[4], &ycol)?,
+            cx,
+            cy,
+        ));
     }
     if out.is_empty() {
         bail!("{shown}: no plots");

@@ -1088,30 +1088,16 @@ mod tests {
 
     fn grid_plots(treatments: &[&str], yields: impl Fn(usize) -> f64) -> Vec<PlotStats> {
         (0..24)
-            .map(|i| PlotStats {
-                plot_id: format!("p{i}"),
-                field: "F".into(),
-                treatment: treatments[i % treatments.len()].into(),
-                block: (i / 6).to_string(),
-                status: "kept".into(),
-                reason: String::new(),
-                points: 30,
-                yield_mean: yields(i),
-                yield_median: f64::NAN,
-                yield_trimmed_mean: f64::NAN,
-                yield_sd: f64::NAN,
-                moisture_mean_pct: f64::NAN,
-                centroid_x_m: 18.0 * (i % 6) as f64,
-                centroid_y_m: 66.0 * (i / 6) as f64,
-                area_m2: 1000.0,
-                net_area_m2: 500.0,
-                harvested_m2: 500.0,
-                coverage: 1.0,
-                grid_range: (i / 6) as u32 + 1,
-                grid_row: (i % 6) as u32 + 1,
-                along_m: 0.0,
-                across_m: 0.0,
-                net_ring: Vec::new(),
+            .map(|i| {
+                PlotStats::from_yield(
+                    &format!("p{i}"),
+                    "F",
+                    treatments[i % treatments.len()],
+                    &(i / 6).to_string(),
+                    yields(i),
+                    18.0 * (i % 6) as f64,
+                    66.0 * (i / 6) as f64,
+                )
             })
             .collect()
     }

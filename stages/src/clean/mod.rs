@@ -956,6 +956,14 @@ mod tests {
         assert_eq!(modal_width(&[9.144, 9.144, 6.0, 9.144, 4.5]), 9.144);
     }
 
+    /// The rule that removed point `id`, if any.
+    fn rule_of(out: &CleanOutput, id: u64) -> Option<String> {
+        out.rejections
+            .iter()
+            .find(|r| r.id == id.to_string())
+            .map(|r| r.rule.clone())
+    }
+
     fn line(n: usize, speed: f64, heading_east: bool, t0: f64, x0: f64) -> Vec<Point> {
         (0..n)
             .map(|i| Point {
@@ -1013,12 +1021,7 @@ mod tests {
         pts[80].width_m = 4.0; // swath_fraction (4 < 0.9 x 9)
         pts[90].flow_kg_s = 30.0; // lands on point 88 after the 2 s shift: outlier
         let out = run(&set(pts), &s, &crop);
-        let rule = |id: u64| {
-            out.rejections
-                .iter()
-                .find(|r| r.id == id.to_string())
-                .map(|r| r.rule.clone())
-        };
+        let rule = |id: u64| rule_of(&out, id);
         assert_eq!(rule(30).as_deref(), Some("speed_min"));
         assert_eq!(rule(40).as_deref(), Some("gps_jump"));
         assert_eq!(rule(80).as_deref(), Some("swath_fraction"));
@@ -1089,12 +1092,7 @@ mod tests {
             pts[i].x_m = pts[i - 1].x_m + pts[i].speed_m_s * (pts[i].time_s - pts[i - 1].time_s);
         }
         let out = run(&set(pts), &s, &crop);
-        let rule = |id: u64| {
-            out.rejections
-                .iter()
-                .find(|r| r.id == id.to_string())
-                .map(|r| r.rule.clone())
-        };
+        let rule = |id: u64| rule_of(&out, id);
         assert_eq!(rule(5).as_deref(), Some("work_state_off"));
         assert_eq!(rule(10).as_deref(), Some("gps_duplicate"));
         assert_eq!(rule(9), None);
@@ -1157,12 +1155,7 @@ mod tests {
         pts[58].flow_kg_s = 8.5;
         pts[59].flow_kg_s = 5.0;
         let out = run(&set(pts), &s, &crop);
-        let rule = |id: u64| {
-            out.rejections
-                .iter()
-                .find(|r| r.id == id.to_string())
-                .map(|r| r.rule.clone())
-        };
+        let rule = |id: u64| rule_of(&out, id);
         for id in 0..4 {
             assert_eq!(rule(id).as_deref(), Some("pass_start"), "{id}");
         }

@@ -69,6 +69,46 @@ pub struct PlotStats {
     pub net_ring: Vec<(f64, f64)>,
 }
 
+impl PlotStats {
+    /// A kept plot known only by its yield and centre (plot-table entry, tests, benchmarks);
+    /// every monitor-derived statistic is NaN.
+    pub fn from_yield(
+        plot_id: &str,
+        field: &str,
+        treatment: &str,
+        block: &str,
+        yield_mean: f64,
+        x: f64,
+        y: f64,
+    ) -> Self {
+        PlotStats {
+            plot_id: plot_id.into(),
+            field: field.into(),
+            treatment: treatment.into(),
+            block: block.into(),
+            status: "kept".into(),
+            reason: String::new(),
+            points: 0,
+            yield_mean,
+            yield_median: f64::NAN,
+            yield_trimmed_mean: f64::NAN,
+            yield_sd: f64::NAN,
+            moisture_mean_pct: f64::NAN,
+            centroid_x_m: x,
+            centroid_y_m: y,
+            area_m2: f64::NAN,
+            net_area_m2: f64::NAN,
+            harvested_m2: f64::NAN,
+            coverage: f64::NAN,
+            grid_range: 0,
+            grid_row: 0,
+            along_m: f64::NAN,
+            across_m: f64::NAN,
+            net_ring: Vec::new(),
+        }
+    }
+}
+
 /// What the plots stage hands on.
 #[derive(Clone, Debug)]
 pub struct PlotsOutput {
