@@ -4,10 +4,9 @@
 //! Each field is a grid of 18 m x 66 m plots with six treatments, a smooth trend and noise;
 //! the time is for `adjust::run` on one field (search, 7x7x7 integration grid, mixtures).
 
-use plotsieve_stages::adjust::{run, FitSettings, Kernel};
+use plotsieve_stages::adjust::{run, FitSettings};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::util::Rng;
-use std::collections::BTreeMap;
 use std::time::Instant;
 
 fn field(n: usize, seed: u64) -> Vec<PlotStats> {
@@ -40,17 +39,7 @@ fn main() {
     } else {
         sizes
     };
-    let s = FitSettings {
-        check: "chk".into(),
-        blocks: false,
-        min_range_m: 0.0,
-        max_range_m: 0.0,
-        starts_per_axis: 3,
-        kernel: Kernel::Matern52,
-        grain_price_per_t: 0.0,
-        product_cost_per_ha: BTreeMap::new(),
-        t_ha_to_unit: 1.0,
-    };
+    let s = FitSettings::new("chk");
     println!("plots   seconds (one field, full hyperparameter integration)");
     for n in sizes {
         let plots = field(n, 7);

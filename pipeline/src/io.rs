@@ -4,7 +4,7 @@
 //! give the same bytes.
 
 use anyhow::{anyhow, bail, Context, Result};
-use plotsieve_stages::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
+use plotsieve_stages::adjust::{AdjustedPlot, Comparison, FieldHyper, Summary, TreatmentRow};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::table::{CleanPoint, DesignRow, PlotPolygon, Point, PointSet, Rejection};
 use plotsieve_stages::util::fmt;
@@ -732,6 +732,8 @@ pub fn write_treatments(path: &Path, rows: &[TreatmentRow], unit: &str) -> Resul
                 "hi95",
                 "uplift",
                 "uplift_sd",
+                "uplift_lo90",
+                "uplift_hi90",
                 "uplift_lo95",
                 "uplift_hi95",
             ]
@@ -743,6 +745,8 @@ pub fn write_treatments(path: &Path, rows: &[TreatmentRow], unit: &str) -> Resul
             format!("break_even_{unit}"),
             "p_uplift_gt_break_even".into(),
             "expected_net_return_per_ha".into(),
+            format!("prior_mean_{unit}"),
+            format!("prior_sd_{unit}"),
         ])
         .collect();
     let h: Vec<&str> = h.iter().map(|s| s.as_str()).collect();
@@ -759,12 +763,16 @@ pub fn write_treatments(path: &Path, rows: &[TreatmentRow], unit: &str) -> Resul
                 fmt(r.hi95, 6),
                 fmt(r.uplift, 6),
                 fmt(r.uplift_sd, 6),
+                fmt(r.uplift_lo90, 6),
+                fmt(r.uplift_hi90, 6),
                 fmt(r.uplift_lo95, 6),
                 fmt(r.uplift_hi95, 6),
                 fmt(r.p_uplift_gt0, 6),
                 fmt(r.break_even, 6),
                 fmt(r.p_uplift_gt_break_even, 6),
                 fmt(r.expected_net_return_per_ha, 2),
+                fmt(r.prior_mean, 6),
+                fmt(r.prior_sd, 6),
             ]
         }),
     )?;
@@ -785,7 +793,7 @@ pub fn read_treatments(path: &Path, unit: &str) -> Result<Vec<TreatmentRow>> {
     let mut out = Vec::new();
     for r in rdr.records() {
         let r = r?;
-        let n = |k: usize| -> f64 { r[k].parse().unwrap_or(f64::NAN) };
+        let n = |k: usize| -> f64 { r.get(k).and_then(|v| v.parse().ok()).unwrap_or(f64::NAN) };
         out.push(TreatmentRow {
             field: r[0].to_string(),
             treatment: r[1].to_string(),
@@ -796,12 +804,16 @@ pub fn read_treatments(path: &Path, unit: &str) -> Result<Vec<TreatmentRow>> {
             hi95: n(6),
             uplift: n(7),
             uplift_sd: n(8),
-            uplift_lo95: n(9),
-            uplift_hi95: n(10),
-            p_uplift_gt0: n(11),
-            break_even: n(12),
-            p_uplift_gt_break_even: n(13),
-            expected_net_return_per_ha: n(14),
+            uplift_lo90: n(9),
+            uplift_hi90: n(10),
+            uplift_lo95: n(11),
+            uplift_hi95: n(12),
+            p_uplift_gt0: n(13),
+            break_even: n(14),
+            p_uplift_gt_break_even: n(15),
+            expected_net_return_per_ha: n(16),
+            prior_mean: n(17),
+            prior_sd: n(18),
         });
     }
     Ok(out)
@@ -854,34 +866,50 @@ pub fn read_comparison(path: &Path) -> Result<Vec<Comparison>> {
 
 /// `hyperparameters.csv`.
 pub fn write_hyper(path: &Path, rows: &[FieldHyper], unit: &str) -> Result<()> {
-    let h = [
-        "field".to_string(),
-        "plots".into(),
-        "range_m".into(),
-        "range_lo95_m".into(),
-        "range_hi95_m".into(),
-        format!("spatial_sd_{unit}"),
-        format!("noise_sd_{unit}"),
-        "spatial_share".into(),
+    let mut h: Vec<String> = vec!["field".into(), "plots".into()];
+    let trio = |h: &mut Vec<String>, name: &str, suffix: &str| {
+        h.push(format!("{name}{suffix}"));
+        h.push(format!("{name}_lo95{suffix}"));
+        h.push(format!("{name}_hi95{suffix}"));
+    };
+    trio(&mut h, "range", "_m");
+    trio(&mut h, "range_across", "_m");
+    trio(&mut h, "spatial_sd", &format!("_{unit}"));
+    trio(&mut h, "noise_sd", &format!("_{unit}"));
+    trio(&mut h, "spatial_share", "");
+    trio(&mut h, "interaction_sd", &format!("_{unit}"));
+    h.extend([
         "log_marginal_likelihood".into(),
+        "method".into(),
         "warning".into(),
-    ];
+    ]);
     let h: Vec<&str> = h.iter().map(|s| s.as_str()).collect();
     let bytes = csv_bytes(
         &h,
         rows.iter().map(|r| {
-            vec![
-                r.field.clone(),
-                r.plots.to_string(),
-                fmt(r.range_m, 4),
-                fmt(r.range_lo95_m, 4),
-                fmt(r.range_hi95_m, 4),
-                fmt(r.spatial_sd, 6),
-                fmt(r.noise_sd, 6),
-                fmt(r.spatial_share, 6),
-                fmt(r.log_marginal_likelihood, 6),
-                r.warning.clone(),
-            ]
+            let mut v = vec![r.field.clone(), r.plots.to_string()];
+            let mut put = |s: Summary, d: usize| {
+                v.push(fmt(s.mean, d));
+                v.push(fmt(s.lo95, d));
+                v.push(fmt(s.hi95, d));
+            };
+            put(
+                Summary {
+                    mean: r.range_m,
+                    lo95: r.range_lo95_m,
+                    hi95: r.range_hi95_m,
+                },
+                4,
+            );
+            put(r.range_across, 4);
+            put(r.spatial_sd_ci, 6);
+            put(r.noise_sd_ci, 6);
+            put(r.spatial_share_ci, 6);
+            put(r.interaction_sd, 6);
+            v.push(fmt(r.log_marginal_likelihood, 6));
+            v.push(r.method.clone());
+            v.push(r.warning.clone());
+            v
         }),
     )?;
     write_atomic(path, &bytes)
@@ -892,17 +920,28 @@ pub fn read_hyper(path: &Path) -> Result<Vec<FieldHyper>> {
     let mut out = Vec::new();
     for r in records(path, "run stage adjust first")? {
         let n = |k: usize| -> f64 { r[k].parse().unwrap_or(f64::NAN) };
+        let s = |k: usize| Summary {
+            mean: n(k),
+            lo95: n(k + 1),
+            hi95: n(k + 2),
+        };
         out.push(FieldHyper {
             field: r[0].to_string(),
             plots: r[1].parse().unwrap_or(0),
             range_m: n(2),
             range_lo95_m: n(3),
             range_hi95_m: n(4),
-            spatial_sd: n(5),
-            noise_sd: n(6),
-            spatial_share: n(7),
-            log_marginal_likelihood: n(8),
-            warning: r[9].to_string(),
+            range_across: s(5),
+            spatial_sd: n(8),
+            spatial_sd_ci: s(8),
+            noise_sd: n(11),
+            noise_sd_ci: s(11),
+            spatial_share: n(14),
+            spatial_share_ci: s(14),
+            interaction_sd: s(17),
+            log_marginal_likelihood: n(20),
+            method: r[21].to_string(),
+            warning: r[22].to_string(),
         });
     }
     Ok(out)

@@ -288,15 +288,36 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
                     cfg.adjust.range_spacing_m,
                 )?
             };
+            let a = &cfg.adjust;
             let s = FitSettings {
                 check: cfg.trial.check.clone(),
-                blocks: cfg.adjust.blocks,
-                min_range_m: cfg.adjust.min_range_m,
-                max_range_m: cfg.adjust.max_range_m,
-                starts_per_axis: cfg.adjust.starts_per_axis as usize,
-                kernel: adjust::Kernel::from_name(&cfg.adjust.kernel).unwrap_or_default(),
-                grain_price_per_t: cfg.adjust.grain_price_per_t,
-                product_cost_per_ha: cfg.adjust.product_cost_per_ha.clone(),
+                blocks: a.blocks,
+                min_range_m: a.min_range_m,
+                max_range_m: a.max_range_m,
+                range_grid_points: a.range_grid_points as usize,
+                kernel: adjust::Kernel::from_name(&a.kernel).unwrap_or_default(),
+                anisotropic: a.anisotropic,
+                pooling: if a.pooling == "separate" {
+                    adjust::Pooling::Separate
+                } else {
+                    adjust::Pooling::Joint
+                },
+                shared_range: a.shared_range,
+                interaction: a.interaction,
+                interaction_sd_u: a.interaction_sd_u,
+                weak_prior_sd: a.weak_prior_sd,
+                product_prior: a
+                    .product_prior_mean
+                    .iter()
+                    .filter_map(|(k, m)| a.product_prior_sd.get(k).map(|sd| (k.clone(), (*m, *sd))))
+                    .collect(),
+                exact_max_plots: a.exact_max_plots as usize,
+                hsgp_max_basis: a.hsgp_max_basis as usize,
+                hsgp_boundary: a.hsgp_boundary_factor,
+                joint_draws: a.joint_draws as usize,
+                seed: a.seed as u64,
+                grain_price_per_t: a.grain_price_per_t,
+                product_cost_per_ha: a.product_cost_per_ha.clone(),
                 t_ha_to_unit: unit.from_kg_ha(1000.0, &crop),
             };
             let o = adjust::run(&plots, &s)?;
@@ -326,6 +347,12 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
             summary
                 .details
                 .insert("warnings".into(), serde_json::json!(o.warnings));
+            if o.joint_ess.is_finite() {
+                summary.details.insert(
+                    "joint_effective_draws".into(),
+                    serde_json::json!((o.joint_ess * 10.0).round() / 10.0),
+                );
+            }
             write_stage_tables(&dir, &rejections, &summary)?;
             Ok(summary)
         }

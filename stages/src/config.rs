@@ -22,7 +22,11 @@ pub const CROPS_TOML: &str = include_str!("../../config/crops.toml");
 /// Sections whose every key must appear in the defaults.
 const SETTINGS_SECTIONS: &[&str] = &["inputs", "ingest", "clean", "plots", "adjust", "report"];
 /// Settings tables whose keys are names chosen by the user.
-const FREE_TABLES: &[&str] = &["adjust.product_cost_per_ha"];
+const FREE_TABLES: &[&str] = &[
+    "adjust.product_cost_per_ha",
+    "adjust.product_prior_mean",
+    "adjust.product_prior_sd",
+];
 /// Keys of `inputs` that the trial file must give (they have no default).
 const TRIAL_INPUT_KEYS: &[&str] = &["monitor", "design"];
 
@@ -313,7 +317,20 @@ pub struct AdjustSettings {
     pub blocks: bool,
     pub min_range_m: f64,
     pub max_range_m: f64,
-    pub starts_per_axis: i64,
+    pub range_grid_points: i64,
+    pub anisotropic: bool,
+    pub pooling: String,
+    pub shared_range: bool,
+    pub interaction: bool,
+    pub interaction_sd_u: f64,
+    pub weak_prior_sd: f64,
+    pub product_prior_mean: BTreeMap<String, f64>,
+    pub product_prior_sd: BTreeMap<String, f64>,
+    pub exact_max_plots: i64,
+    pub hsgp_max_basis: i64,
+    pub hsgp_boundary_factor: f64,
+    pub joint_draws: i64,
+    pub seed: i64,
     pub grain_price_per_t: f64,
     pub product_cost_per_ha: BTreeMap<String, f64>,
     pub plot_table: String,
@@ -674,11 +691,60 @@ impl TrialConfig {
                 self.adjust.kernel
             ));
         }
-        if !(1..=9).contains(&self.adjust.starts_per_axis) {
+        let a = &self.adjust;
+        for (k, v, lo, hi) in [
+            ("adjust.range_grid_points", a.range_grid_points, 3, 40),
+            ("adjust.exact_max_plots", a.exact_max_plots, 10, 5000),
+            ("adjust.hsgp_max_basis", a.hsgp_max_basis, 16, 2500),
+            ("adjust.joint_draws", a.joint_draws, 100, 1_000_000),
+        ] {
+            if !(lo..=hi).contains(&v) {
+                p.push(format!("{k} must be between {lo} and {hi} (got {v})"));
+            }
+        }
+        if !["joint", "separate"].contains(&a.pooling.as_str()) {
             p.push(format!(
-                "adjust.starts_per_axis must be between 1 and 9 (got {})",
-                self.adjust.starts_per_axis
+                "adjust.pooling must be \"joint\" or \"separate\" (got {:?})",
+                a.pooling
             ));
+        }
+        if !(a.hsgp_boundary_factor >= 1.0) {
+            p.push(format!(
+                "adjust.hsgp_boundary_factor must be at least 1 (got {})",
+                a.hsgp_boundary_factor
+            ));
+        }
+        for (k, v) in [
+            ("adjust.interaction_sd_u", a.interaction_sd_u),
+            ("adjust.weak_prior_sd", a.weak_prior_sd),
+        ] {
+            if !(v >= 0.0) || !v.is_finite() {
+                p.push(format!("{k} must be a finite number >= 0 (got {v})"));
+            }
+        }
+        for (k, v) in &a.product_prior_sd {
+            if !(*v > 0.0) || !v.is_finite() {
+                p.push(format!(
+                    "adjust.product_prior_sd.{k} must be above 0 (got {v})"
+                ));
+            }
+            if !a.product_prior_mean.contains_key(k) {
+                p.push(format!(
+                    "adjust.product_prior_sd.{k} has no adjust.product_prior_mean.{k}"
+                ));
+            }
+        }
+        for (k, v) in &a.product_prior_mean {
+            if !v.is_finite() {
+                p.push(format!(
+                    "adjust.product_prior_mean.{k} must be a finite number"
+                ));
+            }
+            if !a.product_prior_sd.contains_key(k) {
+                p.push(format!(
+                    "adjust.product_prior_mean.{k} has no adjust.product_prior_sd.{k}"
+                ));
+            }
         }
         let pl = &self.plots;
         for (k, v) in [

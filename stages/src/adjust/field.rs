@@ -1,0 +1,297 @@
+//! One field's model and the numerical integration over its hyperparameters.
+//!
+//! Hyperparameters, all on the log scale: the length scale (one, or one along and one across
+//! the plot grid with anisotropy), the spatial SD s_f and the noise SD s_n. Priors are
+//! penalised-complexity priors (Fuglstad et al. 2019, JASA 114:445): in 2-D, 1/l ~ Exp(l1) with
+//! l1 = -ln(0.05) x rho0, so P(l < rho0) = 0.05, rho0 = the smallest distance between plot
+//! centres (per axis with anisotropy: a simplification, each axis with its own smallest
+//! spacing); each SD ~ Exp(l2) with P(SD > 2 x SD of the plot yields) = 0.05.
+//!
+//! Integration (in the spirit of Rue, Martino & Chopin 2009, JRSS-B 71:319): the length
+//! scale on a lattice in log space, coarse over its bounds and then refined (three times finer
+//! in 1-D, twice in 2-D) over the box holding the mass; at each length scale the kernel is put
+//! in spectral form once (see `spectral`) and (s_f, s_n) are integrated on a lattice around
+//! their conditional mode, spaced 0.75 conditional SDs and widened until its edges hold less
+//! than 1e-4 of the peak. Every point carries its weight (prior x likelihood x cell volume).
+
+use super::spectral::{Design, Inner, Method, Repr};
+use std::collections::BTreeMap;
+
+/// -ln(0.05): the PC priors' tail probability 0.05 on the log scale.
+pub const PC_ALPHA_LN: f64 = 2.995_732_273_553_991;
+
+/// One point of the (s_f, s_n) lattice at a length scale.
+#[derive(Clone, Debug)]
+pub struct Point {
+    /// log prior of (s_f, s_n) + REML + log cell volume (without the length scale's prior).
+    pub lw: f64,
+    /// ln l0, ln l1, ln s_f, ln s_n.
+    pub theta: [f64; 4],
+    pub fit: Inner,
+}
+
+/// All points at one length scale.
+pub struct Node {
+    /// Length scales (l0, l1), metres (equal without anisotropy).
+    pub l: (f64, f64),
+    /// log Sum exp(lw) over the points.
+    pub lz: f64,
+    pub points: Vec<Point>,
+    pub repr: Option<Repr>,
+    /// Reduced rank: basis functions per axis and whether the size cap bound.
+    pub basis: Option<(usize, usize, bool)>,
+}
+
+/// A field ready to fit.
+pub struct FieldModel {
+    pub name: String,
+    pub design: Design,
+    /// Check first, then the products in order.
+    pub treatments: Vec<String>,
+    pub sy: f64,
+    pub dmin: f64,
+    pub anisotropic: bool,
+    /// Log bounds of the length scale per axis.
+    pub bounds: [(f64, f64); 2],
+    /// Smallest spacing per axis (the PC prior's rho0).
+    pub rho0: (f64, f64),
+    pub method: Method,
+    pub nodes: BTreeMap<(i64, i64), Node>,
+}
+
+impl FieldModel {
+    /// log prior of the length scale(s) on the log scale.
+    pub fn log_prior_range(&self, l: (f64, f64), rho0: (f64, f64)) -> f64 {
+        let one = |l: f64, r0: f64| {
+            let lam = PC_ALPHA_LN * r0;
+            lam.ln() - lam / l - l.ln()
+        };
+        if self.anisotropic {
+            one(l.0, rho0.0) + one(l.1, rho0.1)
+        } else {
+            one(l.0, rho0.0)
+        }
+    }
+
+    /// log prior of (s_f, s_n) on the log scale.
+    pub fn log_prior_sd(&self, lsf: f64, lsn: f64) -> f64 {
+        let lam = PC_ALPHA_LN / (2.0 * self.sy);
+        2.0 * lam.ln() - lam * (lsf.exp() + lsn.exp()) + lsf + lsn
+    }
+
+    /// Builds the spectral form at length scales `l`.
+    pub fn repr(&self, l: (f64, f64)) -> Option<Repr> {
+        match self.method {
+            Method::Exact => Repr::exact(&self.design, l),
+            Method::Hsgp {
+                max_basis,
+                min_boundary,
+            } => Repr::hsgp(&self.design, l, max_basis, min_boundary),
+        }
+    }
+
+    /// Integrates (s_f, s_n) at length scales `l` (see the module notes). `warm` is a nearby
+    /// conditional mode to start the search from.
+    pub fn node(&self, l: (f64, f64), warm: Option<[f64; 2]>) -> Node {
+        let Some(repr) = self.repr(l) else {
+            return Node {
+                l,
+                lz: f64::NEG_INFINITY,
+                points: Vec::new(),
+                repr: None,
+                basis: None,
+            };
+        };
+        let (lo, hi) = ((1e-4 * self.sy).ln(), (20.0 * self.sy).ln());
+        let lp = |t: &[f64]| -> f64 {
+            if t.iter().any(|v| *v < lo || *v > hi) {
+                return f64::NEG_INFINITY;
+            }
+            match repr.evaluate(t[0].exp(), t[1].exp()) {
+                Some(e) => e.reml + self.log_prior_sd(t[0], t[1]),
+                None => f64::NEG_INFINITY,
+            }
+        };
+        let start = warm.unwrap_or([(0.7 * self.sy).ln(), (0.7 * self.sy).ln()]);
+        let (mode, _) = super::nelder_mead(&|t| -lp(t), &start, 0.4, 200);
+        let lp0 = lp(&mode);
+        let h = 0.05;
+        let sd: Vec<f64> = (0..2)
+            .map(|k| {
+                let mut up = mode.clone();
+                let mut dn = mode.clone();
+                up[k] += h;
+                dn[k] -= h;
+                let d2 = (lp(&up) - 2.0 * lp0 + lp(&dn)) / (h * h);
+                if d2.is_finite() && d2 < 0.0 {
+                    (1.0 / (-d2).sqrt()).clamp(0.03, 2.0)
+                } else {
+                    0.5
+                }
+            })
+            .collect();
+        let step = [0.75 * sd[0], 0.75 * sd[1]];
+        // The lattice i, j in [lo_k, hi_k], widened by 3 on a side whose edge holds more than
+        // 1e-4 of the peak (at most 30 steps from the mode).
+        let mut ext = [[-4i64, 4], [-4, 4]];
+        let mut cache: BTreeMap<(i64, i64), Option<(f64, Inner)>> = BTreeMap::new();
+        let at = |i: i64, j: i64| [mode[0] + i as f64 * step[0], mode[1] + j as f64 * step[1]];
+        for _ in 0..12 {
+            for i in ext[0][0]..=ext[0][1] {
+                for j in ext[1][0]..=ext[1][1] {
+                    cache.entry((i, j)).or_insert_with(|| {
+                        let t = at(i, j);
+                        if t.iter().any(|v| *v < lo || *v > hi) {
+                            return None;
+                        }
+                        let e = repr.evaluate(t[0].exp(), t[1].exp())?;
+                        Some((e.reml + self.log_prior_sd(t[0], t[1]), e))
+                    });
+                }
+            }
+            let value = |i: i64, j: i64| {
+                cache
+                    .get(&(i, j))
+                    .and_then(|v| v.as_ref().map(|x| x.0))
+                    .unwrap_or(f64::NEG_INFINITY)
+            };
+            let peak = cache
+                .values()
+                .filter_map(|v| v.as_ref().map(|x| x.0))
+                .fold(f64::NEG_INFINITY, f64::max);
+            let mut grow = [[false; 2]; 2];
+            for (axis, g) in grow.iter_mut().enumerate() {
+                for (side, gs) in g.iter_mut().enumerate() {
+                    let fixed = ext[axis][side];
+                    let (a, b) = (ext[1 - axis][0], ext[1 - axis][1]);
+                    let e = (a..=b)
+                        .map(|o| {
+                            if axis == 0 {
+                                value(fixed, o)
+                            } else {
+                                value(o, fixed)
+                            }
+                        })
+                        .fold(f64::NEG_INFINITY, f64::max);
+                    *gs = e > peak - 9.2 && fixed.abs() < 30;
+                }
+            }
+            if !grow.iter().flatten().any(|g| *g) {
+                break;
+            }
+            for axis in 0..2 {
+                if grow[axis][0] {
+                    ext[axis][0] -= 3;
+                }
+                if grow[axis][1] {
+                    ext[axis][1] += 3;
+                }
+            }
+        }
+        let vol = (step[0] * step[1]).ln();
+        let (ll0, ll1) = (l.0.ln(), l.1.ln());
+        let mut points: Vec<Point> = cache
+            .into_iter()
+            .filter_map(|((i, j), v)| {
+                let (v, fit) = v?;
+                Some(Point {
+                    lw: v + vol,
+                    theta: [
+                        ll0,
+                        ll1,
+                        mode[0] + i as f64 * step[0],
+                        mode[1] + j as f64 * step[1],
+                    ],
+                    fit,
+                })
+            })
+            .collect();
+        let top = points
+            .iter()
+            .map(|p| p.lw)
+            .fold(f64::NEG_INFINITY, f64::max);
+        points.retain(|p| p.lw > top - 16.0);
+        let lz = log_sum_exp(points.iter().map(|p| p.lw));
+        let basis = repr.basis;
+        Node {
+            l,
+            lz,
+            points,
+            repr: Some(repr),
+            basis,
+        }
+    }
+
+    /// The conditional mode of (ln s_f, ln s_n) at a node: a warm start for its neighbour.
+    pub fn node_mode(node: &Node) -> Option<[f64; 2]> {
+        node.points
+            .iter()
+            .max_by(|a, b| a.lw.total_cmp(&b.lw))
+            .map(|p| [p.theta[2], p.theta[3]])
+    }
+}
+
+/// log Sum exp(v), -inf for none.
+pub fn log_sum_exp(v: impl Iterator<Item = f64>) -> f64 {
+    let v: Vec<f64> = v.collect();
+    let m = v.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+    if !m.is_finite() {
+        return m;
+    }
+    m + v.iter().map(|x| (x - m).exp()).sum::<f64>().ln()
+}
+
+/// The lattice of length-scale nodes: coarse over the bounds, then refined over the box that
+/// holds the mass. `dims` is 1 or 2; `masses` evaluates a batch of lattice nodes (integer
+/// coordinates on the fine lattice) and returns each one's log mass (prior + log Z). Returns
+/// the fine nodes of the box, the fine spacing per axis and whether the box touches a bound.
+pub fn range_lattice(
+    dims: usize,
+    bounds: [(f64, f64); 2],
+    coarse: usize,
+    masses: &mut dyn FnMut(&[(i64, i64)]) -> Vec<f64>,
+) -> (Vec<(i64, i64)>, [f64; 2], [bool; 2]) {
+    let refine: i64 = if dims == 1 { 3 } else { 2 };
+    let nc = coarse.max(3) as i64;
+    let h: Vec<f64> = (0..2)
+        .map(|d| (bounds[d].1 - bounds[d].0) / ((nc - 1) * refine) as f64)
+        .collect();
+    let span1 = if dims == 2 { nc } else { 1 };
+    let coarse_nodes: Vec<(i64, i64)> = (0..nc)
+        .flat_map(|i| (0..span1).map(move |j| (i * refine, j * refine)))
+        .collect();
+    let m = masses(&coarse_nodes);
+    let top = m.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+    let sig: Vec<(i64, i64)> = coarse_nodes
+        .iter()
+        .zip(&m)
+        .filter(|(_, v)| **v > top - 10.0)
+        .map(|(n, _)| *n)
+        .collect();
+    let maxc = (nc - 1) * refine;
+    let lo0 = (sig.iter().map(|n| n.0).min().unwrap_or(0) - refine).max(0);
+    let hi0 = (sig.iter().map(|n| n.0).max().unwrap_or(maxc) + refine).min(maxc);
+    let (lo1, hi1) = if dims == 2 {
+        (
+            (sig.iter().map(|n| n.1).min().unwrap_or(0) - refine).max(0),
+            (sig.iter().map(|n| n.1).max().unwrap_or(maxc) + refine).min(maxc),
+        )
+    } else {
+        (0, 0)
+    };
+    let fine: Vec<(i64, i64)> = (lo0..=hi0)
+        .flat_map(|i| (lo1..=hi1).map(move |j| (i, j)))
+        .collect();
+    let new: Vec<(i64, i64)> = fine
+        .iter()
+        .filter(|n| !coarse_nodes.contains(n))
+        .cloned()
+        .collect();
+    masses(&new);
+    // The box touches a bound where mass is not negligible there.
+    let at_bound = [
+        sig.iter().any(|n| n.0 == 0 || n.0 == maxc),
+        dims == 2 && sig.iter().any(|n| n.1 == 0 || n.1 == maxc),
+    ];
+    (fine, [h[0], h[1]], at_bound)
+}

@@ -1,0 +1,266 @@
+//! The treatment-level equations that join fields.
+//!
+//! Within a field, given its hyperparameters, the likelihood of the plot yields factorises
+//! exactly into the REML likelihood and a Gaussian in the field's GLS estimates:
+//! N(y; X b, K_y) = REML(theta) x N(b; b_hat, (X' K_y^-1 X)^-1) (R&W 2006 section 2.7). With
+//! flat priors on the field mean and block effects, the field therefore speaks to the
+//! treatment contrasts only through c_hat ~ N(delta, V), V the contrast block of the GLS
+//! covariance. The fields share the product effects beta with a Gaussian prior N(m0, S0) and
+//! may differ by a treatment x field interaction: delta_f = H_f beta + u_f, u_f ~ N(0, s^2 I)
+//! (H_f picks the products the field holds). This is the Woodbury identity applied to
+//! K_y + Z s^2 Z' and X S0 X': the n x n problem reduces to sums of p x p matrices,
+//!
+//!   W_f = V_f + s^2 I,  Prec = S0^-1 + Sum_f H_f' W_f^-1 H_f,  h = S0^-1 m0 + Sum_f H_f' W_f^-1 c_f,
+//!   beta | . ~ N(Prec^-1 h, Prec^-1),
+//!   log C = Sum_f log N(c_f; 0, W_f) - 1/2 (log|S0| + m0' S0^-1 m0 + log|Prec| - h' Prec^-1 h),
+//!
+//! and log p(y | all hyperparameters) = Sum_f REML_f + log C. Each field's own effects are
+//! delta_f | . with mean c_f - G_f (c_f - H_f m_beta) and covariance V_f - G_f V_f +
+//! G_f H_f S_beta H_f' G_f', G_f = V_f W_f^-1 (no division by s, so s = 0 is the shared-effect
+//! model). The field mean b0 follows from its regression on the contrasts within the field.
+
+use super::linalg;
+use super::spectral::Inner;
+
+/// The prior on the product effects (global product order): means and variances.
+#[derive(Clone, Debug)]
+pub struct EffectPrior {
+    pub mean: Vec<f64>,
+    pub var: Vec<f64>,
+}
+
+/// Which global products a field holds: its treatments 1..T map to `index`.
+#[derive(Clone, Debug)]
+pub struct FieldMap {
+    pub index: Vec<usize>,
+}
+
+/// Moments of one component (one set of hyperparameters) of the posterior.
+#[derive(Clone, Debug)]
+pub struct Component {
+    pub log_c: f64,
+    /// Product effects (global order): means and variances.
+    pub beta_mean: Vec<f64>,
+    pub beta_var: Vec<f64>,
+    /// Per field: uplift of each of its products (mean, variance), and each treatment's
+    /// mean yield (check first) (mean, variance).
+    pub delta: Vec<Vec<(f64, f64)>>,
+    pub est: Vec<Vec<(f64, f64)>>,
+}
+
+/// Joins one GLS fit per field at interaction SD `s`. `moments` = false computes log C only.
+pub fn combine(
+    fits: &[&Inner],
+    maps: &[FieldMap],
+    prior: &EffectPrior,
+    s: f64,
+    moments: bool,
+) -> Option<Component> {
+    let np = prior.mean.len();
+    let ln2pi = (2.0 * std::f64::consts::PI).ln();
+    let mut prec = vec![0.0; np * np];
+    let mut h = vec![0.0; np];
+    for k in 0..np {
+        prec[k * np + k] = 1.0 / prior.var[k];
+        h[k] = prior.mean[k] / prior.var[k];
+    }
+    let mut log_c = -0.5
+        * (0..np)
+            .map(|k| prior.var[k].ln() + prior.mean[k].powi(2) / prior.var[k])
+            .sum::<f64>();
+    struct Local {
+        c: Vec<f64>,
+        v: Vec<f64>,
+        wi: Vec<f64>,
+    }
+    let mut locals = Vec::with_capacity(fits.len());
+    for (fit, map) in fits.iter().zip(maps) {
+        let d = map.index.len();
+        let p = (fit.cov.len() as f64).sqrt().round() as usize;
+        let idx: Vec<usize> = (1..=d).collect();
+        let c: Vec<f64> = idx.iter().map(|&i| fit.b[i]).collect();
+        let v = linalg::sub(&fit.cov, p, &idx);
+        let mut w = v.clone();
+        for a in 0..d {
+            w[a * d + a] += s * s;
+        }
+        let lw = linalg::chol(&w, d)?;
+        let wi = linalg::inverse(&lw, d);
+        let mut wic = c.clone();
+        linalg::solve(&lw, d, &mut wic);
+        log_c -= 0.5
+            * (d as f64 * ln2pi
+                + linalg::logdet(&lw, d)
+                + c.iter().zip(&wic).map(|(x, y)| x * y).sum::<f64>());
+        for a in 0..d {
+            h[map.index[a]] += wic[a];
+            for b in 0..d {
+                prec[map.index[a] * np + map.index[b]] += wi[a * d + b];
+            }
+        }
+        locals.push(Local { c, v, wi });
+    }
+    let lp = linalg::chol(&prec, np)?;
+    let mut mb = h.clone();
+    linalg::solve(&lp, np, &mut mb);
+    log_c -= 0.5 * (linalg::logdet(&lp, np) - h.iter().zip(&mb).map(|(x, y)| x * y).sum::<f64>());
+    if !moments {
+        return Some(Component {
+            log_c,
+            beta_mean: Vec::new(),
+            beta_var: Vec::new(),
+            delta: Vec::new(),
+            est: Vec::new(),
+        });
+    }
+    let sb = linalg::inverse(&lp, np);
+    let mut delta = Vec::with_capacity(fits.len());
+    let mut est = Vec::with_capacity(fits.len());
+    for ((fit, map), loc) in fits.iter().zip(maps).zip(&locals) {
+        let d = map.index.len();
+        let p = (fit.cov.len() as f64).sqrt().round() as usize;
+        let g = linalg::matmul(&loc.v, &loc.wi, d, d, d);
+        let hm: Vec<f64> = map.index.iter().map(|&k| mb[k]).collect();
+        let diff: Vec<f64> = (0..d).map(|a| loc.c[a] - hm[a]).collect();
+        let gd = linalg::matmul(&g, &diff, d, d, 1);
+        let dm: Vec<f64> = (0..d).map(|a| loc.c[a] - gd[a]).collect();
+        let gv = linalg::matmul(&g, &loc.v, d, d, d);
+        let hsh: Vec<f64> = (0..d * d)
+            .map(|k| sb[map.index[k / d] * np + map.index[k % d]])
+            .collect();
+        let ghsh = linalg::matmul(&g, &hsh, d, d, d);
+        let gt: Vec<f64> = (0..d * d).map(|k| g[(k % d) * d + k / d]).collect();
+        let ghshg = linalg::matmul(&ghsh, &gt, d, d, d);
+        let dc: Vec<f64> = (0..d * d).map(|k| loc.v[k] - gv[k] + ghshg[k]).collect();
+        // The field mean given its contrasts: b0 = b0_hat + g'(delta - c_hat), g = V^-1 cov(c, b0).
+        let cov_cb0: Vec<f64> = (1..=d).map(|i| fit.cov[i * p]).collect();
+        let lv = linalg::chol(&loc.v, d)?;
+        let mut gb = cov_cb0.clone();
+        linalg::solve(&lv, d, &mut gb);
+        let b0_mean = fit.b[0] + (0..d).map(|a| gb[a] * (dm[a] - loc.c[a])).sum::<f64>();
+        let gvg: f64 = (0..d).map(|a| gb[a] * cov_cb0[a]).sum();
+        let dcg = linalg::matmul(&dc, &gb, d, d, 1);
+        let gdcg: f64 = (0..d).map(|a| gb[a] * dcg[a]).sum();
+        let b0_var = (fit.cov[0] - gvg + gdcg).max(0.0);
+        let mut e = vec![(b0_mean, b0_var)];
+        for a in 0..d {
+            e.push((
+                b0_mean + dm[a],
+                (b0_var + dc[a * d + a] + 2.0 * dcg[a]).max(0.0),
+            ));
+        }
+        delta.push((0..d).map(|a| (dm[a], dc[a * d + a].max(0.0))).collect());
+        est.push(e);
+    }
+    Some(Component {
+        log_c,
+        beta_mean: mb,
+        beta_var: (0..np).map(|k| sb[k * np + k].max(0.0)).collect(),
+        delta,
+        est,
+    })
+}
+
+/// A weighted mixture of normals: moments, CDF and quantiles.
+#[derive(Clone, Debug, Default)]
+pub struct Mixture {
+    /// (weight, mean, variance), weights summing to one.
+    pub parts: Vec<(f64, f64, f64)>,
+}
+
+impl Mixture {
+    pub fn new(parts: Vec<(f64, f64, f64)>) -> Mixture {
+        let total: f64 = parts.iter().map(|p| p.0).sum();
+        Mixture {
+            parts: parts
+                .into_iter()
+                .map(|(w, m, v)| (w / total, m, v.max(1e-300)))
+                .collect(),
+        }
+    }
+    pub fn mean(&self) -> f64 {
+        self.parts.iter().map(|(w, m, _)| w * m).sum()
+    }
+    pub fn var(&self) -> f64 {
+        let m = self.mean();
+        (self
+            .parts
+            .iter()
+            .map(|(w, mu, v)| w * (v + mu * mu))
+            .sum::<f64>()
+            - m * m)
+            .max(0.0)
+    }
+    pub fn cdf(&self, x: f64) -> f64 {
+        self.parts
+            .iter()
+            .map(|(w, m, v)| w * crate::util::normal_cdf((x - m) / v.sqrt()))
+            .sum()
+    }
+    /// The q quantile by bisection within the components' own 10-SD spans.
+    pub fn quantile(&self, q: f64) -> f64 {
+        let lo0 = self
+            .parts
+            .iter()
+            .map(|(_, m, v)| m - 10.0 * v.sqrt())
+            .fold(f64::INFINITY, f64::min);
+        let hi0 = self
+            .parts
+            .iter()
+            .map(|(_, m, v)| m + 10.0 * v.sqrt())
+            .fold(f64::NEG_INFINITY, f64::max);
+        let (mut lo, mut hi) = (lo0, hi0);
+        for _ in 0..60 {
+            let mid = 0.5 * (lo + hi);
+            if self.cdf(mid) < q {
+                lo = mid
+            } else {
+                hi = mid
+            }
+            if hi - lo < 1e-10 * (1.0 + mid.abs()) {
+                break;
+            }
+        }
+        0.5 * (lo + hi)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn one_field_without_interaction_is_the_conjugate_normal_update() {
+        // One field, one product: c_hat = 1.0 with variance 0.25, prior N(0.5, 1):
+        // posterior precision 4 + 1 = 5, mean (4 x 1 + 0.5) / 5 = 0.9, variance 0.2;
+        // log C = log N(1; 0.5, 1.25) (arithmetic).
+        let fit = Inner {
+            reml: 0.0,
+            b: vec![10.0, 1.0],
+            cov: vec![0.2, -0.1, -0.1, 0.25],
+        };
+        let prior = EffectPrior {
+            mean: vec![0.5],
+            var: vec![1.0],
+        };
+        let map = FieldMap { index: vec![0] };
+        let c = combine(&[&fit], &[map], &prior, 0.0, true).unwrap();
+        assert!((c.beta_mean[0] - 0.9).abs() < 1e-12);
+        assert!((c.beta_var[0] - 0.2).abs() < 1e-12);
+        let ln = -0.5 * ((2.0 * std::f64::consts::PI * 1.25).ln() + 0.25 / 1.25);
+        assert!((c.log_c - ln).abs() < 1e-12);
+        assert!((c.delta[0][0].0 - 0.9).abs() < 1e-12);
+        // b0 | c: regression slope cov(c, b0) / V = -0.4: 10 - 0.4 x (0.9 - 1) = 10.04.
+        assert!((c.est[0][0].0 - 10.04).abs() < 1e-12);
+        // var b0 = 0.2 - 0.1^2 / 0.25 + 0.4^2 x 0.2 = 0.192.
+        assert!((c.est[0][0].1 - 0.192).abs() < 1e-12);
+    }
+
+    #[test]
+    fn mixture_quantiles_of_one_normal() {
+        let m = Mixture::new(vec![(2.0, 1.0, 4.0)]);
+        assert!((m.quantile(0.975) - (1.0 + 2.0 * 1.959_964)).abs() < 1e-5);
+        assert!((m.cdf(1.0) - 0.5).abs() < 1e-7);
+        assert!((m.var() - 4.0).abs() < 1e-12);
+    }
+}
