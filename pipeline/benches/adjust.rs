@@ -1,27 +1,37 @@
-//! Benchmark: the adjust stage (GP fit with hyperparameter integration) on synthetic fields.
+//! Benchmark: the adjust stage (GP fit with full hyperparameter integration) on synthetic
+//! fields.
 //!
-//! Run: `cargo bench -p plotsieve --bench adjust` (add `-- 50 100 250` for other sizes).
-//! Each field is a grid of 18 m x 66 m plots with six treatments, a smooth trend and noise;
-//! the time is for `adjust::run` on one field (search, 7x7x7 integration grid, mixtures).
+//! Run: `cargo bench -p plotsieve --bench adjust` (add `-- single`, `-- large` or `-- season`
+//! for one part). Fields are near-square grids of 18 m x 66 m plots with six treatments, a
+//! smooth trend (wavelengths of a few hundred metres) and noise.
+//!
+//! - single: one field of 24 to 600 plots, exact kernel and reduced-rank basis side by side
+//!   (the crossover), with the reduced-rank uplift's difference from the exact one in units
+//!   of its SD;
+//! - large: one field of 1,000 plots (reduced rank, the default above 600 plots);
+//! - season: 20 fields x 250 plots fitted jointly (shared range, interaction SD).
 
-use plotsieve_stages::adjust::{run, FitSettings};
+use plotsieve_stages::adjust::{run, AdjustOutput, FitSettings};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::util::Rng;
 use std::time::Instant;
 
-fn field(n: usize, seed: u64) -> Vec<PlotStats> {
+fn field(name: &str, n: usize, seed: u64) -> Vec<PlotStats> {
     let mut rng = Rng::new(seed);
-    let cols = 12;
+    let cols = ((n as f64 * 66.0 / 18.0).sqrt().round() as usize).max(3);
+    let phase = rng.range(0.0, 6.0);
     (0..n)
         .map(|i| {
             let (x, y) = (18.0 * (i % cols) as f64, 66.0 * (i / cols) as f64);
-            let trend = (x / 90.0).sin() + (y / 200.0).cos();
+            let trend = (x / 90.0 + phase).sin() + (y / 200.0).cos();
+            let t = ["chk", "a", "b", "c", "d", "e"][(i + i / cols) % 6];
+            let effect = if t == "a" { 0.3 } else { 0.0 };
             PlotStats::from_yield(
-                &format!("p{i}"),
-                "F",
-                ["chk", "a", "b", "c", "d", "e"][i % 6],
+                &format!("{name}-{i}"),
+                name,
+                t,
                 &(i / 6).to_string(),
-                11.0 + trend + 0.2 * rng.normal(),
+                11.0 + trend + effect + 0.25 * rng.normal(),
                 x,
                 y,
             )
@@ -29,23 +39,76 @@ fn field(n: usize, seed: u64) -> Vec<PlotStats> {
         .collect()
 }
 
+fn timed(plots: &[PlotStats], s: &FitSettings) -> (f64, AdjustOutput) {
+    let t = Instant::now();
+    let out = run(plots, s).expect("fit");
+    (t.elapsed().as_secs_f64(), out)
+}
+
+fn uplift(out: &AdjustOutput, field: &str, t: &str) -> (f64, f64) {
+    let r = out
+        .treatments
+        .iter()
+        .find(|r| r.field == field && r.treatment == t)
+        .expect("row");
+    (r.uplift, r.uplift_sd)
+}
+
 fn main() {
-    let sizes: Vec<usize> = std::env::args()
-        .skip(1)
-        .filter_map(|a| a.parse().ok())
-        .collect();
-    let sizes = if sizes.is_empty() {
-        vec![24, 48, 100, 250]
-    } else {
-        sizes
-    };
-    let s = FitSettings::new("chk");
-    println!("plots   seconds (one field, full hyperparameter integration)");
-    for n in sizes {
-        let plots = field(n, 7);
-        let t = Instant::now();
-        let out = run(&plots, &s).expect("fit");
-        println!("{n:5}   {:.2}", t.elapsed().as_secs_f64());
-        assert_eq!(out.plots.len(), n);
+    let part: Option<String> = std::env::args().skip(1).find(|a| !a.starts_with('-'));
+    let want = |p: &str| part.as_deref().is_none_or(|x| x == p);
+    if want("single") {
+        println!("plots  exact s  reduced-rank s  basis        |uplift diff| / sd");
+        for n in [24, 48, 100, 250, 400, 600] {
+            let plots = field("F", n, 7);
+            let mut s = FitSettings::new("chk");
+            s.exact_max_plots = usize::MAX;
+            let (te, ex) = timed(&plots, &s);
+            s.exact_max_plots = 0;
+            let (th, hs) = timed(&plots, &s);
+            let (ue, se) = uplift(&ex, "F", "a");
+            let (uh, _) = uplift(&hs, "F", "a");
+            println!(
+                "{n:5}  {te:7.2}  {th:14.2}  {:12} {:.3}",
+                hs.hyper[0].method,
+                (ue - uh).abs() / se
+            );
+        }
+    }
+    if want("large") {
+        let plots = field("F", 1000, 9);
+        let s = FitSettings::new("chk");
+        let (t, out) = timed(&plots, &s);
+        println!(
+            "1000 plots, one field: {t:.2} s ({}; range {:.0} m)",
+            out.hyper[0].method, out.hyper[0].range_m
+        );
+    }
+    if want("season") {
+        let plots: Vec<PlotStats> = (0..20)
+            .flat_map(|f| field(&format!("F{f:02}"), 250, 100 + f))
+            .collect();
+        let mut s = FitSettings::new("chk");
+        if std::env::var("SEP").is_ok() {
+            s.pooling = plotsieve_stages::adjust::Pooling::Separate;
+            let (t, _) = timed(&plots, &s);
+            println!("separate {t:.2}");
+            s.pooling = plotsieve_stages::adjust::Pooling::Joint;
+            s.shared_range = false;
+            let (t, _) = timed(&plots, &s);
+            println!("joint per-field range {t:.2}");
+            s.shared_range = true;
+        }
+        let (t, out) = timed(&plots, &s);
+        let all = out
+            .hyper
+            .iter()
+            .find(|h| h.field == "all")
+            .expect("joint row");
+        let (u, sd) = uplift(&out, "all", "a");
+        println!(
+            "20 fields x 250 plots, joint: {t:.2} s ({}; shared range {:.0} m; pooled uplift of a {u:.3} +- {sd:.3}, true 0.3)",
+            all.method, all.range_m
+        );
     }
 }

@@ -152,6 +152,17 @@ pub fn normal_cdf(x: f64) -> f64 {
     0.5 * erfc(-x / std::f64::consts::SQRT_2)
 }
 
+/// Upper-tail normal quantile z with P(Z > z) = p, to about 4.5e-4 (Abramowitz & Stegun
+/// 1964, 26.2.23): a starting point for exact solvers, not a result.
+pub fn normal_quantile_approx(p: f64) -> f64 {
+    let (pp, sign) = if p > 0.5 { (1.0 - p, -1.0) } else { (p, 1.0) };
+    let t = (-2.0 * pp.max(1e-300).ln()).sqrt();
+    let z = t
+        - (2.515_517 + 0.802_853 * t + 0.010_328 * t * t)
+            / (1.0 + 1.432_788 * t + 0.189_269 * t * t + 0.001_308 * t * t * t);
+    sign * z
+}
+
 /// Format a float for tables: fixed decimals, so that reruns give identical bytes.
 pub fn fmt(v: f64, decimals: usize) -> String {
     if v.is_nan() {

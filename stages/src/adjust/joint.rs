@@ -197,31 +197,51 @@ impl Mixture {
             .map(|(w, m, v)| w * crate::util::normal_cdf((x - m) / v.sqrt()))
             .sum()
     }
-    /// The q quantile by bisection within the components' own 10-SD spans.
+    fn pdf(&self, x: f64) -> f64 {
+        self.parts
+            .iter()
+            .map(|(w, m, v)| {
+                let sd = v.sqrt();
+                w * (-0.5 * ((x - m) / sd).powi(2)).exp() / (sd * 2.506_628_274_631_000_5)
+            })
+            .sum()
+    }
+
+    /// The q quantile: Newton steps from the normal approximation, kept inside a bracket
+    /// that bisection narrows whenever a step leaves it.
     pub fn quantile(&self, q: f64) -> f64 {
-        let lo0 = self
+        let mut lo = self
             .parts
             .iter()
             .map(|(_, m, v)| m - 10.0 * v.sqrt())
             .fold(f64::INFINITY, f64::min);
-        let hi0 = self
+        let mut hi = self
             .parts
             .iter()
             .map(|(_, m, v)| m + 10.0 * v.sqrt())
             .fold(f64::NEG_INFINITY, f64::max);
-        let (mut lo, mut hi) = (lo0, hi0);
-        for _ in 0..60 {
-            let mid = 0.5 * (lo + hi);
-            if self.cdf(mid) < q {
-                lo = mid
+        let z = crate::util::normal_quantile_approx(1.0 - q);
+        let mut x = (self.mean() + z * self.var().sqrt()).clamp(lo, hi);
+        for _ in 0..100 {
+            let f = self.cdf(x) - q;
+            if f < 0.0 {
+                lo = x;
             } else {
-                hi = mid
+                hi = x;
             }
-            if hi - lo < 1e-10 * (1.0 + mid.abs()) {
-                break;
+            let d = self.pdf(x);
+            let step = if d > 0.0 { x - f / d } else { f64::NAN };
+            let next = if step > lo && step < hi {
+                step
+            } else {
+                0.5 * (lo + hi)
+            };
+            if (next - x).abs() < 1e-10 * (1.0 + x.abs()) || hi - lo < 1e-12 * (1.0 + x.abs()) {
+                return next;
             }
+            x = next;
         }
-        0.5 * (lo + hi)
+        x
     }
 }
 
@@ -262,5 +282,13 @@ mod tests {
         assert!((m.quantile(0.975) - (1.0 + 2.0 * 1.959_964)).abs() < 1e-5);
         assert!((m.cdf(1.0) - 0.5).abs() < 1e-7);
         assert!((m.var() - 4.0).abs() < 1e-12);
+        // Two equal normals at 0 and 4: the median is 2 by symmetry; every quantile solves
+        // cdf(x) = q.
+        let m = Mixture::new(vec![(1.0, 0.0, 1.0), (1.0, 4.0, 1.0)]);
+        assert!((m.quantile(0.5) - 2.0).abs() < 1e-9);
+        for q in [0.025, 0.05, 0.3, 0.95, 0.975] {
+            assert!((m.cdf(m.quantile(q)) - q).abs() < 1e-9, "{q}");
+        }
+        assert!((crate::util::normal_quantile_approx(0.025) - 1.959_964).abs() < 5e-4);
     }
 }

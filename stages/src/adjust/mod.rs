@@ -2187,4 +2187,117 @@ mod tests {
         assert!((e.uplift - a.uplift).abs() < 0.1 * e.uplift_sd);
         assert!((e.uplift_sd / a.uplift_sd - 1.0).abs() < 0.1);
     }
+
+    #[test]
+    fn joint_fit_pools_fields_and_detects_a_field_where_a_product_differs() {
+        // Four fields of 24 plots; product "a" adds 0.3 t/ha everywhere, or 1.2 in field F0
+        // and 0 elsewhere.
+        let season = |effects: [f64; 4]| -> Vec<PlotStats> {
+            (0..4)
+                .flat_map(|f| trend_field(&format!("F{f}"), 4, 6, effects[f], 20 + f as u64))
+                .collect()
+        };
+        let s = settings();
+        let same = run(&season([0.3; 4]), &s).unwrap();
+        let pooled = row(&same, "all", "a");
+        let widest_single = (0..4)
+            .map(|f| row(&same, &format!("F{f}"), "a").uplift_sd)
+            .fold(0.0, f64::max);
+        eprintln!(
+            "pooled a {:.3} +- {:.3}; per-field SDs up to {widest_single:.3}; ESS {:.0}",
+            pooled.uplift, pooled.uplift_sd, same.joint_ess
+        );
+        assert!(pooled.uplift_lo95 < 0.3 && 0.3 < pooled.uplift_hi95);
+        assert!(pooled.uplift_sd < widest_single);
+        assert!(same.joint_ess > 100.0);
+        let inter_same = same
+            .hyper
+            .iter()
+            .find(|h| h.field == "all")
+            .unwrap()
+            .interaction_sd;
+        let differ = run(&season([1.2, 0.0, 0.0, 0.0]), &s).unwrap();
+        let inter_differ = differ
+            .hyper
+            .iter()
+            .find(|h| h.field == "all")
+            .unwrap()
+            .interaction_sd;
+        eprintln!("interaction SD: same {inter_same:?}, differ {inter_differ:?}");
+        assert!(inter_differ.mean > 2.0 * inter_same.mean);
+        assert!(inter_differ.lo95 > 0.0);
+        let f0 = row(&differ, "F0", "a");
+        let f1 = row(&differ, "F1", "a");
+        eprintln!(
+            "F0 a {:.3} +- {:.3}; F1 a {:.3} +- {:.3}",
+            f0.uplift, f0.uplift_sd, f1.uplift, f1.uplift_sd
+        );
+        assert!(
+            f0.uplift > 0.8 && f1.uplift < 0.4,
+            "{} {}",
+            f0.uplift,
+            f1.uplift
+        );
+        // Seeded draws: a rerun gives the same numbers.
+        let again = run(&season([1.2, 0.0, 0.0, 0.0]), &s).unwrap();
+        assert_eq!(
+            format!("{:?}", again.treatments),
+            format!("{:?}", differ.treatments)
+        );
+    }
+
+    #[test]
+    fn an_informative_prior_moves_the_posterior_and_is_shown_beside_it() {
+        let plots = trend_field("F", 4, 6, 0.3, 31);
+        let mut s = settings();
+        let weak = run(&plots, &s).unwrap();
+        s.product_prior.insert("a".into(), (1.0, 0.05));
+        let strong = run(&plots, &s).unwrap();
+        let (w, st) = (row(&weak, "F", "a"), row(&strong, "F", "a"));
+        eprintln!(
+            "weak {:.3} +- {:.3}; with N(1, 0.05^2) {:.3} +- {:.3}",
+            w.uplift, w.uplift_sd, st.uplift, st.uplift_sd
+        );
+        assert_eq!((st.prior_mean, st.prior_sd), (1.0, 0.05));
+        assert!(
+            w.prior_sd > 1.0,
+            "the weak default prior is wide: {}",
+            w.prior_sd
+        );
+        // A prior SD of 0.05 against a data SD of ~0.1: the posterior sits between, nearer
+        // the prior, and is narrower than either.
+        assert!(st.uplift > w.uplift + 0.5 * (1.0 - w.uplift) && st.uplift < 1.0);
+        assert!(st.uplift_sd < 0.05 && st.uplift_sd < w.uplift_sd);
+        // "b" has no prior of its own: it moves only through the check it shares with "a".
+        // With equal replication the check's mean absorbs about half of a's shift (a and the
+        // check are equally informed), so b's contrast rises by about half of it.
+        let db = row(&strong, "F", "b").uplift - row(&weak, "F", "b").uplift;
+        let da = st.uplift - w.uplift;
+        eprintln!("a moved by {da:.3}, b by {db:.3}");
+        assert!(db > 0.3 * da && db < 0.7 * da);
+    }
+
+    #[test]
+    fn anisotropic_fit_finds_the_shorter_range_along_the_axis_that_varies() {
+        // The trend varies along x (wavelength ~190 m) and hardly across y.
+        let mut rng = crate::util::Rng::new(5);
+        let plots: Vec<PlotStats> = (0..48)
+            .map(|i| {
+                let (x, y) = (18.0 * (i % 12) as f64, 66.0 * (i / 12) as f64);
+                let t = ["chk", "a", "b"][(i + i / 12) % 3];
+                let v = 10.0 + 0.8 * (x / 30.0).sin() + 0.002 * y + 0.15 * rng.normal();
+                PlotStats::from_yield(&format!("p{i}"), "F", t, "1", v, x, y)
+            })
+            .collect();
+        let mut s = settings();
+        s.anisotropic = true;
+        let out = run(&plots, &s).unwrap();
+        let h = &out.hyper[0];
+        eprintln!(
+            "range along x {:.1} ({:.1}..{:.1}), along y {:?}",
+            h.range_m, h.range_lo95_m, h.range_hi95_m, h.range_across
+        );
+        assert!(h.range_m < h.range_across.mean);
+        assert!(h.range_hi95_m < h.range_across.hi95);
+    }
 }
