@@ -11,7 +11,7 @@
 //! - large: one field of 1,000 plots (reduced rank, the default above 600 plots);
 //! - season: 20 fields x 250 plots fitted jointly (shared range, interaction SD).
 
-use plotsieve_stages::adjust::{run, AdjustOutput, FitSettings};
+use plotsieve_stages::adjust::{run, AdjustOutput, FitSettings, Pooling};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::util::Rng;
 use std::time::Instant;
@@ -88,17 +88,16 @@ fn main() {
         let plots: Vec<PlotStats> = (0..20)
             .flat_map(|f| field(&format!("F{f:02}"), 250, 100 + f))
             .collect();
+        // For scale: the same fields fitted separately, and jointly with a range per field.
         let mut s = FitSettings::new("chk");
-        if std::env::var("SEP").is_ok() {
-            s.pooling = plotsieve_stages::adjust::Pooling::Separate;
-            let (t, _) = timed(&plots, &s);
-            println!("separate {t:.2}");
-            s.pooling = plotsieve_stages::adjust::Pooling::Joint;
-            s.shared_range = false;
-            let (t, _) = timed(&plots, &s);
-            println!("joint per-field range {t:.2}");
-            s.shared_range = true;
-        }
+        s.pooling = Pooling::Separate;
+        let (t, _) = timed(&plots, &s);
+        println!("20 fields x 250 plots, separately: {t:.2} s");
+        s.pooling = Pooling::Joint;
+        s.shared_range = false;
+        let (t, _) = timed(&plots, &s);
+        println!("20 fields x 250 plots, joint with a range per field: {t:.2} s");
+        s.shared_range = true;
         let (t, out) = timed(&plots, &s);
         let all = out
             .hyper

@@ -6,6 +6,7 @@
 //! categories the Okabe & Ito (2008) palette; all three are readable with the common forms
 //! of colour blindness. Every map has a legend and axes in metres.
 
+use super::mean_interval;
 use crate::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
 use crate::plots::PlotStats;
 use crate::table::{PlotPolygon, StageSummary};
@@ -473,7 +474,7 @@ pub fn render(r: &HtmlInput) -> String {
         "<section><h2>Products against the check ({})</h2>",
         esc(r.check)
     );
-    let _ = write!(s, "<table><thead><tr><th>field</th><th>treatment</th><th>plots</th><th>estimate ({u})</th><th>uplift ({u})</th><th>95 % interval</th><th>P(uplift &gt; 0)</th><th>break-even ({u})</th><th>P(uplift &gt; break-even)</th><th>expected net return per ha</th></tr></thead><tbody>");
+    let _ = write!(s, "<table><thead><tr><th>field</th><th>treatment</th><th>plots</th><th>estimate ({u})</th><th>uplift ({u})</th><th>95 % interval</th><th>prior (mean &plusmn; SD)</th><th>P(uplift &gt; 0)</th><th>break-even ({u})</th><th>P(uplift &gt; break-even)</th><th>expected net return per ha</th></tr></thead><tbody>");
     for t in r.treatments {
         let up = if t.uplift.is_nan() {
             "(check)".to_string()
@@ -495,7 +496,12 @@ pub fn render(r: &HtmlInput) -> String {
         } else {
             format!("{:.3}", t.p_uplift_gt_break_even)
         };
-        let _ = write!(s, "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", esc(&t.field), esc(&t.treatment), t.plots, fmt(t.estimate, d), up, ci, p0, fmt(t.break_even, d), pbe, fmt(t.expected_net_return_per_ha, 0));
+        let prior = if t.prior_sd.is_nan() {
+            String::new()
+        } else {
+            format!("{} &plusmn; {}", fmt(t.prior_mean, d), fmt(t.prior_sd, d))
+        };
+        let _ = write!(s, "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", esc(&t.field), esc(&t.treatment), t.plots, fmt(t.estimate, d), up, ci, prior, p0, fmt(t.break_even, d), pbe, fmt(t.expected_net_return_per_ha, 0));
     }
     let _ = write!(s, "</tbody></table>");
     let rows: Vec<&TreatmentRow> = r.treatments.iter().filter(|t| !t.uplift.is_nan()).collect();
@@ -543,9 +549,30 @@ pub fn render(r: &HtmlInput) -> String {
     }
     let _ = write!(s, "</section>");
     // Spatial model.
-    let _ = write!(s, "<section><h2>Spatial model</h2><table><thead><tr><th>field</th><th>plots</th><th>range (m), posterior mean</th><th>95 % interval</th><th>spatial SD ({u})</th><th>noise SD ({u})</th><th>spatial share</th><th>note</th></tr></thead><tbody>");
+    let _ = write!(s, "<section><h2>Spatial model</h2><p class=\"note\">Posterior means with 95 % intervals. Row <code>all</code> of a joint fit holds the shared range and the SD of the treatment &times; field interaction.</p><table><thead><tr><th>field</th><th>plots</th><th>range (m)</th><th>spatial SD ({u})</th><th>noise SD ({u})</th><th>spatial share</th><th>interaction SD ({u})</th><th>method</th><th>note</th></tr></thead><tbody>");
+    let ci = mean_interval;
     for h in r.hyper {
-        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{:.1}</td><td>{:.0} to {:.0}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{:.2}</td><td>{}</td></tr>", esc(&h.field), h.plots, h.range_m, h.range_lo95_m, h.range_hi95_m, fmt(h.spatial_sd, d + 1), fmt(h.noise_sd, d + 1), h.spatial_share, esc(&h.warning));
+        let range = if h.range_across.mean.is_nan() {
+            ci(h.range_m, h.range_lo95_m, h.range_hi95_m, 0)
+        } else {
+            format!(
+                "along {}; across {}",
+                ci(h.range_m, h.range_lo95_m, h.range_hi95_m, 0),
+                ci(
+                    h.range_across.mean,
+                    h.range_across.lo95,
+                    h.range_across.hi95,
+                    0
+                )
+            )
+        };
+        let (a, b, c, e) = (
+            h.spatial_sd_ci,
+            h.noise_sd_ci,
+            h.spatial_share_ci,
+            h.interaction_sd,
+        );
+        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>", esc(&h.field), h.plots, range, ci(a.mean, a.lo95, a.hi95, d + 1), ci(b.mean, b.lo95, b.hi95, d + 1), ci(c.mean, c.lo95, c.hi95, 2), ci(e.mean, e.lo95, e.hi95, d + 1), esc(&h.method), esc(&h.warning));
     }
     let _ = write!(s, "</tbody></table><h3>Spatial model against the same model without the spatial field</h3><table><thead><tr><th>field</th><th>log marginal likelihood, spatial</th><th>without</th><th>efficiency (contrast variance ratio)</th><th>residual Moran's I without</th><th>with</th><th>products whose ranking changes</th></tr></thead><tbody>");
     for c in r.comparisons {

@@ -61,31 +61,44 @@ pub fn markdown(r: &ReportInput) -> String {
         }
     }
     let _ = writeln!(s, "\n## Spatial model per field\n");
+    let _ = writeln!(s, "Posterior means with 95 % intervals; row `all` of a joint fit holds the shared range and the SD of the treatment x field interaction.\n");
     let _ = writeln!(
         s,
-        "| field | plots | range (m) | range 95 % interval (m) | spatial SD ({u}) | noise SD ({u}) | spatial share | note |",
+        "| field | plots | range (m) | spatial SD ({u}) | noise SD ({u}) | spatial share | interaction SD ({u}) | method | note |",
         u = r.unit_label
     );
-    let _ = writeln!(s, "|---|---:|---:|---|---:|---:|---:|---|");
+    let _ = writeln!(s, "|---|---:|---|---|---|---|---|---|---|");
+    let ci = mean_interval;
     for h in r.hyper {
+        let mut range = ci(h.range_m, h.range_lo95_m, h.range_hi95_m, 0);
+        if !h.range_across.mean.is_nan() {
+            let a = h.range_across;
+            range = format!("along {range}; across {}", ci(a.mean, a.lo95, a.hi95, 0));
+        }
+        let (a, b, c, e) = (
+            h.spatial_sd_ci,
+            h.noise_sd_ci,
+            h.spatial_share_ci,
+            h.interaction_sd,
+        );
         let _ = writeln!(
             s,
-            "| {} | {} | {:.1} | {:.0} to {:.0} | {} | {} | {:.2} | {} |",
+            "| {} | {} | {} | {} | {} | {} | {} | {} | {} |",
             h.field,
             h.plots,
-            h.range_m,
-            h.range_lo95_m,
-            h.range_hi95_m,
-            fmt(h.spatial_sd, d + 1),
-            fmt(h.noise_sd, d + 1),
-            h.spatial_share,
+            range,
+            ci(a.mean, a.lo95, a.hi95, d + 1),
+            ci(b.mean, b.lo95, b.hi95, d + 1),
+            ci(c.mean, c.lo95, c.hi95, 2),
+            ci(e.mean, e.lo95, e.hi95, d + 1),
+            h.method,
             h.warning
         );
     }
     let _ = writeln!(s, "\n## Treatments against the check ({})\n", r.check);
-    let _ = writeln!(s, "Yields in {u} at standard moisture; uplift = treatment minus check; 95 % intervals; field `all` pools the fields by inverse-variance weighting.\n", u = r.unit_label);
-    let _ = writeln!(s, "| field | treatment | plots | estimate | SD | uplift | uplift 95 % interval | P(uplift > 0) |");
-    let _ = writeln!(s, "|---|---|---:|---:|---:|---:|---|---:|");
+    let _ = writeln!(s, "Yields in {u} at standard moisture; uplift = treatment minus check; 95 % intervals. Field `all` is the effect shared by the fields in the joint model (the fields' own rows include the treatment x field interaction), or with `adjust.pooling = \"separate\"` the inverse-variance combination of the separate field fits.\n", u = r.unit_label);
+    let _ = writeln!(s, "| field | treatment | plots | estimate | SD | uplift | uplift 95 % interval | prior (mean +- SD) | P(uplift > 0) |");
+    let _ = writeln!(s, "|---|---|---:|---:|---:|---:|---|---|---:|");
     for t in r.treatments {
         let (up, ci, p) = if t.uplift.is_nan() {
             ("(check)".to_string(), String::new(), String::new())
@@ -96,9 +109,14 @@ pub fn markdown(r: &ReportInput) -> String {
                 format!("{:.3}", t.p_uplift_gt0),
             )
         };
+        let prior = if t.prior_sd.is_nan() {
+            String::new()
+        } else {
+            format!("{} +- {}", fmt(t.prior_mean, d), fmt(t.prior_sd, d))
+        };
         let _ = writeln!(
             s,
-            "| {} | {} | {} | {} | {} | {} | {} | {} |",
+            "| {} | {} | {} | {} | {} | {} | {} | {} | {} |",
             t.field,
             t.treatment,
             t.plots,
@@ -106,6 +124,7 @@ pub fn markdown(r: &ReportInput) -> String {
             fmt(t.sd, d),
             up,
             ci,
+            prior,
             p
         );
     }
@@ -117,4 +136,13 @@ pub fn markdown(r: &ReportInput) -> String {
     }
     s
 }
+/// "mean (lo to hi)" with `k` decimals, empty for NaN.
+pub(crate) fn mean_interval(m: f64, lo: f64, hi: f64, k: usize) -> String {
+    if m.is_nan() {
+        String::new()
+    } else {
+        format!("{} ({} to {})", fmt(m, k), fmt(lo, k), fmt(hi, k))
+    }
+}
+
 pub mod html;
