@@ -84,6 +84,21 @@ fn main() {
             out.hyper[0].method, out.hyper[0].range_m
         );
     }
+    if want("many") {
+        // Many small fields: the importance sampler's effective sample size as fields grow.
+        for nf in [10, 30, 60] {
+            let plots: Vec<PlotStats> = (0..nf)
+                .flat_map(|f| field(&format!("F{f:02}"), 36, 300 + f as u64))
+                .collect();
+            let s = FitSettings::new("chk");
+            let (t, out) = timed(&plots, &s);
+            let (u, sd) = uplift(&out, "all", "a");
+            println!(
+                "{nf} fields x 36 plots, joint: {t:.2} s, ESS {:.0}; pooled uplift of a {u:.3} +- {sd:.3} (true 0.3)",
+                out.joint_ess
+            );
+        }
+    }
     if want("season") {
         let plots: Vec<PlotStats> = (0..20)
             .flat_map(|f| field(&format!("F{f:02}"), 250, 100 + f))

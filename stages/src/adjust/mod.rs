@@ -1432,40 +1432,102 @@ fn fit_joint(
     } else {
         vec![(0.0, 0.0)]
     };
-    // Per group and field: log Z and the cumulative distribution of the proposal.
+    let fit_of = |g: usize, f: usize, i: usize| -> &spectral::Inner {
+        let (_, k, idx) = groups[g].1[f][i];
+        &preps[f].model.nodes[&k].points[idx].fit
+    };
+    // Per cell (group, interaction SD) and field: the proposal (the field's own posterior
+    // over its points, tilted by `cavity_tilt`), its log normaliser and the log tilt of
+    // each point. Points below 1e-8 of a field's total are left out.
     struct Prop {
-        lz: f64,
         cdf: Vec<f64>,
+        lnf: Vec<f64>,
     }
-    let props: Vec<Vec<Prop>> = groups
+    // Cells whose mass, judged at each field's best point, is below e^-30 of the largest are
+    // left out before the (costlier) tilt.
+    let screen: Vec<((usize, usize), f64)> = (0..groups.len())
+        .flat_map(|g| (0..snodes.len()).map(move |j| (g, j)))
+        .collect::<Vec<_>>()
+        .par_iter()
+        .map(|&(g, j)| {
+            let per = &groups[g].1;
+            let best: Vec<usize> = per
+                .iter()
+                .map(|c| {
+                    (0..c.len())
+                        .max_by(|&a, &b| c[a].0.total_cmp(&c[b].0))
+                        .unwrap_or(0)
+                })
+                .collect();
+            let fits: Vec<&spectral::Inner> = (0..nf).map(|f| fit_of(g, f, best[f])).collect();
+            let lc = combine(&fits, maps, global, snodes[j].0, false)
+                .map_or(f64::NEG_INFINITY, |c| c.log_c);
+            let lz: f64 = per.iter().map(|c| log_sum_exp(c.iter().map(|x| x.0))).sum();
+            ((g, j), groups[g].0 + snodes[j].1 + lz + lc)
+        })
+        .collect();
+    let smax = screen.iter().map(|x| x.1).fold(f64::NEG_INFINITY, f64::max);
+    let cells: Vec<(usize, usize)> = screen
         .iter()
-        .map(|(_, per)| {
-            per.iter()
-                .map(|cands| {
-                    let lz = log_sum_exp(cands.iter().map(|c| c.0));
+        .filter(|x| x.1 > smax - 30.0)
+        .map(|x| x.0)
+        .collect();
+    let cell_props: Vec<(f64, Vec<Prop>)> = cells
+        .par_iter()
+        .map(|&(g, j)| {
+            let per = &groups[g].1;
+            let lzs: Vec<f64> = per
+                .iter()
+                .map(|c| log_sum_exp(c.iter().map(|x| x.0)))
+                .collect();
+            let cands: Vec<Vec<(&spectral::Inner, f64)>> = per
+                .iter()
+                .enumerate()
+                .map(|(f, c)| {
+                    c.iter()
+                        .enumerate()
+                        .map(|(i, x)| {
+                            let lp = x.0 - lzs[f];
+                            (
+                                fit_of(g, f, i),
+                                if lp > -18.4 { lp } else { f64::NEG_INFINITY },
+                            )
+                        })
+                        .collect()
+                })
+                .collect();
+            let lnf = joint::cavity_tilt(&cands, maps, global, snodes[j].0, 2);
+            let mut lpre = groups[g].0 + snodes[j].1;
+            let props = cands
+                .iter()
+                .zip(lnf)
+                .enumerate()
+                .map(|(f, (c, lnf))| {
+                    let lq: Vec<f64> = c.iter().zip(&lnf).map(|((_, lp), t)| lp + t).collect();
+                    let lt = log_sum_exp(lq.iter().cloned());
+                    lpre += lzs[f] + lt;
                     let mut acc = 0.0;
-                    let cdf = cands
+                    let cdf = lq
                         .iter()
-                        .map(|c| {
-                            acc += (c.0 - lz).exp();
+                        .map(|v| {
+                            acc += (v - lt).exp();
                             acc
                         })
                         .collect();
-                    Prop { lz, cdf }
+                    Prop { cdf, lnf }
                 })
-                .collect()
+                .collect();
+            (lpre, props)
         })
         .collect();
-    let cells: Vec<(usize, usize, f64)> = (0..groups.len())
-        .flat_map(|g| (0..snodes.len()).map(move |j| (g, j)))
-        .map(|(g, j)| {
-            let lpre = groups[g].0 + snodes[j].1 + props[g].iter().map(|p| p.lz).sum::<f64>();
-            (g, j, lpre)
-        })
-        .filter(|c| c.2.is_finite())
+    let cells: Vec<(usize, usize, f64)> = cells
+        .iter()
+        .zip(&cell_props)
+        .map(|(&(g, j), (lpre, _))| (g, j, *lpre))
         .collect();
-    let draw = |rng: &mut Rng, g: usize| -> Vec<usize> {
-        props[g]
+    let draw = |rng: &mut Rng, ci: usize| -> Vec<usize> {
+        cell_props[ci]
+            .1
             .iter()
             .map(|p| {
                 let u = rng.uniform() * p.cdf.last().copied().unwrap_or(1.0);
@@ -1473,25 +1535,25 @@ fn fit_joint(
             })
             .collect()
     };
-    let fit_of = |g: usize, f: usize, i: usize| -> &spectral::Inner {
-        let (_, k, idx) = groups[g].1[f][i];
-        &preps[f].model.nodes[&k].points[idx].fit
-    };
-    let log_c = |g: usize, j: usize, pick: &[usize]| -> f64 {
+    // log C of a draw minus its tilt: the importance weight's variable part.
+    let log_c = |ci: usize, pick: &[usize]| -> f64 {
+        let (g, j, _) = cells[ci];
         let fits: Vec<&spectral::Inner> = (0..nf).map(|f| fit_of(g, f, pick[f])).collect();
-        combine(&fits, maps, global, snodes[j].0, false).map_or(f64::NEG_INFINITY, |c| c.log_c)
+        let tilt: f64 = (0..nf).map(|f| cell_props[ci].1[f].lnf[pick[f]]).sum();
+        combine(&fits, maps, global, snodes[j].0, false)
+            .map_or(f64::NEG_INFINITY, |c| c.log_c - tilt)
     };
     // Pilot draws, seeded per cell so the result does not depend on thread scheduling.
     let pilot = 16;
     let mut draws: Vec<Vec<(Vec<usize>, f64)>> = cells
         .par_iter()
         .enumerate()
-        .map(|(ci, &(g, j, _))| {
+        .map(|(ci, _)| {
             let mut rng = Rng::new(s.seed ^ (0x9e37_79b9 * (ci as u64 + 1)));
             (0..pilot)
                 .map(|_| {
-                    let pick = draw(&mut rng, g);
-                    let lc = log_c(g, j, &pick);
+                    let pick = draw(&mut rng, ci);
+                    let lc = log_c(ci, &pick);
                     (pick, lc)
                 })
                 .collect()
@@ -1503,19 +1565,17 @@ fn fit_joint(
         .map(|(c, d)| c.2 + log_sum_exp(d.iter().map(|x| x.1)) - (d.len() as f64).ln())
         .collect();
     let top = log_sum_exp(cell_mass.iter().cloned());
-    let extra: Vec<(Vec<usize>, f64)> = Vec::new();
-    let _ = extra;
     let more: Vec<Vec<(Vec<usize>, f64)>> = cells
         .par_iter()
         .enumerate()
-        .map(|(ci, &(g, j, _))| {
+        .map(|(ci, _)| {
             let share = (cell_mass[ci] - top).exp();
             let k = (share * s.joint_draws as f64).round() as usize;
             let mut rng = Rng::new(s.seed ^ (0x85eb_ca6b * (ci as u64 + 1)));
             (0..k)
                 .map(|_| {
-                    let pick = draw(&mut rng, g);
-                    let lc = log_c(g, j, &pick);
+                    let pick = draw(&mut rng, ci);
+                    let lc = log_c(ci, &pick);
                     (pick, lc)
                 })
                 .collect()
@@ -2299,5 +2359,28 @@ mod tests {
         );
         assert!(h.range_m < h.range_across.mean);
         assert!(h.range_hi95_m < h.range_across.hi95);
+    }
+
+    #[test]
+    fn joint_importance_draws_stay_effective_with_many_fields() {
+        // 30 small fields: without the cavity tilt the effective sample size fell to ~50 of
+        // 2,000 draws (5 with 60 fields); with it the draws stay effective, and the pooled
+        // uplift agrees with the inverse-variance combination of separate fits.
+        let plots: Vec<PlotStats> = (0..30)
+            .flat_map(|f| trend_field(&format!("F{f:02}"), 4, 6, 0.3, 500 + f as u64))
+            .collect();
+        let mut s = settings();
+        s.interaction = false;
+        let joint = run(&plots, &s).unwrap();
+        s.pooling = Pooling::Separate;
+        let sep = run(&plots, &s).unwrap();
+        let (j, p) = (row(&joint, "all", "a"), row(&sep, "all", "a"));
+        eprintln!(
+            "ESS {:.0}; joint {:.4} +- {:.4}, separate {:.4} +- {:.4}",
+            joint.joint_ess, j.uplift, j.uplift_sd, p.uplift, p.uplift_sd
+        );
+        assert!(joint.joint_ess > 500.0, "{}", joint.joint_ess);
+        assert!((j.uplift - p.uplift).abs() < 0.25 * p.uplift_sd);
+        assert!((j.uplift_sd / p.uplift_sd - 1.0).abs() < 0.15);
     }
 }
