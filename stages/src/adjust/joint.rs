@@ -48,6 +48,41 @@ pub struct Component {
     pub est: Vec<Vec<(f64, f64)>>,
 }
 
+/// One field's contrasts at a fit and their covariance with the interaction added:
+/// c_hat, V, W = V + s^2 I, the log-determinant of W, W^-1 and W^-1 c_hat (None when W is not
+/// positive definite).
+struct FieldTerms {
+    c: Vec<f64>,
+    v: Vec<f64>,
+    w: Vec<f64>,
+    logdet_w: f64,
+    wi: Vec<f64>,
+    wic: Vec<f64>,
+}
+
+fn field_terms(fit: &Inner, d: usize, s: f64) -> Option<FieldTerms> {
+    let p = (fit.cov.len() as f64).sqrt().round() as usize;
+    let idx: Vec<usize> = (1..=d).collect();
+    let c: Vec<f64> = idx.iter().map(|&i| fit.b[i]).collect();
+    let v = linalg::sub(&fit.cov, p, &idx);
+    let mut w = v.clone();
+    for a in 0..d {
+        w[a * d + a] += s * s;
+    }
+    let l = linalg::chol(&w, d)?;
+    let wi = linalg::inverse(&l, d);
+    let mut wic = c.clone();
+    linalg::solve(&l, d, &mut wic);
+    Some(FieldTerms {
+        c,
+        v,
+        w,
+        logdet_w: linalg::logdet(&l, d),
+        wi,
+        wic,
+    })
+}
+
 /// Joins one GLS fit per field at interaction SD `s`. `moments` = false computes log C only.
 pub fn combine(
     fits: &[&Inner],
@@ -68,37 +103,21 @@ pub fn combine(
         * (0..np)
             .map(|k| prior.var[k].ln() + prior.mean[k].powi(2) / prior.var[k])
             .sum::<f64>();
-    struct Local {
-        c: Vec<f64>,
-        v: Vec<f64>,
-        wi: Vec<f64>,
-    }
     let mut locals = Vec::with_capacity(fits.len());
     for (fit, map) in fits.iter().zip(maps) {
         let d = map.index.len();
-        let p = (fit.cov.len() as f64).sqrt().round() as usize;
-        let idx: Vec<usize> = (1..=d).collect();
-        let c: Vec<f64> = idx.iter().map(|&i| fit.b[i]).collect();
-        let v = linalg::sub(&fit.cov, p, &idx);
-        let mut w = v.clone();
-        for a in 0..d {
-            w[a * d + a] += s * s;
-        }
-        let lw = linalg::chol(&w, d)?;
-        let wi = linalg::inverse(&lw, d);
-        let mut wic = c.clone();
-        linalg::solve(&lw, d, &mut wic);
+        let t = field_terms(fit, d, s)?;
         log_c -= 0.5
             * (d as f64 * ln2pi
-                + linalg::logdet(&lw, d)
-                + c.iter().zip(&wic).map(|(x, y)| x * y).sum::<f64>());
+                + t.logdet_w
+                + t.c.iter().zip(&t.wic).map(|(x, y)| x * y).sum::<f64>());
         for a in 0..d {
-            h[map.index[a]] += wic[a];
+            h[map.index[a]] += t.wic[a];
             for b in 0..d {
-                prec[map.index[a] * np + map.index[b]] += wi[a * d + b];
+                prec[map.index[a] * np + map.index[b]] += t.wi[a * d + b];
             }
         }
-        locals.push(Local { c, v, wi });
+        locals.push(t);
     }
     let lp = linalg::chol(&prec, np)?;
     let mut mb = h.clone();
@@ -179,32 +198,12 @@ pub fn cavity_tilt(
 ) -> Vec<Vec<f64>> {
     let np = prior.mean.len();
     let ln2pi = (2.0 * std::f64::consts::PI).ln();
-    struct Local {
-        c: Vec<f64>,
-        w: Vec<f64>,
-        wi: Vec<f64>,
-        wic: Vec<f64>,
-    }
-    let locals: Vec<Vec<Option<Local>>> = cands
+    let locals: Vec<Vec<Option<FieldTerms>>> = cands
         .iter()
         .zip(maps)
         .map(|(cs, map)| {
-            let d = map.index.len();
             cs.iter()
-                .map(|(fit, _)| {
-                    let p = (fit.cov.len() as f64).sqrt().round() as usize;
-                    let idx: Vec<usize> = (1..=d).collect();
-                    let c: Vec<f64> = idx.iter().map(|&i| fit.b[i]).collect();
-                    let mut w = linalg::sub(&fit.cov, p, &idx);
-                    for a in 0..d {
-                        w[a * d + a] += s * s;
-                    }
-                    let l = linalg::chol(&w, d)?;
-                    let wi = linalg::inverse(&l, d);
-                    let mut wic = c.clone();
-                    linalg::solve(&l, d, &mut wic);
-                    Some(Local { c, w, wi, wic })
-                })
+                .map(|(fit, _)| field_terms(fit, map.index.len(), s))
                 .collect()
         })
         .collect();
