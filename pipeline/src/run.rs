@@ -7,9 +7,10 @@
 use crate::io;
 use crate::stage::Stage;
 use anyhow::{anyhow, bail, Context, Result};
-use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+use indicatif::{MultiProgress, ProgressBar, ProgressDrawTarget, ProgressStyle};
 use plotsieve_stages::adjust::FitSettings;
 use plotsieve_stages::config::TrialConfig;
+use plotsieve_stages::progress::{Event, Progress};
 use plotsieve_stages::table::{Rejection, StageSummary};
 use plotsieve_stages::{adjust, clean, ingest, plots, report, simulate};
 use serde::{Deserialize, Serialize};
@@ -163,14 +164,14 @@ fn write_stage_tables(dir: &Path, rejections: &[Rejection], summary: &StageSumma
 }
 
 /// Run one stage against the run folder; returns its summary.
-fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
+fn execute(stage: Stage, t: &Trial, out: &Path, progress: &Progress) -> Result<StageSummary> {
     let cfg = &t.cfg;
     let dir = out.join(stage.dir());
     let unit = cfg.trial.output_unit;
     let crop = cfg.crop()?;
     match stage {
         Stage::Ingest => {
-            let o = ingest::run(cfg, &t.base)?;
+            let o = ingest::run_with(cfg, &t.base, progress)?;
             io::write_points(&dir.join("points.parquet"), &o.points)?;
             io::write_projected_plots(&dir.join("plots.geojson"), &o.polygons, o.points.epsg)?;
             let utm = plotsieve_stages::projection::Utm::from_epsg(o.points.epsg)?;
@@ -197,7 +198,7 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
                 .ok_or_else(|| anyhow!("1-ingest/summary.json has no epsg; rerun stage ingest"))?
                 as u32;
             let pts = io::read_points(&out.join(Stage::Ingest.dir()).join("points.parquet"), epsg)?;
-            let o = clean::run(&pts, &cfg.clean, &crop);
+            let o = clean::run_with(&pts, &cfg.clean, &crop, progress);
             let y: Vec<f64> = o
                 .points
                 .iter()
@@ -320,7 +321,7 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
                 product_cost_per_ha: a.product_cost_per_ha.clone(),
                 t_ha_to_unit: unit.from_kg_ha(1000.0, &crop),
             };
-            let o = adjust::run(&plots, &s)?;
+            let o = adjust::run_with(&plots, &s, progress)?;
             io::write_adjusted(&dir.join("adjusted_plots.csv"), &o.plots, unit.suffix())?;
             io::write_treatments(&dir.join("treatments.csv"), &o.treatments, unit.suffix())?;
             io::write_hyper(&dir.join("hyperparameters.csv"), &o.hyper, unit.suffix())?;
@@ -458,22 +459,28 @@ fn execute(stage: Stage, t: &Trial, out: &Path) -> Result<StageSummary> {
     }
 }
 
-fn progress(n: u64, quiet: bool) -> ProgressBar {
-    let pb = ProgressBar::with_draw_target(
-        Some(n),
-        if quiet || !std::io::stderr().is_terminal() {
-            ProgressDrawTarget::hidden()
-        } else {
-            ProgressDrawTarget::stderr()
-        },
-    );
+/// The stage bar and, below it, a bar for the stage's inner work (both hidden with
+/// `--quiet` or when stderr is not a terminal).
+fn progress(n: u64, quiet: bool) -> (MultiProgress, ProgressBar, ProgressBar) {
+    let mp = MultiProgress::with_draw_target(if quiet || !std::io::stderr().is_terminal() {
+        ProgressDrawTarget::hidden()
+    } else {
+        ProgressDrawTarget::stderr()
+    });
+    let pb = mp.add(ProgressBar::new(n));
     pb.set_style(
         ProgressStyle::with_template("{spinner} stage {pos}/{len} {msg} [{elapsed}]")
             .expect("static template")
             .tick_chars("-\\|/ "),
     );
     pb.enable_steady_tick(std::time::Duration::from_millis(120));
-    pb
+    let inner = mp.add(ProgressBar::new(0));
+    inner.set_style(
+        ProgressStyle::with_template("  [{bar:30}] {pos}/{len} {msg}")
+            .expect("static template")
+            .progress_chars("=> "),
+    );
+    (mp, pb, inner)
 }
 
 /// Run the given stages in order, updating the manifest after each.
@@ -484,11 +491,24 @@ fn run_stages(
     mut manifest: Manifest,
     quiet: bool,
 ) -> Result<()> {
-    let pb = progress(stages.len() as u64, quiet);
+    let (_mp, pb, inner) = progress(stages.len() as u64, quiet);
+    let bar = inner.clone();
+    let report = Progress::new(move |e| match e {
+        Event::Start { total, what } => {
+            bar.set_length(total);
+            bar.set_position(0);
+            bar.set_message(what);
+        }
+        Event::Step(n) => bar.inc(n),
+    });
     for &stage in stages {
         pb.set_message(stage.name());
+        inner.set_message("");
+        inner.reset();
+        inner.set_length(0);
         let start = Instant::now();
-        let summary = execute(stage, t, out).with_context(|| format!("stage {}", stage.name()))?;
+        let summary =
+            execute(stage, t, out, &report).with_context(|| format!("stage {}", stage.name()))?;
         manifest.stages.insert(
             stage.name().into(),
             StageRecord {
@@ -512,6 +532,7 @@ fn run_stages(
         io::write_json(&out.join("manifest.json"), &manifest)?;
         pb.inc(1);
     }
+    inner.finish_and_clear();
     pb.finish_and_clear();
     Ok(())
 }

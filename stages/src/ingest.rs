@@ -477,13 +477,24 @@ pub fn choose_projection(
 
 /// Run ingest.
 pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> {
+    run_with(cfg, base, &crate::progress::Progress::none())
+}
+
+/// [`run`], reporting each export read to `progress`.
+pub fn run_with(
+    cfg: &TrialConfig,
+    base: &Path,
+    progress: &crate::progress::Progress,
+) -> Result<IngestOutput, IngestError> {
     let files = monitor_files(cfg, base)?;
+    progress.start(files.len() as u64, "exports read");
     let names: Vec<String> = files.iter().map(|p| display(base, p)).collect();
     let mut raw = Vec::new();
     let mut rejections = Vec::new();
     let mut count_in = 0;
     for (i, (p, name)) in files.iter().zip(&names).enumerate() {
         count_in += read_export(cfg, p, name, i as u32, &mut raw, &mut rejections)?;
+        progress.step();
     }
     let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design)?;
     let polygons_ll = if cfg.layout.is_empty() {

@@ -8,6 +8,7 @@ pub mod clean;
 pub mod config;
 pub mod ingest;
 pub mod plots;
+pub mod progress;
 pub mod projection;
 pub mod report;
 pub mod simulate;

@@ -1643,6 +1643,16 @@ fn fit_joint(
 
 /// Run adjust on the kept plots.
 pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustError> {
+    run_with(plots, s, &crate::progress::Progress::none())
+}
+
+/// [`run`], reporting to `progress` as each field's length scales are scanned and its fit
+/// is done, and when the joint fit is done.
+pub fn run_with(
+    plots: &[PlotStats],
+    s: &FitSettings,
+    progress: &crate::progress::Progress,
+) -> Result<AdjustOutput, AdjustError> {
     let mut by_field: BTreeMap<&str, Vec<&PlotStats>> = BTreeMap::new();
     for p in plots
         .iter()
@@ -1663,6 +1673,10 @@ pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustE
     }
     let joint = s.pooling == Pooling::Joint && preps.len() > 1;
     let shared = joint && s.shared_range;
+    progress.start(
+        2 * preps.len() as u64 + u64::from(joint),
+        "field scans and fits",
+    );
     let lats: Vec<Lattice> = if shared {
         let mut models: Vec<FieldModel> = preps
             .iter_mut()
@@ -1671,12 +1685,17 @@ pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustE
         let lat = scan_shared(&mut models, s);
         for (p, m) in preps.iter_mut().zip(models) {
             p.model = m;
+            progress.step();
         }
         vec![lat; preps.len()]
     } else {
         preps
             .par_iter_mut()
-            .map(|p| scan_own(&mut p.model, s))
+            .map(|p| {
+                let lat = scan_own(&mut p.model, s);
+                progress.step();
+                lat
+            })
             .collect()
     };
     let (products, global, maps) = effect_priors(&preps, s);
@@ -1684,7 +1703,11 @@ pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustE
         .par_iter()
         .zip(lats.par_iter())
         .zip(maps.par_iter())
-        .map(|((p, lat), map)| fit_own(p, lat, &global, map, &products, s))
+        .map(|((p, lat), map)| {
+            let f = fit_own(p, lat, &global, map, &products, s);
+            progress.step();
+            f
+        })
         .collect();
     let mut out = AdjustOutput {
         comparisons: Vec::new(),
@@ -1710,7 +1733,9 @@ pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustE
         return Err(AdjustError::NothingToFit(out.warnings));
     }
     let jf = if joint && keep.len() == preps.len() {
-        fit_joint(&preps, &lats, shared, &global, &maps, s)
+        let j = fit_joint(&preps, &lats, shared, &global, &maps, s);
+        progress.step();
+        j
     } else {
         if joint {
             out.warnings

@@ -851,6 +851,16 @@ fn clean_export<'a>(
 
 /// Run clean on all exports (in parallel, one export per task).
 pub fn run(points: &PointSet, s: &CleanSettings, crop: &Crop) -> CleanOutput {
+    run_with(points, s, crop, &crate::progress::Progress::none())
+}
+
+/// [`run`], reporting each export cleaned to `progress`.
+pub fn run_with(
+    points: &PointSet,
+    s: &CleanSettings,
+    crop: &Crop,
+    progress: &crate::progress::Progress,
+) -> CleanOutput {
     let mut by_file: BTreeMap<u32, Vec<&Point>> = BTreeMap::new();
     for p in &points.points {
         by_file.entry(p.file).or_default().push(p);
@@ -859,10 +869,12 @@ pub fn run(points: &PointSet, s: &CleanSettings, crop: &Crop) -> CleanOutput {
         pts.sort_by(|a, b| a.time_s.total_cmp(&b.time_s).then(a.row.cmp(&b.row)));
     }
     let groups: Vec<(u32, Vec<&Point>)> = by_file.into_iter().collect();
+    progress.start(groups.len() as u64, "exports cleaned");
     let results: Vec<(u32, Vec<Work>, ExportDetails)> = groups
         .par_iter()
         .map(|(f, pts)| {
             let (w, d) = clean_export(pts, s, crop);
+            progress.step();
             (*f, w, d)
         })
         .collect();
