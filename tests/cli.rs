@@ -761,6 +761,22 @@ fn bad_settings_name_the_key() {
             "clean.delay.min_s=25",
             "clean.delay.min_s must not be above clean.delay.max_s (got 25 and 20)",
         ),
+        (
+            "adjust.product_prior_mean.prod-a=0.3",
+            "adjust.product_prior_mean.prod-a has no adjust.product_prior_sd.prod-a",
+        ),
+        (
+            "adjust.product_prior_sd.prod-a=0",
+            "adjust.product_prior_sd.prod-a must be above 0 (got 0)",
+        ),
+        (
+            "adjust.pooling=\"together\"",
+            "adjust.pooling must be \"joint\" or \"separate\" (got \"together\")",
+        ),
+        (
+            "adjust.range_grid_points=2",
+            "adjust.range_grid_points must be between 3 and 40 (got 2)",
+        ),
     ];
     for (set, msg) in cases {
         let o = plotsieve(&w.0, &["run", t, "--out", "run", "--set", set]);
@@ -769,6 +785,68 @@ fn bad_settings_name_the_key() {
         assert!(e.contains(msg), "--set {set}: expected {msg:?} in {e}");
     }
     assert!(!w.path("run").exists(), "a bad setting writes nothing");
+}
+
+#[test]
+fn joint_adjust_writes_priors_intervals_and_the_interaction_row() {
+    // The demo trial has two fields: the joint fit's tables through the binary, with an
+    // informative prior on one product given on the command line.
+    let w = Workdir::new("joint");
+    let trial = simulate(&w, "trial", &["--seed", "3"]);
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            trial.to_str().unwrap(),
+            "--out",
+            "run",
+            "--quiet",
+            "--set",
+            "adjust.product_prior_mean.prod-a=0.25",
+            "--set",
+            "adjust.product_prior_sd.prod-a=0.1",
+        ],
+    ));
+    let h = csv_rows(&w.path("run/4-adjust/hyperparameters.csv"));
+    let all = h.iter().find(|r| r["field"] == "all").expect("joint row");
+    let (m, lo, hi): (f64, f64, f64) = (
+        all["interaction_sd_t_ha"].parse().unwrap(),
+        all["interaction_sd_lo95_t_ha"].parse().unwrap(),
+        all["interaction_sd_hi95_t_ha"].parse().unwrap(),
+    );
+    assert!(lo <= m && m <= hi && hi > 0.0, "{m} {lo} {hi}");
+    assert!(all["method"].starts_with("joint"), "{}", all["method"]);
+    for r in h.iter().filter(|r| r["field"] != "all") {
+        let v = |k: &str| -> f64 { r[k].parse().unwrap() };
+        assert!(
+            v("noise_sd_lo95_t_ha") <= v("noise_sd_t_ha")
+                && v("noise_sd_t_ha") <= v("noise_sd_hi95_t_ha")
+        );
+        assert!(v("spatial_share_lo95") >= 0.0 && v("spatial_share_hi95") <= 1.0);
+        assert_eq!(r["method"], "exact");
+    }
+    let t = csv_rows(&w.path("run/4-adjust/treatments.csv"));
+    for r in t.iter().filter(|r| r["treatment"] != "check") {
+        let v = |k: &str| -> f64 { r[k].parse().unwrap() };
+        assert!(
+            v("uplift_lo95_t_ha") < v("uplift_lo90_t_ha")
+                && v("uplift_lo90_t_ha") < v("uplift_t_ha")
+        );
+        assert!(
+            v("uplift_t_ha") < v("uplift_hi90_t_ha")
+                && v("uplift_hi90_t_ha") < v("uplift_hi95_t_ha")
+        );
+        if r["treatment"] == "prod-a" {
+            assert_eq!((v("prior_mean_t_ha"), v("prior_sd_t_ha")), (0.25, 0.1));
+        } else {
+            assert!(v("prior_sd_t_ha") > 1.0, "weak default prior");
+        }
+    }
+    let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
+    assert!(
+        md.contains("0.25 +- 0.10"),
+        "the prior is shown beside the posterior"
+    );
 }
 
 #[test]

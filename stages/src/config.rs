@@ -461,10 +461,21 @@ fn apply_override(tree: &mut Value, spec: &str) -> Result<(), ConfigError> {
         .split_once('=')
         .ok_or_else(|| ConfigError::BadOverride(spec.to_string()))?;
     let key = key.trim();
+    let parts: Vec<&str> = key.split('.').collect();
     let mut node = &mut *tree;
-    for part in key.split('.') {
+    for (i, part) in parts.iter().enumerate() {
+        // A new name in a table of the user's own names (e.g. a product's cost) is added.
+        let parent = parts[..i].join(".");
+        if i + 1 == parts.len() && FREE_TABLES.contains(&parent.as_str()) {
+            if let Value::Table(t) = node {
+                if !t.contains_key(*part) {
+                    t.insert(part.to_string(), parse_override_value(text.trim()));
+                    return Ok(());
+                }
+            }
+        }
         node = match node {
-            Value::Table(t) => t.get_mut(part).ok_or_else(|| ConfigError::UnknownKey {
+            Value::Table(t) => t.get_mut(*part).ok_or_else(|| ConfigError::UnknownKey {
                 key: key.to_string(),
                 hint: "no such key in the configuration (see config/defaults.toml)".into(),
             })?,
