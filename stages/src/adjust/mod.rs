@@ -358,6 +358,21 @@ pub struct FieldData {
     pub kernel: Kernel,
 }
 
+impl FieldData {
+    /// The dense form of a field's design (isotropic distances on its coordinates).
+    pub fn from_design(d: &Design) -> FieldData {
+        FieldData {
+            y: d.y.clone(),
+            xy: d.coords.clone(),
+            x: (0..d.n())
+                .map(|i| d.x[i * d.p..(i + 1) * d.p].to_vec())
+                .collect(),
+            p: d.p,
+            kernel: d.kernel,
+        }
+    }
+}
+
 /// Everything computed at one set of hyperparameters.
 pub struct Evaluation {
     pub reml: f64,
@@ -893,7 +908,6 @@ fn scan_own(m: &mut FieldModel, s: &FitSettings) -> Lattice {
     let bounds = m.bounds;
     let h = lattice_h(dims, bounds, s.range_grid_points);
     let rho0 = m.rho0;
-    let aniso = m.anisotropic;
     let mut masses = |keys: &[(i64, i64)]| -> Vec<f64> {
         eval_nodes(m, keys, bounds, h);
         keys.iter()
@@ -903,16 +917,7 @@ fn scan_own(m: &mut FieldModel, s: &FitSettings) -> Lattice {
             })
             .collect()
     };
-    let (keys, h2, at_bound) = range_lattice(dims, bounds, s.range_grid_points, &mut masses);
-    let _ = aniso;
-    Lattice {
-        keys,
-        bounds,
-        h: h2,
-        rho0,
-        at_bound,
-        lvol: h2[0].ln() + if dims == 2 { h2[1].ln() } else { 0.0 },
-    }
+    lattice(dims, bounds, rho0, s.range_grid_points, &mut masses)
 }
 
 /// Scans all fields on one shared lattice of length scales.
@@ -954,14 +959,25 @@ fn scan_shared(models: &mut [FieldModel], s: &FitSettings) -> Lattice {
             })
             .collect()
     };
-    let (keys, h2, at_bound) = range_lattice(dims, bounds, s.range_grid_points, &mut masses);
+    lattice(dims, bounds, rho0, s.range_grid_points, &mut masses)
+}
+
+/// The refined length-scale lattice (`field::range_lattice`) as a [`Lattice`].
+fn lattice(
+    dims: usize,
+    bounds: [(f64, f64); 2],
+    rho0: (f64, f64),
+    coarse: usize,
+    masses: &mut dyn FnMut(&[(i64, i64)]) -> Vec<f64>,
+) -> Lattice {
+    let (keys, h, at_bound) = range_lattice(dims, bounds, coarse, masses);
     Lattice {
         keys,
         bounds,
-        h: h2,
+        h,
         rho0,
         at_bound,
-        lvol: h2[0].ln() + if dims == 2 { h2[1].ln() } else { 0.0 },
+        lvol: h[0].ln() + if dims == 2 { h[1].ln() } else { 0.0 },
     }
 }
 
@@ -1543,21 +1559,22 @@ fn fit_joint(
         combine(&fits, maps, global, snodes[j].0, false)
             .map_or(f64::NEG_INFINITY, |c| c.log_c - tilt)
     };
-    // Pilot draws, seeded per cell so the result does not depend on thread scheduling.
-    let pilot = 16;
-    let mut draws: Vec<Vec<(Vec<usize>, f64)>> = cells
-        .par_iter()
-        .enumerate()
-        .map(|(ci, _)| {
-            let mut rng = Rng::new(s.seed ^ (0x9e37_79b9 * (ci as u64 + 1)));
-            (0..pilot)
-                .map(|_| {
-                    let pick = draw(&mut rng, ci);
-                    let lc = log_c(ci, &pick);
-                    (pick, lc)
-                })
-                .collect()
-        })
+    // `k` draws in cell `ci`, seeded per cell (and per round) so that the result does not
+    // depend on thread scheduling.
+    let sample = |ci: usize, k: usize, round: u64| -> Vec<(Vec<usize>, f64)> {
+        let mut rng = Rng::new(s.seed ^ (round * (ci as u64 + 1)));
+        (0..k)
+            .map(|_| {
+                let pick = draw(&mut rng, ci);
+                let lc = log_c(ci, &pick);
+                (pick, lc)
+            })
+            .collect()
+    };
+    // A pilot of 16 draws per cell, then `joint_draws` spread by the cells' estimated mass.
+    let mut draws: Vec<Vec<(Vec<usize>, f64)>> = (0..cells.len())
+        .into_par_iter()
+        .map(|ci| sample(ci, 16, 0x9e37_79b9))
         .collect();
     let cell_mass: Vec<f64> = cells
         .iter()
@@ -1565,20 +1582,15 @@ fn fit_joint(
         .map(|(c, d)| c.2 + log_sum_exp(d.iter().map(|x| x.1)) - (d.len() as f64).ln())
         .collect();
     let top = log_sum_exp(cell_mass.iter().cloned());
-    let more: Vec<Vec<(Vec<usize>, f64)>> = cells
-        .par_iter()
-        .enumerate()
-        .map(|(ci, _)| {
+    let more: Vec<Vec<(Vec<usize>, f64)>> = (0..cells.len())
+        .into_par_iter()
+        .map(|ci| {
             let share = (cell_mass[ci] - top).exp();
-            let k = (share * s.joint_draws as f64).round() as usize;
-            let mut rng = Rng::new(s.seed ^ (0x85eb_ca6b * (ci as u64 + 1)));
-            (0..k)
-                .map(|_| {
-                    let pick = draw(&mut rng, ci);
-                    let lc = log_c(ci, &pick);
-                    (pick, lc)
-                })
-                .collect()
+            sample(
+                ci,
+                (share * s.joint_draws as f64).round() as usize,
+                0x85eb_ca6b,
+            )
         })
         .collect();
     for (d, m) in draws.iter_mut().zip(more) {
@@ -2419,15 +2431,7 @@ mod tests {
         s.blocks = true;
         let prep = prepare("F", plots.iter().collect(), &s).unwrap();
         let d = &prep.model.design;
-        let data = FieldData {
-            y: d.y.clone(),
-            xy: d.coords.clone(),
-            x: (0..d.n())
-                .map(|i| d.x[i * d.p..(i + 1) * d.p].to_vec())
-                .collect(),
-            p: d.p,
-            kernel: d.kernel,
-        };
+        let data = FieldData::from_design(d);
         for (l, sf, sn) in [(20.0, 0.5, 0.2), (80.0, 1.2, 0.05), (300.0, 0.1, 0.4)] {
             let rep = spectral::Repr::exact(d, (l, l)).unwrap();
             let e = rep.evaluate(sf, sn).unwrap();

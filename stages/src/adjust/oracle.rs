@@ -29,15 +29,7 @@ struct Target<'a> {
 impl<'a> Target<'a> {
     fn new(prep: &'a Prepared<'a>, prior: EffectPrior) -> Target<'a> {
         let d = &prep.model.design;
-        let data = FieldData {
-            y: d.y.clone(),
-            xy: d.coords.clone(),
-            x: (0..d.n())
-                .map(|i| d.x[i * d.p..(i + 1) * d.p].to_vec())
-                .collect(),
-            p: d.p,
-            kernel: d.kernel,
-        };
+        let data = FieldData::from_design(d);
         let map = FieldMap {
             index: (0..prior.mean.len()).collect(),
         };
