@@ -1625,19 +1625,20 @@ fn gp_likelihood_and_predictions_match_scipy_and_scikit_learn() {
 
 #[test]
 fn calibration_over_200_simulated_trials() {
-    // Known-truth simulation: 200 trials (two fields each, five products against the check).
-    // 95 % intervals of the per-field uplifts should cover the true uplift 92-98 % of the time,
-    // and a product with no true effect (prod-c) should get P(uplift > 0) > 0.95 in about 5 %
-    // of fields.
+    // Known-truth simulation: 200 trials (two fields each, five products against the check),
+    // fitted jointly. 95 % intervals of the per-field uplifts and of the pooled uplifts
+    // should each cover the true uplift 92-98 % of the time, and a product with no true
+    // effect (prod-c) should get P(uplift > 0) > 0.95 in about 5 % of fields.
     let w = Workdir::new("calibration");
     let seeds: Vec<u64> = (1000..1200).collect();
-    let results: Vec<(usize, usize, usize, usize)> = std::thread::scope(|sc| {
+    let results: Vec<[usize; 6]> = std::thread::scope(|sc| {
         let handles: Vec<_> = seeds
             .chunks(100)
             .map(|chunk| {
                 let w = &w;
                 sc.spawn(move || {
-                    let (mut cov, mut tot, mut fp, mut nulls) = (0, 0, 0, 0);
+                    let (mut cov, mut tot, mut fp, mut nulls, mut pcov, mut ptot) =
+                        (0, 0, 0, 0, 0, 0);
                     for seed in chunk {
                         let dir = format!("t{seed}");
                         let trial = simulate(w, &dir, &["--seed", &seed.to_string()]);
@@ -1648,12 +1649,17 @@ fn calibration_over_200_simulated_trials() {
                         ));
                         let truth = json(&w.path(&dir).join("truth.json"));
                         for r in csv_rows(&w.path(&out).join("4-adjust/treatments.csv")) {
-                            if r["treatment"] == "check" || r["field"] == "all" {
+                            if r["treatment"] == "check" {
                                 continue;
                             }
                             let t = truth["effects_t_ha"][&r["treatment"]].as_f64().unwrap();
                             let lo: f64 = r["uplift_lo95_t_ha"].parse().unwrap();
                             let hi: f64 = r["uplift_hi95_t_ha"].parse().unwrap();
+                            if r["field"] == "all" {
+                                ptot += 1;
+                                pcov += usize::from(lo <= t && t <= hi);
+                                continue;
+                            }
                             tot += 1;
                             cov += usize::from(lo <= t && t <= hi);
                             if t == 0.0 {
@@ -1664,20 +1670,27 @@ fn calibration_over_200_simulated_trials() {
                         let _ = std::fs::remove_dir_all(w.path(&dir));
                         let _ = std::fs::remove_dir_all(w.path(&out));
                     }
-                    (cov, tot, fp, nulls)
+                    [cov, tot, fp, nulls, pcov, ptot]
                 })
             })
             .collect();
         handles.into_iter().map(|h| h.join().unwrap()).collect()
     });
-    let (cov, tot, fp, nulls) = results.iter().fold((0, 0, 0, 0), |a, b| {
-        (a.0 + b.0, a.1 + b.1, a.2 + b.2, a.3 + b.3)
-    });
+    let [cov, tot, fp, nulls, pcov, ptot] = results
+        .iter()
+        .fold([0; 6], |a, b| std::array::from_fn(|k| a[k] + b[k]));
     let coverage = cov as f64 / tot as f64;
     let false_pos = fp as f64 / nulls as f64;
     eprintln!("coverage {cov}/{tot} = {coverage:.3}; null products with P(uplift > 0) > 0.95: {fp}/{nulls} = {false_pos:.3}");
+    let pooled = pcov as f64 / ptot as f64;
+    eprintln!("pooled coverage {pcov}/{ptot} = {pooled:.3}");
     assert_eq!(tot, 2000);
+    assert_eq!(ptot, 1000);
     assert!((0.92..=0.98).contains(&coverage), "coverage {coverage:.3}");
+    assert!(
+        (0.92..=0.98).contains(&pooled),
+        "pooled coverage {pooled:.3}"
+    );
     assert!(
         (0.02..=0.09).contains(&false_pos),
         "false-positive rate {false_pos:.3}"
