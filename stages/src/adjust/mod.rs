@@ -2455,4 +2455,44 @@ mod tests {
             }
         }
     }
+
+    #[test]
+    fn joint_fit_handles_fields_with_different_products() {
+        // Field F holds chk, a, b; field G holds chk, a, c: "a" is pooled over both, "b" and
+        // "c" come from one field each, and the pooled row of a one-field product matches
+        // that field's row up to the interaction's shrinkage.
+        let mut plots = trend_field("F", 4, 6, 0.3, 41);
+        let mut g = trend_field("G", 4, 6, 0.3, 42);
+        for p in g.iter_mut().filter(|p| p.treatment == "b") {
+            p.treatment = "c".into();
+        }
+        plots.extend(g);
+        let out = run(&plots, &settings()).unwrap();
+        for (f, t) in [
+            ("F", "b"),
+            ("G", "c"),
+            ("all", "a"),
+            ("all", "b"),
+            ("all", "c"),
+        ] {
+            let r = row(&out, f, t);
+            assert!(r.uplift.is_finite() && r.uplift_sd > 0.0, "{f} {t}");
+        }
+        assert!(out
+            .treatments
+            .iter()
+            .all(|r| !(r.field == "F" && r.treatment == "c")));
+        assert_eq!(row(&out, "all", "a").plots, 16);
+        assert_eq!(row(&out, "all", "c").plots, 8);
+        let (fc, pc) = (row(&out, "G", "c"), row(&out, "all", "c"));
+        eprintln!(
+            "G c {:.3} +- {:.3}; pooled c {:.3} +- {:.3}",
+            fc.uplift, fc.uplift_sd, pc.uplift, pc.uplift_sd
+        );
+        assert!((fc.uplift - pc.uplift).abs() < 0.5 * fc.uplift_sd);
+        assert!(
+            pc.uplift_sd >= fc.uplift_sd * 0.99,
+            "one field cannot pin the mean effect more tightly"
+        );
+    }
 }

@@ -363,6 +363,19 @@ mod tests {
                 "{i},{j}: {approx} vs {exact}"
             );
         }
+        // Anisotropic length scales (10 m along x, 25 m along y): the same check.
+        let r = Repr::hsgp(&d, (10.0, 25.0), 2500, 2.0).unwrap();
+        let u = r.u();
+        for (i, j) in [(55, 55), (55, 56), (55, 65), (0, 0), (0, 11)] {
+            let approx: f64 = (0..r.w.len()).map(|k| u[(i, k)] * r.w[k] * u[(j, k)]).sum();
+            let (a, b) = (coords[i], coords[j]);
+            let h = (((a.0 - b.0) / 10.0).powi(2) + ((a.1 - b.1) / 25.0).powi(2)).sqrt();
+            let exact = Kernel::Matern52.cov(h, 1.0, 1.0);
+            assert!(
+                (approx - exact).abs() < 0.02,
+                "anisotropic {i},{j}: {approx} vs {exact}"
+            );
+        }
         // The spectral density integrates to the variance: (1/4pi^2) int S dw = 1, here by a
         // radial midpoint sum for the squared exponential and Matern 3/2 at l = 3.
         for k in [Kernel::SquaredExponential, Kernel::Matern32] {
