@@ -46,6 +46,10 @@ pub struct Component {
     /// mean yield (check first) (mean, variance).
     pub delta: Vec<Vec<(f64, f64)>>,
     pub est: Vec<Vec<(f64, f64)>>,
+    /// Per field: the posterior mean (p) and covariance (p x p) of all its mean parameters
+    /// (field mean, contrasts, blocks) given its contrasts' joint posterior:
+    /// E b = b_hat + M (E delta - c_hat), Cov b = C - M C_c. + M Cov(delta) M', M = C_.c V^-1.
+    pub b: Vec<(Vec<f64>, Vec<f64>)>,
 }
 
 /// One field's contrasts at a fit and their covariance with the interaction added:
@@ -130,11 +134,13 @@ pub fn combine(
             beta_var: Vec::new(),
             delta: Vec::new(),
             est: Vec::new(),
+            b: Vec::new(),
         });
     }
     let sb = linalg::inverse(&lp, np);
     let mut delta = Vec::with_capacity(fits.len());
     let mut est = Vec::with_capacity(fits.len());
+    let mut bs = Vec::with_capacity(fits.len());
     for ((fit, map), loc) in fits.iter().zip(maps).zip(&locals) {
         let d = map.index.len();
         let p = (fit.cov.len() as f64).sqrt().round() as usize;
@@ -170,6 +176,26 @@ pub fn combine(
         }
         delta.push((0..d).map(|a| (dm[a], dc[a * d + a].max(0.0))).collect());
         est.push(e);
+        // All mean parameters: M = C_.c V^-1 (p x d), row r solving V x = C_c,r.
+        let mut m = vec![0.0; p * d];
+        for r in 0..p {
+            let mut x: Vec<f64> = (1..=d).map(|i| fit.cov[i * p + r]).collect();
+            linalg::solve(&lv, d, &mut x);
+            m[r * d..(r + 1) * d].copy_from_slice(&x);
+        }
+        let shift: Vec<f64> = (0..d).map(|a| dm[a] - loc.c[a]).collect();
+        let mean_b: Vec<f64> = (0..p)
+            .map(|r| fit.b[r] + (0..d).map(|a| m[r * d + a] * shift[a]).sum::<f64>())
+            .collect();
+        let c_c: Vec<f64> = (0..d * p)
+            .map(|k| fit.cov[(k / p + 1) * p + k % p])
+            .collect();
+        let mcc = linalg::matmul(&m, &c_c, p, d, p);
+        let mdc = linalg::matmul(&m, &dc, p, d, d);
+        let mt: Vec<f64> = (0..d * p).map(|k| m[(k % p) * d + k / p]).collect();
+        let mdcm = linalg::matmul(&mdc, &mt, p, d, p);
+        let cov_b: Vec<f64> = (0..p * p).map(|k| fit.cov[k] - mcc[k] + mdcm[k]).collect();
+        bs.push((mean_b, cov_b));
     }
     Some(Component {
         log_c,
@@ -177,6 +203,7 @@ pub fn combine(
         beta_var: (0..np).map(|k| sb[k * np + k].max(0.0)).collect(),
         delta,
         est,
+        b: bs,
     })
 }
 
@@ -400,6 +427,15 @@ mod tests {
         assert!((c.est[0][0].0 - 10.04).abs() < 1e-12);
         // var b0 = 0.2 - 0.1^2 / 0.25 + 0.4^2 x 0.2 = 0.192.
         assert!((c.est[0][0].1 - 0.192).abs() < 1e-12);
+        // All mean parameters together: (b0, c) means (10.04, 0.9); covariance
+        // [[0.192, -0.08], [-0.08, 0.2]] with cov(b0, c) = -0.4 x 0.2.
+        let (mb, cb) = &c.b[0];
+        for (x, e) in mb.iter().zip([10.04, 0.9]) {
+            assert!((x - e).abs() < 1e-12);
+        }
+        for (x, e) in cb.iter().zip([0.192, -0.08, -0.08, 0.2]) {
+            assert!((x - e).abs() < 1e-12, "{x} vs {e}");
+        }
     }
 
     #[test]

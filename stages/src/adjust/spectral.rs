@@ -291,6 +291,17 @@ impl Repr {
     /// the GLS fit `fit`, including the uncertainty of the mean parameters (R&W 2006 eq. 2.42):
     /// mean K Ky^-1 r; variance diag(K - K Ky^-1 K + R' cov(b) R), R = X' Ky^-1 K.
     pub fn spatial(&self, d: &Design, sf: f64, sn: f64, fit: &Inner) -> (Vec<f64>, Vec<f64>) {
+        let parts = self.spatial_parts(d, sf, sn, fit);
+        let var = (0..self.n)
+            .map(|i| parts.cond_var[i] + parts.quad(i, &fit.cov))
+            .collect();
+        (parts.mean, var)
+    }
+
+    /// The pieces of [`Repr::spatial`]: the mean at the GLS fit, the variance with the mean
+    /// parameters known, and R' = K Ky^-1 X (n x p), so that other mean-parameter moments
+    /// (from a joint fit) give mean + R'(b_hat - E b) and cond + diag(R' Cov b R).
+    pub fn spatial_parts(&self, d: &Design, sf: f64, sn: f64, fit: &Inner) -> SpatialParts {
         let (n, p, r) = (self.n, self.p, self.w.len());
         let u = self.u();
         let (vf, vn) = (sf * sf, sn * sn);
@@ -301,23 +312,47 @@ impl Repr {
         let ur = u.transpose() * &resid;
         let gur = Mat::from_fn(r, 1, |i, _| g[i] * ur[(i, 0)]);
         let mean_m = &u * &gur;
-        // R' = U diag(g) U'X (n x p).
         let gux = Mat::from_fn(r, p, |i, j| g[i] * self.ux[i * p + j]);
-        let rt = &u * &gux;
-        let mean = (0..n).map(|i| mean_m[(i, 0)]).collect();
-        let var = (0..n)
-            .map(|i| {
-                let cond: f64 = (0..r).map(|k| u[(i, k)].powi(2) * g[k] * vn).sum();
-                let mut extra = 0.0;
-                for a in 0..p {
-                    for b in 0..p {
-                        extra += rt[(i, a)] * fit.cov[a * p + b] * rt[(i, b)];
-                    }
-                }
-                (cond + extra).max(0.0)
-            })
-            .collect();
-        (mean, var)
+        let rt_m = &u * &gux;
+        SpatialParts {
+            p,
+            mean: (0..n).map(|i| mean_m[(i, 0)]).collect(),
+            cond_var: (0..n)
+                .map(|i| (0..r).map(|k| u[(i, k)].powi(2) * g[k] * vn).sum())
+                .collect(),
+            rt: (0..n * p).map(|k| rt_m[(k / p, k % p)]).collect(),
+        }
+    }
+}
+
+/// See [`Repr::spatial_parts`].
+pub struct SpatialParts {
+    pub p: usize,
+    pub mean: Vec<f64>,
+    pub cond_var: Vec<f64>,
+    /// K Ky^-1 X, n x p, row major.
+    pub rt: Vec<f64>,
+}
+
+impl SpatialParts {
+    /// R'_i Cov R_i for plot i and a p x p covariance of the mean parameters.
+    pub fn quad(&self, i: usize, cov: &[f64]) -> f64 {
+        let p = self.p;
+        let row = &self.rt[i * p..(i + 1) * p];
+        let mut s = 0.0;
+        for a in 0..p {
+            for b in 0..p {
+                s += row[a] * cov[a * p + b] * row[b];
+            }
+        }
+        s.max(0.0)
+    }
+    /// R'_i (b_hat - E b): the mean's shift for other mean-parameter means.
+    pub fn shift(&self, i: usize, b_hat: &[f64], mean_b: &[f64]) -> f64 {
+        let p = self.p;
+        (0..p)
+            .map(|a| self.rt[i * p + a] * (b_hat[a] - mean_b[a]))
+            .sum()
     }
 }
 
