@@ -56,9 +56,6 @@ use rayon::prelude::*;
 use spectral::{Design, Method};
 use std::collections::{BTreeMap, BTreeSet};
 
-/// z value of a two-sided 95 % normal interval.
-const Z95: f64 = 1.959_963_984_540_054;
-
 /// No field could be fitted.
 #[derive(Debug, thiserror::Error)]
 pub enum AdjustError {
@@ -1085,7 +1082,6 @@ fn fit_own(
     lat: &Lattice,
     global: &EffectPrior,
     map: &FieldMap,
-    products: &[String],
     s: &FitSettings,
 ) -> Result<FieldFit, String> {
     let m = &prep.model;
@@ -1141,7 +1137,6 @@ fn fit_own(
         });
         let pr = (t > 0).then(|| {
             let g = map.index[t - 1];
-            let _ = &products[g];
             (global.mean[g], global.var[g].sqrt())
         });
         let row = treatment_row(
@@ -1699,7 +1694,7 @@ pub fn run_with(
         .zip(lats.par_iter())
         .zip(maps.par_iter())
         .map(|((p, lat), map)| {
-            let f = fit_own(p, lat, &global, map, &products, s);
+            let f = fit_own(p, lat, &global, map, s);
             progress.step();
             f
         })
@@ -1915,7 +1910,6 @@ pub fn run_with(
             }
         }
     }
-    let _ = Z95;
     Ok(out)
 }
 
