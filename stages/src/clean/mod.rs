@@ -3,7 +3,8 @@
 //!
 //! Rules, applied in this order within each export (time-ordered); a point is removed by the
 //! first rule it breaks, and that rule, the column, the value found and the limit go to the
-//! rejection table. Any rule can be switched off with `clean.disabled_rules`.
+//! rejection table. Any rule can be switched off with `clean.disabled_rules`; the later rules
+//! still test the points it would have removed.
 //!
 //! 1. `work_state_off`: the export's work-state column (when mapped) says not harvesting.
 //! 2. `gps_duplicate`: a second record with the same time stamp (the first is kept).
@@ -340,7 +341,8 @@ fn clean_export<'a>(
         let p = wi.p;
         if p.work_state == 0.0 {
             rules.reject(wi, "work_state_off", "work_state", 0.0, "!= 0".into());
-        } else if p.time_s <= last_t {
+        }
+        if p.time_s <= last_t {
             rules.reject(
                 wi,
                 "gps_duplicate",
@@ -348,7 +350,8 @@ fn clean_export<'a>(
                 p.time_s,
                 format!("> {last_t}"),
             );
-        } else if s.gps.max_hdop > 0.0 && p.hdop > s.gps.max_hdop {
+        }
+        if s.gps.max_hdop > 0.0 && p.hdop > s.gps.max_hdop {
             rules.reject(
                 wi,
                 "gps_quality",
@@ -552,7 +555,8 @@ fn clean_export<'a>(
                     t1 - t0,
                     format!(">= {} s", s.pass.min_pass_s),
                 );
-            } else if t - t0 < s.pass.start_trim_s {
+            }
+            if t - t0 < s.pass.start_trim_s {
                 rules.reject(
                     &mut w[i],
                     "pass_start",
@@ -573,7 +577,8 @@ fn clean_export<'a>(
                         s.pass.fill_fraction
                     ),
                 );
-            } else if t1 - t < s.pass.end_trim_s {
+            }
+            if t1 - t < s.pass.end_trim_s {
                 rules.reject(
                     &mut w[i],
                     "pass_end",
@@ -634,7 +639,8 @@ fn clean_export<'a>(
                 p.speed_m_s,
                 format!(">= {}", s.speed.min_m_s),
             );
-        } else if p.speed_m_s > s.speed.max_m_s {
+        }
+        if p.speed_m_s > s.speed.max_m_s {
             rules.reject(
                 &mut w[k],
                 "speed_max",
@@ -642,7 +648,8 @@ fn clean_export<'a>(
                 p.speed_m_s,
                 format!("<= {}", s.speed.max_m_s),
             );
-        } else if change[k] > s.speed.max_change_fraction {
+        }
+        if change[k] > s.speed.max_change_fraction {
             let v = change[k];
             rules.reject(
                 &mut w[k],
@@ -659,7 +666,8 @@ fn clean_export<'a>(
                 nearest_change,
                 format!("> {} s from a change", s.speed.settle_s),
             );
-        } else if let Some(&med) = pass_speed.get(&w[k].pass) {
+        }
+        if let Some(&med) = pass_speed.get(&w[k].pass) {
             let limit = s.speed.min_fraction_of_pass_median * med;
             if p.speed_m_s < limit {
                 rules.reject(
@@ -758,7 +766,8 @@ fn clean_export<'a>(
                 m,
                 format!(">= {}", s.moisture.min_pct),
             );
-        } else if m > s.moisture.max_pct {
+        }
+        if m > s.moisture.max_pct {
             rules.reject(
                 wi,
                 "moisture_max",
@@ -766,7 +775,8 @@ fn clean_export<'a>(
                 m,
                 format!("<= {}", s.moisture.max_pct),
             );
-        } else if let Some(&(a, b)) = stuck.iter().find(|(a, b)| tm >= *a && tm <= *b) {
+        }
+        if let Some(&(a, b)) = stuck.iter().find(|(a, b)| tm >= *a && tm <= *b) {
             rules.reject(
                 wi,
                 "moisture_stuck",
@@ -1135,6 +1145,30 @@ mod tests {
         }
         let out = run(&set(pts2), &off, &crop);
         assert!(out.rejections.iter().all(|r| r.rule != "moisture_stuck"));
+    }
+
+    #[test]
+    fn a_rule_switched_off_lets_the_later_rules_see_its_points() {
+        let crop = crop_table()["corn"].clone();
+        let mut s = plain_settings();
+        s.moisture.stuck_s = 0.0; // constant moisture by construction
+        let mut pts = line(60, 2.0, true, 0.0, 0.0);
+        // A 0.3 m/s record in a 2 m/s pass: below speed_min and an 85 % change.
+        pts[30].speed_m_s = 0.3;
+        // A header-up record logged with a repeated time stamp.
+        pts[20].work_state = 0.0;
+        pts[20].time_s = pts[19].time_s;
+        let on = run(&set(pts.clone()), &s, &crop);
+        assert_eq!(rule_of(&on, 30).as_deref(), Some("speed_min"));
+        assert_eq!(rule_of(&on, 20).as_deref(), Some("work_state_off"));
+        // Switched off, those rules are absent: the next rules in the order take the points
+        // (before the fix the slow record escaped every speed rule and the header-up record
+        // escaped gps_duplicate).
+        s.disabled_rules = vec!["speed_min".into(), "work_state_off".into()];
+        let off = run(&set(pts), &s, &crop);
+        assert_eq!(rule_of(&off, 30).as_deref(), Some("speed_change"));
+        assert_eq!(rule_of(&off, 20).as_deref(), Some("gps_duplicate"));
+        assert_eq!(off.points.len() + off.rejections.len(), 60);
     }
 
     #[test]
