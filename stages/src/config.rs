@@ -10,6 +10,7 @@
 //!
 //! Errors: [`ConfigError`], each naming the key or file to fix.
 
+pub use crate::clean::settings::CleanSettings;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 use toml::Value;
@@ -205,93 +206,6 @@ pub struct TimeColumn {
 pub struct IngestSettings {
     pub utm_zone: i64,
     pub hemisphere: String,
-}
-
-/// `[clean.delay]`.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct DelaySettings {
-    pub mode: String,
-    pub min_s: f64,
-    pub max_s: f64,
-    pub step_s: f64,
-    pub pair_distance_m: f64,
-    pub min_pairs: i64,
-    pub estimate_moisture: bool,
-}
-/// `[clean.pass]`.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct PassSettings {
-    pub max_gap_s: f64,
-    pub max_heading_change_deg: f64,
-    pub min_pass_s: f64,
-    pub fill_mode: String,
-    pub start_trim_s: f64,
-    pub end_trim_s: f64,
-    pub fill_fraction: f64,
-}
-/// `[clean.speed]`.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct SpeedSettings {
-    pub min_m_s: f64,
-    pub max_m_s: f64,
-    pub max_change_fraction: f64,
-    pub settle_s: f64,
-    pub min_fraction_of_pass_median: f64,
-}
-/// `[clean.swath]`.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct SwathSettings {
-    pub min_fraction: f64,
-    pub max_overlap_fraction: f64,
-}
-/// `[clean.moisture]`.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct MoistureSettings {
-    pub min_pct: f64,
-    pub max_pct: f64,
-    pub stuck_s: f64,
-}
-/// `[clean.gps]`.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct GpsSettings {
-    pub jump_factor: f64,
-    pub jump_tolerance_m: f64,
-    pub max_hdop: f64,
-    pub min_fix_quality: i64,
-}
-/// `[clean.outlier]`.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct OutlierSettings {
-    pub method: String,
-    pub k_mad: f64,
-    pub tukey_k: f64,
-    pub local_radius_m: f64,
-    pub local_k: f64,
-    pub local_min_neighbours: i64,
-}
-
-/// `[clean]` settings.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct CleanSettings {
-    pub header_width_m: f64,
-    pub flow_delay_s: f64,
-    pub moisture_delay_s: f64,
-    pub disabled_rules: Vec<String>,
-    pub delay: DelaySettings,
-    pub pass: PassSettings,
-    pub speed: SpeedSettings,
-    pub swath: SwathSettings,
-    pub moisture: MoistureSettings,
-    pub gps: GpsSettings,
-    pub outlier: OutlierSettings,
 }
 
 /// `[plots]` settings.
@@ -518,11 +432,16 @@ impl TrialConfig {
         for o in overrides {
             apply_override(&mut tree, o)?;
         }
-        let cfg: TrialConfig =
-            serde_path_to_error::deserialize(tree).map_err(|e| ConfigError::Shape {
-                path: e.path().to_string(),
-                message: e.inner().to_string(),
-            })?;
+        let cfg: TrialConfig = serde_path_to_error::deserialize(tree).map_err(|e| {
+            let (path, message) = (e.path().to_string(), e.inner().to_string());
+            let message = message.trim_end().to_string();
+            if message.starts_with("must be ") {
+                // A choice outside its options (see `crate::choice`).
+                ConfigError::Invalid(vec![format!("{path} {message}")])
+            } else {
+                ConfigError::Shape { path, message }
+            }
+        })?;
         cfg.validate()?;
         Ok(cfg)
     }
@@ -542,153 +461,17 @@ impl TrialConfig {
     /// Check ranges and orderings; every problem names its key.
     pub fn validate(&self) -> Result<(), ConfigError> {
         let mut p = Vec::new();
-        let c = &self.clean;
+        self.clean.problems(&mut p);
         let mut nonneg = |key: &str, v: f64| {
             if !(v >= 0.0) || !v.is_finite() {
                 p.push(format!("{key} must be a finite number >= 0 (got {v})"));
             }
         };
-        nonneg("clean.header_width_m", c.header_width_m);
-        nonneg("clean.flow_delay_s", c.flow_delay_s);
-        nonneg("clean.moisture_delay_s", c.moisture_delay_s);
-        nonneg("clean.pass.max_gap_s", c.pass.max_gap_s);
-        nonneg(
-            "clean.pass.max_heading_change_deg",
-            c.pass.max_heading_change_deg,
-        );
-        nonneg("clean.pass.min_pass_s", c.pass.min_pass_s);
-        nonneg("clean.pass.start_trim_s", c.pass.start_trim_s);
-        nonneg("clean.pass.end_trim_s", c.pass.end_trim_s);
-        nonneg("clean.speed.min_m_s", c.speed.min_m_s);
-        nonneg("clean.speed.max_m_s", c.speed.max_m_s);
-        nonneg("clean.swath.min_fraction", c.swath.min_fraction);
-        nonneg("clean.moisture.min_pct", c.moisture.min_pct);
-        nonneg("clean.moisture.max_pct", c.moisture.max_pct);
-        nonneg("clean.gps.jump_factor", c.gps.jump_factor);
-        nonneg("clean.gps.jump_tolerance_m", c.gps.jump_tolerance_m);
-        nonneg("clean.outlier.k_mad", c.outlier.k_mad);
-        nonneg("clean.outlier.tukey_k", c.outlier.tukey_k);
-        nonneg("clean.outlier.local_radius_m", c.outlier.local_radius_m);
-        nonneg("clean.outlier.local_k", c.outlier.local_k);
-        nonneg("clean.delay.min_s", c.delay.min_s);
-        nonneg("clean.delay.max_s", c.delay.max_s);
-        nonneg("clean.delay.pair_distance_m", c.delay.pair_distance_m);
-        nonneg(
-            "clean.speed.max_change_fraction",
-            c.speed.max_change_fraction,
-        );
-        nonneg("clean.speed.settle_s", c.speed.settle_s);
-        nonneg(
-            "clean.speed.min_fraction_of_pass_median",
-            c.speed.min_fraction_of_pass_median,
-        );
-        nonneg(
-            "clean.swath.max_overlap_fraction",
-            c.swath.max_overlap_fraction,
-        );
-        nonneg("clean.moisture.stuck_s", c.moisture.stuck_s);
-        nonneg("clean.gps.max_hdop", c.gps.max_hdop);
-        nonneg("clean.pass.fill_fraction", c.pass.fill_fraction);
         nonneg("adjust.min_range_m", self.adjust.min_range_m);
         nonneg("adjust.max_range_m", self.adjust.max_range_m);
         nonneg("adjust.grain_price_per_t", self.adjust.grain_price_per_t);
         for (k, v) in &self.adjust.product_cost_per_ha {
             nonneg(&format!("adjust.product_cost_per_ha.{k}"), *v);
-        }
-        if c.speed.min_m_s >= c.speed.max_m_s {
-            p.push(format!(
-                "clean.speed.min_m_s must be below clean.speed.max_m_s (got {} and {})",
-                c.speed.min_m_s, c.speed.max_m_s
-            ));
-        }
-        if c.moisture.min_pct >= c.moisture.max_pct {
-            p.push(format!(
-                "clean.moisture.min_pct must be below clean.moisture.max_pct (got {} and {})",
-                c.moisture.min_pct, c.moisture.max_pct
-            ));
-        }
-        if c.moisture.max_pct >= 100.0 {
-            p.push(format!(
-                "clean.moisture.max_pct must be below 100 (got {})",
-                c.moisture.max_pct
-            ));
-        }
-        if c.delay.min_s > c.delay.max_s {
-            p.push(format!(
-                "clean.delay.min_s must not be above clean.delay.max_s (got {} and {})",
-                c.delay.min_s, c.delay.max_s
-            ));
-        }
-        if !(c.delay.step_s > 0.0) {
-            p.push(format!(
-                "clean.delay.step_s must be above 0 (got {})",
-                c.delay.step_s
-            ));
-        }
-        if !["auto", "fixed"].contains(&c.delay.mode.as_str()) {
-            p.push(format!(
-                "clean.delay.mode must be \"auto\" or \"fixed\" (got {:?})",
-                c.delay.mode
-            ));
-        }
-        if !["fixed", "flow"].contains(&c.pass.fill_mode.as_str()) {
-            p.push(format!(
-                "clean.pass.fill_mode must be \"fixed\" or \"flow\" (got {:?})",
-                c.pass.fill_mode
-            ));
-        }
-        if !["mad", "tukey"].contains(&c.outlier.method.as_str()) {
-            p.push(format!(
-                "clean.outlier.method must be \"mad\" or \"tukey\" (got {:?})",
-                c.outlier.method
-            ));
-        }
-        for r in &c.disabled_rules {
-            if !crate::clean::RULES.contains(&r.as_str()) {
-                p.push(format!(
-                    "clean.disabled_rules: unknown rule {r:?} (rules: {})",
-                    crate::clean::RULES.join(", ")
-                ));
-            }
-        }
-        if c.delay.min_pairs < 1 {
-            p.push(format!(
-                "clean.delay.min_pairs must be at least 1 (got {})",
-                c.delay.min_pairs
-            ));
-        }
-        if c.outlier.local_min_neighbours < 1 {
-            p.push(format!(
-                "clean.outlier.local_min_neighbours must be at least 1 (got {})",
-                c.outlier.local_min_neighbours
-            ));
-        }
-        for (k, v) in [
-            ("clean.pass.fill_fraction", c.pass.fill_fraction),
-            (
-                "clean.swath.max_overlap_fraction",
-                c.swath.max_overlap_fraction,
-            ),
-            (
-                "clean.speed.min_fraction_of_pass_median",
-                c.speed.min_fraction_of_pass_median,
-            ),
-        ] {
-            if v > 1.0 {
-                p.push(format!("{k} must be at most 1 (got {v})"));
-            }
-        }
-        if c.swath.min_fraction > 1.0 {
-            p.push(format!(
-                "clean.swath.min_fraction must be at most 1 (got {})",
-                c.swath.min_fraction
-            ));
-        }
-        if c.gps.jump_factor < 1.0 {
-            p.push(format!(
-                "clean.gps.jump_factor must be at least 1 (got {})",
-                c.gps.jump_factor
-            ));
         }
         if self.adjust.max_range_m > 0.0 && self.adjust.min_range_m >= self.adjust.max_range_m {
             p.push(format!(

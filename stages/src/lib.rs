@@ -4,6 +4,7 @@
 //! [`simulate`] invents complete trials with known truth for tests and demos.
 
 pub mod adjust;
+pub mod choice;
 pub mod clean;
 pub mod config;
 pub mod ingest;

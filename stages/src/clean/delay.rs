@@ -17,8 +17,13 @@
 //! fewer pairs than `min_pairs` (the caller then uses the fixed delay).
 //! Complexity: O(n log n) to pair with an R-tree, then O(n x lags).
 
+use super::passes;
+use super::rules::Export;
+use super::settings::DelayMode;
+use crate::util::median;
 use rstar::primitives::GeomWithData;
 use rstar::RTree;
+use std::collections::BTreeMap;
 
 /// One point offered for pairing.
 #[derive(Clone, Copy, Debug)]
@@ -220,6 +225,143 @@ pub fn estimate(
         pairs: pairs.len(),
         curve,
     })
+}
+
+/// Value of a time series at time `t` by linear interpolation; `None` past either end or
+/// when the bracketing records are more than `max_gap` apart.
+pub fn interpolate_at(times: &[f64], values: &[f64], t: f64, max_gap: f64) -> Option<f64> {
+    let n = times.len();
+    if n == 0 || t < times[0] || t > times[n - 1] {
+        return None;
+    }
+    let j = times.partition_point(|&x| x < t);
+    if j < n && times[j] == t {
+        return Some(values[j]);
+    }
+    let (a, b) = (j - 1, j);
+    let dt = times[b] - times[a];
+    if dt > max_gap {
+        return None;
+    }
+    let w = (t - times[a]) / dt;
+    Some(values[a] * (1.0 - w) + values[b] * w)
+}
+
+/// The delay shift (a derivation, not a rule). With `clean.delay.mode = "auto"` the flow and
+/// moisture delays are estimated from the export's live points ([`estimate`]), pairing only
+/// steady harvesting (full swath, speed in bounds and within 15 % of the pass median, more
+/// than 10 s from either end of the pass); otherwise, or with too few pairs, the fixed
+/// delays are used. Each live point then takes the flow and moisture logged `delay` later
+/// (linear interpolation on the sensors' time line); where none is within the gap limit the
+/// point keeps its own readings and `no_shift_data_at` records the time looked at (the rule
+/// `flow_delay_no_data` removes such points).
+pub fn shift(e: &mut Export) {
+    let s = e.s;
+    let header = e.header;
+    let d = &mut e.details;
+    if s.delay.mode == DelayMode::Auto {
+        let w = &e.w;
+        let heading = passes::headings(w);
+        let mut span: BTreeMap<u32, (f64, f64)> = BTreeMap::new();
+        let mut pass_speeds: BTreeMap<u32, Vec<f64>> = BTreeMap::new();
+        for wi in w.iter().filter(|w| w.alive()) {
+            let e = span
+                .entry(wi.pass)
+                .or_insert((f64::INFINITY, f64::NEG_INFINITY));
+            e.0 = e.0.min(wi.p.time_s);
+            e.1 = e.1.max(wi.p.time_s);
+            pass_speeds.entry(wi.pass).or_default().push(wi.p.speed_m_s);
+        }
+        let pass_median_speed: BTreeMap<u32, f64> =
+            pass_speeds.iter().map(|(k, v)| (*k, median(v))).collect();
+        let core: Vec<PairPoint> = w
+            .iter()
+            .zip(&heading)
+            .filter(|(wi, h)| {
+                let p = wi.p;
+                let (t0, t1) = span.get(&wi.pass).copied().unwrap_or((0.0, 0.0));
+                let med = pass_median_speed
+                    .get(&wi.pass)
+                    .copied()
+                    .unwrap_or(p.speed_m_s);
+                wi.alive()
+                    && h.is_finite()
+                    && p.speed_m_s >= s.speed.min_m_s.max(0.1)
+                    && p.speed_m_s <= s.speed.max_m_s
+                    && p.width_m >= s.swath.min_fraction * header
+                    && (p.speed_m_s / med - 1.0).abs() < 0.15
+                    && p.time_s - t0 > 10.0
+                    && t1 - p.time_s > 10.0
+            })
+            .map(|(wi, h)| PairPoint {
+                x: wi.p.x_m,
+                y: wi.p.y_m,
+                time_s: wi.p.time_s,
+                heading_deg: *h,
+                pass: wi.pass,
+                divisor: wi.p.speed_m_s * wi.p.width_m,
+            })
+            .collect();
+        let dist = if s.delay.pair_distance_m > 0.0 {
+            s.delay.pair_distance_m
+        } else {
+            1.2 * header
+        };
+        let est = |series: &[f64], pts: &[PairPoint]| {
+            estimate(
+                pts,
+                &e.times,
+                series,
+                s.pass.max_gap_s,
+                s.delay.min_s,
+                s.delay.max_s,
+                s.delay.step_s,
+                dist,
+                s.delay.min_pairs as usize,
+            )
+        };
+        let flow_est = est(&e.flows, &core);
+        if let Some(x) = &flow_est {
+            d.flow_delay_s = x.lag_s;
+            d.flow_delay_source = "estimated".into();
+        } else {
+            d.flow_delay_source = "fixed (too few opposite-pass pairs to estimate)".into();
+        }
+        d.flow_delay_estimate = flow_est;
+        if s.delay.estimate_moisture {
+            let unit: Vec<PairPoint> = core
+                .iter()
+                .map(|p| PairPoint { divisor: 1.0, ..*p })
+                .collect();
+            let m_est = est(&e.moist, &unit);
+            if let Some(x) = &m_est {
+                d.moisture_delay_s = x.lag_s;
+                d.moisture_delay_source = "estimated".into();
+            } else {
+                d.moisture_delay_source = "fixed (too few opposite-pass pairs to estimate)".into();
+            }
+            d.moisture_delay_estimate = m_est;
+        }
+    }
+    let (fd, md) = (d.flow_delay_s, d.moisture_delay_s);
+    let gap = s.pass.max_gap_s;
+    for wi in e.w.iter_mut().filter(|w| w.alive()) {
+        let (tf, tm) = (wi.p.time_s + fd, wi.p.time_s + md);
+        match (
+            interpolate_at(&e.times, &e.flows, tf, gap),
+            interpolate_at(&e.times, &e.moist, tm, gap),
+        ) {
+            (Some(f), Some(m)) => {
+                wi.flow = f;
+                wi.moisture = m;
+            }
+            (f, _) => {
+                wi.no_shift_data_at = Some(if f.is_none() { tf } else { tm });
+                wi.flow = wi.p.flow_kg_s;
+                wi.moisture = wi.p.moisture_pct;
+            }
+        }
+    }
 }
 
 #[cfg(test)]

@@ -1,0 +1,282 @@
+//! The cleaning rules: one file per rule, one list ([`RULES`]) that fixes their order.
+//!
+//! A rule looks at the points of one export that no earlier rule removed and rejects some of
+//! them through [`Export::reject`], naming the quantity it tested, the value found and the
+//! limit. A point's verdict is the first enabled rule that rejects it; a rule switched off
+//! (`clean.disabled_rules`) is simply absent from the run, so the later rules see its points.
+//!
+//! Rules need derived quantities (passes, the delay-shifted flow and moisture, per-pass
+//! statistics, yields). Each rule names the last one it needs ([`Needs`]); the engine
+//! ([`super::clean_export`]) derives each quantity once, from the points alive just before
+//! the first rule of the list that needs it, whether that rule is switched on or not, so
+//! switching a rule off never moves a derivation.
+//!
+//! To add a rule: write `rules/<name>.rs` with a unit struct implementing [`Rule`] and its
+//! hand-computed unit tests, then add one line to [`RULES`] at its place in the order.
+
+mod flow_delay_no_data;
+mod gps_duplicate;
+mod gps_jump;
+mod gps_quality;
+mod moisture_max;
+mod moisture_min;
+mod moisture_stuck;
+mod pass_end;
+mod pass_start;
+mod short_pass;
+mod speed_change;
+mod speed_drop;
+mod speed_max;
+mod speed_min;
+mod swath_fraction;
+mod swath_overlap;
+mod work_state_off;
+mod yield_bounds;
+mod yield_local_outlier;
+mod yield_outlier;
+
+pub use yield_outlier::tukey_fences;
+
+use super::delay::DelayEstimate;
+use super::settings::CleanSettings;
+use crate::config::Crop;
+use crate::table::Point;
+use std::collections::BTreeMap;
+
+/// Every rule, in the order the rules run. Register a new rule here (one line).
+pub static RULES: &[&dyn Rule] = &[
+    &work_state_off::WorkStateOff,
+    &gps_duplicate::GpsDuplicate,
+    &gps_quality::GpsQuality,
+    &gps_jump::GpsJump,
+    &flow_delay_no_data::FlowDelayNoData,
+    &short_pass::ShortPass,
+    &pass_start::PassStart,
+    &pass_end::PassEnd,
+    &speed_min::SpeedMin,
+    &speed_max::SpeedMax,
+    &speed_change::SpeedChange,
+    &speed_drop::SpeedDrop,
+    &swath_fraction::SwathFraction,
+    &swath_overlap::SwathOverlap,
+    &moisture_min::MoistureMin,
+    &moisture_max::MoistureMax,
+    &moisture_stuck::MoistureStuck,
+    &yield_bounds::YieldBounds,
+    &yield_outlier::YieldOutlier,
+    &yield_local_outlier::YieldLocalOutlier,
+];
+
+/// The names of [`RULES`], in order.
+pub fn names() -> Vec<&'static str> {
+    RULES.iter().map(|r| r.name()).collect()
+}
+
+/// The derived quantities, in the order they are derived. A rule that needs one gets every
+/// earlier one too.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
+pub enum Needs {
+    /// The logged records only.
+    Records,
+    /// Pass numbers ([`super::passes::segment`]).
+    Passes,
+    /// Flow and moisture moved back by their delays ([`super::delay::shift`]).
+    Shifted,
+    /// Per pass: start, end, median shifted flow and speed, fill and empty limits.
+    PassStats,
+    /// Wet yield and yield at standard moisture.
+    Yield,
+}
+
+/// A cleaning rule.
+pub trait Rule: Sync {
+    /// The name used in `rejected.csv`, the summaries and `clean.disabled_rules`.
+    fn name(&self) -> &'static str;
+    /// The last derived quantity the rule reads.
+    fn needs(&self) -> Needs;
+    /// Judge the export's live points, rejecting with [`Export::reject`].
+    fn apply(&self, e: &mut Export);
+}
+
+/// A rule's verdict on one point: rule, column, value found, limit.
+pub type Verdict = (&'static str, &'static str, f64, String);
+
+/// Per-point working state.
+pub struct Work<'a> {
+    pub p: &'a Point,
+    pub pass: u32,
+    /// Shifted flow and moisture (own readings until the shift, and where the shift found no
+    /// data and `flow_delay_no_data` is off).
+    pub flow: f64,
+    pub moisture: f64,
+    /// The shifted time that found no sensor record within the gap limit, if any.
+    pub no_shift_data_at: Option<f64>,
+    pub wet: f64,
+    pub std: f64,
+    pub rejected: Option<Verdict>,
+}
+
+impl Work<'_> {
+    pub fn alive(&self) -> bool {
+        self.rejected.is_none()
+    }
+}
+
+/// Statistics of one pass, from its points alive after the delay shift.
+#[derive(Clone, Copy, Debug)]
+pub struct PassStats {
+    pub t0: f64,
+    pub t1: f64,
+    pub median_flow: f64,
+    pub median_speed: f64,
+    /// With `fill_mode = "flow"`: the first and last time the shifted flow reaches
+    /// `fill_fraction` of the pass median (the pass's own ends otherwise).
+    pub fill_until: f64,
+    pub empty_from: f64,
+}
+
+/// What clean found out about one export, for the summary.
+#[derive(Clone, Debug, serde::Serialize)]
+pub struct ExportDetails {
+    pub header_width_m: f64,
+    pub flow_delay_s: f64,
+    pub flow_delay_source: String,
+    pub moisture_delay_s: f64,
+    pub moisture_delay_source: String,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub flow_delay_estimate: Option<DelayEstimate>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub moisture_delay_estimate: Option<DelayEstimate>,
+}
+
+/// One export under cleaning: its points (time-ordered), the settings and what has been
+/// derived so far.
+pub struct Export<'a> {
+    pub w: Vec<Work<'a>>,
+    pub s: &'a CleanSettings,
+    pub crop: &'a Crop,
+    /// Full header width (setting, or the most common logged width).
+    pub header: f64,
+    /// The sensors' time line: every record but repeated time stamps.
+    pub times: Vec<f64>,
+    pub flows: Vec<f64>,
+    pub moist: Vec<f64>,
+    /// Per-pass statistics, once derived.
+    pub pass_stats: BTreeMap<u32, PassStats>,
+    pub details: ExportDetails,
+    /// How far the derivations have gone.
+    pub derived: Needs,
+}
+
+impl Export<'_> {
+    /// Reject point `i` by `rule` unless an earlier rule already did.
+    pub fn reject(
+        &mut self,
+        i: usize,
+        rule: &'static str,
+        column: &'static str,
+        value: f64,
+        limit: String,
+    ) {
+        let w = &mut self.w[i];
+        if w.rejected.is_none() {
+            w.rejected = Some((rule, column, value, limit));
+        }
+    }
+
+    /// Indices of the points no rule has removed yet.
+    pub fn alive(&self) -> Vec<usize> {
+        (0..self.w.len()).filter(|&i| self.w[i].alive()).collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rule_names_are_unique() {
+        let mut n = names();
+        let len = n.len();
+        n.sort();
+        n.dedup();
+        assert_eq!(n.len(), len, "a rule name appears twice");
+    }
+}
+
+/// Helpers for the rules' unit tests.
+#[cfg(test)]
+pub(crate) mod testing {
+    use super::Rule;
+    use crate::clean::settings::{CleanSettings, DelayMode};
+    use crate::config::{crop_table, TrialConfig, TEST_TRIAL};
+    use crate::table::{Point, PointSet};
+
+    /// `n` records one second apart driving east at `speed` m/s along y = 0: 10 kg/s of
+    /// flow, a 9 m swath, 15.5 % moisture (corn's standard), no work-state or GPS columns.
+    pub fn line(n: usize, speed: f64) -> Vec<Point> {
+        (0..n)
+            .map(|i| Point {
+                id: i as u64,
+                file: 0,
+                row: i as u64 + 2,
+                time_s: i as f64,
+                lon: 0.0,
+                lat: 0.0,
+                x_m: speed * i as f64,
+                y_m: 0.0,
+                flow_kg_s: 10.0,
+                speed_m_s: speed,
+                width_m: 9.0,
+                moisture_pct: 15.5,
+                work_state: f64::NAN,
+                hdop: f64::NAN,
+                fix_quality: f64::NAN,
+            })
+            .collect()
+    }
+
+    /// Clean `pts` (corn; ids and rows renumbered in the order given) with only `rule`
+    /// switched on and fixed delays (the defaults, then `tweak`); the rule that removed each
+    /// point, in the order given.
+    pub fn verdicts(
+        rule: &dyn Rule,
+        pts: Vec<Point>,
+        tweak: impl Fn(&mut CleanSettings),
+    ) -> Vec<Option<&'static str>> {
+        let mut pts = pts;
+        for (i, p) in pts.iter_mut().enumerate() {
+            p.id = i as u64;
+            p.row = i as u64 + 2;
+        }
+        let cfg = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[]).unwrap();
+        let mut s = cfg.clean.clone();
+        s.delay.mode = DelayMode::Fixed;
+        tweak(&mut s);
+        s.disabled_rules = super::names()
+            .into_iter()
+            .filter(|n| *n != rule.name())
+            .map(String::from)
+            .collect();
+        let n = pts.len();
+        let set = PointSet {
+            files: vec!["a.csv".into()],
+            points: pts,
+            epsg: 32614,
+        };
+        let out = crate::clean::run(&set, &s, &crop_table()["corn"]);
+        assert_eq!(out.points.len() + out.rejections.len(), n);
+        (0..n)
+            .map(|i| {
+                let id = set.points[i].id.to_string();
+                out.rejections.iter().find(|r| r.id == id).map(|r| {
+                    super::RULES
+                        .iter()
+                        .map(|x| x.name())
+                        .find(|x| *x == r.rule)
+                        .expect("a known rule")
+                })
+            })
+            .collect()
+    }
+}
