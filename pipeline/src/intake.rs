@@ -92,10 +92,7 @@ fn trial_info(season_dir: &Path, t: &SeasonTrial) -> Result<TrialInfo> {
     let base = loaded.base;
     let mon = cfg.inputs.monitor.first().cloned().unwrap_or_default();
     let monitor_dir = base.join(&mon);
-    if monitor_dir
-        .extension()
-        .is_some_and(|e| e.eq_ignore_ascii_case("csv"))
-    {
+    if ingest::formats::is_export(&monitor_dir) {
         bail!(
             "{}: inputs.monitor must name a folder for intake to copy exports into (got {mon:?})",
             file.display()
@@ -154,42 +151,16 @@ fn match_export(bytes: &[u8], trials: &[TrialInfo]) -> Result<Vec<usize>, String
     let mut counts = vec![0usize; trials.len()];
     let mut any_mapping = false;
     for (k, t) in trials.iter().enumerate() {
-        let c = &t.cfg.columns;
-        let mut rdr = csv::ReaderBuilder::new()
-            .delimiter(c.delimiter.as_bytes()[0])
-            .flexible(true)
-            .from_reader(bytes);
-        let Ok(h) = rdr.headers().cloned() else {
-            continue;
-        };
-        let (Some(ilon), Some(ilat)) = (
-            h.iter().position(|x| x.trim() == c.longitude),
-            h.iter().position(|x| x.trim() == c.latitude),
-        ) else {
+        let format = ingest::formats::for_bytes(Path::new("export"), bytes);
+        let Some(positions) = format.positions(&t.cfg, bytes)? else {
             continue;
         };
         any_mapping = true;
-        let mut last_len = h.len();
-        for rec in rdr.records() {
-            let Ok(rec) = rec else { continue };
-            last_len = rec.len();
-            let (Some(lon), Some(lat)) = (
-                rec.get(ilon).and_then(|v| v.trim().parse::<f64>().ok()),
-                rec.get(ilat).and_then(|v| v.trim().parse::<f64>().ok()),
-            ) else {
-                continue;
-            };
-            let b = t.bbox;
-            if lon >= b.0 && lon <= b.2 && lat >= b.1 && lat <= b.3 {
-                counts[k] += 1;
-            }
-        }
-        if last_len != h.len() {
-            return Err(format!(
-                "partial: the last record has {last_len} fields, the header {}",
-                h.len()
-            ));
-        }
+        let b = t.bbox;
+        counts[k] = positions
+            .iter()
+            .filter(|(lon, lat)| *lon >= b.0 && *lon <= b.2 && *lat >= b.1 && *lat <= b.3)
+            .count();
     }
     if !any_mapping {
         return Err(
@@ -228,7 +199,7 @@ pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
     let mut files: Vec<PathBuf> = std::fs::read_dir(inbox)
         .with_context(|| format!("reading inbox {}", inbox.display()))?
         .filter_map(|e| e.ok().map(|e| e.path()))
-        .filter(|p| p.is_file() && p.extension().is_some_and(|x| x.eq_ignore_ascii_case("csv")))
+        .filter(|p| p.is_file() && ingest::formats::is_export(p))
         .collect();
     files.sort();
     let mut touched: Vec<usize> = Vec::new();
@@ -282,11 +253,13 @@ pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
                         .with_context(|| format!("creating {}", t.monitor_dir.display()))?;
                     let mut target = t.monitor_dir.join(&name);
                     if target.exists() && sha256(&std::fs::read(&target)?) != sha {
-                        let stem = Path::new(&name)
-                            .file_stem()
-                            .map(|s| s.to_string_lossy().to_string())
-                            .unwrap_or_default();
-                        target = t.monitor_dir.join(format!("{stem}-{}.csv", &sha[..8]));
+                        let file = Path::new(&name);
+                        let part = |s: Option<&std::ffi::OsStr>| {
+                            s.map(|s| s.to_string_lossy().to_string())
+                                .unwrap_or_default()
+                        };
+                        let (stem, ext) = (part(file.file_stem()), part(file.extension()));
+                        target = t.monitor_dir.join(format!("{stem}-{}.{ext}", &sha[..8]));
                     }
                     io::write_atomic(&target, &bytes)?;
                     let copied = target

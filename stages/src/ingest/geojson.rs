@@ -1,0 +1,103 @@
+//! Plot polygons from GeoJSON (RFC 7946, WGS84 lon/lat).
+
+use super::IngestError;
+use crate::table::PlotPolygon;
+use std::path::Path;
+
+fn ring_from_json(v: &serde_json::Value) -> Option<Vec<(f64, f64)>> {
+    v.as_array()?
+        .iter()
+        .map(|p| {
+            let a = p.as_array()?;
+            Some((a.first()?.as_f64()?, a.get(1)?.as_f64()?))
+        })
+        .collect()
+}
+
+/// Read plot polygons from GeoJSON (Polygon or single-part MultiPolygon features).
+pub fn read_geojson(
+    path: &Path,
+    name: &str,
+    id_prop: &str,
+) -> Result<Vec<PlotPolygon>, IngestError> {
+    let text = std::fs::read_to_string(path).map_err(|e| IngestError::Read {
+        file: name.to_string(),
+        message: e.to_string(),
+    })?;
+    let unusable = |message: String| IngestError::Unusable {
+        file: name.to_string(),
+        message,
+    };
+    let v: serde_json::Value =
+        serde_json::from_str(&text).map_err(|e| unusable(format!("not valid JSON: {e}")))?;
+    let feats = v
+        .get("features")
+        .and_then(|f| f.as_array())
+        .ok_or_else(|| unusable("expected a GeoJSON FeatureCollection with \"features\"".into()))?;
+    let mut out = Vec::new();
+    for (i, f) in feats.iter().enumerate() {
+        let id = match f.get("properties").and_then(|p| p.get(id_prop)) {
+            Some(serde_json::Value::String(s)) => s.clone(),
+            Some(serde_json::Value::Number(n)) => n.to_string(),
+            _ => {
+                return Err(unusable(format!(
+                    "feature {i}: no property {id_prop:?} (inputs.plot_id_property)"
+                )))
+            }
+        };
+        let g = f
+            .get("geometry")
+            .ok_or_else(|| unusable(format!("feature {i} (plot {id}): no geometry")))?;
+        let coords = g.get("coordinates");
+        let rings = match g.get("type").and_then(|t| t.as_str()) {
+            Some("Polygon") => coords.and_then(|c| c.as_array()).cloned(),
+            Some("MultiPolygon") => {
+                let parts = coords
+                    .and_then(|c| c.as_array())
+                    .cloned()
+                    .unwrap_or_default();
+                if parts.len() != 1 {
+                    return Err(unusable(format!(
+                        "feature {i} (plot {id}): a MultiPolygon with {} parts; a plot must be one polygon",
+                        parts.len()
+                    )));
+                }
+                parts[0].as_array().cloned()
+            }
+            other => {
+                return Err(unusable(format!(
+                    "feature {i} (plot {id}): geometry type {other:?}, expected Polygon"
+                )))
+            }
+        };
+        let rings =
+            rings.ok_or_else(|| unusable(format!("feature {i} (plot {id}): no coordinates")))?;
+        let mut parsed = Vec::new();
+        for r in &rings {
+            let ring = ring_from_json(r).ok_or_else(|| {
+                unusable(format!(
+                    "feature {i} (plot {id}): coordinates must be [lon, lat] number pairs"
+                ))
+            })?;
+            if ring.len() < 4 {
+                return Err(unusable(format!(
+                    "feature {i} (plot {id}): a ring needs at least 4 positions"
+                )));
+            }
+            parsed.push(ring);
+        }
+        if parsed.is_empty() {
+            return Err(unusable(format!("feature {i} (plot {id}): empty polygon")));
+        }
+        let exterior = parsed.remove(0);
+        out.push(PlotPolygon {
+            plot_id: id,
+            exterior,
+            holes: parsed,
+        });
+    }
+    if out.is_empty() {
+        return Err(unusable("no plot features".into()));
+    }
+    Ok(out)
+}

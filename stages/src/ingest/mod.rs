@@ -1,0 +1,350 @@
+//! Ingest: monitor exports, plot boundaries and the design table, projected to UTM.
+//!
+//! Parameters: the trial configuration (column mapping with units, file paths) and the
+//! folder the paths are relative to.
+//! Returns: points in SI units with UTM coordinates, projected plot polygons, the design
+//! table, and one rejection row for every record that could not be read (with the column
+//! and the text found).
+//! Errors: [`IngestError`] when a file is unusable as a whole (missing, no header, a mapped
+//! column absent, no data rows, malformed GeoJSON, a design table that does not match the
+//! plot geometry). Every message names the file, and the row and column where there is one.
+//! Complexity: linear in the number of records; projection runs in parallel (rayon).
+//!
+//! Layout: [`formats`] (one file per monitor export format, registered in
+//! [`formats::FORMATS`]), [`geojson`] (plot polygons), [`design`] (design table and its
+//! agreement with the geometry), [`time`] (time stamps).
+
+pub mod design;
+pub mod formats;
+pub mod geojson;
+pub mod time;
+
+pub use design::{read_design, reconcile};
+pub use geojson::read_geojson;
+pub use time::parse_iso8601;
+
+use crate::config::TrialConfig;
+use crate::projection::{zone_of, Utm};
+use crate::table::{DesignRow, PlotPolygon, Point, PointSet, Rejection, StageSummary};
+use rayon::prelude::*;
+use std::path::{Path, PathBuf};
+
+/// A file that cannot be used at all.
+#[derive(Debug, thiserror::Error)]
+pub enum IngestError {
+    #[error("{file}: cannot read: {message}")]
+    Read { file: String, message: String },
+    #[error(
+        "{file}: column {column:?} named in [columns] {key} is not in the header (found: {found})"
+    )]
+    MissingColumn {
+        file: String,
+        column: String,
+        key: String,
+        found: String,
+    },
+    #[error("{file}: {message}")]
+    Unusable { file: String, message: String },
+    #[error("{file}, line {row}, column {column:?}: {message}")]
+    BadRow {
+        file: String,
+        row: u64,
+        column: String,
+        message: String,
+    },
+    #[error("design and plot geometry do not match:\n  {}", .0.join("\n  "))]
+    Mismatch(Vec<String>),
+    #[error(transparent)]
+    Projection(#[from] crate::projection::ProjectionError),
+}
+
+/// What ingest hands on.
+#[derive(Clone, Debug)]
+pub struct IngestOutput {
+    pub points: PointSet,
+    pub polygons: Vec<PlotPolygon>,
+    pub design: Vec<DesignRow>,
+    pub rejections: Vec<Rejection>,
+    pub summary: StageSummary,
+}
+
+/// Display form of a path relative to the trial folder, with `/` separators.
+pub fn display(base: &Path, p: &Path) -> String {
+    p.strip_prefix(base)
+        .unwrap_or(p)
+        .to_string_lossy()
+        .replace('\\', "/")
+}
+
+/// Open a delimited table and read its header; errors name the file.
+pub(crate) fn open_table(
+    path: &Path,
+    name: &str,
+    delimiter: u8,
+) -> Result<(csv::Reader<std::fs::File>, csv::StringRecord), IngestError> {
+    let mut rdr = csv::ReaderBuilder::new()
+        .delimiter(delimiter)
+        .flexible(true)
+        .has_headers(true)
+        .from_path(path)
+        .map_err(|e| IngestError::Read {
+            file: name.to_string(),
+            message: e.to_string(),
+        })?;
+    let header = rdr
+        .headers()
+        .map_err(|e| IngestError::Unusable {
+            file: name.to_string(),
+            message: format!("header is not readable: {e}"),
+        })?
+        .clone();
+    Ok((rdr, header))
+}
+
+/// The monitor export files named by `inputs.monitor` (folders give every file a format
+/// claims by its extension, sorted).
+pub fn monitor_files(cfg: &TrialConfig, base: &Path) -> Result<Vec<PathBuf>, IngestError> {
+    let mut out = Vec::new();
+    for entry in &cfg.inputs.monitor {
+        let p = base.join(entry);
+        if p.is_dir() {
+            let mut v: Vec<PathBuf> = std::fs::read_dir(&p)
+                .map_err(|e| IngestError::Read {
+                    file: entry.clone(),
+                    message: e.to_string(),
+                })?
+                .filter_map(|e| e.ok().map(|e| e.path()))
+                .filter(|p| formats::is_export(p))
+                .collect();
+            v.sort();
+            if v.is_empty() {
+                return Err(IngestError::Unusable {
+                    file: entry.clone(),
+                    message: "folder holds no .csv export".into(),
+                });
+            }
+            out.extend(v);
+        } else if p.is_file() {
+            out.push(p);
+        } else {
+            return Err(IngestError::Read {
+                file: entry.clone(),
+                message: "no such file or folder (inputs.monitor)".into(),
+            });
+        }
+    }
+    Ok(out)
+}
+
+/// The projection the settings ask for, or the zone of the median point.
+pub fn choose_projection(
+    cfg: &TrialConfig,
+    lons: &[f64],
+    lats: &[f64],
+) -> Result<Utm, IngestError> {
+    let zone = if cfg.ingest.utm_zone > 0 {
+        cfg.ingest.utm_zone
+    } else {
+        zone_of(crate::util::median(lons)) as i64
+    };
+    let south = match cfg.ingest.hemisphere.as_str() {
+        "north" => false,
+        "south" => true,
+        _ => crate::util::median(lats) < 0.0,
+    };
+    Ok(Utm::new(zone, south)?)
+}
+
+/// Run ingest.
+pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> {
+    run_with(cfg, base, &crate::progress::Progress::none())
+}
+
+/// [`run`], reporting each export read to `progress`.
+pub fn run_with(
+    cfg: &TrialConfig,
+    base: &Path,
+    progress: &crate::progress::Progress,
+) -> Result<IngestOutput, IngestError> {
+    let files = monitor_files(cfg, base)?;
+    progress.start(files.len() as u64, "exports read");
+    let names: Vec<String> = files.iter().map(|p| display(base, p)).collect();
+    let mut raw = Vec::new();
+    let mut rejections = Vec::new();
+    let mut count_in = 0;
+    for (i, (p, name)) in files.iter().zip(&names).enumerate() {
+        let read = formats::for_file(p).read(cfg, p, name, i as u32)?;
+        count_in += read.rows;
+        raw.extend(read.points);
+        rejections.extend(read.rejections);
+        progress.step();
+    }
+    let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design)?;
+    let polygons_ll = if cfg.layout.is_empty() {
+        read_geojson(
+            &base.join(&cfg.inputs.plots),
+            &cfg.inputs.plots,
+            &cfg.inputs.plot_id_property,
+        )?
+    } else {
+        Vec::new()
+    };
+    let lons: Vec<f64> = raw.iter().map(|r| r.lon).collect();
+    let lats: Vec<f64> = raw.iter().map(|r| r.lat).collect();
+    let (lons, lats) = if !lons.is_empty() {
+        (lons, lats)
+    } else if !cfg.layout.is_empty() {
+        (
+            cfg.layout.iter().map(|l| l.origin_lon).collect(),
+            cfg.layout.iter().map(|l| l.origin_lat).collect(),
+        )
+    } else {
+        // No readable point at all: take the zone from the plots.
+        let pts: Vec<(f64, f64)> = polygons_ll
+            .iter()
+            .flat_map(|p| p.exterior.clone())
+            .collect();
+        (
+            pts.iter().map(|p| p.0).collect(),
+            pts.iter().map(|p| p.1).collect(),
+        )
+    };
+    let utm = choose_projection(cfg, &lons, &lats)?;
+    let projected: Result<Vec<(f64, f64)>, _> =
+        raw.par_iter().map(|r| utm.forward(r.lon, r.lat)).collect();
+    let projected = projected?;
+    let points: Vec<Point> = raw
+        .iter()
+        .zip(projected)
+        .enumerate()
+        .map(|(i, (r, (x, y)))| Point {
+            id: i as u64,
+            file: r.file,
+            row: r.row,
+            time_s: r.time_s,
+            lon: r.lon,
+            lat: r.lat,
+            x_m: x,
+            y_m: y,
+            flow_kg_s: r.flow_kg_s,
+            speed_m_s: r.speed_m_s,
+            width_m: r.width_m,
+            moisture_pct: r.moisture_pct,
+            work_state: r.optional[0],
+            hdop: r.optional[1],
+            fix_quality: r.optional[2],
+        })
+        .collect();
+    let polygons = if cfg.layout.is_empty() {
+        project_polygons(&utm, polygons_ll)?
+    } else {
+        let mut v = Vec::new();
+        for l in &cfg.layout {
+            let (ox, oy) = utm.forward(l.origin_lon, l.origin_lat)?;
+            v.extend(l.polygons(ox, oy));
+        }
+        v
+    };
+    let plots_name = if cfg.layout.is_empty() {
+        cfg.inputs.plots.clone()
+    } else {
+        "[[layout]]".to_string()
+    };
+    let (polygons, design, warnings) = reconcile(cfg, &plots_name, polygons, design)?;
+    let mut summary = StageSummary::from_rejections("ingest", "points", count_in, &rejections);
+    summary
+        .details
+        .insert("epsg".into(), serde_json::json!(utm.epsg()));
+    summary
+        .details
+        .insert("files".into(), serde_json::json!(names.len()));
+    summary
+        .details
+        .insert("plots".into(), serde_json::json!(polygons.len()));
+    summary
+        .details
+        .insert("warnings".into(), serde_json::json!(warnings));
+    Ok(IngestOutput {
+        points: PointSet {
+            files: names,
+            points,
+            epsg: utm.epsg(),
+        },
+        polygons,
+        design,
+        rejections,
+        summary,
+    })
+}
+
+fn project_polygons(utm: &Utm, polys: Vec<PlotPolygon>) -> Result<Vec<PlotPolygon>, IngestError> {
+    polys
+        .into_iter()
+        .map(|p| -> Result<PlotPolygon, IngestError> {
+            let proj = |ring: &[(f64, f64)]| -> Result<Vec<(f64, f64)>, IngestError> {
+                ring.iter()
+                    .map(|&(lon, lat)| utm.forward(lon, lat).map_err(IngestError::from))
+                    .collect()
+            };
+            Ok(PlotPolygon {
+                exterior: proj(&p.exterior)?,
+                holes: p.holes.iter().map(|h| proj(h)).collect::<Result<_, _>>()?,
+                plot_id: p.plot_id,
+            })
+        })
+        .collect()
+}
+
+/// Everything `plotsieve check` can find without writing: returns every problem.
+pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
+    let mut problems = Vec::new();
+    if let Err(e) = cfg.crop() {
+        problems.push(e.to_string());
+    }
+    match monitor_files(cfg, base) {
+        Err(e) => problems.push(e.to_string()),
+        Ok(files) => {
+            for p in files {
+                let name = display(base, &p);
+                if let Err(e) = formats::for_file(&p).check(cfg, &p, &name) {
+                    problems.push(e);
+                }
+            }
+        }
+    }
+    let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design);
+    let polys = if cfg.layout.is_empty() {
+        read_geojson(
+            &base.join(&cfg.inputs.plots),
+            &cfg.inputs.plots,
+            &cfg.inputs.plot_id_property,
+        )
+        .map(|p| (p, cfg.inputs.plots.clone()))
+    } else {
+        // Ids do not depend on where the grid lies.
+        Ok((
+            cfg.layout
+                .iter()
+                .flat_map(|l| l.polygons(0.0, 0.0))
+                .collect(),
+            "[[layout]]".to_string(),
+        ))
+    };
+    match (polys, design) {
+        (Ok((p, name)), Ok(d)) => match reconcile(cfg, &name, p, d) {
+            Err(e) => problems.push(e.to_string()),
+            Ok((_, _, warnings)) => {
+                problems.extend(warnings.into_iter().map(|w| format!("warning: {w}")))
+            }
+        },
+        (p, d) => {
+            if let Err(e) = p {
+                problems.push(e.to_string());
+            }
+            if let Err(e) = d {
+                problems.push(e.to_string());
+            }
+        }
+    }
+    problems
+}
