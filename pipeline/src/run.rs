@@ -8,7 +8,6 @@ use crate::io;
 use crate::stage::Stage;
 use anyhow::{anyhow, bail, Context, Result};
 use indicatif::{MultiProgress, ProgressBar, ProgressDrawTarget, ProgressStyle};
-use plotsieve_stages::adjust::FitSettings;
 use plotsieve_stages::config::TrialConfig;
 use plotsieve_stages::progress::{Event, Progress};
 use plotsieve_stages::table::{Rejection, StageSummary};
@@ -289,38 +288,9 @@ fn execute(stage: Stage, t: &Trial, out: &Path, progress: &Progress) -> Result<S
                     cfg.adjust.range_spacing_m,
                 )?
             };
-            let a = &cfg.adjust;
-            let s = FitSettings {
-                check: cfg.trial.check.clone(),
-                blocks: a.blocks,
-                min_range_m: a.min_range_m,
-                max_range_m: a.max_range_m,
-                range_grid_points: a.range_grid_points as usize,
-                kernel: adjust::Kernel::from_name(&a.kernel).unwrap_or_default(),
-                anisotropic: a.anisotropic,
-                pooling: if a.pooling == "separate" {
-                    adjust::Pooling::Separate
-                } else {
-                    adjust::Pooling::Joint
-                },
-                shared_range: a.shared_range,
-                interaction: a.interaction,
-                interaction_sd_u: a.interaction_sd_u,
-                weak_prior_sd: a.weak_prior_sd,
-                product_prior: a
-                    .product_prior_mean
-                    .iter()
-                    .filter_map(|(k, m)| a.product_prior_sd.get(k).map(|sd| (k.clone(), (*m, *sd))))
-                    .collect(),
-                exact_max_plots: a.exact_max_plots as usize,
-                hsgp_max_basis: a.hsgp_max_basis as usize,
-                hsgp_boundary: a.hsgp_boundary_factor,
-                joint_draws: a.joint_draws as usize,
-                seed: a.seed as u64,
-                grain_price_per_t: a.grain_price_per_t,
-                product_cost_per_ha: a.product_cost_per_ha.clone(),
-                t_ha_to_unit: unit.from_kg_ha(1000.0, &crop),
-            };
+            let s = cfg
+                .adjust
+                .checked(&cfg.trial.check, unit.from_kg_ha(1000.0, &crop));
             let o = adjust::run_with(&plots, &s, progress)?;
             io::write_adjusted(&dir.join("adjusted_plots.csv"), &o.plots, unit.suffix())?;
             io::write_treatments(&dir.join("treatments.csv"), &o.treatments, unit.suffix())?;

@@ -25,6 +25,13 @@ macro_rules! choice {
         impl $name {
             /// Every option as written in a trial file, in declaration order.
             pub const NAMES: &'static [&'static str] = &[$($text),+];
+            /// The option written `name` in a trial file.
+            pub fn from_name(name: &str) -> Option<Self> {
+                match name {
+                    $($text => Some(Self::$var),)+
+                    _ => None,
+                }
+            }
             /// The option as written in a trial file.
             pub fn as_str(self) -> &'static str {
                 match self {
@@ -45,13 +52,12 @@ macro_rules! choice {
         impl<'de> serde::Deserialize<'de> for $name {
             fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
                 let text = String::deserialize(d)?;
-                match text.as_str() {
-                    $($text => Ok(Self::$var),)+
-                    _ => Err(<D::Error as serde::de::Error>::custom(format!(
+                Self::from_name(&text).ok_or_else(|| {
+                    <D::Error as serde::de::Error>::custom(format!(
                         "must be {} (got {text:?})",
                         $crate::choice::one_of(Self::NAMES)
-                    ))),
-                }
+                    ))
+                })
             }
         }
     };

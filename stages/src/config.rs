@@ -10,15 +10,15 @@
 //!
 //! Errors: [`ConfigError`], each naming the key or file to fix.
 
+pub use crate::adjust::settings::AdjustSettings;
 pub use crate::clean::settings::CleanSettings;
+use crate::crop::{crop_table, Crop, OutputUnit};
+use crate::defaults::DEFAULTS_TOML;
+pub use crate::ingest::settings::{ColumnsSection, IngestSettings, InputsSection};
+pub use crate::plots::settings::PlotsSettings;
+pub use crate::report::ReportSettings;
 use serde::{Deserialize, Serialize};
-use std::collections::BTreeMap;
 use toml::Value;
-
-/// The defaults of every stage setting, as shipped in `config/defaults.toml`.
-pub const DEFAULTS_TOML: &str = include_str!("../../config/defaults.toml");
-/// The crop table, as shipped in `config/crops.toml`.
-pub const CROPS_TOML: &str = include_str!("../../config/crops.toml");
 
 /// Sections whose every key must appear in the defaults.
 const SETTINGS_SECTIONS: &[&str] = &["inputs", "ingest", "clean", "plots", "adjust", "report"];
@@ -61,44 +61,6 @@ pub enum ConfigError {
     UnknownCrop { crop: String, known: String },
 }
 
-/// Unit of the output yields.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum OutputUnit {
-    /// Tonnes per hectare.
-    THa,
-    /// Bushels per acre (bushel weight from the crop table).
-    BuAc,
-}
-
-impl OutputUnit {
-    /// Suffix used in column names, e.g. `yield_mean_t_ha`.
-    pub fn suffix(self) -> &'static str {
-        match self {
-            OutputUnit::THa => "t_ha",
-            OutputUnit::BuAc => "bu_ac",
-        }
-    }
-    /// Human label, e.g. `t/ha`.
-    pub fn label(self) -> &'static str {
-        match self {
-            OutputUnit::THa => "t/ha",
-            OutputUnit::BuAc => "bu/ac",
-        }
-    }
-    /// Convert kg/ha at standard moisture to this unit.
-    pub fn from_kg_ha(self, kg_ha: f64, crop: &Crop) -> f64 {
-        match self {
-            OutputUnit::THa => kg_ha / 1000.0,
-            // 1 lb/ac = 1.120851 kg/ha (definitions of the pound and the acre).
-            OutputUnit::BuAc => kg_ha / LB_AC_IN_KG_HA / crop.bushel_lb,
-        }
-    }
-}
-
-/// 1 lb/ac in kg/ha: 0.45359237 kg / 0.40468564224 ha (definitions of pound and acre).
-pub const LB_AC_IN_KG_HA: f64 = 0.45359237 / 0.40468564224;
-
 /// `[trial]`: what the trial is.
 #[derive(Clone, Debug, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -109,154 +71,6 @@ pub struct TrialSection {
     pub output_unit: OutputUnit,
     /// The check (control) treatment name, as in the design table.
     pub check: String,
-}
-
-/// `[inputs]`: files, relative to the trial file.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct InputsSection {
-    /// Monitor export CSVs, or folders whose `*.csv` files are all taken (sorted by name).
-    pub monitor: Vec<String>,
-    /// Plot boundaries, GeoJSON (RFC 7946, WGS84 lon/lat); empty when `[[layout]]` gives
-    /// the plots as grids.
-    pub plots: String,
-    /// Feature property holding the plot id.
-    pub plot_id_property: String,
-    /// Design table CSV with columns plot_id, treatment, block, field.
-    pub design: String,
-}
-
-/// Mass-flow units a monitor may log.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum FlowUnit {
-    KgS,
-    LbS,
-}
-/// Speed units a monitor may log.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum SpeedUnit {
-    MS,
-    KmH,
-    Mph,
-}
-/// Width units a monitor may log.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum WidthUnit {
-    M,
-    Ft,
-    In,
-}
-/// Timestamp formats a monitor may log.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum TimeFormat {
-    /// `2026-09-14T10:22:05Z`, `2026-09-14 10:22:05.5`, optional offset `+02:00`.
-    Iso8601,
-    /// Seconds since 1970-01-01 UTC.
-    UnixS,
-}
-
-/// A mapped column with its unit.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct Mapped<U> {
-    pub name: String,
-    pub unit: U,
-}
-
-/// `[columns]`: how the monitor export names and scales its columns.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct ColumnsSection {
-    /// Field delimiter, one character.
-    pub delimiter: String,
-    pub time: TimeColumn,
-    pub longitude: String,
-    pub latitude: String,
-    pub flow: Mapped<FlowUnit>,
-    pub speed: Mapped<SpeedUnit>,
-    pub width: Mapped<WidthUnit>,
-    /// Grain moisture column, in percent (wet basis).
-    pub moisture: String,
-    /// Optional: work-state / header column (0 = not harvesting, anything else = harvesting).
-    #[serde(default)]
-    pub work_state: String,
-    /// Optional: GPS horizontal dilution of precision.
-    #[serde(default)]
-    pub hdop: String,
-    /// Optional: GPS fix quality (NMEA GGA: 0 invalid, 1 GPS, 2 DGPS, 4 RTK fixed, 5 RTK float).
-    #[serde(default)]
-    pub fix_quality: String,
-}
-
-/// Time column and its format.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct TimeColumn {
-    pub name: String,
-    pub format: TimeFormat,
-}
-
-/// `[ingest]` settings.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct IngestSettings {
-    pub utm_zone: i64,
-    pub hemisphere: String,
-}
-
-/// `[plots]` settings.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct PlotsSettings {
-    pub min_points: i64,
-    pub min_coverage: f64,
-    pub end_trim_m: f64,
-    pub side_trim_m: f64,
-    pub min_swath_inside: f64,
-    pub trim_fraction: f64,
-    pub far_m: f64,
-    pub coverage_cell_m: f64,
-    pub design_mismatch: String,
-}
-
-/// `[adjust]` settings.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct AdjustSettings {
-    pub kernel: String,
-    pub blocks: bool,
-    pub min_range_m: f64,
-    pub max_range_m: f64,
-    pub range_grid_points: i64,
-    pub anisotropic: bool,
-    pub pooling: String,
-    pub shared_range: bool,
-    pub interaction: bool,
-    pub interaction_sd_u: f64,
-    pub weak_prior_sd: f64,
-    pub product_prior_mean: BTreeMap<String, f64>,
-    pub product_prior_sd: BTreeMap<String, f64>,
-    pub exact_max_plots: i64,
-    pub hsgp_max_basis: i64,
-    pub hsgp_boundary_factor: f64,
-    pub joint_draws: i64,
-    pub seed: i64,
-    pub grain_price_per_t: f64,
-    pub product_cost_per_ha: BTreeMap<String, f64>,
-    pub plot_table: String,
-    pub row_spacing_m: f64,
-    pub range_spacing_m: f64,
-}
-
-/// `[report]` settings.
-#[derive(Clone, Debug, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct ReportSettings {
-    pub decimals: i64,
 }
 
 /// The whole trial configuration after defaults and overrides.
@@ -274,21 +88,6 @@ pub struct TrialConfig {
     /// Plot grids, one per field, for trials without a boundary file.
     #[serde(default)]
     pub layout: Vec<crate::plots::layout::GridLayout>,
-}
-
-/// One crop of the crop table.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
-#[serde(deny_unknown_fields)]
-pub struct Crop {
-    pub standard_moisture_pct: f64,
-    pub bushel_lb: f64,
-    pub yield_min_kg_ha: f64,
-    pub yield_max_kg_ha: f64,
-}
-
-/// The crop table of `config/crops.toml`.
-pub fn crop_table() -> BTreeMap<String, Crop> {
-    toml::from_str(CROPS_TOML).expect("config/crops.toml is valid (checked by a unit test)")
 }
 
 fn type_name(v: &Value) -> &'static str {
@@ -436,8 +235,10 @@ impl TrialConfig {
             let (path, message) = (e.path().to_string(), e.inner().to_string());
             let message = message.trim_end().to_string();
             if message.starts_with("must be ") {
-                // A choice outside its options (see `crate::choice`).
-                ConfigError::Invalid(vec![format!("{path} {message}")])
+                // A choice outside its options (see `crate::choice`); the TOML reader adds
+                // the key on a line of its own, which the path already says.
+                let first = message.lines().next().unwrap_or_default();
+                ConfigError::Invalid(vec![format!("{path} {first}")])
             } else {
                 ConfigError::Shape { path, message }
             }
@@ -458,125 +259,16 @@ impl TrialConfig {
             })
     }
 
-    /// Check ranges and orderings; every problem names its key.
+    /// Check ranges and orderings; every problem names its key. Each section checks itself
+    /// (beside its struct, in its stage); here only what spans sections.
     pub fn validate(&self) -> Result<(), ConfigError> {
         let mut p = Vec::new();
+        self.columns.problems(&mut p);
+        self.ingest.problems(&mut p);
         self.clean.problems(&mut p);
-        let mut nonneg = |key: &str, v: f64| {
-            if !(v >= 0.0) || !v.is_finite() {
-                p.push(format!("{key} must be a finite number >= 0 (got {v})"));
-            }
-        };
-        nonneg("adjust.min_range_m", self.adjust.min_range_m);
-        nonneg("adjust.max_range_m", self.adjust.max_range_m);
-        nonneg("adjust.grain_price_per_t", self.adjust.grain_price_per_t);
-        for (k, v) in &self.adjust.product_cost_per_ha {
-            nonneg(&format!("adjust.product_cost_per_ha.{k}"), *v);
-        }
-        if self.adjust.max_range_m > 0.0 && self.adjust.min_range_m >= self.adjust.max_range_m {
-            p.push(format!(
-                "adjust.min_range_m must be below adjust.max_range_m (got {} and {})",
-                self.adjust.min_range_m, self.adjust.max_range_m
-            ));
-        }
-        if crate::adjust::Kernel::from_name(&self.adjust.kernel).is_none() {
-            p.push(format!(
-                "adjust.kernel: unknown kernel {:?} (known: matern12, matern32, matern52, squared_exponential)",
-                self.adjust.kernel
-            ));
-        }
-        let a = &self.adjust;
-        for (k, v, lo, hi) in [
-            ("adjust.range_grid_points", a.range_grid_points, 3, 40),
-            ("adjust.exact_max_plots", a.exact_max_plots, 10, 5000),
-            ("adjust.hsgp_max_basis", a.hsgp_max_basis, 16, 2500),
-            ("adjust.joint_draws", a.joint_draws, 100, 1_000_000),
-        ] {
-            if !(lo..=hi).contains(&v) {
-                p.push(format!("{k} must be between {lo} and {hi} (got {v})"));
-            }
-        }
-        if !["joint", "separate"].contains(&a.pooling.as_str()) {
-            p.push(format!(
-                "adjust.pooling must be \"joint\" or \"separate\" (got {:?})",
-                a.pooling
-            ));
-        }
-        if !(a.hsgp_boundary_factor >= 1.0) {
-            p.push(format!(
-                "adjust.hsgp_boundary_factor must be at least 1 (got {})",
-                a.hsgp_boundary_factor
-            ));
-        }
-        for (k, v) in [
-            ("adjust.interaction_sd_u", a.interaction_sd_u),
-            ("adjust.weak_prior_sd", a.weak_prior_sd),
-        ] {
-            if !(v >= 0.0) || !v.is_finite() {
-                p.push(format!("{k} must be a finite number >= 0 (got {v})"));
-            }
-        }
-        for (k, v) in &a.product_prior_sd {
-            if !(*v > 0.0) || !v.is_finite() {
-                p.push(format!(
-                    "adjust.product_prior_sd.{k} must be above 0 (got {v})"
-                ));
-            }
-            if !a.product_prior_mean.contains_key(k) {
-                p.push(format!(
-                    "adjust.product_prior_sd.{k} has no adjust.product_prior_mean.{k}"
-                ));
-            }
-        }
-        for (k, v) in &a.product_prior_mean {
-            if !v.is_finite() {
-                p.push(format!(
-                    "adjust.product_prior_mean.{k} must be a finite number"
-                ));
-            }
-            if !a.product_prior_sd.contains_key(k) {
-                p.push(format!(
-                    "adjust.product_prior_mean.{k} has no adjust.product_prior_sd.{k}"
-                ));
-            }
-        }
-        let pl = &self.plots;
-        for (k, v) in [
-            ("plots.min_coverage", pl.min_coverage),
-            ("plots.end_trim_m", pl.end_trim_m),
-            ("plots.side_trim_m", pl.side_trim_m),
-            ("plots.min_swath_inside", pl.min_swath_inside),
-            ("plots.trim_fraction", pl.trim_fraction),
-            ("plots.far_m", pl.far_m),
-        ] {
-            if !(v >= 0.0) || !v.is_finite() {
-                p.push(format!("{k} must be a finite number >= 0 (got {v})"));
-            }
-        }
-        if pl.min_coverage > 1.0 || pl.min_swath_inside > 1.0 {
-            p.push(format!(
-                "plots.min_coverage and plots.min_swath_inside must be at most 1 (got {} and {})",
-                pl.min_coverage, pl.min_swath_inside
-            ));
-        }
-        if pl.trim_fraction >= 0.5 {
-            p.push(format!(
-                "plots.trim_fraction must be below 0.5 (got {})",
-                pl.trim_fraction
-            ));
-        }
-        if !(pl.coverage_cell_m > 0.0) {
-            p.push(format!(
-                "plots.coverage_cell_m must be above 0 (got {})",
-                pl.coverage_cell_m
-            ));
-        }
-        if !["error", "warn"].contains(&pl.design_mismatch.as_str()) {
-            p.push(format!(
-                "plots.design_mismatch must be \"error\" or \"warn\" (got {:?})",
-                pl.design_mismatch
-            ));
-        }
+        self.plots.problems(&mut p);
+        self.adjust.problems(&mut p);
+        self.report.problems(&mut p);
         match (self.inputs.plots.is_empty(), self.layout.is_empty()) {
             (true, true) => {
                 p.push("inputs.plots is empty and there is no [[layout]]: give one of them".into())
@@ -586,36 +278,6 @@ impl TrialConfig {
         }
         for (i, l) in self.layout.iter().enumerate() {
             p.extend(l.problems(i));
-        }
-        if self.plots.min_points < 1 {
-            p.push(format!(
-                "plots.min_points must be at least 1 (got {})",
-                self.plots.min_points
-            ));
-        }
-        if !(0..=6).contains(&self.report.decimals) {
-            p.push(format!(
-                "report.decimals must be between 0 and 6 (got {})",
-                self.report.decimals
-            ));
-        }
-        if !(0..=60).contains(&self.ingest.utm_zone) {
-            p.push(format!(
-                "ingest.utm_zone must be 0 (automatic) or a zone 1-60 (got {})",
-                self.ingest.utm_zone
-            ));
-        }
-        if !["auto", "north", "south"].contains(&self.ingest.hemisphere.as_str()) {
-            p.push(format!(
-                "ingest.hemisphere must be \"auto\", \"north\" or \"south\" (got {:?})",
-                self.ingest.hemisphere
-            ));
-        }
-        if self.columns.delimiter.chars().count() != 1 {
-            p.push(format!(
-                "columns.delimiter must be one character (got {:?})",
-                self.columns.delimiter
-            ));
         }
         if self.inputs.monitor.is_empty() {
             p.push("inputs.monitor must list at least one export file or folder".into());
@@ -653,6 +315,7 @@ moisture = "m"
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::crop::LB_AC_IN_KG_HA;
 
     #[test]
     fn defaults_and_crops_parse() {

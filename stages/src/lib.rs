@@ -7,6 +7,8 @@ pub mod adjust;
 pub mod choice;
 pub mod clean;
 pub mod config;
+pub mod crop;
+pub mod defaults;
 pub mod ingest;
 pub mod plots;
 pub mod progress;

@@ -44,7 +44,10 @@ pub mod field;
 pub mod joint;
 pub mod linalg;
 pub mod oracle;
+pub mod settings;
 pub mod spectral;
+
+pub use settings::{AdjustSettings, FitSettings, Pooling};
 
 use crate::plots::PlotStats;
 use crate::util::{sd, Rng};
@@ -61,79 +64,6 @@ use std::collections::{BTreeMap, BTreeSet};
 pub enum AdjustError {
     #[error("no field could be adjusted:\n  {}", .0.join("\n  "))]
     NothingToFit(Vec<String>),
-}
-
-/// How fields are combined.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Pooling {
-    /// One model for all fields: shared product effects with a treatment x field interaction.
-    Joint,
-    /// Each field alone; pooled rows by inverse-variance weighting of the field uplifts.
-    Separate,
-}
-
-/// Settings of the fit (from `[adjust]`).
-#[derive(Clone, Debug)]
-pub struct FitSettings {
-    pub check: String,
-    pub blocks: bool,
-    pub min_range_m: f64,
-    pub max_range_m: f64,
-    /// Coarse lattice points per length-scale axis.
-    pub range_grid_points: usize,
-    pub kernel: Kernel,
-    pub anisotropic: bool,
-    pub pooling: Pooling,
-    /// Joint fits: one length scale for all fields (else one per field).
-    pub shared_range: bool,
-    pub interaction: bool,
-    /// P(interaction SD > this) = 0.05; 0 = the mean SD of the fields' plot yields.
-    pub interaction_sd_u: f64,
-    /// SD of the default prior on product effects; 0 = ten times the mean SD of plot yields.
-    pub weak_prior_sd: f64,
-    /// Informative priors (mean, SD) per product, in the output unit.
-    pub product_prior: BTreeMap<String, (f64, f64)>,
-    pub exact_max_plots: usize,
-    pub hsgp_max_basis: usize,
-    pub hsgp_boundary: f64,
-    /// Importance draws of a joint fit.
-    pub joint_draws: usize,
-    pub seed: u64,
-    /// Grain price per tonne at standard moisture (0 = no economics).
-    pub grain_price_per_t: f64,
-    /// Product cost per hectare, by treatment.
-    pub product_cost_per_ha: BTreeMap<String, f64>,
-    /// Converts t/ha to the output unit.
-    pub t_ha_to_unit: f64,
-}
-
-impl FitSettings {
-    /// Defaults as in `config/defaults.toml`, for tests and benchmarks.
-    pub fn new(check: &str) -> FitSettings {
-        FitSettings {
-            check: check.into(),
-            blocks: false,
-            min_range_m: 0.0,
-            max_range_m: 0.0,
-            range_grid_points: 9,
-            kernel: Kernel::Matern52,
-            anisotropic: false,
-            pooling: Pooling::Joint,
-            shared_range: true,
-            interaction: true,
-            interaction_sd_u: 0.0,
-            weak_prior_sd: 0.0,
-            product_prior: BTreeMap::new(),
-            exact_max_plots: 600,
-            hsgp_max_basis: 400,
-            hsgp_boundary: 2.0,
-            joint_draws: 2000,
-            seed: 1,
-            grain_price_per_t: 0.0,
-            product_cost_per_ha: BTreeMap::new(),
-            t_ha_to_unit: 1.0,
-        }
-    }
 }
 
 /// The spatial model against the same model without the spatial field (the usual RCBD
@@ -307,31 +237,22 @@ pub fn matern52(d: f64, range: f64, sd: f64) -> f64 {
     sd * sd * (1.0 + r + r * r / 3.0) * (-r).exp()
 }
 
-/// Spatial covariance functions (R&W 2006 eq. 4.9 and 4.16-4.17).
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
-pub enum Kernel {
-    /// Matern 1/2 (exponential): s^2 exp(-d/l).
-    Matern12,
-    /// Matern 3/2: s^2 (1 + sqrt3 d/l) exp(-sqrt3 d/l).
-    Matern32,
-    /// Matern 5/2: s^2 (1 + sqrt5 d/l + 5 d^2/(3 l^2)) exp(-sqrt5 d/l).
-    #[default]
-    Matern52,
-    /// Squared exponential: s^2 exp(-d^2 / (2 l^2)).
-    SquaredExponential,
+crate::choice! {
+    /// Spatial covariance functions (R&W 2006 eq. 4.9 and 4.16-4.17), as named in
+    /// `adjust.kernel`.
+    pub enum Kernel {
+        /// Matern 1/2 (exponential): s^2 exp(-d/l).
+        Matern12 = "matern12",
+        /// Matern 3/2: s^2 (1 + sqrt3 d/l) exp(-sqrt3 d/l).
+        Matern32 = "matern32",
+        /// Matern 5/2: s^2 (1 + sqrt5 d/l + 5 d^2/(3 l^2)) exp(-sqrt5 d/l).
+        Matern52 = "matern52",
+        /// Squared exponential: s^2 exp(-d^2 / (2 l^2)).
+        SquaredExponential = "squared_exponential",
+    }
 }
 
 impl Kernel {
-    /// The kernel named in `adjust.kernel`.
-    pub fn from_name(name: &str) -> Option<Kernel> {
-        Some(match name {
-            "matern12" => Kernel::Matern12,
-            "matern32" => Kernel::Matern32,
-            "matern52" => Kernel::Matern52,
-            "squared_exponential" => Kernel::SquaredExponential,
-            _ => return None,
-        })
-    }
     /// Covariance at distance `d`.
     pub fn cov(self, d: f64, range: f64, sd: f64) -> f64 {
         match self {

@@ -55,7 +55,7 @@ pub use delay::interpolate_at;
 pub use rules::tukey_fences;
 pub use settings::CleanSettings;
 
-use crate::config::Crop;
+use crate::crop::Crop;
 use crate::table::{CleanPoint, Point, PointSet, Rejection, StageSummary};
 use rayon::prelude::*;
 use rules::{Export, ExportDetails, Needs, Work, RULES};
@@ -275,7 +275,8 @@ pub fn run_with(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::config::{crop_table, TrialConfig, TEST_TRIAL};
+    use crate::config::{TrialConfig, TEST_TRIAL};
+    use crate::crop::crop_table;
     use settings::{DelayMode, FillMode};
 
     #[test]

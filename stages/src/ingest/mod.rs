@@ -17,6 +17,7 @@
 pub mod design;
 pub mod formats;
 pub mod geojson;
+pub mod settings;
 pub mod time;
 
 pub use design::{read_design, reconcile};
@@ -147,10 +148,10 @@ pub fn choose_projection(
     } else {
         zone_of(crate::util::median(lons)) as i64
     };
-    let south = match cfg.ingest.hemisphere.as_str() {
-        "north" => false,
-        "south" => true,
-        _ => crate::util::median(lats) < 0.0,
+    let south = match cfg.ingest.hemisphere {
+        settings::Hemisphere::North => false,
+        settings::Hemisphere::South => true,
+        settings::Hemisphere::Auto => crate::util::median(lats) < 0.0,
     };
     Ok(Utm::new(zone, south)?)
 }

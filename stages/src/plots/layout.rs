@@ -12,6 +12,16 @@
 use crate::table::PlotPolygon;
 use serde::{Deserialize, Serialize};
 
+crate::choice! {
+    /// `numbering` of a `[[layout]]`: how plot ids run through the grid.
+    pub enum Numbering {
+        /// Column by column within each range, every range the same way.
+        RowMajor = "row_major",
+        /// Every second range backwards.
+        Serpentine = "serpentine",
+    }
+}
+
 /// One field's grid, as written in the trial file under `[[layout]]`.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -29,7 +39,7 @@ pub struct GridLayout {
     pub columns: u32,
     pub ranges: u32,
     /// "row_major" or "serpentine".
-    pub numbering: String,
+    pub numbering: Numbering,
     pub id_prefix: String,
 }
 
@@ -57,12 +67,6 @@ impl GridLayout {
                 self.columns, self.ranges
             ));
         }
-        if !["row_major", "serpentine"].contains(&self.numbering.as_str()) {
-            p.push(format!(
-                "layout[{i}].numbering must be \"row_major\" or \"serpentine\" (got {:?})",
-                self.numbering
-            ));
-        }
         p
     }
 
@@ -86,7 +90,7 @@ impl GridLayout {
                 if super::geometry::signed_area(&ring) < 0.0 {
                     ring.reverse();
                 }
-                let number = if self.numbering == "serpentine" && r % 2 == 1 {
+                let number = if self.numbering == Numbering::Serpentine && r % 2 == 1 {
                     self.columns - c
                 } else {
                     c + 1
@@ -106,7 +110,7 @@ impl GridLayout {
 mod tests {
     use super::*;
 
-    fn layout(numbering: &str, bearing: f64) -> GridLayout {
+    fn layout(numbering: Numbering, bearing: f64) -> GridLayout {
         GridLayout {
             field: "F".into(),
             origin_lon: 0.0,
@@ -117,7 +121,7 @@ mod tests {
             alley_m: 2.0,
             columns: 2,
             ranges: 2,
-            numbering: numbering.into(),
+            numbering,
             id_prefix: "F-".into(),
         }
     }
@@ -127,7 +131,7 @@ mod tests {
         // Bearing 90: along = east, across = south. Origin (1000, 5000).
         // Plot 1 (range 1, col 1): east 0..10, south 0..3 -> x 1000..1010, y 4997..5000.
         // Plot F-202 (range 2, col 2): along 12..22, across 3..6 -> x 1012..1022, y 4994..4997.
-        let p = layout("row_major", 90.0).polygons(1000.0, 5000.0);
+        let p = layout(Numbering::RowMajor, 90.0).polygons(1000.0, 5000.0);
         let bbox = |i: usize| {
             let xs: Vec<f64> = p[i].exterior.iter().map(|c| c.0).collect();
             let ys: Vec<f64> = p[i].exterior.iter().map(|c| c.1).collect();
@@ -153,14 +157,14 @@ mod tests {
 
     #[test]
     fn serpentine_numbering_reverses_every_second_range() {
-        let ids: Vec<String> = layout("serpentine", 0.0)
+        let ids: Vec<String> = layout(Numbering::Serpentine, 0.0)
             .polygons(0.0, 0.0)
             .into_iter()
             .map(|p| p.plot_id)
             .collect();
         assert_eq!(ids, ["F-101", "F-102", "F-202", "F-201"]);
         // Bearing 0: along = north, across = east; plot F-101 corner (0,0), far corner (3, 10).
-        let p = layout("row_major", 0.0).polygons(0.0, 0.0);
+        let p = layout(Numbering::RowMajor, 0.0).polygons(0.0, 0.0);
         assert!(p[0]
             .exterior
             .iter()

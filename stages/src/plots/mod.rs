@@ -27,14 +27,16 @@
 
 pub mod geometry;
 pub mod layout;
+pub mod settings;
 
-use crate::config::{Crop, OutputUnit, PlotsSettings};
+use crate::crop::{Crop, OutputUnit};
 use crate::table::{CleanPoint, DesignRow, PlotCounts, PlotPolygon, Rejection, StageSummary};
 use crate::util::{mean, median, sd};
 use geo::{Area, Centroid, Contains, LineString, Polygon};
 use geometry::{clip_area, net_polygon, oriented_rect, Frame};
 use rstar::primitives::{GeomWithData, Rectangle};
 use rstar::{PointDistance, RTree};
+pub use settings::PlotsSettings;
 use std::collections::{BTreeMap, HashMap};
 
 /// Statistics of one plot.

@@ -6,6 +6,25 @@ use crate::table::StageSummary;
 use crate::util::fmt;
 use std::fmt::Write as _;
 
+/// `[report]` settings.
+#[derive(Clone, Debug, serde::Serialize, serde::Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReportSettings {
+    pub decimals: i64,
+}
+
+impl ReportSettings {
+    /// Range problems, each naming its key.
+    pub fn problems(&self, p: &mut Vec<String>) {
+        if !(0..=6).contains(&self.decimals) {
+            p.push(format!(
+                "report.decimals must be between 0 and 6 (got {})",
+                self.decimals
+            ));
+        }
+    }
+}
+
 /// What the report is made from.
 pub struct ReportInput<'a> {
     pub trial_name: &'a str,

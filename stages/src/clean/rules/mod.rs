@@ -39,7 +39,7 @@ pub use yield_outlier::tukey_fences;
 
 use super::delay::DelayEstimate;
 use super::settings::CleanSettings;
-use crate::config::Crop;
+use crate::crop::Crop;
 use crate::table::Point;
 use std::collections::BTreeMap;
 
@@ -209,7 +209,8 @@ mod tests {
 pub(crate) mod testing {
     use super::Rule;
     use crate::clean::settings::{CleanSettings, DelayMode};
-    use crate::config::{crop_table, TrialConfig, TEST_TRIAL};
+    use crate::config::{TrialConfig, TEST_TRIAL};
+    use crate::crop::crop_table;
     use crate::table::{Point, PointSet};
 
     /// `n` records one second apart driving east at `speed` m/s along y = 0: 10 kg/s of

@@ -6,7 +6,8 @@
 //! `negative_value`.
 
 use super::{reject, ExportRead, MonitorFormat, RawPoint};
-use crate::config::{FlowUnit, SpeedUnit, TimeFormat, TrialConfig, WidthUnit};
+use crate::config::TrialConfig;
+use crate::ingest::settings::{FlowUnit, SpeedUnit, TimeFormat, WidthUnit};
 use crate::ingest::{parse_iso8601, IngestError};
 use std::path::Path;
 

@@ -1,0 +1,192 @@
+//! `[adjust]` settings: the section as written (`AdjustSettings`, typed, with its checks) and
+//! the checked form the fit takes (`FitSettings`).
+
+use super::Kernel;
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+
+crate::choice! {
+    /// `adjust.pooling`: how fields are combined.
+    pub enum Pooling {
+        /// One model for all fields: shared product effects with a treatment x field
+        /// interaction.
+        Joint = "joint",
+        /// Each field alone; pooled rows by inverse-variance weighting of the field uplifts.
+        Separate = "separate",
+    }
+}
+
+/// Settings of the fit (from `[adjust]`).
+#[derive(Clone, Debug)]
+pub struct FitSettings {
+    pub check: String,
+    pub blocks: bool,
+    pub min_range_m: f64,
+    pub max_range_m: f64,
+    /// Coarse lattice points per length-scale axis.
+    pub range_grid_points: usize,
+    pub kernel: Kernel,
+    pub anisotropic: bool,
+    pub pooling: Pooling,
+    /// Joint fits: one length scale for all fields (else one per field).
+    pub shared_range: bool,
+    pub interaction: bool,
+    /// P(interaction SD > this) = 0.05; 0 = the mean SD of the fields' plot yields.
+    pub interaction_sd_u: f64,
+    /// SD of the default prior on product effects; 0 = ten times the mean SD of plot yields.
+    pub weak_prior_sd: f64,
+    /// Informative priors (mean, SD) per product, in the output unit.
+    pub product_prior: BTreeMap<String, (f64, f64)>,
+    pub exact_max_plots: usize,
+    pub hsgp_max_basis: usize,
+    pub hsgp_boundary: f64,
+    /// Importance draws of a joint fit.
+    pub joint_draws: usize,
+    pub seed: u64,
+    /// Grain price per tonne at standard moisture (0 = no economics).
+    pub grain_price_per_t: f64,
+    /// Product cost per hectare, by treatment.
+    pub product_cost_per_ha: BTreeMap<String, f64>,
+    /// Converts t/ha to the output unit.
+    pub t_ha_to_unit: f64,
+}
+
+impl FitSettings {
+    /// The defaults of `config/defaults.toml`, for tests and benchmarks.
+    pub fn new(check: &str) -> FitSettings {
+        crate::defaults::section::<AdjustSettings>("adjust").checked(check, 1.0)
+    }
+}
+/// `[adjust]` settings.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AdjustSettings {
+    pub kernel: Kernel,
+    pub blocks: bool,
+    pub min_range_m: f64,
+    pub max_range_m: f64,
+    pub range_grid_points: i64,
+    pub anisotropic: bool,
+    pub pooling: Pooling,
+    pub shared_range: bool,
+    pub interaction: bool,
+    pub interaction_sd_u: f64,
+    pub weak_prior_sd: f64,
+    pub product_prior_mean: BTreeMap<String, f64>,
+    pub product_prior_sd: BTreeMap<String, f64>,
+    pub exact_max_plots: i64,
+    pub hsgp_max_basis: i64,
+    pub hsgp_boundary_factor: f64,
+    pub joint_draws: i64,
+    pub seed: i64,
+    pub grain_price_per_t: f64,
+    pub product_cost_per_ha: BTreeMap<String, f64>,
+    pub plot_table: String,
+    pub row_spacing_m: f64,
+    pub range_spacing_m: f64,
+}
+
+impl AdjustSettings {
+    /// The fit's settings: the trial's check treatment, and the factor from t/ha to the
+    /// output unit (priors and costs are given in the output unit).
+    pub fn checked(&self, check: &str, t_ha_to_unit: f64) -> FitSettings {
+        let a = self;
+        FitSettings {
+            check: check.to_string(),
+            blocks: a.blocks,
+            min_range_m: a.min_range_m,
+            max_range_m: a.max_range_m,
+            range_grid_points: a.range_grid_points as usize,
+            kernel: a.kernel,
+            anisotropic: a.anisotropic,
+            pooling: a.pooling,
+            shared_range: a.shared_range,
+            interaction: a.interaction,
+            interaction_sd_u: a.interaction_sd_u,
+            weak_prior_sd: a.weak_prior_sd,
+            product_prior: a
+                .product_prior_mean
+                .iter()
+                .filter_map(|(k, m)| a.product_prior_sd.get(k).map(|sd| (k.clone(), (*m, *sd))))
+                .collect(),
+            exact_max_plots: a.exact_max_plots as usize,
+            hsgp_max_basis: a.hsgp_max_basis as usize,
+            hsgp_boundary: a.hsgp_boundary_factor,
+            joint_draws: a.joint_draws as usize,
+            seed: a.seed as u64,
+            grain_price_per_t: a.grain_price_per_t,
+            product_cost_per_ha: a.product_cost_per_ha.clone(),
+            t_ha_to_unit,
+        }
+    }
+
+    /// Range problems, each naming its key.
+    pub fn problems(&self, p: &mut Vec<String>) {
+        let mut nonneg = |key: &str, v: f64| {
+            if !(v >= 0.0) || !v.is_finite() {
+                p.push(format!("{key} must be a finite number >= 0 (got {v})"));
+            }
+        };
+        nonneg("adjust.min_range_m", self.min_range_m);
+        nonneg("adjust.max_range_m", self.max_range_m);
+        nonneg("adjust.grain_price_per_t", self.grain_price_per_t);
+        for (k, v) in &self.product_cost_per_ha {
+            nonneg(&format!("adjust.product_cost_per_ha.{k}"), *v);
+        }
+        if self.max_range_m > 0.0 && self.min_range_m >= self.max_range_m {
+            p.push(format!(
+                "adjust.min_range_m must be below adjust.max_range_m (got {} and {})",
+                self.min_range_m, self.max_range_m
+            ));
+        }
+        let a = self;
+        for (k, v, lo, hi) in [
+            ("adjust.range_grid_points", a.range_grid_points, 3, 40),
+            ("adjust.exact_max_plots", a.exact_max_plots, 10, 5000),
+            ("adjust.hsgp_max_basis", a.hsgp_max_basis, 16, 2500),
+            ("adjust.joint_draws", a.joint_draws, 100, 1_000_000),
+        ] {
+            if !(lo..=hi).contains(&v) {
+                p.push(format!("{k} must be between {lo} and {hi} (got {v})"));
+            }
+        }
+        if !(a.hsgp_boundary_factor >= 1.0) {
+            p.push(format!(
+                "adjust.hsgp_boundary_factor must be at least 1 (got {})",
+                a.hsgp_boundary_factor
+            ));
+        }
+        for (k, v) in [
+            ("adjust.interaction_sd_u", a.interaction_sd_u),
+            ("adjust.weak_prior_sd", a.weak_prior_sd),
+        ] {
+            if !(v >= 0.0) || !v.is_finite() {
+                p.push(format!("{k} must be a finite number >= 0 (got {v})"));
+            }
+        }
+        for (k, v) in &a.product_prior_sd {
+            if !(*v > 0.0) || !v.is_finite() {
+                p.push(format!(
+                    "adjust.product_prior_sd.{k} must be above 0 (got {v})"
+                ));
+            }
+            if !a.product_prior_mean.contains_key(k) {
+                p.push(format!(
+                    "adjust.product_prior_sd.{k} has no adjust.product_prior_mean.{k}"
+                ));
+            }
+        }
+        for (k, v) in &a.product_prior_mean {
+            if !v.is_finite() {
+                p.push(format!(
+                    "adjust.product_prior_mean.{k} must be a finite number"
+                ));
+            }
+            if !a.product_prior_sd.contains_key(k) {
+                p.push(format!(
+                    "adjust.product_prior_mean.{k} has no adjust.product_prior_sd.{k}"
+                ));
+            }
+        }
+    }
+}
