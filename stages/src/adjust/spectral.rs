@@ -34,31 +34,9 @@ pub enum Method {
 
 /// Unit-variance spectral density of `kernel` in two dimensions at angular frequency
 /// (w0, w1), with length scales (l0, l1) (R&W 2006 eq. 4.15 and 4.20 with anisotropy by
-/// scaling each axis): S(w) = l0 l1 S_1(|(l0 w0, l1 w1)|), where S_1 is the isotropic density
-/// at unit length scale: Matern nu: 4 pi nu (2 nu)^nu (2 nu + r^2)^-(nu + 1); squared
-/// exponential: 2 pi exp(-r^2 / 2).
+/// scaling each axis); each kernel's own density is in its file under `kernel/`.
 pub fn spectral_density(kernel: Kernel, w: (f64, f64), l: (f64, f64)) -> f64 {
-    let r2 = (l.0 * w.0).powi(2) + (l.1 * w.1).powi(2);
-    let matern = |nu: f64| {
-        4.0 * std::f64::consts::PI * nu * (2.0 * nu).powf(nu) * (2.0 * nu + r2).powf(-(nu + 1.0))
-    };
-    let s1 = match kernel {
-        Kernel::Matern12 => matern(0.5),
-        Kernel::Matern32 => matern(1.5),
-        Kernel::Matern52 => matern(2.5),
-        Kernel::SquaredExponential => 2.0 * std::f64::consts::PI * (-0.5 * r2).exp(),
-    };
-    l.0 * l.1 * s1
-}
-
-/// (k, g) of the basis-size rules for `kernel` (see the module notes).
-fn basis_rule(kernel: Kernel) -> (f64, f64) {
-    match kernel {
-        Kernel::SquaredExponential => (1.75, 3.2),
-        Kernel::Matern32 => (3.42, 4.5),
-        Kernel::Matern52 => (2.65, 4.1),
-        Kernel::Matern12 => (6.0, 5.0),
-    }
+    kernel.spectral_density(w, l)
 }
 
 /// A field's yields, design and coordinates, as the spectral algebra needs them.
@@ -148,7 +126,7 @@ impl Repr {
     pub fn hsgp(d: &Design, l: (f64, f64), max_basis: usize, min_boundary: f64) -> Option<Repr> {
         let n = d.n();
         let p = d.p;
-        let (k_rule, g_rule) = basis_rule(d.kernel);
+        let (k_rule, g_rule) = d.kernel.basis_rule();
         let axis = |f: &dyn Fn(&(f64, f64)) -> f64| {
             let lo = d.coords.iter().map(f).fold(f64::INFINITY, f64::min);
             let hi = d.coords.iter().map(f).fold(f64::NEG_INFINITY, f64::max);

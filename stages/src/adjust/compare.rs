@@ -1,0 +1,104 @@
+//! The spatial model against the same mean model without the spatial field, and the
+//! residual Moran's I (Moran 1950, Biometrika 37:17) of both.
+
+use super::*;
+
+/// Moran's I of values at points, with binary weights for pairs closer than `cutoff`
+/// (Moran 1950): I = n / W x sum_ij w_ij z_i z_j / sum_i z_i^2, z centred.
+pub fn morans_i(xy: &[(f64, f64)], v: &[f64], cutoff: f64) -> f64 {
+    let n = v.len();
+    let m = v.iter().sum::<f64>() / n as f64;
+    let z: Vec<f64> = v.iter().map(|x| x - m).collect();
+    let (mut num, mut w) = (0.0, 0.0);
+    for i in 0..n {
+        for j in 0..n {
+            if i != j {
+                let d = ((xy[i].0 - xy[j].0).powi(2) + (xy[i].1 - xy[j].1).powi(2)).sqrt();
+                if d <= cutoff {
+                    num += z[i] * z[j];
+                    w += 1.0;
+                }
+            }
+        }
+    }
+    let den: f64 = z.iter().map(|x| x * x).sum();
+    if w == 0.0 || den == 0.0 {
+        return f64::NAN;
+    }
+    n as f64 / w * num / den
+}
+
+/// The spatial fit at the mode against the same mean model without the spatial field.
+pub(crate) fn compare(
+    prep: &Prepared,
+    fit: &spectral::Inner,
+    effect: &[f64],
+) -> Result<Comparison, String> {
+    let m = &prep.model;
+    let d = &m.design;
+    let (n, p) = (d.n(), d.p);
+    let field = &m.name;
+    let mut xtx = vec![0.0; p * p];
+    let mut xty = vec![0.0; p];
+    for i in 0..n {
+        for a in 0..p {
+            xty[a] += d.x[i * p + a] * d.y[i];
+            for b in 0..p {
+                xtx[a * p + b] += d.x[i * p + a] * d.x[i * p + b];
+            }
+        }
+    }
+    let l = linalg::chol(&xtx, p)
+        .ok_or_else(|| format!("field {field}: the design matrix is singular"))?;
+    let mut b = xty.clone();
+    linalg::solve(&l, p, &mut b);
+    let resid_rcbd: Vec<f64> = (0..n)
+        .map(|i| d.y[i] - (0..p).map(|j| d.x[i * p + j] * b[j]).sum::<f64>())
+        .collect();
+    let rss: f64 = resid_rcbd.iter().map(|r| r * r).sum();
+    let s2 = (rss / (n - p) as f64).max(1e-18);
+    let inv = linalg::inverse(&l, p);
+    let reml_rcbd = -0.5
+        * ((n - p) as f64 * (2.0 * std::f64::consts::PI).ln()
+            + n as f64 * s2.ln()
+            + linalg::logdet(&l, p)
+            - p as f64 * s2.ln()
+            + rss / s2);
+    let nt = m.treatments.len();
+    let efficiency = (1..nt)
+        .map(|t| s2 * inv[t * p + t] / fit.cov[t * p + t])
+        .sum::<f64>()
+        / (nt - 1) as f64;
+    let rank = |b: &[f64]| -> Vec<usize> {
+        let mut idx: Vec<usize> = (1..nt).collect();
+        idx.sort_by(|&a, &c| b[c].total_cmp(&b[a]));
+        let mut r = vec![0; nt];
+        for (k, &i) in idx.iter().enumerate() {
+            r[i] = k + 1;
+        }
+        r
+    };
+    let (rs, rr) = (rank(&fit.b), rank(&b));
+    let rank_changes = (1..nt)
+        .filter(|&t| rs[t] != rr[t])
+        .map(|t| m.treatments[t].clone())
+        .collect();
+    let resid_sp: Vec<f64> = (0..n)
+        .map(|i| d.y[i] - (0..p).map(|j| d.x[i * p + j] * fit.b[j]).sum::<f64>() - effect[i])
+        .collect();
+    let xy: Vec<(f64, f64)> = prep
+        .plots
+        .iter()
+        .map(|p| (p.centroid_x_m, p.centroid_y_m))
+        .collect();
+    let cutoff = 1.5 * m.dmin;
+    Ok(Comparison {
+        field: field.clone(),
+        log_ml_spatial: fit.reml,
+        log_ml_rcbd: reml_rcbd,
+        efficiency,
+        moran_rcbd: morans_i(&xy, &resid_rcbd, cutoff),
+        moran_spatial: morans_i(&xy, &resid_sp, cutoff),
+        rank_changes,
+    })
+}

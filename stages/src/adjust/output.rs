@@ -1,0 +1,238 @@
+//! What the adjust stage returns: per-plot, per-treatment, hyperparameter and comparison
+//! rows, and their assembly from the fits (economics included).
+
+use super::*;
+
+/// The spatial model against the same model without the spatial field (the usual RCBD
+/// analysis when blocks are in the mean model), per field.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Comparison {
+    pub field: String,
+    pub log_ml_spatial: f64,
+    pub log_ml_rcbd: f64,
+    /// Mean over products of var(uplift, RCBD) / var(uplift, spatial): above 1 means the
+    /// spatial model estimates the contrasts more precisely.
+    pub efficiency: f64,
+    /// Residual Moran's I without and with the spatial field (Moran 1950, Biometrika 37:17).
+    pub moran_rcbd: f64,
+    pub moran_spatial: f64,
+    /// Products whose rank by uplift differs between the two models.
+    pub rank_changes: Vec<String>,
+}
+
+/// A plot after adjustment.
+#[derive(Clone, Debug, PartialEq)]
+pub struct AdjustedPlot {
+    pub plot_id: String,
+    pub field: String,
+    pub treatment: String,
+    pub block: String,
+    pub raw: f64,
+    pub spatial_mean: f64,
+    pub spatial_sd: f64,
+    pub adjusted: f64,
+    pub adjusted_sd: f64,
+}
+
+/// A treatment in a field (or pooled over fields: field = "all").
+#[derive(Clone, Debug, PartialEq)]
+pub struct TreatmentRow {
+    pub field: String,
+    pub treatment: String,
+    pub plots: u64,
+    /// Treatment mean yield (per field; NaN in pooled rows, where fields differ in level).
+    pub estimate: f64,
+    pub sd: f64,
+    pub lo95: f64,
+    pub hi95: f64,
+    /// Uplift over the check; NaN for the check itself.
+    pub uplift: f64,
+    pub uplift_sd: f64,
+    pub uplift_lo90: f64,
+    pub uplift_hi90: f64,
+    pub uplift_lo95: f64,
+    pub uplift_hi95: f64,
+    pub p_uplift_gt0: f64,
+    /// Uplift that pays for the product (cost / price), in the output unit; NaN without
+    /// economics.
+    pub break_even: f64,
+    pub p_uplift_gt_break_even: f64,
+    /// Expected uplift x price - cost, per hectare.
+    pub expected_net_return_per_ha: f64,
+    /// The prior on the product's effect (mean, SD), shown beside the posterior.
+    pub prior_mean: f64,
+    pub prior_sd: f64,
+}
+
+/// Posterior mean and 95 % interval of one hyperparameter (NaN where it does not apply).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Summary {
+    pub mean: f64,
+    pub lo95: f64,
+    pub hi95: f64,
+}
+
+impl Summary {
+    pub const NONE: Summary = Summary {
+        mean: f64::NAN,
+        lo95: f64::NAN,
+        hi95: f64::NAN,
+    };
+    /// From weighted values (weights need not sum to one).
+    pub fn from_weighted(mut v: Vec<(f64, f64)>) -> Summary {
+        let total: f64 = v.iter().map(|x| x.1).sum();
+        if v.is_empty() || !(total > 0.0) {
+            return Summary::NONE;
+        }
+        let mean = v.iter().map(|x| x.0 * x.1).sum::<f64>() / total;
+        v.sort_by(|a, b| a.0.total_cmp(&b.0));
+        let q = |q: f64| {
+            let mut acc = 0.0;
+            for (x, w) in &v {
+                acc += w / total;
+                if acc >= q {
+                    return *x;
+                }
+            }
+            v.last().map(|x| x.0).unwrap_or(f64::NAN)
+        };
+        Summary {
+            mean,
+            lo95: q(0.025),
+            hi95: q(0.975),
+        }
+    }
+}
+
+/// Hyperparameters of one field (or, in the row for field "all" of a joint fit, the
+/// interaction SD and the shared range).
+#[derive(Clone, Debug, PartialEq)]
+pub struct FieldHyper {
+    pub field: String,
+    pub plots: u64,
+    /// Range (along the grid with anisotropy), metres: posterior mean and 95 % interval.
+    pub range_m: f64,
+    pub range_lo95_m: f64,
+    pub range_hi95_m: f64,
+    /// Range across the grid (anisotropic fits only).
+    pub range_across: Summary,
+    pub spatial_sd: f64,
+    pub spatial_sd_ci: Summary,
+    pub noise_sd: f64,
+    pub noise_sd_ci: Summary,
+    pub spatial_share: f64,
+    pub spatial_share_ci: Summary,
+    pub interaction_sd: Summary,
+    /// REML log marginal likelihood at the posterior mode.
+    pub log_marginal_likelihood: f64,
+    /// "exact", or "hsgp m0xm1" with the basis functions per axis at the mode.
+    pub method: String,
+    /// Empty, or a warning such as the range sitting at a bound.
+    pub warning: String,
+}
+
+/// What adjust hands on.
+#[derive(Clone, Debug)]
+pub struct AdjustOutput {
+    pub comparisons: Vec<Comparison>,
+    pub plots: Vec<AdjustedPlot>,
+    pub treatments: Vec<TreatmentRow>,
+    pub hyper: Vec<FieldHyper>,
+    pub warnings: Vec<String>,
+    /// Effective sample size of the joint importance draws (NaN without a joint fit).
+    pub joint_ess: f64,
+}
+
+/// Break-even uplift (cost / price, in the output unit) and expected net return per hectare
+/// for one product; NaN without economics.
+pub(crate) fn economics(s: &FitSettings, treatment: &str, uplift: f64) -> (f64, f64) {
+    let cost = s.product_cost_per_ha.get(treatment).copied().unwrap_or(0.0);
+    if !(s.grain_price_per_t > 0.0) || uplift.is_nan() {
+        return (f64::NAN, f64::NAN);
+    }
+    let be = cost / s.grain_price_per_t * s.t_ha_to_unit;
+    (be, uplift / s.t_ha_to_unit * s.grain_price_per_t - cost)
+}
+
+/// A treatment row from the posterior of its mean yield and (for products) its uplift.
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn treatment_row(
+    s: &FitSettings,
+    field: &str,
+    treatment: &str,
+    plots: u64,
+    est: Option<&Mixture>,
+    up: Option<&Mixture>,
+    prior: Option<(f64, f64)>,
+) -> TreatmentRow {
+    let nan = f64::NAN;
+    let mut r = TreatmentRow {
+        field: field.into(),
+        treatment: treatment.into(),
+        plots,
+        estimate: nan,
+        sd: nan,
+        lo95: nan,
+        hi95: nan,
+        uplift: nan,
+        uplift_sd: nan,
+        uplift_lo90: nan,
+        uplift_hi90: nan,
+        uplift_lo95: nan,
+        uplift_hi95: nan,
+        p_uplift_gt0: nan,
+        break_even: nan,
+        p_uplift_gt_break_even: nan,
+        expected_net_return_per_ha: nan,
+        prior_mean: prior.map_or(nan, |p| p.0),
+        prior_sd: prior.map_or(nan, |p| p.1),
+    };
+    if let Some(e) = est {
+        r.estimate = e.mean();
+        r.sd = e.var().sqrt();
+        r.lo95 = e.quantile(0.025);
+        r.hi95 = e.quantile(0.975);
+    }
+    if let Some(u) = up {
+        r.uplift = u.mean();
+        r.uplift_sd = u.var().sqrt();
+        r.uplift_lo90 = u.quantile(0.05);
+        r.uplift_hi90 = u.quantile(0.95);
+        r.uplift_lo95 = u.quantile(0.025);
+        r.uplift_hi95 = u.quantile(0.975);
+        r.p_uplift_gt0 = 1.0 - u.cdf(0.0);
+        let (be, ret) = economics(s, treatment, r.uplift);
+        r.break_even = be;
+        r.expected_net_return_per_ha = ret;
+        if be.is_finite() {
+            r.p_uplift_gt_break_even = 1.0 - u.cdf(be);
+        }
+    }
+    r
+}
+
+/// Plots with their spatial effect from a mixture over hyperparameter points.
+pub(crate) fn adjusted_plots(
+    prep: &Prepared,
+    effects: &[(f64, Vec<f64>, Vec<f64>)],
+) -> Vec<AdjustedPlot> {
+    prep.plots
+        .iter()
+        .enumerate()
+        .map(|(j, pl)| {
+            let mix = Mixture::new(effects.iter().map(|(w, mu, v)| (*w, mu[j], v[j])).collect());
+            let (mu, sdv) = (mix.mean(), mix.var().sqrt());
+            AdjustedPlot {
+                plot_id: pl.plot_id.clone(),
+                field: prep.model.name.clone(),
+                treatment: pl.treatment.clone(),
+                block: pl.block.clone(),
+                raw: pl.yield_mean,
+                spatial_mean: mu,
+                spatial_sd: sdv,
+                adjusted: pl.yield_mean - mu,
+                adjusted_sd: sdv,
+            }
+        })
+        .collect()
+}

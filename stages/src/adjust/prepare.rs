@@ -1,0 +1,242 @@
+//! Field preparation: plots of one field to the design (yields, centroids, plot-grid axes,
+//! mean-model columns) and the product-effect priors shared by the fields.
+
+use super::*;
+
+/// A field ready to fit, with its plots.
+pub struct Prepared<'a> {
+    pub model: FieldModel,
+    pub plots: Vec<&'a PlotStats>,
+    pub counts: Vec<u64>,
+}
+
+/// Builds a field's design and priors, or says why it cannot be fitted.
+pub fn prepare<'a>(
+    field: &str,
+    plots: Vec<&'a PlotStats>,
+    s: &FitSettings,
+) -> Result<Prepared<'a>, String> {
+    let treatments: Vec<String> = {
+        let set: BTreeSet<&str> = plots.iter().map(|p| p.treatment.as_str()).collect();
+        let mut v: Vec<String> = set.into_iter().map(String::from).collect();
+        v.sort_by_key(|t| (t != &s.check, t.clone()));
+        v
+    };
+    if !treatments.contains(&s.check) {
+        return Err(format!(
+            "field {field}: no kept plot of the check {:?}; contrasts cannot be formed",
+            s.check
+        ));
+    }
+    if treatments.len() < 2 {
+        return Err(format!(
+            "field {field}: only one treatment ({}); nothing to compare",
+            treatments[0]
+        ));
+    }
+    let blocks: Vec<String> = if s.blocks {
+        plots
+            .iter()
+            .map(|p| p.block.clone())
+            .collect::<BTreeSet<_>>()
+            .into_iter()
+            .collect()
+    } else {
+        Vec::new()
+    };
+    let nt = treatments.len();
+    let p = nt + blocks.len().saturating_sub(1);
+    let n = plots.len();
+    if n < p + 2 {
+        return Err(format!(
+            "field {field}: {n} kept plots for {p} mean parameters; at least {} needed",
+            p + 2
+        ));
+    }
+    let y: Vec<f64> = plots.iter().map(|p| p.yield_mean).collect();
+    let sy = sd(&y);
+    if !(sy > 0.0) {
+        return Err(format!(
+            "field {field}: all plot yields are equal; no variation to model"
+        ));
+    }
+    // Columns: intercept (the check), one contrast per product, sum-to-zero blocks.
+    let mut x = vec![0.0; n * p];
+    for (i, pl) in plots.iter().enumerate() {
+        let row = &mut x[i * p..(i + 1) * p];
+        row[0] = 1.0;
+        let t = treatments
+            .iter()
+            .position(|t| *t == pl.treatment)
+            .unwrap_or(0);
+        if t > 0 {
+            row[t] = 1.0;
+        }
+        if blocks.len() > 1 {
+            let b = blocks.iter().position(|b| *b == pl.block).unwrap_or(0);
+            for j in 1..blocks.len() {
+                row[nt + j - 1] = if b == j {
+                    1.0
+                } else if b == 0 {
+                    -1.0
+                } else {
+                    0.0
+                };
+            }
+        }
+    }
+    // Kernel axes: the plot grid's own (along, across) when they matter and are known
+    // (anisotropy; the reduced-rank basis's box), else projected x/y (distances are equal).
+    let grid = (s.anisotropic || n > s.exact_max_plots)
+        && plots
+            .iter()
+            .all(|p| p.along_m.is_finite() && p.across_m.is_finite());
+    let coords: Vec<(f64, f64)> = plots
+        .iter()
+        .map(|p| {
+            if grid {
+                (p.along_m, p.across_m)
+            } else {
+                (p.centroid_x_m, p.centroid_y_m)
+            }
+        })
+        .collect();
+    let mut dmin = f64::INFINITY;
+    let mut dmax: f64 = 0.0;
+    let mut amin = [f64::INFINITY; 2];
+    for i in 0..n {
+        for j in i + 1..n {
+            let (a, b) = (coords[i], coords[j]);
+            let d = ((a.0 - b.0).powi(2) + (a.1 - b.1).powi(2)).sqrt();
+            if d > 0.0 {
+                dmin = dmin.min(d);
+            }
+            dmax = dmax.max(d);
+        }
+    }
+    for i in 0..n {
+        for j in i + 1..n {
+            for (k, dk) in [
+                (coords[i].0 - coords[j].0).abs(),
+                (coords[i].1 - coords[j].1).abs(),
+            ]
+            .into_iter()
+            .enumerate()
+            {
+                if dk > 0.25 * dmin {
+                    amin[k] = amin[k].min(dk);
+                }
+            }
+        }
+    }
+    if !dmin.is_finite() {
+        return Err(format!("field {field}: all plots share one position"));
+    }
+    let lo = |r0: f64| {
+        if s.min_range_m > 0.0 {
+            s.min_range_m
+        } else {
+            0.5 * r0
+        }
+    };
+    let hi = if s.max_range_m > 0.0 {
+        s.max_range_m
+    } else {
+        10.0 * dmax
+    };
+    let rho0 = if s.anisotropic {
+        (
+            if amin[0].is_finite() { amin[0] } else { dmin },
+            if amin[1].is_finite() { amin[1] } else { dmin },
+        )
+    } else {
+        (dmin, dmin)
+    };
+    let bounds = [
+        (lo(rho0.0).ln(), hi.ln().max(lo(rho0.0).ln() + 0.1)),
+        (lo(rho0.1).ln(), hi.ln().max(lo(rho0.1).ln() + 0.1)),
+    ];
+    let method = if n <= s.exact_max_plots {
+        Method::Exact
+    } else {
+        Method::Hsgp {
+            max_basis: s.hsgp_max_basis,
+            min_boundary: s.hsgp_boundary,
+        }
+    };
+    let counts = treatments
+        .iter()
+        .map(|t| plots.iter().filter(|p| &p.treatment == t).count() as u64)
+        .collect();
+    Ok(Prepared {
+        model: FieldModel {
+            name: field.into(),
+            design: Design {
+                y,
+                x,
+                p,
+                coords,
+                kernel: s.kernel,
+            },
+            treatments,
+            sy,
+            dmin,
+            anisotropic: s.anisotropic,
+            bounds,
+            rho0,
+            method,
+            nodes: BTreeMap::new(),
+        },
+        plots,
+        counts,
+    })
+}
+
+/// The prior on product effects in the global product order, and each field's map into it.
+pub(crate) fn effect_priors(
+    preps: &[Prepared],
+    s: &FitSettings,
+) -> (Vec<String>, EffectPrior, Vec<FieldMap>) {
+    let products: Vec<String> = preps
+        .iter()
+        .flat_map(|p| p.model.treatments[1..].iter().cloned())
+        .collect::<BTreeSet<_>>()
+        .into_iter()
+        .collect();
+    let mean_sy = preps.iter().map(|p| p.model.sy).sum::<f64>() / preps.len().max(1) as f64;
+    let weak = if s.weak_prior_sd > 0.0 {
+        s.weak_prior_sd
+    } else {
+        10.0 * mean_sy
+    };
+    let (mean, var) = products
+        .iter()
+        .map(|t| match s.product_prior.get(t) {
+            Some(&(m, sd)) => (m, sd * sd),
+            None => (0.0, weak * weak),
+        })
+        .unzip();
+    let maps = preps
+        .iter()
+        .map(|p| FieldMap {
+            index: p.model.treatments[1..]
+                .iter()
+                .map(|t| products.iter().position(|x| x == t).unwrap_or(0))
+                .collect(),
+        })
+        .collect();
+    (products, EffectPrior { mean, var }, maps)
+}
+
+/// A field's prior and map restricted to its own products (for its single-field fit).
+pub(crate) fn local_prior(global: &EffectPrior, map: &FieldMap) -> (EffectPrior, FieldMap) {
+    (
+        EffectPrior {
+            mean: map.index.iter().map(|&k| global.mean[k]).collect(),
+            var: map.index.iter().map(|&k| global.var[k]).collect(),
+        },
+        FieldMap {
+            index: (0..map.index.len()).collect(),
+        },
+    )
+}

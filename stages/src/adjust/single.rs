@@ -1,0 +1,217 @@
+//! One field fitted on its own: the hyperparameter lattice, the mixture over it, and the
+//! field's rows.
+
+use super::*;
+
+/// Fit result of one field on its own.
+pub(crate) struct FieldFit {
+    pub(crate) plots: Vec<AdjustedPlot>,
+    pub(crate) rows: Vec<TreatmentRow>,
+    pub(crate) comparison: Comparison,
+    pub(crate) hyper: FieldHyper,
+    /// (treatment, uplift mean, variance) for inverse-variance pooling.
+    pub(crate) uplifts: Vec<(String, f64, f64)>,
+}
+
+/// Summaries of a field's hyperparameters from weighted points.
+pub(crate) fn hyper_summaries(
+    m: &FieldModel,
+    pts: &[(f64, [f64; 4])],
+) -> (Summary, Summary, Summary, Summary, Summary) {
+    let v = |f: &dyn Fn(&[f64; 4]) -> f64| -> Summary {
+        Summary::from_weighted(pts.iter().map(|(w, t)| (f(t), *w)).collect())
+    };
+    let range = v(&|t| t[0].exp());
+    let across = if m.anisotropic {
+        v(&|t| t[1].exp())
+    } else {
+        Summary::NONE
+    };
+    let sf = v(&|t| t[2].exp());
+    let sn = v(&|t| t[3].exp());
+    let share = v(&|t| {
+        let (f, e) = (t[2].exp().powi(2), t[3].exp().powi(2));
+        f / (f + e)
+    });
+    (range, across, sf, sn, share)
+}
+
+/// One field alone: its posterior over its lattice, spatial effects, treatment rows,
+/// hyperparameters and the comparison with the no-spatial-field model.
+pub(crate) fn fit_own(
+    prep: &Prepared,
+    lat: &Lattice,
+    global: &EffectPrior,
+    map: &FieldMap,
+    s: &FitSettings,
+) -> Result<FieldFit, String> {
+    let m = &prep.model;
+    let field = m.name.as_str();
+    let (prior, lmap) = local_prior(global, map);
+    let mut all: Vec<Weighted> = Vec::new();
+    for &k in &lat.keys {
+        let node = &m.nodes[&k];
+        let lpr = m.log_prior_range(node.l, lat.rho0) + lat.lvol;
+        for (i, pt) in node.points.iter().enumerate() {
+            if let Some(c) = combine(&[&pt.fit], std::slice::from_ref(&lmap), &prior, 0.0, false) {
+                all.push((lpr + pt.lw + c.log_c, k, i));
+            }
+        }
+    }
+    if all.is_empty() {
+        return Err(format!(
+            "field {field}: the hyperparameter posterior could not be evaluated"
+        ));
+    }
+    let comps_w = top_weights(all, 3000);
+    let point = |k: &(i64, i64), i: usize| &m.nodes[k].points[i];
+    let comps: Vec<(f64, Component)> = comps_w
+        .par_iter()
+        .filter_map(|(w, k, i)| {
+            combine(
+                &[&point(k, *i).fit],
+                std::slice::from_ref(&lmap),
+                &prior,
+                0.0,
+                true,
+            )
+            .map(|c| (*w, c))
+        })
+        .collect();
+    let nt = m.treatments.len();
+    let mut rows = Vec::new();
+    let mut uplifts = Vec::new();
+    for t in 0..nt {
+        let est = Mixture::new(
+            comps
+                .iter()
+                .map(|(w, c)| (*w, c.est[0][t].0, c.est[0][t].1))
+                .collect(),
+        );
+        let up = (t > 0).then(|| {
+            Mixture::new(
+                comps
+                    .iter()
+                    .map(|(w, c)| (*w, c.delta[0][t - 1].0, c.delta[0][t - 1].1))
+                    .collect(),
+            )
+        });
+        let pr = (t > 0).then(|| {
+            let g = map.index[t - 1];
+            (global.mean[g], global.var[g].sqrt())
+        });
+        let row = treatment_row(
+            s,
+            field,
+            &m.treatments[t],
+            prep.counts[t],
+            Some(&est),
+            up.as_ref(),
+            pr,
+        );
+        if t > 0 {
+            uplifts.push((m.treatments[t].clone(), row.uplift, row.uplift_sd.powi(2)));
+        }
+        rows.push(row);
+    }
+    // Spatial effects: the highest-weight points holding 99.9 % of the mass, at most 64.
+    let mut acc = 0.0;
+    let spatial_pts: Vec<&Weighted> = comps_w
+        .iter()
+        .take_while(|x| {
+            let go = acc < 0.999;
+            acc += x.0;
+            go
+        })
+        .take(64)
+        .collect();
+    let effects: Vec<(f64, Vec<f64>, Vec<f64>)> = spatial_pts
+        .par_iter()
+        .filter_map(|(w, k, i)| {
+            let node: &Node = &m.nodes[k];
+            let pt = &node.points[*i];
+            let repr = node.repr.as_ref()?;
+            let (mean, var) =
+                repr.spatial(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit);
+            Some((*w, mean, var))
+        })
+        .collect();
+    let n = m.design.n();
+    let plots = adjusted_plots(prep, &effects);
+    // Hyperparameters over the components.
+    let pts: Vec<(f64, [f64; 4])> = comps_w
+        .iter()
+        .map(|(w, k, i)| (*w, point(k, *i).theta))
+        .collect();
+    let (range, across, sf, sn, share) = hyper_summaries(m, &pts);
+    let mut warnings = Vec::new();
+    // Mass near a bound of the length-scale search.
+    for d in 0..if m.anisotropic { 2 } else { 1 } {
+        let maxk = ((lat.bounds[d].1 - lat.bounds[d].0) / lat.h[d]).round() as i64;
+        let edge: f64 = comps_w
+            .iter()
+            .filter(|(_, k, _)| {
+                let kd = if d == 0 { k.0 } else { k.1 };
+                kd <= 1 || kd >= maxk - 1
+            })
+            .map(|x| x.0)
+            .sum();
+        if lat.at_bound[d] && edge > 0.10 {
+            warnings.push(format!(
+                "{:.0} % of the range posterior lies at a bound of its search ({:.1}..{:.1} m); the field may be too small to tell the range",
+                100.0 * edge,
+                lat.bounds[d].0.exp(),
+                lat.bounds[d].1.exp()
+            ));
+        }
+    }
+    let capped: f64 = comps_w
+        .iter()
+        .filter(|(_, k, _)| m.nodes[k].basis.is_some_and(|b| b.2))
+        .map(|x| x.0)
+        .sum();
+    if capped > 0.05 {
+        warnings.push(format!(
+            "{:.0} % of the posterior is at length scales the reduced-rank basis ({} functions) resolves only in part; raise adjust.hsgp_max_basis or adjust.exact_max_plots",
+            100.0 * capped,
+            s.hsgp_max_basis
+        ));
+    }
+    // The comparison at the posterior mode.
+    let (_, mk, mi) = comps_w[0];
+    let mode = point(&mk, mi);
+    let method = match m.nodes[&mk].basis {
+        Some((a, b, _)) => format!("hsgp {a}x{b}"),
+        None => "exact".into(),
+    };
+    let mode_effect = effects
+        .first()
+        .map(|e| e.1.clone())
+        .unwrap_or_else(|| vec![0.0; n]);
+    let comparison = compare(prep, &mode.fit, &mode_effect)?;
+    let hyper = FieldHyper {
+        field: field.into(),
+        plots: n as u64,
+        range_m: range.mean,
+        range_lo95_m: range.lo95,
+        range_hi95_m: range.hi95,
+        range_across: across,
+        spatial_sd: sf.mean,
+        spatial_sd_ci: sf,
+        noise_sd: sn.mean,
+        noise_sd_ci: sn,
+        spatial_share: share.mean,
+        spatial_share_ci: share,
+        interaction_sd: Summary::NONE,
+        log_marginal_likelihood: mode.fit.reml,
+        method,
+        warning: warnings.join("; "),
+    };
+    Ok(FieldFit {
+        plots,
+        rows,
+        comparison,
+        hyper,
+        uplifts,
+    })
+}
