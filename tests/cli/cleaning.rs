@@ -1,0 +1,224 @@
+//! Cleaning through the binary: worked yield and moisture examples, the automatic flow delay, artifacts removed and clean points spared.
+
+use crate::common::*;
+
+#[test]
+fn worked_yield_and_moisture_examples_through_the_binary() {
+    // ../shared/CHECKS.md, arithmetic: 20 kg/s at 1.8 m/s with a 9.144 m (30 ft) header is
+    // 12,151.26 kg/ha wet; at 15.5 % moisture that is also the corn standard-moisture yield.
+    let w = Workdir::new("worked1");
+    let t = tiny_trial(&w, 20.0, 1.8, 30.0, 15.5, "t_ha", "", &[]);
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "ingest",
+            t.to_str().unwrap(),
+            "--out",
+            "run",
+            "--quiet",
+        ],
+    ));
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "clean",
+            t.to_str().unwrap(),
+            "--out",
+            "run",
+            "--quiet",
+        ],
+    ));
+    let df = parquet(&w.path("run/2-clean/points.parquet"));
+    assert!(df.height() >= 90, "kept {}", df.height());
+    for (wet, std, t_ha) in f64s(&df, "yield_wet_kg_ha")
+        .iter()
+        .zip(f64s(&df, "yield_std_kg_ha"))
+        .zip(f64s(&df, "yield_t_ha"))
+        .map(|((a, b), c)| (*a, b, c))
+    {
+        assert!((wet - 12_151.26).abs() < 0.01, "{wet}");
+        assert!((std - 12_151.26).abs() < 0.01, "{std}");
+        assert!((t_ha - 12.15126).abs() < 1e-5, "{t_ha}");
+    }
+    drop(w);
+    // UF/IFAS EDIS AG442: 10,000 lb/ac wet at 20 % moisture is 9,467.46 lb/ac at 15.5 %,
+    // i.e. 169.06 bu/ac of corn at 56 lb/bu (USDA ERS AH-697). 10,000 lb/ac = 11,208.51 kg/ha
+    // (1 lb/ac = 1.120851 kg/ha), so the flow is 11,208.51 x 1.8 x 9.144 / 10,000 kg/s.
+    let w = Workdir::new("worked2");
+    let lb_ac = 0.45359237 / 0.40468564224;
+    let flow = 10_000.0 * lb_ac * 1.8 * 9.144 / 10_000.0;
+    let t = tiny_trial(&w, flow, 1.8, 30.0, 20.0, "bu_ac", "", &[]);
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "ingest",
+            t.to_str().unwrap(),
+            "--out",
+            "run",
+            "--quiet",
+        ],
+    ));
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "clean",
+            t.to_str().unwrap(),
+            "--out",
+            "run",
+            "--quiet",
+        ],
+    ));
+    let df = parquet(&w.path("run/2-clean/points.parquet"));
+    for (std, bu) in f64s(&df, "yield_std_kg_ha")
+        .iter()
+        .zip(f64s(&df, "yield_bu_ac"))
+    {
+        assert!((std / lb_ac - 9_467.46).abs() < 0.01, "{}", std / lb_ac);
+        assert!((bu - 169.0618).abs() < 1e-3, "{bu}");
+    }
+}
+
+#[test]
+fn automatic_flow_delay_is_within_one_second_of_the_truth() {
+    // Known-truth simulation: true delays across the typical 8-14 s range (Beal & Tian 2001),
+    // on fields of eight blocks (passes of about 530 m), two exports each.
+    let mut worst: f64 = 0.0;
+    for (delay, seed) in [(8.0, 41u64), (9.5, 42), (11.0, 43), (12.5, 44), (14.0, 45)] {
+        let w = Workdir::new("delay");
+        let d = delay.to_string();
+        let trial = simulate(
+            &w,
+            "trial",
+            &[
+                "--seed",
+                &seed.to_string(),
+                "--blocks",
+                "8",
+                "--flow-delay",
+                &d,
+            ],
+        );
+        let t = trial.to_str().unwrap();
+        ok(&plotsieve(
+            &w.0,
+            &["stage", "ingest", t, "--out", "run", "--quiet"],
+        ));
+        ok(&plotsieve(
+            &w.0,
+            &["stage", "clean", t, "--out", "run", "--quiet"],
+        ));
+        let sum = json(&w.path("run/2-clean/summary.json"));
+        let exports = sum["details"]["exports"].as_object().unwrap();
+        assert_eq!(exports.len(), 2);
+        for (f, e) in exports {
+            assert_eq!(e["flow_delay_source"], "estimated", "{f}");
+            let est = e["flow_delay_s"].as_f64().unwrap();
+            assert!(
+                e["flow_delay_estimate"]["curve"].as_array().unwrap().len() == 21,
+                "curve 0..20 s"
+            );
+            let err = (est - delay).abs();
+            worst = worst.max(err);
+            assert!(
+                err < 1.0,
+                "seed {seed} {f}: estimated {est:.2} s, true {delay} s"
+            );
+        }
+    }
+    eprintln!("largest flow-delay error over 10 exports: {worst:.2} s");
+}
+
+#[test]
+fn cleaning_removes_injected_artifacts_and_spares_clean_points() {
+    // Truth labels from the simulator say which records carry which artifact.
+    let mut art_total = 0usize;
+    let mut art_removed = 0usize;
+    let mut clean_total = 0usize;
+    let mut clean_removed = 0usize;
+    let mut by_label: BTreeMap<String, (usize, usize)> = BTreeMap::new();
+    let mut clean_by_rule: BTreeMap<String, usize> = BTreeMap::new();
+    for seed in [51u64, 52, 53] {
+        let w = Workdir::new("artifacts");
+        let trial = simulate(&w, "trial", &["--seed", &seed.to_string()]);
+        let t = trial.to_str().unwrap();
+        ok(&plotsieve(
+            &w.0,
+            &["stage", "ingest", t, "--out", "run", "--quiet"],
+        ));
+        ok(&plotsieve(
+            &w.0,
+            &["stage", "clean", t, "--out", "run", "--quiet"],
+        ));
+        let truth = json(&w.path("trial/truth.json"));
+        let rejected: BTreeMap<(String, u64), String> =
+            csv_rows(&w.path("run/2-clean/rejected.csv"))
+                .into_iter()
+                .map(|r| {
+                    (
+                        (r["source_file"].clone(), r["source_row"].parse().unwrap()),
+                        r["rule"].clone(),
+                    )
+                })
+                .collect();
+        for (file, labels) in truth["artifacts"].as_object().unwrap() {
+            let lines = std::fs::read_to_string(w.path("trial").join(file))
+                .unwrap()
+                .lines()
+                .count() as u64;
+            let mut labelled = std::collections::BTreeSet::new();
+            for (label, rows) in labels.as_object().unwrap() {
+                let e = by_label.entry(label.clone()).or_default();
+                for r in rows.as_array().unwrap() {
+                    let r = r.as_u64().unwrap();
+                    labelled.insert(r);
+                    e.0 += 1;
+                    e.1 += usize::from(rejected.contains_key(&(file.clone(), r)));
+                }
+            }
+            for row in 2..=lines {
+                let gone = rejected.get(&(file.clone(), row));
+                if labelled.contains(&row) {
+                    art_total += 1;
+                    art_removed += usize::from(gone.is_some());
+                } else {
+                    clean_total += 1;
+                    if let Some(rule) = gone {
+                        clean_removed += 1;
+                        *clean_by_rule.entry(rule.clone()).or_default() += 1;
+                    }
+                }
+            }
+        }
+    }
+    eprintln!("artifact label: removed / labelled");
+    for (l, (n, r)) in &by_label {
+        eprintln!("  {l:14} {r:5} / {n:5}");
+    }
+    eprintln!("clean records removed, by rule: {clean_by_rule:?}");
+    let art = art_removed as f64 / art_total as f64;
+    let clean = clean_removed as f64 / clean_total as f64;
+    eprintln!(
+        "artifact records removed {:.1} %, clean records removed {:.1} %",
+        100.0 * art,
+        100.0 * clean
+    );
+    assert!(
+        art >= 0.90,
+        "only {:.1} % of artifact records removed",
+        100.0 * art
+    );
+    assert!(
+        clean < 0.05,
+        "{:.1} % of clean records removed",
+        100.0 * clean
+    );
+    for (l, (n, r)) in &by_label {
+        if l != "spike" {
+            assert!(*r as f64 >= 0.9 * *n as f64, "{l}: {r} of {n} removed");
+        }
+    }
+}

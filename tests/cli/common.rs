@@ -1,0 +1,272 @@
+//! Helpers shared by the integration tests: a fresh work folder per test, running the
+//! binary, reading its tables, simulated trials.
+
+pub use polars::prelude::*;
+pub use std::collections::BTreeMap;
+pub use std::path::{Path, PathBuf};
+pub use std::process::{Command, Output};
+pub use std::sync::atomic::{AtomicUsize, Ordering};
+
+pub const BIN: &str = env!("CARGO_BIN_EXE_plotsieve");
+
+pub fn repo() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .parent()
+        .unwrap()
+        .to_path_buf()
+}
+
+/// A fresh temporary folder, removed when the test passes.
+pub struct Workdir(pub PathBuf);
+
+pub static COUNTER: AtomicUsize = AtomicUsize::new(0);
+
+impl Workdir {
+    pub fn new(name: &str) -> Self {
+        let n = COUNTER.fetch_add(1, Ordering::SeqCst);
+        let p =
+            std::env::temp_dir().join(format!("plotsieve-test-{name}-{}-{n}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&p);
+        std::fs::create_dir_all(&p).unwrap();
+        Workdir(p)
+    }
+    pub fn path(&self, rel: &str) -> PathBuf {
+        self.0.join(rel)
+    }
+}
+
+impl Drop for Workdir {
+    fn drop(&mut self) {
+        if !std::thread::panicking() {
+            let _ = std::fs::remove_dir_all(&self.0);
+        }
+    }
+}
+
+pub fn plotsieve(cwd: &Path, args: &[&str]) -> Output {
+    Command::new(BIN)
+        .args(args)
+        .current_dir(cwd)
+        .output()
+        .expect("binary runs")
+}
+
+pub fn ok(o: &Output) {
+    assert!(
+        o.status.success(),
+        "exit {:?}\n--- stdout\n{}\n--- stderr\n{}",
+        o.status.code(),
+        String::from_utf8_lossy(&o.stdout),
+        String::from_utf8_lossy(&o.stderr)
+    );
+}
+
+pub fn json(p: &Path) -> serde_json::Value {
+    serde_json::from_str(
+        &std::fs::read_to_string(p).unwrap_or_else(|e| panic!("{}: {e}", p.display())),
+    )
+    .unwrap()
+}
+
+pub fn csv_rows(p: &Path) -> Vec<BTreeMap<String, String>> {
+    let mut r = csv::Reader::from_path(p).unwrap_or_else(|e| panic!("{}: {e}", p.display()));
+    let h = r.headers().unwrap().clone();
+    r.records()
+        .map(|rec| {
+            h.iter()
+                .zip(rec.unwrap().iter())
+                .map(|(k, v)| (k.to_string(), v.to_string()))
+                .collect()
+        })
+        .collect()
+}
+
+pub fn parquet(p: &Path) -> DataFrame {
+    ParquetReader::new(std::fs::File::open(p).unwrap())
+        .finish()
+        .unwrap()
+}
+
+pub fn f64s(df: &DataFrame, c: &str) -> Vec<f64> {
+    df.column(c)
+        .unwrap()
+        .f64()
+        .unwrap()
+        .iter()
+        .map(|v| v.unwrap())
+        .collect()
+}
+
+pub fn simulate(w: &Workdir, dir: &str, extra: &[&str]) -> PathBuf {
+    let mut args = vec!["simulate", dir];
+    args.extend_from_slice(extra);
+    ok(&plotsieve(&w.0, &args));
+    w.path(dir).join("trial.toml")
+}
+
+pub fn all_files(dir: &Path) -> BTreeMap<String, Vec<u8>> {
+    let mut out = BTreeMap::new();
+    for e in std::fs::read_dir(dir).unwrap() {
+        let p = e.unwrap().path();
+        if p.is_dir() {
+            for (k, v) in all_files(&p) {
+                out.insert(
+                    format!("{}/{k}", p.file_name().unwrap().to_string_lossy()),
+                    v,
+                );
+            }
+        } else {
+            out.insert(
+                p.file_name().unwrap().to_string_lossy().to_string(),
+                std::fs::read(&p).unwrap(),
+            );
+        }
+    }
+    out
+}
+
+pub const STAGES: [&str; 4] = ["1-ingest", "2-clean", "3-plots", "4-adjust"];
+
+/// A tiny one-field trial: a straight pass north at `speed` m/s with constant readings.
+pub fn tiny_trial(
+    w: &Workdir,
+    flow_kg_s: f64,
+    speed: f64,
+    width_ft: f64,
+    moisture: f64,
+    unit: &str,
+    extra_cols: &str,
+    rows: &[(f64, f64)],
+) -> PathBuf {
+    let dir = w.path("tiny");
+    std::fs::create_dir_all(dir.join("monitor")).unwrap();
+    let (lon0, lat0) = rows.first().copied().unwrap_or((-97.8, 40.6));
+    let mpd = 6_371_000.0 * std::f64::consts::PI / 180.0;
+    let mut csv = String::from("t,lon,lat,flow,speed,swath,moist\n");
+    if rows.is_empty() {
+        for i in 0..100 {
+            let lat = lat0 + speed * i as f64 / mpd;
+            csv += &format!(
+                "{},{lon0:.8},{lat:.9},{flow_kg_s},{speed},{width_ft},{moisture}\n",
+                1_000_000 + i
+            );
+        }
+    } else {
+        for (i, (lon, lat)) in rows.iter().enumerate() {
+            csv += &format!(
+                "{},{lon:.8},{lat:.8},{flow_kg_s},{speed},{width_ft},{moisture}\n",
+                1_000_000 + i
+            );
+        }
+    }
+    std::fs::write(dir.join("monitor/m.csv"), csv).unwrap();
+    let d = 200.0 / mpd;
+    let sq = |lo: f64, la: f64| {
+        format!(
+            "[[{lo},{la}],[{},{la}],[{},{}],[{lo},{}],[{lo},{la}]]",
+            lo + d,
+            lo + d,
+            la + d,
+            la + d
+        )
+    };
+    let geo = format!(
+        r#"{{"type":"FeatureCollection","features":[
+        {{"type":"Feature","properties":{{"plot_id":"p1"}},"geometry":{{"type":"Polygon","coordinates":[{}]}}}},
+        {{"type":"Feature","properties":{{"plot_id":"p2"}},"geometry":{{"type":"Polygon","coordinates":[{}]}}}}]}}"#,
+        sq(lon0 - d / 2.0, lat0 - 0.1 * d),
+        sq(lon0 + d, lat0)
+    );
+    std::fs::write(dir.join("plots.geojson"), geo).unwrap();
+    std::fs::write(
+        dir.join("design.csv"),
+        "plot_id,treatment,block,field\np1,chk,1,F\np2,x,1,F\n",
+    )
+    .unwrap();
+    let toml = format!(
+        r#"[trial]
+name = "tiny"
+crop = "corn"
+output_unit = "{unit}"
+check = "chk"
+[inputs]
+monitor = ["monitor/m.csv"]
+plots = "plots.geojson"
+design = "design.csv"
+[columns]
+delimiter = ","
+time = {{ name = "t", format = "unix_s" }}
+longitude = "lon"
+latitude = "lat"
+flow = {{ name = "flow", unit = "kg_s" }}
+speed = {{ name = "speed", unit = "m_s" }}
+width = {{ name = "swath", unit = "ft" }}
+moisture = "moist"
+[clean]
+flow_delay_s = 0.0
+moisture_delay_s = 0.0
+{extra_cols}
+[clean.pass]
+start_trim_s = 0.0
+end_trim_s = 0.0
+# The readings are constant by construction: not a stuck sensor here.
+[clean.moisture]
+stuck_s = 0.0
+"#
+    );
+    std::fs::write(dir.join("trial.toml"), toml).unwrap();
+    dir.join("trial.toml")
+}
+
+/// A simulated export's lines with every longitude moved `deg` degrees east.
+pub fn shift_east(lines: &[String], deg: f64) -> Vec<String> {
+    lines
+        .iter()
+        .enumerate()
+        .map(|(i, l)| {
+            if i == 0 {
+                return l.clone();
+            }
+            let mut f: Vec<String> = l.split(',').map(String::from).collect();
+            f[1] = format!("{:.8}", f[1].parse::<f64>().unwrap() + deg);
+            f.join(",")
+        })
+        .collect()
+}
+
+/// One number per plot from the simulator's truth, by plot id.
+pub fn truth_by_plot(truth: &serde_json::Value, key: &str) -> BTreeMap<String, f64> {
+    truth["plots"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| {
+            (
+                p["plot_id"].as_str().unwrap().to_string(),
+                p[key].as_f64().unwrap(),
+            )
+        })
+        .collect()
+}
+
+/// Root-mean-square error of plot mean yields against the simulator's true plot yields.
+pub fn plot_rmse(plots_csv: &Path, truth: &serde_json::Value) -> (f64, usize) {
+    let t: BTreeMap<String, f64> = truth_by_plot(truth, "true_yield_t_ha");
+    let rows: Vec<_> = csv_rows(plots_csv)
+        .into_iter()
+        .filter(|r| r["status"] == "kept")
+        .collect();
+    let se: f64 = rows
+        .iter()
+        .map(|r| (r["yield_mean_t_ha"].parse::<f64>().unwrap() - t[&r["plot_id"]]).powi(2))
+        .sum();
+    ((se / rows.len() as f64).sqrt(), rows.len())
+}
+
+pub fn sha(p: &Path) -> String {
+    use sha2::Digest;
+    sha2::Sha256::digest(std::fs::read(p).unwrap())
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
+}

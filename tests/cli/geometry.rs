@@ -1,0 +1,260 @@
+//! Plot geometry: shapely fixtures, border trimming against the truth, grid layouts and stray exports.
+
+use crate::common::*;
+
+#[test]
+fn plot_geometry_matches_shapely() {
+    use geo::{Area, Contains, LineString, Polygon};
+    use plotsieve_stages::plots::geometry::{clip_area, coverage, signed_area};
+    // Fixture made by tests/fixtures/make_fixtures.py with shapely (its version is recorded
+    // in the file's "made_by").
+    let fx = json(&repo().join("tests/fixtures/geometry_shapely.json"));
+    assert!(fx["made_by"].as_str().unwrap().contains("shapely"));
+    let ring = |v: &serde_json::Value| -> Vec<(f64, f64)> {
+        v.as_array()
+            .unwrap()
+            .iter()
+            .map(|p| (p[0].as_f64().unwrap(), p[1].as_f64().unwrap()))
+            .collect()
+    };
+    let mut polys = BTreeMap::new();
+    for (name, p) in fx["polygons"].as_object().unwrap() {
+        let ext = ring(&p["exterior"]);
+        let holes: Vec<LineString<f64>> = p["holes"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|h| LineString::from(ring(h)))
+            .collect();
+        let poly = Polygon::new(LineString::from(ext.clone()), holes);
+        let area = p["area"].as_f64().unwrap();
+        assert!(
+            (poly.unsigned_area() - area).abs() < 1e-9 * area,
+            "{name}: area {} vs shapely {area}",
+            poly.unsigned_area()
+        );
+        polys.insert(name.clone(), (poly, ext));
+    }
+    let mut n = 0;
+    for pt in fx["points"].as_array().unwrap() {
+        let (poly, _) = &polys[pt["polygon"].as_str().unwrap()];
+        let (x, y) = (pt["x"].as_f64().unwrap(), pt["y"].as_f64().unwrap());
+        assert_eq!(
+            poly.contains(&geo::Point::new(x, y)),
+            pt["inside"].as_bool().unwrap(),
+            "point ({x}, {y})"
+        );
+        n += 1;
+    }
+    assert_eq!(n, 120);
+    for f in fx["footprints"].as_array().unwrap() {
+        let (_, ext) = &polys[f["polygon"].as_str().unwrap()];
+        let fp = ring(&f["corners"]);
+        let ours = clip_area(ext, &fp) / signed_area(&fp).abs();
+        let theirs = f["inside_fraction"].as_f64().unwrap();
+        assert!(
+            (ours - theirs).abs() < 1e-9,
+            "footprint inside fraction {ours} vs shapely {theirs}"
+        );
+    }
+    let c = &fx["coverage"][0];
+    let fps: Vec<Vec<(f64, f64)>> = c["footprints"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(ring)
+        .collect();
+    let (_, ext) = &polys["rect"];
+    let ours = coverage(ext, &fps, 0.25);
+    let theirs = c["fraction"].as_f64().unwrap();
+    assert!(
+        (ours - theirs).abs() < 0.01,
+        "coverage on a 0.25 m raster {ours} vs shapely union {theirs}"
+    );
+}
+
+#[test]
+fn border_trimming_brings_plot_means_closer_to_the_truth() {
+    let (mut with, mut without) = (0.0, 0.0);
+    // The simulator's grain mixing has an SD of 2.5 s, about 5.5 m of travel; an end trim of
+    // 8 m (1.5 SD) fits it. The 15 m default is for real combines' ~30 m mixing length.
+    for seed in [61u64, 62, 63, 64] {
+        let w = Workdir::new("trim");
+        let trial = simulate(&w, "trial", &["--seed", &seed.to_string()]);
+        let t = trial.to_str().unwrap();
+        ok(&plotsieve(
+            &w.0,
+            &[
+                "run",
+                t,
+                "--out",
+                "trimmed",
+                "--quiet",
+                "--set",
+                "plots.end_trim_m=8",
+            ],
+        ));
+        ok(&plotsieve(
+            &w.0,
+            &[
+                "run",
+                t,
+                "--out",
+                "untrimmed",
+                "--quiet",
+                "--set",
+                "plots.end_trim_m=0",
+                "--set",
+                "plots.side_trim_m=0",
+                "--set",
+                "plots.min_swath_inside=0",
+            ],
+        ));
+        let truth = json(&w.path("trial/truth.json"));
+        let (a, na) = plot_rmse(&w.path("trimmed/3-plots/plots.csv"), &truth);
+        let (b, nb) = plot_rmse(&w.path("untrimmed/3-plots/plots.csv"), &truth);
+        eprintln!("seed {seed}: plot RMSE trimmed {a:.3} t/ha ({na} plots), untrimmed {b:.3} t/ha ({nb} plots)");
+        with += a;
+        without += b;
+        // Every clean point is in exactly one plot or in rejected.csv.
+        let pp = parquet(&w.path("trimmed/3-plots/points.parquet"));
+        let ids: std::collections::BTreeSet<u64> = pp
+            .column("point_id")
+            .unwrap()
+            .u64()
+            .unwrap()
+            .into_no_null_iter()
+            .collect();
+        assert_eq!(ids.len(), pp.height(), "no point in two plots");
+        let rejected: std::collections::BTreeSet<u64> =
+            csv_rows(&w.path("trimmed/3-plots/rejected.csv"))
+                .iter()
+                .filter_map(|r| r["id"].parse().ok())
+                .collect();
+        assert!(ids.is_disjoint(&rejected));
+        let clean = parquet(&w.path("trimmed/2-clean/points.parquet"));
+        let all: std::collections::BTreeSet<u64> = clean
+            .column("point_id")
+            .unwrap()
+            .u64()
+            .unwrap()
+            .into_no_null_iter()
+            .collect();
+        let union: std::collections::BTreeSet<u64> = ids.union(&rejected).copied().collect();
+        assert_eq!(union, all, "clean points = plot points + rejected");
+    }
+    eprintln!(
+        "mean plot RMSE trimmed {:.4} vs untrimmed {:.4}",
+        with / 4.0,
+        without / 4.0
+    );
+    assert!(
+        with < 0.95 * without,
+        "mean plot RMSE trimmed {:.4} vs untrimmed {:.4}",
+        with / 4.0,
+        without / 4.0
+    );
+}
+
+#[test]
+fn grid_layout_replaces_a_boundary_file_and_stray_exports_are_far_from_trial() {
+    let w = Workdir::new("layout");
+    let trial = simulate(&w, "trial", &["--seed", "8"]);
+    // A stray export: field A's records moved about 4 km east.
+    let a: Vec<String> = std::fs::read_to_string(w.path("trial/monitor/field-A.csv"))
+        .unwrap()
+        .lines()
+        .map(String::from)
+        .collect();
+    let stray = shift_east(&a, 0.05);
+    std::fs::write(w.path("trial/monitor/stray.csv"), stray.join("\n") + "\n").unwrap();
+    let t = trial.to_str().unwrap();
+    ok(&plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]));
+    let sum = json(&w.path("run/3-plots/summary.json"));
+    assert!(
+        sum["by_file"]["monitor/stray.csv"]["far_from_trial"]
+            .as_u64()
+            .unwrap()
+            > 1000
+    );
+    assert!(sum["by_file"]["monitor/stray.csv"]
+        .get("outside_plots")
+        .is_none());
+    let assign = &sum["details"]["points_per_export_and_field"];
+    assert!(
+        assign["monitor/field-A.csv"]["A"].as_u64().unwrap() > 100
+            && assign["monitor/field-A.csv"].get("B").is_none()
+    );
+    assert!(
+        assign.get("monitor/stray.csv").is_none(),
+        "the stray export feeds no field"
+    );
+    // The same trial with a grid layout instead of the GeoJSON: one field of 2 x 2 plots.
+    let dir = w.path("trial");
+    std::fs::write(dir.join("design2.csv"), "plot_id,treatment,block,field\nG-101,check,1,G\nG-102,x,1,G\nG-201,x,2,G\nG-202,check,2,G\n").unwrap();
+    let toml = std::fs::read_to_string(&trial).unwrap().replace("plots = \"plots.geojson\"\n", "").replace("design = \"design.csv\"", "design = \"design2.csv\"")
+        + "\n[[layout]]\nfield = \"G\"\norigin_lon = -97.8\norigin_lat = 40.6\nbearing_deg = 0.0\nplot_width_m = 18.288\nplot_length_m = 60.0\nalley_m = 6.0\ncolumns = 2\nranges = 2\nnumbering = \"serpentine\"\nid_prefix = \"G-\"\n";
+    std::fs::write(dir.join("grid.toml"), toml).unwrap();
+    let g = dir.join("grid.toml");
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "ingest",
+            g.to_str().unwrap(),
+            "--out",
+            "grid",
+            "--quiet",
+        ],
+    ));
+    let gj = json(&w.path("grid/1-ingest/plots_wgs84.geojson"));
+    let feats = gj["features"].as_array().unwrap();
+    let ids: Vec<&str> = feats
+        .iter()
+        .map(|f| f["properties"]["plot_id"].as_str().unwrap())
+        .collect();
+    assert_eq!(
+        ids,
+        ["G-101", "G-102", "G-202", "G-201"],
+        "serpentine numbering"
+    );
+    // G-101's corner is the origin (to about a centimetre after the round trip).
+    let ring = feats[0]["geometry"]["coordinates"][0].as_array().unwrap();
+    assert!(ring
+        .iter()
+        .any(|c| (c[0].as_f64().unwrap() + 97.8).abs() < 1e-7
+            && (c[1].as_f64().unwrap() - 40.6).abs() < 1e-7));
+    // Design mismatch: a design row without a plot is an error naming it, or a warning.
+    std::fs::write(dir.join("design2.csv"), "plot_id,treatment,block,field\nG-101,check,1,G\nG-102,x,1,G\nG-201,x,2,G\nG-202,check,2,G\nG-999,x,3,G\n").unwrap();
+    let o = plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "ingest",
+            g.to_str().unwrap(),
+            "--out",
+            "grid2",
+            "--quiet",
+        ],
+    );
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("G-999"));
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "ingest",
+            g.to_str().unwrap(),
+            "--out",
+            "grid2",
+            "--quiet",
+            "--set",
+            "plots.design_mismatch=warn",
+        ],
+    ));
+    let s = json(&w.path("grid2/1-ingest/summary.json"));
+    assert!(s["details"]["warnings"][0]
+        .as_str()
+        .unwrap()
+        .contains("G-999"));
+}

@@ -1,0 +1,16 @@
+//! Integration tests: the real `plotsieve` binary in fresh temporary folders, on
+//! `sample-input/` and on small inputs the tests write themselves.
+//!
+//! One test binary, split by area; `common` holds the shared work-folder helpers.
+
+mod common;
+
+mod adjust;
+mod calibration;
+mod cleaning;
+mod geometry;
+mod inputs;
+mod intake;
+mod report;
+mod run_folder;
+mod settings;

@@ -1,0 +1,93 @@
+//! report.html in headless Chromium, without the network.
+
+use crate::common::*;
+
+#[test]
+fn report_html_renders_in_headless_chromium_without_the_network() {
+    let w = Workdir::new("html");
+    let out = w.path("run");
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            repo().join("sample-input/trial.toml").to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--quiet",
+        ],
+    ));
+    let html = std::fs::read_to_string(out.join("5-report/report.html")).unwrap();
+    // Self-contained: no scripts, no external references; a policy that forbids fetching.
+    for bad in ["<script", "src=", "href=", "url(", "@import"] {
+        assert!(!html.contains(bad), "report.html contains {bad}");
+    }
+    assert!(html.contains("default-src 'none'"));
+    assert!(html.contains("statistical estimates") && html.contains("licensed agronomic advice"));
+    // Maps (5 per field), the forest plot, legends and axis units.
+    assert_eq!(html.matches("<svg class=\"map\"").count(), 10);
+    assert_eq!(html.matches("<svg class=\"forest\"").count(), 1);
+    assert_eq!(html.matches("east from map corner (m)").count(), 10);
+    assert!(html.contains("uplift over the check (t/ha)"));
+    let chromium = ["/usr/bin/chromium", "/usr/bin/chromium-browser"]
+        .into_iter()
+        .find(|p| Path::new(p).exists());
+    let Some(chromium) = chromium else {
+        assert!(
+            std::env::var("CI").is_err(),
+            "CI must install chromium (.ci/run does)"
+        );
+        eprintln!("skipped the browser part: no chromium here (install Debian's chromium package)");
+        return;
+    };
+    let netlog = w.path("netlog.json");
+    let o = Command::new(chromium)
+        .args([
+            "--headless",
+            "--no-sandbox",
+            "--disable-gpu",
+            "--disable-quic",
+            "--no-first-run",
+            "--disable-background-networking",
+            "--disable-component-update",
+            "--disable-sync",
+            "--host-resolver-rules=MAP * ~NOTFOUND",
+        ])
+        .arg(format!("--user-data-dir={}", w.path("profile").display()))
+        .arg(format!("--log-net-log={}", netlog.display()))
+        .arg("--dump-dom")
+        .arg(format!(
+            "file://{}",
+            out.join("5-report/report.html").display()
+        ))
+        .output()
+        .expect("chromium runs");
+    assert!(
+        o.status.success(),
+        "chromium failed: {}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let dom = String::from_utf8_lossy(&o.stdout);
+    assert_eq!(
+        dom.matches("<svg class=\"map\"").count(),
+        10,
+        "the browser built every map"
+    );
+    assert!(dom.matches("<table").count() >= 6, "tables present");
+    assert!(dom.contains("<circle"), "points drawn");
+    // The page itself asked for nothing: every URL in the network log is the report's own
+    // file or the browser's own background services (which the flags and the host rules keep
+    // from resolving).
+    let log = std::fs::read_to_string(&netlog).unwrap_or_default();
+    for url in log
+        .split("\"url\":\"")
+        .skip(1)
+        .map(|s| s.split('"').next().unwrap_or(""))
+    {
+        let ok_url = url.starts_with("file://")
+            || url.starts_with("data:")
+            || ["google.com/", "googleapis.com/", "gstatic.com/"]
+                .iter()
+                .any(|h| url.contains(h));
+        assert!(ok_url, "unexpected network request {url}");
+    }
+}

@@ -1,0 +1,246 @@
+//! The run folder: every stage accounts for every point, reruns give the same bytes, one stage reruns alone, a missing upstream stage is named.
+
+use crate::common::*;
+
+#[test]
+fn sample_input_runs_end_to_end_and_accounts_for_every_point() {
+    let w = Workdir::new("sample");
+    let sample = repo().join("sample-input");
+    let before = all_files(&sample);
+    let out = w.path("run");
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            sample.join("trial.toml").to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--quiet",
+        ],
+    ));
+    assert_eq!(before, all_files(&sample), "inputs must never be modified");
+    for f in [
+        "manifest.json",
+        "1-ingest/points.parquet",
+        "1-ingest/plots.geojson",
+        "2-clean/points.parquet",
+        "3-plots/plots.csv",
+        "3-plots/points.parquet",
+        "4-adjust/adjusted_plots.csv",
+        "4-adjust/treatments.csv",
+        "4-adjust/hyperparameters.csv",
+        "5-report/report.md",
+    ] {
+        assert!(out.join(f).is_file(), "missing {f}");
+    }
+    let mut prev_kept = None;
+    for s in STAGES {
+        let sum = json(&out.join(s).join("summary.json"));
+        let (cin, kept, rej) = (
+            sum["count_in"].as_u64().unwrap(),
+            sum["kept"].as_u64().unwrap(),
+            sum["rejected"].as_u64().unwrap(),
+        );
+        assert_eq!(cin, kept + rej, "{s}: count in = kept + rejected");
+        let by_rule: u64 = sum["by_rule"]
+            .as_object()
+            .unwrap()
+            .values()
+            .map(|v| v.as_u64().unwrap())
+            .sum();
+        assert_eq!(by_rule, rej, "{s}: rules add up");
+        let rows = csv_rows(&out.join(s).join("rejected.csv"));
+        let plot_rows = sum
+            .get("plots")
+            .and_then(|p| p["set_aside"].as_u64())
+            .unwrap_or(0);
+        assert_eq!(rows.len() as u64, rej + plot_rows, "{s}: rejected.csv rows");
+        if s == "4-adjust" {
+            assert_eq!(
+                Some(cin),
+                prev_kept,
+                "adjust takes the plots stage's kept plots"
+            );
+        } else if let Some(k) = prev_kept {
+            assert_eq!(cin, k, "{s} takes the previous stage's kept points");
+        }
+        prev_kept = Some(match sum.get("plots") {
+            Some(p) => {
+                let (pi, pk, ps) = (
+                    p["count_in"].as_u64().unwrap(),
+                    p["kept"].as_u64().unwrap(),
+                    p["set_aside"].as_u64().unwrap(),
+                );
+                assert_eq!(pi, pk + ps, "plots: plots in = kept + set aside");
+                pk
+            }
+            None => kept,
+        });
+    }
+    // The ingest count equals the data lines of the exports.
+    let lines: u64 = std::fs::read_dir(sample.join("monitor"))
+        .unwrap()
+        .map(|e| {
+            std::fs::read_to_string(e.unwrap().path())
+                .unwrap()
+                .lines()
+                .count() as u64
+                - 1
+        })
+        .sum();
+    assert_eq!(
+        json(&out.join("1-ingest/summary.json"))["count_in"]
+            .as_u64()
+            .unwrap(),
+        lines
+    );
+    // Plot points: every kept clean point is in exactly one plot or rejected.
+    let pp = parquet(&out.join("3-plots/points.parquet"));
+    let plots_sum = json(&out.join("3-plots/summary.json"));
+    assert_eq!(pp.height() as u64, plots_sum["kept"].as_u64().unwrap());
+    let manifest = json(&out.join("manifest.json"));
+    for s in ["ingest", "clean", "plots", "adjust", "report"] {
+        assert_eq!(manifest["stages"][s]["status"], "done", "{s}");
+    }
+    assert_eq!(
+        manifest["inputs"].as_array().unwrap().len(),
+        5,
+        "trial, two exports, plots, design"
+    );
+    assert_eq!(manifest["inputs"][0]["sha256"].as_str().unwrap().len(), 64);
+    let treatments = csv_rows(&out.join("4-adjust/treatments.csv"));
+    for field in ["A", "B", "all"] {
+        let n = treatments.iter().filter(|r| r["field"] == field).count();
+        assert_eq!(n, 6, "six treatments in field {field}");
+    }
+    for r in treatments.iter().filter(|r| r["treatment"] != "check") {
+        let p: f64 = r["p_uplift_gt0"].parse().unwrap();
+        assert!((0.0..=1.0).contains(&p));
+        let (lo, up, hi): (f64, f64, f64) = (
+            r["uplift_lo95_t_ha"].parse().unwrap(),
+            r["uplift_t_ha"].parse().unwrap(),
+            r["uplift_hi95_t_ha"].parse().unwrap(),
+        );
+        assert!(lo < up && up < hi);
+    }
+    let report = std::fs::read_to_string(out.join("5-report/report.md")).unwrap();
+    assert!(
+        report.contains("statistical estimates") && report.contains("licensed agronomic advice")
+    );
+    assert!(
+        report.contains("| clean | pass_start |"),
+        "removals by rule listed"
+    );
+}
+
+#[test]
+fn rerun_gives_identical_tables() {
+    let w = Workdir::new("rerun");
+    let trial = simulate(&w, "trial", &["--seed", "5"]);
+    let t = trial.to_str().unwrap();
+    ok(&plotsieve(&w.0, &["run", t, "--out", "a", "--quiet"]));
+    ok(&plotsieve(&w.0, &["run", t, "--out", "b", "--quiet"]));
+    let mut a = all_files(&w.path("a"));
+    let mut b = all_files(&w.path("b"));
+    a.remove("manifest.json");
+    b.remove("manifest.json");
+    assert_eq!(a.keys().collect::<Vec<_>>(), b.keys().collect::<Vec<_>>());
+    for (k, v) in &a {
+        assert!(v == &b[k], "{k} differs between reruns");
+    }
+}
+
+#[test]
+fn stage_clean_with_set_changes_clean_and_leaves_ingest_untouched() {
+    let w = Workdir::new("stage");
+    let trial = simulate(&w, "trial", &["--seed", "2"]);
+    let t = trial.to_str().unwrap();
+    ok(&plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]));
+    let ingest_before = all_files(&w.path("run/1-ingest"));
+    let mtime = std::fs::metadata(w.path("run/1-ingest/points.parquet"))
+        .unwrap()
+        .modified()
+        .unwrap();
+    let clean_before = json(&w.path("run/2-clean/summary.json"));
+    let clean_pts_before = std::fs::read(w.path("run/2-clean/points.parquet")).unwrap();
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "clean",
+            t,
+            "--out",
+            "run",
+            "--quiet",
+            "--set",
+            "clean.speed.min_m_s=2.1",
+        ],
+    ));
+    let clean_after = json(&w.path("run/2-clean/summary.json"));
+    assert!(
+        clean_after["by_rule"]["speed_min"].as_u64().unwrap()
+            > clean_before["by_rule"]["speed_min"].as_u64().unwrap_or(0) + 100,
+        "raising the speed minimum removes more points: {} -> {}",
+        clean_before["by_rule"]["speed_min"],
+        clean_after["by_rule"]["speed_min"]
+    );
+    assert_ne!(
+        clean_pts_before,
+        std::fs::read(w.path("run/2-clean/points.parquet")).unwrap()
+    );
+    assert_eq!(
+        ingest_before,
+        all_files(&w.path("run/1-ingest")),
+        "ingest outputs untouched"
+    );
+    assert_eq!(
+        mtime,
+        std::fs::metadata(w.path("run/1-ingest/points.parquet"))
+            .unwrap()
+            .modified()
+            .unwrap()
+    );
+    let m = json(&w.path("run/manifest.json"));
+    assert_eq!(m["stages"]["ingest"]["status"], "done");
+    assert_eq!(m["stages"]["clean"]["status"], "done");
+    assert_eq!(
+        m["stages"]["clean"]["settings"]["clean"]["speed"]["min_m_s"],
+        2.1
+    );
+    for s in ["plots", "adjust", "report"] {
+        assert_eq!(m["stages"][s]["status"], "stale", "{s}");
+    }
+    // A stale upstream must be rerun before the stage after it.
+    let o = plotsieve(&w.0, &["stage", "adjust", t, "--out", "run", "--quiet"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("rerun stage plots first"));
+    ok(&plotsieve(
+        &w.0,
+        &["stage", "plots", t, "--out", "run", "--quiet"],
+    ));
+}
+
+#[test]
+fn missing_upstream_output_says_which_stage_to_run() {
+    let w = Workdir::new("upstream");
+    let trial = simulate(&w, "trial", &["--seed", "3"]);
+    let t = trial.to_str().unwrap();
+    let o = plotsieve(&w.0, &["stage", "plots", t, "--out", "run"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        String::from_utf8_lossy(&o.stderr).contains("run stage ingest first"),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    ok(&plotsieve(
+        &w.0,
+        &["stage", "ingest", t, "--out", "run", "--quiet"],
+    ));
+    let o = plotsieve(&w.0, &["stage", "plots", t, "--out", "run"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        String::from_utf8_lossy(&o.stderr).contains("run stage clean first"),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+}
