@@ -4,6 +4,7 @@
 //! stage; the message names the file, row and column or the key); 2 a usage error (unknown
 //! command or flag, from clap).
 
+mod glue;
 mod intake;
 mod io;
 mod run;

@@ -4,14 +4,15 @@
 //! its table(s), `rejected.csv` and `summary.json`. `run` does every stage; `stage NAME`
 //! reruns one from the previous stage's saved output and marks later stages stale.
 
+use crate::glue;
 use crate::io;
 use crate::stage::Stage;
-use anyhow::{anyhow, bail, Context, Result};
+use anyhow::{bail, Context, Result};
 use indicatif::{MultiProgress, ProgressBar, ProgressDrawTarget, ProgressStyle};
 use plotsieve_stages::config::TrialConfig;
 use plotsieve_stages::progress::{Event, Progress};
-use plotsieve_stages::table::{Rejection, StageSummary};
-use plotsieve_stages::{adjust, clean, ingest, plots, report, simulate};
+use plotsieve_stages::table::StageSummary;
+use plotsieve_stages::{ingest, simulate};
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 use std::collections::BTreeMap;
@@ -120,7 +121,7 @@ fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
         .collect()
 }
 
-fn read_manifest(out: &Path) -> Result<Option<Manifest>> {
+pub(crate) fn read_manifest(out: &Path) -> Result<Option<Manifest>> {
     let p = out.join("manifest.json");
     if !p.exists() {
         return Ok(None);
@@ -145,7 +146,7 @@ fn settings_of(cfg: &TrialConfig, stage: Stage) -> serde_json::Value {
     }
 }
 
-fn read_summary(out: &Path, stage: Stage) -> Result<StageSummary> {
+pub(crate) fn read_summary(out: &Path, stage: Stage) -> Result<StageSummary> {
     let p = out.join(stage.dir()).join("summary.json");
     let text = std::fs::read_to_string(&p).with_context(|| {
         format!(
@@ -155,278 +156,6 @@ fn read_summary(out: &Path, stage: Stage) -> Result<StageSummary> {
         )
     })?;
     Ok(serde_json::from_str(&text).with_context(|| format!("reading {}", p.display()))?)
-}
-
-fn write_stage_tables(dir: &Path, rejections: &[Rejection], summary: &StageSummary) -> Result<()> {
-    io::write_rejections(&dir.join("rejected.csv"), rejections)?;
-    io::write_json(&dir.join("summary.json"), summary)
-}
-
-/// Run one stage against the run folder; returns its summary.
-fn execute(stage: Stage, t: &Trial, out: &Path, progress: &Progress) -> Result<StageSummary> {
-    let cfg = &t.cfg;
-    let dir = out.join(stage.dir());
-    let unit = cfg.trial.output_unit;
-    let crop = cfg.crop()?;
-    match stage {
-        Stage::Ingest => {
-            let o = ingest::run_with(cfg, &t.base, progress)?;
-            io::write_points(&dir.join("points.parquet"), &o.points)?;
-            io::write_projected_plots(&dir.join("plots.geojson"), &o.polygons, o.points.epsg)?;
-            let utm = plotsieve_stages::projection::Utm::from_epsg(o.points.epsg)?;
-            io::write_plots_wgs84(
-                &dir.join("plots_wgs84.geojson"),
-                &utm,
-                o.polygons.iter().map(|p| {
-                    (
-                        p.plot_id.as_str(),
-                        p.exterior.as_slice(),
-                        serde_json::Map::new(),
-                    )
-                }),
-            )?;
-            io::write_design(&dir.join("design.csv"), &o.design)?;
-            write_stage_tables(&dir, &o.rejections, &o.summary)?;
-            Ok(o.summary)
-        }
-        Stage::Clean => {
-            let epsg = read_summary(out, Stage::Ingest)?
-                .details
-                .get("epsg")
-                .and_then(|v| v.as_u64())
-                .ok_or_else(|| anyhow!("1-ingest/summary.json has no epsg; rerun stage ingest"))?
-                as u32;
-            let pts = io::read_points(&out.join(Stage::Ingest.dir()).join("points.parquet"), epsg)?;
-            let o = clean::run_with(&pts, &cfg.clean, &crop, progress);
-            let y: Vec<f64> = o
-                .points
-                .iter()
-                .map(|p| unit.from_kg_ha(p.yield_std_kg_ha, &crop))
-                .collect();
-            let col = format!("yield_{}", unit.suffix());
-            io::write_clean_points(
-                &dir.join("points.parquet"),
-                &pts.files,
-                &o.points,
-                Some((&col, y)),
-                None,
-            )?;
-            write_stage_tables(&dir, &o.rejections, &o.summary)?;
-            Ok(o.summary)
-        }
-        Stage::Plots => {
-            let (files, pts) =
-                io::read_clean_points(&out.join(Stage::Clean.dir()).join("points.parquet"))?;
-            let ing = out.join(Stage::Ingest.dir());
-            let polys = ingest::read_geojson(
-                &ing.join("plots.geojson"),
-                "1-ingest/plots.geojson",
-                "plot_id",
-            )?;
-            let design = io::read_design(&ing.join("design.csv"))?;
-            let o = plots::run(
-                &pts,
-                &files,
-                &polys,
-                &design,
-                &cfg.inputs.design,
-                &cfg.plots,
-                unit,
-                &crop,
-            );
-            let kept: Vec<_> = o.assignment.iter().map(|&(i, _)| pts[i].clone()).collect();
-            let ids: Vec<&str> = o
-                .assignment
-                .iter()
-                .map(|&(_, k)| o.plots[k].plot_id.as_str())
-                .collect();
-            let y: Vec<f64> = kept
-                .iter()
-                .map(|p| unit.from_kg_ha(p.yield_std_kg_ha, &crop))
-                .collect();
-            let col = format!("yield_{}", unit.suffix());
-            io::write_clean_points(
-                &dir.join("points.parquet"),
-                &files,
-                &kept,
-                Some((&col, y)),
-                Some(ids),
-            )?;
-            io::write_plots(&dir.join("plots.csv"), &o.plots, unit.suffix())?;
-            let epsg = read_summary(out, Stage::Ingest)?
-                .details
-                .get("epsg")
-                .and_then(|v| v.as_u64())
-                .unwrap_or(0) as u32;
-            let utm = plotsieve_stages::projection::Utm::from_epsg(epsg)?;
-            io::write_plots_wgs84(
-                &dir.join("plots.geojson"),
-                &utm,
-                o.plots.iter().filter(|p| !p.net_ring.is_empty()).map(|p| {
-                    (
-                        p.plot_id.as_str(),
-                        p.net_ring.as_slice(),
-                        io::plot_properties(p, unit.suffix()),
-                    )
-                }),
-            )?;
-            write_stage_tables(&dir, &o.rejections, &o.summary)?;
-            Ok(o.summary)
-        }
-        Stage::Adjust => {
-            let plots = if cfg.adjust.plot_table.is_empty() {
-                io::read_plots(
-                    &out.join(Stage::Plots.dir()).join("plots.csv"),
-                    unit.suffix(),
-                )?
-            } else {
-                io::read_plot_table(
-                    &t.base.join(&cfg.adjust.plot_table),
-                    &cfg.adjust.plot_table,
-                    unit.suffix(),
-                    cfg.adjust.row_spacing_m,
-                    cfg.adjust.range_spacing_m,
-                )?
-            };
-            let s = cfg
-                .adjust
-                .checked(&cfg.trial.check, unit.from_kg_ha(1000.0, &crop));
-            let o = adjust::run_with(&plots, &s, progress)?;
-            io::write_adjusted(&dir.join("adjusted_plots.csv"), &o.plots, unit.suffix())?;
-            io::write_treatments(&dir.join("treatments.csv"), &o.treatments, unit.suffix())?;
-            io::write_hyper(&dir.join("hyperparameters.csv"), &o.hyper, unit.suffix())?;
-            io::write_comparison(&dir.join("comparison.csv"), &o.comparisons)?;
-            // Kept plots of fields that could not be fitted are this stage's rejections.
-            let fitted: std::collections::BTreeSet<&str> =
-                o.hyper.iter().map(|h| h.field.as_str()).collect();
-            let rejections: Vec<Rejection> = plots
-                .iter()
-                .filter(|p| p.status == "kept" && !fitted.contains(p.field.as_str()))
-                .map(|p| Rejection {
-                    source_file: "3-plots/plots.csv".into(),
-                    source_row: 0,
-                    id: p.plot_id.clone(),
-                    rule: "field_not_fitted".into(),
-                    column: "field".into(),
-                    value: p.field.clone(),
-                    limit: "a field with a check, two or more treatments and varying yields".into(),
-                })
-                .collect();
-            let kept_in = plots.iter().filter(|p| p.status == "kept").count() as u64;
-            let mut summary =
-                StageSummary::from_rejections("adjust", "plots", kept_in, &rejections);
-            summary
-                .details
-                .insert("warnings".into(), serde_json::json!(o.warnings));
-            if o.joint_ess.is_finite() {
-                summary.details.insert(
-                    "joint_effective_draws".into(),
-                    serde_json::json!((o.joint_ess * 10.0).round() / 10.0),
-                );
-            }
-            write_stage_tables(&dir, &rejections, &summary)?;
-            Ok(summary)
-        }
-        Stage::Report => {
-            let summaries: Vec<StageSummary> =
-                [Stage::Ingest, Stage::Clean, Stage::Plots, Stage::Adjust]
-                    .iter()
-                    .map(|s| read_summary(out, *s))
-                    .collect::<Result<_>>()?;
-            let adj = out.join(Stage::Adjust.dir());
-            let treatments = io::read_treatments(&adj.join("treatments.csv"), unit.suffix())?;
-            let hyper = io::read_hyper(&adj.join("hyperparameters.csv"))?;
-            let warnings: Vec<String> = summaries[3]
-                .details
-                .get("warnings")
-                .and_then(|w| serde_json::from_value(w.clone()).ok())
-                .unwrap_or_default();
-            let md = report::markdown(&report::ReportInput {
-                trial_name: &cfg.trial.name,
-                unit_label: unit.label(),
-                check: &cfg.trial.check,
-                decimals: cfg.report.decimals as usize,
-                summaries: &summaries,
-                treatments: &treatments,
-                hyper: &hyper,
-                warnings: &warnings,
-            });
-            io::write_atomic(&dir.join("report.md"), md.as_bytes())?;
-            // The HTML report: maps of every record, of what each rule removed, of the plots.
-            let ing = out.join(Stage::Ingest.dir());
-            let epsg = summaries[0]
-                .details
-                .get("epsg")
-                .and_then(|v| v.as_u64())
-                .unwrap_or(0) as u32;
-            let pts = io::read_points(&ing.join("points.parquet"), epsg)?;
-            let mut removed: BTreeMap<String, String> = BTreeMap::new();
-            for st in [Stage::Clean, Stage::Plots] {
-                for r in io::read_rejections(&out.join(st.dir()).join("rejected.csv"))? {
-                    if !r.id.is_empty() && r.source_file != cfg.inputs.design {
-                        removed.entry(r.id).or_insert(r.rule);
-                    }
-                }
-            }
-            let map_points: Vec<report::html::MapPoint> = pts
-                .points
-                .iter()
-                .map(|p| {
-                    let wet = clean::wet_yield_kg_ha(p.flow_kg_s, p.speed_m_s, p.width_m);
-                    let std = clean::to_standard_moisture(
-                        wet,
-                        p.moisture_pct.min(99.0),
-                        crop.standard_moisture_pct,
-                    );
-                    report::html::MapPoint {
-                        x: p.x_m,
-                        y: p.y_m,
-                        yield_unit: unit.from_kg_ha(std, &crop),
-                        rule: removed.get(&p.id.to_string()).cloned().unwrap_or_default(),
-                    }
-                })
-                .collect();
-            let polygons = ingest::read_geojson(
-                &ing.join("plots.geojson"),
-                "1-ingest/plots.geojson",
-                "plot_id",
-            )?;
-            let plots_tab = io::read_plots(
-                &out.join(Stage::Plots.dir()).join("plots.csv"),
-                unit.suffix(),
-            )?;
-            let adjusted = io::read_adjusted(&adj.join("adjusted_plots.csv"))?;
-            let comparisons = io::read_comparison(&adj.join("comparison.csv"))?;
-            let settings: Vec<(String, serde_json::Value)> = match read_manifest(out)? {
-                Some(m) => m.stages.into_iter().map(|(k, v)| (k, v.settings)).collect(),
-                None => Vec::new(),
-            };
-            let html = report::html::render(&report::html::HtmlInput {
-                trial_name: &cfg.trial.name,
-                unit_label: unit.label(),
-                check: &cfg.trial.check,
-                decimals: cfg.report.decimals as usize,
-                summaries: &summaries,
-                settings: &settings,
-                points: &map_points,
-                polygons: &polygons,
-                plots: &plots_tab,
-                adjusted: &adjusted,
-                treatments: &treatments,
-                hyper: &hyper,
-                comparisons: &comparisons,
-                warnings: &warnings,
-            });
-            io::write_atomic(&dir.join("report.html"), html.as_bytes())?;
-            let summary = StageSummary {
-                stage: "report".into(),
-                unit: "plots".into(),
-                ..Default::default()
-            };
-            io::write_json(&dir.join("summary.json"), &summary)?;
-            Ok(summary)
-        }
-    }
 }
 
 /// The stage bar and, below it, a bar for the stage's inner work (both hidden with
@@ -477,8 +206,8 @@ fn run_stages(
         inner.reset();
         inner.set_length(0);
         let start = Instant::now();
-        let summary =
-            execute(stage, t, out, &report).with_context(|| format!("stage {}", stage.name()))?;
+        let summary = glue::execute(stage, t, out, &report)
+            .with_context(|| format!("stage {}", stage.name()))?;
         manifest.stages.insert(
             stage.name().into(),
             StageRecord {

@@ -58,7 +58,7 @@ pub struct CleanPoint {
 
 /// A row of a stage's rejection table: what was removed, by which rule, with the value found
 /// and the limit it broke.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
 pub struct Rejection {
     pub source_file: String,
     /// Line number in the source file (header = 1); for plots, the design table's line.
@@ -139,7 +139,7 @@ pub struct PlotPolygon {
 }
 
 /// A row of the design table.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
 pub struct DesignRow {
     pub plot_id: String,
     pub treatment: String,

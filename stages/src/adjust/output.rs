@@ -5,7 +5,7 @@ use super::*;
 
 /// The spatial model against the same model without the spatial field (the usual RCBD
 /// analysis when blocks are in the mean model), per field.
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug, Default, PartialEq)]
 pub struct Comparison {
     pub field: String,
     pub log_ml_spatial: f64,
@@ -21,7 +21,7 @@ pub struct Comparison {
 }
 
 /// A plot after adjustment.
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug, Default, PartialEq)]
 pub struct AdjustedPlot {
     pub plot_id: String,
     pub field: String,
@@ -35,7 +35,7 @@ pub struct AdjustedPlot {
 }
 
 /// A treatment in a field (or pooled over fields: field = "all").
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug, Default, PartialEq)]
 pub struct TreatmentRow {
     pub field: String,
     pub treatment: String,
@@ -65,7 +65,7 @@ pub struct TreatmentRow {
 }
 
 /// Posterior mean and 95 % interval of one hyperparameter (NaN where it does not apply).
-#[derive(Clone, Copy, Debug, PartialEq)]
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct Summary {
     pub mean: f64,
     pub lo95: f64,
@@ -106,7 +106,7 @@ impl Summary {
 
 /// Hyperparameters of one field (or, in the row for field "all" of a joint fit, the
 /// interaction SD and the shared range).
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug, Default, PartialEq)]
 pub struct FieldHyper {
     pub field: String,
     pub plots: u64,

@@ -40,7 +40,7 @@ pub use settings::PlotsSettings;
 use std::collections::{BTreeMap, HashMap};
 
 /// Statistics of one plot.
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug, Default, PartialEq)]
 pub struct PlotStats {
     pub plot_id: String,
     pub field: String,

@@ -1,0 +1,67 @@
+//! Adjust: `3-plots/plots.csv` (or the analyst's plot table) -> `4-adjust/` (adjusted plots,
+//! treatments, hyperparameters, comparison).
+
+use super::{read_plots, write_stage_tables, Ctx};
+use crate::io;
+use anyhow::Result;
+use plotsieve_stages::adjust;
+use plotsieve_stages::table::{Rejection, StageSummary};
+
+/// Run the stage against the run folder.
+pub fn run(c: &Ctx) -> Result<StageSummary> {
+    let cfg = &c.t.cfg;
+    let t = c.t;
+    let out = c.out;
+    let dir = &c.dir;
+    let unit = c.unit;
+    let crop = &c.crop;
+    let progress = c.progress;
+    let plots = if cfg.adjust.plot_table.is_empty() {
+        read_plots(out, unit.suffix())?
+    } else {
+        io::read_plot_table(
+            &t.base.join(&cfg.adjust.plot_table),
+            &cfg.adjust.plot_table,
+            unit.suffix(),
+            cfg.adjust.row_spacing_m,
+            cfg.adjust.range_spacing_m,
+        )?
+    };
+    let s = cfg
+        .adjust
+        .checked(&cfg.trial.check, unit.from_kg_ha(1000.0, crop));
+    let o = adjust::run_with(&plots, &s, progress)?;
+    io::write_table(&dir.join("adjusted_plots.csv"), &o.plots, unit.suffix())?;
+    io::write_table(&dir.join("treatments.csv"), &o.treatments, unit.suffix())?;
+    io::write_table(&dir.join("hyperparameters.csv"), &o.hyper, unit.suffix())?;
+    io::write_table(&dir.join("comparison.csv"), &o.comparisons, "")?;
+    // Kept plots of fields that could not be fitted are this stage's rejections.
+    let fitted: std::collections::BTreeSet<&str> =
+        o.hyper.iter().map(|h| h.field.as_str()).collect();
+    let rejections: Vec<Rejection> = plots
+        .iter()
+        .filter(|p| p.status == "kept" && !fitted.contains(p.field.as_str()))
+        .map(|p| Rejection {
+            source_file: "3-plots/plots.csv".into(),
+            source_row: 0,
+            id: p.plot_id.clone(),
+            rule: "field_not_fitted".into(),
+            column: "field".into(),
+            value: p.field.clone(),
+            limit: "a field with a check, two or more treatments and varying yields".into(),
+        })
+        .collect();
+    let kept_in = plots.iter().filter(|p| p.status == "kept").count() as u64;
+    let mut summary = StageSummary::from_rejections("adjust", "plots", kept_in, &rejections);
+    summary
+        .details
+        .insert("warnings".into(), serde_json::json!(o.warnings));
+    if o.joint_ess.is_finite() {
+        summary.details.insert(
+            "joint_effective_draws".into(),
+            serde_json::json!((o.joint_ess * 10.0).round() / 10.0),
+        );
+    }
+    write_stage_tables(&dir, &rejections, &summary)?;
+    Ok(summary)
+}

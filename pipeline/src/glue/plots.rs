@@ -1,0 +1,70 @@
+//! Plots: clean points, plot polygons and design -> `3-plots/` (plots.csv, plots.geojson,
+//! points.parquet with plot ids).
+
+use super::{write_stage_tables, Ctx};
+use crate::io;
+use crate::stage::Stage;
+use anyhow::Result;
+use plotsieve_stages::table::StageSummary;
+use plotsieve_stages::{ingest, plots};
+
+/// Run the stage against the run folder.
+pub fn run(c: &Ctx) -> Result<StageSummary> {
+    let cfg = &c.t.cfg;
+    let out = c.out;
+    let dir = &c.dir;
+    let unit = c.unit;
+    let crop = &c.crop;
+    let (files, pts) = io::read_clean_points(&out.join(Stage::Clean.dir()).join("points.parquet"))?;
+    let ing = out.join(Stage::Ingest.dir());
+    let polys = ingest::read_geojson(
+        &ing.join("plots.geojson"),
+        "1-ingest/plots.geojson",
+        "plot_id",
+    )?;
+    let design = io::read_table(&ing.join("design.csv"), "", "run stage ingest first")?;
+    let o = plots::run(
+        &pts,
+        &files,
+        &polys,
+        &design,
+        &cfg.inputs.design,
+        &cfg.plots,
+        unit,
+        crop,
+    );
+    let kept: Vec<_> = o.assignment.iter().map(|&(i, _)| pts[i].clone()).collect();
+    let ids: Vec<&str> = o
+        .assignment
+        .iter()
+        .map(|&(_, k)| o.plots[k].plot_id.as_str())
+        .collect();
+    let y: Vec<f64> = kept
+        .iter()
+        .map(|p| unit.from_kg_ha(p.yield_std_kg_ha, crop))
+        .collect();
+    let col = format!("yield_{}", unit.suffix());
+    io::write_clean_points(
+        &dir.join("points.parquet"),
+        &files,
+        &kept,
+        Some((&col, y)),
+        Some(ids),
+    )?;
+    io::write_table(&dir.join("plots.csv"), &o.plots, unit.suffix())?;
+    let epsg = c.epsg()?;
+    let utm = plotsieve_stages::projection::Utm::from_epsg(epsg)?;
+    io::write_plots_wgs84(
+        &dir.join("plots.geojson"),
+        &utm,
+        o.plots.iter().filter(|p| !p.net_ring.is_empty()).map(|p| {
+            (
+                p.plot_id.as_str(),
+                p.net_ring.as_slice(),
+                io::plot_properties(p, unit.suffix()),
+            )
+        }),
+    )?;
+    write_stage_tables(&dir, &o.rejections, &o.summary)?;
+    Ok(o.summary)
+}

@@ -1,0 +1,117 @@
+//! Report: every stage's summary and tables -> `5-report/` (report.md, report.html).
+
+use super::{read_plots, Ctx, ADJUST_FIRST};
+use crate::io;
+use crate::run::read_manifest;
+use crate::run::read_summary;
+use crate::stage::Stage;
+use anyhow::Result;
+use plotsieve_stages::table::{Rejection, StageSummary};
+use plotsieve_stages::{clean, ingest, report};
+use std::collections::BTreeMap;
+
+/// Run the stage against the run folder.
+pub fn run(c: &Ctx) -> Result<StageSummary> {
+    let cfg = &c.t.cfg;
+    let out = c.out;
+    let dir = &c.dir;
+    let unit = c.unit;
+    let crop = &c.crop;
+    let summaries: Vec<StageSummary> = [Stage::Ingest, Stage::Clean, Stage::Plots, Stage::Adjust]
+        .iter()
+        .map(|s| read_summary(out, *s))
+        .collect::<Result<_>>()?;
+    let adj = out.join(Stage::Adjust.dir());
+    let treatments = io::read_table(&adj.join("treatments.csv"), unit.suffix(), ADJUST_FIRST)?;
+    let hyper = io::read_table(
+        &adj.join("hyperparameters.csv"),
+        unit.suffix(),
+        ADJUST_FIRST,
+    )?;
+    let warnings: Vec<String> = summaries[3]
+        .details
+        .get("warnings")
+        .and_then(|w| serde_json::from_value(w.clone()).ok())
+        .unwrap_or_default();
+    let md = report::markdown(&report::ReportInput {
+        trial_name: &cfg.trial.name,
+        unit_label: unit.label(),
+        check: &cfg.trial.check,
+        decimals: cfg.report.decimals as usize,
+        summaries: &summaries,
+        treatments: &treatments,
+        hyper: &hyper,
+        warnings: &warnings,
+    });
+    io::write_atomic(&dir.join("report.md"), md.as_bytes())?;
+    // The HTML report: maps of every record, of what each rule removed, of the plots.
+    let ing = out.join(Stage::Ingest.dir());
+    let epsg = c.epsg()?;
+    let pts = io::read_points(&ing.join("points.parquet"), epsg)?;
+    let mut removed: BTreeMap<String, String> = BTreeMap::new();
+    for st in [Stage::Clean, Stage::Plots] {
+        for r in io::read_table::<Rejection>(
+            &out.join(st.dir()).join("rejected.csv"),
+            "",
+            "rerun its stage",
+        )? {
+            if !r.id.is_empty() && r.source_file != cfg.inputs.design {
+                removed.entry(r.id).or_insert(r.rule);
+            }
+        }
+    }
+    let map_points: Vec<report::html::MapPoint> = pts
+        .points
+        .iter()
+        .map(|p| {
+            let wet = clean::wet_yield_kg_ha(p.flow_kg_s, p.speed_m_s, p.width_m);
+            let std = clean::to_standard_moisture(
+                wet,
+                p.moisture_pct.min(99.0),
+                crop.standard_moisture_pct,
+            );
+            report::html::MapPoint {
+                x: p.x_m,
+                y: p.y_m,
+                yield_unit: unit.from_kg_ha(std, crop),
+                rule: removed.get(&p.id.to_string()).cloned().unwrap_or_default(),
+            }
+        })
+        .collect();
+    let polygons = ingest::read_geojson(
+        &ing.join("plots.geojson"),
+        "1-ingest/plots.geojson",
+        "plot_id",
+    )?;
+    let plots_tab = read_plots(out, unit.suffix())?;
+    let adjusted = io::read_table(&adj.join("adjusted_plots.csv"), unit.suffix(), ADJUST_FIRST)?;
+    let comparisons = io::read_table(&adj.join("comparison.csv"), "", ADJUST_FIRST)?;
+    let settings: Vec<(String, serde_json::Value)> = match read_manifest(out)? {
+        Some(m) => m.stages.into_iter().map(|(k, v)| (k, v.settings)).collect(),
+        None => Vec::new(),
+    };
+    let html = report::html::render(&report::html::HtmlInput {
+        trial_name: &cfg.trial.name,
+        unit_label: unit.label(),
+        check: &cfg.trial.check,
+        decimals: cfg.report.decimals as usize,
+        summaries: &summaries,
+        settings: &settings,
+        points: &map_points,
+        polygons: &polygons,
+        plots: &plots_tab,
+        adjusted: &adjusted,
+        treatments: &treatments,
+        hyper: &hyper,
+        comparisons: &comparisons,
+        warnings: &warnings,
+    });
+    io::write_atomic(&dir.join("report.html"), html.as_bytes())?;
+    let summary = StageSummary {
+        stage: "report".into(),
+        unit: "plots".into(),
+        ..Default::default()
+    };
+    io::write_json(&dir.join("summary.json"), &summary)?;
+    Ok(summary)
+}

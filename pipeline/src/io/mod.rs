@@ -1,0 +1,48 @@
+//! Reading and writing the run folder's tables. Every write goes to a temporary file in the
+//! same folder and is renamed into place, so a reader never sees half a table. Floats are
+//! written with fixed decimals and tables in a fixed order, so the same inputs and settings
+//! give the same bytes.
+//!
+//! Layout: `table` (one codec for every CSV table: columns named once, read back by header
+//! name) and `tables` (the run folder's row types), `points` (Parquet point tables),
+//! `plots` (GeoJSON plot layers and the analyst's plot table).
+
+mod plots;
+mod points;
+pub mod table;
+mod tables;
+
+pub use plots::{plot_properties, read_plot_table, write_plots_wgs84, write_projected_plots};
+pub use points::{read_clean_points, read_points, write_clean_points, write_points};
+pub use table::{read_table, write_table};
+
+use anyhow::{anyhow, Context, Result};
+use std::io::Write;
+use std::path::Path;
+
+/// Write bytes atomically: temporary file in the same folder, flushed, then renamed.
+pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
+    let dir = path
+        .parent()
+        .ok_or_else(|| anyhow!("{} has no parent folder", path.display()))?;
+    std::fs::create_dir_all(dir).with_context(|| format!("creating {}", dir.display()))?;
+    let name = path.file_name().and_then(|n| n.to_str()).unwrap_or("out");
+    let tmp = dir.join(format!(".{name}.{}.tmp", std::process::id()));
+    {
+        let mut f =
+            std::fs::File::create(&tmp).with_context(|| format!("creating {}", tmp.display()))?;
+        f.write_all(bytes)
+            .with_context(|| format!("writing {}", tmp.display()))?;
+        f.sync_all().ok();
+    }
+    std::fs::rename(&tmp, path)
+        .with_context(|| format!("renaming {} to {}", tmp.display(), path.display()))?;
+    Ok(())
+}
+
+/// JSON, pretty, newline-terminated, atomically.
+pub fn write_json<T: serde::Serialize>(path: &Path, v: &T) -> Result<()> {
+    let mut s = serde_json::to_string_pretty(v)?;
+    s.push('\n');
+    write_atomic(path, s.as_bytes())
+}

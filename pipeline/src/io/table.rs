@@ -1,0 +1,180 @@
+//! One codec for the run folder's CSV tables: a row type lists its columns once (name, how a
+//! row writes it, how it is read back), and every table is written and read through
+//! [`write_table`] and [`read_table`]. Reading goes by header name, never by position, and a
+//! missing column or a cell that is not a number is an error naming the file, line and
+//! column.
+
+use super::write_atomic;
+use anyhow::{anyhow, bail, Context, Result};
+use std::path::Path;
+
+/// One column of a table of `T`.
+pub struct Col<T> {
+    /// The header name (yield columns carry the output unit, e.g. `yield_mean_t_ha`).
+    pub name: String,
+    /// The cell of a row.
+    pub write: fn(&T) -> String,
+    /// Set the row's field from a cell; `Err` says what was expected.
+    pub read: fn(&mut T, &str) -> Result<(), String>,
+}
+
+/// A column with its name, writer and reader.
+pub fn col<T>(
+    name: impl Into<String>,
+    write: fn(&T) -> String,
+    read: fn(&mut T, &str) -> Result<(), String>,
+) -> Col<T> {
+    Col {
+        name: name.into(),
+        write,
+        read,
+    }
+}
+
+/// A cell holding a number: empty is NaN (how `util::fmt` writes NaN).
+pub fn number(cell: &str) -> Result<f64, String> {
+    if cell.is_empty() {
+        return Ok(f64::NAN);
+    }
+    cell.parse()
+        .map_err(|_| format!("expected a number, found {cell:?}"))
+}
+
+/// A cell holding a count.
+pub fn count<N: std::str::FromStr>(cell: &str) -> Result<N, String> {
+    cell.parse()
+        .map_err(|_| format!("expected a whole number, found {cell:?}"))
+}
+
+/// A row type of a run-folder table.
+pub trait Table: Default {
+    /// The columns in file order; `unit` is the output unit's suffix (`t_ha`, `bu_ac`).
+    fn columns(unit: &str) -> Vec<Col<Self>>;
+}
+
+/// The table as CSV bytes: header, then one record per row.
+pub fn table_bytes<T: Table>(rows: &[T], unit: &str) -> Result<Vec<u8>> {
+    let cols = T::columns(unit);
+    let mut w = csv::Writer::from_writer(Vec::new());
+    w.write_record(cols.iter().map(|c| c.name.as_str()))?;
+    for r in rows {
+        w.write_record(cols.iter().map(|c| (c.write)(r)))?;
+    }
+    w.into_inner().map_err(|e| anyhow!("{e}"))
+}
+
+/// Write the table atomically.
+pub fn write_table<T: Table>(path: &Path, rows: &[T], unit: &str) -> Result<()> {
+    write_atomic(path, &table_bytes(rows, unit)?)
+}
+
+/// Read a table back by header name. A missing file says `hint` (what to run); extra
+/// columns are ignored.
+pub fn read_table<T: Table>(path: &Path, unit: &str, hint: &str) -> Result<Vec<T>> {
+    let mut rdr = csv::Reader::from_path(path)
+        .with_context(|| format!("{} is missing: {hint}", path.display()))?;
+    let header = rdr
+        .headers()
+        .with_context(|| format!("reading {}", path.display()))?
+        .clone();
+    let cols = T::columns(unit);
+    let mut idx = Vec::with_capacity(cols.len());
+    for c in &cols {
+        match header.iter().position(|h| h == c.name) {
+            Some(i) => idx.push(i),
+            None => bail!(
+                "{}: no column {} (found: {}); {hint}",
+                path.display(),
+                c.name,
+                header.iter().collect::<Vec<_>>().join(", ")
+            ),
+        }
+    }
+    let mut out = Vec::new();
+    for rec in rdr.records() {
+        let rec = rec.with_context(|| format!("reading {}", path.display()))?;
+        let line = rec.position().map(|p| p.line()).unwrap_or(0);
+        let mut row = T::default();
+        for (c, &i) in cols.iter().zip(&idx) {
+            (c.read)(&mut row, rec.get(i).unwrap_or(""))
+                .map_err(|e| anyhow!("{}, line {line}, column {}: {e}", path.display(), c.name))?;
+        }
+        out.push(row);
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[derive(Default, Debug, PartialEq)]
+    struct Pair {
+        name: String,
+        value: f64,
+    }
+
+    impl Table for Pair {
+        fn columns(unit: &str) -> Vec<Col<Self>> {
+            vec![
+                col(
+                    "name",
+                    |r| r.name.clone(),
+                    |r, v| Ok(r.name = v.to_string()),
+                ),
+                col(
+                    format!("value_{unit}"),
+                    |r| plotsieve_stages::util::fmt(r.value, 2),
+                    |r, v| Ok(r.value = number(v)?),
+                ),
+            ]
+        }
+    }
+
+    #[test]
+    fn tables_round_trip_by_name_and_name_what_is_wrong() {
+        let dir = std::env::temp_dir().join(format!("plotsieve-io-{}", std::process::id()));
+        let p = dir.join("t.csv");
+        let rows = vec![
+            Pair {
+                name: "a".into(),
+                value: 1.5,
+            },
+            Pair {
+                name: "b, c".into(),
+                value: f64::NAN,
+            },
+        ];
+        write_table(&p, &rows, "t_ha").unwrap();
+        let text = std::fs::read_to_string(&p).unwrap();
+        assert_eq!(text, "name,value_t_ha\na,1.50\n\"b, c\",\n");
+        let back: Vec<Pair> = read_table(&p, "t_ha", "run it").unwrap();
+        assert_eq!(back[0], rows[0]);
+        assert!(back[1].value.is_nan());
+        // Columns in another order, and one extra: read by name.
+        std::fs::write(&p, "extra,value_t_ha,name\nx,2.25,z\n").unwrap();
+        let back: Vec<Pair> = read_table(&p, "t_ha", "run it").unwrap();
+        assert_eq!(
+            back,
+            vec![Pair {
+                name: "z".into(),
+                value: 2.25
+            }]
+        );
+        // Another unit's table, and a bad cell.
+        let e = read_table::<Pair>(&p, "bu_ac", "rerun stage adjust")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("no column value_bu_ac") && e.ends_with("rerun stage adjust"),
+            "{e}"
+        );
+        std::fs::write(&p, "name,value_t_ha\na,lots\n").unwrap();
+        let e = read_table::<Pair>(&p, "t_ha", "").unwrap_err().to_string();
+        assert!(
+            e.ends_with("line 2, column value_t_ha: expected a number, found \"lots\""),
+            "{e}"
+        );
+        std::fs::remove_dir_all(&dir).unwrap();
+    }
+}

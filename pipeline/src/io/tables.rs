@@ -1,0 +1,290 @@
+//! The run folder's CSV tables as [`Table`] row types: `rejected.csv`, `design.csv`,
+//! `plots.csv`, `adjusted_plots.csv`, `treatments.csv`, `comparison.csv` and
+//! `hyperparameters.csv`. Each column is named, written and read in one place.
+
+use super::table::{col, count, number, Col, Table};
+use plotsieve_stages::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
+use plotsieve_stages::plots::PlotStats;
+use plotsieve_stages::table::{DesignRow, Rejection};
+use plotsieve_stages::util::fmt;
+
+/// A text column bound to a `String` field.
+macro_rules! text {
+    ($name:expr, $field:ident) => {
+        col(
+            $name,
+            |r: &Self| r.$field.clone(),
+            |r: &mut Self, v: &str| {
+                r.$field = v.to_string();
+                Ok(())
+            },
+        )
+    };
+}
+
+/// A number column bound to an `f64` field, written with `$d` decimals.
+macro_rules! num {
+    ($name:expr, $field:ident, $d:expr) => {
+        col(
+            $name,
+            |r: &Self| fmt(r.$field, $d),
+            |r: &mut Self, v: &str| {
+                r.$field = number(v)?;
+                Ok(())
+            },
+        )
+    };
+}
+
+/// A count column bound to an integer field.
+macro_rules! whole {
+    ($name:expr, $field:ident) => {
+        col(
+            $name,
+            |r: &Self| r.$field.to_string(),
+            |r: &mut Self, v: &str| {
+                r.$field = count(v)?;
+                Ok(())
+            },
+        )
+    };
+}
+
+impl Table for Rejection {
+    fn columns(_unit: &str) -> Vec<Col<Self>> {
+        vec![
+            text!("source_file", source_file),
+            whole!("source_row", source_row),
+            text!("id", id),
+            text!("rule", rule),
+            text!("column", column),
+            text!("value", value),
+            text!("limit", limit),
+        ]
+    }
+}
+
+impl Table for DesignRow {
+    fn columns(_unit: &str) -> Vec<Col<Self>> {
+        vec![
+            text!("plot_id", plot_id),
+            text!("treatment", treatment),
+            text!("block", block),
+            text!("field", field),
+            whole!("source_row", row),
+        ]
+    }
+}
+
+impl Table for PlotStats {
+    fn columns(unit: &str) -> Vec<Col<Self>> {
+        // Counts are read as numbers (an analyst's own table may write 12.0).
+        vec![
+            text!("plot_id", plot_id),
+            text!("field", field),
+            text!("treatment", treatment),
+            text!("block", block),
+            text!("status", status),
+            text!("reason", reason),
+            col(
+                "points",
+                |r: &Self| r.points.to_string(),
+                |r: &mut Self, v: &str| {
+                    r.points = number(v)? as u64;
+                    Ok(())
+                },
+            ),
+            num!(format!("yield_mean_{unit}"), yield_mean, 6),
+            num!(format!("yield_median_{unit}"), yield_median, 6),
+            num!(format!("yield_trimmed_mean_{unit}"), yield_trimmed_mean, 6),
+            num!(format!("yield_sd_{unit}"), yield_sd, 6),
+            num!("moisture_mean_pct", moisture_mean_pct, 4),
+            num!("centroid_x_m", centroid_x_m, 4),
+            num!("centroid_y_m", centroid_y_m, 4),
+            num!("area_m2", area_m2, 4),
+            num!("net_area_m2", net_area_m2, 4),
+            num!("harvested_m2", harvested_m2, 4),
+            num!("coverage", coverage, 6),
+            col(
+                "grid_range",
+                |r: &Self| r.grid_range.to_string(),
+                |r: &mut Self, v: &str| {
+                    r.grid_range = number(v)? as u32;
+                    Ok(())
+                },
+            ),
+            col(
+                "grid_row",
+                |r: &Self| r.grid_row.to_string(),
+                |r: &mut Self, v: &str| {
+                    r.grid_row = number(v)? as u32;
+                    Ok(())
+                },
+            ),
+            num!("along_m", along_m, 4),
+            num!("across_m", across_m, 4),
+            col(
+                "source",
+                |_: &Self| "monitor".into(),
+                |_: &mut Self, _| Ok(()),
+            ),
+        ]
+    }
+}
+
+impl Table for AdjustedPlot {
+    fn columns(unit: &str) -> Vec<Col<Self>> {
+        vec![
+            text!("plot_id", plot_id),
+            text!("field", field),
+            text!("treatment", treatment),
+            text!("block", block),
+            num!(format!("raw_yield_{unit}"), raw, 6),
+            num!(format!("spatial_effect_{unit}"), spatial_mean, 6),
+            num!(format!("spatial_effect_sd_{unit}"), spatial_sd, 6),
+            num!(format!("adjusted_yield_{unit}"), adjusted, 6),
+            num!(format!("adjusted_yield_sd_{unit}"), adjusted_sd, 6),
+        ]
+    }
+}
+
+impl Table for TreatmentRow {
+    fn columns(unit: &str) -> Vec<Col<Self>> {
+        vec![
+            text!("field", field),
+            text!("treatment", treatment),
+            whole!("plots", plots),
+            num!(format!("estimate_{unit}"), estimate, 6),
+            num!(format!("sd_{unit}"), sd, 6),
+            num!(format!("lo95_{unit}"), lo95, 6),
+            num!(format!("hi95_{unit}"), hi95, 6),
+            num!(format!("uplift_{unit}"), uplift, 6),
+            num!(format!("uplift_sd_{unit}"), uplift_sd, 6),
+            num!(format!("uplift_lo90_{unit}"), uplift_lo90, 6),
+            num!(format!("uplift_hi90_{unit}"), uplift_hi90, 6),
+            num!(format!("uplift_lo95_{unit}"), uplift_lo95, 6),
+            num!(format!("uplift_hi95_{unit}"), uplift_hi95, 6),
+            num!("p_uplift_gt0", p_uplift_gt0, 6),
+            num!(format!("break_even_{unit}"), break_even, 6),
+            num!("p_uplift_gt_break_even", p_uplift_gt_break_even, 6),
+            num!("expected_net_return_per_ha", expected_net_return_per_ha, 2),
+            num!(format!("prior_mean_{unit}"), prior_mean, 6),
+            num!(format!("prior_sd_{unit}"), prior_sd, 6),
+        ]
+    }
+}
+
+impl Table for Comparison {
+    fn columns(_unit: &str) -> Vec<Col<Self>> {
+        vec![
+            text!("field", field),
+            num!("log_ml_spatial", log_ml_spatial, 6),
+            num!("log_ml_rcbd", log_ml_rcbd, 6),
+            num!("efficiency", efficiency, 6),
+            num!("moran_i_rcbd", moran_rcbd, 6),
+            num!("moran_i_spatial", moran_spatial, 6),
+            col(
+                "rank_changes",
+                |r: &Self| r.rank_changes.join(" "),
+                |r: &mut Self, v: &str| {
+                    r.rank_changes = v.split_whitespace().map(String::from).collect();
+                    Ok(())
+                },
+            ),
+        ]
+    }
+}
+
+/// A number column with its own getter and setter (for fields inside a [`Summary`]).
+macro_rules! numf {
+    ($name:expr, $d:expr, |$r:ident| $get:expr, |$w:ident, $x:ident| $set:expr) => {
+        col(
+            $name,
+            |$r: &Self| fmt($get, $d),
+            |$w: &mut Self, v: &str| {
+                let $x = number(v)?;
+                $set;
+                Ok(())
+            },
+        )
+    };
+}
+
+impl Table for FieldHyper {
+    fn columns(unit: &str) -> Vec<Col<Self>> {
+        let u = |name: &str| format!("{name}_{unit}");
+        vec![
+            text!("field", field),
+            whole!("plots", plots),
+            num!("range_m", range_m, 4),
+            num!("range_lo95_m", range_lo95_m, 4),
+            num!("range_hi95_m", range_hi95_m, 4),
+            numf!("range_across_m", 4, |r| r.range_across.mean, |r, x| r
+                .range_across
+                .mean =
+                x),
+            numf!("range_across_lo95_m", 4, |r| r.range_across.lo95, |r, x| {
+                r.range_across.lo95 = x
+            }),
+            numf!("range_across_hi95_m", 4, |r| r.range_across.hi95, |r, x| {
+                r.range_across.hi95 = x
+            }),
+            numf!(u("spatial_sd"), 6, |r| r.spatial_sd_ci.mean, |r, x| {
+                r.spatial_sd_ci.mean = x;
+                r.spatial_sd = x
+            }),
+            numf!(u("spatial_sd_lo95"), 6, |r| r.spatial_sd_ci.lo95, |r, x| {
+                r.spatial_sd_ci.lo95 = x
+            }),
+            numf!(u("spatial_sd_hi95"), 6, |r| r.spatial_sd_ci.hi95, |r, x| {
+                r.spatial_sd_ci.hi95 = x
+            }),
+            numf!(u("noise_sd"), 6, |r| r.noise_sd_ci.mean, |r, x| {
+                r.noise_sd_ci.mean = x;
+                r.noise_sd = x
+            }),
+            numf!(u("noise_sd_lo95"), 6, |r| r.noise_sd_ci.lo95, |r, x| r
+                .noise_sd_ci
+                .lo95 =
+                x),
+            numf!(u("noise_sd_hi95"), 6, |r| r.noise_sd_ci.hi95, |r, x| r
+                .noise_sd_ci
+                .hi95 =
+                x),
+            numf!("spatial_share", 6, |r| r.spatial_share_ci.mean, |r, x| {
+                r.spatial_share_ci.mean = x;
+                r.spatial_share = x
+            }),
+            numf!(
+                "spatial_share_lo95",
+                6,
+                |r| r.spatial_share_ci.lo95,
+                |r, x| r.spatial_share_ci.lo95 = x
+            ),
+            numf!(
+                "spatial_share_hi95",
+                6,
+                |r| r.spatial_share_ci.hi95,
+                |r, x| r.spatial_share_ci.hi95 = x
+            ),
+            numf!(u("interaction_sd"), 6, |r| r.interaction_sd.mean, |r, x| {
+                r.interaction_sd.mean = x
+            }),
+            numf!(
+                u("interaction_sd_lo95"),
+                6,
+                |r| r.interaction_sd.lo95,
+                |r, x| r.interaction_sd.lo95 = x
+            ),
+            numf!(
+                u("interaction_sd_hi95"),
+                6,
+                |r| r.interaction_sd.hi95,
+                |r, x| r.interaction_sd.hi95 = x
+            ),
+            num!("log_marginal_likelihood", log_marginal_likelihood, 6),
+            text!("method", method),
+            text!("warning", warning),
+        ]
+    }
+}
