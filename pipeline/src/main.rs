@@ -33,7 +33,7 @@ enum Command {
     Run {
         /// Trial configuration (TOML); its paths are relative to it.
         trial: PathBuf,
-        /// Run folder [default: runs/<trial file name without .toml>].
+        /// Run folder [default: runs/<folder of the trial file>-<trial file name without .toml>].
         #[arg(long)]
         out: Option<PathBuf>,
         /// Override a setting, e.g. --set clean.speed.min_m_s=0.8 (repeatable).

@@ -40,6 +40,9 @@ pub struct StageRecord {
     pub rejected: u64,
     /// The settings section this stage ran with.
     pub settings: serde_json::Value,
+    /// Why the stage failed (status `failed`).
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub error: String,
 }
 
 /// `manifest.json`.
@@ -79,12 +82,49 @@ pub fn load(trial: &Path, set: &[String]) -> Result<Trial> {
     })
 }
 
-fn default_out(trial: &Path) -> PathBuf {
+/// `runs/<folder of the trial file>-<trial file name>`, so that trial files of the same name
+/// in different folders (every `trial.toml`) get their own run folders.
+pub fn default_out(trial: &Path) -> PathBuf {
     let stem = trial
         .file_stem()
         .and_then(|s| s.to_str())
         .unwrap_or("trial");
-    PathBuf::from("runs").join(stem)
+    let folder = std::fs::canonicalize(trial)
+        .ok()
+        .and_then(|p| {
+            p.parent()
+                .and_then(|d| d.file_name())
+                .map(|n| n.to_string_lossy().to_string())
+        })
+        .filter(|n| !n.is_empty());
+    match folder {
+        Some(f) => PathBuf::from("runs").join(format!("{f}-{stem}")),
+        None => PathBuf::from("runs").join(stem),
+    }
+}
+
+/// Remove a stage's folder: its outputs no longer hold (the stage is about to run again,
+/// failed, or an upstream stage changed), and a file left there would look current.
+fn clear_stage(out: &Path, stage: Stage) -> Result<()> {
+    let d = out.join(stage.dir());
+    if d.exists() {
+        std::fs::remove_dir_all(&d).with_context(|| format!("removing {}", d.display()))?;
+    }
+    Ok(())
+}
+
+/// A manifest record for a stage that has not finished.
+fn unfinished(status: &str, error: String) -> StageRecord {
+    StageRecord {
+        status: status.into(),
+        seconds: 0.0,
+        unit: String::new(),
+        count_in: 0,
+        kept: 0,
+        rejected: 0,
+        settings: serde_json::Value::Null,
+        error,
+    }
 }
 
 fn sha256_file(path: &Path) -> Result<(u64, String)> {
@@ -205,9 +245,34 @@ fn run_stages(
         inner.set_message("");
         inner.reset();
         inner.set_length(0);
+        // This stage's and every later stage's outputs stop holding now: remove them and say
+        // so in the manifest before anything runs, so that a failed or killed run never
+        // leaves an old table or report looking current.
+        for s in Stage::ALL.iter().filter(|s| **s >= stage) {
+            clear_stage(out, *s)?;
+            if *s > stage {
+                if let Some(r) = manifest.stages.get_mut(s.name()) {
+                    r.status = "stale".into();
+                }
+            }
+        }
+        manifest
+            .stages
+            .insert(stage.name().into(), unfinished("running", String::new()));
+        io::write_json(&out.join("manifest.json"), &manifest)?;
         let start = Instant::now();
-        let summary = glue::execute(stage, t, out, &report)
-            .with_context(|| format!("stage {}", stage.name()))?;
+        let summary = match glue::execute(stage, t, out, &report) {
+            Ok(s) => s,
+            Err(e) => {
+                let e = e.context(format!("stage {}", stage.name()));
+                clear_stage(out, stage)?;
+                manifest
+                    .stages
+                    .insert(stage.name().into(), unfinished("failed", format!("{e:#}")));
+                io::write_json(&out.join("manifest.json"), &manifest)?;
+                return Err(e);
+            }
+        };
         manifest.stages.insert(
             stage.name().into(),
             StageRecord {
@@ -218,6 +283,7 @@ fn run_stages(
                 kept: summary.kept,
                 rejected: summary.rejected,
                 settings: settings_of(&t.cfg, stage),
+                error: String::new(),
             },
         );
         for later in Stage::ALL.iter().filter(|s| **s > stage) {
@@ -297,6 +363,10 @@ pub fn run_one(
             out.display()
         ),
     };
+    if stage != Stage::Ingest && !table_entry {
+        same_trial(&manifest, &t, &out)?;
+        unchanged_inputs(&manifest, &t)?;
+    }
     if let Some(prev) = stage.previous().filter(|_| !table_entry) {
         let status = manifest.stages.get(prev.name()).map(|r| r.status.as_str());
         match status {
@@ -321,6 +391,65 @@ pub fn run_one(
     }
     std::fs::create_dir_all(&out)?;
     run_stages(&[stage], &t, &out, manifest, quiet)
+}
+
+/// The run folder must hold a run of this trial: the same trial file (where both can be
+/// found) and the same trial name.
+fn same_trial(m: &Manifest, t: &Trial, out: &Path) -> Result<()> {
+    let same_file = match (
+        std::fs::canonicalize(&m.trial_file),
+        std::fs::canonicalize(&t.path),
+    ) {
+        (Ok(a), Ok(b)) => a == b,
+        _ => true,
+    };
+    let name = m.config["trial"]["name"].as_str().unwrap_or_default();
+    if !same_file || name != t.cfg.trial.name {
+        bail!(
+            "{} holds a run of trial file {} ({name:?}), not of {} ({:?}): give this trial its own --out, or use plotsieve run to start this folder over",
+            out.display(),
+            m.trial_file,
+            t.path.display(),
+            t.cfg.trial.name
+        );
+    }
+    Ok(())
+}
+
+/// The input files (exports, plots, design) must be those ingest read: a stage rerun on
+/// outputs made from other inputs would mix two versions of the data.
+fn unchanged_inputs(m: &Manifest, t: &Trial) -> Result<()> {
+    let now = hash_inputs(t)?;
+    let trial_file = now.first().map(|h| h.path.clone()).unwrap_or_default();
+    let before: BTreeMap<&str, &str> = m
+        .inputs
+        .iter()
+        .skip(1)
+        .map(|h| (h.path.as_str(), h.sha256.as_str()))
+        .collect();
+    let after: BTreeMap<&str, &str> = now
+        .iter()
+        .filter(|h| h.path != trial_file)
+        .map(|h| (h.path.as_str(), h.sha256.as_str()))
+        .collect();
+    let mut changed = Vec::new();
+    for (p, h) in &after {
+        match before.get(p) {
+            Some(b) if b == h => {}
+            Some(_) => changed.push(format!("{p} (changed)")),
+            None => changed.push(format!("{p} (new)")),
+        }
+    }
+    for p in before.keys().filter(|p| !after.contains_key(*p)) {
+        changed.push(format!("{p} (gone)"));
+    }
+    if !changed.is_empty() {
+        bail!(
+            "the inputs differ from those stage ingest read: {}; rerun from stage ingest (plotsieve run) to use them",
+            changed.join(", ")
+        );
+    }
+    Ok(())
 }
 
 /// `plotsieve check`.

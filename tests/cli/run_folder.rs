@@ -244,3 +244,94 @@ fn missing_upstream_output_says_which_stage_to_run() {
         String::from_utf8_lossy(&o.stderr)
     );
 }
+
+#[test]
+fn a_run_folder_never_shows_outputs_that_no_longer_hold() {
+    let w = Workdir::new("honest");
+    let a = simulate(&w, "a", &["--seed", "4"]);
+    let b = simulate(&w, "b", &["--seed", "6"]);
+    let (a, b) = (a.to_str().unwrap(), b.to_str().unwrap());
+    // Without --out, trial files of the same name in different folders get their own
+    // run folders.
+    ok(&plotsieve(&w.0, &["run", a, "--quiet"]));
+    ok(&plotsieve(&w.0, &["run", b, "--quiet"]));
+    let run_a = w.path("runs/a-trial");
+    assert!(run_a.join("5-report/report.html").exists());
+    assert!(w.path("runs/b-trial/5-report/report.html").exists());
+    // A stage that fails removes its own outputs and every later stage's, and the
+    // manifest says which failed and why.
+    let o = plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "adjust",
+            a,
+            "--out",
+            "runs/a-trial",
+            "--quiet",
+            "--set",
+            "adjust.plot_table=\"nope.csv\"",
+        ],
+    );
+    assert_eq!(o.status.code(), Some(1));
+    for gone in ["4-adjust", "5-report"] {
+        assert!(
+            !run_a.join(gone).exists(),
+            "{gone} must not survive a failed rerun"
+        );
+    }
+    assert!(
+        run_a.join("3-plots/plots.csv").exists(),
+        "upstream outputs stay"
+    );
+    let m = json(&run_a.join("manifest.json"));
+    assert_eq!(m["stages"]["adjust"]["status"], "failed");
+    assert!(
+        m["stages"]["adjust"]["error"]
+            .as_str()
+            .unwrap()
+            .contains("nope.csv"),
+        "{m}"
+    );
+    assert_eq!(m["stages"]["report"]["status"], "stale");
+    assert_eq!(m["stages"]["plots"]["status"], "done");
+    let o = plotsieve(
+        &w.0,
+        &["stage", "report", a, "--out", "runs/a-trial", "--quiet"],
+    );
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        String::from_utf8_lossy(&o.stderr).contains("which is failed: rerun stage adjust first"),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    // Another trial's file in this run folder is refused.
+    let o = plotsieve(
+        &w.0,
+        &["stage", "clean", b, "--out", "runs/a-trial", "--quiet"],
+    );
+    assert_eq!(o.status.code(), Some(1));
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(e.contains("holds a run of trial file"), "{e}");
+    // Inputs changed since ingest read them: a later stage refuses to mix the two.
+    let design = w.path("a/design.csv");
+    let mut text = std::fs::read_to_string(&design).unwrap();
+    text.push('\n');
+    std::fs::write(&design, text).unwrap();
+    let o = plotsieve(
+        &w.0,
+        &["stage", "clean", a, "--out", "runs/a-trial", "--quiet"],
+    );
+    assert_eq!(o.status.code(), Some(1));
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("design.csv (changed)") && e.contains("rerun from stage ingest"),
+        "{e}"
+    );
+    // A full run starts over and ends clean.
+    ok(&plotsieve(&w.0, &["run", a, "--quiet"]));
+    let m = json(&run_a.join("manifest.json"));
+    for s in ["ingest", "clean", "plots", "adjust", "report"] {
+        assert_eq!(m["stages"][s]["status"], "done", "{s}");
+    }
+}
