@@ -286,7 +286,10 @@ pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
     touched.sort();
     for &k in &touched {
         let t = &trials[k];
-        run::run_all(&t.file, Some(t.out.clone()), &[], true)
+        // Mid-harvest, a field whose exports have not arrived yet has no data: the rerun is
+        // a provisional result without it (each such field a warning), not an error.
+        let provisional = ["adjust.allow_missing_fields=true".to_string()];
+        run::run_all(&t.file, Some(t.out.clone()), &provisional, true)
             .with_context(|| format!("rerunning {}", t.key))?;
         lines.push(format!("reran {} into {}", t.key, t.out.display()));
     }

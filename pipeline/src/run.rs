@@ -113,6 +113,22 @@ fn clear_stage(out: &Path, stage: Stage) -> Result<()> {
     Ok(())
 }
 
+/// Temporary files a killed write left in the run folder (`.NAME.PID.tmp`, see
+/// `io::write_atomic`); stage folders go as a whole when their stage reruns.
+fn remove_stale_temporaries(out: &Path) -> Result<()> {
+    let Ok(entries) = std::fs::read_dir(out) else {
+        return Ok(());
+    };
+    for e in entries.flatten() {
+        let name = e.file_name().to_string_lossy().to_string();
+        if name.starts_with('.') && name.ends_with(".tmp") && e.path().is_file() {
+            std::fs::remove_file(e.path())
+                .with_context(|| format!("removing {}", e.path().display()))?;
+        }
+    }
+    Ok(())
+}
+
 /// A manifest record for a stage that has not finished.
 fn unfinished(status: &str, error: String) -> StageRecord {
     StageRecord {
@@ -230,6 +246,7 @@ fn run_stages(
     mut manifest: Manifest,
     quiet: bool,
 ) -> Result<()> {
+    remove_stale_temporaries(out)?;
     let (_mp, pb, inner) = progress(stages.len() as u64, quiet);
     let bar = inner.clone();
     let report = Progress::new(move |e| match e {
@@ -273,6 +290,10 @@ fn run_stages(
                 return Err(e);
             }
         };
+        // Warnings are said on the terminal too, --quiet or not.
+        for w in summary.warnings() {
+            eprintln!("warning: stage {}: {w}", stage.name());
+        }
         manifest.stages.insert(
             stage.name().into(),
             StageRecord {

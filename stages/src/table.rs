@@ -101,6 +101,21 @@ pub struct PlotCounts {
 }
 
 impl StageSummary {
+    /// The stage's warnings (`details.warnings`): something that drops out of a result or
+    /// looks wrong, said in full with where it came from.
+    pub fn warnings(&self) -> Vec<String> {
+        self.details
+            .get("warnings")
+            .and_then(|w| serde_json::from_value(w.clone()).ok())
+            .unwrap_or_default()
+    }
+
+    /// Set `details.warnings` (always present, empty when all is well).
+    pub fn set_warnings(&mut self, warnings: &[String]) {
+        self.details
+            .insert("warnings".into(), serde_json::json!(warnings));
+    }
+
     /// A summary whose counts are derived from the rejection rows.
     pub fn from_rejections(
         stage: &str,

@@ -14,3 +14,4 @@ mod intake;
 mod report;
 mod run_folder;
 mod settings;
+mod warnings;

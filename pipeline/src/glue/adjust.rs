@@ -3,7 +3,7 @@
 
 use super::{read_plots, write_stage_tables, Ctx};
 use crate::io;
-use anyhow::Result;
+use anyhow::{bail, Result};
 use plotsieve_stages::adjust;
 use plotsieve_stages::table::{Rejection, StageSummary};
 
@@ -30,7 +30,21 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let s = cfg
         .adjust
         .checked(&cfg.trial.check, unit.from_kg_ha(1000.0, crop));
-    let o = adjust::run_with(&plots, &s, progress)?;
+    let mut o = adjust::run_with(&plots, &s, progress)?;
+    if !o.missing_fields.is_empty() {
+        if !cfg.adjust.allow_missing_fields {
+            bail!(
+                "{} of the trial's fields cannot be in the result, so the pooled rows would come from the other fields only:\n  {}\nfix those fields' inputs, or set adjust.allow_missing_fields = true to accept a result without them",
+                o.missing_fields.len(),
+                o.missing_fields.join("\n  ")
+            );
+        }
+        for m in &o.missing_fields {
+            o.warnings.push(format!(
+                "missing from the pooled rows (adjust.allow_missing_fields = true): {m}"
+            ));
+        }
+    }
     io::write_table(&dir.join("adjusted_plots.csv"), &o.plots, unit.suffix())?;
     io::write_table(&dir.join("treatments.csv"), &o.treatments, unit.suffix())?;
     io::write_table(&dir.join("hyperparameters.csv"), &o.hyper, unit.suffix())?;
@@ -53,9 +67,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .collect();
     let kept_in = plots.iter().filter(|p| p.status == "kept").count() as u64;
     let mut summary = StageSummary::from_rejections("adjust", "plots", kept_in, &rejections);
-    summary
-        .details
-        .insert("warnings".into(), serde_json::json!(o.warnings));
+    summary.set_warnings(&o.warnings);
     if o.joint_ess.is_finite() {
         summary.details.insert(
             "joint_effective_draws".into(),

@@ -28,11 +28,16 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         unit.suffix(),
         ADJUST_FIRST,
     )?;
-    let warnings: Vec<String> = summaries[3]
-        .details
-        .get("warnings")
-        .and_then(|w| serde_json::from_value(w.clone()).ok())
-        .unwrap_or_default();
+    // Every stage's warnings, at the top of both reports.
+    let warnings: Vec<String> = summaries
+        .iter()
+        .flat_map(|x| {
+            let stage = x.stage.clone();
+            x.warnings()
+                .into_iter()
+                .map(move |w| format!("{stage}: {w}"))
+        })
+        .collect();
     let md = report::markdown(&report::ReportInput {
         trial_name: &cfg.trial.name,
         unit_label: unit.label(),

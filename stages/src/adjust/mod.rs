@@ -96,6 +96,55 @@ pub enum AdjustError {
     NothingToFit(Vec<String>),
 }
 
+/// "field F: no kept plot (...)" for each field of `plots` that has none.
+fn no_kept_plot(plots: &[PlotStats], kept: &BTreeMap<&str, Vec<&PlotStats>>) -> Vec<String> {
+    let mut set_aside: BTreeMap<&str, BTreeMap<&str, u64>> = BTreeMap::new();
+    for p in plots
+        .iter()
+        .filter(|p| !kept.contains_key(p.field.as_str()))
+    {
+        let why = if p.status == "kept" {
+            "no yield"
+        } else {
+            p.reason.as_str()
+        };
+        *set_aside
+            .entry(p.field.as_str())
+            .or_default()
+            .entry(why)
+            .or_default() += 1;
+    }
+    set_aside
+        .into_iter()
+        .map(|(f, why)| {
+            let n: u64 = why.values().sum();
+            let why: Vec<String> = why.iter().map(|(r, k)| format!("{r}: {k}")).collect();
+            format!(
+                "field {f}: no kept plot (all {n} set aside in the plots stage; {})",
+                why.join(", ")
+            )
+        })
+        .collect()
+}
+
+/// Fields of `plots` that are not among the fitted ones, each with the warning that says
+/// why (or a plain note when there is none).
+fn missing_fields(plots: &[PlotStats], out: &AdjustOutput) -> Vec<String> {
+    let fitted: BTreeSet<&str> = out.hyper.iter().map(|h| h.field.as_str()).collect();
+    let all: BTreeSet<&str> = plots.iter().map(|p| p.field.as_str()).collect();
+    all.into_iter()
+        .filter(|f| !fitted.contains(f))
+        .map(|f| {
+            let head = format!("field {f}:");
+            out.warnings
+                .iter()
+                .find(|w| w.starts_with(&head))
+                .cloned()
+                .unwrap_or_else(|| format!("field {f}: not fitted"))
+        })
+        .collect()
+}
+
 /// Run adjust on the kept plots.
 pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustError> {
     run_with(plots, s, &crate::progress::Progress::none())
@@ -115,7 +164,8 @@ pub fn run_with(
     {
         by_field.entry(&p.field).or_default().push(p);
     }
-    let mut warnings = Vec::new();
+    // Fields with no kept plot never reach a fit; say so rather than let them vanish.
+    let mut warnings: Vec<String> = no_kept_plot(plots, &by_field);
     let mut preps: Vec<Prepared> = Vec::new();
     for (f, ps) in by_field {
         match prepare(f, ps, s) {
@@ -170,6 +220,7 @@ pub fn run_with(
         treatments: Vec::new(),
         hyper: Vec::new(),
         warnings,
+        missing_fields: Vec::new(),
         joint_ess: f64::NAN,
     };
     // Fields that failed their own fit leave the joint fit too.
@@ -375,6 +426,7 @@ pub fn run_with(
             }
         }
     }
+    out.missing_fields = missing_fields(plots, &out);
     Ok(out)
 }
 

@@ -139,6 +139,9 @@ pub struct AdjustOutput {
     pub treatments: Vec<TreatmentRow>,
     pub hyper: Vec<FieldHyper>,
     pub warnings: Vec<String>,
+    /// Fields of the input that are not in the result, each with why (the pooled rows come
+    /// from the other fields only).
+    pub missing_fields: Vec<String>,
     /// Effective sample size of the joint importance draws (NaN without a joint fit).
     pub joint_ess: f64,
 }

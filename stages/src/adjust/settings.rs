@@ -82,6 +82,9 @@ pub struct AdjustSettings {
     pub grain_price_per_t: f64,
     pub product_cost_per_ha: BTreeMap<String, f64>,
     pub plot_table: String,
+    /// Accept a result from which a field is missing (its plots all set aside, or it cannot
+    /// be fitted); otherwise that is an error.
+    pub allow_missing_fields: bool,
     pub row_spacing_m: f64,
     pub range_spacing_m: f64,
 }

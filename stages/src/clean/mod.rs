@@ -265,11 +265,52 @@ pub fn run_with(
     summary
         .details
         .insert("disabled_rules".into(), serde_json::json!(s.disabled_rules));
+    let warnings = export_warnings(points, &summary, s.warn_rule_share);
+    summary.set_warnings(&warnings);
     CleanOutput {
         points: kept,
         rejections,
         summary,
     }
+}
+
+/// Exports that lost every point, or more than `share` of them to one rule.
+fn export_warnings(points: &PointSet, summary: &StageSummary, share: f64) -> Vec<String> {
+    let mut n_per_file: BTreeMap<&str, u64> = BTreeMap::new();
+    for p in &points.points {
+        *n_per_file
+            .entry(points.files[p.file as usize].as_str())
+            .or_default() += 1;
+    }
+    let mut out = Vec::new();
+    for (f, n) in n_per_file {
+        let Some(by) = summary.by_file.get(f) else {
+            continue;
+        };
+        let removed: u64 = by.values().sum();
+        let listed = || {
+            by.iter()
+                .map(|(r, k)| format!("{r}: {k}"))
+                .collect::<Vec<_>>()
+                .join(", ")
+        };
+        if removed == n {
+            out.push(format!(
+                "export {f}: all {n} points removed ({}); it contributes nothing",
+                listed()
+            ));
+            continue;
+        }
+        for (rule, k) in by {
+            if *k as f64 > share * n as f64 {
+                out.push(format!(
+                    "export {f}: rule {rule} removed {k} of its {n} points ({:.0} %, above clean.warn_rule_share = {share})",
+                    100.0 * *k as f64 / n as f64
+                ));
+            }
+        }
+    }
+    out
 }
 
 #[cfg(test)]

@@ -111,6 +111,8 @@ pub struct CleanSettings {
     pub flow_delay_s: f64,
     pub moisture_delay_s: f64,
     pub disabled_rules: Vec<String>,
+    /// Warn when one rule removes more than this share of an export's points.
+    pub warn_rule_share: f64,
     pub delay: DelaySettings,
     pub pass: PassSettings,
     pub speed: SpeedSettings,
@@ -249,6 +251,12 @@ impl CleanSettings {
             if v > 1.0 {
                 p.push(format!("{k} must be at most 1 (got {v})"));
             }
+        }
+        if !(0.0..=1.0).contains(&c.warn_rule_share) {
+            p.push(format!(
+                "clean.warn_rule_share must be between 0 and 1 (got {})",
+                c.warn_rule_share
+            ));
         }
         if c.swath.min_fraction > 1.0 {
             p.push(format!(

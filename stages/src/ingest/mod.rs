@@ -156,6 +156,32 @@ pub fn choose_projection(
     Ok(Utm::new(zone, south)?)
 }
 
+/// "export X: none of its N rows could be read (...)" for each export with no usable row.
+fn unread_exports(
+    names: &[String],
+    raw: &[formats::RawPoint],
+    rejections: &[Rejection],
+) -> Vec<String> {
+    let mut read = vec![0u64; names.len()];
+    for r in raw {
+        read[r.file as usize] += 1;
+    }
+    let mut out = Vec::new();
+    for (_, name) in names.iter().enumerate().filter(|(i, _)| read[*i] == 0) {
+        let mut by: std::collections::BTreeMap<&str, u64> = Default::default();
+        for r in rejections.iter().filter(|r| &r.source_file == name) {
+            *by.entry(r.rule.as_str()).or_default() += 1;
+        }
+        let n: u64 = by.values().sum();
+        let why: Vec<String> = by.iter().map(|(r, k)| format!("{r}: {k}")).collect();
+        out.push(format!(
+            "export {name}: none of its {n} rows could be read ({}); it contributes nothing",
+            why.join(", ")
+        ));
+    }
+    out
+}
+
 /// Run ingest.
 pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> {
     run_with(cfg, base, &crate::progress::Progress::none())
@@ -251,7 +277,8 @@ pub fn run_with(
     } else {
         "[[layout]]".to_string()
     };
-    let (polygons, design, warnings) = reconcile(cfg, &plots_name, polygons, design)?;
+    let (polygons, design, mut warnings) = reconcile(cfg, &plots_name, polygons, design)?;
+    warnings.extend(unread_exports(&names, &raw, &rejections));
     let mut summary = StageSummary::from_rejections("ingest", "points", count_in, &rejections);
     summary
         .details

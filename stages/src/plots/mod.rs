@@ -486,6 +486,8 @@ pub fn run(
         "points_per_export_and_field".into(),
         serde_json::json!(export_fields),
     );
+    let warnings = dropped_out(&plots, points, files, &export_fields, &summary);
+    summary.set_warnings(&warnings);
     summary.plots = Some(plot_counts);
     PlotsOutput {
         assignment,
@@ -493,6 +495,55 @@ pub fn run(
         rejections,
         summary,
     }
+}
+
+/// Fields whose every plot was set aside, and exports none of whose clean points reached a
+/// plot: both drop out of everything after this stage.
+fn dropped_out(
+    plots: &[PlotStats],
+    points: &[CleanPoint],
+    files: &[String],
+    export_fields: &BTreeMap<String, BTreeMap<String, u64>>,
+    summary: &StageSummary,
+) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut fields: BTreeMap<&str, (u64, BTreeMap<&str, u64>)> = BTreeMap::new();
+    for p in plots {
+        let e = fields.entry(p.field.as_str()).or_default();
+        e.0 += 1;
+        if p.status != "kept" {
+            *e.1.entry(p.reason.as_str()).or_default() += 1;
+        }
+    }
+    for (f, (n, reasons)) in fields {
+        if reasons.values().sum::<u64>() == n {
+            let why: Vec<String> = reasons.iter().map(|(r, k)| format!("{r}: {k}")).collect();
+            out.push(format!(
+                "field {f}: all {n} plots set aside ({}); the field drops out of the adjustment",
+                why.join(", ")
+            ));
+        }
+    }
+    let mut clean_per_file: BTreeMap<&str, u64> = BTreeMap::new();
+    for p in points {
+        *clean_per_file
+            .entry(files[p.base.file as usize].as_str())
+            .or_default() += 1;
+    }
+    for (f, n) in clean_per_file {
+        if !export_fields.contains_key(f) {
+            let why: Vec<String> = summary
+                .by_file
+                .get(f)
+                .map(|m| m.iter().map(|(r, k)| format!("{r}: {k}")).collect())
+                .unwrap_or_default();
+            out.push(format!(
+                "export {f}: none of its {n} clean points is used in a plot ({}); check its coordinates against the plots",
+                why.join(", ")
+            ));
+        }
+    }
+    out
 }
 
 #[cfg(test)]

@@ -218,6 +218,13 @@ pub fn render(r: &HtmlInput) -> String {
         "<aside class=\"caution\"><strong>Caution.</strong> {}</aside>",
         esc(super::CAUTION)
     );
+    if !r.warnings.is_empty() {
+        let _ = write!(s, "<section class=\"warnings\"><h2>Warnings</h2><ul>");
+        for w in r.warnings {
+            let _ = write!(s, "<li><strong>{}</strong></li>", esc(w));
+        }
+        let _ = write!(s, "</ul></section>");
+    }
     // Counts per stage.
     let _ = write!(s, "<section><h2>Points and plots through the stages</h2><table><thead><tr><th>stage</th><th>counted</th><th>in</th><th>kept</th><th>rejected</th></tr></thead><tbody>");
     for x in r.summaries {
@@ -579,13 +586,6 @@ pub fn render(r: &HtmlInput) -> String {
         let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td></tr>", esc(&c.field), fmt(c.log_ml_spatial, 2), fmt(c.log_ml_rcbd, 2), fmt(c.efficiency, 2), fmt(c.moran_rcbd, 3), fmt(c.moran_spatial, 3), esc(&c.rank_changes.join(", ")));
     }
     let _ = write!(s, "</tbody></table></section>");
-    if !r.warnings.is_empty() {
-        let _ = write!(s, "<section><h2>Warnings</h2><ul>");
-        for w in r.warnings {
-            let _ = write!(s, "<li>{}</li>", esc(w));
-        }
-        let _ = write!(s, "</ul></section>");
-    }
     let _ = write!(
         s,
         "<footer><p>{}</p></footer></body></html>\n",

@@ -49,6 +49,13 @@ pub fn markdown(r: &ReportInput) -> String {
     let mut s = String::new();
     let _ = writeln!(s, "# plotsieve report: {}\n", r.trial_name);
     let _ = writeln!(s, "> **Caution.** {CAUTION}\n");
+    if !r.warnings.is_empty() {
+        let _ = writeln!(s, "## Warnings\n");
+        for w in r.warnings {
+            let _ = writeln!(s, "- **{w}**");
+        }
+        let _ = writeln!(s);
+    }
     let _ = writeln!(s, "## Points and plots per stage\n");
     let _ = writeln!(s, "| stage | counted | in | kept | rejected |");
     let _ = writeln!(s, "|---|---|---:|---:|---:|");
@@ -146,12 +153,6 @@ pub fn markdown(r: &ReportInput) -> String {
             prior,
             p
         );
-    }
-    if !r.warnings.is_empty() {
-        let _ = writeln!(s, "\n## Warnings\n");
-        for w in r.warnings {
-            let _ = writeln!(s, "- {w}");
-        }
     }
     s
 }

@@ -1,0 +1,122 @@
+//! Nothing drops out silently: a field or export that drops out of a result is a warning on
+//! the terminal, in summary.json and at the top of both reports, and a field missing from the
+//! pooled result is an error unless the trial accepts it.
+
+use crate::common::*;
+
+/// Zero the mass flow of every record of one export (a dead sensor).
+fn kill_flow(path: &Path) {
+    let text = std::fs::read_to_string(path).unwrap();
+    let mut lines = text.lines();
+    let header = lines.next().unwrap().to_string();
+    let k = header
+        .split(',')
+        .position(|c| c == "mass_flow_lb_s")
+        .unwrap();
+    let mut out = vec![header];
+    for l in lines {
+        let mut f: Vec<&str> = l.split(',').collect();
+        f[k] = "0.0000";
+        out.push(f.join(","));
+    }
+    std::fs::write(path, out.join("\n") + "\n").unwrap();
+}
+
+#[test]
+fn a_field_that_drops_out_is_loud_and_stops_the_pooled_result() {
+    let w = Workdir::new("dropout");
+    let trial = simulate(&w, "t", &["--seed", "8"]);
+    let t = trial.to_str().unwrap();
+    kill_flow(&w.path("t/monitor/field-B.csv"));
+    let o = plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]);
+    assert_eq!(
+        o.status.code(),
+        Some(1),
+        "a field missing from the pooled rows is an error"
+    );
+    let e = String::from_utf8_lossy(&o.stderr);
+    for want in [
+        "warning: stage clean: export monitor/field-B.csv: all",
+        "warning: stage plots: field B: all 24 plots set aside (min_points: 24)",
+        "1 of the trial's fields cannot be in the result",
+        "field B: no kept plot",
+        "adjust.allow_missing_fields = true",
+    ] {
+        assert!(e.contains(want), "expected {want:?} in:\n{e}");
+    }
+    assert!(!w.path("run/4-adjust").exists() && !w.path("run/5-report").exists());
+    let clean = json(&w.path("run/2-clean/summary.json"));
+    assert!(clean["details"]["warnings"][0]
+        .as_str()
+        .unwrap()
+        .starts_with("export monitor/field-B.csv: all"));
+    // Accepted in the trial's settings: the result comes without field B, and says so at the
+    // top of both reports.
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            t,
+            "--out",
+            "run",
+            "--quiet",
+            "--set",
+            "adjust.allow_missing_fields=true",
+        ],
+    ));
+    let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
+    let warn = md.find("## Warnings").expect("a warnings section");
+    assert!(
+        warn < md.find("## Points and plots per stage").unwrap(),
+        "warnings first"
+    );
+    assert!(
+        md.contains("plots: field B: all 24 plots set aside"),
+        "{md}"
+    );
+    assert!(md.contains("missing from the pooled rows"), "{md}");
+    let html = std::fs::read_to_string(w.path("run/5-report/report.html")).unwrap();
+    let warn = html.find("<h2>Warnings</h2>").expect("a warnings section");
+    assert!(warn < html.find("Points and plots through the stages").unwrap());
+    let rows = csv_rows(&w.path("run/4-adjust/treatments.csv"));
+    assert!(rows.iter().all(|r| r["field"] != "B"));
+    // Both fields dead: the error names each field's cause.
+    kill_flow(&w.path("t/monitor/field-A.csv"));
+    let o = plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]);
+    assert_eq!(o.status.code(), Some(1));
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("no field could be adjusted")
+            && e.contains("field A: no kept plot")
+            && e.contains("field B: no kept plot"),
+        "{e}"
+    );
+}
+
+#[test]
+fn a_rule_that_takes_much_of_an_export_is_a_warning() {
+    let w = Workdir::new("share");
+    let trial = simulate(&w, "t", &["--seed", "9"]);
+    let t = trial.to_str().unwrap();
+    let o = plotsieve(
+        &w.0,
+        &[
+            "run",
+            t,
+            "--out",
+            "run",
+            "--quiet",
+            "--set",
+            "clean.speed.min_m_s=2.2",
+        ],
+    );
+    ok(&o);
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("warning: stage clean: export monitor/field-A.csv: rule speed_min removed")
+            && e.contains("above clean.warn_rule_share = 0.5"),
+        "{e}"
+    );
+    let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
+    assert!(md.contains("rule speed_min removed"));
+}
