@@ -258,3 +258,50 @@ fn grid_layout_replaces_a_boundary_file_and_stray_exports_are_far_from_trial() {
         .unwrap()
         .contains("G-999"));
 }
+
+#[test]
+fn broken_plot_polygons_are_refused_by_check_and_run_naming_the_plot() {
+    let w = Workdir::new("badplots");
+    let trial = simulate(&w, "t", &["--seed", "10"]);
+    let t = trial.to_str().unwrap();
+    let path = w.path("t/plots.geojson");
+    let mut g = json(&path);
+    let feats = g["features"].as_array_mut().unwrap();
+    let id = |f: &serde_json::Value| f["properties"]["plot_id"].as_str().unwrap().to_string();
+    let (bow, typo) = (id(&feats[3]), id(&feats[7]));
+    // A bow tie (two vertices swapped) and a mistyped longitude (-1 degree).
+    let ring = feats[3]["geometry"]["coordinates"][0]
+        .as_array_mut()
+        .unwrap();
+    ring.swap(1, 2);
+    feats[7]["geometry"]["coordinates"][0][2][0] = serde_json::json!(-1.0);
+    std::fs::write(&path, serde_json::to_string(&g).unwrap()).unwrap();
+    let o = plotsieve(&w.0, &["check", t]);
+    assert_eq!(o.status.code(), Some(1));
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains(&format!(
+            "plots.geojson: plot {bow}: its boundary crosses itself"
+        )),
+        "{out}"
+    );
+    assert!(
+        out.contains(&format!("plots.geojson: plot {typo}:")) && out.contains("likely mistyped"),
+        "{out}"
+    );
+    let o = plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]);
+    assert_eq!(o.status.code(), Some(1));
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("plot geometry is not usable") && e.contains(&bow) && e.contains(&typo),
+        "{e}"
+    );
+    assert!(
+        !w.path("run/1-ingest").exists(),
+        "nothing that looks like a result"
+    );
+    assert_eq!(
+        json(&w.path("run/manifest.json"))["stages"]["ingest"]["status"],
+        "failed"
+    );
+}

@@ -17,6 +17,7 @@
 pub mod design;
 pub mod formats;
 pub mod geojson;
+pub mod plot_checks;
 pub mod settings;
 pub mod time;
 
@@ -55,6 +56,8 @@ pub enum IngestError {
     },
     #[error("design and plot geometry do not match:\n  {}", .0.join("\n  "))]
     Mismatch(Vec<String>),
+    #[error("plot geometry is not usable:\n  {}", .0.join("\n  "))]
+    BadPlots(Vec<String>),
     #[error(transparent)]
     Projection(#[from] crate::projection::ProjectionError),
 }
@@ -216,6 +219,10 @@ pub fn run_with(
     } else {
         Vec::new()
     };
+    let bad = plot_checks::problems(&polygons_ll, &cfg.inputs.plots);
+    if !bad.is_empty() {
+        return Err(IngestError::BadPlots(bad));
+    }
     let lons: Vec<f64> = raw.iter().map(|r| r.lon).collect();
     let lats: Vec<f64> = raw.iter().map(|r| r.lat).collect();
     let (lons, lats) = if !lons.is_empty() {
@@ -358,6 +365,11 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
             "[[layout]]".to_string(),
         ))
     };
+    if let Ok((p, name)) = &polys {
+        if cfg.layout.is_empty() {
+            problems.extend(plot_checks::problems(p, name));
+        }
+    }
     match (polys, design) {
         (Ok((p, name)), Ok(d)) => match reconcile(cfg, &name, p, d) {
             Err(e) => problems.push(e.to_string()),
