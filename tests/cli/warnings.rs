@@ -120,3 +120,61 @@ fn a_rule_that_takes_much_of_an_export_is_a_warning() {
     let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
     assert!(md.contains("rule speed_min removed"));
 }
+
+#[test]
+fn degenerate_data_gives_no_confident_answer() {
+    let w = Workdir::new("degenerate");
+    let trial = simulate(&w, "t", &["--seed", "11"]);
+    let t = trial.to_str().unwrap();
+    ok(&plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]));
+    // A plot table whose yields differ only by rounding noise: no field can be fitted, and
+    // the error says why, rather than printing P(uplift > 0) near 1 for a few grams.
+    let plots = csv_rows(&w.path("run/3-plots/plots.csv"));
+    let mut table = String::from("plot_id,field,treatment,block,yield_t_ha,x_m,y_m\n");
+    for (k, p) in plots.iter().enumerate() {
+        table.push_str(&format!(
+            "{},{},{},{},{:.12},{},{}\n",
+            p["plot_id"],
+            p["field"],
+            p["treatment"],
+            p["block"],
+            10.0 + 1e-9 * ((k * 7919) % 13) as f64,
+            p["centroid_x_m"],
+            p["centroid_y_m"]
+        ));
+    }
+    std::fs::write(w.path("t/flat.csv"), table).unwrap();
+    let o = plotsieve(
+        &w.0,
+        &[
+            "stage",
+            "adjust",
+            t,
+            "--out",
+            "flat",
+            "--quiet",
+            "--set",
+            "adjust.plot_table=\"flat.csv\"",
+        ],
+    );
+    assert_eq!(o.status.code(), Some(1));
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(e.contains("field A: all plot yields are equal (SD"), "{e}");
+    assert!(!w.path("flat/4-adjust/treatments.csv").exists());
+    // A treatment name mistyped on one plot: a product on a single plot is flagged.
+    let design = w.path("t/design.csv");
+    let text = std::fs::read_to_string(&design).unwrap();
+    let mut lines: Vec<String> = text.lines().map(String::from).collect();
+    let k = lines.iter().position(|l| l.contains(",prod-a,")).unwrap();
+    lines[k] = lines[k].replace(",prod-a,", ",prod-aa,");
+    std::fs::write(&design, lines.join("\n") + "\n").unwrap();
+    let o = plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]);
+    ok(&o);
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("treatment prod-aa has a single kept plot"),
+        "{e}"
+    );
+    let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
+    assert!(md.contains("prod-aa has a single kept plot"));
+}

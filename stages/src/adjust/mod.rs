@@ -138,6 +138,7 @@ fn missing_fields(plots: &[PlotStats], out: &AdjustOutput) -> Vec<String> {
             let head = format!("field {f}:");
             out.warnings
                 .iter()
+                .rev()
                 .find(|w| w.starts_with(&head))
                 .cloned()
                 .unwrap_or_else(|| format!("field {f}: not fitted"))
@@ -175,6 +176,17 @@ pub fn run_with(
     }
     if preps.is_empty() {
         return Err(AdjustError::NothingToFit(warnings));
+    }
+    // A product on a single plot of a field: its contrast there rests on one plot.
+    for p in &preps {
+        for (t, n) in p.model.treatments.iter().zip(&p.counts) {
+            if *n == 1 {
+                warnings.push(format!(
+                    "field {}: treatment {t} has a single kept plot; its uplift there rests on that one plot (a typo in the design table?)",
+                    p.model.name
+                ));
+            }
+        }
     }
     let joint = s.pooling == Pooling::Joint && preps.len() > 1;
     let shared = joint && s.shared_range;
