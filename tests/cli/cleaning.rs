@@ -222,3 +222,43 @@ fn cleaning_removes_injected_artifacts_and_spares_clean_points() {
         }
     }
 }
+
+#[test]
+fn a_delay_at_the_edge_of_its_scan_is_a_warning_and_the_applied_delay_is_reported() {
+    let w = Workdir::new("delayedge");
+    let trial = simulate(&w, "t", &["--seed", "12", "--flow-delay", "12"]);
+    let t = trial.to_str().unwrap();
+    // A scan that stops at 5 s cannot reach the true 12 s: the estimate sits at its edge.
+    let o = plotsieve(
+        &w.0,
+        &[
+            "run",
+            t,
+            "--out",
+            "run",
+            "--quiet",
+            "--set",
+            "clean.delay.max_s=5",
+        ],
+    );
+    ok(&o);
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("warning: stage clean: export monitor/field-A.csv: the flow delay estimate 4.61 s sits at the edge of the scan (0-5 s)")
+            && e.contains("export monitor/field-B.csv: the flow delay estimate 5.00 s sits at the edge"),
+        "{e}"
+    );
+    // Both reports show the delay applied per export (not only the fallback setting).
+    let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
+    assert!(md.contains("## Delays applied per export"), "{md}");
+    assert!(
+        md.contains("| monitor/field-B.csv | 5.00 | estimated |"),
+        "{md}"
+    );
+    let html = std::fs::read_to_string(w.path("run/5-report/report.html")).unwrap();
+    assert!(html.contains("<h3>Delays applied per export</h3>"));
+    // With the default scan the estimate is inside it and there is no such warning.
+    let o = plotsieve(&w.0, &["run", t, "--out", "run2", "--quiet"]);
+    ok(&o);
+    assert!(!String::from_utf8_lossy(&o.stderr).contains("edge of the scan"));
+}

@@ -265,13 +265,82 @@ pub fn run_with(
     summary
         .details
         .insert("disabled_rules".into(), serde_json::json!(s.disabled_rules));
-    let warnings = export_warnings(points, &summary, s.warn_rule_share);
+    let mut warnings = export_warnings(points, &summary, s.warn_rule_share);
+    for (f, d) in &details {
+        warnings.extend(delay_warnings(f, d, s));
+    }
     summary.set_warnings(&warnings);
     CleanOutput {
         points: kept,
         rejections,
         summary,
     }
+}
+
+/// An estimated delay at the edge of its scan (the true delay may lie beyond it, or the
+/// export was already delay-corrected), or a fixed fallback where an estimate was asked for.
+fn delay_warnings(export: &str, d: &ExportDetails, s: &CleanSettings) -> Vec<String> {
+    let mut out = Vec::new();
+    if s.delay.mode != settings::DelayMode::Auto {
+        return out;
+    }
+    let (lo, hi) = (s.delay.min_s, s.delay.max_s);
+    // The coarse objective's minimum at the first or last candidate lag: the refinement may
+    // move the estimate a little inside, but the scan did not bracket a minimum.
+    let at_edge = |e: &Option<delay::DelayEstimate>, lag: f64| match e {
+        Some(e) if !e.curve.is_empty() => {
+            let k = e
+                .curve
+                .iter()
+                .enumerate()
+                .min_by(|a, b| a.1 .1.total_cmp(&b.1 .1))
+                .map(|(k, _)| k)
+                .unwrap_or(0);
+            k == 0 || k + 1 == e.curve.len()
+        }
+        _ => lag <= lo + 1e-9 || lag >= hi - 1e-9,
+    };
+    let (flow_edge, moisture_edge) = (
+        at_edge(&d.flow_delay_estimate, d.flow_delay_s),
+        at_edge(&d.moisture_delay_estimate, d.moisture_delay_s),
+    );
+    let mut check = |what: &str, lag: f64, source: &str, fixed_key: &str, asked: bool| {
+        if !asked {
+            return;
+        }
+        let edge = if what == "flow" {
+            flow_edge
+        } else {
+            moisture_edge
+        };
+        if source == "estimated" {
+            if edge {
+                out.push(format!(
+                    "export {export}: the {what} delay estimate {lag:.2} s sits at the edge of the scan ({lo}-{hi} s): the true delay may lie outside it, or the export is already delay-corrected; check it, or set clean.delay.mode = \"fixed\""
+                ));
+            }
+        } else {
+            out.push(format!(
+                "export {export}: the {what} delay could not be estimated ({}); the fixed {fixed_key} = {lag} s was applied",
+                source.trim_start_matches("fixed (").trim_end_matches(')')
+            ));
+        }
+    };
+    check(
+        "flow",
+        d.flow_delay_s,
+        &d.flow_delay_source,
+        "clean.flow_delay_s",
+        true,
+    );
+    check(
+        "moisture",
+        d.moisture_delay_s,
+        &d.moisture_delay_source,
+        "clean.moisture_delay_s",
+        s.delay.estimate_moisture,
+    );
+    out
 }
 
 /// Exports that lost every point, or more than `share` of them to one rule.

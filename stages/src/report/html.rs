@@ -270,7 +270,18 @@ pub fn render(r: &HtmlInput) -> String {
             let _ = write!(s, "</tbody></table>");
         }
     }
-    let _ = write!(s, "<h3>Thresholds used</h3>");
+    let delays = super::delays_applied(r.summaries);
+    if !delays.is_empty() {
+        let _ = write!(s, "<h3>Delays applied per export</h3><table><thead><tr><th>export</th><th>flow delay (s)</th><th>how</th><th>moisture delay (s)</th><th>how</th></tr></thead><tbody>");
+        for d in &delays {
+            let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td class=\"n\">{}</td><td>{}</td></tr>", esc(&d.export), esc(&d.flow_s), esc(&d.flow_source), esc(&d.moisture_s), esc(&d.moisture_source));
+        }
+        let _ = write!(s, "</tbody></table>");
+    }
+    let _ = write!(
+        s,
+        "<h3>Thresholds used (the delays above are the ones applied)</h3>"
+    );
     for (stage, v) in r.settings {
         let _ = write!(
             s,

@@ -86,6 +86,22 @@ pub fn markdown(r: &ReportInput) -> String {
             }
         }
     }
+    let delays = delays_applied(r.summaries);
+    if !delays.is_empty() {
+        let _ = writeln!(s, "\n## Delays applied per export\n");
+        let _ = writeln!(
+            s,
+            "| export | flow delay (s) | how | moisture delay (s) | how |"
+        );
+        let _ = writeln!(s, "|---|---:|---|---:|---|");
+        for d in &delays {
+            let _ = writeln!(
+                s,
+                "| {} | {} | {} | {} | {} |",
+                d.export, d.flow_s, d.flow_source, d.moisture_s, d.moisture_source
+            );
+        }
+    }
     let _ = writeln!(s, "\n## Spatial model per field\n");
     let _ = writeln!(s, "Posterior means with 95 % intervals; row `all` of a joint fit holds the shared range and the SD of the treatment x field interaction.\n");
     let _ = writeln!(
@@ -156,6 +172,44 @@ pub fn markdown(r: &ReportInput) -> String {
     }
     s
 }
+/// The flow and moisture delays clean applied to one export, and how each was chosen.
+pub(crate) struct DelayApplied {
+    pub export: String,
+    pub flow_s: String,
+    pub flow_source: String,
+    pub moisture_s: String,
+    pub moisture_source: String,
+}
+
+/// The delays applied per export, from clean's summary (`details.exports`).
+pub(crate) fn delays_applied(summaries: &[StageSummary]) -> Vec<DelayApplied> {
+    let Some(exports) = summaries
+        .iter()
+        .find(|x| x.stage == "clean")
+        .and_then(|x| x.details.get("exports"))
+        .and_then(|e| e.as_object())
+    else {
+        return Vec::new();
+    };
+    let text = |v: &serde_json::Value, k: &str| -> String {
+        match &v[k] {
+            serde_json::Value::Number(n) => fmt(n.as_f64().unwrap_or(f64::NAN), 2),
+            serde_json::Value::String(t) => t.clone(),
+            _ => String::new(),
+        }
+    };
+    exports
+        .iter()
+        .map(|(export, v)| DelayApplied {
+            export: export.clone(),
+            flow_s: text(v, "flow_delay_s"),
+            flow_source: text(v, "flow_delay_source"),
+            moisture_s: text(v, "moisture_delay_s"),
+            moisture_source: text(v, "moisture_delay_source"),
+        })
+        .collect()
+}
+
 /// "mean (lo to hi)" with `k` decimals, empty for NaN.
 pub(crate) fn mean_interval(m: f64, lo: f64, hi: f64, k: usize) -> String {
     if m.is_nan() {
