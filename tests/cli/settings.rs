@@ -84,3 +84,51 @@ fn bad_settings_name_the_key() {
     }
     assert!(!w.path("run").exists(), "a bad setting writes nothing");
 }
+
+#[test]
+fn check_reads_every_export_as_run_would() {
+    let w = Workdir::new("dryrun");
+    let trial = simulate(&w, "t", &["--seed", "13"]);
+    let t = trial.to_str().unwrap();
+    let mon = w.path("t/monitor");
+    let a: Vec<String> = std::fs::read_to_string(mon.join("field-A.csv"))
+        .unwrap()
+        .lines()
+        .map(String::from)
+        .collect();
+    // A header-only export, an export with lon and lat swapped, an export from 1 degree
+    // east (another place), and a treatment name mistyped on one plot.
+    std::fs::write(mon.join("header-only.csv"), format!("{}\n", a[0])).unwrap();
+    let swapped = a[0]
+        .replace("lon_deg", "TMP")
+        .replace("lat_deg", "lon_deg")
+        .replace("TMP", "lat_deg");
+    let mut b = vec![swapped];
+    b.extend(a[1..].iter().cloned());
+    std::fs::write(mon.join("swapped.csv"), b.join("\n") + "\n").unwrap();
+    std::fs::write(
+        mon.join("elsewhere.csv"),
+        shift_east(&a, 1.0).join("\n") + "\n",
+    )
+    .unwrap();
+    let design = w.path("t/design.csv");
+    let text = std::fs::read_to_string(&design).unwrap();
+    let mut lines: Vec<String> = text.lines().map(String::from).collect();
+    let k = lines.iter().position(|l| l.contains(",prod-b,")).unwrap();
+    lines[k] = lines[k].replace(",prod-b,", ",prod-bb,");
+    std::fs::write(&design, lines.join("\n") + "\n").unwrap();
+    let o = plotsieve(&w.0, &["check", t]);
+    assert_eq!(o.status.code(), Some(1));
+    let out = String::from_utf8_lossy(&o.stdout);
+    for want in [
+        "problem: monitor/header-only.csv: no data rows after the header",
+        "problem: export monitor/swapped.csv: none of its",
+        "coordinate_range",
+        "problem: monitor/elsewhere.csv: none of its",
+        "lies within plots.far_m = 100 m of the plots",
+        "warning: field A: treatment prod-bb has a single plot in the design",
+    ] {
+        assert!(out.contains(want), "expected {want:?} in:\n{out}");
+    }
+    assert!(!w.path("runs").exists(), "check writes nothing");
+}

@@ -18,6 +18,8 @@ pub mod design;
 pub mod formats;
 pub mod geojson;
 pub mod plot_checks;
+#[cfg(test)]
+mod robustness;
 pub mod settings;
 pub mod time;
 
@@ -330,19 +332,89 @@ fn project_polygons(utm: &Utm, polys: Vec<PlotPolygon>) -> Result<Vec<PlotPolygo
         .collect()
 }
 
+/// Exports none of whose readable points lies within `far_m` of the plots' extent (lon/lat
+/// swapped, projected coordinates read as degrees, another trial's export).
+fn far_exports(
+    exports: &[(String, u64, Vec<(f64, f64)>)],
+    polys: &[PlotPolygon],
+    far_m: f64,
+) -> Vec<String> {
+    let (mut a, mut b, mut c, mut d) = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
+    for (lon, lat) in polys.iter().flat_map(|p| p.exterior.iter()) {
+        a = a.min(*lon);
+        b = b.min(*lat);
+        c = c.max(*lon);
+        d = d.max(*lat);
+    }
+    // Degrees of latitude and longitude that far_m spans at the plots (111,195 m per degree).
+    let dlat = far_m / 111_195.0;
+    let dlon = dlat / (0.5 * (b + d)).to_radians().cos().max(0.01);
+    let mut out = Vec::new();
+    for (name, _, pos) in exports.iter().filter(|e| !e.2.is_empty()) {
+        let near = pos
+            .iter()
+            .filter(|(lon, lat)| {
+                *lon >= a - dlon && *lon <= c + dlon && *lat >= b - dlat && *lat <= d + dlat
+            })
+            .count();
+        if near == 0 {
+            out.push(format!(
+                "{name}: none of its {} readable points lies within plots.far_m = {far_m} m of the plots (lon/lat swapped, projected coordinates, or another trial's export?)",
+                pos.len()
+            ));
+        }
+    }
+    out
+}
+
+/// "field F: treatment T has a single plot" for each such pair of the design table.
+fn single_plot_treatments(design: &[DesignRow]) -> Vec<String> {
+    let mut n: std::collections::BTreeMap<(&str, &str), u64> = Default::default();
+    for r in design {
+        *n.entry((r.field.as_str(), r.treatment.as_str()))
+            .or_default() += 1;
+    }
+    n.into_iter()
+        .filter(|(_, k)| *k == 1)
+        .map(|((f, t), _)| {
+            format!(
+                "field {f}: treatment {t} has a single plot in the design (a typo in its name?)"
+            )
+        })
+        .collect()
+}
+
 /// Everything `plotsieve check` can find without writing: returns every problem.
 pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
     let mut problems = Vec::new();
     if let Err(e) = cfg.crop() {
         problems.push(e.to_string());
     }
+    // Every export is read in full, as run would: (name, rows, WGS84 positions read).
+    let mut exports: Vec<(String, u64, Vec<(f64, f64)>)> = Vec::new();
     match monitor_files(cfg, base) {
         Err(e) => problems.push(e.to_string()),
         Ok(files) => {
-            for p in files {
-                let name = display(base, &p);
-                if let Err(e) = formats::for_file(&p).check(cfg, &p, &name) {
+            for (i, p) in files.iter().enumerate() {
+                let name = display(base, p);
+                let format = formats::for_file(p);
+                if let Err(e) = format.check(cfg, p, &name) {
                     problems.push(e);
+                    continue;
+                }
+                match format.read(cfg, p, &name, i as u32) {
+                    Err(e) => problems.push(e.to_string()),
+                    Ok(read) => {
+                        if read.points.is_empty() {
+                            problems.extend(unread_exports(
+                                std::slice::from_ref(&name),
+                                &[],
+                                &read.rejections,
+                            ));
+                        }
+                        let pos = read.points.iter().map(|r| (r.lon, r.lat)).collect();
+                        exports.push((name, read.rows, pos));
+                    }
                 }
             }
         }
@@ -368,7 +440,15 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
     if let Ok((p, name)) = &polys {
         if cfg.layout.is_empty() {
             problems.extend(plot_checks::problems(p, name));
+            problems.extend(far_exports(&exports, p, cfg.plots.far_m));
         }
+    }
+    if let Ok(d) = &design {
+        problems.extend(
+            single_plot_treatments(d)
+                .into_iter()
+                .map(|w| format!("warning: {w}")),
+        );
     }
     match (polys, design) {
         (Ok((p, name)), Ok(d)) => match reconcile(cfg, &name, p, d) {
