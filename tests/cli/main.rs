@@ -7,6 +7,7 @@ mod common;
 
 mod adjust;
 mod calibration;
+mod catalogue;
 mod cleaning;
 mod geometry;
 mod inputs;
