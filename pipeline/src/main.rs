@@ -40,19 +40,28 @@ enum Command {
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
     },
-    /// Rerun one stage from the previous stage's saved output; later stages become stale.
+    /// Rerun one stage from the previous stage's saved output; the outputs of later stages
+    /// are removed and they become stale.
     Stage {
         /// The stage to rerun.
         name: Stage,
+        /// Trial configuration (TOML); its paths are relative to it. Must be the trial the
+        /// run folder was made for.
         trial: PathBuf,
+        /// Run folder holding the earlier stages' output [default: runs/<folder of the trial
+        /// file>-<trial file name without .toml>].
         #[arg(long)]
         out: Option<PathBuf>,
+        /// Override a setting for this stage, e.g. --set clean.speed.min_m_s=0.8 (repeatable).
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
     },
-    /// Validate the configuration and inputs, print every problem, write nothing.
+    /// Validate the configuration and read every input as run would; print every problem;
+    /// write nothing.
     Check {
+        /// Trial configuration (TOML); its paths are relative to it.
         trial: PathBuf,
+        /// Override a setting, e.g. --set clean.speed.min_m_s=0.8 (repeatable).
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
     },

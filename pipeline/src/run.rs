@@ -411,7 +411,11 @@ pub fn run_one(
         manifest.inputs = hash_inputs(&t)?;
     }
     std::fs::create_dir_all(&out)?;
-    run_stages(&[stage], &t, &out, manifest, quiet)
+    run_stages(&[stage], &t, &out, manifest, quiet)?;
+    if !quiet {
+        eprintln!("done: stage {} in {}", stage.name(), out.display());
+    }
+    Ok(())
 }
 
 /// The run folder must hold a run of this trial: the same trial file (where both can be

@@ -13,7 +13,7 @@ pub enum Stage {
     Plots,
     /// Spatial GP adjustment and treatment contrasts.
     Adjust,
-    /// Markdown summary.
+    /// The reports: report.md (Markdown) and report.html (self-contained, with maps).
     Report,
 }
 

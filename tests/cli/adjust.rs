@@ -190,3 +190,18 @@ fn plot_table_entry_fits_an_analysts_own_table() {
         "{e}"
     );
 }
+
+#[test]
+fn comparison_columns_say_which_model_they_describe() {
+    let w = Workdir::new("comparison");
+    let trial = simulate(&w, "t", &["--seed", "15"]);
+    ok(&plotsieve(
+        &w.0,
+        &["run", trial.to_str().unwrap(), "--out", "run", "--quiet"],
+    ));
+    let text = std::fs::read_to_string(w.path("run/4-adjust/comparison.csv")).unwrap();
+    assert_eq!(
+        text.lines().next().unwrap(),
+        "field,log_ml_spatial,log_ml_without_spatial,efficiency,moran_i_without_spatial,moran_i_spatial,rank_changes"
+    );
+}

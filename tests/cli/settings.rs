@@ -132,3 +132,48 @@ fn check_reads_every_export_as_run_would() {
     }
     assert!(!w.path("runs").exists(), "check writes nothing");
 }
+
+#[test]
+fn help_output_and_rejections_say_what_they_are() {
+    let w = Workdir::new("rough");
+    for cmd in ["stage", "check"] {
+        let o = plotsieve(&w.0, &[cmd, "--help"]);
+        ok(&o);
+        let h = String::from_utf8_lossy(&o.stdout);
+        assert!(
+            h.contains("Trial configuration (TOML)"),
+            "{cmd} --help: {h}"
+        );
+        assert!(h.contains("Override a setting"), "{cmd} --help: {h}");
+        if cmd == "stage" {
+            assert!(
+                h.contains("Run folder holding the earlier stages' output"),
+                "{h}"
+            );
+        }
+    }
+    let trial = simulate(&w, "t", &["--seed", "14"]);
+    let t = trial.to_str().unwrap();
+    // One unreadable row, so ingest has a rejection.
+    let mon = w.path("t/monitor/field-A.csv");
+    let text = std::fs::read_to_string(&mon).unwrap();
+    let mut lines: Vec<String> = text.lines().map(String::from).collect();
+    lines[5] = lines[5].replacen(',', ",x", 1);
+    std::fs::write(&mon, lines.join("\n") + "\n").unwrap();
+    ok(&plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]));
+    let rej = csv_rows(&w.path("run/1-ingest/rejected.csv"));
+    assert!(!rej.is_empty());
+    assert!(
+        rej.iter()
+            .all(|r| r["id"] == format!("line {}", r["source_row"])),
+        "{rej:?}"
+    );
+    // stage says where it wrote, like run.
+    let o = plotsieve(&w.0, &["stage", "report", t, "--out", "run"]);
+    ok(&o);
+    assert!(String::from_utf8_lossy(&o.stderr).contains("done: stage report in run"));
+    let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
+    assert!(md.contains("## Products against the check (check)"));
+    let html = std::fs::read_to_string(w.path("run/5-report/report.html")).unwrap();
+    assert!(html.contains("Products against the check (check)"));
+}

@@ -179,9 +179,9 @@ impl Table for Comparison {
         vec![
             text!("field", field),
             num!("log_ml_spatial", log_ml_spatial, 6),
-            num!("log_ml_rcbd", log_ml_rcbd, 6),
+            num!("log_ml_without_spatial", log_ml_without_spatial, 6),
             num!("efficiency", efficiency, 6),
-            num!("moran_i_rcbd", moran_rcbd, 6),
+            num!("moran_i_without_spatial", moran_without_spatial, 6),
             num!("moran_i_spatial", moran_spatial, 6),
             col(
                 "rank_changes",

@@ -95,9 +95,9 @@ pub(crate) fn compare(
     Ok(Comparison {
         field: field.clone(),
         log_ml_spatial: fit.reml,
-        log_ml_rcbd: reml_rcbd,
+        log_ml_without_spatial: reml_rcbd,
         efficiency,
-        moran_rcbd: morans_i(&xy, &resid_rcbd, cutoff),
+        moran_without_spatial: morans_i(&xy, &resid_rcbd, cutoff),
         moran_spatial: morans_i(&xy, &resid_sp, cutoff),
         rank_changes,
     })

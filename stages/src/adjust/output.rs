@@ -9,12 +9,12 @@ use super::*;
 pub struct Comparison {
     pub field: String,
     pub log_ml_spatial: f64,
-    pub log_ml_rcbd: f64,
+    pub log_ml_without_spatial: f64,
     /// Mean over products of var(uplift, RCBD) / var(uplift, spatial): above 1 means the
     /// spatial model estimates the contrasts more precisely.
     pub efficiency: f64,
     /// Residual Moran's I without and with the spatial field (Moran 1950, Biometrika 37:17).
-    pub moran_rcbd: f64,
+    pub moran_without_spatial: f64,
     pub moran_spatial: f64,
     /// Products whose rank by uplift differs between the two models.
     pub rank_changes: Vec<String>,

@@ -171,3 +171,21 @@ mod tests {
             .any(|c| (c.0 - 3.0).abs() < 1e-9 && (c.1 - 10.0).abs() < 1e-9));
     }
 }
+
+#[cfg(test)]
+mod readme {
+    /// The README's `[[layout]]` example is a valid layout with every key.
+    #[test]
+    fn the_readme_lists_every_layout_key() {
+        let readme = include_str!("../../../README.md");
+        let start = readme
+            .find("```toml\n[[layout]]")
+            .expect("README has a [[layout]] example");
+        let block = &readme[start + "```toml\n".len()..];
+        let block = &block[..block.find("```").unwrap()];
+        let t: toml::Table = toml::from_str(block).unwrap();
+        let l: super::GridLayout = t["layout"][0].clone().try_into().unwrap();
+        assert!(l.problems(0).is_empty(), "{:?}", l.problems(0));
+        assert_eq!(l.id_prefix, "A-");
+    }
+}

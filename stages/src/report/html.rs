@@ -594,7 +594,7 @@ pub fn render(r: &HtmlInput) -> String {
     }
     let _ = write!(s, "</tbody></table><h3>Spatial model against the same model without the spatial field</h3><table><thead><tr><th>field</th><th>log marginal likelihood, spatial</th><th>without</th><th>efficiency (contrast variance ratio)</th><th>residual Moran's I without</th><th>with</th><th>products whose ranking changes</th></tr></thead><tbody>");
     for c in r.comparisons {
-        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td></tr>", esc(&c.field), fmt(c.log_ml_spatial, 2), fmt(c.log_ml_rcbd, 2), fmt(c.efficiency, 2), fmt(c.moran_rcbd, 3), fmt(c.moran_spatial, 3), esc(&c.rank_changes.join(", ")));
+        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td></tr>", esc(&c.field), fmt(c.log_ml_spatial, 2), fmt(c.log_ml_without_spatial, 2), fmt(c.efficiency, 2), fmt(c.moran_without_spatial, 3), fmt(c.moran_spatial, 3), esc(&c.rank_changes.join(", ")));
     }
     let _ = write!(s, "</tbody></table></section>");
     let _ = write!(

@@ -137,7 +137,7 @@ pub fn markdown(r: &ReportInput) -> String {
             h.warning
         );
     }
-    let _ = writeln!(s, "\n## Treatments against the check ({})\n", r.check);
+    let _ = writeln!(s, "\n## Products against the check ({})\n", r.check);
     let _ = writeln!(s, "Yields in {u} at standard moisture; uplift = treatment minus check; 95 % intervals. Field `all` is the effect shared by the fields in the joint model (the fields' own rows include the treatment x field interaction), or with `adjust.pooling = \"separate\"` the inverse-variance combination of the separate field fits.\n", u = r.unit_label);
     let _ = writeln!(s, "| field | treatment | plots | estimate | SD | uplift | uplift 95 % interval | prior (mean +- SD) | P(uplift > 0) |");
     let _ = writeln!(s, "|---|---|---:|---:|---:|---:|---|---|---:|");

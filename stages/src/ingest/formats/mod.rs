@@ -101,7 +101,8 @@ pub fn is_export(path: &Path) -> bool {
     })
 }
 
-/// A rejection row of ingest.
+/// A rejection row of ingest. Records that cannot be read get no point id (ids go to
+/// readable records), so their `id` is `line N` of their file.
 pub(crate) fn reject(
     file: &str,
     row: u64,
@@ -113,7 +114,7 @@ pub(crate) fn reject(
     Rejection {
         source_file: file.to_string(),
         source_row: row,
-        id: String::new(),
+        id: format!("line {row}"),
         rule: rule.to_string(),
         column: column.to_string(),
         value: value.to_string(),
