@@ -338,3 +338,24 @@ fn a_run_folder_never_shows_outputs_that_no_longer_hold() {
         assert_eq!(m["stages"][s]["status"], "done", "{s}");
     }
 }
+
+#[test]
+fn the_report_summary_counts_the_plots_it_reports() {
+    let w = Workdir::new("reportsummary");
+    let trial = simulate(&w, "t", &["--seed", "16"]);
+    ok(&plotsieve(
+        &w.0,
+        &["run", trial.to_str().unwrap(), "--out", "run", "--quiet"],
+    ));
+    let adjust = json(&w.path("run/4-adjust/summary.json"));
+    let report = json(&w.path("run/5-report/summary.json"));
+    assert!(adjust["kept"].as_u64().unwrap() > 0);
+    assert_eq!(report["count_in"], adjust["kept"]);
+    assert_eq!(report["kept"], adjust["kept"]);
+    assert_eq!(report["rejected"], 0);
+    assert_eq!(
+        report["details"]["files"],
+        serde_json::json!(["report.md", "report.html"])
+    );
+    assert_eq!(report["details"]["warnings_shown"], 0);
+}

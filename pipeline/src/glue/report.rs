@@ -112,11 +112,23 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         warnings: &warnings,
     });
     io::write_atomic(&dir.join("report.html"), html.as_bytes())?;
-    let summary = StageSummary {
+    // The report removes nothing: its counts are the plots it reports on (those the adjust
+    // stage kept), and its details say what it wrote and which warnings it carries.
+    let reported = summaries[3].kept;
+    let mut summary = StageSummary {
         stage: "report".into(),
         unit: "plots".into(),
+        count_in: reported,
+        kept: reported,
         ..Default::default()
     };
+    summary.details.insert(
+        "files".into(),
+        serde_json::json!(["report.md", "report.html"]),
+    );
+    summary
+        .details
+        .insert("warnings_shown".into(), serde_json::json!(warnings.len()));
     io::write_json(&dir.join("summary.json"), &summary)?;
     Ok(summary)
 }
