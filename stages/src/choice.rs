@@ -13,6 +13,11 @@ pub fn one_of(names: &[&str]) -> String {
     }
 }
 
+/// The message for an option that is not one of `names`.
+pub fn refusal(names: &[&str], got: &str) -> String {
+    format!("must be {} (got {got:?})", one_of(names))
+}
+
 /// Declare a choice enum: `choice! { /// doc \n pub enum Mode { /// doc \n Auto = "auto", ... } }`.
 #[macro_export]
 macro_rules! choice {
@@ -53,9 +58,9 @@ macro_rules! choice {
             fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
                 let text = String::deserialize(d)?;
                 Self::from_name(&text).ok_or_else(|| {
-                    <D::Error as serde::de::Error>::custom(format!(
-                        "must be {} (got {text:?})",
-                        $crate::choice::one_of(Self::NAMES)
+                    <D::Error as serde::de::Error>::custom($crate::choice::refusal(
+                        Self::NAMES,
+                        &text,
                     ))
                 })
             }

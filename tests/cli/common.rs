@@ -270,3 +270,34 @@ pub fn sha(p: &Path) -> String {
         .map(|b| format!("{b:02x}"))
         .collect()
 }
+
+pub fn read(p: &Path) -> String {
+    std::fs::read_to_string(p).unwrap()
+}
+
+/// Replace the first `n` occurrences of `a` (all with n = 0).
+pub fn replace(p: &Path, a: &str, b: &str, n: usize) {
+    let t = read(p);
+    assert!(t.contains(a), "{}: no {a:?}", p.display());
+    let t = if n == 0 {
+        t.replace(a, b)
+    } else {
+        t.replacen(a, b, n)
+    };
+    std::fs::write(p, t).unwrap();
+}
+
+/// Apply `f` to every value of CSV column `col`.
+pub fn set_col(p: &Path, col: &str, f: impl Fn(&str) -> String) {
+    let t = read(p);
+    let mut lines = t.lines();
+    let header = lines.next().unwrap().to_string();
+    let k = header.split(',').position(|c| c == col).unwrap();
+    let mut out = vec![header];
+    for l in lines {
+        let mut v: Vec<String> = l.split(',').map(String::from).collect();
+        v[k] = f(&v[k]);
+        out.push(v.join(","));
+    }
+    std::fs::write(p, out.join("\n") + "\n").unwrap();
+}

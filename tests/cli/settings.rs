@@ -111,12 +111,7 @@ fn check_reads_every_export_as_run_would() {
         shift_east(&a, 1.0).join("\n") + "\n",
     )
     .unwrap();
-    let design = w.path("t/design.csv");
-    let text = std::fs::read_to_string(&design).unwrap();
-    let mut lines: Vec<String> = text.lines().map(String::from).collect();
-    let k = lines.iter().position(|l| l.contains(",prod-b,")).unwrap();
-    lines[k] = lines[k].replace(",prod-b,", ",prod-bb,");
-    std::fs::write(&design, lines.join("\n") + "\n").unwrap();
+    replace(&w.path("t/design.csv"), ",prod-b,", ",prod-bb,", 1);
     let o = plotsieve(&w.0, &["check", t]);
     assert_eq!(o.status.code(), Some(1));
     let out = String::from_utf8_lossy(&o.stdout);

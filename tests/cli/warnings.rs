@@ -6,20 +6,7 @@ use crate::common::*;
 
 /// Zero the mass flow of every record of one export (a dead sensor).
 fn kill_flow(path: &Path) {
-    let text = std::fs::read_to_string(path).unwrap();
-    let mut lines = text.lines();
-    let header = lines.next().unwrap().to_string();
-    let k = header
-        .split(',')
-        .position(|c| c == "mass_flow_lb_s")
-        .unwrap();
-    let mut out = vec![header];
-    for l in lines {
-        let mut f: Vec<&str> = l.split(',').collect();
-        f[k] = "0.0000";
-        out.push(f.join(","));
-    }
-    std::fs::write(path, out.join("\n") + "\n").unwrap();
+    set_col(path, "mass_flow_lb_s", |_| "0.0000".into());
 }
 
 #[test]
@@ -162,12 +149,7 @@ fn degenerate_data_gives_no_confident_answer() {
     assert!(e.contains("field A: all plot yields are equal (SD"), "{e}");
     assert!(!w.path("flat/4-adjust/treatments.csv").exists());
     // A treatment name mistyped on one plot: a product on a single plot is flagged.
-    let design = w.path("t/design.csv");
-    let text = std::fs::read_to_string(&design).unwrap();
-    let mut lines: Vec<String> = text.lines().map(String::from).collect();
-    let k = lines.iter().position(|l| l.contains(",prod-a,")).unwrap();
-    lines[k] = lines[k].replace(",prod-a,", ",prod-aa,");
-    std::fs::write(&design, lines.join("\n") + "\n").unwrap();
+    replace(&w.path("t/design.csv"), ",prod-a,", ",prod-aa,", 1);
     let o = plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]);
     ok(&o);
     let e = String::from_utf8_lossy(&o.stderr);

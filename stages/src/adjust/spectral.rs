@@ -32,13 +32,6 @@ pub enum Method {
     },
 }
 
-/// Unit-variance spectral density of `kernel` in two dimensions at angular frequency
-/// (w0, w1), with length scales (l0, l1) (R&W 2006 eq. 4.15 and 4.20 with anisotropy by
-/// scaling each axis); each kernel's own density is in its file under `kernel/`.
-pub fn spectral_density(kernel: Kernel, w: (f64, f64), l: (f64, f64)) -> f64 {
-    kernel.spectral_density(w, l)
-}
-
 /// A field's yields, design and coordinates, as the spectral algebra needs them.
 #[derive(Clone, Debug)]
 pub struct Design {
@@ -158,7 +151,9 @@ impl Repr {
         let sq: Vec<f64> = (0..m)
             .map(|k| {
                 let (j0, j1) = (k / m1 + 1, k % m1 + 1);
-                spectral_density(d.kernel, (freq(j0, big_l0), freq(j1, big_l1)), l).sqrt()
+                d.kernel
+                    .spectral_density((freq(j0, big_l0), freq(j1, big_l1)), l)
+                    .sqrt()
             })
             .collect();
         let ptp = phi.transpose() * &phi;
@@ -396,7 +391,7 @@ mod tests {
             let total: f64 = (0..200_000)
                 .map(|i| {
                     let r = (i as f64 + 0.5) * dr;
-                    spectral_density(k, (r, 0.0), (3.0, 3.0)) * 2.0 * std::f64::consts::PI * r * dr
+                    k.spectral_density((r, 0.0), (3.0, 3.0)) * 2.0 * std::f64::consts::PI * r * dr
                 })
                 .sum::<f64>()
                 / (4.0 * std::f64::consts::PI.powi(2));

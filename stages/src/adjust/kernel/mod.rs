@@ -108,10 +108,7 @@ impl<'de> serde::Deserialize<'de> for Kernel {
         let text = <String as serde::Deserialize>::deserialize(d)?;
         Kernel::from_name(&text).ok_or_else(|| {
             let names: Vec<&str> = KERNELS.iter().map(|k| k.name()).collect();
-            <D::Error as serde::de::Error>::custom(format!(
-                "must be {} (got {text:?})",
-                crate::choice::one_of(&names)
-            ))
+            <D::Error as serde::de::Error>::custom(crate::choice::refusal(&names, &text))
         })
     }
 }
