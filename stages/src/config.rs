@@ -380,7 +380,13 @@ mod tests {
         // ../shared/CHECKS.md: 1 lb/ac = 1.120851 kg/ha; corn 1 bu/ac = 62.77 kg/ha.
         assert!((LB_AC_IN_KG_HA - 1.120851).abs() < 1e-6);
         let corn = crop_table()["corn"].clone();
-        let one_bu = OutputUnit::BuAc.from_kg_ha(62.77, &corn);
+        let bu = crate::crop::YieldUnit::new(OutputUnit::BuAc, &corn);
+        let one_bu = bu.to_unit(62.77);
         assert!((one_bu - 1.0).abs() < 1e-3, "{one_bu}");
+        // Written and read back, a value comes home; t/ha is kg/ha over 1000.
+        assert!((bu.to_kg_ha(one_bu) - 62.77).abs() < 1e-9);
+        let t = crate::crop::YieldUnit::new(OutputUnit::THa, &corn);
+        assert_eq!((t.to_unit(8125.0), t.to_kg_ha(8.125)), (8.125, 8125.0));
+        assert_eq!(t.as_written().to_unit(8.5), 8.5);
     }
 }

@@ -29,12 +29,70 @@ impl OutputUnit {
             OutputUnit::BuAc => "bu/ac",
         }
     }
-    /// Convert kg/ha at standard moisture to this unit.
-    pub fn from_kg_ha(self, kg_ha: f64, crop: &Crop) -> f64 {
-        match self {
+}
+
+/// The output unit of one trial's crop: stages hold yields in kg/ha at standard moisture and
+/// convert with this only where a table or report is written (or read back).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct YieldUnit {
+    pub unit: OutputUnit,
+    bushel_lb: f64,
+    /// Values in memory are already in the output unit (the report, which presents the
+    /// tables as they were written).
+    as_written: bool,
+}
+
+impl YieldUnit {
+    /// For tables without a yield column (t/ha would apply if one appeared).
+    pub const NONE: YieldUnit = YieldUnit {
+        unit: OutputUnit::THa,
+        bushel_lb: f64::NAN,
+        as_written: false,
+    };
+    /// The output unit for this crop (bushels need its bushel weight).
+    pub fn new(unit: OutputUnit, crop: &Crop) -> YieldUnit {
+        YieldUnit {
+            unit,
+            bushel_lb: crop.bushel_lb,
+            as_written: false,
+        }
+    }
+    /// The same unit, for code that works in it (reading a table gives the values as
+    /// written, writing one writes them as they are).
+    pub fn as_written(self) -> YieldUnit {
+        YieldUnit {
+            as_written: true,
+            ..self
+        }
+    }
+    pub fn suffix(&self) -> &'static str {
+        self.unit.suffix()
+    }
+    pub fn label(&self) -> &'static str {
+        self.unit.label()
+    }
+    /// kg/ha in the output unit.
+    pub fn to_unit(&self, kg_ha: f64) -> f64 {
+        if self.as_written {
+            return kg_ha;
+        }
+        match self.unit {
             OutputUnit::THa => kg_ha / 1000.0,
-            // 1 lb/ac = 1.120851 kg/ha (definitions of the pound and the acre).
-            OutputUnit::BuAc => kg_ha / LB_AC_IN_KG_HA / crop.bushel_lb,
+            OutputUnit::BuAc => kg_ha / LB_AC_IN_KG_HA / self.bushel_lb,
+        }
+    }
+    /// A value in the output unit in kg/ha.
+    pub fn to_kg_ha(&self, v: f64) -> f64 {
+        if self.as_written {
+            return v;
+        }
+        v * self.kg_ha_per_unit()
+    }
+    /// kg/ha in one output unit (1000 for t/ha).
+    pub fn kg_ha_per_unit(&self) -> f64 {
+        match self.unit {
+            OutputUnit::THa => 1000.0,
+            OutputUnit::BuAc => LB_AC_IN_KG_HA * self.bushel_lb,
         }
     }
 }

@@ -14,22 +14,21 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let out = c.out;
     let dir = &c.dir;
     let unit = c.unit;
-    let crop = &c.crop;
     let progress = c.progress;
     let plots = if cfg.adjust.plot_table.is_empty() {
-        read_plots(out, unit.suffix())?
+        read_plots(out, &unit)?
     } else {
         io::read_plot_table(
             &t.base.join(&cfg.adjust.plot_table),
             &cfg.adjust.plot_table,
-            unit.suffix(),
+            &unit,
             cfg.adjust.row_spacing_m,
             cfg.adjust.range_spacing_m,
         )?
     };
     let s = cfg
         .adjust
-        .checked(&cfg.trial.check, unit.from_kg_ha(1000.0, crop));
+        .checked(&cfg.trial.check, unit.kg_ha_per_unit());
     let mut o = adjust::run_with(&plots, &s, progress)?;
     if !o.missing_fields.is_empty() {
         if !cfg.adjust.allow_missing_fields {
@@ -45,10 +44,10 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             ));
         }
     }
-    io::write_table(&dir.join("adjusted_plots.csv"), &o.plots, unit.suffix())?;
-    io::write_table(&dir.join("treatments.csv"), &o.treatments, unit.suffix())?;
-    io::write_table(&dir.join("hyperparameters.csv"), &o.hyper, unit.suffix())?;
-    io::write_table(&dir.join("comparison.csv"), &o.comparisons, "")?;
+    io::write_table(&dir.join("adjusted_plots.csv"), &o.plots, &unit)?;
+    io::write_table(&dir.join("treatments.csv"), &o.treatments, &unit)?;
+    io::write_table(&dir.join("hyperparameters.csv"), &o.hyper, &unit)?;
+    io::write_table(&dir.join("comparison.csv"), &o.comparisons, &unit)?;
     // Kept plots of fields that could not be fitted are this stage's rejections.
     let fitted: std::collections::BTreeSet<&str> =
         o.hyper.iter().map(|h| h.field.as_str()).collect();

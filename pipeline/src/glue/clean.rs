@@ -22,7 +22,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let y: Vec<f64> = o
         .points
         .iter()
-        .map(|p| unit.from_kg_ha(p.yield_std_kg_ha, crop))
+        .map(|p| unit.to_unit(p.yield_std_kg_ha))
         .collect();
     let col = format!("yield_{}", unit.suffix());
     io::write_clean_points(

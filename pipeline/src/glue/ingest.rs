@@ -28,7 +28,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             )
         }),
     )?;
-    io::write_table(&dir.join("design.csv"), &o.design, "")?;
+    io::write_table(&dir.join("design.csv"), &o.design, &c.unit)?;
     write_stage_tables(&dir, &o.rejections, &o.summary)?;
     Ok(o.summary)
 }

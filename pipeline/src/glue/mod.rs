@@ -15,7 +15,7 @@ use crate::io;
 use crate::run::{read_summary, Trial};
 use crate::stage::Stage;
 use anyhow::{anyhow, bail, Result};
-use plotsieve_stages::crop::{Crop, OutputUnit};
+use plotsieve_stages::crop::{Crop, YieldUnit};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::progress::Progress;
 use plotsieve_stages::table::{Rejection, StageSummary};
@@ -30,7 +30,8 @@ pub struct Ctx<'a> {
     pub t: &'a Trial,
     pub out: &'a Path,
     pub dir: PathBuf,
-    pub unit: OutputUnit,
+    /// The output unit (tables hold yields in it; stages work in kg/ha).
+    pub unit: YieldUnit,
     pub crop: Crop,
     pub progress: &'a Progress,
 }
@@ -49,12 +50,13 @@ impl<'a> Ctx<'a> {
 
 /// Run one stage against the run folder; returns its summary.
 pub fn execute(stage: Stage, t: &Trial, out: &Path, progress: &Progress) -> Result<StageSummary> {
+    let crop = t.cfg.crop()?;
     let c = Ctx {
         t,
         out,
         dir: out.join(stage.dir()),
-        unit: t.cfg.trial.output_unit,
-        crop: t.cfg.crop()?,
+        unit: YieldUnit::new(t.cfg.trial.output_unit, &crop),
+        crop,
         progress,
     };
     match stage {
@@ -68,14 +70,14 @@ pub fn execute(stage: Stage, t: &Trial, out: &Path, progress: &Progress) -> Resu
 
 /// A stage's `rejected.csv` and `summary.json`.
 fn write_stage_tables(dir: &Path, rejections: &[Rejection], summary: &StageSummary) -> Result<()> {
-    io::write_table(&dir.join("rejected.csv"), rejections, "")?;
+    io::write_table(&dir.join("rejected.csv"), rejections, &YieldUnit::NONE)?;
     io::write_json(&dir.join("summary.json"), summary)
 }
 
 /// `3-plots/plots.csv` (at least one plot).
-fn read_plots(out: &Path, unit: &str) -> Result<Vec<PlotStats>> {
+fn read_plots(out: &Path, u: &YieldUnit) -> Result<Vec<PlotStats>> {
     let path = out.join(Stage::Plots.dir()).join("plots.csv");
-    let plots: Vec<PlotStats> = io::read_table(&path, unit, "run stage plots first")?;
+    let plots: Vec<PlotStats> = io::read_table(&path, u, "run stage plots first")?;
     if plots.is_empty() {
         bail!("{}: no plots", path.display());
     }

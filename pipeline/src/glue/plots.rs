@@ -14,7 +14,6 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let out = c.out;
     let dir = &c.dir;
     let unit = c.unit;
-    let crop = &c.crop;
     let (files, pts) = io::read_clean_points(&out.join(Stage::Clean.dir()).join("points.parquet"))?;
     let ing = out.join(Stage::Ingest.dir());
     let polys = ingest::read_geojson(
@@ -22,7 +21,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         "1-ingest/plots.geojson",
         "plot_id",
     )?;
-    let design = io::read_table(&ing.join("design.csv"), "", "run stage ingest first")?;
+    let design = io::read_table(&ing.join("design.csv"), &unit, "run stage ingest first")?;
     let o = plots::run(
         &pts,
         &files,
@@ -30,8 +29,6 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         &design,
         &cfg.inputs.design,
         &cfg.plots,
-        unit,
-        crop,
     );
     let kept: Vec<_> = o.assignment.iter().map(|&(i, _)| pts[i].clone()).collect();
     let ids: Vec<&str> = o
@@ -41,7 +38,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .collect();
     let y: Vec<f64> = kept
         .iter()
-        .map(|p| unit.from_kg_ha(p.yield_std_kg_ha, crop))
+        .map(|p| unit.to_unit(p.yield_std_kg_ha))
         .collect();
     let col = format!("yield_{}", unit.suffix());
     io::write_clean_points(
@@ -51,7 +48,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         Some((&col, y)),
         Some(ids),
     )?;
-    io::write_table(&dir.join("plots.csv"), &o.plots, unit.suffix())?;
+    io::write_table(&dir.join("plots.csv"), &o.plots, &unit)?;
     let epsg = c.epsg()?;
     let utm = plotsieve_stages::projection::Utm::from_epsg(epsg)?;
     io::write_plots_wgs84(
@@ -61,7 +58,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             (
                 p.plot_id.as_str(),
                 p.net_ring.as_slice(),
-                io::plot_properties(p, unit.suffix()),
+                io::plot_properties(p, &unit),
             )
         }),
     )?;

@@ -16,16 +16,18 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let out = c.out;
     let dir = &c.dir;
     let unit = c.unit;
+    // The report presents the tables as they were written, in the output unit.
+    let shown = unit.as_written();
     let crop = &c.crop;
     let summaries: Vec<StageSummary> = [Stage::Ingest, Stage::Clean, Stage::Plots, Stage::Adjust]
         .iter()
         .map(|s| read_summary(out, *s))
         .collect::<Result<_>>()?;
     let adj = out.join(Stage::Adjust.dir());
-    let treatments = io::read_table(&adj.join("treatments.csv"), unit.suffix(), ADJUST_FIRST)?;
+    let treatments = io::read_table(&adj.join("treatments.csv"), &shown, ADJUST_FIRST)?;
     let hyper = io::read_table(
         &adj.join("hyperparameters.csv"),
-        unit.suffix(),
+        &shown,
         ADJUST_FIRST,
     )?;
     // Every stage's warnings, at the top of both reports.
@@ -57,7 +59,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     for st in [Stage::Clean, Stage::Plots] {
         for r in io::read_table::<Rejection>(
             &out.join(st.dir()).join("rejected.csv"),
-            "",
+            &shown,
             "rerun its stage",
         )? {
             if !r.id.is_empty() && r.source_file != cfg.inputs.design {
@@ -69,16 +71,10 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .points
         .iter()
         .map(|p| {
-            let wet = clean::wet_yield_kg_ha(p.flow_kg_s, p.speed_m_s, p.width_m);
-            let std = clean::to_standard_moisture(
-                wet,
-                p.moisture_pct.min(99.0),
-                crop.standard_moisture_pct,
-            );
             report::html::MapPoint {
                 x: p.x_m,
                 y: p.y_m,
-                yield_unit: unit.from_kg_ha(std, crop),
+                yield_unit: unit.to_unit(clean::record_yield_kg_ha(p, crop)),
                 rule: removed.get(&p.id.to_string()).cloned().unwrap_or_default(),
             }
         })
@@ -88,9 +84,9 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         "1-ingest/plots.geojson",
         "plot_id",
     )?;
-    let plots_tab = read_plots(out, unit.suffix())?;
-    let adjusted = io::read_table(&adj.join("adjusted_plots.csv"), unit.suffix(), ADJUST_FIRST)?;
-    let comparisons = io::read_table(&adj.join("comparison.csv"), "", ADJUST_FIRST)?;
+    let plots_tab = read_plots(out, &shown)?;
+    let adjusted = io::read_table(&adj.join("adjusted_plots.csv"), &shown, ADJUST_FIRST)?;
+    let comparisons = io::read_table(&adj.join("comparison.csv"), &shown, ADJUST_FIRST)?;
     let settings: Vec<(String, serde_json::Value)> = match read_manifest(out)? {
         Some(m) => m.stages.into_iter().map(|(k, v)| (k, v.settings)).collect(),
         None => Vec::new(),

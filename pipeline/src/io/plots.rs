@@ -2,6 +2,7 @@
 //! statistics as properties (`plots_wgs84.geojson`, `3-plots/plots.geojson`), and the
 //! analyst's own plot table for plot-table entry.
 
+use plotsieve_stages::crop::YieldUnit;
 use super::table::Table;
 use super::write_json;
 use anyhow::{anyhow, bail, Context, Result};
@@ -35,10 +36,13 @@ pub fn write_projected_plots(path: &Path, polys: &[PlotPolygon], epsg: u32) -> R
 }
 
 /// The plot's statistics as GeoJSON properties (same names as `plots.csv`).
-pub fn plot_properties(p: &PlotStats, unit: &str) -> serde_json::Map<String, serde_json::Value> {
-    PlotStats::columns(unit)
+pub fn plot_properties(p: &PlotStats, u: &YieldUnit) -> serde_json::Map<String, serde_json::Value> {
+    PlotStats::columns(u.suffix())
         .into_iter()
-        .map(|c| (c.name, (c.write)(p)))
+        .map(|c| {
+            let v = c.write(p, u);
+            (c.name, v)
+        })
         .map(|(k, v)| {
             let val = match v.parse::<f64>() {
                 Ok(x) if !["plot_id", "field", "treatment", "block"].contains(&k.as_str()) => {
@@ -98,7 +102,7 @@ pub fn write_plots_wgs84<'a>(
 pub fn read_plot_table(
     path: &Path,
     shown: &str,
-    unit: &str,
+    u: &YieldUnit,
     row_spacing: f64,
     range_spacing: f64,
 ) -> Result<Vec<PlotStats>> {
@@ -106,7 +110,7 @@ pub fn read_plot_table(
         .with_context(|| format!("{shown}: cannot read the plot table (adjust.plot_table)"))?;
     let header = rdr.headers()?.clone();
     let col = |name: &str| header.iter().position(|h| h.trim() == name);
-    let ycol = format!("yield_{unit}");
+    let ycol = format!("yield_{}", u.suffix());
     let need = ["plot_id", "field", "treatment", "block", ycol.as_str()];
     let mut idx = Vec::new();
     for n in need {
@@ -150,7 +154,7 @@ pub fn read_plot_table(
             &s(1),
             &s(2),
             &s(3),
-            num(idx[4], &ycol)?,
+            u.to_kg_ha(num(idx[4], &ycol)?),
             cx,
             cy,
         ));

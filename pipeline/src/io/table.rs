@@ -3,19 +3,36 @@
 //! [`write_table`] and [`read_table`]. Reading goes by header name, never by position, and a
 //! missing column or a cell that is not a number is an error naming the file, line and
 //! column.
+//!
+//! Yields are kg/ha in memory; a yield column is written in the trial's output unit and read
+//! back to kg/ha here, the one place the unit is applied to a table.
 
 use super::write_atomic;
 use anyhow::{anyhow, bail, Context, Result};
+use plotsieve_stages::crop::YieldUnit;
+use plotsieve_stages::util::fmt;
 use std::path::Path;
 
 /// One column of a table of `T`.
 pub struct Col<T> {
     /// The header name (yield columns carry the output unit, e.g. `yield_mean_t_ha`).
     pub name: String,
-    /// The cell of a row.
-    pub write: fn(&T) -> String,
-    /// Set the row's field from a cell; `Err` says what was expected.
-    pub read: fn(&mut T, &str) -> Result<(), String>,
+    cell: Cell<T>,
+}
+
+enum Cell<T> {
+    /// Written and read as text.
+    Text {
+        write: fn(&T) -> String,
+        /// Set the row's field from a cell; `Err` says what was expected.
+        read: fn(&mut T, &str) -> Result<(), String>,
+    },
+    /// A yield (or a yield's SD or interval): kg/ha in the row, the output unit in the file.
+    Yield {
+        get: fn(&T) -> f64,
+        set: fn(&mut T, f64),
+        decimals: usize,
+    },
 }
 
 /// A column with its name, writer and reader.
@@ -26,8 +43,39 @@ pub fn col<T>(
 ) -> Col<T> {
     Col {
         name: name.into(),
-        write,
-        read,
+        cell: Cell::Text { write, read },
+    }
+}
+
+/// A yield column: the row holds kg/ha, the file the output unit with `decimals` decimals.
+pub fn yield_col<T>(
+    name: impl Into<String>,
+    get: fn(&T) -> f64,
+    set: fn(&mut T, f64),
+    decimals: usize,
+) -> Col<T> {
+    Col {
+        name: name.into(),
+        cell: Cell::Yield { get, set, decimals },
+    }
+}
+
+impl<T> Col<T> {
+    /// The cell of a row as written.
+    pub fn write(&self, r: &T, u: &YieldUnit) -> String {
+        match &self.cell {
+            Cell::Text { write, .. } => write(r),
+            Cell::Yield { get, decimals, .. } => fmt(u.to_unit(get(r)), *decimals),
+        }
+    }
+    fn read(&self, r: &mut T, cell: &str, u: &YieldUnit) -> Result<(), String> {
+        match &self.cell {
+            Cell::Text { read, .. } => read(r, cell),
+            Cell::Yield { set, .. } => {
+                set(r, u.to_kg_ha(number(cell)?));
+                Ok(())
+            }
+        }
     }
 }
 
@@ -53,24 +101,25 @@ pub trait Table: Default {
 }
 
 /// The table as CSV bytes: header, then one record per row.
-pub fn table_bytes<T: Table>(rows: &[T], unit: &str) -> Result<Vec<u8>> {
-    let cols = T::columns(unit);
+pub fn table_bytes<T: Table>(rows: &[T], u: &YieldUnit) -> Result<Vec<u8>> {
+    let cols = T::columns(u.suffix());
     let mut w = csv::Writer::from_writer(Vec::new());
     w.write_record(cols.iter().map(|c| c.name.as_str()))?;
     for r in rows {
-        w.write_record(cols.iter().map(|c| (c.write)(r)))?;
+        w.write_record(cols.iter().map(|c| c.write(r, u)))?;
     }
     w.into_inner().map_err(|e| anyhow!("{e}"))
 }
 
-/// Write the table atomically.
-pub fn write_table<T: Table>(path: &Path, rows: &[T], unit: &str) -> Result<()> {
-    write_atomic(path, &table_bytes(rows, unit)?)
+/// Write the table atomically, yields in the output unit.
+pub fn write_table<T: Table>(path: &Path, rows: &[T], u: &YieldUnit) -> Result<()> {
+    write_atomic(path, &table_bytes(rows, u)?)
 }
 
-/// Read a table back by header name. A missing file says `hint` (what to run); extra
-/// columns are ignored.
-pub fn read_table<T: Table>(path: &Path, unit: &str, hint: &str) -> Result<Vec<T>> {
+/// Read a table back by header name, yields to kg/ha. A missing file says `hint` (what to
+/// run); extra columns are ignored.
+pub fn read_table<T: Table>(path: &Path, u: &YieldUnit, hint: &str) -> Result<Vec<T>> {
+    let unit = u.suffix();
     let mut rdr = csv::Reader::from_path(path)
         .with_context(|| format!("{} is missing: {hint}", path.display()))?;
     let header = rdr
@@ -96,7 +145,7 @@ pub fn read_table<T: Table>(path: &Path, unit: &str, hint: &str) -> Result<Vec<T
         let line = rec.position().map(|p| p.line()).unwrap_or(0);
         let mut row = T::default();
         for (c, &i) in cols.iter().zip(&idx) {
-            (c.read)(&mut row, rec.get(i).unwrap_or(""))
+            c.read(&mut row, rec.get(i).unwrap_or(""), u)
                 .map_err(|e| anyhow!("{}, line {line}, column {}: {e}", path.display(), c.name))?;
         }
         out.push(row);
@@ -122,11 +171,7 @@ mod tests {
                     |r| r.name.clone(),
                     |r, v| Ok(r.name = v.to_string()),
                 ),
-                col(
-                    format!("value_{unit}"),
-                    |r| plotsieve_stages::util::fmt(r.value, 2),
-                    |r, v| Ok(r.value = number(v)?),
-                ),
+                yield_col(format!("value_{unit}"), |r| r.value, |r, x| r.value = x, 2),
             ]
         }
     }
@@ -135,34 +180,39 @@ mod tests {
     fn tables_round_trip_by_name_and_name_what_is_wrong() {
         let dir = std::env::temp_dir().join(format!("plotsieve-io-{}", std::process::id()));
         let p = dir.join("t.csv");
+        use plotsieve_stages::crop::{crop_table, OutputUnit};
+        let corn = crop_table()["corn"].clone();
+        let t_ha = YieldUnit::new(OutputUnit::THa, &corn);
+        let bu_ac = YieldUnit::new(OutputUnit::BuAc, &corn);
+        // kg/ha in the row, t/ha in the file.
         let rows = vec![
             Pair {
                 name: "a".into(),
-                value: 1.5,
+                value: 1500.0,
             },
             Pair {
                 name: "b, c".into(),
                 value: f64::NAN,
             },
         ];
-        write_table(&p, &rows, "t_ha").unwrap();
+        write_table(&p, &rows, &t_ha).unwrap();
         let text = std::fs::read_to_string(&p).unwrap();
         assert_eq!(text, "name,value_t_ha\na,1.50\n\"b, c\",\n");
-        let back: Vec<Pair> = read_table(&p, "t_ha", "run it").unwrap();
+        let back: Vec<Pair> = read_table(&p, &t_ha, "run it").unwrap();
         assert_eq!(back[0], rows[0]);
         assert!(back[1].value.is_nan());
         // Columns in another order, and one extra: read by name.
         std::fs::write(&p, "extra,value_t_ha,name\nx,2.25,z\n").unwrap();
-        let back: Vec<Pair> = read_table(&p, "t_ha", "run it").unwrap();
+        let back: Vec<Pair> = read_table(&p, &t_ha, "run it").unwrap();
         assert_eq!(
             back,
             vec![Pair {
                 name: "z".into(),
-                value: 2.25
+                value: 2250.0
             }]
         );
         // Another unit's table, and a bad cell.
-        let e = read_table::<Pair>(&p, "bu_ac", "rerun stage adjust")
+        let e = read_table::<Pair>(&p, &bu_ac, "rerun stage adjust")
             .unwrap_err()
             .to_string();
         assert!(
@@ -170,7 +220,7 @@ mod tests {
             "{e}"
         );
         std::fs::write(&p, "name,value_t_ha\na,lots\n").unwrap();
-        let e = read_table::<Pair>(&p, "t_ha", "").unwrap_err().to_string();
+        let e = read_table::<Pair>(&p, &t_ha, "").unwrap_err().to_string();
         assert!(
             e.ends_with("line 2, column value_t_ha: expected a number, found \"lots\""),
             "{e}"

@@ -2,7 +2,7 @@
 //! `plots.csv`, `adjusted_plots.csv`, `treatments.csv`, `comparison.csv` and
 //! `hyperparameters.csv`. Each column is named, written and read in one place.
 
-use super::table::{col, count, number, Col, Table};
+use super::table::{col, count, number, yield_col, Col, Table};
 use plotsieve_stages::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::table::{DesignRow, Rejection};
@@ -33,6 +33,13 @@ macro_rules! num {
                 Ok(())
             },
         )
+    };
+}
+
+/// A yield column bound to an `f64` field (kg/ha; the file has the output unit).
+macro_rules! yld {
+    ($name:expr, $field:ident, $d:expr) => {
+        yield_col($name, |r: &Self| r.$field, |r: &mut Self, x| r.$field = x, $d)
     };
 }
 
@@ -94,10 +101,10 @@ impl Table for PlotStats {
                     Ok(())
                 },
             ),
-            num!(format!("yield_mean_{unit}"), yield_mean, 6),
-            num!(format!("yield_median_{unit}"), yield_median, 6),
-            num!(format!("yield_trimmed_mean_{unit}"), yield_trimmed_mean, 6),
-            num!(format!("yield_sd_{unit}"), yield_sd, 6),
+            yld!(format!("yield_mean_{unit}"), yield_mean, 6),
+            yld!(format!("yield_median_{unit}"), yield_median, 6),
+            yld!(format!("yield_trimmed_mean_{unit}"), yield_trimmed_mean, 6),
+            yld!(format!("yield_sd_{unit}"), yield_sd, 6),
             num!("moisture_mean_pct", moisture_mean_pct, 4),
             num!("centroid_x_m", centroid_x_m, 4),
             num!("centroid_y_m", centroid_y_m, 4),
@@ -139,11 +146,11 @@ impl Table for AdjustedPlot {
             text!("field", field),
             text!("treatment", treatment),
             text!("block", block),
-            num!(format!("raw_yield_{unit}"), raw, 6),
-            num!(format!("spatial_effect_{unit}"), spatial_mean, 6),
-            num!(format!("spatial_effect_sd_{unit}"), spatial_sd, 6),
-            num!(format!("adjusted_yield_{unit}"), adjusted, 6),
-            num!(format!("adjusted_yield_sd_{unit}"), adjusted_sd, 6),
+            yld!(format!("raw_yield_{unit}"), raw, 6),
+            yld!(format!("spatial_effect_{unit}"), spatial_mean, 6),
+            yld!(format!("spatial_effect_sd_{unit}"), spatial_sd, 6),
+            yld!(format!("adjusted_yield_{unit}"), adjusted, 6),
+            yld!(format!("adjusted_yield_sd_{unit}"), adjusted_sd, 6),
         ]
     }
 }
@@ -154,22 +161,22 @@ impl Table for TreatmentRow {
             text!("field", field),
             text!("treatment", treatment),
             whole!("plots", plots),
-            num!(format!("estimate_{unit}"), estimate, 6),
-            num!(format!("sd_{unit}"), sd, 6),
-            num!(format!("lo95_{unit}"), lo95, 6),
-            num!(format!("hi95_{unit}"), hi95, 6),
-            num!(format!("uplift_{unit}"), uplift, 6),
-            num!(format!("uplift_sd_{unit}"), uplift_sd, 6),
-            num!(format!("uplift_lo90_{unit}"), uplift_lo90, 6),
-            num!(format!("uplift_hi90_{unit}"), uplift_hi90, 6),
-            num!(format!("uplift_lo95_{unit}"), uplift_lo95, 6),
-            num!(format!("uplift_hi95_{unit}"), uplift_hi95, 6),
+            yld!(format!("estimate_{unit}"), estimate, 6),
+            yld!(format!("sd_{unit}"), sd, 6),
+            yld!(format!("lo95_{unit}"), lo95, 6),
+            yld!(format!("hi95_{unit}"), hi95, 6),
+            yld!(format!("uplift_{unit}"), uplift, 6),
+            yld!(format!("uplift_sd_{unit}"), uplift_sd, 6),
+            yld!(format!("uplift_lo90_{unit}"), uplift_lo90, 6),
+            yld!(format!("uplift_hi90_{unit}"), uplift_hi90, 6),
+            yld!(format!("uplift_lo95_{unit}"), uplift_lo95, 6),
+            yld!(format!("uplift_hi95_{unit}"), uplift_hi95, 6),
             num!("p_uplift_gt0", p_uplift_gt0, 6),
-            num!(format!("break_even_{unit}"), break_even, 6),
+            yld!(format!("break_even_{unit}"), break_even, 6),
             num!("p_uplift_gt_break_even", p_uplift_gt_break_even, 6),
             num!("expected_net_return_per_ha", expected_net_return_per_ha, 2),
-            num!(format!("prior_mean_{unit}"), prior_mean, 6),
-            num!(format!("prior_sd_{unit}"), prior_sd, 6),
+            yld!(format!("prior_mean_{unit}"), prior_mean, 6),
+            yld!(format!("prior_sd_{unit}"), prior_sd, 6),
         ]
     }
 }
@@ -210,6 +217,13 @@ macro_rules! numf {
     };
 }
 
+/// A yield column with its own getter and setter (kg/ha; the file has the output unit).
+macro_rules! yldf {
+    ($name:expr, $d:expr, |$r:ident| $get:expr, |$w:ident, $x:ident| $set:expr) => {
+        yield_col($name, |$r: &Self| $get, |$w: &mut Self, $x| $set, $d)
+    };
+}
+
 impl Table for FieldHyper {
     fn columns(unit: &str) -> Vec<Col<Self>> {
         let u = |name: &str| format!("{name}_{unit}");
@@ -229,25 +243,25 @@ impl Table for FieldHyper {
             numf!("range_across_hi95_m", 4, |r| r.range_across.hi95, |r, x| {
                 r.range_across.hi95 = x
             }),
-            numf!(u("spatial_sd"), 6, |r| r.spatial_sd_ci.mean, |r, x| {
+            yldf!(u("spatial_sd"), 6, |r| r.spatial_sd_ci.mean, |r, x| {
                 r.spatial_sd_ci.mean = x;
                 r.spatial_sd = x
             }),
-            numf!(u("spatial_sd_lo95"), 6, |r| r.spatial_sd_ci.lo95, |r, x| {
+            yldf!(u("spatial_sd_lo95"), 6, |r| r.spatial_sd_ci.lo95, |r, x| {
                 r.spatial_sd_ci.lo95 = x
             }),
-            numf!(u("spatial_sd_hi95"), 6, |r| r.spatial_sd_ci.hi95, |r, x| {
+            yldf!(u("spatial_sd_hi95"), 6, |r| r.spatial_sd_ci.hi95, |r, x| {
                 r.spatial_sd_ci.hi95 = x
             }),
-            numf!(u("noise_sd"), 6, |r| r.noise_sd_ci.mean, |r, x| {
+            yldf!(u("noise_sd"), 6, |r| r.noise_sd_ci.mean, |r, x| {
                 r.noise_sd_ci.mean = x;
                 r.noise_sd = x
             }),
-            numf!(u("noise_sd_lo95"), 6, |r| r.noise_sd_ci.lo95, |r, x| r
+            yldf!(u("noise_sd_lo95"), 6, |r| r.noise_sd_ci.lo95, |r, x| r
                 .noise_sd_ci
                 .lo95 =
                 x),
-            numf!(u("noise_sd_hi95"), 6, |r| r.noise_sd_ci.hi95, |r, x| r
+            yldf!(u("noise_sd_hi95"), 6, |r| r.noise_sd_ci.hi95, |r, x| r
                 .noise_sd_ci
                 .hi95 =
                 x),
@@ -267,16 +281,16 @@ impl Table for FieldHyper {
                 |r| r.spatial_share_ci.hi95,
                 |r, x| r.spatial_share_ci.hi95 = x
             ),
-            numf!(u("interaction_sd"), 6, |r| r.interaction_sd.mean, |r, x| {
+            yldf!(u("interaction_sd"), 6, |r| r.interaction_sd.mean, |r, x| {
                 r.interaction_sd.mean = x
             }),
-            numf!(
+            yldf!(
                 u("interaction_sd_lo95"),
                 6,
                 |r| r.interaction_sd.lo95,
                 |r, x| r.interaction_sd.lo95 = x
             ),
-            numf!(
+            yldf!(
                 u("interaction_sd_hi95"),
                 6,
                 |r| r.interaction_sd.hi95,

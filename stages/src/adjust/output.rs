@@ -146,15 +146,15 @@ pub struct AdjustOutput {
     pub joint_ess: f64,
 }
 
-/// Break-even uplift (cost / price, in the output unit) and expected net return per hectare
-/// for one product; NaN without economics.
+/// Break-even uplift (cost / price, kg/ha) and expected net return per hectare for one
+/// product; NaN without economics.
 pub(crate) fn economics(s: &FitSettings, treatment: &str, uplift: f64) -> (f64, f64) {
     let cost = s.product_cost_per_ha.get(treatment).copied().unwrap_or(0.0);
     if !(s.grain_price_per_t > 0.0) || uplift.is_nan() {
         return (f64::NAN, f64::NAN);
     }
-    let be = cost / s.grain_price_per_t * s.t_ha_to_unit;
-    (be, uplift / s.t_ha_to_unit * s.grain_price_per_t - cost)
+    let be = cost / s.grain_price_per_t * 1000.0;
+    (be, uplift / 1000.0 * s.grain_price_per_t - cost)
 }
 
 /// A treatment row from the posterior of its mean yield and (for products) its uplift.

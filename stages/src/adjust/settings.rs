@@ -31,11 +31,12 @@ pub struct FitSettings {
     /// Joint fits: one length scale for all fields (else one per field).
     pub shared_range: bool,
     pub interaction: bool,
-    /// P(interaction SD > this) = 0.05; 0 = the mean SD of the fields' plot yields.
+    /// P(interaction SD > this) = 0.05, kg/ha; 0 = the mean SD of the fields' plot yields.
     pub interaction_sd_u: f64,
-    /// SD of the default prior on product effects; 0 = ten times the mean SD of plot yields.
+    /// SD of the default prior on product effects, kg/ha; 0 = ten times the mean SD of plot
+    /// yields.
     pub weak_prior_sd: f64,
-    /// Informative priors (mean, SD) per product, in the output unit.
+    /// Informative priors (mean, SD) per product, kg/ha.
     pub product_prior: BTreeMap<String, (f64, f64)>,
     pub exact_max_plots: usize,
     pub hsgp_max_basis: usize,
@@ -47,8 +48,9 @@ pub struct FitSettings {
     pub grain_price_per_t: f64,
     /// Product cost per hectare, by treatment.
     pub product_cost_per_ha: BTreeMap<String, f64>,
-    /// Converts t/ha to the output unit.
-    pub t_ha_to_unit: f64,
+    /// kg/ha in one output unit. Yields are fitted in kg/ha; the log marginal likelihoods
+    /// are stated for the yields in the output unit (a density changes with the unit).
+    pub kg_ha_per_unit: f64,
 }
 
 impl FitSettings {
@@ -90,10 +92,11 @@ pub struct AdjustSettings {
 }
 
 impl AdjustSettings {
-    /// The fit's settings: the trial's check treatment, and the factor from t/ha to the
-    /// output unit (priors and costs are given in the output unit).
-    pub fn checked(&self, check: &str, t_ha_to_unit: f64) -> FitSettings {
+    /// The fit's settings in kg/ha: the trial's check treatment, and kg/ha in one output unit
+    /// (the trial file gives priors in the output unit).
+    pub fn checked(&self, check: &str, kg_ha_per_unit: f64) -> FitSettings {
         let a = self;
+        let k = kg_ha_per_unit;
         FitSettings {
             check: check.to_string(),
             blocks: a.blocks,
@@ -105,12 +108,16 @@ impl AdjustSettings {
             pooling: a.pooling,
             shared_range: a.shared_range,
             interaction: a.interaction,
-            interaction_sd_u: a.interaction_sd_u,
-            weak_prior_sd: a.weak_prior_sd,
+            interaction_sd_u: a.interaction_sd_u * k,
+            weak_prior_sd: a.weak_prior_sd * k,
             product_prior: a
                 .product_prior_mean
                 .iter()
-                .filter_map(|(k, m)| a.product_prior_sd.get(k).map(|sd| (k.clone(), (*m, *sd))))
+                .filter_map(|(t, m)| {
+                    a.product_prior_sd
+                        .get(t)
+                        .map(|sd| (t.clone(), (*m * k, *sd * k)))
+                })
                 .collect(),
             exact_max_plots: a.exact_max_plots as usize,
             hsgp_max_basis: a.hsgp_max_basis as usize,
@@ -119,7 +126,7 @@ impl AdjustSettings {
             seed: a.seed as u64,
             grain_price_per_t: a.grain_price_per_t,
             product_cost_per_ha: a.product_cost_per_ha.clone(),
-            t_ha_to_unit,
+            kg_ha_per_unit,
         }
     }
 

@@ -188,7 +188,13 @@ pub(crate) fn fit_own(
         .first()
         .map(|e| e.1.clone())
         .unwrap_or_else(|| vec![0.0; n]);
-    let comparison = compare(prep, &mode.fit, &mode_effect)?;
+    let mut comparison = compare(prep, &mode.fit, &mode_effect)?;
+    // The fit is in kg/ha; the log marginal likelihoods are stated for the yields in the
+    // output unit: a restricted likelihood of n yields with p flat mean parameters gains
+    // (n - p) ln(k) when the unit is k times smaller.
+    let jacobian = (m.design.n() - m.design.p) as f64 * s.kg_ha_per_unit.ln();
+    comparison.log_ml_spatial += jacobian;
+    comparison.log_ml_without_spatial += jacobian;
     let hyper = FieldHyper {
         field: field.into(),
         plots: n as u64,
@@ -203,7 +209,7 @@ pub(crate) fn fit_own(
         spatial_share: share.mean,
         spatial_share_ci: share,
         interaction_sd: Summary::NONE,
-        log_marginal_likelihood: mode.fit.reml,
+        log_marginal_likelihood: mode.fit.reml + jacobian,
         method,
         warning: warnings.join("; "),
     };

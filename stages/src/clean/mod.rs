@@ -80,6 +80,14 @@ pub fn to_standard_moisture(wet: f64, moisture_pct: f64, standard_pct: f64) -> f
     wet * (100.0 - moisture_pct) / (100.0 - standard_pct)
 }
 
+/// A record's yield at standard moisture as logged, before any cleaning (no delay shift;
+/// moisture capped at 99 % so that a broken sensor gives a number): what the report's map of
+/// every record shows.
+pub fn record_yield_kg_ha(p: &crate::table::Point, crop: &crate::crop::Crop) -> f64 {
+    let wet = wet_yield_kg_ha(p.flow_kg_s, p.speed_m_s, p.width_m);
+    to_standard_moisture(wet, p.moisture_pct.min(99.0), crop.standard_moisture_pct)
+}
+
 /// The most common logged width (rounded to the millimetre); ties go to the wider.
 pub fn modal_width(widths: &[f64]) -> f64 {
     let mut counts: BTreeMap<i64, usize> = BTreeMap::new();

@@ -29,7 +29,6 @@ pub mod geometry;
 pub mod layout;
 pub mod settings;
 
-use crate::crop::{Crop, OutputUnit};
 use crate::table::{CleanPoint, DesignRow, PlotCounts, PlotPolygon, Rejection, StageSummary};
 use crate::util::{mean, median, sd};
 use geo::{Area, Centroid, Contains, LineString, Polygon};
@@ -50,7 +49,7 @@ pub struct PlotStats {
     pub status: String,
     pub reason: String,
     pub points: u64,
-    /// Yields at standard moisture in the trial's output unit.
+    /// Yields at standard moisture, kg/ha (tables show them in the output unit).
     pub yield_mean: f64,
     pub yield_median: f64,
     pub yield_trimmed_mean: f64,
@@ -214,8 +213,6 @@ pub fn run(
     design: &[DesignRow],
     design_file: &str,
     s: &PlotsSettings,
-    unit: OutputUnit,
-    crop: &Crop,
 ) -> PlotsOutput {
     // Plots in design order, so that overlaps and ties resolve the same way every run.
     let by_id: HashMap<&str, &PlotPolygon> =
@@ -395,7 +392,7 @@ pub fn run(
     for (k, (d, _)) in ordered.iter().enumerate() {
         let ys: Vec<f64> = members[k]
             .iter()
-            .map(|&i| unit.from_kg_ha(points[i].yield_std_kg_ha, crop))
+            .map(|&i| points[i].yield_std_kg_ha)
             .collect();
         let ms: Vec<f64> = members[k]
             .iter()
