@@ -4,6 +4,7 @@
 //! stage; the message names the file, row and column or the key); 2 a usage error (unknown
 //! command or flag, from clap).
 
+mod dry_run;
 mod glue;
 mod intake;
 mod io;
@@ -92,6 +93,13 @@ enum Command {
         /// Latitude of the first field (WGS84 degrees).
         #[arg(long, default_value_t = 40.60, allow_hyphen_values = true)]
         origin_lat: f64,
+        /// An on-farm strip trial: strips one header wide, the check alternating with one
+        /// product (instead of a randomised complete block design).
+        #[arg(long)]
+        strips: bool,
+        /// SD of each record's own yield noise before grain mixing, kg/ha.
+        #[arg(long, default_value_t = 400.0)]
+        point_noise: f64,
     },
     /// Take a harvest's exports from an inbox: match each to the trials its points fall in,
     /// copy it there, and rerun only the trials that got something new.
@@ -125,6 +133,8 @@ fn main() -> ExitCode {
             flow_delay,
             origin_lon,
             origin_lat,
+            strips,
+            point_noise,
         } => run::simulate(
             &dir,
             &simulate::SimOptions {
@@ -136,6 +146,8 @@ fn main() -> ExitCode {
                 flow_delay_s: flow_delay,
                 origin_lon,
                 origin_lat,
+                strips,
+                point_noise_kg_ha: point_noise,
                 ..Default::default()
             },
         ),

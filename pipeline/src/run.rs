@@ -481,8 +481,19 @@ fn unchanged_inputs(m: &Manifest, t: &Trial) -> Result<()> {
 pub fn check(trial: &Path, set: &[String]) -> Result<()> {
     let t = load(trial, set)?;
     let found = ingest::check(&t.cfg, &t.base);
-    let (warnings, problems): (Vec<String>, Vec<String>) =
+    let (mut warnings, mut problems): (Vec<String>, Vec<String>) =
         found.into_iter().partition(|p| p.starts_with("warning: "));
+    // With inputs that parse and a design that fits the plots, run the front half in
+    // memory to find what would go wrong later. Plot-table entry has no front half.
+    if problems.is_empty() && t.cfg.adjust.plot_table.is_empty() {
+        match crate::dry_run::front_half(&t.cfg, &t.base) {
+            Ok((w, p)) => {
+                warnings.extend(w.into_iter().map(|w| format!("warning: {w}")));
+                problems.extend(p);
+            }
+            Err(e) => problems.push(format!("{e:#}")),
+        }
+    }
     for w in &warnings {
         println!("{w}");
     }
@@ -504,6 +515,12 @@ pub fn simulate(dir: &Path, o: &simulate::SimOptions) -> Result<()> {
             "simulate needs at least one field and two blocks (got --fields {} --blocks {})",
             o.fields,
             o.blocks
+        );
+    }
+    if !(o.point_noise_kg_ha >= 0.0 && o.point_noise_kg_ha.is_finite()) {
+        bail!(
+            "--point-noise must be a number >= 0 (got {})",
+            o.point_noise_kg_ha
         );
     }
     if let Some(d) = o.flow_delay_s {

@@ -46,6 +46,12 @@ pub struct SimOptions {
     /// Where the first field lies (WGS84 degrees); later fields are 0.02 degrees east.
     pub origin_lon: f64,
     pub origin_lat: f64,
+    /// An on-farm strip trial instead of the RCBD: strips one header wide, the check
+    /// alternating with `prod-d` across each block (every check strip between two product
+    /// strips, closer together than the local outlier rule's radius).
+    pub strips: bool,
+    /// SD of each record's own yield noise before grain mixing, kg/ha.
+    pub point_noise_kg_ha: f64,
 }
 
 impl Default for SimOptions {
@@ -60,6 +66,8 @@ impl Default for SimOptions {
             flow_delay_s: None,
             origin_lon: -97.80,
             origin_lat: 40.60,
+            strips: false,
+            point_noise_kg_ha: 400.0,
         }
     }
 }
@@ -157,10 +165,15 @@ pub fn generate(o: &SimOptions) -> SimTrial {
     let fill_s = 1.2816 * mix_sd;
     let empty_s = fill_s;
     let base = 11_000.0;
-    let width_plot = 2.0 * HEADER_M;
+    // RCBD plots are two passes wide; strips one.
+    let (width_plot, ncol) = if o.strips {
+        (HEADER_M, 2 * TREATMENTS.len())
+    } else {
+        (2.0 * HEADER_M, TREATMENTS.len())
+    };
+    let passes_per_plot = (width_plot / HEADER_M).round() as usize;
     let alley = 6.0;
     let headland = 20.0;
-    let ncol = TREATMENTS.len();
     let length_u =
         2.0 * headland + o.blocks as f64 * o.plot_length_m + (o.blocks - 1) as f64 * alley;
     let mut files = Vec::new();
@@ -190,10 +203,17 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         // RCBD: each block a range, treatments shuffled across its columns.
         let mut layout = vec![vec![0usize; ncol]; o.blocks];
         let mut plot_noise = vec![vec![0.0; ncol]; o.blocks];
+        let prod_d = TREATMENTS.iter().position(|t| t.0 == "prod-d").unwrap_or(1);
         for (b, row) in layout.iter_mut().enumerate() {
-            let mut perm: Vec<usize> = (0..ncol).collect();
-            rng.shuffle(&mut perm);
-            *row = perm;
+            if o.strips {
+                *row = (0..ncol)
+                    .map(|c| if c % 2 == 0 { 0 } else { prod_d })
+                    .collect();
+            } else {
+                let mut perm: Vec<usize> = (0..ncol).collect();
+                rng.shuffle(&mut perm);
+                *row = perm;
+            }
             for c in 0..ncol {
                 plot_noise[b][c] = 250.0 * rng.normal();
             }
@@ -256,7 +276,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             }
         }
         // The harvest: serpentine passes, one header width apart.
-        let npass = 2 * ncol;
+        let npass = passes_per_plot * ncol;
         let partial_pass = rng.below(npass);
         let mut rows: Vec<Rec> = Vec::new();
         let mut t = t_start + 7200.0 * f as f64;
@@ -293,7 +313,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                             TREATMENTS[layout[b][c]].1 * o.effect_scale + plot_noise[b][c]
                         })
                         .unwrap_or(0.0)
-                    + 400.0 * rng.normal();
+                    + o.point_noise_kg_ha * rng.normal();
                 let m = (18.0 + moist.at(e, n) + 0.2 * rng.normal()).clamp(14.0, 24.0);
                 let mut labels = Vec::new();
                 if pass_t < fill_s {

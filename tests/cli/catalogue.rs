@@ -1,6 +1,6 @@
 //! A catalogue of broken inputs: each must stop run with exit code 1 and a message that
 //! names the file, row, column or key at fault, and leave no result that looks valid
-//! (no treatments.csv, no report). Most are also caught by check, which writes nothing.
+//! (no treatments.csv, no report). Every one is also caught by check, which writes nothing.
 
 use crate::common::*;
 
@@ -66,10 +66,10 @@ fn cases() -> Vec<(&'static str, Edit, bool, Vec<&'static str>)> {
         ("flow all NaN", Box::new(move |d: &Path| set_col(&mon(d), "mass_flow_lb_s", |_| "NaN".into())), true, vec!["export monitor/field-A.csv: none of its", "unparseable"]),
         ("flow all negative", Box::new(move |d: &Path| set_col(&mon(d), "mass_flow_lb_s", |_| "-1".into())), true, vec!["export monitor/field-A.csv: none of its", "negative_value"]),
         ("time not ISO 8601", Box::new(move |d: &Path| set_col(&mon(d), "time_utc", |v| v.replace('T', " at "))), true, vec!["export monitor/field-A.csv: none of its", "unparseable"]),
-        ("speed all zero", Box::new(move |d: &Path| set_col(&mon(d), "speed_mph", |_| "0".into())), false, vec!["export monitor/field-A.csv: all", "speed_min", "field A: no kept plot"]),
-        ("swath all zero", Box::new(move |d: &Path| set_col(&mon(d), "swath_ft", |_| "0".into())), false, vec!["export monitor/field-A.csv: all", "field A: no kept plot"]),
-        ("moisture all 200 %", Box::new(move |d: &Path| set_col(&mon(d), "moisture_pct", |_| "200".into())), false, vec!["export monitor/field-A.csv: all", "moisture_max", "field A"]),
-        ("a one-record export", Box::new(move |d: &Path| first_lines(&mon(d), 2)), false, vec!["monitor/field-A.csv", "field A"]),
+        ("speed all zero", Box::new(move |d: &Path| set_col(&mon(d), "speed_mph", |_| "0".into())), true, vec!["export monitor/field-A.csv: all", "speed_min", "field A: no kept plot"]),
+        ("swath all zero", Box::new(move |d: &Path| set_col(&mon(d), "swath_ft", |_| "0".into())), true, vec!["export monitor/field-A.csv: all", "field A: no kept plot"]),
+        ("moisture all 200 %", Box::new(move |d: &Path| set_col(&mon(d), "moisture_pct", |_| "200".into())), true, vec!["export monitor/field-A.csv: all", "moisture_max", "field A"]),
+        ("a one-record export", Box::new(move |d: &Path| first_lines(&mon(d), 2)), true, vec!["monitor/field-A.csv", "field A"]),
         ("design column renamed", Box::new(|d: &Path| replace(&d.join("design.csv"), "plot_id,treatment,block,field", "plot_id,treatment,block,paddock", 1)), true, vec!["design.csv: column \"field\"", "not in the header"]),
         ("design cell empty", Box::new(|d: &Path| { let t = read(&d.join("design.csv")); let second = t.lines().nth(1).unwrap().to_string(); let mut v: Vec<&str> = second.split(',').collect(); v[1] = ""; replace(&d.join("design.csv"), &second, &v.join(","), 1) }), true, vec!["design.csv, line 2, column \"treatment\": empty"]),
         ("design id twice", Box::new(|d: &Path| { let t = read(&d.join("design.csv")); let second = t.lines().nth(1).unwrap().to_string(); std::fs::write(d.join("design.csv"), format!("{t}{second}\n")).unwrap() }), true, vec!["design.csv, line", "duplicate plot id"]),

@@ -172,3 +172,38 @@ fn help_output_and_rejections_say_what_they_are() {
     let html = std::fs::read_to_string(w.path("run/5-report/report.html")).unwrap();
     assert!(html.contains("Products against the check (check)"));
 }
+
+#[test]
+fn check_finds_what_cleaning_and_the_plots_would_lose() {
+    // Exports that parse but that cleaning empties: speed all zero on field A's export and
+    // moisture at 200 % on field B's. Each field then loses every plot, which run refuses;
+    // check says so before any run, naming the field and the rules.
+    let w = Workdir::new("dryrun-clean");
+    let trial = simulate(&w, "t", &["--seed", "14"]);
+    let t = trial.to_str().unwrap();
+    ok(&plotsieve(&w.0, &["check", t]));
+    set_col(&w.path("t/monitor/field-A.csv"), "speed_mph", |_| {
+        "0".into()
+    });
+    set_col(&w.path("t/monitor/field-B.csv"), "moisture_pct", |_| {
+        "200".into()
+    });
+    let o = plotsieve(&w.0, &["check", t]);
+    assert_eq!(o.status.code(), Some(1));
+    let out = String::from_utf8_lossy(&o.stdout);
+    for want in [
+        "problem: adjust: field A: no kept plot",
+        "problem: adjust: field B: no kept plot",
+        "adjust.allow_missing_fields",
+        "warning: clean: export monitor/field-A.csv",
+        "speed_min",
+        "warning: clean: export monitor/field-B.csv",
+        "moisture_max",
+    ] {
+        assert!(out.contains(want), "expected {want:?} in:\n{out}");
+    }
+    // And run agrees: it fails on the same inputs.
+    let o = plotsieve(&w.0, &["run", t, "--out", "r", "--quiet"]);
+    assert_ne!(o.status.code(), Some(0));
+    assert!(!w.path("runs").exists(), "check writes nothing");
+}

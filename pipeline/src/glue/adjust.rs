@@ -26,9 +26,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             cfg.adjust.range_spacing_m,
         )?
     };
-    let s = cfg
-        .adjust
-        .checked(&cfg.trial.check, unit.kg_ha_per_unit());
+    let s = cfg.adjust.checked(&cfg.trial.check, unit.kg_ha_per_unit());
     let mut o = adjust::run_with(&plots, &s, progress)?;
     if !o.missing_fields.is_empty() {
         if !cfg.adjust.allow_missing_fields {

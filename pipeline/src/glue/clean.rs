@@ -5,8 +5,8 @@ use super::{write_stage_tables, Ctx};
 use crate::io;
 use crate::stage::Stage;
 use anyhow::Result;
-use plotsieve_stages::clean;
 use plotsieve_stages::table::StageSummary;
+use plotsieve_stages::{clean, ingest};
 
 /// Run the stage against the run folder.
 pub fn run(c: &Ctx) -> Result<StageSummary> {
@@ -17,8 +17,18 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let crop = &c.crop;
     let progress = c.progress;
     let epsg = c.epsg()?;
-    let pts = io::read_points(&out.join(Stage::Ingest.dir()).join("points.parquet"), epsg)?;
-    let o = clean::run_with(&pts, &cfg.clean, crop, progress);
+    let ing = out.join(Stage::Ingest.dir());
+    let pts = io::read_points(&ing.join("points.parquet"), epsg)?;
+    // The plots by treatment, so that rules comparing a record with its neighbours never
+    // compare across treatments.
+    let polygons = ingest::read_geojson(
+        &ing.join("plots.geojson"),
+        "1-ingest/plots.geojson",
+        "plot_id",
+    )?;
+    let design = io::read_table(&ing.join("design.csv"), &unit, "run stage ingest first")?;
+    let zones = clean::zones::Zones::new(&polygons, &design);
+    let o = clean::run_with(&pts, &cfg.clean, crop, Some(&zones), progress);
     let y: Vec<f64> = o
         .points
         .iter()

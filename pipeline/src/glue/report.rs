@@ -25,11 +25,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .collect::<Result<_>>()?;
     let adj = out.join(Stage::Adjust.dir());
     let treatments = io::read_table(&adj.join("treatments.csv"), &shown, ADJUST_FIRST)?;
-    let hyper = io::read_table(
-        &adj.join("hyperparameters.csv"),
-        &shown,
-        ADJUST_FIRST,
-    )?;
+    let hyper = io::read_table(&adj.join("hyperparameters.csv"), &shown, ADJUST_FIRST)?;
     // Every stage's warnings, at the top of both reports.
     let warnings: Vec<String> = summaries
         .iter()
@@ -70,13 +66,11 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let map_points: Vec<report::html::MapPoint> = pts
         .points
         .iter()
-        .map(|p| {
-            report::html::MapPoint {
-                x: p.x_m,
-                y: p.y_m,
-                yield_unit: unit.to_unit(clean::record_yield_kg_ha(p, crop)),
-                rule: removed.get(&p.id.to_string()).cloned().unwrap_or_default(),
-            }
+        .map(|p| report::html::MapPoint {
+            x: p.x_m,
+            y: p.y_m,
+            yield_unit: unit.to_unit(clean::record_yield_kg_ha(p, crop)),
+            rule: removed.get(&p.id.to_string()).cloned().unwrap_or_default(),
         })
         .collect();
     let polygons = ingest::read_geojson(

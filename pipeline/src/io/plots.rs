@@ -2,10 +2,10 @@
 //! statistics as properties (`plots_wgs84.geojson`, `3-plots/plots.geojson`), and the
 //! analyst's own plot table for plot-table entry.
 
-use plotsieve_stages::crop::YieldUnit;
 use super::table::Table;
 use super::write_json;
 use anyhow::{anyhow, bail, Context, Result};
+use plotsieve_stages::crop::YieldUnit;
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::table::PlotPolygon;
 use std::path::Path;

@@ -39,7 +39,12 @@ macro_rules! num {
 /// A yield column bound to an `f64` field (kg/ha; the file has the output unit).
 macro_rules! yld {
     ($name:expr, $field:ident, $d:expr) => {
-        yield_col($name, |r: &Self| r.$field, |r: &mut Self, x| r.$field = x, $d)
+        yield_col(
+            $name,
+            |r: &Self| r.$field,
+            |r: &mut Self, x| r.$field = x,
+            $d,
+        )
     };
 }
 

@@ -146,6 +146,26 @@ fn missing_fields(plots: &[PlotStats], out: &AdjustOutput) -> Vec<String> {
         .collect()
 }
 
+/// The fields of `plots` that adjust could not fit, each with why, found without fitting
+/// (no kept plot; no check, one treatment, too few plots or no variation): what
+/// `plotsieve check` reports before a run.
+pub fn unfittable_fields(plots: &[PlotStats], s: &FitSettings) -> Vec<String> {
+    let mut by_field: BTreeMap<&str, Vec<&PlotStats>> = BTreeMap::new();
+    for p in plots
+        .iter()
+        .filter(|p| p.status == "kept" && p.yield_mean.is_finite())
+    {
+        by_field.entry(&p.field).or_default().push(p);
+    }
+    let mut out = no_kept_plot(plots, &by_field);
+    for (f, ps) in by_field {
+        if let Err(w) = prepare(f, ps, s) {
+            out.push(w);
+        }
+    }
+    out
+}
+
 /// Run adjust on the kept plots.
 pub fn run(plots: &[PlotStats], s: &FitSettings) -> Result<AdjustOutput, AdjustError> {
     run_with(plots, s, &crate::progress::Progress::none())

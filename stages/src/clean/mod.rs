@@ -50,6 +50,8 @@ pub mod passes;
 pub mod rules;
 pub mod settings;
 pub mod spatial;
+pub mod timeline;
+pub mod zones;
 
 pub use delay::interpolate_at;
 pub use rules::tukey_fences;
@@ -140,6 +142,7 @@ fn clean_export<'a>(
     pts: &[&'a Point],
     s: &'a CleanSettings,
     crop: &'a Crop,
+    zones: Option<&zones::Zones>,
 ) -> (Vec<Work<'a>>, ExportDetails) {
     let header = if s.header_width_m > 0.0 {
         s.header_width_m
@@ -157,6 +160,7 @@ fn clean_export<'a>(
             wet: f64::NAN,
             std: f64::NAN,
             rejected: None,
+            zone: zones.map_or(zones::OUTSIDE, |z| z.label(p.x_m, p.y_m)),
         })
         .collect();
     // The sensors' time line: every record but repeated time stamps.
@@ -187,6 +191,7 @@ fn clean_export<'a>(
             moisture_delay_source: "fixed (clean.moisture_delay_s)".into(),
             flow_delay_estimate: None,
             moisture_delay_estimate: None,
+            time_steps_back: 0,
         },
         derived: Needs::Records,
     };
@@ -202,29 +207,56 @@ fn clean_export<'a>(
 
 /// Run clean on all exports (in parallel, one export per task).
 pub fn run(points: &PointSet, s: &CleanSettings, crop: &Crop) -> CleanOutput {
-    run_with(points, s, crop, &crate::progress::Progress::none())
+    run_with(points, s, crop, None, &crate::progress::Progress::none())
 }
 
-/// [`run`], reporting each export cleaned to `progress`.
+/// [`run`] with the trial's plots by treatment when they are known (rules that compare a
+/// record with its neighbours then stay within one treatment's plots), reporting each
+/// export cleaned to `progress`.
 pub fn run_with(
     points: &PointSet,
     s: &CleanSettings,
     crop: &Crop,
+    zones: Option<&zones::Zones>,
     progress: &crate::progress::Progress,
 ) -> CleanOutput {
     let mut by_file: BTreeMap<u32, Vec<&Point>> = BTreeMap::new();
     for p in &points.points {
         by_file.entry(p.file).or_default().push(p);
     }
+    // Records in the order they were logged, time stamps that step back repaired
+    // ([`timeline`]); the repaired copies live here while the exports are cleaned.
     for pts in by_file.values_mut() {
-        pts.sort_by(|a, b| a.time_s.total_cmp(&b.time_s).then(a.row.cmp(&b.row)));
+        pts.sort_by_key(|p| p.row);
     }
-    let groups: Vec<(u32, Vec<&Point>)> = by_file.into_iter().collect();
+    let mut repaired: BTreeMap<u32, (Vec<Point>, usize)> = BTreeMap::new();
+    for (f, pts) in &by_file {
+        let (t, back) = timeline::repair(&pts.iter().map(|p| p.time_s).collect::<Vec<_>>());
+        if back > 0 {
+            let fixed = pts
+                .iter()
+                .zip(t)
+                .map(|(p, t)| Point {
+                    time_s: t,
+                    ..(*p).clone()
+                })
+                .collect();
+            repaired.insert(*f, (fixed, back));
+        }
+    }
+    let groups: Vec<(u32, Vec<&Point>)> = by_file
+        .into_iter()
+        .map(|(f, pts)| match repaired.get(&f) {
+            Some((fixed, _)) => (f, fixed.iter().collect()),
+            None => (f, pts),
+        })
+        .collect();
     progress.start(groups.len() as u64, "exports cleaned");
     let results: Vec<(u32, Vec<Work>, ExportDetails)> = groups
         .par_iter()
         .map(|(f, pts)| {
-            let (w, d) = clean_export(pts, s, crop);
+            let (w, mut d) = clean_export(pts, s, crop, zones);
+            d.time_steps_back = repaired.get(f).map_or(0, |r| r.1);
             progress.step();
             (*f, w, d)
         })
@@ -273,9 +305,21 @@ pub fn run_with(
     summary
         .details
         .insert("disabled_rules".into(), serde_json::json!(s.disabled_rules));
+    // Rules that compare a record with its neighbours: with the plots known, only with
+    // records in plots of the same treatment.
+    summary.details.insert(
+        "neighbours_within_treatment".into(),
+        serde_json::json!(zones.is_some()),
+    );
     let mut warnings = export_warnings(points, &summary, s.warn_rule_share);
     for (f, d) in &details {
         warnings.extend(delay_warnings(f, d, s));
+        if d.time_steps_back > 0 {
+            warnings.push(format!(
+                "export {f}: its GPS time stepped back {} time(s); records were kept in file order and the time stamps after each step repaired",
+                d.time_steps_back
+            ));
+        }
     }
     summary.set_warnings(&warnings);
     CleanOutput {

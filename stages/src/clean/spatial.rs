@@ -101,10 +101,12 @@ pub fn overlap_fractions(fp: &[Footprint], skip_s: f64) -> Vec<f64> {
     out
 }
 
-/// Local outlier test for each point: Some((deviation, limit)) when it fails.
+/// Local outlier test for each point: Some((deviation, limit)) when it fails. A point's
+/// neighbours are the other points of its own group within `radius`.
 pub fn local_outliers(
     xy: &[(f64, f64)],
     y: &[f64],
+    group: &[u32],
     radius: f64,
     k: f64,
     min_neighbours: usize,
@@ -120,7 +122,7 @@ pub fn local_outliers(
         .map(|(i, p)| {
             let nb: Vec<f64> = tree
                 .locate_within_distance([p.0, p.1], radius * radius)
-                .filter(|g| g.data != i)
+                .filter(|g| g.data != i && group[g.data] == group[i])
                 .map(|g| y[g.data])
                 .collect();
             if nb.len() < min_neighbours {
@@ -185,7 +187,7 @@ mod tests {
             }
         }
         y[12] = 30.0;
-        let r = local_outliers(&xy, &y, 4.5, 3.0, 8);
+        let r = local_outliers(&xy, &y, &[0; 25], 4.5, 3.0, 8);
         assert!(r[12].is_some());
         assert_eq!(r.iter().filter(|x| x.is_some()).count(), 1);
     }

@@ -114,6 +114,9 @@ pub struct Work<'a> {
     pub wet: f64,
     pub std: f64,
     pub rejected: Option<Verdict>,
+    /// The treatment zone the record lies in ([`crate::clean::zones`]; all
+    /// [`crate::clean::zones::OUTSIDE`] while the plots are not known).
+    pub zone: u32,
 }
 
 impl Work<'_> {
@@ -147,9 +150,16 @@ pub struct ExportDetails {
     pub flow_delay_estimate: Option<DelayEstimate>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub moisture_delay_estimate: Option<DelayEstimate>,
+    /// Backward steps of the GPS time repaired ([`crate::clean::timeline`]).
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub time_steps_back: usize,
 }
 
-/// One export under cleaning: its points (time-ordered), the settings and what has been
+fn is_zero(n: &usize) -> bool {
+    *n == 0
+}
+
+/// One export under cleaning: its points (in file order, times repaired), the settings and what has been
 /// derived so far.
 pub struct Export<'a> {
     pub w: Vec<Work<'a>>,
@@ -245,6 +255,16 @@ pub(crate) mod testing {
         pts: Vec<Point>,
         tweak: impl Fn(&mut CleanSettings),
     ) -> Vec<Option<&'static str>> {
+        verdicts_in(rule, pts, None, tweak)
+    }
+
+    /// [`verdicts`] with the trial's plots by treatment known.
+    pub fn verdicts_in(
+        rule: &dyn Rule,
+        pts: Vec<Point>,
+        zones: Option<&crate::clean::zones::Zones>,
+        tweak: impl Fn(&mut CleanSettings),
+    ) -> Vec<Option<&'static str>> {
         let mut pts = pts;
         for (i, p) in pts.iter_mut().enumerate() {
             p.id = i as u64;
@@ -265,7 +285,13 @@ pub(crate) mod testing {
             points: pts,
             epsg: 32614,
         };
-        let out = crate::clean::run(&set, &s, &crop_table()["corn"]);
+        let out = crate::clean::run_with(
+            &set,
+            &s,
+            &crop_table()["corn"],
+            zones,
+            &crate::progress::Progress::none(),
+        );
         assert_eq!(out.points.len() + out.rejections.len(), n);
         (0..n)
             .map(|i| {
