@@ -228,7 +228,8 @@ fn a_delay_at_the_edge_of_its_scan_is_a_warning_and_the_applied_delay_is_reporte
     let w = Workdir::new("delayedge");
     let trial = simulate(&w, "t", &["--seed", "12", "--flow-delay", "12"]);
     let t = trial.to_str().unwrap();
-    // A scan that stops at 5 s cannot reach the true 12 s: the estimate sits at its edge.
+    // A scan that stops at 5 s, not widened, cannot reach the true 12 s: the estimate sits
+    // at its edge.
     let o = plotsieve(
         &w.0,
         &[
@@ -239,6 +240,8 @@ fn a_delay_at_the_edge_of_its_scan_is_a_warning_and_the_applied_delay_is_reporte
             "--quiet",
             "--set",
             "clean.delay.max_s=5",
+            "--set",
+            "clean.delay.widen=false",
         ],
     );
     ok(&o);
@@ -436,4 +439,68 @@ fn gps_time_stepping_back_keeps_the_records_in_logged_order() {
     assert_eq!(ex["monitor/field-B.csv"]["time_steps_back"], 1);
     let warnings = summary["details"]["warnings"].to_string();
     assert!(warnings.contains("GPS time stepped back"), "{warnings}");
+}
+
+#[test]
+fn the_delay_scan_widens_past_its_edge_and_takes_negative_lags() {
+    // The best lag at the upper edge of a 0-5 s scan: widened (to 0-10, then 0-20 s) it
+    // finds the true 12 s, and there is no edge warning.
+    let w = Workdir::new("delaywiden");
+    let trial = simulate(&w, "t", &["--seed", "12", "--flow-delay", "12"]);
+    let t = trial.to_str().unwrap();
+    let o = plotsieve(
+        &w.0,
+        &[
+            "run",
+            t,
+            "--out",
+            "run",
+            "--quiet",
+            "--set",
+            "clean.delay.max_s=5",
+        ],
+    );
+    ok(&o);
+    assert!(!String::from_utf8_lossy(&o.stderr).contains("edge of the scan"));
+    let s = json(&w.path("run/2-clean/summary.json"));
+    for (name, d) in s["details"]["exports"].as_object().unwrap() {
+        let lag = d["flow_delay_s"].as_f64().unwrap();
+        assert!((lag - 12.0).abs() < 1.0, "{name}: {lag}");
+        let curve = d["flow_delay_estimate"]["curve"].as_array().unwrap();
+        assert_eq!(curve.last().unwrap()[0].as_f64(), Some(20.0), "{name}");
+    }
+    // An export already delay-corrected (true delay 0): the best lag sat at the scan's lower
+    // edge, 0 s, with a warning; widened below 0 the estimate is within a second of 0 and
+    // inside the scan.
+    let trial = simulate(&w, "c", &["--seed", "12", "--flow-delay", "0"]);
+    let t = trial.to_str().unwrap();
+    let o = plotsieve(&w.0, &["run", t, "--out", "corrected", "--quiet"]);
+    ok(&o);
+    assert!(
+        !String::from_utf8_lossy(&o.stderr).contains("edge of the scan"),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let s = json(&w.path("corrected/2-clean/summary.json"));
+    for (name, d) in s["details"]["exports"].as_object().unwrap() {
+        let lag = d["flow_delay_s"].as_f64().unwrap();
+        assert!(lag.abs() < 1.0, "{name}: {lag}");
+        let curve = d["flow_delay_estimate"]["curve"].as_array().unwrap();
+        assert!(
+            curve[0][0].as_f64().unwrap() < -5.0,
+            "{name}: the scan went below 0"
+        );
+    }
+    // Negative lags may be asked for directly, within -20 to 40 s.
+    ok(&plotsieve(
+        &w.0,
+        &["check", t, "--set", "clean.delay.min_s=-5"],
+    ));
+    let o = plotsieve(&w.0, &["check", t, "--set", "clean.delay.min_s=-50"]);
+    assert_eq!(o.status.code(), Some(1));
+    let e = String::from_utf8_lossy(&o.stderr).to_string() + &String::from_utf8_lossy(&o.stdout);
+    assert!(
+        e.contains("clean.delay.min_s must be between -20 and 40 s (got -50)"),
+        "{e}"
+    );
 }

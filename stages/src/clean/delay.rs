@@ -86,6 +86,61 @@ pub fn opposite_pairs(pts: &[PairPoint], dist: f64) -> Vec<(usize, usize)> {
     pairs
 }
 
+/// The widest scan, seconds: settings stay within it and widening stops at it (wider than
+/// any delay reported by Beal & Tian 2001 on the positive side; negative lags for exports
+/// already corrected). Common practice, no source.
+pub const WIDEST: (f64, f64) = (-20.0, 40.0);
+
+/// The lag with the most pairs' agreement ([`estimate`] over `lo..=hi`); with `widen`, while
+/// the best coarse lag sits at an edge of the scan, the scan is widened past that edge by
+/// its width (at most twice, within [`WIDEST`]) and the lag estimated again. The
+/// returned curve covers the scan that was finally used.
+#[allow(clippy::too_many_arguments)]
+pub fn estimate_widening(
+    pts: &[PairPoint],
+    times: &[f64],
+    series: &[f64],
+    max_gap: f64,
+    lo: f64,
+    hi: f64,
+    step: f64,
+    dist: f64,
+    min_pairs: usize,
+    widen: bool,
+) -> Option<DelayEstimate> {
+    let (mut lo, mut hi) = (lo, hi);
+    let mut e = estimate(pts, times, series, max_gap, lo, hi, step, dist, min_pairs)?;
+    if !widen {
+        return Some(e);
+    }
+    for _ in 0..2 {
+        let k = coarse_best(&e.curve);
+        let by = (hi - lo).max(2.0 * step);
+        let (nlo, nhi) = if k == 0 && lo > WIDEST.0 {
+            ((lo - by).max(WIDEST.0), hi)
+        } else if k + 1 == e.curve.len() && hi < WIDEST.1 {
+            (lo, (hi + by).min(WIDEST.1))
+        } else {
+            break;
+        };
+        match estimate(pts, times, series, max_gap, nlo, nhi, step, dist, min_pairs) {
+            Some(x) => {
+                e = x;
+                (lo, hi) = (nlo, nhi);
+            }
+            None => break,
+        }
+    }
+    Some(e)
+}
+
+/// Index of the smallest objective on the coarse curve.
+pub fn coarse_best(curve: &[(f64, f64)]) -> usize {
+    (0..curve.len())
+        .min_by(|&a, &b| curve[a].1.total_cmp(&curve[b].1))
+        .unwrap_or(0)
+}
+
 /// Estimate the lag over the grid `lo..=hi` by `step`.
 #[allow(clippy::too_many_arguments)]
 pub fn estimate(
@@ -199,9 +254,7 @@ pub fn estimate(
         d[..keep].iter().sum::<f64>() / keep as f64
     };
     let curve: Vec<(f64, f64)> = lags.iter().map(|&l| (l, objective(l))).collect();
-    let k = (0..curve.len())
-        .min_by(|&a, &b| curve[a].1.total_cmp(&curve[b].1))
-        .unwrap_or(0);
+    let k = coarse_best(&curve);
     // Refine on a quarter-step grid around the best lag, then a parabola through the best
     // fine lag and its neighbours.
     let fine: Vec<(f64, f64)> = (-6..=6)
@@ -308,7 +361,7 @@ pub fn shift(e: &mut Export) {
             1.2 * header
         };
         let est = |series: &[f64], pts: &[PairPoint]| {
-            estimate(
+            estimate_widening(
                 pts,
                 &e.times,
                 series,
@@ -318,6 +371,7 @@ pub fn shift(e: &mut Export) {
                 s.delay.step_s,
                 dist,
                 s.delay.min_pairs as usize,
+                s.delay.widen,
             )
         };
         let flow_est = est(&e.flows, &core);

@@ -329,52 +329,54 @@ pub fn run_with(
     }
 }
 
-/// An estimated delay at the edge of its scan (the true delay may lie beyond it, or the
-/// export was already delay-corrected), or a fixed fallback where an estimate was asked for.
+/// An estimated delay at the edge of its (possibly widened) scan (the true delay may lie
+/// beyond it, or the export was already delay-corrected), a flat objective (the lag barely
+/// matters to the pairs' agreement: a weak estimate), or a fixed fallback where an estimate
+/// was asked for.
 fn delay_warnings(export: &str, d: &ExportDetails, s: &CleanSettings) -> Vec<String> {
     let mut out = Vec::new();
     if s.delay.mode != settings::DelayMode::Auto {
         return out;
     }
-    let (lo, hi) = (s.delay.min_s, s.delay.max_s);
-    // The coarse objective's minimum at the first or last candidate lag: the refinement may
-    // move the estimate a little inside, but the scan did not bracket a minimum.
-    let at_edge = |e: &Option<delay::DelayEstimate>, lag: f64| match e {
-        Some(e) if !e.curve.is_empty() => {
-            let k = e
-                .curve
-                .iter()
-                .enumerate()
-                .min_by(|a, b| a.1 .1.total_cmp(&b.1 .1))
-                .map(|(k, _)| k)
-                .unwrap_or(0);
-            k == 0 || k + 1 == e.curve.len()
-        }
-        _ => lag <= lo + 1e-9 || lag >= hi - 1e-9,
-    };
-    let (flow_edge, moisture_edge) = (
-        at_edge(&d.flow_delay_estimate, d.flow_delay_s),
-        at_edge(&d.moisture_delay_estimate, d.moisture_delay_s),
-    );
-    let mut check = |what: &str, lag: f64, source: &str, fixed_key: &str, asked: bool| {
+    let mut check = |what: &str,
+                     lag: f64,
+                     source: &str,
+                     est: &Option<delay::DelayEstimate>,
+                     fixed_key: &str,
+                     asked: bool| {
         if !asked {
             return;
         }
-        let edge = if what == "flow" {
-            flow_edge
-        } else {
-            moisture_edge
-        };
-        if source == "estimated" {
-            if edge {
-                out.push(format!(
-                    "export {export}: the {what} delay estimate {lag:.2} s sits at the edge of the scan ({lo}-{hi} s): the true delay may lie outside it, or the export is already delay-corrected; check it, or set clean.delay.mode = \"fixed\""
-                ));
-            }
-        } else {
+        if source != "estimated" {
             out.push(format!(
                 "export {export}: the {what} delay could not be estimated ({}); the fixed {fixed_key} = {lag} s was applied",
                 source.trim_start_matches("fixed (").trim_end_matches(')')
+            ));
+            return;
+        }
+        let Some(e) = est.as_ref().filter(|e| !e.curve.is_empty()) else {
+            return;
+        };
+        let (lo, hi) = (e.curve[0].0, e.curve[e.curve.len() - 1].0);
+        // The coarse objective's minimum at the first or last candidate lag: the refinement
+        // may move the estimate a little inside, but the scan did not bracket a minimum.
+        let k = delay::coarse_best(&e.curve);
+        if k == 0 || k + 1 == e.curve.len() {
+            out.push(format!(
+                "export {export}: the {what} delay estimate {lag:.2} s sits at the edge of the scan ({lo}-{hi} s): the true delay may lie outside it, or the export is already delay-corrected; check it, or set clean.delay.mode = \"fixed\""
+            ));
+            return;
+        }
+        let (min, max) = e
+            .curve
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |a, c| {
+                (a.0.min(c.1), a.1.max(c.1))
+            });
+        if max - min < FLAT_OBJECTIVE * min {
+            out.push(format!(
+                "export {export}: the {what} delay objective is flat over the scan ({lo}-{hi} s; it varies by {:.1} % of its minimum): the estimate {lag:.2} s is weak; check it, or set clean.delay.mode = \"fixed\"",
+                100.0 * (max - min) / min
             ));
         }
     };
@@ -382,6 +384,7 @@ fn delay_warnings(export: &str, d: &ExportDetails, s: &CleanSettings) -> Vec<Str
         "flow",
         d.flow_delay_s,
         &d.flow_delay_source,
+        &d.flow_delay_estimate,
         "clean.flow_delay_s",
         true,
     );
@@ -389,11 +392,17 @@ fn delay_warnings(export: &str, d: &ExportDetails, s: &CleanSettings) -> Vec<Str
         "moisture",
         d.moisture_delay_s,
         &d.moisture_delay_source,
+        &d.moisture_delay_estimate,
         "clean.moisture_delay_s",
         s.delay.estimate_moisture,
     );
     out
 }
+
+/// A delay objective whose range over the scan is under this fraction of its minimum is flat
+/// (common practice, no source: on simulated and sample exports the range is 2.7 to 36 times
+/// the minimum).
+const FLAT_OBJECTIVE: f64 = 0.1;
 
 /// Exports that lost every point, or more than `share` of them to one rule.
 fn export_warnings(points: &PointSet, summary: &StageSummary, share: f64) -> Vec<String> {

@@ -44,6 +44,7 @@ pub struct DelaySettings {
     pub pair_distance_m: f64,
     pub min_pairs: i64,
     pub estimate_moisture: bool,
+    pub widen: bool,
 }
 /// `[clean.pass]`.
 #[derive(Clone, Debug, Serialize, Deserialize)]
@@ -165,8 +166,6 @@ impl CleanSettings {
                 ("clean.outlier.tukey_k", c.outlier.tukey_k),
                 ("clean.outlier.local_radius_m", c.outlier.local_radius_m),
                 ("clean.outlier.local_k", c.outlier.local_k),
-                ("clean.delay.min_s", c.delay.min_s),
-                ("clean.delay.max_s", c.delay.max_s),
                 ("clean.delay.pair_distance_m", c.delay.pair_distance_m),
                 (
                     "clean.speed.max_change_fraction",
@@ -203,6 +202,15 @@ impl CleanSettings {
                 "clean.moisture.max_pct must be below 100 (got {})",
                 c.moisture.max_pct
             ));
+        }
+        let (wlo, whi) = crate::clean::delay::WIDEST;
+        for (key, v) in [
+            ("clean.delay.min_s", c.delay.min_s),
+            ("clean.delay.max_s", c.delay.max_s),
+        ] {
+            if !(v >= wlo && v <= whi) {
+                p.push(format!("{key} must be between {wlo} and {whi} s (got {v})"));
+            }
         }
         if c.delay.min_s > c.delay.max_s {
             p.push(format!(
