@@ -100,6 +100,14 @@ enum Command {
         /// SD of each record's own yield noise before grain mixing, kg/ha.
         #[arg(long, default_value_t = 400.0)]
         point_noise: f64,
+        /// Layout of the monitor exports: text (comma-delimited, speed column) or
+        /// distance_text (semicolons, decimal commas, date and time columns, distance per
+        /// record and interval instead of speed).
+        #[arg(long, default_value = "text")]
+        form: String,
+        /// Seconds between logged records (1-5).
+        #[arg(long, default_value_t = 1)]
+        interval_s: usize,
     },
     /// Take a harvest's exports from an inbox: match each to the trials its points fall in,
     /// copy it there, and rerun only the trials that got something new.
@@ -135,22 +143,32 @@ fn main() -> ExitCode {
             origin_lat,
             strips,
             point_noise,
-        } => run::simulate(
-            &dir,
-            &simulate::SimOptions {
-                seed,
-                fields,
-                blocks,
-                effect_scale,
-                trend_sd_kg_ha: trend_sd,
-                flow_delay_s: flow_delay,
-                origin_lon,
-                origin_lat,
-                strips,
-                point_noise_kg_ha: point_noise,
-                ..Default::default()
-            },
-        ),
+            form,
+            interval_s,
+        } => match simulate::SimForm::from_name(&form) {
+            None => Err(anyhow::anyhow!(
+                "--form {}",
+                plotsieve_stages::choice::refusal(simulate::SimForm::NAMES, &form)
+            )),
+            Some(form) => run::simulate(
+                &dir,
+                &simulate::SimOptions {
+                    seed,
+                    fields,
+                    blocks,
+                    effect_scale,
+                    trend_sd_kg_ha: trend_sd,
+                    flow_delay_s: flow_delay,
+                    origin_lon,
+                    origin_lat,
+                    strips,
+                    point_noise_kg_ha: point_noise,
+                    form,
+                    interval_s,
+                    ..Default::default()
+                },
+            ),
+        },
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -481,6 +481,11 @@ fn unchanged_inputs(m: &Manifest, t: &Trial) -> Result<()> {
 pub fn check(trial: &Path, set: &[String]) -> Result<()> {
     let t = load(trial, set)?;
     let found = ingest::check(&t.cfg, &t.base);
+    let (read_as, found): (Vec<String>, Vec<String>) =
+        found.into_iter().partition(|p| p.starts_with("read: "));
+    for r in &read_as {
+        println!("{r}");
+    }
     let (mut warnings, mut problems): (Vec<String>, Vec<String>) =
         found.into_iter().partition(|p| p.starts_with("warning: "));
     // With inputs that parse and a design that fits the plots, run the front half in
@@ -516,6 +521,9 @@ pub fn simulate(dir: &Path, o: &simulate::SimOptions) -> Result<()> {
             o.fields,
             o.blocks
         );
+    }
+    if !(1..=5).contains(&o.interval_s) {
+        bail!("--interval-s must be 1 to 5 seconds (got {})", o.interval_s);
     }
     if !(o.point_noise_kg_ha >= 0.0 && o.point_noise_kg_ha.is_finite()) {
         bail!(

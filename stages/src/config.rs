@@ -279,6 +279,11 @@ impl TrialConfig {
         for (i, l) in self.layout.iter().enumerate() {
             p.extend(l.problems(i));
         }
+        if !self.inputs.crs.is_empty() {
+            if let Err(e) = crate::projection::Crs::parse(&self.inputs.crs) {
+                p.push(format!("inputs.crs: {e}"));
+            }
+        }
         if self.inputs.monitor.is_empty() {
             p.push("inputs.monitor must list at least one export file or folder".into());
         }

@@ -52,6 +52,24 @@ pub struct SimOptions {
     pub strips: bool,
     /// SD of each record's own yield noise before grain mixing, kg/ha.
     pub point_noise_kg_ha: f64,
+    /// How the exports are written (the same harvest in each form).
+    pub form: SimForm,
+    /// Seconds between logged records (1-5): a record reports the mass flow averaged over
+    /// its interval and the distance travelled in it.
+    pub interval_s: usize,
+}
+
+crate::choice! {
+    /// `simulate --form`: the layout of the monitor exports.
+    pub enum SimForm {
+        /// Comma-delimited, ISO 8601 time, lon/lat, mass flow (lb/s), speed (mph), swath
+        /// (ft), moisture, heading, header state, HDOP.
+        Text = "text",
+        /// Semicolon-delimited with decimal commas, separate date (dd/mm/yyyy) and time
+        /// columns, distance travelled per record (in) and the record's interval (s) instead
+        /// of speed.
+        DistanceText = "distance_text",
+    }
 }
 
 impl Default for SimOptions {
@@ -68,6 +86,8 @@ impl Default for SimOptions {
             origin_lat: 40.60,
             strips: false,
             point_noise_kg_ha: 400.0,
+            form: SimForm::Text,
+            interval_s: 1,
         }
     }
 }
@@ -421,9 +441,10 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             series[j] * (1.0 - w) + series[(j + 1).min(n - 1)] * w
         };
         let moist_series: Vec<f64> = rows.iter().map(|r| r.moisture).collect();
-        let mut csv = String::from(
-            "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
-        );
+        let mut csv = String::from(match o.form {
+            SimForm::Text => "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
+            SimForm::DistanceText => "Date;Time;Longitude;Latitude;Flow_lb_s;Distance_in;Interval_s;Swath_ft;Moisture_pct;Heading_deg;Header;HDOP\n",
+        });
         let file_name = format!("monitor/field-{fname}.csv");
         let mut labels_out: BTreeMap<&str, Vec<u64>> = BTreeMap::new();
         let mut flows_out = Vec::with_capacity(n);
@@ -463,10 +484,20 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             moist_out.push(moisture);
             hdop_out.push(rng.range(0.6, 1.4));
         }
-        for i in 0..n {
-            let line = i as u64 + 2;
-            for l in &rows[i].labels {
-                labels_out.entry(l).or_default().push(line);
+        // Logged records: every `interval_s`-th second; each reports the flow averaged over
+        // its interval and the distance travelled in it.
+        let every = o.interval_s.max(1);
+        let logged: Vec<usize> = (0..n).filter(|i| i % every == 0).collect();
+        for (k, &i) in logged.iter().enumerate() {
+            let line = k as u64 + 2;
+            let from = (i + 1).saturating_sub(every);
+            for j in from..=i {
+                for l in &rows[j].labels {
+                    let v = labels_out.entry(l).or_default();
+                    if every == 1 || v.last() != Some(&line) {
+                        v.push(line);
+                    }
+                }
             }
             let heading = if i + 1 < n {
                 let (e0, n0) = frame.en(rows[i].pu, rows[i].v);
@@ -476,21 +507,49 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                 0.0
             };
             let r = &rows[i];
-            let _ = writeln!(
-                csv,
-                "{},{:.8},{:.8},{:.4},{:.3},{:.2},{:.2},{:.1},{},{:.2}",
-                iso(r.t),
-                r.frame_lonlat.0,
-                r.frame_lonlat.1,
-                flows_out[i].max(0.0) / 0.45359237,
-                r.speed / 0.44704,
-                r.width / 0.3048,
-                moist_out[i].clamp(5.0, 40.0),
-                heading,
-                u8::from(r.working),
-                hdop_out[i]
-            );
+            let span = (i + 1 - from) as f64;
+            let flow = flows_out[from..=i].iter().map(|f| f.max(0.0)).sum::<f64>() / span;
+            let distance: f64 = rows[from..=i].iter().map(|r| r.speed).sum();
+            match o.form {
+                SimForm::Text => {
+                    let _ = writeln!(
+                        csv,
+                        "{},{:.8},{:.8},{:.4},{:.3},{:.2},{:.2},{:.1},{},{:.2}",
+                        iso(r.t),
+                        r.frame_lonlat.0,
+                        r.frame_lonlat.1,
+                        flow / 0.45359237,
+                        r.speed / 0.44704,
+                        r.width / 0.3048,
+                        moist_out[i].clamp(5.0, 40.0),
+                        heading,
+                        u8::from(r.working),
+                        hdop_out[i]
+                    );
+                }
+                SimForm::DistanceText => {
+                    let stamp = iso(r.t);
+                    let date = format!("{}/{}/{}", &stamp[8..10], &stamp[5..7], &stamp[0..4]);
+                    let line = format!(
+                        "{date};{};{:.8};{:.8};{:.4};{:.1};{};{:.2};{:.2};{:.1};{};{:.2}",
+                        &stamp[11..19],
+                        r.frame_lonlat.0,
+                        r.frame_lonlat.1,
+                        flow / 0.45359237,
+                        distance / 0.0254,
+                        span as usize,
+                        r.width / 0.3048,
+                        moist_out[i].clamp(5.0, 40.0),
+                        heading,
+                        u8::from(r.working),
+                        hdop_out[i]
+                    );
+                    // Decimal commas (the delimiter is a semicolon).
+                    let _ = writeln!(csv, "{}", line.replace('.', ","));
+                }
+            }
         }
+        let n = logged.len();
         total_points += n;
         artifacts.insert(file_name.clone(), labels_out);
         files.push((file_name, csv));
@@ -522,7 +581,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         "truth.json".into(),
         serde_json::to_string_pretty(&truth).unwrap() + "\n",
     ));
-    files.push(("trial.toml".into(), trial_toml(o.seed)));
+    files.push(("trial.toml".into(), trial_toml(o.seed, o.form)));
     SimTrial {
         files,
         points: total_points,
@@ -564,7 +623,37 @@ pub fn iso(t: f64) -> String {
     )
 }
 
-fn trial_toml(seed: u64) -> String {
+const TEXT_COLUMNS: &str = r#"delimiter = ","
+time = { name = "time_utc", format = "iso8601" }
+longitude = "lon_deg"
+latitude = "lat_deg"
+flow = { name = "mass_flow_lb_s", unit = "lb_s" }
+speed = { name = "speed_mph", unit = "mph" }
+width = { name = "swath_ft", unit = "ft" }
+moisture = "moisture_pct"
+work_state = "header_state"
+hdop = "hdop"
+"#;
+
+const DISTANCE_COLUMNS: &str = r#"delimiter = ";"
+decimal = ","
+time = { name = "Time", format = "time_of_day", date = "Date", date_order = "dmy" }
+longitude = "Longitude"
+latitude = "Latitude"
+flow = { name = "Flow_lb_s", unit = "lb_s" }
+distance = { name = "Distance_in", unit = "in" }
+interval = "Interval_s"
+width = { name = "Swath_ft", unit = "ft" }
+moisture = "Moisture_pct"
+work_state = "Header"
+hdop = "HDOP"
+"#;
+
+fn trial_toml(seed: u64, form: SimForm) -> String {
+    let columns = match form {
+        SimForm::Text => TEXT_COLUMNS,
+        SimForm::DistanceText => DISTANCE_COLUMNS,
+    };
     format!(
         r#"# An invented trial made by `plotsieve simulate --seed {seed}` (Brackenmoor trial station,
 # a made-up place). Paths are relative to this file.
@@ -583,17 +672,7 @@ design = "design.csv"
 
 # How this combine's monitor names and scales its columns.
 [columns]
-delimiter = ","
-time = {{ name = "time_utc", format = "iso8601" }}
-longitude = "lon_deg"
-latitude = "lat_deg"
-flow = {{ name = "mass_flow_lb_s", unit = "lb_s" }}
-speed = {{ name = "speed_mph", unit = "mph" }}
-width = {{ name = "swath_ft", unit = "ft" }}
-moisture = "moisture_pct"
-work_state = "header_state"
-hdop = "hdop"
-
+{columns}
 [clean]
 # Flow and moisture delays are estimated per export (clean.delay.mode = "auto"); these are
 # the fallbacks when an export has too few opposite passes.

@@ -9,6 +9,7 @@ mod adjust;
 mod calibration;
 mod catalogue;
 mod cleaning;
+mod forms;
 mod geometry;
 mod inputs;
 mod intake;

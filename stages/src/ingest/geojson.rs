@@ -1,4 +1,6 @@
-//! Plot polygons from GeoJSON (RFC 7946, WGS84 lon/lat).
+//! Plot polygons from GeoJSON: RFC 7946 (WGS84 lon/lat), or in a projected CRS named by the
+//! file's `crs` member (the 2008 GeoJSON form, e.g. `urn:ogc:def:crs:EPSG::32614`) or by
+//! the trial's `inputs.crs` ([`read_plot_input`]).
 
 use super::IngestError;
 use crate::table::PlotPolygon;
@@ -14,12 +16,56 @@ fn ring_from_json(v: &serde_json::Value) -> Option<Vec<(f64, f64)>> {
         .collect()
 }
 
-/// Read plot polygons from GeoJSON (Polygon or single-part MultiPolygon features).
+/// Read plot polygons from GeoJSON (Polygon or single-part MultiPolygon features), with
+/// coordinates as the file has them.
 pub fn read_geojson(
     path: &Path,
     name: &str,
     id_prop: &str,
 ) -> Result<Vec<PlotPolygon>, IngestError> {
+    read_with_crs(path, name, id_prop).map(|(p, _)| p)
+}
+
+/// The analyst's plot file in WGS84 lon/lat: coordinates in the CRS its `crs` member names,
+/// else in `crs` (the trial's `inputs.crs`; empty: WGS84 lon/lat), brought to lon/lat.
+pub fn read_plot_input(
+    path: &Path,
+    name: &str,
+    id_prop: &str,
+    crs: &str,
+) -> Result<Vec<PlotPolygon>, IngestError> {
+    let (mut polys, own) = read_with_crs(path, name, id_prop)?;
+    let named = own.unwrap_or_else(|| crs.to_string());
+    if named.is_empty() {
+        return Ok(polys);
+    }
+    let unusable = |message: String| IngestError::Unusable {
+        file: name.to_string(),
+        message,
+    };
+    let c = crate::projection::Crs::parse(&named).map_err(|e| unusable(format!("crs: {e}")))?;
+    if c.code() == 4326 {
+        return Ok(polys);
+    }
+    for p in &mut polys {
+        let id = p.plot_id.clone();
+        for ring in std::iter::once(&mut p.exterior).chain(p.holes.iter_mut()) {
+            for v in ring.iter_mut() {
+                *v = c.to_wgs84(v.0, v.1).map_err(|e| {
+                    unusable(format!("plot {id}: {e} (coordinates in EPSG:{})", c.code()))
+                })?;
+            }
+        }
+    }
+    Ok(polys)
+}
+
+/// Polygons and the CRS the file's `crs` member names (None without one, or for CRS84).
+fn read_with_crs(
+    path: &Path,
+    name: &str,
+    id_prop: &str,
+) -> Result<(Vec<PlotPolygon>, Option<String>), IngestError> {
     let text = std::fs::read_to_string(path).map_err(|e| IngestError::Read {
         file: name.to_string(),
         message: e.to_string(),
@@ -99,5 +145,12 @@ pub fn read_geojson(
     if out.is_empty() {
         return Err(unusable("no plot features".into()));
     }
-    Ok(out)
+    let crs = v
+        .get("crs")
+        .and_then(|c| c.get("properties"))
+        .and_then(|p| p.get("name"))
+        .and_then(|n| n.as_str())
+        .filter(|n| !n.to_ascii_uppercase().ends_with("CRS84"))
+        .map(String::from);
+    Ok((out, crs))
 }

@@ -204,8 +204,15 @@ pub fn run_with(
     let mut raw = Vec::new();
     let mut rejections = Vec::new();
     let mut count_in = 0;
+    // How each export was read (format and mapping), for the summary and the report.
+    let mut how: std::collections::BTreeMap<String, String> = Default::default();
     for (i, (p, name)) in files.iter().zip(&names).enumerate() {
-        let read = formats::for_file(p).read(cfg, p, name, i as u32)?;
+        let format = formats::for_file(p);
+        how.insert(
+            name.clone(),
+            format!("{}: {}", format.name(), format.describe(cfg)),
+        );
+        let read = format.read(cfg, p, name, i as u32)?;
         count_in += read.rows;
         raw.extend(read.points);
         rejections.extend(read.rejections);
@@ -213,10 +220,11 @@ pub fn run_with(
     }
     let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design)?;
     let polygons_ll = if cfg.layout.is_empty() {
-        read_geojson(
+        geojson::read_plot_input(
             &base.join(&cfg.inputs.plots),
             &cfg.inputs.plots,
             &cfg.inputs.plot_id_property,
+            &cfg.inputs.crs,
         )?
     } else {
         Vec::new()
@@ -295,6 +303,9 @@ pub fn run_with(
     summary
         .details
         .insert("files".into(), serde_json::json!(names.len()));
+    summary
+        .details
+        .insert("read_as".into(), serde_json::json!(how));
     summary
         .details
         .insert("plots".into(), serde_json::json!(polygons.len()));
@@ -398,6 +409,11 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
             for (i, p) in files.iter().enumerate() {
                 let name = display(base, p);
                 let format = formats::for_file(p);
+                problems.push(format!(
+                    "read: {name}: {}: {}",
+                    format.name(),
+                    format.describe(cfg)
+                ));
                 if let Err(e) = format.check(cfg, p, &name) {
                     problems.push(e);
                     continue;
@@ -421,10 +437,11 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
     }
     let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design);
     let polys = if cfg.layout.is_empty() {
-        read_geojson(
+        geojson::read_plot_input(
             &base.join(&cfg.inputs.plots),
             &cfg.inputs.plots,
             &cfg.inputs.plot_id_property,
+            &cfg.inputs.crs,
         )
         .map(|p| (p, cfg.inputs.plots.clone()))
     } else {

@@ -26,6 +26,9 @@ pub struct InputsSection {
     pub plot_id_property: String,
     /// Design table CSV with columns plot_id, treatment, block, field.
     pub design: String,
+    /// The CRS of coordinates in the inputs (`EPSG:32614`, ...): monitor exports' x/y
+    /// columns, and plot files without a `crs` member of their own. Empty: WGS84 lon/lat.
+    pub crs: String,
 }
 
 /// Mass-flow units a monitor may log.
@@ -43,7 +46,7 @@ pub enum SpeedUnit {
     KmH,
     Mph,
 }
-/// Width units a monitor may log.
+/// Width (and distance) units a monitor may log.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum WidthUnit {
@@ -59,14 +62,29 @@ pub enum TimeFormat {
     Iso8601,
     /// Seconds since 1970-01-01 UTC.
     UnixS,
+    /// `10:22:05` or `10:22:05.5` (UTC), with the date in the column `time.date`.
+    TimeOfDay,
 }
 
-/// A mapped column with its unit.
+/// Order of day, month and year in a date column (`18/09/2026`, `09/18/2026`, `2026-09-18`).
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum DateOrder {
+    Dmy,
+    Mdy,
+    Ymd,
+}
+
+/// A mapped column with its unit, or (where allowed) a fixed value in that unit for an
+/// export that lacks the column.
 #[derive(Clone, Debug, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct Mapped<U> {
+    #[serde(default)]
     pub name: String,
     pub unit: U,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub value: Option<f64>,
 }
 
 /// `[columns]`: how the monitor export names and scales its columns.
@@ -75,11 +93,28 @@ pub struct Mapped<U> {
 pub struct ColumnsSection {
     /// Field delimiter, one character.
     pub delimiter: String,
+    /// Decimal separator of numbers: "." or "," (with another delimiter, e.g. ";").
+    #[serde(default = "dot", skip_serializing_if = "is_dot")]
+    pub decimal: String,
     pub time: TimeColumn,
+    /// Longitude column (or easting, `x`, with `inputs.crs`).
+    #[serde(alias = "x")]
     pub longitude: String,
+    /// Latitude column (or northing, `y`, with `inputs.crs`).
+    #[serde(alias = "y")]
     pub latitude: String,
     pub flow: Mapped<FlowUnit>,
-    pub speed: Mapped<SpeedUnit>,
+    /// Ground speed; may be left out when `distance` is given.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub speed: Option<Mapped<SpeedUnit>>,
+    /// Distance travelled during each record (m, ft or in): speed = distance / interval.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub distance: Option<Mapped<WidthUnit>>,
+    /// Column of each record's interval in seconds (with `distance`); left empty, the
+    /// interval is the time since the previous record.
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub interval: String,
+    /// Swath width column, or `value` for an export without one.
     pub width: Mapped<WidthUnit>,
     /// Grain moisture column, in percent (wet basis).
     pub moisture: String,
@@ -100,6 +135,19 @@ pub struct ColumnsSection {
 pub struct TimeColumn {
     pub name: String,
     pub format: TimeFormat,
+    /// With `format = "time_of_day"`: the date column and its order.
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub date: String,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub date_order: Option<DateOrder>,
+}
+
+fn dot() -> String {
+    ".".into()
+}
+
+fn is_dot(s: &str) -> bool {
+    s == "."
 }
 
 /// `[ingest]` settings.
@@ -130,6 +178,93 @@ impl ColumnsSection {
                 "columns.delimiter must be one character (got {:?})",
                 self.delimiter
             ));
+        }
+        if self.decimal != "." && self.decimal != "," {
+            p.push(format!(
+                "columns.decimal must be \".\" or \",\" (got {:?})",
+                self.decimal
+            ));
+        } else if self.decimal == self.delimiter {
+            p.push(format!(
+                "columns.decimal and columns.delimiter are both {:?}; a decimal comma needs another delimiter, e.g. \";\"",
+                self.decimal
+            ));
+        }
+        match (&self.speed, &self.distance) {
+            (None, None) => p.push(
+                "[columns] needs speed (a speed column) or distance (distance travelled per record)"
+                    .into(),
+            ),
+            (Some(_), Some(_)) => p.push(
+                "[columns] has both speed and distance; give one (speed is read, or computed from distance / interval)".into(),
+            ),
+            _ => {}
+        }
+        if !self.interval.is_empty() && self.distance.is_none() {
+            p.push("columns.interval is only read with columns.distance".into());
+        }
+        for (key, name, value, fixed_ok) in [
+            ("flow", &self.flow.name, self.flow.value, false),
+            (
+                "speed",
+                &self
+                    .speed
+                    .as_ref()
+                    .map(|m| m.name.clone())
+                    .unwrap_or_default(),
+                self.speed.as_ref().and_then(|m| m.value),
+                false,
+            ),
+            (
+                "distance",
+                &self
+                    .distance
+                    .as_ref()
+                    .map(|m| m.name.clone())
+                    .unwrap_or_default(),
+                self.distance.as_ref().and_then(|m| m.value),
+                true,
+            ),
+            ("width", &self.width.name, self.width.value, true),
+        ] {
+            let mapped = key == "flow"
+                || (key == "speed" && self.speed.is_some())
+                || (key == "distance" && self.distance.is_some())
+                || key == "width";
+            if !mapped {
+                continue;
+            }
+            match (name.is_empty(), value) {
+                (true, None) => p.push(format!(
+                    "columns.{key} needs a column name{}",
+                    if fixed_ok { " or a fixed value" } else { "" }
+                )),
+                (false, Some(_)) => p.push(format!(
+                    "columns.{key} has both a column name and a value; give one"
+                )),
+                (true, Some(v)) if !fixed_ok => p.push(format!(
+                    "columns.{key} must be a column (a fixed value {v} is not accepted for it)"
+                )),
+                (true, Some(v)) if !(v > 0.0 && v.is_finite()) => {
+                    p.push(format!("columns.{key}.value must be above 0 (got {v})"))
+                }
+                _ => {}
+            }
+        }
+        let t = &self.time;
+        match t.format {
+            TimeFormat::TimeOfDay => {
+                if t.date.is_empty() || t.date_order.is_none() {
+                    p.push("columns.time with format = \"time_of_day\" needs date (the date column) and date_order (\"dmy\", \"mdy\" or \"ymd\")".into());
+                }
+            }
+            _ => {
+                if !t.date.is_empty() || t.date_order.is_some() {
+                    p.push(
+                        "columns.time.date and date_order go with format = \"time_of_day\"".into(),
+                    );
+                }
+            }
         }
     }
 }

@@ -59,9 +59,61 @@ pub fn parse_iso8601(s: &str) -> Option<f64> {
     Some((days * 86_400 + h * 3600 + mi * 60 + se - offset) as f64 + frac)
 }
 
+/// Parse a date (`18/09/2026`, `09-18-2026`, `2026.09.18`: any of `/`, `-`, `.` between
+/// day, month and a four-digit year in `order`) and a time of day (`09:00:03[.f]`, UTC) to
+/// seconds since 1970-01-01 UTC.
+pub fn parse_date_time(
+    date: &str,
+    time: &str,
+    order: crate::ingest::settings::DateOrder,
+) -> Option<f64> {
+    use crate::ingest::settings::DateOrder;
+    let parts: Vec<&str> = date.trim().split(['/', '-', '.']).collect();
+    if parts.len() != 3
+        || parts
+            .iter()
+            .any(|p| p.is_empty() || !p.bytes().all(|c| c.is_ascii_digit()))
+    {
+        return None;
+    }
+    let (y, m, d) = match order {
+        DateOrder::Dmy => (parts[2], parts[1], parts[0]),
+        DateOrder::Mdy => (parts[2], parts[0], parts[1]),
+        DateOrder::Ymd => (parts[0], parts[1], parts[2]),
+    };
+    if y.len() != 4 || m.len() > 2 || d.len() > 2 {
+        return None;
+    }
+    let t = time.trim();
+    // hh:mm:ss with an optional fraction; a one-digit hour is allowed.
+    let t = if t.find(':') == Some(1) {
+        format!("0{t}")
+    } else {
+        t.to_string()
+    };
+    parse_iso8601(&format!("{y}-{m:0>2}-{d:0>2}T{t}Z"))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn separate_date_and_time_columns() {
+        use crate::ingest::settings::DateOrder::*;
+        let want = Some(946_684_801.5);
+        assert_eq!(parse_date_time("01/01/2000", "00:00:01.5", Dmy), want);
+        assert_eq!(parse_date_time("1-1-2000", "0:00:01.5", Mdy), want);
+        assert_eq!(parse_date_time("2000.01.01", "00:00:01.5", Ymd), want);
+        // 18 September 2026 09:00:00 UTC (1 789 722 000 s, as the simulator writes it).
+        assert_eq!(
+            parse_date_time("18/09/2026", "09:00:00", Dmy),
+            Some(1_789_722_000.0)
+        );
+        assert_eq!(parse_date_time("18/09/2026", "09:00:00", Mdy), None);
+        assert_eq!(parse_date_time("18/09/26", "09:00:00", Dmy), None);
+        assert_eq!(parse_date_time("18/09/2026", "9h00", Dmy), None);
+    }
 
     #[test]
     fn iso8601_by_hand() {

@@ -13,14 +13,15 @@
 //!    along its longer side) shrunk by `end_trim_m` at each end and `side_trim_m` at each side.
 //!    A point of the plot outside the net plot is `border_trim`.
 //! 3. Swath straddle: the point's swath footprint (logged width across its heading, distance
-//!    since the previous point along it) must lie at least `min_swath_inside` inside the net
+//!    since the previous point along it, at most two of the export's logging intervals) must
+//!    lie at least `min_swath_inside` inside the net
 //!    plot (exact clipping, [`geometry::clip_area`]), else `swath_straddle`.
 //! 4. Per plot: point count, harvested area (union of footprints within the net plot, on a
 //!    raster of `coverage_cell_m`) and its fraction of the net area, mean, median, trimmed
 //!    mean (`trim_fraction` off each tail) and SD of yield at standard moisture, mean
 //!    moisture, centroid, and grid coordinates (range along travel, row across, and metres
 //!    along and across from the field's first plot). Plots with fewer than `min_points`
-//!    points or a coverage below `min_coverage` are set aside (`min_points`,
+//!    points (one-second records: a record of an export logging every 3 s counts 3) or a coverage below `min_coverage` are set aside (`min_points`,
 //!    `min_coverage`) and stay in the table, flagged.
 //!
 //! Complexity: O(n log m) for n points and m plots, plus the footprint raster per plot.
@@ -245,6 +246,23 @@ pub fn run(
             .cmp(&(q.file, points[b].pass))
             .then(p.time_s.total_cmp(&q.time_s))
     });
+    // Each export's logging interval: the median time step between consecutive kept points
+    // of a pass (1 s for a monitor logging every second, 3 s for one logging every 3 s).
+    let mut steps: HashMap<u32, Vec<f64>> = HashMap::new();
+    for w in order.windows(2) {
+        let (p, q) = (&points[w[0]], &points[w[1]]);
+        if p.base.file == q.base.file && p.pass == q.pass {
+            let dt = q.base.time_s - p.base.time_s;
+            if dt > 0.0 {
+                steps.entry(p.base.file).or_default().push(dt);
+            }
+        }
+    }
+    let interval: HashMap<u32, f64> = steps
+        .into_iter()
+        .map(|(f, v)| (f, crate::util::median(&v)))
+        .filter(|(_, m)| m.is_finite() && *m > 0.0)
+        .collect();
     let mut footprint: Vec<Vec<(f64, f64)>> = vec![Vec::new(); points.len()];
     for (k, &i) in order.iter().enumerate() {
         let same = |j: usize| {
@@ -264,9 +282,12 @@ pub fn run(
         } else {
             (0.0, 1.0)
         };
+        // Distance travelled since the previous record: at most two logging intervals (a
+        // removed record between two kept ones), one interval for the first of a pass.
+        let step = interval.get(&p.file).copied().unwrap_or(1.0);
         let dt = prev
-            .map(|j| (p.time_s - points[j].base.time_s).clamp(0.0, 2.0))
-            .unwrap_or(1.0);
+            .map(|j| (p.time_s - points[j].base.time_s).clamp(0.0, 2.0 * step))
+            .unwrap_or(step);
         footprint[i] = oriented_rect(p.x_m, p.y_m, ux, uy, (p.speed_m_s * dt).max(0.1), p.width_m);
     }
     let mut assignment = Vec::new();
@@ -408,11 +429,26 @@ pub fn run(
             geometry::coverage(&net_ring, &fps, s.coverage_cell_m)
         };
         let n = ys.len() as u64;
-        let reason = if n < s.min_points as u64 {
+        // Records in one-second terms: a record of an export logging every 3 s counts 3.
+        let seconds: f64 = members[k]
+            .iter()
+            .map(|&i| {
+                interval
+                    .get(&points[i].base.file)
+                    .copied()
+                    .unwrap_or(1.0)
+                    .max(1.0)
+            })
+            .sum();
+        let reason = if seconds < s.min_points as f64 {
             Some((
                 "min_points",
                 "points",
-                n.to_string(),
+                if seconds == n as f64 {
+                    n.to_string()
+                } else {
+                    format!("{n} records of {seconds:.0} s")
+                },
                 format!(">= {}", s.min_points),
             ))
         } else if cov < s.min_coverage {

@@ -270,6 +270,14 @@ pub fn render(r: &HtmlInput) -> String {
             let _ = write!(s, "</tbody></table>");
         }
     }
+    let read_as = super::exports_read_as(r.summaries);
+    if !read_as.is_empty() {
+        let _ = write!(s, "<h3>How each export was read</h3><table><thead><tr><th>export</th><th>format and mapping</th></tr></thead><tbody>");
+        for (e, how) in &read_as {
+            let _ = write!(s, "<tr><td>{}</td><td>{}</td></tr>", esc(e), esc(how));
+        }
+        let _ = write!(s, "</tbody></table>");
+    }
     let delays = super::delays_applied(r.summaries);
     if !delays.is_empty() {
         let _ = write!(s, "<h3>Delays applied per export</h3><table><thead><tr><th>export</th><th>flow delay (s)</th><th>how</th><th>moisture delay (s)</th><th>how</th></tr></thead><tbody>");

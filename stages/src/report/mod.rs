@@ -86,6 +86,15 @@ pub fn markdown(r: &ReportInput) -> String {
             }
         }
     }
+    let read_as = exports_read_as(r.summaries);
+    if !read_as.is_empty() {
+        let _ = writeln!(s, "\n## How each export was read\n");
+        let _ = writeln!(s, "| export | format and mapping |");
+        let _ = writeln!(s, "|---|---|");
+        for (e, how) in &read_as {
+            let _ = writeln!(s, "| {e} | {} |", how.replace('|', "/"));
+        }
+    }
     let delays = delays_applied(r.summaries);
     if !delays.is_empty() {
         let _ = writeln!(s, "\n## Delays applied per export\n");
@@ -182,6 +191,20 @@ pub(crate) struct DelayApplied {
 }
 
 /// The delays applied per export, from clean's summary (`details.exports`).
+/// (export, format and mapping) from ingest's summary, in export order.
+pub(crate) fn exports_read_as(summaries: &[StageSummary]) -> Vec<(String, String)> {
+    summaries
+        .iter()
+        .filter(|x| x.stage == "ingest")
+        .filter_map(|x| x.details.get("read_as"))
+        .filter_map(|v| v.as_object())
+        .flat_map(|m| {
+            m.iter()
+                .map(|(k, v)| (k.clone(), v.as_str().unwrap_or_default().to_string()))
+        })
+        .collect()
+}
+
 pub(crate) fn delays_applied(summaries: &[StageSummary]) -> Vec<DelayApplied> {
     let Some(exports) = summaries
         .iter()

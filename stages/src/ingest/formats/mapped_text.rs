@@ -8,6 +8,7 @@
 use super::{reject, ExportRead, MonitorFormat, RawPoint};
 use crate::config::TrialConfig;
 use crate::ingest::settings::{FlowUnit, SpeedUnit, TimeFormat, WidthUnit};
+use crate::ingest::time::parse_date_time;
 use crate::ingest::{parse_iso8601, IngestError};
 use std::path::Path;
 
@@ -17,14 +18,31 @@ pub struct MappedText;
 /// Positions of the mapped columns in one export's header.
 struct ColumnIndex {
     time: usize,
+    /// The date column of a time-of-day stamp.
+    date: Option<usize>,
     lon: usize,
     lat: usize,
     flow: usize,
-    speed: usize,
-    width: usize,
+    motion: Motion,
+    /// None: the fixed `columns.width.value`.
+    width: Option<usize>,
     moisture: usize,
     /// Optional columns: (index, name) when mapped.
     optional: [Option<(usize, String)>; 3],
+}
+
+/// How ground speed is read.
+enum Motion {
+    /// A speed column and its factor to m/s.
+    Speed(usize, f64),
+    /// Distance per record (column, or fixed value in m) and its factor to metres; the
+    /// record's interval from a column or from the time since the previous record.
+    Distance {
+        col: Option<usize>,
+        fixed_m: f64,
+        factor: f64,
+        interval: Option<usize>,
+    },
 }
 
 fn column_index(
@@ -44,31 +62,126 @@ fn column_index(
                 found: header.iter().collect::<Vec<_>>().join(", "),
             })
     };
+    let opt = |name: &str, key: &str| -> Result<Option<usize>, IngestError> {
+        if name.is_empty() {
+            Ok(None)
+        } else {
+            find(name, key).map(Some)
+        }
+    };
+    // Looked up in the order of the mapping, so a header that fits nothing names the time.
+    let (time, date) = (
+        find(&c.time.name, "time.name")?,
+        opt(&c.time.date, "time.date")?,
+    );
+    let (lon, lat) = (
+        find(&c.longitude, "longitude")?,
+        find(&c.latitude, "latitude")?,
+    );
+    let flow = find(&c.flow.name, "flow.name")?;
+    let motion = match (&c.speed, &c.distance) {
+        (Some(sp), _) => Motion::Speed(find(&sp.name, "speed.name")?, speed_factor(sp.unit)),
+        (None, Some(d)) => Motion::Distance {
+            col: opt(&d.name, "distance.name")?,
+            fixed_m: d.value.unwrap_or(f64::NAN) * width_factor(d.unit),
+            factor: width_factor(d.unit),
+            interval: opt(&c.interval, "interval")?,
+        },
+        (None, None) => {
+            return Err(IngestError::Unusable {
+                file: file.to_string(),
+                message: "[columns] maps neither speed nor distance".into(),
+            })
+        }
+    };
     Ok(ColumnIndex {
-        time: find(&c.time.name, "time.name")?,
-        lon: find(&c.longitude, "longitude")?,
-        lat: find(&c.latitude, "latitude")?,
-        flow: find(&c.flow.name, "flow.name")?,
-        speed: find(&c.speed.name, "speed.name")?,
-        width: find(&c.width.name, "width.name")?,
+        time,
+        date,
+        lon,
+        lat,
+        flow,
+        motion,
+        width: opt(&c.width.name, "width.name")?,
         moisture: find(&c.moisture, "moisture")?,
         optional: [
             (&c.work_state, "work_state"),
             (&c.hdop, "hdop"),
             (&c.fix_quality, "fix_quality"),
         ]
-        .map(|(name, key)| {
-            if name.is_empty() {
-                Ok(None)
-            } else {
-                find(name, key).map(|i| Some((i, name.clone())))
-            }
-        })
+        .map(|(name, key)| opt(name, key).map(|i| i.map(|i| (i, name.clone()))))
         .into_iter()
         .collect::<Result<Vec<_>, _>>()?
         .try_into()
         .expect("three optional columns"),
     })
+}
+
+/// A unit or order as the trial file spells it (`lb_s`, `mph`, `dmy`).
+fn spelled<U: serde::Serialize>(u: &U) -> String {
+    serde_json::to_value(u)
+        .ok()
+        .and_then(|v| v.as_str().map(String::from))
+        .unwrap_or_default()
+}
+
+/// How the mapping reads an export, in words (for `check` and the ingest summary).
+fn describe(cfg: &TrialConfig) -> String {
+    let c = &cfg.columns;
+    let mut parts = vec![format!(
+        "delimiter {:?}, decimal {:?}",
+        c.delimiter, c.decimal
+    )];
+    parts.push(match c.time.format {
+        TimeFormat::Iso8601 => format!("time {} (ISO 8601)", c.time.name),
+        TimeFormat::UnixS => format!("time {} (Unix seconds)", c.time.name),
+        TimeFormat::TimeOfDay => format!(
+            "date {} ({}) and time {}",
+            c.time.date,
+            c.time.date_order.as_ref().map(spelled).unwrap_or_default(),
+            c.time.name
+        ),
+    });
+    parts.push(if cfg.inputs.crs.is_empty() {
+        format!("lon/lat {}/{}", c.longitude, c.latitude)
+    } else {
+        format!(
+            "x/y {}/{} in {} (inputs.crs)",
+            c.longitude, c.latitude, cfg.inputs.crs
+        )
+    });
+    parts.push(format!("flow {} ({})", c.flow.name, spelled(&c.flow.unit)));
+    match (&c.speed, &c.distance) {
+        (Some(sp), _) => parts.push(format!("speed {} ({})", sp.name, spelled(&sp.unit))),
+        (None, Some(d)) => {
+            let dist = if d.name.is_empty() {
+                format!(
+                    "a fixed {} {} per record (columns.distance.value)",
+                    d.value.unwrap_or(f64::NAN),
+                    spelled(&d.unit)
+                )
+            } else {
+                format!("{} ({})", d.name, spelled(&d.unit))
+            };
+            let interval = if c.interval.is_empty() {
+                "the time since the previous record".to_string()
+            } else {
+                format!("interval {} (s)", c.interval)
+            };
+            parts.push(format!("speed = distance {dist} / {interval}"));
+        }
+        (None, None) => {}
+    }
+    parts.push(if c.width.name.is_empty() {
+        format!(
+            "swath a fixed {} {} (columns.width.value: the export has no swath column)",
+            c.width.value.unwrap_or(f64::NAN),
+            spelled(&c.width.unit)
+        )
+    } else {
+        format!("swath {} ({})", c.width.name, spelled(&c.width.unit))
+    });
+    parts.push(format!("moisture {} (%)", c.moisture));
+    parts.join("; ")
 }
 
 /// Conversion factors to SI (exact by definition of the units).
@@ -93,6 +206,27 @@ fn width_factor(u: WidthUnit) -> f64 {
     }
 }
 
+/// The CRS of the coordinate columns (None: WGS84 lon/lat).
+fn input_crs(cfg: &TrialConfig) -> Result<Option<crate::projection::Crs>, String> {
+    if cfg.inputs.crs.is_empty() {
+        return Ok(None);
+    }
+    crate::projection::Crs::parse(&cfg.inputs.crs)
+        .map(|c| (c.code() != 4326).then_some(c))
+        .map_err(|e| format!("inputs.crs: {e}"))
+}
+
+/// A number as the export writes it (a decimal comma when `comma`); finite only.
+fn number(text: &str, comma: bool) -> Option<f64> {
+    let t = text.trim();
+    let v = if comma {
+        t.replace(',', ".").parse::<f64>().ok()
+    } else {
+        t.parse::<f64>().ok()
+    };
+    v.filter(|v| v.is_finite())
+}
+
 /// Read one export: good rows to points, unreadable ones to rejections.
 fn read_export(
     cfg: &TrialConfig,
@@ -112,21 +246,42 @@ fn read_export(
     }
     let idx = column_index(cfg, &header, name)?;
     let c = &cfg.columns;
-    let (ff, sf, wf) = (
-        flow_factor(c.flow.unit),
-        speed_factor(c.speed.unit),
-        width_factor(c.width.unit),
-    );
-    let cols = [
+    let comma = c.decimal == ",";
+    let crs = input_crs(cfg).map_err(|message| IngestError::Unusable {
+        file: name.to_string(),
+        message,
+    })?;
+    let ff = flow_factor(c.flow.unit);
+    let wf = width_factor(c.width.unit);
+    let fixed_width = c.width.value.unwrap_or(f64::NAN) * wf;
+    let speed_name = c.speed.as_ref().map(|s| s.name.as_str()).unwrap_or("");
+    let distance_name = c.distance.as_ref().map(|s| s.name.as_str()).unwrap_or("");
+    // Columns read as numbers: (index, name); the motion and width columns when mapped.
+    let mut cols = vec![
         (idx.lon, c.longitude.as_str()),
         (idx.lat, c.latitude.as_str()),
         (idx.flow, c.flow.name.as_str()),
-        (idx.speed, c.speed.name.as_str()),
-        (idx.width, c.width.name.as_str()),
         (idx.moisture, c.moisture.as_str()),
     ];
+    match &idx.motion {
+        Motion::Speed(i, _) => cols.push((*i, speed_name)),
+        Motion::Distance { col, interval, .. } => {
+            if let Some(i) = col {
+                cols.push((*i, distance_name));
+            }
+            if let Some(i) = interval {
+                cols.push((*i, c.interval.as_str()));
+            }
+        }
+    }
+    if let Some(i) = idx.width {
+        cols.push((i, c.width.name.as_str()));
+    }
+    // Per point kept: the distance travelled (m) and interval (s, NaN: from the times).
+    let mut travel: Vec<(f64, f64)> = Vec::new();
     let mut n = 0u64;
     let mut record = csv::StringRecord::new();
+    let mut vals = vec![0.0f64; cols.len()];
     loop {
         let line_hint = rdr.position().line() + 1;
         match rdr.read_record(&mut record) {
@@ -162,22 +317,37 @@ fn read_export(
         let t = &record[idx.time];
         let time_s = match c.time.format {
             TimeFormat::Iso8601 => parse_iso8601(t),
-            TimeFormat::UnixS => t.trim().parse::<f64>().ok().filter(|v| v.is_finite()),
+            TimeFormat::UnixS => number(t, comma),
+            TimeFormat::TimeOfDay => match (idx.date, c.time.date_order) {
+                (Some(d), Some(order)) => parse_date_time(&record[d], t, order),
+                _ => None,
+            },
         };
         let Some(time_s) = time_s else {
             let want = match c.time.format {
                 TimeFormat::Iso8601 => "an ISO 8601 date-time",
                 TimeFormat::UnixS => "seconds since 1970",
+                TimeFormat::TimeOfDay => "a date and an hh:mm:ss time of day",
             };
-            rej.push(reject(name, line, "unparseable", &c.time.name, t, want));
+            let shown = match idx.date {
+                Some(d) => format!("{} {t}", &record[d]),
+                None => t.to_string(),
+            };
+            rej.push(reject(
+                name,
+                line,
+                "unparseable",
+                &c.time.name,
+                &shown,
+                want,
+            ));
             continue;
         };
-        let mut vals = [0.0f64; 6];
         let mut bad = None;
         for (k, (ci, cname)) in cols.iter().enumerate() {
-            match record[*ci].trim().parse::<f64>() {
-                Ok(v) if v.is_finite() => vals[k] = v,
-                _ => {
+            match number(&record[*ci], comma) {
+                Some(v) => vals[k] = v,
+                None => {
                     bad = Some((*cname, record[*ci].to_string()));
                     break;
                 }
@@ -190,9 +360,9 @@ fn read_export(
         let mut optional = [f64::NAN; 3];
         for (k, o) in idx.optional.iter().enumerate() {
             if let Some((ci, cname)) = o {
-                match record[*ci].trim().parse::<f64>() {
-                    Ok(v) if v.is_finite() => optional[k] = v,
-                    _ => {
+                match number(&record[*ci], comma) {
+                    Some(v) => optional[k] = v,
+                    None => {
                         bad = Some((cname.as_str(), record[*ci].to_string()));
                         break;
                     }
@@ -203,7 +373,64 @@ fn read_export(
             rej.push(reject(name, line, "unparseable", cname, &text, "a number"));
             continue;
         }
-        let [lon, lat, flow, speed, width, moisture] = vals;
+        let (lon, lat, flow, moisture) = (vals[0], vals[1], vals[2], vals[3]);
+        let mut k = 4;
+        let mut next = || {
+            k += 1;
+            vals[k - 1]
+        };
+        // (speed m/s, or distance m and interval s).
+        let (speed, dist, interval) = match &idx.motion {
+            Motion::Speed(_, f) => (next() * f, f64::NAN, f64::NAN),
+            Motion::Distance {
+                col,
+                fixed_m,
+                factor,
+                interval,
+            } => {
+                let d = if col.is_some() {
+                    next() * factor
+                } else {
+                    *fixed_m
+                };
+                let i = if interval.is_some() { next() } else { f64::NAN };
+                (f64::NAN, d, i)
+            }
+        };
+        let width = if idx.width.is_some() {
+            next() * wf
+        } else {
+            fixed_width
+        };
+        if lon == 0.0 && lat == 0.0 {
+            rej.push(reject(
+                name,
+                line,
+                "no_position",
+                &c.longitude,
+                "0,0",
+                "a GPS fix",
+            ));
+            continue;
+        }
+        // Easting and northing in the trial's CRS, to lon/lat.
+        let (lon, lat) = match &crs {
+            None => (lon, lat),
+            Some(k) => match k.to_wgs84(lon, lat) {
+                Ok(ll) => ll,
+                Err(_) => {
+                    rej.push(reject(
+                        name,
+                        line,
+                        "coordinate_range",
+                        &c.longitude,
+                        &format!("{lon}, {lat}"),
+                        &format!("a position in EPSG:{} (inputs.crs)", k.code()),
+                    ));
+                    continue;
+                }
+            },
+        };
         if !(-180.0..=180.0).contains(&lon) || !(-90.0..=90.0).contains(&lat) {
             let (cn, v, lim) = if !(-180.0..=180.0).contains(&lon) {
                 (c.longitude.as_str(), lon, "-180..180")
@@ -220,20 +447,11 @@ fn read_export(
             ));
             continue;
         }
-        if lon == 0.0 && lat == 0.0 {
-            rej.push(reject(
-                name,
-                line,
-                "no_position",
-                &c.longitude,
-                "0,0",
-                "a GPS fix",
-            ));
-            continue;
-        }
         if let Some((cn, v)) = [
             (c.flow.name.as_str(), flow),
-            (c.speed.name.as_str(), speed),
+            (speed_name, speed),
+            (distance_name, dist),
+            (c.interval.as_str(), interval),
             (c.width.name.as_str(), width),
             (c.moisture.as_str(), moisture),
         ]
@@ -250,6 +468,7 @@ fn read_export(
             ));
             continue;
         }
+        travel.push((dist, interval));
         out.push(RawPoint {
             file: file_idx,
             row: line,
@@ -257,8 +476,8 @@ fn read_export(
             lon,
             lat,
             flow_kg_s: flow * ff,
-            speed_m_s: speed * sf,
-            width_m: width * wf,
+            speed_m_s: speed,
+            width_m: width,
             moisture_pct: moisture,
             optional,
         });
@@ -268,6 +487,49 @@ fn read_export(
             file: name.to_string(),
             message: "no data rows after the header".into(),
         });
+    }
+    if let Motion::Distance { interval, .. } = &idx.motion {
+        // Speed = distance / interval; without an interval column, the interval is the time
+        // since the previous record read (for the first, the time to the next).
+        let times: Vec<f64> = out.iter().map(|p| p.time_s).collect();
+        let mut keep = Vec::with_capacity(out.len());
+        for (i, p) in out.iter_mut().enumerate() {
+            let (d, iv) = travel[i];
+            let dt = if interval.is_some() {
+                iv
+            } else if i > 0 {
+                times[i] - times[i - 1]
+            } else if times.len() > 1 {
+                times[1] - times[0]
+            } else {
+                f64::NAN
+            };
+            if dt > 0.0 && dt.is_finite() {
+                p.speed_m_s = d / dt;
+                keep.push(true);
+            } else {
+                let (col, want) = if interval.is_some() {
+                    (c.interval.as_str(), "an interval above 0 s")
+                } else {
+                    (
+                        c.time.name.as_str(),
+                        "a later time than the previous record",
+                    )
+                };
+                rej.push(reject(
+                    name,
+                    p.row,
+                    "no_interval",
+                    col,
+                    &format!("{dt} s"),
+                    want,
+                ));
+                keep.push(false);
+            }
+        }
+        let mut k = keep.into_iter();
+        out.retain(|_| k.next().unwrap_or(false));
+        rej.sort_by_key(|r| r.source_row);
     }
     Ok(ExportRead {
         rows: n,
@@ -288,6 +550,10 @@ impl MonitorFormat for MappedText {
     fn sniff(&self, _path: &Path, _head: &[u8]) -> bool {
         // The fallback: any file is tried as delimited text with the trial's mapping.
         true
+    }
+
+    fn describe(&self, cfg: &TrialConfig) -> String {
+        describe(cfg)
     }
 
     fn check(&self, cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String> {
@@ -335,16 +601,24 @@ impl MonitorFormat for MappedText {
         ) else {
             return Ok(None);
         };
+        let crs = input_crs(cfg)?;
         let mut out = Vec::new();
         let mut last_len = h.len();
         for rec in rdr.records() {
             let Ok(rec) = rec else { continue };
             last_len = rec.len();
             if let (Some(lon), Some(lat)) = (
-                rec.get(ilon).and_then(|v| v.trim().parse::<f64>().ok()),
-                rec.get(ilat).and_then(|v| v.trim().parse::<f64>().ok()),
+                rec.get(ilon).and_then(|v| number(v, c.decimal == ",")),
+                rec.get(ilat).and_then(|v| number(v, c.decimal == ",")),
             ) {
-                out.push((lon, lat));
+                match &crs {
+                    None => out.push((lon, lat)),
+                    Some(k) => {
+                        if let Ok(ll) = k.to_wgs84(lon, lat) {
+                            out.push(ll);
+                        }
+                    }
+                }
             }
         }
         if last_len != h.len() {

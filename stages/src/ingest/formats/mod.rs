@@ -29,6 +29,9 @@ pub trait MonitorFormat: Sync {
     fn extensions(&self) -> &'static [&'static str];
     /// Whether this format reads the file, from its path and first bytes.
     fn sniff(&self, path: &Path, head: &[u8]) -> bool;
+    /// How this format reads an export under the trial's settings (the mapping, units and
+    /// any fixed values standing in for missing columns), in words.
+    fn describe(&self, cfg: &TrialConfig) -> String;
     /// What can be checked without reading every record (readable, header, mapped columns);
     /// `Err` is the problem, naming the file.
     fn check(&self, cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String>;

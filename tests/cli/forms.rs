@@ -1,0 +1,308 @@
+//! One simulated harvest written in several export forms (comma text with a speed column;
+//! semicolons with decimal commas, date and time columns and distance per record; logged
+//! every 3 s; no swath column) goes in through the binary and gives the same plots.
+
+use crate::common::*;
+use std::collections::BTreeMap;
+
+/// Plot id -> (status, yield t/ha, coverage) from a run folder.
+fn plots(run: &std::path::Path) -> BTreeMap<String, (String, f64, f64)> {
+    csv_rows(&run.join("3-plots/plots.csv"))
+        .into_iter()
+        .map(|r| {
+            (
+                r["plot_id"].clone(),
+                (
+                    r["status"].clone(),
+                    r["yield_mean_t_ha"].parse().unwrap_or(f64::NAN),
+                    r["coverage"].parse().unwrap_or(f64::NAN),
+                ),
+            )
+        })
+        .collect()
+}
+
+/// Relative differences of kept plot yields of `b` from `a`, sorted.
+fn yield_differences(
+    a: &BTreeMap<String, (String, f64, f64)>,
+    b: &BTreeMap<String, (String, f64, f64)>,
+) -> Vec<f64> {
+    let mut d: Vec<f64> = a
+        .iter()
+        .filter(|(k, v)| v.0 == "kept" && b[*k].0 == "kept")
+        .map(|(k, v)| ((b[k].1 - v.1) / v.1).abs())
+        .collect();
+    d.sort_by(f64::total_cmp);
+    d
+}
+
+fn mean_coverage(p: &BTreeMap<String, (String, f64, f64)>) -> f64 {
+    let c: Vec<f64> = p.values().filter(|v| v.0 == "kept").map(|v| v.2).collect();
+    c.iter().sum::<f64>() / c.len() as f64
+}
+
+fn run(w: &Workdir, trial: &std::path::Path, out: &str) {
+    ok(&plotsieve(
+        &w.0,
+        &["run", trial.to_str().unwrap(), "--out", out, "--quiet"],
+    ));
+}
+
+#[test]
+fn distance_per_record_with_decimal_commas_and_date_columns_reads_as_the_text_form() {
+    let w = Workdir::new("forms-distance");
+    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
+    let dist = simulate(
+        &w,
+        "dist",
+        &["--seed", "2", "--form", "distance_text", "--quiet"],
+    );
+    let head = read(&w.path("dist/monitor/field-A.csv"));
+    assert!(head.starts_with("Date;Time;Longitude;Latitude;Flow_lb_s;Distance_in;Interval_s;"));
+    assert!(head
+        .lines()
+        .nth(1)
+        .unwrap()
+        .starts_with("18/09/2026;09:00:00;-97,7"));
+    // check names the format and the mapping it will use for each export.
+    let o = plotsieve(&w.0, &["check", dist.to_str().unwrap()]);
+    ok(&o);
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("read: monitor/field-A.csv: mapped_text: delimiter \";\", decimal \",\"; date Date (dmy) and time Time;")
+            && out.contains("speed = distance Distance_in (in) / interval Interval_s (s)"),
+        "{out}"
+    );
+    run(&w, &text, "r-text");
+    run(&w, &dist, "r-dist");
+    let (a, b) = (plots(&w.path("r-text")), plots(&w.path("r-dist")));
+    assert_eq!(
+        a.values().map(|v| &v.0).collect::<Vec<_>>(),
+        b.values().map(|v| &v.0).collect::<Vec<_>>()
+    );
+    let d = yield_differences(&a, &b);
+    assert!(d.len() >= 40, "{} plots kept in both", d.len());
+    // The distance is written to 0.1 inch, so speeds agree to about 0.1 %.
+    assert!(
+        *d.last().unwrap() < 0.005,
+        "largest difference {:?}",
+        d.last()
+    );
+    let s = json(&w.path("r-dist/1-ingest/summary.json"));
+    assert!(
+        s["details"]["read_as"]["monitor/field-B.csv"]
+            .as_str()
+            .unwrap()
+            .contains("speed = distance"),
+        "{s}"
+    );
+}
+
+#[test]
+fn a_harvest_logged_every_3_s_keeps_its_plots_and_their_coverage() {
+    // Logged every 3 s, a record reports the flow over its interval and the ground covered
+    // in it. A footprint capped at 2 s of travel covered two thirds of that ground (mean
+    // coverage 0.55 against 0.83 at 1 s), and plots needing 10 records were all set aside.
+    let w = Workdir::new("forms-3s");
+    let one = simulate(&w, "one", &["--seed", "2", "--quiet"]);
+    let three = simulate(
+        &w,
+        "three",
+        &["--seed", "2", "--interval-s", "3", "--quiet"],
+    );
+    run(&w, &one, "r1");
+    run(&w, &three, "r3");
+    let (a, b) = (plots(&w.path("r1")), plots(&w.path("r3")));
+    let kept = b.values().filter(|v| v.0 == "kept").count();
+    assert!(kept >= 45, "{kept} of {} plots kept", b.len());
+    let (ca, cb) = (mean_coverage(&a), mean_coverage(&b));
+    assert!(cb > 0.85 * ca, "coverage {cb} at 3 s, {ca} at 1 s");
+    // A third of the records: plot means move by sampling, about half a percent.
+    let d = yield_differences(&a, &b);
+    assert!(
+        d[d.len() / 2] < 0.01,
+        "median difference {}",
+        d[d.len() / 2]
+    );
+    assert!(
+        *d.last().unwrap() < 0.04,
+        "largest difference {:?}",
+        d.last()
+    );
+}
+
+#[test]
+fn an_export_without_a_swath_column_takes_the_stated_width_and_says_so() {
+    let w = Workdir::new("forms-width");
+    let t = simulate(&w, "t", &["--seed", "3", "--quiet"]);
+    run(&w, &t, "with");
+    // Drop the swath column from both exports and state the header width instead.
+    for f in ["field-A.csv", "field-B.csv"] {
+        let p = w.path(&format!("t/monitor/{f}"));
+        let text = read(&p);
+        let out: Vec<String> = text
+            .lines()
+            .map(|l| {
+                let mut v: Vec<&str> = l.split(',').collect();
+                v.remove(5);
+                v.join(",")
+            })
+            .collect();
+        std::fs::write(&p, out.join("\n") + "\n").unwrap();
+    }
+    replace(
+        &t,
+        "width = { name = \"swath_ft\", unit = \"ft\" }",
+        "width = { value = 30.0, unit = \"ft\" }",
+        1,
+    );
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    ok(&o);
+    assert!(String::from_utf8_lossy(&o.stdout)
+        .contains("swath a fixed 30 ft (columns.width.value: the export has no swath column)"));
+    run(&w, &t, "without");
+    let (a, b) = (plots(&w.path("with")), plots(&w.path("without")));
+    // Only the plots under the simulator's partial-swath pass differ much: without the
+    // column their narrower swath is taken as full, so their yields come out low.
+    let d = yield_differences(&a, &b);
+    assert!(
+        d[d.len() / 2] < 0.005,
+        "median difference {}",
+        d[d.len() / 2]
+    );
+    let far: Vec<(&String, f64, f64)> = a
+        .iter()
+        .filter(|(k, v)| v.0 == "kept" && b[*k].0 == "kept")
+        .map(|(k, v)| (k, v.1, b[k].1))
+        .filter(|(_, x, y)| ((y - x) / x).abs() > 0.015)
+        .collect();
+    assert!(far.len() <= 8, "{far:?}");
+    assert!(far.iter().all(|(_, x, y)| y < x), "{far:?}");
+    let md = read(&w.path("without/5-report/report.md"));
+    assert!(
+        md.contains("## How each export was read") && md.contains("swath a fixed 30 ft"),
+        "{md}"
+    );
+    let html = read(&w.path("without/5-report/report.html"));
+    assert!(html.contains("<h3>How each export was read</h3>"));
+    let s = json(&w.path("without/1-ingest/summary.json"));
+    assert!(s["details"]["read_as"]["monitor/field-A.csv"]
+        .as_str()
+        .unwrap()
+        .contains("swath a fixed 30 ft"));
+}
+
+#[test]
+fn mappings_that_cannot_work_are_refused_naming_the_key() {
+    let w = Workdir::new("forms-bad");
+    let t = simulate(&w, "t", &["--seed", "2", "--quiet"]);
+    let original = read(&t);
+    for (from, to, says) in [
+        (
+            "delimiter = \",\"",
+            "delimiter = \",\"\ndecimal = \",\"",
+            "columns.decimal and columns.delimiter are both \",\"",
+        ),
+        (
+            "moisture = \"moisture_pct\"",
+            "moisture = \"moisture_pct\"\ndistance = { name = \"d\", unit = \"in\" }",
+            "[columns] has both speed and distance",
+        ),
+        (
+            "format = \"iso8601\"",
+            "format = \"time_of_day\"",
+            "needs date (the date column) and date_order",
+        ),
+        (
+            "width = { name = \"swath_ft\", unit = \"ft\" }",
+            "width = { unit = \"ft\" }",
+            "columns.width needs a column name or a fixed value",
+        ),
+    ] {
+        std::fs::write(&t, original.replacen(from, to, 1)).unwrap();
+        let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+        assert_eq!(o.status.code(), Some(1), "{to}");
+        let e =
+            String::from_utf8_lossy(&o.stderr).to_string() + &String::from_utf8_lossy(&o.stdout);
+        assert!(e.contains(says), "{to}: expected {says:?} in {e}");
+    }
+}
+
+#[test]
+fn exports_and_plots_in_projected_coordinates_read_as_lon_lat() {
+    // The same harvest with every position as UTM 14N easting/northing: the exports'
+    // coordinate columns through inputs.crs, the plot file through its own crs member.
+    let w = Workdir::new("forms-utm");
+    let t = simulate(&w, "t", &["--seed", "2", "--quiet"]);
+    run(&w, &t, "lonlat");
+    let utm = plotsieve_stages::projection::Utm::new(14, false).unwrap();
+    for f in ["field-A.csv", "field-B.csv"] {
+        let p = w.path(&format!("t/monitor/{f}"));
+        let text = read(&p);
+        let out: Vec<String> = text
+            .lines()
+            .enumerate()
+            .map(|(i, l)| {
+                let mut v: Vec<String> = l.split(',').map(String::from).collect();
+                if i == 0 {
+                    v[1] = "easting_m".into();
+                    v[2] = "northing_m".into();
+                } else {
+                    let (x, y) = utm
+                        .forward(v[1].parse().unwrap(), v[2].parse().unwrap())
+                        .unwrap();
+                    v[1] = format!("{x:.3}");
+                    v[2] = format!("{y:.3}");
+                }
+                v.join(",")
+            })
+            .collect();
+        std::fs::write(&p, out.join("\n") + "\n").unwrap();
+    }
+    let gp = w.path("t/plots.geojson");
+    let mut g: serde_json::Value = serde_json::from_str(&read(&gp)).unwrap();
+    for f in g["features"].as_array_mut().unwrap() {
+        for ring in f["geometry"]["coordinates"].as_array_mut().unwrap() {
+            for pt in ring.as_array_mut().unwrap() {
+                let (x, y) = utm
+                    .forward(pt[0].as_f64().unwrap(), pt[1].as_f64().unwrap())
+                    .unwrap();
+                *pt = serde_json::json!([
+                    (x * 1000.0).round() / 1000.0,
+                    (y * 1000.0).round() / 1000.0
+                ]);
+            }
+        }
+    }
+    g["crs"] =
+        serde_json::json!({"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32614"}});
+    std::fs::write(&gp, serde_json::to_string(&g).unwrap()).unwrap();
+    // Read as lon/lat they are refused; with the CRS named they read.
+    replace(&t, "longitude = \"lon_deg\"", "x = \"easting_m\"", 1);
+    replace(&t, "latitude = \"lat_deg\"", "y = \"northing_m\"", 1);
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stdout).contains("coordinate_range"));
+    replace(
+        &t,
+        "design = \"design.csv\"",
+        "design = \"design.csv\"\ncrs = \"EPSG:32614\"",
+        1,
+    );
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    ok(&o);
+    assert!(String::from_utf8_lossy(&o.stdout)
+        .contains("x/y easting_m/northing_m in EPSG:32614 (inputs.crs)"));
+    run(&w, &t, "utm");
+    let (a, b) = (plots(&w.path("lonlat")), plots(&w.path("utm")));
+    assert_eq!(
+        a.values().map(|v| &v.0).collect::<Vec<_>>(),
+        b.values().map(|v| &v.0).collect::<Vec<_>>()
+    );
+    let d = yield_differences(&a, &b);
+    assert!(
+        *d.last().unwrap() < 0.001,
+        "largest difference {:?}",
+        d.last()
+    );
+}
