@@ -154,11 +154,15 @@ fn sha256_file(path: &Path) -> Result<(u64, String)> {
 
 fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
     let mut paths = vec![t.path.clone()];
-    paths.extend(ingest::monitor_files(&t.cfg, &t.base)?);
-    if !t.cfg.inputs.plots.is_empty() {
-        paths.push(t.base.join(&t.cfg.inputs.plots));
+    if !t.cfg.inputs.plot_table.is_empty() {
+        paths.push(t.base.join(&t.cfg.inputs.plot_table));
+    } else {
+        paths.extend(ingest::monitor_files(&t.cfg, &t.base)?);
+        if !t.cfg.inputs.plots.is_empty() {
+            paths.push(t.base.join(&t.cfg.inputs.plots));
+        }
+        paths.push(t.base.join(&t.cfg.inputs.design));
     }
-    paths.push(t.base.join(&t.cfg.inputs.design));
     paths
         .iter()
         .map(|p| {
@@ -480,6 +484,9 @@ fn unchanged_inputs(m: &Manifest, t: &Trial) -> Result<()> {
 /// `plotsieve check`.
 pub fn check(trial: &Path, set: &[String]) -> Result<()> {
     let t = load(trial, set)?;
+    if !t.cfg.inputs.plot_table.is_empty() {
+        return check_plot_table(trial, &t);
+    }
     let found = ingest::check(&t.cfg, &t.base);
     let (read_as, found): (Vec<String>, Vec<String>) =
         found.into_iter().partition(|p| p.starts_with("read: "));
@@ -502,15 +509,59 @@ pub fn check(trial: &Path, set: &[String]) -> Result<()> {
     for w in &warnings {
         println!("{w}");
     }
+    verdict(trial, &problems)
+}
+
+/// check's last word: every problem, and an error when there is one.
+fn verdict(trial: &Path, problems: &[String]) -> Result<()> {
     if problems.is_empty() {
         println!("{}: configuration and inputs look right", trial.display());
         Ok(())
     } else {
-        for p in &problems {
+        for p in problems {
             println!("problem: {p}");
         }
         bail!("{}: {} problem(s) found", trial.display(), problems.len())
     }
+}
+
+/// `plotsieve check` of a plot-table trial: the table read and validated as run would, and
+/// the fields adjust could not fit.
+fn check_plot_table(trial: &Path, t: &Trial) -> Result<()> {
+    let cfg = &t.cfg;
+    let name = &cfg.inputs.plot_table;
+    let crop = cfg.crop()?;
+    let mut problems = Vec::new();
+    match ingest::plot_table::read(
+        &t.base.join(name),
+        name,
+        &crop,
+        cfg.adjust.row_spacing_m,
+        cfg.adjust.range_spacing_m,
+    )
+    .and_then(|t| t.usable(name))
+    {
+        Err(e) => problems.push(e.to_string()),
+        Ok(table) => {
+            println!("read: {name}: {}", table.read_as);
+            for r in &table.rejections {
+                println!(
+                    "warning: {name}, line {}, column {}: {} ({:?}; expected {})",
+                    r.source_row, r.column, r.rule, r.value, r.limit
+                );
+            }
+            let unit = plotsieve_stages::crop::YieldUnit::new(cfg.trial.output_unit, &crop);
+            let s = cfg.adjust.checked(&cfg.trial.check, unit.kg_ha_per_unit());
+            for u in plotsieve_stages::adjust::unfittable_fields(&table.plots, &s) {
+                if cfg.adjust.allow_missing_fields {
+                    println!("warning: adjust: missing from the result: {u}");
+                } else {
+                    problems.push(format!("adjust: {u}"));
+                }
+            }
+        }
+    }
+    verdict(trial, &problems)
 }
 
 /// `plotsieve simulate`.

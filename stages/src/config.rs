@@ -79,6 +79,8 @@ pub struct TrialSection {
 pub struct TrialConfig {
     pub trial: TrialSection,
     pub inputs: InputsSection,
+    /// The monitor exports' mapping (absent for plot-table entry).
+    #[serde(default)]
     pub columns: ColumnsSection,
     pub ingest: IngestSettings,
     pub clean: CleanSettings,
@@ -263,16 +265,28 @@ impl TrialConfig {
     /// (beside its struct, in its stage); here only what spans sections.
     pub fn validate(&self) -> Result<(), ConfigError> {
         let mut p = Vec::new();
-        self.columns.problems(&mut p);
+        let table = !self.inputs.plot_table.is_empty();
+        if !table {
+            self.columns.problems(&mut p);
+        }
         self.ingest.problems(&mut p);
         self.clean.problems(&mut p);
         self.plots.problems(&mut p);
         self.adjust.problems(&mut p);
         self.report.problems(&mut p);
         match (self.inputs.plots.is_empty(), self.layout.is_empty()) {
-            (true, true) => {
-                p.push("inputs.plots is empty and there is no [[layout]]: give one of them".into())
+            _ if table => {
+                if !self.inputs.monitor.is_empty()
+                    || !self.inputs.plots.is_empty()
+                    || !self.inputs.design.is_empty()
+                    || !self.layout.is_empty()
+                {
+                    p.push("inputs.plot_table is the whole input of a plot-table trial: leave out inputs.monitor, inputs.plots, inputs.design and [[layout]]".into());
+                }
             }
+            (true, true) => p.push(
+                "inputs.plots is empty and there is no [[layout]]: give one of them (or inputs.plot_table for plot-level yields)".into(),
+            ),
             (false, false) => p.push("give inputs.plots or [[layout]], not both".into()),
             _ => {}
         }
@@ -284,7 +298,7 @@ impl TrialConfig {
                 p.push(format!("inputs.crs: {e}"));
             }
         }
-        if self.inputs.monitor.is_empty() {
+        if self.inputs.monitor.is_empty() && !table {
             p.push("inputs.monitor must list at least one export file or folder".into());
         }
         if p.is_empty() {

@@ -14,17 +14,31 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let out = c.out;
     let dir = &c.dir;
     let unit = c.unit;
+    let crop = &c.crop;
     let progress = c.progress;
     let plots = if cfg.adjust.plot_table.is_empty() {
         read_plots(out, &unit)?
     } else {
-        io::read_plot_table(
+        // The analyst's own table fitted directly: every row must be usable.
+        let table = plotsieve_stages::ingest::plot_table::read(
             &t.base.join(&cfg.adjust.plot_table),
             &cfg.adjust.plot_table,
-            &unit,
+            crop,
             cfg.adjust.row_spacing_m,
             cfg.adjust.range_spacing_m,
-        )?
+        )?;
+        if let Some(r) = table.rejections.first() {
+            bail!(
+                "{}, line {}, column {}: expected {}, found {:?} ({})",
+                r.source_file,
+                r.source_row,
+                r.column,
+                r.limit,
+                r.value,
+                r.rule
+            );
+        }
+        table.plots
     };
     let s = cfg.adjust.checked(&cfg.trial.check, unit.kg_ha_per_unit());
     let mut o = adjust::run_with(&plots, &s, progress)?;

@@ -11,6 +11,18 @@ use plotsieve_stages::{clean, ingest};
 /// Run the stage against the run folder.
 pub fn run(c: &Ctx) -> Result<StageSummary> {
     let cfg = &c.t.cfg;
+    if c.table_entry() {
+        // Plot yields come weighed: there are no records to clean.
+        let mut summary = StageSummary::from_rejections("clean", "points", 0, &[]);
+        summary.details.insert(
+            "skipped".into(),
+            serde_json::json!(
+                "plot-table entry: the table gives plot yields, there are no monitor records"
+            ),
+        );
+        write_stage_tables(&c.dir, &[], &summary)?;
+        return Ok(summary);
+    }
     let out = c.out;
     let dir = &c.dir;
     let unit = c.unit;

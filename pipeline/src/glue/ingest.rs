@@ -13,6 +13,9 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let t = c.t;
     let dir = &c.dir;
     let progress = c.progress;
+    if c.table_entry() {
+        return plot_table(c);
+    }
     let o = ingest::run_with(cfg, &t.base, progress)?;
     io::write_points(&dir.join("points.parquet"), &o.points)?;
     io::write_projected_plots(&dir.join("plots.geojson"), &o.polygons, o.points.epsg)?;
@@ -31,4 +34,36 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     io::write_table(&dir.join("design.csv"), &o.design, &c.unit)?;
     write_stage_tables(&dir, &o.rejections, &o.summary)?;
     Ok(o.summary)
+}
+
+/// Plot-table entry: the table validated -> `1-ingest/plot_table.csv` (the usable plots),
+/// `rejected.csv` (each unusable row, with its line, column and reason) and the summary.
+fn plot_table(c: &Ctx) -> Result<StageSummary> {
+    let cfg = &c.t.cfg;
+    let name = &cfg.inputs.plot_table;
+    let t = ingest::plot_table::read(
+        &c.t.base.join(name),
+        name,
+        &c.crop,
+        cfg.adjust.row_spacing_m,
+        cfg.adjust.range_spacing_m,
+    )?
+    .usable(name)?;
+    io::write_table(&c.dir.join("plot_table.csv"), &t.plots, &c.unit)?;
+    let mut summary = StageSummary::from_rejections("ingest", "plots", t.rows, &t.rejections);
+    summary.details.insert(
+        "read_as".into(),
+        serde_json::json!({ name.clone(): t.read_as }),
+    );
+    let mut warnings = Vec::new();
+    if !t.rejections.is_empty() {
+        warnings.push(format!(
+            "{name}: {} of its {} rows could not be used (see 1-ingest/rejected.csv)",
+            t.rejections.len(),
+            t.rows
+        ));
+    }
+    summary.set_warnings(&warnings);
+    write_stage_tables(&c.dir, &t.rejections, &summary)?;
+    Ok(summary)
 }

@@ -37,6 +37,11 @@ pub struct Ctx<'a> {
 }
 
 impl<'a> Ctx<'a> {
+    /// Plot-table entry: the trial's input is a table of plot yields (`inputs.plot_table`).
+    pub fn table_entry(&self) -> bool {
+        !self.t.cfg.inputs.plot_table.is_empty()
+    }
+
     /// The EPSG code of the projected coordinates, from ingest's summary.
     pub fn epsg(&self) -> Result<u32> {
         read_summary(self.out, Stage::Ingest)?

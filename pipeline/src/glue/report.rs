@@ -47,10 +47,14 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         warnings: &warnings,
     });
     io::write_atomic(&dir.join("report.md"), md.as_bytes())?;
-    // The HTML report: maps of every record, of what each rule removed, of the plots.
+    // The HTML report: maps of every record, of what each rule removed, of the plots (none
+    // for plot-table entry: no records, no polygons).
     let ing = out.join(Stage::Ingest.dir());
-    let epsg = c.epsg()?;
-    let pts = io::read_points(&ing.join("points.parquet"), epsg)?;
+    let pts = if c.table_entry() {
+        plotsieve_stages::table::PointSet::default()
+    } else {
+        io::read_points(&ing.join("points.parquet"), c.epsg()?)?
+    };
     let mut removed: BTreeMap<String, String> = BTreeMap::new();
     for st in [Stage::Clean, Stage::Plots] {
         for r in io::read_table::<Rejection>(
@@ -73,11 +77,15 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             rule: removed.get(&p.id.to_string()).cloned().unwrap_or_default(),
         })
         .collect();
-    let polygons = ingest::read_geojson(
-        &ing.join("plots.geojson"),
-        "1-ingest/plots.geojson",
-        "plot_id",
-    )?;
+    let polygons = if c.table_entry() {
+        Vec::new()
+    } else {
+        ingest::read_geojson(
+            &ing.join("plots.geojson"),
+            "1-ingest/plots.geojson",
+            "plot_id",
+        )?
+    };
     let plots_tab = read_plots(out, &shown)?;
     let adjusted = io::read_table(&adj.join("adjusted_plots.csv"), &shown, ADJUST_FIRST)?;
     let comparisons = io::read_table(&adj.join("comparison.csv"), &shown, ADJUST_FIRST)?;

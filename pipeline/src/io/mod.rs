@@ -12,7 +12,7 @@ mod points;
 pub mod table;
 mod tables;
 
-pub use plots::{plot_properties, read_plot_table, write_plots_wgs84, write_projected_plots};
+pub use plots::{plot_properties, write_plots_wgs84, write_projected_plots};
 pub use points::{read_clean_points, read_points, write_clean_points, write_points};
 pub use table::{read_table, write_table};
 

@@ -4,7 +4,7 @@
 
 use super::table::Table;
 use super::write_json;
-use anyhow::{anyhow, bail, Context, Result};
+use anyhow::Result;
 use plotsieve_stages::crop::YieldUnit;
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::table::PlotPolygon;
@@ -95,72 +95,4 @@ pub fn write_plots_wgs84<'a>(
         path,
         &serde_json::json!({"type": "FeatureCollection", "features": features}),
     )
-}
-
-/// An analyst's plot table for plot-table entry: plot_id, field, treatment, block,
-/// `yield_<unit>`, and x_m and y_m, or row and range (times the spacings).
-pub fn read_plot_table(
-    path: &Path,
-    shown: &str,
-    u: &YieldUnit,
-    row_spacing: f64,
-    range_spacing: f64,
-) -> Result<Vec<PlotStats>> {
-    let mut rdr = csv::Reader::from_path(path)
-        .with_context(|| format!("{shown}: cannot read the plot table (adjust.plot_table)"))?;
-    let header = rdr.headers()?.clone();
-    let col = |name: &str| header.iter().position(|h| h.trim() == name);
-    let ycol = format!("yield_{}", u.suffix());
-    let need = ["plot_id", "field", "treatment", "block", ycol.as_str()];
-    let mut idx = Vec::new();
-    for n in need {
-        idx.push(col(n).ok_or_else(|| {
-            anyhow!(
-                "{shown}: no column {n} (found: {})",
-                header.iter().collect::<Vec<_>>().join(", ")
-            )
-        })?);
-    }
-    let coords = match (col("x_m"), col("y_m"), col("row"), col("range")) {
-        (Some(x), Some(y), _, _) => (x, y, 1.0, 1.0),
-        (_, _, Some(r), Some(g)) => {
-            if !(row_spacing > 0.0 && range_spacing > 0.0) {
-                bail!("{shown}: a table with row and range needs adjust.row_spacing_m and adjust.range_spacing_m above 0");
-            }
-            (r, g, row_spacing, range_spacing)
-        }
-        _ => bail!("{shown}: needs columns x_m and y_m, or row and range"),
-    };
-    let mut out = Vec::new();
-    for rec in rdr.records() {
-        let rec = rec.with_context(|| format!("reading {shown}"))?;
-        let line = rec.position().map(|p| p.line()).unwrap_or(0);
-        let num = |k: usize, name: &str| -> Result<f64> {
-            let t = rec.get(k).unwrap_or("").trim();
-            t.parse::<f64>()
-                .ok()
-                .filter(|v| v.is_finite())
-                .ok_or_else(|| {
-                    anyhow!("{shown}, line {line}, column {name}: expected a number, found {t:?}")
-                })
-        };
-        let s = |k: usize| rec.get(idx[k]).unwrap_or("").trim().to_string();
-        let (cx, cy) = (
-            num(coords.0, "x_m/row")? * coords.2,
-            num(coords.1, "y_m/range")? * coords.3,
-        );
-        out.push(PlotStats::from_yield(
-            &s(0),
-            &s(1),
-            &s(2),
-            &s(3),
-            u.to_kg_ha(num(idx[4], &ycol)?),
-            cx,
-            cy,
-        ));
-    }
-    if out.is_empty() {
-        bail!("{shown}: no plots");
-    }
-    Ok(out)
 }

@@ -18,6 +18,7 @@ pub mod design;
 pub mod formats;
 pub mod geojson;
 pub mod plot_checks;
+pub mod plot_table;
 #[cfg(test)]
 mod robustness;
 pub mod settings;

@@ -18,6 +18,7 @@ crate::choice! {
 #[serde(deny_unknown_fields)]
 pub struct InputsSection {
     /// Monitor export CSVs, or folders whose `*.csv` files are all taken (sorted by name).
+    #[serde(default)]
     pub monitor: Vec<String>,
     /// Plot boundaries, GeoJSON (RFC 7946, WGS84 lon/lat); empty when `[[layout]]` gives
     /// the plots as grids.
@@ -25,40 +26,48 @@ pub struct InputsSection {
     /// Feature property holding the plot id.
     pub plot_id_property: String,
     /// Design table CSV with columns plot_id, treatment, block, field.
+    #[serde(default)]
     pub design: String,
+    /// Plot-table entry: plot-level yields instead of monitor exports, plots and design
+    /// ([`crate::ingest::plot_table`]).
+    pub plot_table: String,
     /// The CRS of coordinates in the inputs (`EPSG:32614`, ...): monitor exports' x/y
     /// columns, and plot files without a `crs` member of their own. Empty: WGS84 lon/lat.
     pub crs: String,
 }
 
 /// Mass-flow units a monitor may log.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum FlowUnit {
+    #[default]
     KgS,
     LbS,
 }
 /// Speed units a monitor may log.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum SpeedUnit {
+    #[default]
     MS,
     KmH,
     Mph,
 }
 /// Width (and distance) units a monitor may log.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum WidthUnit {
+    #[default]
     M,
     Ft,
     In,
 }
 /// Timestamp formats a monitor may log.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum TimeFormat {
     /// `2026-09-14T10:22:05Z`, `2026-09-14 10:22:05.5`, optional offset `+02:00`.
+    #[default]
     Iso8601,
     /// Seconds since 1970-01-01 UTC.
     UnixS,
@@ -77,7 +86,7 @@ pub enum DateOrder {
 
 /// A mapped column with its unit, or (where allowed) a fixed value in that unit for an
 /// export that lacks the column.
-#[derive(Clone, Debug, Serialize, Deserialize)]
+#[derive(Clone, Debug, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct Mapped<U> {
     #[serde(default)]
@@ -88,7 +97,7 @@ pub struct Mapped<U> {
 }
 
 /// `[columns]`: how the monitor export names and scales its columns.
-#[derive(Clone, Debug, Serialize, Deserialize)]
+#[derive(Clone, Debug, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct ColumnsSection {
     /// Field delimiter, one character.
@@ -130,7 +139,7 @@ pub struct ColumnsSection {
 }
 
 /// Time column and its format.
-#[derive(Clone, Debug, Serialize, Deserialize)]
+#[derive(Clone, Debug, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct TimeColumn {
     pub name: String,
