@@ -120,6 +120,13 @@ enum Command {
 }
 
 fn main() -> ExitCode {
+    // Output piped into a program that stops reading (`plotsieve check ... | head`) ends
+    // this one quietly, as command-line tools do, instead of a panic on the closed pipe.
+    #[cfg(unix)]
+    // SAFETY: restoring the default action of one signal before any thread is started.
+    unsafe {
+        libc::signal(libc::SIGPIPE, libc::SIG_DFL);
+    }
     let cli = Cli::parse();
     let result = match cli.command {
         Command::Run { trial, out, set } => run::run_all(&trial, out, &set, cli.quiet),

@@ -419,6 +419,8 @@ pub fn run_with(
         None => {
             let mut pool: BTreeMap<String, Vec<(f64, f64)>> = BTreeMap::new();
             let mut counts: BTreeMap<String, u64> = BTreeMap::new();
+            // Each product's row in the field that holds it (the last one seen).
+            let mut field_row: BTreeMap<String, TreatmentRow> = BTreeMap::new();
             for (i, fit) in own.into_iter().enumerate() {
                 let prep = &preps[keep[i]];
                 for (t, c) in prep.model.treatments.iter().zip(&prep.counts) {
@@ -426,6 +428,9 @@ pub fn run_with(
                 }
                 for (t, u, v) in &fit.uplifts {
                     pool.entry(t.clone()).or_default().push((*u, *v));
+                }
+                for r in &fit.rows {
+                    field_row.insert(r.treatment.clone(), r.clone());
                 }
                 push_fit(&mut out, fit);
             }
@@ -442,6 +447,20 @@ pub fn run_with(
                 None,
             ));
             for (t, v) in pool {
+                // A product in one field: its pooled row is that field's (the same posterior
+                // mixture, so the same intervals and probabilities, not a normal
+                // approximation of it).
+                if let (1, Some(r)) = (v.len(), field_row.get(&t)) {
+                    out.treatments.push(TreatmentRow {
+                        field: "all".into(),
+                        estimate: f64::NAN,
+                        sd: f64::NAN,
+                        lo95: f64::NAN,
+                        hi95: f64::NAN,
+                        ..r.clone()
+                    });
+                    continue;
+                }
                 let w: f64 = v.iter().map(|x| 1.0 / x.1).sum();
                 let up = v.iter().map(|x| x.0 / x.1).sum::<f64>() / w;
                 let mix = Mixture::new(vec![(1.0, up, 1.0 / w)]);

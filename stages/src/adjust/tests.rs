@@ -548,3 +548,42 @@ fn joint_fit_handles_fields_with_different_products() {
         "one field cannot pin the mean effect more tightly"
     );
 }
+
+#[test]
+fn a_single_field_gives_one_answer_in_its_row_and_the_pooled_row() {
+    // One field: the pooled row of each product is the field's own posterior, so every
+    // uplift column and probability is the same (before, a normal approximation of the
+    // field's mixture printed slightly different intervals and probabilities).
+    let plots = trend_field("F", 4, 6, 0.3, 43);
+    let out = run(&plots, &settings()).unwrap();
+    for t in ["a", "b"] {
+        let (f, p) = (row(&out, "F", t), row(&out, "all", t));
+        assert_eq!(
+            (
+                f.uplift,
+                f.uplift_sd,
+                f.uplift_lo90,
+                f.uplift_hi90,
+                f.uplift_lo95,
+                f.uplift_hi95,
+                f.p_uplift_gt0,
+                f.plots
+            ),
+            (
+                p.uplift,
+                p.uplift_sd,
+                p.uplift_lo90,
+                p.uplift_hi90,
+                p.uplift_lo95,
+                p.uplift_hi95,
+                p.p_uplift_gt0,
+                p.plots
+            ),
+            "{t}"
+        );
+        assert!(
+            p.estimate.is_nan(),
+            "the pooled row has no mean yield of its own"
+        );
+    }
+}
