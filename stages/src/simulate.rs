@@ -581,7 +581,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         "truth.json".into(),
         serde_json::to_string_pretty(&truth).unwrap() + "\n",
     ));
-    files.push(("trial.toml".into(), trial_toml(o.seed, o.form)));
+    files.push(("trial.toml".into(), trial_toml(o)));
     SimTrial {
         files,
         points: total_points,
@@ -649,13 +649,22 @@ work_state = "Header"
 hdop = "HDOP"
 "#;
 
-fn trial_toml(seed: u64, form: SimForm) -> String {
-    let columns = match form {
+fn trial_toml(o: &SimOptions) -> String {
+    let seed = o.seed;
+    // The options that shape the exports, for the header comment.
+    let mut how = String::new();
+    if o.form != SimForm::Text {
+        how += &format!(" --form {}", o.form);
+    }
+    if o.interval_s > 1 {
+        how += &format!(" --interval-s {}", o.interval_s);
+    }
+    let columns = match o.form {
         SimForm::Text => TEXT_COLUMNS,
         SimForm::DistanceText => DISTANCE_COLUMNS,
     };
     format!(
-        r#"# An invented trial made by `plotsieve simulate --seed {seed}` (Brackenmoor trial station,
+        r#"# An invented trial made by `plotsieve simulate --seed {seed}{how}` (Brackenmoor trial station,
 # a made-up place). Paths are relative to this file.
 
 [trial]

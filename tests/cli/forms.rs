@@ -306,3 +306,29 @@ fn exports_and_plots_in_projected_coordinates_read_as_lon_lat() {
         d.last()
     );
 }
+
+#[test]
+fn the_second_sample_trial_in_another_form_checks_and_runs() {
+    // sample-input/distance-3s: semicolons, decimal commas, date and time columns, distance
+    // per record, logged every 3 s (made by `plotsieve simulate --seed 4 --form
+    // distance_text --interval-s 3`).
+    let w = Workdir::new("forms-sample2");
+    let t = repo().join("sample-input/distance-3s/trial.toml");
+    let t = t.to_str().unwrap();
+    let o = plotsieve(&w.0, &["check", t]);
+    ok(&o);
+    assert!(String::from_utf8_lossy(&o.stdout).contains("speed = distance Distance_in (in)"));
+    ok(&plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]));
+    let truth = json(&repo().join("sample-input/distance-3s/truth.json"));
+    let rows = csv_rows(&w.path("run/4-adjust/treatments.csv"));
+    let d = rows
+        .iter()
+        .find(|r| r["field"] == "all" && r["treatment"] == "prod-d")
+        .unwrap();
+    let (up, sd): (f64, f64) = (
+        d["uplift_t_ha"].parse().unwrap(),
+        d["uplift_sd_t_ha"].parse().unwrap(),
+    );
+    let want = truth["effects_t_ha"]["prod-d"].as_f64().unwrap();
+    assert!((up - want).abs() < 3.0 * sd, "{up} +- {sd}, truth {want}");
+}
