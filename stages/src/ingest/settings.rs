@@ -212,37 +212,23 @@ impl ColumnsSection {
         if !self.interval.is_empty() && self.distance.is_none() {
             p.push("columns.interval is only read with columns.distance".into());
         }
-        for (key, name, value, fixed_ok) in [
-            ("flow", &self.flow.name, self.flow.value, false),
+        // Each mapped quantity: a column, or (where a fixed value may stand in) a value.
+        let mapped: [(&str, Option<(&str, Option<f64>)>, bool); 4] = [
+            ("flow", Some((&self.flow.name, self.flow.value)), false),
             (
                 "speed",
-                &self
-                    .speed
-                    .as_ref()
-                    .map(|m| m.name.clone())
-                    .unwrap_or_default(),
-                self.speed.as_ref().and_then(|m| m.value),
+                self.speed.as_ref().map(|m| (m.name.as_str(), m.value)),
                 false,
             ),
             (
                 "distance",
-                &self
-                    .distance
-                    .as_ref()
-                    .map(|m| m.name.clone())
-                    .unwrap_or_default(),
-                self.distance.as_ref().and_then(|m| m.value),
+                self.distance.as_ref().map(|m| (m.name.as_str(), m.value)),
                 true,
             ),
-            ("width", &self.width.name, self.width.value, true),
-        ] {
-            let mapped = key == "flow"
-                || (key == "speed" && self.speed.is_some())
-                || (key == "distance" && self.distance.is_some())
-                || key == "width";
-            if !mapped {
-                continue;
-            }
+            ("width", Some((&self.width.name, self.width.value)), true),
+        ];
+        for (key, m, fixed_ok) in mapped {
+            let Some((name, value)) = m else { continue };
             match (name.is_empty(), value) {
                 (true, None) => p.push(format!(
                     "columns.{key} needs a column name{}",
