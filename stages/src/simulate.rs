@@ -69,6 +69,10 @@ crate::choice! {
         /// columns, distance travelled per record (in) and the record's interval (s) instead
         /// of speed.
         DistanceText = "distance_text",
+        /// A yield-point export as farm software writes it: ISO 8601 time, lon/lat, dry
+        /// yield (t/ha at standard moisture, delay-corrected), the standard moisture filled
+        /// in, heading and header state; no flow, speed or swath.
+        YieldPoints = "yield_points",
     }
 }
 
@@ -444,6 +448,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         let mut csv = String::from(match o.form {
             SimForm::Text => "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
             SimForm::DistanceText => "Date;Time;Longitude;Latitude;Flow_lb_s;Distance_in;Interval_s;Swath_ft;Moisture_pct;Heading_deg;Header;HDOP\n",
+            SimForm::YieldPoints => "time_utc,lon_deg,lat_deg,dry_yield_t_ha,moisture_pct,heading_deg,header_state\n",
         });
         let file_name = format!("monitor/field-{fname}.csv");
         let mut labels_out: BTreeMap<&str, Vec<u64>> = BTreeMap::new();
@@ -525,6 +530,28 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                         heading,
                         u8::from(r.working),
                         hdop_out[i]
+                    );
+                }
+                SimForm::YieldPoints => {
+                    // The software's yield: the grain that reached the sensor for this
+                    // position (mixing, no transport delay), at standard moisture.
+                    let dry: f64 = (from..=i)
+                        .map(|j| {
+                            let q = &rows[j];
+                            mixed[j] * 10_000.0 / (q.speed * q.width) * (100.0 - q.moisture)
+                                / (100.0 - 15.5)
+                        })
+                        .sum::<f64>()
+                        / span;
+                    let _ = writeln!(
+                        csv,
+                        "{},{:.8},{:.8},{:.4},15.50,{:.1},{}",
+                        iso(r.t),
+                        r.frame_lonlat.0,
+                        r.frame_lonlat.1,
+                        dry.max(0.0) / 1000.0,
+                        heading,
+                        u8::from(r.working),
                     );
                 }
                 SimForm::DistanceText => {
@@ -649,6 +676,15 @@ work_state = "Header"
 hdop = "HDOP"
 "#;
 
+const YIELD_COLUMNS: &str = r#"delimiter = ","
+time = { name = "time_utc", format = "iso8601" }
+longitude = "lon_deg"
+latitude = "lat_deg"
+yield = { name = "dry_yield_t_ha", unit = "t_ha", basis = "dry" }
+moisture = "moisture_pct"
+work_state = "header_state"
+"#;
+
 fn trial_toml(o: &SimOptions) -> String {
     let seed = o.seed;
     // The options that shape the exports, for the header comment.
@@ -662,6 +698,7 @@ fn trial_toml(o: &SimOptions) -> String {
     let columns = match o.form {
         SimForm::Text => TEXT_COLUMNS,
         SimForm::DistanceText => DISTANCE_COLUMNS,
+        SimForm::YieldPoints => YIELD_COLUMNS,
     };
     format!(
         r#"# An invented trial made by `plotsieve simulate --seed {seed}{how}` (Brackenmoor trial station,

@@ -29,6 +29,9 @@ pub struct Point {
     pub hdop: f64,
     /// GPS fix quality; NaN when absent.
     pub fix_quality: f64,
+    /// Yield at standard moisture, kg/ha, as a yield-point export gives it; NaN for a
+    /// monitor export (clean computes it from flow, speed and swath).
+    pub yield_kg_ha: f64,
 }
 
 /// The monitor points of a trial with the names of their source files.

@@ -332,3 +332,79 @@ fn the_second_sample_trial_in_another_form_checks_and_runs() {
     let want = truth["effects_t_ha"]["prod-d"].as_f64().unwrap();
     assert!((up - want).abs() < 3.0 * sd, "{up} +- {sd}, truth {want}");
 }
+
+#[test]
+fn a_yield_point_export_goes_in_and_skips_the_rules_it_cannot_feed() {
+    // Yields already computed by farm software: one dry yield per point, the standard
+    // moisture filled in, no flow, speed or swath. Faked into a flow column it lost every
+    // point to moisture_stuck; read as yields, the rules that need a missing quantity are
+    // skipped and listed, the delay is not applied twice, and the plots match the text
+    // form's.
+    let w = Workdir::new("forms-yield");
+    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
+    let pts = simulate(
+        &w,
+        "points",
+        &["--seed", "2", "--form", "yield_points", "--quiet"],
+    );
+    let o = plotsieve(&w.0, &["check", pts.to_str().unwrap()]);
+    ok(&o);
+    assert!(String::from_utf8_lossy(&o.stdout).contains(
+        "yield dry_yield_t_ha (t_ha, dry basis, at standard moisture); no speed or distance; no swath width"
+    ));
+    run(&w, &text, "r-text");
+    run(&w, &pts, "r-points");
+    let s = json(&w.path("r-points/2-clean/summary.json"));
+    assert!(
+        s["by_rule"].get("moisture_stuck").is_none(),
+        "{}",
+        s["by_rule"]
+    );
+    let ex = &s["details"]["exports"]["monitor/field-A.csv"];
+    for (rule, why) in [
+        ("moisture_stuck", "not a sensor reading"),
+        ("speed_min", "no speed or distance"),
+        ("swath_fraction", "no swath width"),
+        ("flow_delay_no_data", "no mass flow"),
+    ] {
+        assert!(
+            ex["skipped_rules"][rule]
+                .as_str()
+                .unwrap_or("")
+                .contains(why),
+            "{rule}: {}",
+            ex["skipped_rules"]
+        );
+    }
+    assert!(ex["flow_delay_source"]
+        .as_str()
+        .unwrap()
+        .starts_with("not applied"));
+    let (a, b) = (plots(&w.path("r-text")), plots(&w.path("r-points")));
+    assert_eq!(b.values().filter(|v| v.0 == "kept").count(), b.len());
+    let d = yield_differences(&a, &b);
+    assert!(
+        d[d.len() / 2] < 0.01,
+        "median difference {}",
+        d[d.len() / 2]
+    );
+    assert!(
+        *d.last().unwrap() < 0.04,
+        "largest difference {:?}",
+        d.last()
+    );
+    // As close to the simulated truth as the text form.
+    let truth = truth_by_plot(&json(&w.path("text/truth.json")), "true_yield_t_ha");
+    let err = |p: &BTreeMap<String, (String, f64, f64)>| {
+        let e: Vec<f64> = p.iter().map(|(k, v)| (v.1 - truth[k]).abs()).collect();
+        e.iter().sum::<f64>() / e.len() as f64
+    };
+    let (ea, eb) = (err(&a), err(&b));
+    assert!(
+        eb < 1.2 * ea,
+        "mean error {eb} t/ha from yields, {ea} from flow"
+    );
+    // Without a swath the harvested area is unknown: coverage is empty, no plot set aside
+    // for it.
+    assert!(b.values().all(|v| v.2.is_nan()));
+}

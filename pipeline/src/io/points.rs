@@ -25,7 +25,7 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point> + Clo
     let f = |name: &str, g: fn(&Point) -> f64| {
         Column::new(name.into(), pts.clone().map(g).collect::<Vec<f64>>())
     };
-    vec![
+    let mut cols = vec![
         Column::new(
             "point_id".into(),
             pts.clone().map(|p| p.id).collect::<Vec<u64>>(),
@@ -56,7 +56,12 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point> + Clo
         f("work_state", |p| p.work_state),
         f("hdop", |p| p.hdop),
         f("fix_quality", |p| p.fix_quality),
-    ]
+    ];
+    // Yields given by a yield-point export (the column only where there are some).
+    if pts.clone().any(|p| p.yield_kg_ha.is_finite()) {
+        cols.push(f("yield_given_kg_ha", |p| p.yield_kg_ha));
+    }
+    cols
 }
 
 /// Ingest's `points.parquet`.
@@ -175,6 +180,11 @@ fn read_base(df: &DataFrame, path: &Path, epsg: u32) -> Result<PointSet> {
     .iter()
     .map(|c| col_f64(df, c, path))
     .collect::<Result<_>>()?;
+    let given = if df.column("yield_given_kg_ha").is_ok() {
+        col_f64(df, "yield_given_kg_ha", path)?
+    } else {
+        vec![f64::NAN; df.height()]
+    };
     let points = (0..df.height())
         .map(|i| Point {
             id: id[i],
@@ -192,6 +202,7 @@ fn read_base(df: &DataFrame, path: &Path, epsg: u32) -> Result<PointSet> {
             work_state: cols[9][i],
             hdop: cols[10][i],
             fix_quality: cols[11][i],
+            yield_kg_ha: given[i],
         })
         .collect();
     Ok(PointSet {

@@ -312,6 +312,16 @@ pub fn shift(e: &mut Export) {
     let s = e.s;
     let header = e.header;
     let d = &mut e.details;
+    // A yield-point export: its yields were computed (and delay-corrected) by the software
+    // that wrote it; there is no flow to shift.
+    if e.w.iter().all(|w| !w.p.flow_kg_s.is_finite()) {
+        let why =
+            "not applied: the export gives yields, already computed by the software that wrote it";
+        (d.flow_delay_s, d.moisture_delay_s) = (0.0, 0.0);
+        d.flow_delay_source = why.into();
+        d.moisture_delay_source = why.into();
+        return;
+    }
     if s.delay.mode == DelayMode::Auto {
         let w = &e.w;
         let heading = passes::headings(w);

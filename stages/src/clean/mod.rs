@@ -86,6 +86,9 @@ pub fn to_standard_moisture(wet: f64, moisture_pct: f64, standard_pct: f64) -> f
 /// moisture capped at 99 % so that a broken sensor gives a number): what the report's map of
 /// every record shows.
 pub fn record_yield_kg_ha(p: &crate::table::Point, crop: &crate::crop::Crop) -> f64 {
+    if p.yield_kg_ha.is_finite() {
+        return p.yield_kg_ha;
+    }
     let wet = wet_yield_kg_ha(p.flow_kg_s, p.speed_m_s, p.width_m);
     to_standard_moisture(wet, p.moisture_pct.min(99.0), crop.standard_moisture_pct)
 }
@@ -107,6 +110,11 @@ pub fn modal_width(widths: &[f64]) -> f64 {
 fn yields(e: &mut Export) {
     let standard = e.crop.standard_moisture_pct;
     for wi in e.w.iter_mut().filter(|w| w.alive()) {
+        if wi.p.yield_kg_ha.is_finite() {
+            // A yield-point export: the yield at standard moisture is given.
+            wi.std = wi.p.yield_kg_ha;
+            continue;
+        }
         wi.wet = wet_yield_kg_ha(wi.flow, wi.p.speed_m_s, wi.p.width_m);
         wi.std = to_standard_moisture(wi.wet, wi.moisture, standard);
     }
@@ -192,14 +200,33 @@ fn clean_export<'a>(
             flow_delay_estimate: None,
             moisture_delay_estimate: None,
             time_steps_back: 0,
+            skipped_rules: BTreeMap::new(),
         },
         derived: Needs::Records,
     };
+    // What this export logged (a yield-point export may lack flow, speed, swath, moisture).
+    let any = |f: fn(&Point) -> f64| pts.iter().any(|p| f(p).is_finite());
+    let given = any(|p| p.yield_kg_ha);
+    let moisture = any(|p| p.moisture_pct);
+    let has = |q: rules::Quantity| match q {
+        rules::Quantity::Flow => any(|p| p.flow_kg_s),
+        rules::Quantity::Speed => any(|p| p.speed_m_s),
+        rules::Quantity::Width => any(|p| p.width_m),
+        rules::Quantity::Moisture => moisture,
+        rules::Quantity::MoistureSensor => moisture && !given,
+    };
     for rule in RULES {
         derive_up_to(&mut e, rule.needs());
-        if s.enabled(rule.name()) {
-            rule.apply(&mut e);
+        if !s.enabled(rule.name()) {
+            continue;
         }
+        if let Some(q) = rule.requires().iter().find(|q| !has(**q)) {
+            e.details
+                .skipped_rules
+                .insert(rule.name().to_string(), q.lacking().to_string());
+            continue;
+        }
+        rule.apply(&mut e);
     }
     derive_up_to(&mut e, Needs::Yield);
     (e.w, e.details)
@@ -345,6 +372,9 @@ fn delay_warnings(export: &str, d: &ExportDetails, s: &CleanSettings) -> Vec<Str
                      fixed_key: &str,
                      asked: bool| {
         if !asked {
+            return;
+        }
+        if source.starts_with("not applied") {
             return;
         }
         if source != "estimated" {

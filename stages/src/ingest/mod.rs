@@ -278,6 +278,7 @@ pub fn run_with(
             work_state: r.optional[0],
             hdop: r.optional[1],
             fix_quality: r.optional[2],
+            yield_kg_ha: r.yield_kg_ha,
         })
         .collect();
     let polygons = if cfg.layout.is_empty() {

@@ -96,6 +96,55 @@ pub struct Mapped<U> {
     pub value: Option<f64>,
 }
 
+/// Units of a yield column.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum YieldColumnUnit {
+    #[default]
+    THa,
+    KgHa,
+    /// Quintals (100 kg) per hectare.
+    QHa,
+    /// Bushels of the trial's crop per acre.
+    BuAc,
+    /// Pounds per acre.
+    LbAc,
+}
+
+impl YieldColumnUnit {
+    /// kg/ha in one unit (bushels need the crop's bushel weight, lb).
+    pub fn kg_ha_per_unit(self, bushel_lb: f64) -> f64 {
+        use crate::crop::LB_AC_IN_KG_HA;
+        match self {
+            YieldColumnUnit::THa => 1000.0,
+            YieldColumnUnit::KgHa => 1.0,
+            YieldColumnUnit::QHa => 100.0,
+            YieldColumnUnit::BuAc => LB_AC_IN_KG_HA * bushel_lb,
+            YieldColumnUnit::LbAc => LB_AC_IN_KG_HA,
+        }
+    }
+}
+
+/// Moisture basis of a yield column.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum YieldBasis {
+    /// At the crop's standard moisture (dry yield as farm software reports it).
+    #[default]
+    Dry,
+    /// At harvest moisture: standardised with the moisture column.
+    Wet,
+}
+
+/// A yield column of a yield-point export.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct YieldColumn {
+    pub name: String,
+    pub unit: YieldColumnUnit,
+    pub basis: YieldBasis,
+}
+
 /// `[columns]`: how the monitor export names and scales its columns.
 #[derive(Clone, Debug, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -112,7 +161,12 @@ pub struct ColumnsSection {
     /// Latitude column (or northing, `y`, with `inputs.crs`).
     #[serde(alias = "y")]
     pub latitude: String,
+    /// Mass flow; left out for a yield-point export (`yield`).
+    #[serde(default)]
     pub flow: Mapped<FlowUnit>,
+    /// A yield-point export's yield column, instead of `flow`.
+    #[serde(default, rename = "yield", skip_serializing_if = "Option::is_none")]
+    pub yield_col: Option<YieldColumn>,
     /// Ground speed; may be left out when `distance` is given.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub speed: Option<Mapped<SpeedUnit>>,
@@ -123,9 +177,13 @@ pub struct ColumnsSection {
     /// interval is the time since the previous record.
     #[serde(default, skip_serializing_if = "String::is_empty")]
     pub interval: String,
-    /// Swath width column, or `value` for an export without one.
+    /// Swath width column, or `value` for an export without one (a yield-point export may
+    /// have neither).
+    #[serde(default)]
     pub width: Mapped<WidthUnit>,
-    /// Grain moisture column, in percent (wet basis).
+    /// Grain moisture column, in percent (wet basis); a yield-point export with yields at
+    /// standard moisture may have none.
+    #[serde(default)]
     pub moisture: String,
     /// Optional: work-state / header column (0 = not harvesting, anything else = harvesting).
     #[serde(default)]
@@ -199,7 +257,26 @@ impl ColumnsSection {
                 self.decimal
             ));
         }
+        let points = self.yield_col.is_some();
+        match (self.flow.name.is_empty() && self.flow.value.is_none(), points) {
+            (true, false) => p.push(
+                "[columns] needs flow (a mass-flow column) or yield (a yield-point export's yield column)".into(),
+            ),
+            (false, true) => p.push("[columns] has both flow and yield; give one".into()),
+            _ => {}
+        }
+        if let Some(y) = &self.yield_col {
+            if y.name.is_empty() {
+                p.push("columns.yield needs a column name".into());
+            }
+            if y.basis == YieldBasis::Wet && self.moisture.is_empty() {
+                p.push("columns.yield with basis = \"wet\" needs the moisture column to standardise it".into());
+            }
+        } else if self.moisture.is_empty() {
+            p.push("columns.moisture needs a column name".into());
+        }
         match (&self.speed, &self.distance) {
+            (None, None) if points => {}
             (None, None) => p.push(
                 "[columns] needs speed (a speed column) or distance (distance travelled per record)"
                     .into(),
@@ -214,7 +291,11 @@ impl ColumnsSection {
         }
         // Each mapped quantity: a column, or (where a fixed value may stand in) a value.
         let mapped: [(&str, Option<(&str, Option<f64>)>, bool); 4] = [
-            ("flow", Some((&self.flow.name, self.flow.value)), false),
+            (
+                "flow",
+                (!points).then_some((self.flow.name.as_str(), self.flow.value)),
+                false,
+            ),
             (
                 "speed",
                 self.speed.as_ref().map(|m| (m.name.as_str(), m.value)),
@@ -225,7 +306,12 @@ impl ColumnsSection {
                 self.distance.as_ref().map(|m| (m.name.as_str(), m.value)),
                 true,
             ),
-            ("width", Some((&self.width.name, self.width.value)), true),
+            (
+                "width",
+                (!points || !self.width.name.is_empty() || self.width.value.is_some())
+                    .then_some((self.width.name.as_str(), self.width.value)),
+                true,
+            ),
         ];
         for (key, m, fixed_ok) in mapped {
             let Some((name, value)) = m else { continue };

@@ -288,7 +288,17 @@ pub fn run(
         let dt = prev
             .map(|j| (p.time_s - points[j].base.time_s).clamp(0.0, 2.0 * step))
             .unwrap_or(step);
-        footprint[i] = oriented_rect(p.x_m, p.y_m, ux, uy, (p.speed_m_s * dt).max(0.1), p.width_m);
+        // Without a logged speed (a yield-point export), the ground between the positions.
+        let travel = if p.speed_m_s.is_finite() {
+            p.speed_m_s * dt
+        } else {
+            prev.map(|j| {
+                let q = &points[j].base;
+                (p.x_m - q.x_m).hypot(p.y_m - q.y_m).min(dt * 10.0)
+            })
+            .unwrap_or(d * 0.5)
+        };
+        footprint[i] = oriented_rect(p.x_m, p.y_m, ux, uy, travel.max(0.1), p.width_m);
     }
     let mut assignment = Vec::new();
     let mut rejections = Vec::new();
@@ -421,8 +431,15 @@ pub fn run(
             .collect();
         let net_ring = nets[k].clone().unwrap_or_default();
         let net_area = geometry::signed_area(&net_ring).abs();
+        // Without a swath width (a yield-point export without one) the harvested area is
+        // unknown: coverage is NaN and min_coverage does not apply.
+        let widths_known = members[k]
+            .iter()
+            .any(|&i| points[i].base.width_m.is_finite());
         let cov = if net_ring.is_empty() {
             0.0
+        } else if !widths_known {
+            f64::NAN
         } else {
             let fps: Vec<Vec<(f64, f64)>> =
                 members[k].iter().map(|&i| footprint[i].clone()).collect();

@@ -14,6 +14,9 @@ impl Rule for FlowDelayNoData {
     fn needs(&self) -> Needs {
         Needs::Shifted
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Flow]
+    }
     fn apply(&self, e: &mut Export) {
         let gap = e.s.pass.max_gap_s;
         for i in e.alive() {

@@ -88,12 +88,44 @@ pub enum Needs {
     Yield,
 }
 
+/// Logged quantities a rule may test; an export that lacks one (a yield-point export without
+/// speed, say) skips the rule, and its summary says which and why.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Quantity {
+    Flow,
+    Speed,
+    Width,
+    Moisture,
+    /// Moisture as the sensor logged it: not the column of an export whose yields were
+    /// computed by other software (often the standard moisture filled in).
+    MoistureSensor,
+}
+
+impl Quantity {
+    /// Why an export lacking it skips a rule.
+    pub fn lacking(self) -> &'static str {
+        match self {
+            Quantity::Flow => "the export has no mass flow (its yields are given)",
+            Quantity::Speed => "the export has no speed or distance",
+            Quantity::Width => "the export has no swath width",
+            Quantity::Moisture => "the export has no moisture",
+            Quantity::MoistureSensor => {
+                "the export's yields are given by other software, so its moisture column is not a sensor reading"
+            }
+        }
+    }
+}
+
 /// A cleaning rule.
 pub trait Rule: Sync {
     /// The name used in `rejected.csv`, the summaries and `clean.disabled_rules`.
     fn name(&self) -> &'static str;
     /// The last derived quantity the rule reads.
     fn needs(&self) -> Needs;
+    /// The logged quantities the rule tests (an export without one skips it).
+    fn requires(&self) -> &'static [Quantity] {
+        &[]
+    }
     /// Judge the export's live points, rejecting with [`Export::reject`].
     fn apply(&self, e: &mut Export);
 }
@@ -150,6 +182,9 @@ pub struct ExportDetails {
     pub flow_delay_estimate: Option<DelayEstimate>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub moisture_delay_estimate: Option<DelayEstimate>,
+    /// Rules this export skipped, each with why (a quantity it lacks).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub skipped_rules: BTreeMap<String, String>,
     /// Backward steps of the GPS time repaired ([`crate::clean::timeline`]).
     #[serde(default, skip_serializing_if = "is_zero")]
     pub time_steps_back: usize,
@@ -243,6 +278,7 @@ pub(crate) mod testing {
                 work_state: f64::NAN,
                 hdop: f64::NAN,
                 fix_quality: f64::NAN,
+                yield_kg_ha: f64::NAN,
             })
             .collect()
     }

@@ -11,6 +11,9 @@ impl Rule for MoistureMax {
     fn needs(&self) -> Needs {
         Needs::Shifted
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Moisture]
+    }
     fn apply(&self, e: &mut Export) {
         let max = e.s.moisture.max_pct;
         for i in e.alive() {

@@ -11,6 +11,9 @@ impl Rule for MoistureMin {
     fn needs(&self) -> Needs {
         Needs::Shifted
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Moisture]
+    }
     fn apply(&self, e: &mut Export) {
         let min = e.s.moisture.min_pct;
         for i in e.alive() {

@@ -29,6 +29,9 @@ impl Rule for MoistureStuck {
     fn needs(&self) -> Needs {
         Needs::Shifted
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::MoistureSensor]
+    }
     fn apply(&self, e: &mut Export) {
         let min_s = e.s.moisture.stuck_s;
         let stuck = stuck_runs(&e.times, &e.moist, min_s);

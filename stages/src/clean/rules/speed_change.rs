@@ -14,6 +14,9 @@ impl Rule for SpeedChange {
     fn needs(&self) -> Needs {
         Needs::Records
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Speed]
+    }
     fn apply(&self, e: &mut Export) {
         let (max, settle) = (e.s.speed.max_change_fraction, e.s.speed.settle_s);
         let n = e.w.len();

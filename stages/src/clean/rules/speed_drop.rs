@@ -12,6 +12,9 @@ impl Rule for SpeedDrop {
     fn needs(&self) -> Needs {
         Needs::PassStats
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Speed]
+    }
     fn apply(&self, e: &mut Export) {
         let fraction = e.s.speed.min_fraction_of_pass_median;
         for i in e.alive() {

@@ -11,6 +11,9 @@ impl Rule for SpeedMax {
     fn needs(&self) -> Needs {
         Needs::Records
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Speed]
+    }
     fn apply(&self, e: &mut Export) {
         let max = e.s.speed.max_m_s;
         for i in e.alive() {

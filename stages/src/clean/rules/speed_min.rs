@@ -11,6 +11,9 @@ impl Rule for SpeedMin {
     fn needs(&self) -> Needs {
         Needs::Records
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Speed]
+    }
     fn apply(&self, e: &mut Export) {
         let min = e.s.speed.min_m_s;
         for i in e.alive() {

@@ -12,6 +12,9 @@ impl Rule for SwathFraction {
     fn needs(&self) -> Needs {
         Needs::Records
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Width]
+    }
     fn apply(&self, e: &mut Export) {
         let (fraction, header) = (e.s.swath.min_fraction, e.header);
         for i in e.alive() {

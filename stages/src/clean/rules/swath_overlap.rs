@@ -14,6 +14,9 @@ impl Rule for SwathOverlap {
     fn needs(&self) -> Needs {
         Needs::Passes
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Width, super::Quantity::Speed]
+    }
     fn apply(&self, e: &mut Export) {
         let heading = passes::headings(&e.w);
         let alive: Vec<usize> = e

@@ -7,7 +7,7 @@
 
 use super::{reject, ExportRead, MonitorFormat, RawPoint};
 use crate::config::TrialConfig;
-use crate::ingest::settings::{FlowUnit, SpeedUnit, TimeFormat, WidthUnit};
+use crate::ingest::settings::{FlowUnit, SpeedUnit, TimeFormat, WidthUnit, YieldBasis};
 use crate::ingest::time::parse_date_time;
 use crate::ingest::{parse_iso8601, IngestError};
 use std::path::Path;
@@ -22,11 +22,14 @@ struct ColumnIndex {
     date: Option<usize>,
     lon: usize,
     lat: usize,
+    /// The flow or yield column.
     flow: usize,
+    amount: Amount,
     motion: Motion,
     /// None: the fixed `columns.width.value`.
     width: Option<usize>,
-    moisture: usize,
+    /// None: a yield-point export without moisture.
+    moisture: Option<usize>,
     /// Optional columns: (index, name) when mapped.
     optional: [Option<(usize, String)>; 3],
 }
@@ -43,6 +46,17 @@ enum Motion {
         factor: f64,
         interval: Option<usize>,
     },
+    /// Not read (a yield-point export without speed or distance).
+    Unknown,
+}
+
+/// What the export measures of the grain: mass flow, or the yield itself.
+enum Amount {
+    /// Mass flow and its factor to kg/s.
+    Flow(f64),
+    /// Yield and its factor to kg/ha; `wet`: at harvest moisture (standardised with the
+    /// moisture column), else at the crop's standard moisture.
+    Yield { per_unit: f64, wet: bool },
 }
 
 fn column_index(
@@ -78,7 +92,21 @@ fn column_index(
         find(&c.longitude, "longitude")?,
         find(&c.latitude, "latitude")?,
     );
-    let flow = find(&c.flow.name, "flow.name")?;
+    let (flow, amount) = match &c.yield_col {
+        Some(y) => (
+            find(&y.name, "yield.name")?,
+            Amount::Yield {
+                per_unit: y
+                    .unit
+                    .kg_ha_per_unit(cfg.crop().map(|c| c.bushel_lb).unwrap_or(f64::NAN)),
+                wet: y.basis == YieldBasis::Wet,
+            },
+        ),
+        None => (
+            find(&c.flow.name, "flow.name")?,
+            Amount::Flow(flow_factor(c.flow.unit)),
+        ),
+    };
     let motion = match (&c.speed, &c.distance) {
         (Some(sp), _) => Motion::Speed(find(&sp.name, "speed.name")?, speed_factor(sp.unit)),
         (None, Some(d)) => Motion::Distance {
@@ -87,6 +115,7 @@ fn column_index(
             factor: width_factor(d.unit),
             interval: opt(&c.interval, "interval")?,
         },
+        (None, None) if c.yield_col.is_some() => Motion::Unknown,
         (None, None) => {
             return Err(IngestError::Unusable {
                 file: file.to_string(),
@@ -100,9 +129,10 @@ fn column_index(
         lon,
         lat,
         flow,
+        amount,
         motion,
         width: opt(&c.width.name, "width.name")?,
-        moisture: find(&c.moisture, "moisture")?,
+        moisture: opt(&c.moisture, "moisture")?,
         optional: [
             (&c.work_state, "work_state"),
             (&c.hdop, "hdop"),
@@ -149,7 +179,20 @@ fn describe(cfg: &TrialConfig) -> String {
             c.longitude, c.latitude, cfg.inputs.crs
         )
     });
-    parts.push(format!("flow {} ({})", c.flow.name, spelled(&c.flow.unit)));
+    parts.push(match &c.yield_col {
+        Some(y) => format!(
+            "yield {} ({}, {} basis{})",
+            y.name,
+            spelled(&y.unit),
+            spelled(&y.basis),
+            if y.basis == YieldBasis::Wet {
+                ", standardised with the moisture column"
+            } else {
+                ", at standard moisture"
+            }
+        ),
+        None => format!("flow {} ({})", c.flow.name, spelled(&c.flow.unit)),
+    });
     match (&c.speed, &c.distance) {
         (Some(sp), _) => parts.push(format!("speed {} ({})", sp.name, spelled(&sp.unit))),
         (None, Some(d)) => {
@@ -169,9 +212,11 @@ fn describe(cfg: &TrialConfig) -> String {
             };
             parts.push(format!("speed = distance {dist} / {interval}"));
         }
-        (None, None) => {}
+        (None, None) => parts.push("no speed or distance".into()),
     }
-    parts.push(if c.width.name.is_empty() {
+    parts.push(if c.width.name.is_empty() && c.width.value.is_none() {
+        "no swath width".to_string()
+    } else if c.width.name.is_empty() {
         format!(
             "swath a fixed {} {} (columns.width.value: the export has no swath column)",
             c.width.value.unwrap_or(f64::NAN),
@@ -180,7 +225,11 @@ fn describe(cfg: &TrialConfig) -> String {
     } else {
         format!("swath {} ({})", c.width.name, spelled(&c.width.unit))
     });
-    parts.push(format!("moisture {} (%)", c.moisture));
+    parts.push(if c.moisture.is_empty() {
+        "no moisture".to_string()
+    } else {
+        format!("moisture {} (%)", c.moisture)
+    });
     parts.join("; ")
 }
 
@@ -251,8 +300,15 @@ fn read_export(
         file: name.to_string(),
         message,
     })?;
-    let ff = flow_factor(c.flow.unit);
     let wf = width_factor(c.width.unit);
+    let standard = cfg
+        .crop()
+        .map(|c| c.standard_moisture_pct)
+        .unwrap_or(f64::NAN);
+    let amount_name = match &c.yield_col {
+        Some(y) => y.name.as_str(),
+        None => c.flow.name.as_str(),
+    };
     let fixed_width = c.width.value.unwrap_or(f64::NAN) * wf;
     let speed_name = c.speed.as_ref().map(|s| s.name.as_str()).unwrap_or("");
     let distance_name = c.distance.as_ref().map(|s| s.name.as_str()).unwrap_or("");
@@ -260,9 +316,11 @@ fn read_export(
     let mut cols = vec![
         (idx.lon, c.longitude.as_str()),
         (idx.lat, c.latitude.as_str()),
-        (idx.flow, c.flow.name.as_str()),
-        (idx.moisture, c.moisture.as_str()),
+        (idx.flow, amount_name),
     ];
+    if let Some(i) = idx.moisture {
+        cols.push((i, c.moisture.as_str()));
+    }
     match &idx.motion {
         Motion::Speed(i, _) => cols.push((*i, speed_name)),
         Motion::Distance { col, interval, .. } => {
@@ -273,6 +331,7 @@ fn read_export(
                 cols.push((*i, c.interval.as_str()));
             }
         }
+        Motion::Unknown => {}
     }
     if let Some(i) = idx.width {
         cols.push((i, c.width.name.as_str()));
@@ -373,11 +432,16 @@ fn read_export(
             rej.push(reject(name, line, "unparseable", cname, &text, "a number"));
             continue;
         }
-        let (lon, lat, flow, moisture) = (vals[0], vals[1], vals[2], vals[3]);
-        let mut k = 4;
+        let (lon, lat, amount) = (vals[0], vals[1], vals[2]);
+        let mut k = 3;
         let mut next = || {
             k += 1;
             vals[k - 1]
+        };
+        let moisture = if idx.moisture.is_some() {
+            next()
+        } else {
+            f64::NAN
         };
         // (speed m/s, or distance m and interval s).
         let (speed, dist, interval) = match &idx.motion {
@@ -395,6 +459,20 @@ fn read_export(
                 };
                 let i = if interval.is_some() { next() } else { f64::NAN };
                 (f64::NAN, d, i)
+            }
+            Motion::Unknown => (f64::NAN, f64::NAN, f64::NAN),
+        };
+        // Mass flow (kg/s), or the given yield at standard moisture (kg/ha).
+        let (flow, given) = match idx.amount {
+            Amount::Flow(f) => (amount * f, f64::NAN),
+            Amount::Yield { per_unit, wet } => {
+                let kg = amount * per_unit;
+                let std = if wet {
+                    crate::clean::to_standard_moisture(kg, moisture.min(99.0), standard)
+                } else {
+                    kg
+                };
+                (f64::NAN, std)
             }
         };
         let width = if idx.width.is_some() {
@@ -448,7 +526,7 @@ fn read_export(
             continue;
         }
         if let Some((cn, v)) = [
-            (c.flow.name.as_str(), flow),
+            (amount_name, amount),
             (speed_name, speed),
             (distance_name, dist),
             (c.interval.as_str(), interval),
@@ -475,11 +553,12 @@ fn read_export(
             time_s,
             lon,
             lat,
-            flow_kg_s: flow * ff,
+            flow_kg_s: flow,
             speed_m_s: speed,
             width_m: width,
             moisture_pct: moisture,
             optional,
+            yield_kg_ha: given,
         });
     }
     if n == 0 {

@@ -67,6 +67,8 @@ pub struct RawPoint {
     pub moisture_pct: f64,
     /// Work state, HDOP, fix quality; NaN where the export has no such column.
     pub optional: [f64; 3],
+    /// Yield at standard moisture, kg/ha, of a yield-point export; NaN otherwise.
+    pub yield_kg_ha: f64,
 }
 
 /// One export read: records seen (`rows = points + rejections`), points and rejections.
