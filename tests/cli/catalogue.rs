@@ -4,19 +4,6 @@
 
 use crate::common::*;
 
-fn copy_dir(from: &Path, to: &Path) {
-    std::fs::create_dir_all(to).unwrap();
-    for e in std::fs::read_dir(from).unwrap() {
-        let p = e.unwrap().path();
-        let q = to.join(p.file_name().unwrap());
-        if p.is_dir() {
-            copy_dir(&p, &q);
-        } else {
-            std::fs::copy(&p, &q).unwrap();
-        }
-    }
-}
-
 fn first_lines(p: &Path, n: usize) {
     let t: Vec<String> = read(p).lines().take(n).map(String::from).collect();
     std::fs::write(p, t.join("\n") + "\n").unwrap();

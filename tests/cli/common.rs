@@ -301,3 +301,17 @@ pub fn set_col(p: &Path, col: &str, f: impl Fn(&str) -> String) {
     }
     std::fs::write(p, out.join("\n") + "\n").unwrap();
 }
+
+/// Copy a folder tree.
+pub fn copy_dir(from: &Path, to: &Path) {
+    std::fs::create_dir_all(to).unwrap();
+    for e in std::fs::read_dir(from).unwrap() {
+        let p = e.unwrap().path();
+        let q = to.join(p.file_name().unwrap());
+        if p.is_dir() {
+            copy_dir(&p, &q);
+        } else {
+            std::fs::copy(&p, &q).unwrap();
+        }
+    }
+}

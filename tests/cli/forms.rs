@@ -408,3 +408,52 @@ fn a_yield_point_export_goes_in_and_skips_the_rules_it_cannot_feed() {
     // for it.
     assert!(b.values().all(|v| v.2.is_nan()));
 }
+
+#[test]
+fn plot_polygons_from_a_shapefile_read_as_the_geojson() {
+    // tests/fixtures/shp: the demo trial's plots written by pyshp 3.1.6, in lon/lat and in
+    // UTM 14N (the .prj from pyproj). Read through the `shapefile` crate, both give the
+    // GeoJSON run's plots.
+    let w = Workdir::new("forms-shp");
+    let d = w.path("t");
+    copy_dir(&repo().join("sample-input"), &d);
+    std::fs::remove_dir_all(d.join("distance-3s")).unwrap();
+    copy_dir(&repo().join("tests/fixtures/shp"), &d.join("shp"));
+    let t = d.join("trial.toml");
+    run(&w, &t, "geojson");
+    let base = plots(&w.path("geojson"));
+    for (file, says) in [
+        ("shp/plots_wgs84.shp", "plots.geojson"),
+        ("shp/plots_utm14n.shp", "shp/plots_wgs84.shp"),
+    ] {
+        replace(&t, says, file, 1);
+        ok(&plotsieve(&w.0, &["check", t.to_str().unwrap()]));
+        let out = format!("from-{}", file.replace(['/', '.'], "-"));
+        run(&w, &t, &out);
+        let p = plots(&w.path(&out));
+        assert_eq!(
+            base.values()
+                .map(|v| (&v.0, v.1.is_finite()))
+                .collect::<Vec<_>>(),
+            p.values()
+                .map(|v| (&v.0, v.1.is_finite()))
+                .collect::<Vec<_>>(),
+            "{file}"
+        );
+        let diff = yield_differences(&base, &p);
+        assert!(*diff.last().unwrap() < 1e-6, "{file}: {:?}", diff.last());
+    }
+    // A .prj this program cannot place asks for inputs.crs, naming the file.
+    std::fs::write(
+        d.join("shp/plots_utm14n.prj"),
+        "PROJCS[\"RGF93_Lambert_93\",GEOGCS[\"GCS_RGF_1993\"]]",
+    )
+    .unwrap();
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(1));
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("shp/plots_utm14n.shp: its .prj is not on WGS 84"),
+        "{out}"
+    );
+}

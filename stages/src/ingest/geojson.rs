@@ -26,16 +26,27 @@ pub fn read_geojson(
     read_with_crs(path, name, id_prop).map(|(p, _)| p)
 }
 
-/// The analyst's plot file in WGS84 lon/lat: coordinates in the CRS its `crs` member names,
-/// else in `crs` (the trial's `inputs.crs`; empty: WGS84 lon/lat), brought to lon/lat.
+/// The analyst's plot file (GeoJSON, or a Shapefile by its `.shp` extension) in WGS84
+/// lon/lat: coordinates in the CRS its `crs` member names, else in `crs` (the trial's
+/// `inputs.crs`; empty: WGS84 lon/lat), brought to lon/lat. A Shapefile's CRS is `crs`, or
+/// else its `.prj`'s.
 pub fn read_plot_input(
     path: &Path,
     name: &str,
     id_prop: &str,
     crs: &str,
 ) -> Result<Vec<PlotPolygon>, IngestError> {
-    let (mut polys, own) = read_with_crs(path, name, id_prop)?;
-    let named = own.unwrap_or_else(|| crs.to_string());
+    let shp = path
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("shp"));
+    let (mut polys, named) = if shp {
+        // The trial's crs wins over the .prj's.
+        let (p, prj) = super::shapefile_plots::read(path, name, id_prop)?;
+        (p, if crs.is_empty() { prj } else { crs.to_string() })
+    } else {
+        let (p, own) = read_with_crs(path, name, id_prop)?;
+        (p, own.unwrap_or_else(|| crs.to_string()))
+    };
     if named.is_empty() {
         return Ok(polys);
     }

@@ -22,6 +22,7 @@ pub mod plot_table;
 #[cfg(test)]
 mod robustness;
 pub mod settings;
+pub mod shapefile_plots;
 pub mod time;
 
 pub use design::{read_design, reconcile};

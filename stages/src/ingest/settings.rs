@@ -20,8 +20,8 @@ pub struct InputsSection {
     /// Monitor export CSVs, or folders whose `*.csv` files are all taken (sorted by name).
     #[serde(default)]
     pub monitor: Vec<String>,
-    /// Plot boundaries, GeoJSON (RFC 7946, WGS84 lon/lat); empty when `[[layout]]` gives
-    /// the plots as grids.
+    /// Plot boundaries, GeoJSON (RFC 7946, WGS84 lon/lat, or a `crs` member) or an ESRI
+    /// Shapefile (`.shp`); empty when `[[layout]]` gives the plots as grids.
     pub plots: String,
     /// Feature property holding the plot id.
     pub plot_id_property: String,
