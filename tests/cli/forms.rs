@@ -457,3 +457,49 @@ fn plot_polygons_from_a_shapefile_read_as_the_geojson() {
         "{out}"
     );
 }
+
+#[test]
+fn monitor_points_from_shapefiles_read_as_the_text_exports() {
+    // tests/fixtures/shp/monitor: the demo trial's two exports as point Shapefiles written by
+    // pyshp (attributes under 10-character dBase names). Mapped by [columns] like a table,
+    // they give the text run's plots and the same rejections.
+    let w = Workdir::new("forms-shp-points");
+    let d = w.path("t");
+    copy_dir(&repo().join("sample-input"), &d);
+    std::fs::remove_dir_all(d.join("distance-3s")).unwrap();
+    copy_dir(
+        &repo().join("tests/fixtures/shp/monitor"),
+        &d.join("shp_monitor"),
+    );
+    let t = d.join("trial.toml");
+    run(&w, &t, "text");
+    for (a, b) in [
+        ("monitor = [\"monitor\"]", "monitor = [\"shp_monitor\"]"),
+        ("\"mass_flow_lb_s\"", "\"flow_lb_s\""),
+        ("\"moisture_pct\"", "\"moist_pct\""),
+        ("\"header_state\"", "\"header\""),
+    ] {
+        replace(&t, a, b, 1);
+    }
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    ok(&o);
+    assert!(String::from_utf8_lossy(&o.stdout)
+        .contains("read: shp_monitor/field-A.shp: shapefile_points: point geometry"));
+    run(&w, &t, "shp");
+    let (a, b) = (plots(&w.path("text")), plots(&w.path("shp")));
+    assert_eq!(
+        a.values().map(|v| &v.0).collect::<Vec<_>>(),
+        b.values().map(|v| &v.0).collect::<Vec<_>>()
+    );
+    let diff = yield_differences(&a, &b);
+    assert!(*diff.last().unwrap() < 1e-9, "{:?}", diff.last());
+    let (ra, rb) = (
+        csv_rows(&w.path("text/2-clean/rejected.csv")),
+        csv_rows(&w.path("shp/2-clean/rejected.csv")),
+    );
+    assert_eq!(ra.len(), rb.len());
+    assert!(ra
+        .iter()
+        .zip(&rb)
+        .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
+}

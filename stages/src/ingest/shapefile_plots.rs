@@ -99,7 +99,7 @@ pub fn read(
 
 /// The EPSG code a `.prj` names, for the CRSs farm data travels in without `inputs.crs`:
 /// WGS84 geographic ("") and WGS84 / UTM zones.
-fn crs_of_prj(wkt: &str) -> Result<String, String> {
+pub(crate) fn crs_of_prj(wkt: &str) -> Result<String, String> {
     let w = wkt.to_ascii_uppercase().replace(' ', "_");
     if !w.contains("WGS_1984") && !w.contains("WGS_84") {
         return Err(format!(

@@ -155,7 +155,7 @@ fn spelled<U: serde::Serialize>(u: &U) -> String {
 }
 
 /// How the mapping reads an export, in words (for `check` and the ingest summary).
-fn describe(cfg: &TrialConfig) -> String {
+pub(super) fn describe(cfg: &TrialConfig) -> String {
     let c = &cfg.columns;
     let mut parts = vec![format!(
         "delimiter {:?}, decimal {:?}",
@@ -283,10 +283,22 @@ fn read_export(
     name: &str,
     file_idx: u32,
 ) -> Result<ExportRead, IngestError> {
+    let delim = cfg.columns.delimiter.as_bytes()[0];
+    let (rdr, header) = crate::ingest::open_table(path, name, delim)?;
+    read_records(cfg, rdr, header, name, file_idx)
+}
+
+/// Read the records of a delimited table already opened (for formats that hand their records
+/// to this reader as a table: the mapping, units and checks are this format's).
+pub(super) fn read_records<R: std::io::Read>(
+    cfg: &TrialConfig,
+    mut rdr: csv::Reader<R>,
+    header: csv::StringRecord,
+    name: &str,
+    file_idx: u32,
+) -> Result<ExportRead, IngestError> {
     let mut out = Vec::new();
     let mut rej = Vec::new();
-    let delim = cfg.columns.delimiter.as_bytes()[0];
-    let (mut rdr, header) = crate::ingest::open_table(path, name, delim)?;
     if header.is_empty() || (header.len() == 1 && header[0].trim().is_empty()) {
         return Err(IngestError::Unusable {
             file: name.to_string(),

@@ -10,6 +10,7 @@
 //! list order, so a format that recognises its files by content goes before the fallback.
 
 mod mapped_text;
+mod shapefile_points;
 
 use super::IngestError;
 use crate::config::TrialConfig;
@@ -18,7 +19,8 @@ use std::io::Read;
 use std::path::Path;
 
 /// Every monitor format, in sniffing order (the last is the fallback).
-pub static FORMATS: &[&dyn MonitorFormat] = &[&mapped_text::MappedText];
+pub static FORMATS: &[&dyn MonitorFormat] =
+    &[&shapefile_points::ShapefilePoints, &mapped_text::MappedText];
 
 /// A monitor export format.
 pub trait MonitorFormat: Sync {
