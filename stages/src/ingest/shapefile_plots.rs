@@ -10,6 +10,20 @@ use shapefile::dbase::FieldValue;
 use shapefile::{PolygonRing, Shape};
 use std::path::Path;
 
+/// A Shapefile opened with its `.shx` and `.dbf`; the error names the file.
+pub(crate) fn open(
+    path: &Path,
+    name: &str,
+) -> Result<
+    shapefile::Reader<std::io::BufReader<std::fs::File>, std::io::BufReader<std::fs::File>>,
+    IngestError,
+> {
+    shapefile::Reader::from_path(path).map_err(|e| IngestError::Unusable {
+        file: name.to_string(),
+        message: format!("not a readable Shapefile (with .shx and .dbf): {e}"),
+    })
+}
+
 /// Polygons as stored and the CRS the `.prj` names ("" for WGS84 lon/lat or no `.prj`).
 pub fn read(
     path: &Path,
@@ -20,11 +34,7 @@ pub fn read(
         file: name.to_string(),
         message,
     };
-    let mut reader = shapefile::Reader::from_path(path).map_err(|e| {
-        unusable(format!(
-            "not a readable Shapefile (with .shx and .dbf): {e}"
-        ))
-    })?;
+    let mut reader = open(path, name)?;
     let mut out = Vec::new();
     for (i, item) in reader.iter_shapes_and_records().enumerate() {
         let (shape, record) = item.map_err(|e| unusable(format!("record {}: {e}", i + 1)))?;

@@ -48,11 +48,7 @@ fn as_table(
         file: name.to_string(),
         message,
     };
-    let mut reader = shapefile::Reader::from_path(path).map_err(|e| {
-        unusable(format!(
-            "not a readable Shapefile (with .shx and .dbf): {e}"
-        ))
-    })?;
+    let mut reader = crate::ingest::shapefile_plots::open(path, name)?;
     let mut w = csv::Writer::from_writer(Vec::new());
     let mut fields: Option<Vec<String>> = None;
     for (i, item) in reader.iter_shapes_and_records().enumerate() {
