@@ -202,7 +202,7 @@ fn comparison_columns_say_which_model_they_describe() {
     let text = std::fs::read_to_string(w.path("run/4-adjust/comparison.csv")).unwrap();
     assert_eq!(
         text.lines().next().unwrap(),
-        "field,log_ml_spatial,log_ml_without_spatial,efficiency,moran_i_without_spatial,moran_i_spatial,rank_changes"
+        "field,log_ml_spatial,log_ml_without_spatial,efficiency,moran_i_without_spatial,moran_i_spatial,rank_correlation,top_quarter_overlap"
     );
 }
 

@@ -91,3 +91,44 @@ fn report_html_renders_in_headless_chromium_without_the_network() {
         assert!(ok_url, "unexpected network request {url}");
     }
 }
+
+#[test]
+fn economics_columns_appear_only_with_a_price() {
+    let w = Workdir::new("report-economics");
+    let t = repo().join("sample-input/trial.toml");
+    let t = t.to_str().unwrap();
+    ok(&plotsieve(&w.0, &["run", t, "--out", "plain", "--quiet"]));
+    let html = read(&w.path("plain/5-report/report.html"));
+    assert!(html.contains("<th>P(uplift &gt; 0)</th>"));
+    assert!(
+        !html.contains("<th>break-even"),
+        "no price: no blank economics columns"
+    );
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            t,
+            "--out",
+            "priced",
+            "--quiet",
+            "--set",
+            "adjust.grain_price_per_t=180",
+        ],
+    ));
+    let html = read(&w.path("priced/5-report/report.html"));
+    assert!(
+        html.contains("<th>break-even (t/ha)</th>")
+            && html.contains("<th>expected net return per ha</th>")
+    );
+    // comparison.csv: how far the spatial and non-spatial rankings agree.
+    let rows = csv_rows(&w.path("plain/4-adjust/comparison.csv"));
+    for r in &rows {
+        let rho: f64 = r["rank_correlation"].parse().unwrap();
+        let top: f64 = r["top_quarter_overlap"].parse().unwrap();
+        assert!(
+            (-1.0..=1.0).contains(&rho) && (0.0..=1.0).contains(&top),
+            "{r:?}"
+        );
+    }
+}

@@ -195,14 +195,8 @@ impl Table for Comparison {
             num!("efficiency", efficiency, 6),
             num!("moran_i_without_spatial", moran_without_spatial, 6),
             num!("moran_i_spatial", moran_spatial, 6),
-            col(
-                "rank_changes",
-                |r: &Self| r.rank_changes.join(" "),
-                |r: &mut Self, v: &str| {
-                    r.rank_changes = v.split_whitespace().map(String::from).collect();
-                    Ok(())
-                },
-            ),
+            num!("rank_correlation", rank_correlation, 6),
+            num!("top_quarter_overlap", top_overlap, 6),
         ]
     }
 }

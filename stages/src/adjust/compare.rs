@@ -79,10 +79,7 @@ pub(crate) fn compare(
         r
     };
     let (rs, rr) = (rank(&fit.b), rank(&b));
-    let rank_changes = (1..nt)
-        .filter(|&t| rs[t] != rr[t])
-        .map(|t| m.treatments[t].clone())
-        .collect();
+    let (rank_correlation, top_overlap) = rank_agreement(&rs[1..], &rr[1..]);
     let resid_sp: Vec<f64> = (0..n)
         .map(|i| d.y[i] - (0..p).map(|j| d.x[i * p + j] * fit.b[j]).sum::<f64>() - effect[i])
         .collect();
@@ -99,6 +96,61 @@ pub(crate) fn compare(
         efficiency,
         moran_without_spatial: morans_i(&xy, &resid_rcbd, cutoff),
         moran_spatial: morans_i(&xy, &resid_sp, cutoff),
-        rank_changes,
+        rank_correlation,
+        top_overlap,
     })
+}
+
+/// How far two rankings of the same products (rank 1 = largest uplift) agree: Spearman's
+/// rank correlation, rho = 1 - 6 sum d^2 / (n (n^2 - 1)) (Spearman 1904, Am. J. Psychol.
+/// 15:72; no ties, uplifts being continuous; NaN for fewer than 2 products), and the share
+/// of the top quarter of products (at least one) that both rankings put there. In a trial of
+/// 56 entries this says how much the spatial adjustment reorders them, where a list of the
+/// entries whose rank moved names nearly all of them.
+pub(crate) fn rank_agreement(a: &[usize], b: &[usize]) -> (f64, f64) {
+    let n = a.len();
+    let rho = if n < 2 {
+        f64::NAN
+    } else {
+        let d2: f64 = a
+            .iter()
+            .zip(b)
+            .map(|(x, y)| (*x as f64 - *y as f64).powi(2))
+            .sum();
+        let n = n as f64;
+        1.0 - 6.0 * d2 / (n * (n * n - 1.0))
+    };
+    let k = n.div_ceil(4).max(1);
+    let both = a
+        .iter()
+        .zip(b)
+        .filter(|(x, y)| **x <= k && **y <= k)
+        .count();
+    (
+        rho,
+        if n == 0 {
+            f64::NAN
+        } else {
+            both as f64 / k as f64
+        },
+    )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::rank_agreement;
+
+    #[test]
+    fn rank_agreement_by_hand() {
+        // Identical rankings; reversed (rho = -1); one swap of 1 and 2 among 4:
+        // sum d^2 = 2, rho = 1 - 12 / 60 = 0.8, top quarter (1 product) not shared.
+        assert_eq!(rank_agreement(&[1, 2, 3, 4], &[1, 2, 3, 4]), (1.0, 1.0));
+        assert_eq!(rank_agreement(&[1, 2, 3, 4], &[4, 3, 2, 1]), (-1.0, 0.0));
+        let (rho, top) = rank_agreement(&[1, 2, 3, 4], &[2, 1, 3, 4]);
+        assert!((rho - 0.8).abs() < 1e-12 && top == 0.0);
+        // Eight products: the top quarter is two; one of them shared.
+        let (_, top) = rank_agreement(&[1, 2, 3, 4, 5, 6, 7, 8], &[1, 3, 2, 4, 5, 6, 7, 8]);
+        assert_eq!(top, 0.5);
+        assert!(rank_agreement(&[1], &[1]).0.is_nan());
+    }
 }

@@ -27,8 +27,9 @@
 //!
 //! Beside it the same mean model is fitted without the spatial field (the usual RCBD analysis
 //! when `adjust.blocks`), with both REML log marginal likelihoods at the posterior mode, the
-//! efficiency (ratio of contrast variances), products whose ranking changes, and the residual
-//! Moran's I of both. With a grain price and product costs, each product also gets its
+//! efficiency (ratio of contrast variances), the agreement of the two rankings of the
+//! products (Spearman's rank correlation, the share of the top quarter both put there), and
+//! the residual Moran's I of both. With a grain price and product costs, each product also gets its
 //! break-even uplift (cost / price), P(uplift > break-even) and expected net return.
 //!
 //! Per-plot spatial effects are mixtures over the same posterior; in a joint fit each field's

@@ -16,8 +16,10 @@ pub struct Comparison {
     /// Residual Moran's I without and with the spatial field (Moran 1950, Biometrika 37:17).
     pub moran_without_spatial: f64,
     pub moran_spatial: f64,
-    /// Products whose rank by uplift differs between the two models.
-    pub rank_changes: Vec<String>,
+    /// Spearman's rank correlation of the products' uplifts under the two models.
+    pub rank_correlation: f64,
+    /// Share of the top quarter of products (at least one) both models put there.
+    pub top_overlap: f64,
 }
 
 /// A plot after adjustment.

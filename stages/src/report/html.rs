@@ -500,7 +500,13 @@ pub fn render(r: &HtmlInput) -> String {
         "<section><h2>Products against the check ({})</h2>",
         esc(r.check)
     );
-    let _ = write!(s, "<table><thead><tr><th>field</th><th>treatment</th><th>plots</th><th>estimate ({u})</th><th>uplift ({u})</th><th>95 % interval</th><th>prior (mean &plusmn; SD)</th><th>P(uplift &gt; 0)</th><th>break-even ({u})</th><th>P(uplift &gt; break-even)</th><th>expected net return per ha</th></tr></thead><tbody>");
+    // Economics columns only when a price was given (otherwise they would all be blank).
+    let economics = r.treatments.iter().any(|t| t.break_even.is_finite());
+    let _ = write!(s, "<table><thead><tr><th>field</th><th>treatment</th><th>plots</th><th>estimate ({u})</th><th>uplift ({u})</th><th>95 % interval</th><th>prior (mean &plusmn; SD)</th><th>P(uplift &gt; 0)</th>");
+    if economics {
+        let _ = write!(s, "<th>break-even ({u})</th><th>P(uplift &gt; break-even)</th><th>expected net return per ha</th>");
+    }
+    let _ = write!(s, "</tr></thead><tbody>");
     for t in r.treatments {
         let up = if t.uplift.is_nan() {
             "(check)".to_string()
@@ -527,7 +533,17 @@ pub fn render(r: &HtmlInput) -> String {
         } else {
             format!("{} &plusmn; {}", fmt(t.prior_mean, d), fmt(t.prior_sd, d))
         };
-        let _ = write!(s, "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", esc(&t.field), esc(&t.treatment), t.plots, fmt(t.estimate, d), up, ci, prior, p0, fmt(t.break_even, d), pbe, fmt(t.expected_net_return_per_ha, 0));
+        let _ = write!(s, "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td class=\"n\">{}</td>", esc(&t.field), esc(&t.treatment), t.plots, fmt(t.estimate, d), up, ci, prior, p0);
+        if economics {
+            let _ = write!(
+                s,
+                "<td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td>",
+                fmt(t.break_even, d),
+                pbe,
+                fmt(t.expected_net_return_per_ha, 0)
+            );
+        }
+        let _ = write!(s, "</tr>");
     }
     let _ = write!(s, "</tbody></table>");
     let rows: Vec<&TreatmentRow> = r.treatments.iter().filter(|t| !t.uplift.is_nan()).collect();
@@ -600,9 +616,9 @@ pub fn render(r: &HtmlInput) -> String {
         );
         let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>", esc(&h.field), h.plots, range, ci(a.mean, a.lo95, a.hi95, d + 1), ci(b.mean, b.lo95, b.hi95, d + 1), ci(c.mean, c.lo95, c.hi95, 2), ci(e.mean, e.lo95, e.hi95, d + 1), esc(&h.method), esc(&h.warning));
     }
-    let _ = write!(s, "</tbody></table><h3>Spatial model against the same model without the spatial field</h3><table><thead><tr><th>field</th><th>log marginal likelihood, spatial</th><th>without</th><th>efficiency (contrast variance ratio)</th><th>residual Moran's I without</th><th>with</th><th>products whose ranking changes</th></tr></thead><tbody>");
+    let _ = write!(s, "</tbody></table><h3>Spatial model against the same model without the spatial field</h3><table><thead><tr><th>field</th><th>log marginal likelihood, spatial</th><th>without</th><th>efficiency (contrast variance ratio)</th><th>residual Moran's I without</th><th>with</th><th>rank correlation of the products</th><th>top quarter shared</th></tr></thead><tbody>");
     for c in r.comparisons {
-        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td>{}</td></tr>", esc(&c.field), fmt(c.log_ml_spatial, 2), fmt(c.log_ml_without_spatial, 2), fmt(c.efficiency, 2), fmt(c.moran_without_spatial, 3), fmt(c.moran_spatial, 3), esc(&c.rank_changes.join(", ")));
+        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", esc(&c.field), fmt(c.log_ml_spatial, 2), fmt(c.log_ml_without_spatial, 2), fmt(c.efficiency, 2), fmt(c.moran_without_spatial, 3), fmt(c.moran_spatial, 3), fmt(c.rank_correlation, 2), fmt(c.top_overlap, 2));
     }
     let _ = write!(s, "</tbody></table></section>");
     let _ = write!(
