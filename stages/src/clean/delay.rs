@@ -91,25 +91,20 @@ pub fn opposite_pairs(pts: &[PairPoint], dist: f64) -> Vec<(usize, usize)> {
 /// already corrected). Common practice, no source.
 pub const WIDEST: (f64, f64) = (-20.0, 40.0);
 
-/// The lag with the most pairs' agreement ([`estimate`] over `lo..=hi`); with `widen`, while
+/// The lag with the most pairs' agreement (`scan(lo, hi)`: [`estimate`] over `lo..=hi`
+/// by `step`); with `widen`, while
 /// the best coarse lag sits at an edge of the scan, the scan is widened past that edge by
 /// its width (at most twice, within [`WIDEST`]) and the lag estimated again. The
 /// returned curve covers the scan that was finally used.
-#[allow(clippy::too_many_arguments)]
 pub fn estimate_widening(
-    pts: &[PairPoint],
-    times: &[f64],
-    series: &[f64],
-    max_gap: f64,
+    scan: impl Fn(f64, f64) -> Option<DelayEstimate>,
     lo: f64,
     hi: f64,
     step: f64,
-    dist: f64,
-    min_pairs: usize,
     widen: bool,
 ) -> Option<DelayEstimate> {
     let (mut lo, mut hi) = (lo, hi);
-    let mut e = estimate(pts, times, series, max_gap, lo, hi, step, dist, min_pairs)?;
+    let mut e = scan(lo, hi)?;
     if !widen {
         return Some(e);
     }
@@ -123,7 +118,7 @@ pub fn estimate_widening(
         } else {
             break;
         };
-        match estimate(pts, times, series, max_gap, nlo, nhi, step, dist, min_pairs) {
+        match scan(nlo, nhi) {
             Some(x) => {
                 e = x;
                 (lo, hi) = (nlo, nhi);
@@ -371,16 +366,24 @@ pub fn shift(e: &mut Export) {
             1.2 * header
         };
         let est = |series: &[f64], pts: &[PairPoint]| {
+            let scan = |lo, hi| {
+                estimate(
+                    pts,
+                    &e.times,
+                    series,
+                    s.pass.max_gap_s,
+                    lo,
+                    hi,
+                    s.delay.step_s,
+                    dist,
+                    s.delay.min_pairs as usize,
+                )
+            };
             estimate_widening(
-                pts,
-                &e.times,
-                series,
-                s.pass.max_gap_s,
+                scan,
                 s.delay.min_s,
                 s.delay.max_s,
                 s.delay.step_s,
-                dist,
-                s.delay.min_pairs as usize,
                 s.delay.widen,
             )
         };

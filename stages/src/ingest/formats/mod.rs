@@ -10,6 +10,7 @@
 //! list order, so a format that recognises its files by content goes before the fallback.
 
 mod mapped_text;
+mod mapping_words;
 mod shapefile_points;
 
 use super::IngestError;

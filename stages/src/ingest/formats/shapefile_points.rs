@@ -125,7 +125,7 @@ impl MonitorFormat for ShapefilePoints {
         c.columns.latitude = "y)".into();
         format!(
             "point geometry, attributes by [columns]: {}",
-            mapped_text::describe(&c)
+            super::mapping_words::describe(&c)
         )
     }
 

@@ -17,6 +17,7 @@
 //! (`turn`), speed dips (`speed_dip`), a partial-width pass (`partial_swath`), GPS jumps
 //! (`gps_jump`) and flow-sensor spikes (`spike`); moisture varies between 14 and 24 %.
 
+mod trial_file;
 use crate::util::Rng;
 use serde_json::json;
 use std::collections::BTreeMap;
@@ -608,7 +609,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         "truth.json".into(),
         serde_json::to_string_pretty(&truth).unwrap() + "\n",
     ));
-    files.push(("trial.toml".into(), trial_toml(o)));
+    files.push(("trial.toml".into(), trial_file::trial_toml(o)));
     SimTrial {
         files,
         points: total_points,
@@ -647,84 +648,6 @@ pub fn iso(t: f64) -> String {
         rem / 3600,
         rem / 60 % 60,
         rem % 60
-    )
-}
-
-const TEXT_COLUMNS: &str = r#"delimiter = ","
-time = { name = "time_utc", format = "iso8601" }
-longitude = "lon_deg"
-latitude = "lat_deg"
-flow = { name = "mass_flow_lb_s", unit = "lb_s" }
-speed = { name = "speed_mph", unit = "mph" }
-width = { name = "swath_ft", unit = "ft" }
-moisture = "moisture_pct"
-work_state = "header_state"
-hdop = "hdop"
-"#;
-
-const DISTANCE_COLUMNS: &str = r#"delimiter = ";"
-decimal = ","
-time = { name = "Time", format = "time_of_day", date = "Date", date_order = "dmy" }
-longitude = "Longitude"
-latitude = "Latitude"
-flow = { name = "Flow_lb_s", unit = "lb_s" }
-distance = { name = "Distance_in", unit = "in" }
-interval = "Interval_s"
-width = { name = "Swath_ft", unit = "ft" }
-moisture = "Moisture_pct"
-work_state = "Header"
-hdop = "HDOP"
-"#;
-
-const YIELD_COLUMNS: &str = r#"delimiter = ","
-time = { name = "time_utc", format = "iso8601" }
-longitude = "lon_deg"
-latitude = "lat_deg"
-yield = { name = "dry_yield_t_ha", unit = "t_ha", basis = "dry" }
-moisture = "moisture_pct"
-work_state = "header_state"
-"#;
-
-fn trial_toml(o: &SimOptions) -> String {
-    let seed = o.seed;
-    // The options that shape the exports, for the header comment.
-    let mut how = String::new();
-    if o.form != SimForm::Text {
-        how += &format!(" --form {}", o.form);
-    }
-    if o.interval_s > 1 {
-        how += &format!(" --interval-s {}", o.interval_s);
-    }
-    let columns = match o.form {
-        SimForm::Text => TEXT_COLUMNS,
-        SimForm::DistanceText => DISTANCE_COLUMNS,
-        SimForm::YieldPoints => YIELD_COLUMNS,
-    };
-    format!(
-        r#"# An invented trial made by `plotsieve simulate --seed {seed}{how}` (Brackenmoor trial station,
-# a made-up place). Paths are relative to this file.
-
-[trial]
-name = "Brackenmoor product trial, seed {seed}"
-crop = "corn"
-output_unit = "t_ha"
-check = "check"
-
-[inputs]
-monitor = ["monitor"]
-plots = "plots.geojson"
-plot_id_property = "plot_id"
-design = "design.csv"
-
-# How this combine's monitor names and scales its columns.
-[columns]
-{columns}
-[clean]
-# Flow and moisture delays are estimated per export (clean.delay.mode = "auto"); these are
-# the fallbacks when an export has too few opposite passes.
-flow_delay_s = 11.0
-moisture_delay_s = 8.0
-"#
     )
 }
 
