@@ -289,3 +289,114 @@ fn a_plot_table_alone_runs_end_to_end_and_passes_check() {
     assert!(String::from_utf8_lossy(&o.stdout)
         .contains("problem: adjust: field 1: no kept plot of the check"));
 }
+
+#[test]
+fn a_row_column_variety_trial_is_analysed_as_designed() {
+    // A plot table with row and range positions: 12 varieties in 3 replicates, each 2 rows x
+    // 6 ranges, strong row effects (+-0.5 t/ha) and weaker range effects. With rows and
+    // columns random (adjust.random_effects) the run reports both SDs, the row effects go
+    // into each plot's position effect, and the fit beats the same model without them.
+    let w = Workdir::new("row-column");
+    let row_fx = [0.5, -0.4, 0.1, 0.6, -0.5, -0.2];
+    let col_fx = [0.1, -0.15, 0.05, 0.2, -0.1, -0.05];
+    let mut table = String::from("plot,entry,rep,yield_t_ha,row,range\n");
+    let mut k = 0;
+    for rep in 0..3 {
+        for slot in 0..12 {
+            let v = (slot * 5 + rep * 7) % 12;
+            let (row, col) = (rep * 2 + slot / 6, slot % 6);
+            let noise = 0.06 * (((k * 7919) % 17) as f64 / 8.0 - 1.0);
+            let yld = 7.0 + 0.04 * v as f64 + row_fx[row] + col_fx[col] + noise;
+            table += &format!(
+                "{},E{:02},{},{yld:.3},{},{}\n",
+                101 + k,
+                v + 1,
+                rep + 1,
+                row + 1,
+                col + 1
+            );
+            k += 1;
+        }
+    }
+    std::fs::create_dir_all(w.path("t")).unwrap();
+    std::fs::write(w.path("t/plots.csv"), table).unwrap();
+    let trial = "[trial]\nname = \"Row-column trial\"\ncrop = \"wheat\"\noutput_unit = \"t_ha\"\ncheck = \"E01\"\n\n[inputs]\nplot_table = \"plots.csv\"\n\n[adjust]\nrow_spacing_m = 1.5\nrange_spacing_m = 6.0\nblocks = true\nrandom_effects = [\"row\", \"column\"]\n";
+    std::fs::write(w.path("t/trial.toml"), trial).unwrap();
+    let t = w.path("t/trial.toml");
+    let t = t.to_str().unwrap();
+    ok(&plotsieve(&w.0, &["check", t]));
+    ok(&plotsieve(&w.0, &["run", t, "--out", "rc", "--quiet"]));
+    let h = &csv_rows(&w.path("rc/4-adjust/hyperparameters.csv"))[0];
+    let num = |k: &str| -> f64 { h[k].parse().unwrap_or_else(|_| panic!("{k}: {:?}", h[k])) };
+    // The six row effects have SD 0.46 t/ha; the row SD's interval holds it and lies above
+    // the column SD's lower end.
+    let sd = |v: &[f64]| {
+        let m = v.iter().sum::<f64>() / v.len() as f64;
+        (v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (v.len() - 1) as f64).sqrt()
+    };
+    let (lo, hi) = (num("row_sd_lo95_t_ha"), num("row_sd_hi95_t_ha"));
+    assert!(
+        lo <= sd(&row_fx) && sd(&row_fx) <= hi,
+        "row SD {lo}-{hi} vs {}",
+        sd(&row_fx)
+    );
+    assert!(num("column_sd_t_ha") < num("row_sd_t_ha"));
+    assert_eq!(h["block_sd_t_ha"], "");
+    // Plot 101 is in row 1 (+0.5): its position effect carries the row effect.
+    let p = csv_rows(&w.path("rc/4-adjust/adjusted_plots.csv"));
+    let first = p.iter().find(|r| r["plot_id"] == "101").unwrap();
+    let eff: f64 = first["spatial_effect_t_ha"].parse().unwrap();
+    assert!(eff > 0.25, "position effect of plot 101: {eff}");
+    let md = read(&w.path("rc/5-report/report.md"));
+    assert!(
+        md.contains("| 1 | row |") && md.contains("| 1 | column |"),
+        "{md}"
+    );
+    let html = read(&w.path("rc/5-report/report.html"));
+    assert!(html.contains("<h3>Random design factors</h3>"));
+    // Without the random factors the fit is worse by its marginal likelihood.
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            t,
+            "--out",
+            "plain",
+            "--quiet",
+            "--set",
+            "adjust.random_effects=[]",
+        ],
+    ));
+    let ml = |run: &str| -> f64 {
+        csv_rows(&w.path(&format!("{run}/4-adjust/hyperparameters.csv")))[0]
+            ["log_marginal_likelihood"]
+            .parse()
+            .unwrap()
+    };
+    assert!(
+        ml("rc") > ml("plain") + 3.0,
+        "{} vs {}",
+        ml("rc"),
+        ml("plain")
+    );
+    // Blocks fixed and random at once, or a factor that does not exist, are refused.
+    let o = plotsieve(
+        &w.0,
+        &["check", t, "--set", "adjust.random_effects=[\"block\"]"],
+    );
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr)
+        .contains("adjust.random_effects has \"block\" while adjust.blocks is true"));
+    let o = plotsieve(
+        &w.0,
+        &["check", t, "--set", "adjust.random_effects=[\"diagonal\"]"],
+    );
+    assert_eq!(o.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        err.contains(
+            "adjust.random_effects[0] must be \"row\", \"column\" or \"block\" (got \"diagonal\")"
+        ),
+        "{err}"
+    );
+}

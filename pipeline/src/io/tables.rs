@@ -295,6 +295,34 @@ impl Table for FieldHyper {
                 |r| r.interaction_sd.hi95,
                 |r, x| r.interaction_sd.hi95 = x
             ),
+            yldf!(u("row_sd"), 6, |r| r.row_sd.mean, |r, x| r.row_sd.mean = x),
+            yldf!(u("row_sd_lo95"), 6, |r| r.row_sd.lo95, |r, x| r
+                .row_sd
+                .lo95 = x),
+            yldf!(u("row_sd_hi95"), 6, |r| r.row_sd.hi95, |r, x| r
+                .row_sd
+                .hi95 = x),
+            yldf!(u("column_sd"), 6, |r| r.column_sd.mean, |r, x| r
+                .column_sd
+                .mean =
+                x),
+            yldf!(u("column_sd_lo95"), 6, |r| r.column_sd.lo95, |r, x| {
+                r.column_sd.lo95 = x
+            }),
+            yldf!(u("column_sd_hi95"), 6, |r| r.column_sd.hi95, |r, x| {
+                r.column_sd.hi95 = x
+            }),
+            yldf!(u("block_sd"), 6, |r| r.block_sd.mean, |r, x| r
+                .block_sd
+                .mean = x),
+            yldf!(u("block_sd_lo95"), 6, |r| r.block_sd.lo95, |r, x| r
+                .block_sd
+                .lo95 =
+                x),
+            yldf!(u("block_sd_hi95"), 6, |r| r.block_sd.hi95, |r, x| r
+                .block_sd
+                .hi95 =
+                x),
             num!("log_marginal_likelihood", log_marginal_likelihood, 6),
             text!("method", method),
             text!("warning", warning),

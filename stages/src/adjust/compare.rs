@@ -38,37 +38,49 @@ pub(crate) fn compare(
     let d = &m.design;
     let (n, p) = (d.n(), d.p);
     let field = &m.name;
-    let mut xtx = vec![0.0; p * p];
-    let mut xty = vec![0.0; p];
-    for i in 0..n {
-        for a in 0..p {
-            xty[a] += d.x[i * p + a] * d.y[i];
-            for b in 0..p {
-                xtx[a * p + b] += d.x[i * p + a] * d.x[i * p + b];
+    let nt = m.treatments.len();
+    // The model without the spatial field: its estimates, the variances of the contrasts
+    // and its REML log marginal likelihood.
+    let (b, var_c, reml_rcbd) = if d.groups.is_empty() {
+        let mut xtx = vec![0.0; p * p];
+        let mut xty = vec![0.0; p];
+        for i in 0..n {
+            for a in 0..p {
+                xty[a] += d.x[i * p + a] * d.y[i];
+                for b in 0..p {
+                    xtx[a * p + b] += d.x[i * p + a] * d.x[i * p + b];
+                }
             }
         }
-    }
-    let l = linalg::chol(&xtx, p)
-        .ok_or_else(|| format!("field {field}: the design matrix is singular"))?;
-    let mut b = xty.clone();
-    linalg::solve(&l, p, &mut b);
+        let l = linalg::chol(&xtx, p)
+            .ok_or_else(|| format!("field {field}: the design matrix is singular"))?;
+        let mut b = xty.clone();
+        linalg::solve(&l, p, &mut b);
+        let rss: f64 = (0..n)
+            .map(|i| d.y[i] - (0..p).map(|j| d.x[i * p + j] * b[j]).sum::<f64>())
+            .map(|r| r * r)
+            .sum();
+        let s2 = (rss / (n - p) as f64).max(1e-18);
+        let inv = linalg::inverse(&l, p);
+        let reml = -0.5
+            * ((n - p) as f64 * (2.0 * std::f64::consts::PI).ln()
+                + n as f64 * s2.ln()
+                + linalg::logdet(&l, p)
+                - p as f64 * s2.ln()
+                + rss / s2);
+        let var_c: Vec<f64> = (0..nt).map(|t| s2 * inv[t * p + t]).collect();
+        (b, var_c, reml)
+    } else {
+        let f = random::fit_without_spatial(d, m.sy).ok_or_else(|| {
+            format!("field {field}: the model without the spatial field could not be fitted")
+        })?;
+        let var_c: Vec<f64> = (0..nt).map(|t| f.cov[t * p + t]).collect();
+        (f.b, var_c, f.reml)
+    };
     let resid_rcbd: Vec<f64> = (0..n)
         .map(|i| d.y[i] - (0..p).map(|j| d.x[i * p + j] * b[j]).sum::<f64>())
         .collect();
-    let rss: f64 = resid_rcbd.iter().map(|r| r * r).sum();
-    let s2 = (rss / (n - p) as f64).max(1e-18);
-    let inv = linalg::inverse(&l, p);
-    let reml_rcbd = -0.5
-        * ((n - p) as f64 * (2.0 * std::f64::consts::PI).ln()
-            + n as f64 * s2.ln()
-            + linalg::logdet(&l, p)
-            - p as f64 * s2.ln()
-            + rss / s2);
-    let nt = m.treatments.len();
-    let efficiency = (1..nt)
-        .map(|t| s2 * inv[t * p + t] / fit.cov[t * p + t])
-        .sum::<f64>()
-        / (nt - 1) as f64;
+    let efficiency = (1..nt).map(|t| var_c[t] / fit.cov[t * p + t]).sum::<f64>() / (nt - 1) as f64;
     let rank = |b: &[f64]| -> Vec<usize> {
         let mut idx: Vec<usize> = (1..nt).collect();
         idx.sort_by(|&a, &c| b[c].total_cmp(&b[a]));
@@ -80,8 +92,11 @@ pub(crate) fn compare(
     };
     let (rs, rr) = (rank(&fit.b), rank(&b));
     let (rank_correlation, top_overlap) = rank_agreement(&rs[1..], &rr[1..]);
+    // `effect` holds the random factors' effects with the spatial one (see
+    // `Repr::spatial_parts`), so only the fixed columns are taken off here.
+    let p0 = d.p_fixed();
     let resid_sp: Vec<f64> = (0..n)
-        .map(|i| d.y[i] - (0..p).map(|j| d.x[i * p + j] * fit.b[j]).sum::<f64>() - effect[i])
+        .map(|i| d.y[i] - (0..p0).map(|j| d.x[i * p + j] * fit.b[j]).sum::<f64>() - effect[i])
         .collect();
     let xy: Vec<(f64, f64)> = prep
         .plots

@@ -27,6 +27,8 @@ pub struct Point {
     pub lw: f64,
     /// ln l0, ln l1, ln s_f, ln s_n.
     pub theta: [f64; 4],
+    /// ln SD of each random design factor (none without them).
+    pub groups: Vec<f64>,
     pub fit: Inner,
 }
 
@@ -40,6 +42,19 @@ pub struct Node {
     pub repr: Option<Repr>,
     /// Reduced rank: basis functions per axis and whether the size cap bound.
     pub basis: Option<(usize, usize, bool)>,
+}
+
+impl Node {
+    /// The node at length scales `l` holding `points` of the representation `repr`.
+    pub fn new(l: (f64, f64), points: Vec<Point>, repr: Repr) -> Node {
+        Node {
+            l,
+            lz: log_sum_exp(points.iter().map(|p| p.lw)),
+            points,
+            basis: repr.basis,
+            repr: Some(repr),
+        }
+    }
 }
 
 /// A field ready to fit.
@@ -90,9 +105,14 @@ impl FieldModel {
         }
     }
 
-    /// Integrates (s_f, s_n) at length scales `l` (see the module notes). `warm` is a nearby
+    /// Integrates (s_f, s_n) at length scales `l` (see the module notes), with the SDs of
+    /// random design factors when the design has them (see `random`). `warm` is a nearby
     /// conditional mode to start the search from.
-    pub fn node(&self, l: (f64, f64), warm: Option<[f64; 2]>) -> Node {
+    pub fn node(&self, l: (f64, f64), warm: Option<Vec<f64>>) -> Node {
+        if !self.design.groups.is_empty() {
+            return self.node_random(l, warm);
+        }
+        let warm = warm.map(|w| [w[0], w[1]]);
         let Some(repr) = self.repr(l) else {
             return Node {
                 l,
@@ -202,6 +222,7 @@ impl FieldModel {
                         mode[0] + i as f64 * step[0],
                         mode[1] + j as f64 * step[1],
                     ],
+                    groups: Vec::new(),
                     fit,
                 })
             })
@@ -211,23 +232,21 @@ impl FieldModel {
             .map(|p| p.lw)
             .fold(f64::NEG_INFINITY, f64::max);
         points.retain(|p| p.lw > top - 16.0);
-        let lz = log_sum_exp(points.iter().map(|p| p.lw));
-        let basis = repr.basis;
-        Node {
-            l,
-            lz,
-            points,
-            repr: Some(repr),
-            basis,
-        }
+        Node::new(l, points, repr)
     }
 
-    /// The conditional mode of (ln s_f, ln s_n) at a node: a warm start for its neighbour.
-    pub fn node_mode(node: &Node) -> Option<[f64; 2]> {
+    /// The conditional mode of (ln s_f, ln s_n, ln SDs of random factors) at a node: a warm
+    /// start for its neighbour.
+    pub fn node_mode(node: &Node) -> Option<Vec<f64>> {
         node.points
             .iter()
             .max_by(|a, b| a.lw.total_cmp(&b.lw))
-            .map(|p| [p.theta[2], p.theta[3]])
+            .map(|p| {
+                [p.theta[2], p.theta[3]]
+                    .into_iter()
+                    .chain(p.groups.iter().copied())
+                    .collect()
+            })
     }
 }
 

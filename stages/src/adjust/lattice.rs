@@ -47,7 +47,7 @@ pub(crate) fn eval_nodes(
             at_bound: [false; 2],
             lvol: 0.0,
         };
-        let node = m.node(lat.l(k, m.anisotropic), warm);
+        let node = m.node(lat.l(k, m.anisotropic), warm.clone());
         warm = FieldModel::node_mode(&node).or(warm);
         m.nodes.insert(k, node);
     }

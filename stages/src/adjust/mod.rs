@@ -22,6 +22,9 @@
 //! sampling from their own lattices (seeded, so reruns give the same bytes). Every estimate,
 //! SD, interval and probability is a mixture over hyperparameters, not a plug-in.
 //!
+//! Row-column and incomplete-block designs add random design factors (`adjust.random_effects`)
+//! with their own SDs beside the spatial field (see `random`).
+//!
 //! Fields of up to `adjust.exact_max_plots` plots use the exact kernel; larger ones the
 //! reduced-rank Hilbert-space form (see `spectral`).
 //!
@@ -45,7 +48,8 @@
 //! covariance function, registered in `kernel::KERNELS`), `prepare` (plots -> a field's
 //! design, effect priors), `spectral` (the kernel in spectral form, likelihood in
 //! O(r p^2)), `field` (one field's hyperparameter lattice), `lattice` (length-scale scans,
-//! shared scans, interaction nodes), `single` (a field fitted alone), `joint` (the
+//! shared scans, interaction nodes), `random` (random design factors: their lattice and
+//! the model without the spatial field), `single` (a field fitted alone), `joint` (the
 //! treatment-level equations) and `joint_fit` (the joint fit by importance sampling),
 //! `compare` (the model without the spatial field, Moran's I), `output` (rows and their
 //! assembly), `optimise` (Nelder-Mead), `linalg` (small dense matrices). Test-only: `oracle`
@@ -64,6 +68,7 @@ mod optimise;
 pub mod oracle;
 pub mod output;
 mod prepare;
+mod random;
 #[cfg(test)]
 pub mod reference;
 pub mod settings;
@@ -79,7 +84,7 @@ pub use output::*;
 pub use prepare::*;
 #[cfg(test)]
 pub use reference::*;
-pub use settings::{AdjustSettings, FitSettings, Pooling};
+pub use settings::{AdjustSettings, FitSettings, Pooling, RandomEffect};
 use single::*;
 
 use crate::plots::PlotStats;
@@ -336,7 +341,16 @@ pub fn run_with(
                     })
                     .collect();
                 let (range, across, sf, sn, share) = hyper_summaries(m, &pts);
+                let group_pts: Vec<(f64, &[f64])> = jf
+                    .comps
+                    .iter()
+                    .map(|(w, _, _, pick)| {
+                        let (k, i) = pick[f];
+                        (*w, m.nodes[&k].points[i].groups.as_slice())
+                    })
+                    .collect();
                 let h = &mut fit.hyper;
+                [h.row_sd, h.column_sd, h.block_sd] = random_sds(s, &group_pts);
                 (h.range_m, h.range_lo95_m, h.range_hi95_m) = (range.mean, range.lo95, range.hi95);
                 h.range_across = across;
                 (h.spatial_sd, h.spatial_sd_ci) = (sf.mean, sf);
@@ -375,6 +389,9 @@ pub fn run_with(
                 spatial_share: f64::NAN,
                 spatial_share_ci: Summary::NONE,
                 interaction_sd: inter,
+                row_sd: Summary::NONE,
+                column_sd: Summary::NONE,
+                block_sd: Summary::NONE,
                 log_marginal_likelihood: f64::NAN,
                 method: format!("joint, {} draws, ESS {:.0}", jf.comps.len(), jf.ess),
                 warning: String::new(),
@@ -503,6 +520,7 @@ pub(crate) fn placeholder() -> FieldModel {
             p: 0,
             coords: Vec::new(),
             kernel: Kernel::Matern52,
+            groups: Vec::new(),
         },
         treatments: Vec::new(),
         sy: 1.0,
@@ -515,5 +533,7 @@ pub(crate) fn placeholder() -> FieldModel {
     }
 }
 
+#[cfg(test)]
+mod random_tests;
 #[cfg(test)]
 mod tests;

@@ -30,6 +30,8 @@ pub struct AdjustedPlot {
     pub treatment: String,
     pub block: String,
     pub raw: f64,
+    /// The effect of the plot's position: the spatial field, plus the plot's row, column or
+    /// incomplete-block effects when `adjust.random_effects` has them.
     pub spatial_mean: f64,
     pub spatial_sd: f64,
     pub adjusted: f64,
@@ -125,6 +127,11 @@ pub struct FieldHyper {
     pub spatial_share: f64,
     pub spatial_share_ci: Summary,
     pub interaction_sd: Summary,
+    /// SDs of the random design factors (rows, columns, incomplete blocks; see
+    /// `adjust.random_effects`), each NONE when not fitted.
+    pub row_sd: Summary,
+    pub column_sd: Summary,
+    pub block_sd: Summary,
     /// REML log marginal likelihood at the posterior mode.
     pub log_marginal_likelihood: f64,
     /// "exact", or "hsgp m0xm1" with the basis functions per axis at the mode.

@@ -165,6 +165,8 @@ pub fn prepare<'a>(
         (lo(rho0.0).ln(), hi.ln().max(lo(rho0.0).ln() + 0.1)),
         (lo(rho0.1).ln(), hi.ln().max(lo(rho0.1).ln() + 0.1)),
     ];
+    // Random design effects: indicator columns after the fixed ones.
+    let (x, p_all, groups) = random_columns(field, &plots, x, p, dmin, &s.random)?;
     let method = if n <= s.exact_max_plots {
         Method::Exact
     } else {
@@ -183,9 +185,10 @@ pub fn prepare<'a>(
             design: Design {
                 y,
                 x,
-                p,
+                p: p_all,
                 coords,
                 kernel: s.kernel,
+                groups,
             },
             treatments,
             sy,
@@ -199,6 +202,88 @@ pub fn prepare<'a>(
         plots,
         counts,
     })
+}
+
+/// The level of each plot in a design factor: its block, or its row or column of the plot
+/// grid. Without a grid (a plot table), rows are the distinct x positions and columns the
+/// distinct y positions (positions closer than a quarter of the smallest plot spacing are
+/// one), as a table's row x row spacing and range x range spacing give them.
+fn levels(plots: &[&PlotStats], e: RandomEffect, dmin: f64) -> Vec<usize> {
+    let grid = plots.iter().all(|p| p.grid_row > 0 && p.grid_range > 0);
+    let by_key = |keys: Vec<String>| -> Vec<usize> {
+        let set: Vec<&String> = keys.iter().collect::<BTreeSet<_>>().into_iter().collect();
+        keys.iter()
+            .map(|k| set.iter().position(|x| *x == k).unwrap_or(0))
+            .collect()
+    };
+    let by_position = |v: Vec<f64>| -> Vec<usize> {
+        let mut sorted = v.clone();
+        sorted.sort_by(f64::total_cmp);
+        let mut starts = vec![sorted[0]];
+        for w in sorted.windows(2) {
+            if w[1] - w[0] > 0.25 * dmin {
+                starts.push(w[1]);
+            }
+        }
+        v.iter()
+            .map(|x| starts.iter().rposition(|s| *s <= *x).unwrap_or(0))
+            .collect()
+    };
+    match (e, grid) {
+        (RandomEffect::Block, _) => by_key(plots.iter().map(|p| p.block.clone()).collect()),
+        (RandomEffect::Row, true) => plots.iter().map(|p| p.grid_row as usize).collect(),
+        (RandomEffect::Column, true) => plots.iter().map(|p| p.grid_range as usize).collect(),
+        (RandomEffect::Row, false) => by_position(plots.iter().map(|p| p.centroid_x_m).collect()),
+        (RandomEffect::Column, false) => {
+            by_position(plots.iter().map(|p| p.centroid_y_m).collect())
+        }
+    }
+}
+
+/// Appends one indicator column per level of each random design factor to the n x p
+/// matrix `x`: the new matrix, its width and the groups (first column, levels). A factor
+/// with a single level in the field is an error (it cannot be told from the field mean).
+#[allow(clippy::type_complexity)]
+fn random_columns(
+    field: &str,
+    plots: &[&PlotStats],
+    x: Vec<f64>,
+    p: usize,
+    dmin: f64,
+    random: &[RandomEffect],
+) -> Result<(Vec<f64>, usize, Vec<(usize, usize)>), String> {
+    if random.is_empty() {
+        return Ok((x, p, Vec::new()));
+    }
+    let n = plots.len();
+    let mut groups = Vec::new();
+    let mut idx: Vec<Vec<usize>> = Vec::new();
+    let mut width = p;
+    for &e in random {
+        let lv = levels(plots, e, dmin);
+        // Dense level numbers in order of first value.
+        let set: BTreeSet<usize> = lv.iter().copied().collect();
+        if set.len() < 2 {
+            return Err(format!(
+                "field {field}: adjust.random_effects has {e}, but all its plots are in one {e}; a {e} effect cannot be told from the field mean"
+            ));
+        }
+        let dense: Vec<usize> = lv
+            .iter()
+            .map(|v| set.iter().position(|s| s == v).unwrap_or(0))
+            .collect();
+        groups.push((width, set.len()));
+        width += set.len();
+        idx.push(dense);
+    }
+    let mut out = vec![0.0; n * width];
+    for i in 0..n {
+        out[i * width..i * width + p].copy_from_slice(&x[i * p..(i + 1) * p]);
+        for (g, &(start, _)) in groups.iter().enumerate() {
+            out[i * width + start + idx[g][i]] = 1.0;
+        }
+    }
+    Ok((out, width, groups))
 }
 
 /// The prior on product effects in the global product order, and each field's map into it.

@@ -16,11 +16,27 @@ crate::choice! {
     }
 }
 
+crate::choice! {
+    /// `adjust.random_effects`: design factors fitted as random effects with their own
+    /// variance, beside the spatial field.
+    pub enum RandomEffect {
+        /// Rows of the plot grid (across travel; the plot table's `row`).
+        Row = "row",
+        /// Columns of the plot grid (along travel; the plot table's `range` or `column`).
+        Column = "column",
+        /// The design's blocks (incomplete blocks, as in an alpha-lattice; then the fixed
+        /// `adjust.blocks` is off).
+        Block = "block",
+    }
+}
+
 /// Settings of the fit (from `[adjust]`).
 #[derive(Clone, Debug)]
 pub struct FitSettings {
     pub check: String,
     pub blocks: bool,
+    /// Design factors with random effects, in the order of [`RandomEffect::NAMES`].
+    pub random: Vec<RandomEffect>,
     pub min_range_m: f64,
     pub max_range_m: f64,
     /// Coarse lattice points per length-scale axis.
@@ -65,6 +81,7 @@ impl FitSettings {
 pub struct AdjustSettings {
     pub kernel: Kernel,
     pub blocks: bool,
+    pub random_effects: Vec<RandomEffect>,
     pub min_range_m: f64,
     pub max_range_m: f64,
     pub range_grid_points: i64,
@@ -100,6 +117,12 @@ impl AdjustSettings {
         FitSettings {
             check: check.to_string(),
             blocks: a.blocks,
+            random: {
+                let mut r = a.random_effects.clone();
+                r.sort_by_key(|e| *e as u8);
+                r.dedup();
+                r
+            },
             min_range_m: a.min_range_m,
             max_range_m: a.max_range_m,
             range_grid_points: a.range_grid_points as usize,
@@ -132,6 +155,9 @@ impl AdjustSettings {
 
     /// Range problems, each naming its key.
     pub fn problems(&self, p: &mut Vec<String>) {
+        if self.blocks && self.random_effects.contains(&RandomEffect::Block) {
+            p.push("adjust.random_effects has \"block\" while adjust.blocks is true: blocks are either fixed or random, not both".into());
+        }
         let mut nonneg = |key: &str, v: f64| {
             if !(v >= 0.0) || !v.is_finite() {
                 p.push(format!("{key} must be a finite number >= 0 (got {v})"));

@@ -36,6 +36,19 @@ pub(crate) fn hyper_summaries(
     (range, across, sf, sn, share)
 }
 
+/// The row, column and block SDs from weighted points' ln SDs of the random factors (in
+/// the order of `s.random`); NONE for a factor not fitted.
+pub(crate) fn random_sds(s: &FitSettings, pts: &[(f64, &[f64])]) -> [Summary; 3] {
+    let sums = random::group_summaries(pts);
+    [RandomEffect::Row, RandomEffect::Column, RandomEffect::Block].map(|e| {
+        s.random
+            .iter()
+            .position(|r| *r == e)
+            .and_then(|j| sums.get(j).cloned())
+            .unwrap_or(Summary::NONE)
+    })
+}
+
 /// One field alone: its posterior over its lattice, spatial effects, treatment rows,
 /// hyperparameters and the comparison with the no-spatial-field model.
 pub(crate) fn fit_own(
@@ -144,6 +157,11 @@ pub(crate) fn fit_own(
         .map(|(w, k, i)| (*w, point(k, *i).theta))
         .collect();
     let (range, across, sf, sn, share) = hyper_summaries(m, &pts);
+    let group_pts: Vec<(f64, &[f64])> = comps_w
+        .iter()
+        .map(|(w, k, i)| (*w, point(k, *i).groups.as_slice()))
+        .collect();
+    let [row_sd, column_sd, block_sd] = random_sds(s, &group_pts);
     let mut warnings = Vec::new();
     // Mass near a bound of the length-scale search.
     for d in 0..if m.anisotropic { 2 } else { 1 } {
@@ -192,7 +210,7 @@ pub(crate) fn fit_own(
     // The fit is in kg/ha; the log marginal likelihoods are stated for the yields in the
     // output unit: a restricted likelihood of n yields with p flat mean parameters gains
     // (n - p) ln(k) when the unit is k times smaller.
-    let jacobian = (m.design.n() - m.design.p) as f64 * s.kg_ha_per_unit.ln();
+    let jacobian = (m.design.n() - m.design.p_fixed()) as f64 * s.kg_ha_per_unit.ln();
     comparison.log_ml_spatial += jacobian;
     comparison.log_ml_without_spatial += jacobian;
     let hyper = FieldHyper {
@@ -209,6 +227,9 @@ pub(crate) fn fit_own(
         spatial_share: share.mean,
         spatial_share_ci: share,
         interaction_sd: Summary::NONE,
+        row_sd,
+        column_sd,
+        block_sd,
         log_marginal_likelihood: mode.fit.reml + jacobian,
         method,
         warning: warnings.join("; "),

@@ -42,11 +42,19 @@ pub struct Design {
     /// Plot positions in the kernel's axes (metres).
     pub coords: Vec<(f64, f64)>,
     pub kernel: Kernel,
+    /// Random design effects (rows, columns, incomplete blocks): each a run of indicator
+    /// columns at the end of X, (first column, number of levels), with a Gaussian prior
+    /// N(0, s_g^2) on its levels. The columns before them have flat priors.
+    pub groups: Vec<(usize, usize)>,
 }
 
 impl Design {
     pub fn n(&self) -> usize {
         self.y.len()
+    }
+    /// Mean parameters with flat priors (the columns before the random groups).
+    pub fn p_fixed(&self) -> usize {
+        self.groups.first().map_or(self.p, |g| g.0)
     }
     fn x_mat(&self) -> Mat<f64> {
         Mat::from_fn(self.n(), self.p, |i, j| self.x[i * self.p + j])
@@ -57,6 +65,8 @@ impl Design {
 pub struct Repr {
     pub n: usize,
     pub p: usize,
+    /// Random groups of the design (see [`Design::groups`]).
+    pub groups: Vec<(usize, usize)>,
     /// Eigenvalues of the unit-variance kernel on U.
     pub w: Vec<f64>,
     /// U' y and U' X (r x p, row major).
@@ -102,6 +112,7 @@ impl Repr {
         Some(Repr {
             n,
             p: d.p,
+            groups: d.groups.clone(),
             w,
             uy: (0..n).map(|i| uy_m[(i, 0)]).collect(),
             ux: (0..n * d.p).map(|k| ux_m[(k / d.p, k % d.p)]).collect(),
@@ -112,6 +123,36 @@ impl Repr {
             phi_b: None,
             basis: None,
         })
+    }
+
+    /// No spatial field (rank 0): K_y = s_n^2 I, for the model without it.
+    pub fn white(d: &Design) -> Repr {
+        let (n, p) = (d.n(), d.p);
+        let mut xx_c = vec![0.0; p * p];
+        let mut xy_c = vec![0.0; p];
+        for i in 0..n {
+            let row = &d.x[i * p..(i + 1) * p];
+            for a in 0..p {
+                xy_c[a] += row[a] * d.y[i];
+                for b in 0..p {
+                    xx_c[a * p + b] += row[a] * row[b];
+                }
+            }
+        }
+        Repr {
+            n,
+            p,
+            groups: d.groups.clone(),
+            w: Vec::new(),
+            uy: Vec::new(),
+            ux: Vec::new(),
+            yy_c: d.y.iter().map(|v| v * v).sum(),
+            xx_c,
+            xy_c,
+            u: None,
+            phi_b: None,
+            basis: None,
+        }
     }
 
     /// The reduced-rank (Hilbert-space) form at length scales `l`, with the box and basis
@@ -188,6 +229,7 @@ impl Repr {
         Some(Repr {
             n,
             p,
+            groups: d.groups.clone(),
             w: keep.iter().map(|&i| s[i]).collect(),
             yy_c: (yy - uy.iter().map(|v| v * v).sum::<f64>()).max(0.0),
             uy,
@@ -203,6 +245,27 @@ impl Repr {
     /// REML and the GLS fit at spatial SD `sf` and noise SD `sn` (see the module notes).
     /// None when a matrix is not positive definite.
     pub fn evaluate(&self, sf: f64, sn: f64) -> Option<Inner> {
+        self.evaluate_groups(sf, sn, &[])
+    }
+
+    /// [`Repr::evaluate`] with random groups at SDs `sg` (one per group; none without).
+    /// With u ~ N(0, D) on the group columns Z and flat priors on the others (X0), the
+    /// restricted likelihood of y ~ N(X0 b, K_y + Z D Z') follows from the mixed-model
+    /// equations (Henderson 1975, Biometrics 31:423; Harville 1977, JASA 72:320): with
+    /// C = X'K_y^-1 X + diag(0, D^-1) and X = [X0 Z],
+    ///   -2 REML = (n - p0) ln 2 pi + ln|K_y| + ln|D| + ln|C| + y'K_y^-1 y - c'C^-1 c,
+    /// c = X'K_y^-1 y; C^-1 c holds the GLS estimates of b and the BLUPs of u, and C^-1
+    /// their joint posterior covariance given the hyperparameters.
+    pub fn evaluate_groups(&self, sf: f64, sn: f64, sg: &[f64]) -> Option<Inner> {
+        self.evaluate_with(sf, sn, sg, true)
+    }
+
+    /// The REML log marginal likelihood alone (no covariance): for searches.
+    pub fn reml_groups(&self, sf: f64, sn: f64, sg: &[f64]) -> Option<f64> {
+        self.evaluate_with(sf, sn, sg, false).map(|e| e.reml)
+    }
+
+    fn evaluate_with(&self, sf: f64, sn: f64, sg: &[f64], want_cov: bool) -> Option<Inner> {
         let (n, p, r) = (self.n, self.p, self.w.len());
         let (vf, vn) = (sf * sf, sn * sn);
         if !(vn > 0.0) {
@@ -236,19 +299,36 @@ impl Repr {
                 a[bb * p + aa] = a[aa * p + bb];
             }
         }
+        let mut logdet_d = 0.0;
+        for (&(start, len), &s) in self.groups.iter().zip(sg) {
+            let v = s * s;
+            if !(v > 0.0) {
+                return None;
+            }
+            logdet_d += len as f64 * v.ln();
+            for j in start..start + len {
+                a[j * p + j] += 1.0 / v;
+            }
+        }
+        let p0 = self.groups.first().map_or(p, |g| g.0);
         let l = linalg::chol(&a, p)?;
         let mut b = c.clone();
         linalg::solve(&l, p, &mut b);
         let quad = q - c.iter().zip(&b).map(|(x, y)| x * y).sum::<f64>();
         let reml = -0.5
-            * ((n - p) as f64 * (2.0 * std::f64::consts::PI).ln()
+            * ((n - p0) as f64 * (2.0 * std::f64::consts::PI).ln()
                 + logdet_ky
+                + logdet_d
                 + linalg::logdet(&l, p)
                 + quad.max(0.0));
         Some(Inner {
             reml,
             b,
-            cov: linalg::inverse(&l, p),
+            cov: if want_cov {
+                linalg::inverse(&l, p)
+            } else {
+                Vec::new()
+            },
         })
     }
 
@@ -287,13 +367,27 @@ impl Repr {
         let mean_m = &u * &gur;
         let gux = Mat::from_fn(r, p, |i, j| g[i] * self.ux[i * p + j]);
         let rt_m = &u * &gux;
+        // Random groups belong to the position too: the effect at plot i is g_i + z_i'u,
+        // whose mean adds z_i'u_hat and whose dependence on the mean parameters is R_i - z_i.
+        let p0 = d.p_fixed();
+        let mut rt: Vec<f64> = (0..n * p).map(|k| rt_m[(k / p, k % p)]).collect();
+        let mut mean: Vec<f64> = (0..n).map(|i| mean_m[(i, 0)]).collect();
+        if p0 < p {
+            for i in 0..n {
+                for j in p0..p {
+                    let z = d.x[i * p + j];
+                    mean[i] += z * fit.b[j];
+                    rt[i * p + j] -= z;
+                }
+            }
+        }
         SpatialParts {
             p,
-            mean: (0..n).map(|i| mean_m[(i, 0)]).collect(),
+            mean,
             cond_var: (0..n)
                 .map(|i| (0..r).map(|k| u[(i, k)].powi(2) * g[k] * vn).sum())
                 .collect(),
-            rt: (0..n * p).map(|k| rt_m[(k / p, k % p)]).collect(),
+            rt,
         }
     }
 }
@@ -349,6 +443,7 @@ mod tests {
             p: 1,
             coords: coords.clone(),
             kernel: Kernel::Matern52,
+            groups: Vec::new(),
         };
         let r = Repr::hsgp(&d, (10.0, 10.0), 2500, 2.0).unwrap();
         assert!(!r.basis.unwrap().2);

@@ -616,7 +616,21 @@ pub fn render(r: &HtmlInput) -> String {
         );
         let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>", esc(&h.field), h.plots, range, ci(a.mean, a.lo95, a.hi95, d + 1), ci(b.mean, b.lo95, b.hi95, d + 1), ci(c.mean, c.lo95, c.hi95, 2), ci(e.mean, e.lo95, e.hi95, d + 1), esc(&h.method), esc(&h.warning));
     }
-    let _ = write!(s, "</tbody></table><h3>Spatial model against the same model without the spatial field</h3><table><thead><tr><th>field</th><th>log marginal likelihood, spatial</th><th>without</th><th>efficiency (contrast variance ratio)</th><th>residual Moran's I without</th><th>with</th><th>rank correlation of the products</th><th>top quarter shared</th></tr></thead><tbody>");
+    let _ = write!(s, "</tbody></table>");
+    let factors = super::random_factors(r.hyper);
+    if !factors.is_empty() {
+        let _ = write!(s, "<h3>Random design factors</h3><p class=\"note\">Fitted beside the spatial field (<code>adjust.random_effects</code>); posterior means with 95 % intervals.</p><table><thead><tr><th>field</th><th>factor</th><th>SD ({u})</th></tr></thead><tbody>");
+        for (field, name, x) in &factors {
+            let _ = write!(
+                s,
+                "<tr><td>{}</td><td>{name}</td><td>{}</td></tr>",
+                esc(field),
+                ci(x.mean, x.lo95, x.hi95, d + 1)
+            );
+        }
+        let _ = write!(s, "</tbody></table>");
+    }
+    let _ = write!(s, "<h3>Spatial model against the same model without the spatial field</h3><table><thead><tr><th>field</th><th>log marginal likelihood, spatial</th><th>without</th><th>efficiency (contrast variance ratio)</th><th>residual Moran's I without</th><th>with</th><th>rank correlation of the products</th><th>top quarter shared</th></tr></thead><tbody>");
     for c in r.comparisons {
         let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", esc(&c.field), fmt(c.log_ml_spatial, 2), fmt(c.log_ml_without_spatial, 2), fmt(c.efficiency, 2), fmt(c.moran_without_spatial, 3), fmt(c.moran_spatial, 3), fmt(c.rank_correlation, 2), fmt(c.top_overlap, 2));
     }

@@ -146,6 +146,19 @@ pub fn markdown(r: &ReportInput) -> String {
             h.warning
         );
     }
+    let factors = random_factors(r.hyper);
+    if !factors.is_empty() {
+        let _ = writeln!(s, "\nRandom design factors (`adjust.random_effects`), fitted beside the spatial field; posterior means with 95 % intervals:\n");
+        let _ = writeln!(s, "| field | factor | SD ({}) |", r.unit_label);
+        let _ = writeln!(s, "|---|---|---|");
+        for (field, name, x) in &factors {
+            let _ = writeln!(
+                s,
+                "| {field} | {name} | {} |",
+                ci(x.mean, x.lo95, x.hi95, d + 1)
+            );
+        }
+    }
     let _ = writeln!(s, "\n## Products against the check ({})\n", r.check);
     let _ = writeln!(s, "Yields in {u} at standard moisture; uplift = treatment minus check; 95 % intervals. Field `all` is the effect shared by the fields in the joint model (the fields' own rows include the treatment x field interaction), or with `adjust.pooling = \"separate\"` the inverse-variance combination of the separate field fits.\n", u = r.unit_label);
     let _ = writeln!(s, "| field | treatment | plots | estimate | SD | uplift | uplift 95 % interval | prior (mean +- SD) | P(uplift > 0) |");
@@ -243,3 +256,23 @@ pub(crate) fn mean_interval(m: f64, lo: f64, hi: f64, k: usize) -> String {
 }
 
 pub mod html;
+
+/// (field, factor, SD summary) for each random design factor fitted (rows, columns,
+/// incomplete blocks), for the reports.
+pub(crate) fn random_factors(
+    hyper: &[FieldHyper],
+) -> Vec<(String, &'static str, crate::adjust::Summary)> {
+    hyper
+        .iter()
+        .flat_map(|h| {
+            [
+                ("row", h.row_sd),
+                ("column", h.column_sd),
+                ("block", h.block_sd),
+            ]
+            .into_iter()
+            .filter(|(_, x)| !x.mean.is_nan())
+            .map(|(n, x)| (h.field.clone(), n, x))
+        })
+        .collect()
+}
