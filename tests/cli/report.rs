@@ -121,6 +121,29 @@ fn economics_columns_appear_only_with_a_price() {
         html.contains("<th>break-even (t/ha)</th>")
             && html.contains("<th>expected net return per ha</th>")
     );
+    // A new field's odds: pooled rows only, wider than the average field's, in both
+    // reports with P(uplift > break-even) only when priced.
+    for r in csv_rows(&w.path("priced/4-adjust/treatments.csv")) {
+        let v = &r["new_field_uplift_t_ha"];
+        if r["field"] != "all" || r["treatment"] == "check" {
+            assert_eq!(v, "", "{r:?}");
+            continue;
+        }
+        let f = |k: &str| -> f64 { r[k].parse().unwrap() };
+        assert!(f("new_field_sd_t_ha") > f("uplift_sd_t_ha"), "{r:?}");
+        assert!(f("new_field_lo95_t_ha") < f("uplift_lo95_t_ha"), "{r:?}");
+        assert!(
+            (0.0..=1.0).contains(&f("p_new_field_gt_break_even")),
+            "{r:?}"
+        );
+    }
+    assert!(html.contains("<h3>In a field that was not in the trial</h3>"));
+    let md = read(&w.path("plain/5-report/report.md"));
+    assert!(
+        md.contains("### In a field that was not in the trial")
+            && !md.contains("P(uplift > break-even) |\n|---"),
+        "{md}"
+    );
     // comparison.csv: how far the spatial and non-spatial rankings agree.
     let rows = csv_rows(&w.path("plain/4-adjust/comparison.csv"));
     for r in &rows {

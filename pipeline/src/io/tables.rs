@@ -182,6 +182,14 @@ impl Table for TreatmentRow {
             num!("expected_net_return_per_ha", expected_net_return_per_ha, 2),
             yld!(format!("prior_mean_{unit}"), prior_mean, 6),
             yld!(format!("prior_sd_{unit}"), prior_sd, 6),
+            yld!(format!("new_field_uplift_{unit}"), new_field_uplift, 6),
+            yld!(format!("new_field_sd_{unit}"), new_field_sd, 6),
+            yld!(format!("new_field_lo90_{unit}"), new_field_lo90, 6),
+            yld!(format!("new_field_hi90_{unit}"), new_field_hi90, 6),
+            yld!(format!("new_field_lo95_{unit}"), new_field_lo95, 6),
+            yld!(format!("new_field_hi95_{unit}"), new_field_hi95, 6),
+            num!("p_new_field_gt0", p_new_field_gt0, 6),
+            num!("p_new_field_gt_break_even", p_new_field_gt_break_even, 6),
         ]
     }
 }

@@ -9,6 +9,8 @@ pub(crate) struct JointFit {
     /// (weight, component, interaction SD, chosen point (node key, index) per field).
     pub(crate) comps: Vec<(f64, Component, f64, Vec<((i64, i64), usize)>)>,
     pub(crate) ess: f64,
+    /// Importance draws with a finite weight (the ESS is at most this).
+    pub(crate) draws: usize,
 }
 
 /// All fields in one model (see `joint`): importance sampling of the fields' hyperparameters
@@ -274,7 +276,11 @@ pub(crate) fn fit_joint(
             Some((w, c, snodes[j].0, pts))
         })
         .collect();
-    Some(JointFit { comps, ess })
+    Some(JointFit {
+        comps,
+        ess,
+        draws: weighted.len(),
+    })
 }
 
 /// A field's per-plot spatial effects under the joint posterior: its hyperparameter points

@@ -393,7 +393,14 @@ pub fn run_with(
                 column_sd: Summary::NONE,
                 block_sd: Summary::NONE,
                 log_marginal_likelihood: f64::NAN,
-                method: format!("joint, {} draws, ESS {:.0}", jf.comps.len(), jf.ess),
+                // The ESS is of every weighted draw; the mixture keeps the draws above 1e-10
+                // of the largest weight (at most 3,000, resampled beyond).
+                method: format!(
+                    "joint, {} draws, ESS {:.0}, {} kept",
+                    jf.draws,
+                    jf.ess,
+                    jf.comps.len()
+                ),
                 warning: String::new(),
             });
             let mut pooled: Vec<TreatmentRow> = vec![treatment_row(
@@ -422,7 +429,7 @@ pub fn run_with(
                             .map(|t| p.counts[t + 1])
                     })
                     .sum();
-                pooled.push(treatment_row(
+                let mut row = treatment_row(
                     s,
                     "all",
                     name,
@@ -430,7 +437,17 @@ pub fn run_with(
                     None,
                     Some(&up),
                     Some((global.mean[g], global.var[g].sqrt())),
-                ));
+                );
+                // A field not in the trial: the shared effect plus a new interaction draw,
+                // delta_new = beta + u, u ~ N(0, s^2), mixed over the same components.
+                let new_field = Mixture::new(
+                    jf.comps
+                        .iter()
+                        .map(|(w, c, sv, _)| (*w, c.beta_mean[g], c.beta_var[g] + sv * sv))
+                        .collect(),
+                );
+                set_new_field(&mut row, &new_field);
+                pooled.push(row);
             }
             out.treatments.extend(pooled);
         }
@@ -535,5 +552,7 @@ pub(crate) fn placeholder() -> FieldModel {
 
 #[cfg(test)]
 mod random_tests;
+#[cfg(test)]
+mod season_tests;
 #[cfg(test)]
 mod tests;

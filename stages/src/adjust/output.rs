@@ -66,6 +66,17 @@ pub struct TreatmentRow {
     /// The prior on the product's effect (mean, SD), shown beside the posterior.
     pub prior_mean: f64,
     pub prior_sd: f64,
+    /// Pooled rows of a joint fit: the uplift in a field that was not in the trial (the
+    /// shared effect plus a new draw of the treatment x field interaction): its mean, SD,
+    /// 90 and 95 % intervals, P(> 0) and P(> break-even). NaN elsewhere.
+    pub new_field_uplift: f64,
+    pub new_field_sd: f64,
+    pub new_field_lo90: f64,
+    pub new_field_hi90: f64,
+    pub new_field_lo95: f64,
+    pub new_field_hi95: f64,
+    pub p_new_field_gt0: f64,
+    pub p_new_field_gt_break_even: f64,
 }
 
 /// Posterior mean and 95 % interval of one hyperparameter (NaN where it does not apply).
@@ -198,6 +209,14 @@ pub(crate) fn treatment_row(
         expected_net_return_per_ha: nan,
         prior_mean: prior.map_or(nan, |p| p.0),
         prior_sd: prior.map_or(nan, |p| p.1),
+        new_field_uplift: nan,
+        new_field_sd: nan,
+        new_field_lo90: nan,
+        new_field_hi90: nan,
+        new_field_lo95: nan,
+        new_field_hi95: nan,
+        p_new_field_gt0: nan,
+        p_new_field_gt_break_even: nan,
     };
     if let Some(e) = est {
         r.estimate = e.mean();
@@ -221,6 +240,21 @@ pub(crate) fn treatment_row(
         }
     }
     r
+}
+
+/// Sets a pooled row's new-field predictive from its mixture (the row's break-even must be
+/// set already).
+pub(crate) fn set_new_field(r: &mut TreatmentRow, m: &Mixture) {
+    r.new_field_uplift = m.mean();
+    r.new_field_sd = m.var().sqrt();
+    r.new_field_lo90 = m.quantile(0.05);
+    r.new_field_hi90 = m.quantile(0.95);
+    r.new_field_lo95 = m.quantile(0.025);
+    r.new_field_hi95 = m.quantile(0.975);
+    r.p_new_field_gt0 = 1.0 - m.cdf(0.0);
+    if r.break_even.is_finite() {
+        r.p_new_field_gt_break_even = 1.0 - m.cdf(r.break_even);
+    }
 }
 
 /// Plots with their spatial effect from a mixture over hyperparameter points.

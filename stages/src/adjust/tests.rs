@@ -470,6 +470,19 @@ fn joint_importance_draws_stay_effective_with_many_fields() {
         joint.joint_ess, j.uplift, j.uplift_sd, p.uplift, p.uplift_sd
     );
     assert!(joint.joint_ess > 500.0, "{}", joint.joint_ess);
+    // The method names the draws the ESS is of, so the ESS never exceeds them.
+    let method = &joint
+        .hyper
+        .iter()
+        .find(|h| h.field == "all")
+        .unwrap()
+        .method;
+    let draws: f64 = method
+        .strip_prefix("joint, ")
+        .and_then(|m| m.split(' ').next())
+        .and_then(|d| d.parse().ok())
+        .unwrap_or_else(|| panic!("{method}"));
+    assert!(joint.joint_ess <= draws + 1e-9, "{method}");
     assert!((j.uplift - p.uplift).abs() < 0.25 * p.uplift_sd);
     assert!((j.uplift_sd / p.uplift_sd - 1.0).abs() < 0.15);
 }

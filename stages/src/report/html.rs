@@ -546,6 +546,19 @@ pub fn render(r: &HtmlInput) -> String {
         let _ = write!(s, "</tr>");
     }
     let _ = write!(s, "</tbody></table>");
+    let nf = super::new_field_rows(r.treatments);
+    if !nf.is_empty() {
+        let economics = nf.iter().any(|t| t.p_new_field_gt_break_even.is_finite());
+        let _ = write!(s, "<h3>In a field that was not in the trial</h3><p class=\"note\">{}</p><table><thead><tr><th>treatment</th><th>average field: uplift ({u})</th><th>95 % interval</th><th>new field: uplift ({u})</th><th>90 % interval</th><th>95 % interval</th><th>P(uplift &gt; 0)</th>{}</tr></thead><tbody>", esc(super::NEW_FIELD_WORDS), if economics { "<th>P(uplift &gt; break-even)</th>" } else { "" });
+        for t in nf {
+            let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{} to {}</td><td class=\"n\">{}</td><td>{} to {}</td><td>{} to {}</td><td class=\"n\">{:.3}</td>", esc(&t.treatment), fmt(t.uplift, d), fmt(t.uplift_lo95, d), fmt(t.uplift_hi95, d), fmt(t.new_field_uplift, d), fmt(t.new_field_lo90, d), fmt(t.new_field_hi90, d), fmt(t.new_field_lo95, d), fmt(t.new_field_hi95, d), t.p_new_field_gt0);
+            if economics {
+                let _ = write!(s, "<td class=\"n\">{:.3}</td>", t.p_new_field_gt_break_even);
+            }
+            let _ = write!(s, "</tr>");
+        }
+        let _ = write!(s, "</tbody></table>");
+    }
     let rows: Vec<&TreatmentRow> = r.treatments.iter().filter(|t| !t.uplift.is_nan()).collect();
     if !rows.is_empty() {
         let lo = rows

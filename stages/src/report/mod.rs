@@ -192,7 +192,63 @@ pub fn markdown(r: &ReportInput) -> String {
             p
         );
     }
+    let nf = new_field_rows(r.treatments);
+    if !nf.is_empty() {
+        let economics = nf.iter().any(|t| t.p_new_field_gt_break_even.is_finite());
+        let _ = writeln!(s, "\n### In a field that was not in the trial\n");
+        let _ = writeln!(s, "{NEW_FIELD_WORDS}\n");
+        let _ = write!(s, "| treatment | average field: uplift (95 % interval) | new field: uplift | 90 % interval | 95 % interval | P(uplift > 0) |");
+        let _ = writeln!(
+            s,
+            "{}",
+            if economics {
+                " P(uplift > break-even) |"
+            } else {
+                ""
+            }
+        );
+        let _ = writeln!(
+            s,
+            "|---|---|---:|---|---|---:|{}",
+            if economics { "---:|" } else { "" }
+        );
+        for t in nf {
+            let _ = write!(
+                s,
+                "| {} | {} ({} to {}) | {} | {} to {} | {} to {} | {:.3} |",
+                t.treatment,
+                fmt(t.uplift, d),
+                fmt(t.uplift_lo95, d),
+                fmt(t.uplift_hi95, d),
+                fmt(t.new_field_uplift, d),
+                fmt(t.new_field_lo90, d),
+                fmt(t.new_field_hi90, d),
+                fmt(t.new_field_lo95, d),
+                fmt(t.new_field_hi95, d),
+                t.p_new_field_gt0
+            );
+            let _ = writeln!(
+                s,
+                "{}",
+                if economics {
+                    format!(" {:.3} |", t.p_new_field_gt_break_even)
+                } else {
+                    String::new()
+                }
+            );
+        }
+    }
     s
+}
+
+/// What the new-field rows mean, in plain words (both reports).
+pub(crate) const NEW_FIELD_WORDS: &str = "The average-field uplift is the effect the fields share: how good the product is on average over fields like these. A new field adds that field's own departure from the average (the treatment x field interaction, estimated from how much the fields differed), so its interval is wider: it is what a grower whose field was not in the trial can expect, and P(uplift > 0) is the chance the product gains yield there. Only a joint fit of two or more fields can say this.";
+
+/// Pooled rows with a new-field predictive.
+pub(crate) fn new_field_rows(rows: &[TreatmentRow]) -> Vec<&TreatmentRow> {
+    rows.iter()
+        .filter(|t| t.field == "all" && t.new_field_uplift.is_finite())
+        .collect()
 }
 /// The flow and moisture delays clean applied to one export, and how each was chosen.
 pub(crate) struct DelayApplied {
