@@ -225,36 +225,56 @@ pub(crate) fn treatment_row(
         r.hi95 = e.quantile(0.975);
     }
     if let Some(u) = up {
-        r.uplift = u.mean();
-        r.uplift_sd = u.var().sqrt();
-        r.uplift_lo90 = u.quantile(0.05);
-        r.uplift_hi90 = u.quantile(0.95);
-        r.uplift_lo95 = u.quantile(0.025);
-        r.uplift_hi95 = u.quantile(0.975);
-        r.p_uplift_gt0 = 1.0 - u.cdf(0.0);
-        let (be, ret) = economics(s, treatment, r.uplift);
-        r.break_even = be;
-        r.expected_net_return_per_ha = ret;
-        if be.is_finite() {
-            r.p_uplift_gt_break_even = 1.0 - u.cdf(be);
-        }
+        let (be, ret) = economics(s, treatment, u.mean());
+        let o = Odds::of(u, be);
+        (r.uplift, r.uplift_sd, r.uplift_lo90, r.uplift_hi90) = (o.mean, o.sd, o.lo90, o.hi90);
+        (r.uplift_lo95, r.uplift_hi95, r.p_uplift_gt0) = (o.lo95, o.hi95, o.p_gt0);
+        (r.break_even, r.expected_net_return_per_ha) = (be, ret);
+        r.p_uplift_gt_break_even = o.p_gt_break_even;
     }
     r
+}
+
+/// An uplift's summaries from its mixture: mean, SD, 90 and 95 % intervals, P(> 0) and
+/// P(> break-even) (NaN without a finite break-even).
+struct Odds {
+    mean: f64,
+    sd: f64,
+    lo90: f64,
+    hi90: f64,
+    lo95: f64,
+    hi95: f64,
+    p_gt0: f64,
+    p_gt_break_even: f64,
+}
+
+impl Odds {
+    fn of(m: &Mixture, break_even: f64) -> Odds {
+        Odds {
+            mean: m.mean(),
+            sd: m.var().sqrt(),
+            lo90: m.quantile(0.05),
+            hi90: m.quantile(0.95),
+            lo95: m.quantile(0.025),
+            hi95: m.quantile(0.975),
+            p_gt0: 1.0 - m.cdf(0.0),
+            p_gt_break_even: if break_even.is_finite() {
+                1.0 - m.cdf(break_even)
+            } else {
+                f64::NAN
+            },
+        }
+    }
 }
 
 /// Sets a pooled row's new-field predictive from its mixture (the row's break-even must be
 /// set already).
 pub(crate) fn set_new_field(r: &mut TreatmentRow, m: &Mixture) {
-    r.new_field_uplift = m.mean();
-    r.new_field_sd = m.var().sqrt();
-    r.new_field_lo90 = m.quantile(0.05);
-    r.new_field_hi90 = m.quantile(0.95);
-    r.new_field_lo95 = m.quantile(0.025);
-    r.new_field_hi95 = m.quantile(0.975);
-    r.p_new_field_gt0 = 1.0 - m.cdf(0.0);
-    if r.break_even.is_finite() {
-        r.p_new_field_gt_break_even = 1.0 - m.cdf(r.break_even);
-    }
+    let o = Odds::of(m, r.break_even);
+    (r.new_field_uplift, r.new_field_sd) = (o.mean, o.sd);
+    (r.new_field_lo90, r.new_field_hi90) = (o.lo90, o.hi90);
+    (r.new_field_lo95, r.new_field_hi95) = (o.lo95, o.hi95);
+    (r.p_new_field_gt0, r.p_new_field_gt_break_even) = (o.p_gt0, o.p_gt_break_even);
 }
 
 /// Plots with their spatial effect from a mixture over hyperparameter points.

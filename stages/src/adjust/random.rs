@@ -51,28 +51,26 @@ impl FieldModel {
         let g = self.design.groups.len();
         let k = 2 + g;
         let (lo, hi) = ((1e-4 * self.sy).ln(), (20.0 * self.sy).ln());
+        let inside = |t: &[f64]| t.iter().all(|v| *v >= lo && *v <= hi);
+        let prior = |t: &[f64]| {
+            self.log_prior_sd(t[0], t[1])
+                + t[2..].iter().map(|v| self.log_prior_group(*v)).sum::<f64>()
+        };
+        let sds = |t: &[f64]| -> Vec<f64> { t[2..].iter().map(|v| v.exp()).collect() };
         let eval = |t: &[f64]| -> Option<(f64, Inner)> {
-            if t.iter().any(|v| *v < lo || *v > hi || !v.is_finite()) {
+            if !inside(t) {
                 return None;
             }
-            let sg: Vec<f64> = t[2..].iter().map(|v| v.exp()).collect();
-            let e = repr.evaluate_groups(t[0].exp(), t[1].exp(), &sg)?;
-            let prior = self.log_prior_sd(t[0], t[1])
-                + t[2..].iter().map(|v| self.log_prior_group(*v)).sum::<f64>();
-            Some((e.reml + prior, e))
+            let e = repr.evaluate_groups(t[0].exp(), t[1].exp(), &sds(t))?;
+            Some((e.reml + prior(t), e))
         };
+        // The search needs the density only (no covariance).
         let lp = |t: &[f64]| -> f64 {
-            if t.iter().any(|v| *v < lo || *v > hi || !v.is_finite()) {
+            if !inside(t) {
                 return f64::NEG_INFINITY;
             }
-            let sg: Vec<f64> = t[2..].iter().map(|v| v.exp()).collect();
-            match repr.reml_groups(t[0].exp(), t[1].exp(), &sg) {
-                Some(reml) => {
-                    reml + self.log_prior_sd(t[0], t[1])
-                        + t[2..].iter().map(|v| self.log_prior_group(*v)).sum::<f64>()
-                }
-                None => f64::NEG_INFINITY,
-            }
+            repr.reml_groups(t[0].exp(), t[1].exp(), &sds(t))
+                .map_or(f64::NEG_INFINITY, |reml| reml + prior(t))
         };
         let start = warm.filter(|w| w.len() == k).unwrap_or_else(|| {
             let mut v = vec![(0.7 * self.sy).ln(); 2];
@@ -86,13 +84,13 @@ impl FieldModel {
         if !lp0.is_finite() {
             return empty(Some(repr));
         }
-        let (dirs, sds) = principal_axes(&lp, &mode, lp0);
+        let (dirs, axis_sd) = principal_axes(&lp, &mode, lp0);
         let at = |z: &[i64]| -> Vec<f64> {
             let mut t = mode.clone();
             for (j, &zj) in z.iter().enumerate() {
                 if zj != 0 {
                     for (a, ta) in t.iter_mut().enumerate() {
-                        *ta += zj as f64 * STEP * sds[j] * dirs[j][a];
+                        *ta += zj as f64 * STEP * axis_sd[j] * dirs[j][a];
                     }
                 }
             }
@@ -127,7 +125,7 @@ impl FieldModel {
             }
             frontier = next;
         }
-        let vol: f64 = sds.iter().map(|s| (STEP * s).ln()).sum();
+        let vol: f64 = axis_sd.iter().map(|s| (STEP * s).ln()).sum();
         let (ll0, ll1) = (l.0.ln(), l.1.ln());
         let points: Vec<Point> = found
             .into_iter()

@@ -137,14 +137,8 @@ pub fn read(
             Ok(r) => r,
             Err(e) => {
                 let line = e.position().map(|p| p.line()).unwrap_or(out.rows + 1);
-                out.rejections.push(super::formats::reject(
-                    name,
-                    line,
-                    "unreadable_row",
-                    "",
-                    &e.to_string(),
-                    "a CSV record",
-                ));
+                out.rejections
+                    .push(super::formats::unreadable_row(name, line, &e));
                 continue;
             }
         };

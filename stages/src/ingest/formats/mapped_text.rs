@@ -5,7 +5,7 @@
 //! `unreadable_row`, `wrong_field_count`, `unparseable`, `coordinate_range`, `no_position`,
 //! `negative_value`.
 
-use super::{reject, ExportRead, MonitorFormat, RawPoint};
+use super::{reject, unreadable_row, ExportRead, MonitorFormat, RawPoint};
 use crate::config::TrialConfig;
 use crate::ingest::settings::{FlowUnit, SpeedUnit, TimeFormat, WidthUnit, YieldBasis};
 use crate::ingest::time::parse_date_time;
@@ -274,14 +274,7 @@ pub(super) fn read_records<R: std::io::Read>(
             Err(e) => {
                 n += 1;
                 let line = e.position().map(|p| p.line()).unwrap_or(line_hint);
-                rej.push(reject(
-                    name,
-                    line,
-                    "unreadable_row",
-                    "",
-                    &e.to_string(),
-                    "a CSV record",
-                ));
+                rej.push(unreadable_row(name, line, &e));
                 continue;
             }
         }

@@ -109,6 +109,18 @@ pub fn is_export(path: &Path) -> bool {
     })
 }
 
+/// A CSV record the reader could not parse, at `line` of `file`.
+pub(crate) fn unreadable_row(file: &str, line: u64, e: &csv::Error) -> Rejection {
+    reject(
+        file,
+        line,
+        "unreadable_row",
+        "",
+        &e.to_string(),
+        "a CSV record",
+    )
+}
+
 /// A rejection row of ingest. Records that cannot be read get no point id (ids go to
 /// readable records), so their `id` is `line N` of their file.
 pub(crate) fn reject(
