@@ -100,10 +100,12 @@ fn trial_info(season_dir: &Path, t: &SeasonTrial) -> Result<TrialInfo> {
     }
     let mut pts: Vec<(f64, f64)> = Vec::new();
     if cfg.layout.is_empty() {
-        for p in ingest::read_geojson(
+        for p in ingest::geojson::read_plot_input(
             &base.join(&cfg.inputs.plots),
             &cfg.inputs.plots,
             &cfg.inputs.plot_id_property,
+            &cfg.inputs.crs,
+            &cfg.inputs.layer,
         )? {
             pts.extend(p.exterior);
         }

@@ -163,6 +163,14 @@ fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
         }
         paths.push(t.base.join(&t.cfg.inputs.design));
     }
+    // A Shapefile is its .shp with the files beside it.
+    let sidecars: Vec<PathBuf> = paths
+        .iter()
+        .filter(|p| p.extension().is_some_and(|e| e.eq_ignore_ascii_case("shp")))
+        .flat_map(|p| ["shx", "dbf", "prj"].map(|e| p.with_extension(e)))
+        .filter(|p| p.is_file())
+        .collect();
+    paths.extend(sidecars);
     paths
         .iter()
         .map(|p| {
@@ -532,22 +540,14 @@ fn check_plot_table(trial: &Path, t: &Trial) -> Result<()> {
     let name = &cfg.inputs.plot_table;
     let crop = cfg.crop()?;
     let mut problems = Vec::new();
-    match ingest::plot_table::read(
-        &t.base.join(name),
-        name,
-        &crop,
-        cfg.adjust.row_spacing_m,
-        cfg.adjust.range_spacing_m,
-    )
-    .and_then(|t| t.usable(name))
-    {
+    match ingest::plot_table::read_input(cfg, &t.base, name, &crop).and_then(|t| t.usable(name)) {
         Err(e) => problems.push(e.to_string()),
         Ok(table) => {
             println!("read: {name}: {}", table.read_as);
             for r in &table.rejections {
                 println!(
-                    "warning: {name}, line {}, column {}: {} ({:?}; expected {})",
-                    r.source_row, r.column, r.rule, r.value, r.limit
+                    "warning: {name}, {} {}, column {}: {} ({:?}; expected {})",
+                    table.word, r.source_row, r.column, r.rule, r.value, r.limit
                 );
             }
             let unit = plotsieve_stages::crop::YieldUnit::new(cfg.trial.output_unit, &crop);

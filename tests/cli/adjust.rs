@@ -240,8 +240,9 @@ fn a_plot_table_alone_runs_end_to_end_and_passes_check() {
     ok(&o);
     let out = String::from_utf8_lossy(&o.stdout);
     assert!(
-        out.contains("read: plots.csv: plot table: plot id plot, treatment variety, block block")
-            && out.contains("warning: plots.csv, line 34, column yield_t_ha: unparseable"),
+        out.contains(
+            "read: plots.csv: plot table (CSV): plot id plot, treatment variety, block block"
+        ) && out.contains("warning: plots.csv, line 34, column yield_t_ha: unparseable"),
         "{out}"
     );
     let o = plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]);
@@ -267,7 +268,7 @@ fn a_plot_table_alone_runs_end_to_end_and_passes_check() {
     assert!((up - 0.6).abs() < 3.0 * sd, "uplift {up} +- {sd}");
     assert!(w.path("run/5-report/report.html").exists());
     let md = read(&w.path("run/5-report/report.md"));
-    assert!(md.contains("| plots.csv | plot table:"), "{md}");
+    assert!(md.contains("| plots.csv | plot table (CSV):"), "{md}");
     let m = json(&w.path("run/manifest.json"));
     assert_eq!(
         m["inputs"].as_array().unwrap().len(),

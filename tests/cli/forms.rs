@@ -419,11 +419,15 @@ fn plot_polygons_from_a_shapefile_read_as_the_geojson() {
     copy_dir(&repo().join("sample-input"), &d);
     std::fs::remove_dir_all(d.join("distance-3s")).unwrap();
     copy_dir(&repo().join("tests/fixtures/shp"), &d.join("shp"));
+    copy_dir(&repo().join("tests/fixtures/layers"), &d.join("layers"));
     let t = d.join("trial.toml");
     run(&w, &t, "geojson");
     let base = plots(&w.path("geojson"));
+    // tests/fixtures/layers/plots_utm14n.gpkg: the same polygons in UTM 14N written by GDAL
+    // through pyogrio (tests/fixtures/make_layer_fixtures.py).
     for (file, says) in [
-        ("shp/plots_wgs84.shp", "plots.geojson"),
+        ("layers/plots_utm14n.gpkg", "plots.geojson"),
+        ("shp/plots_wgs84.shp", "layers/plots_utm14n.gpkg"),
         ("shp/plots_utm14n.shp", "shp/plots_wgs84.shp"),
     ] {
         replace(&t, says, file, 1);

@@ -13,6 +13,7 @@ mod forms;
 mod geometry;
 mod inputs;
 mod intake;
+mod plot_layers;
 mod report;
 mod run_folder;
 mod settings;

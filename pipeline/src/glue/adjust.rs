@@ -20,17 +20,17 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         read_plots(out, &unit)?
     } else {
         // The analyst's own table fitted directly: every row must be usable.
-        let table = plotsieve_stages::ingest::plot_table::read(
-            &t.base.join(&cfg.adjust.plot_table),
+        let table = plotsieve_stages::ingest::plot_table::read_input(
+            cfg,
+            &t.base,
             &cfg.adjust.plot_table,
             crop,
-            cfg.adjust.row_spacing_m,
-            cfg.adjust.range_spacing_m,
         )?;
         if let Some(r) = table.rejections.first() {
             bail!(
-                "{}, line {}, column {}: expected {}, found {:?} ({})",
+                "{}, {} {}, column {}: expected {}, found {:?} ({})",
                 r.source_file,
+                table.word,
                 r.source_row,
                 r.column,
                 r.limit,

@@ -41,14 +41,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
 fn plot_table(c: &Ctx) -> Result<StageSummary> {
     let cfg = &c.t.cfg;
     let name = &cfg.inputs.plot_table;
-    let t = ingest::plot_table::read(
-        &c.t.base.join(name),
-        name,
-        &c.crop,
-        cfg.adjust.row_spacing_m,
-        cfg.adjust.range_spacing_m,
-    )?
-    .usable(name)?;
+    let t = ingest::plot_table::read_input(cfg, &c.t.base, name, &c.crop)?.usable(name)?;
     io::write_table(&c.dir.join("plot_table.csv"), &t.plots, &c.unit)?;
     let mut summary = StageSummary::from_rejections("ingest", "plots", t.rows, &t.rejections);
     summary.details.insert(

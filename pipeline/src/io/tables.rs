@@ -137,7 +137,14 @@ impl Table for PlotStats {
             num!("across_m", across_m, 4),
             col(
                 "source",
-                |_: &Self| "monitor".into(),
+                // Plots from a plot table have no polygon of their own, hence no area.
+                |r: &Self| {
+                    if r.area_m2.is_nan() {
+                        "plot_table".into()
+                    } else {
+                        "monitor".into()
+                    }
+                },
                 |_: &mut Self, _| Ok(()),
             ),
         ]

@@ -17,6 +17,8 @@
 pub mod design;
 pub mod formats;
 pub mod geojson;
+pub mod geopackage;
+pub mod layers;
 pub mod plot_checks;
 pub mod plot_table;
 #[cfg(test)]
@@ -227,6 +229,7 @@ pub fn run_with(
             &cfg.inputs.plots,
             &cfg.inputs.plot_id_property,
             &cfg.inputs.crs,
+            &cfg.inputs.layer,
         )?
     } else {
         Vec::new()
@@ -445,6 +448,7 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
             &cfg.inputs.plots,
             &cfg.inputs.plot_id_property,
             &cfg.inputs.crs,
+            &cfg.inputs.layer,
         )
         .map(|p| (p, cfg.inputs.plots.clone()))
     } else {

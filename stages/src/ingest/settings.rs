@@ -25,12 +25,19 @@ pub struct InputsSection {
     pub plots: String,
     /// Feature property holding the plot id.
     pub plot_id_property: String,
+    /// The layer to read from a GeoPackage with several feature layers.
+    pub layer: String,
     /// Design table CSV with columns plot_id, treatment, block, field.
     #[serde(default)]
     pub design: String,
     /// Plot-table entry: plot-level yields instead of monitor exports, plots and design
     /// ([`crate::ingest::plot_table`]).
     pub plot_table: String,
+    /// A plot table's yield column or attribute when its name does not carry the unit
+    /// (`yield_t_ha`, ...), with `yield_unit`.
+    pub yield_property: String,
+    /// The unit of `yield_property`: t_ha, kg_ha, q_ha, bu_ac or lb_ac.
+    pub yield_unit: String,
     /// The CRS of coordinates in the inputs (`EPSG:32614`, ...): monitor exports' x/y
     /// columns, and plot files without a `crs` member of their own. Empty: WGS84 lon/lat.
     pub crs: String,

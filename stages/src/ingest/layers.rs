@@ -1,0 +1,367 @@
+//! Vector layers as farm data travels in: a GeoJSON FeatureCollection, an ESRI Shapefile
+//! (`.shp` with `.shx`, `.dbf` and `.prj`) or a GeoPackage (`.gpkg`), read to one shape:
+//! attribute values as text in the layer's field order, one geometry per feature, and the CRS
+//! the file names. Plot polygons and plot tables are built from it.
+
+use super::IngestError;
+use shapefile::dbase::FieldValue;
+use shapefile::{PolygonRing, Shape};
+use std::path::Path;
+
+/// A ring of positions, in the layer's coordinates.
+pub type Ring = Vec<(f64, f64)>;
+
+/// One feature's geometry, as stored.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Geometry {
+    Empty,
+    Point(f64, f64),
+    /// The exterior ring, then the holes.
+    Polygon(Vec<Ring>),
+    MultiPolygon(Vec<Vec<Ring>>),
+    /// Any other type, by name.
+    Other(String),
+}
+
+impl Geometry {
+    /// The one polygon a plot must be: (exterior, holes), or why it is not one.
+    pub fn polygon(self) -> Result<(Ring, Vec<Ring>), String> {
+        let mut rings = match self {
+            Geometry::Polygon(r) => r,
+            Geometry::MultiPolygon(mut parts) if parts.len() == 1 => parts.remove(0),
+            Geometry::MultiPolygon(parts) => {
+                return Err(format!(
+                    "a MultiPolygon with {} parts; a plot must be one polygon",
+                    parts.len()
+                ))
+            }
+            Geometry::Empty => return Err("no geometry".into()),
+            Geometry::Point(..) => return Err("geometry type Point, expected Polygon".into()),
+            Geometry::Other(t) => return Err(format!("geometry type {t}, expected Polygon")),
+        };
+        if rings.is_empty() {
+            return Err("empty polygon".into());
+        }
+        if rings.iter().any(|r| r.len() < 4) {
+            return Err("a ring needs at least 4 positions".into());
+        }
+        let exterior = rings.remove(0);
+        Ok((exterior, rings))
+    }
+}
+
+/// One feature: its number in the file (as the format counts), attribute values in the
+/// layer's field order ("" for null), and its geometry or why it could not be read.
+pub struct Feature {
+    pub number: u64,
+    pub values: Vec<String>,
+    pub geometry: Result<Geometry, String>,
+}
+
+/// A layer read.
+pub struct Layer {
+    /// What a feature is called in messages ("feature", "record").
+    pub word: &'static str,
+    /// The format and layer, for `check` and the summary.
+    pub what: String,
+    pub fields: Vec<String>,
+    pub features: Vec<Feature>,
+    /// The CRS the file names (`None`: WGS84 lon/lat or not named), or why the file's own
+    /// CRS could not be identified (then the trial must give `inputs.crs`).
+    pub crs: Result<Option<String>, String>,
+}
+
+impl Layer {
+    /// The field's position, by name, case-insensitive.
+    pub fn field(&self, name: &str) -> Option<usize> {
+        self.fields
+            .iter()
+            .position(|f| f.eq_ignore_ascii_case(name))
+    }
+
+    /// The CRS to read the coordinates in: the trial's `inputs.crs` wins over the file's own.
+    pub fn crs_with(&self, trial_crs: &str) -> Result<String, String> {
+        if !trial_crs.is_empty() {
+            return Ok(trial_crs.to_string());
+        }
+        self.crs.clone().map(|c| c.unwrap_or_default())
+    }
+}
+
+/// A path's extension, lower case ("" without one).
+pub fn extension(path: &Path) -> String {
+    path.extension()
+        .map(|e| e.to_string_lossy().to_ascii_lowercase())
+        .unwrap_or_default()
+}
+
+/// Whether a path names a layer file this module reads (by extension).
+pub fn is_layer(path: &Path) -> bool {
+    matches!(
+        extension(path).as_str(),
+        "geojson" | "json" | "shp" | "gpkg"
+    )
+}
+
+/// Read a layer by its extension: `.shp`, `.gpkg` (the one named `layer` when it has several
+/// feature layers), else GeoJSON.
+pub fn read(path: &Path, name: &str, layer: &str) -> Result<Layer, IngestError> {
+    let unusable = |message: String| IngestError::Unusable {
+        file: name.to_string(),
+        message,
+    };
+    let ext = extension(path);
+    match ext.as_str() {
+        "shp" => read_shapefile(path, name),
+        "gpkg" => {
+            if !path.is_file() {
+                return Err(IngestError::Read {
+                    file: name.to_string(),
+                    message: "no such file".into(),
+                });
+            }
+            super::geopackage::read(path, layer).map_err(unusable)
+        }
+        _ => read_geojson(path, name),
+    }
+}
+
+fn read_geojson(path: &Path, name: &str) -> Result<Layer, IngestError> {
+    let unusable = |message: String| IngestError::Unusable {
+        file: name.to_string(),
+        message,
+    };
+    let text = std::fs::read_to_string(path).map_err(|e| IngestError::Read {
+        file: name.to_string(),
+        message: e.to_string(),
+    })?;
+    let v: serde_json::Value =
+        serde_json::from_str(&text).map_err(|e| unusable(format!("not valid JSON: {e}")))?;
+    let feats = v
+        .get("features")
+        .and_then(|f| f.as_array())
+        .ok_or_else(|| unusable("expected a GeoJSON FeatureCollection with \"features\"".into()))?;
+    let mut fields: Vec<String> = Vec::new();
+    for f in feats {
+        if let Some(p) = f.get("properties").and_then(|p| p.as_object()) {
+            for k in p.keys() {
+                if !fields.contains(k) {
+                    fields.push(k.clone());
+                }
+            }
+        }
+    }
+    let features = feats
+        .iter()
+        .enumerate()
+        .map(|(i, f)| {
+            let props = f.get("properties");
+            let values = fields
+                .iter()
+                .map(|k| match props.and_then(|p| p.get(k)) {
+                    Some(serde_json::Value::String(s)) => s.trim().to_string(),
+                    Some(serde_json::Value::Null) | None => String::new(),
+                    Some(other) => other.to_string(),
+                })
+                .collect();
+            Feature {
+                number: i as u64,
+                values,
+                geometry: f
+                    .get("geometry")
+                    .filter(|g| !g.is_null())
+                    .map(geometry_from_json)
+                    .unwrap_or(Ok(Geometry::Empty)),
+            }
+        })
+        .collect();
+    Ok(Layer {
+        word: "feature",
+        what: "GeoJSON".into(),
+        fields,
+        features,
+        crs: Ok(geojson_crs(&v)),
+    })
+}
+
+/// The CRS a GeoJSON `crs` member names (the 2008 form), None without one or for CRS84.
+pub fn geojson_crs(v: &serde_json::Value) -> Option<String> {
+    v.get("crs")
+        .and_then(|c| c.get("properties"))
+        .and_then(|p| p.get("name"))
+        .and_then(|n| n.as_str())
+        .filter(|n| !n.to_ascii_uppercase().ends_with("CRS84"))
+        .map(String::from)
+}
+
+fn ring_from_json(v: &serde_json::Value) -> Option<Ring> {
+    v.as_array()?
+        .iter()
+        .map(|p| {
+            let a = p.as_array()?;
+            Some((a.first()?.as_f64()?, a.get(1)?.as_f64()?))
+        })
+        .collect()
+}
+
+/// A GeoJSON geometry object.
+pub fn geometry_from_json(g: &serde_json::Value) -> Result<Geometry, String> {
+    let coords = g.get("coordinates");
+    let bad = || "coordinates must be [lon, lat] number pairs".to_string();
+    let rings = |c: Option<&serde_json::Value>| -> Result<Vec<Ring>, String> {
+        c.and_then(|c| c.as_array())
+            .ok_or_else(|| "no coordinates".to_string())?
+            .iter()
+            .map(|r| ring_from_json(r).ok_or_else(bad))
+            .collect()
+    };
+    match g.get("type").and_then(|t| t.as_str()) {
+        Some("Point") => {
+            let p = coords.and_then(|c| c.as_array()).ok_or_else(bad)?;
+            match (
+                p.first().and_then(|x| x.as_f64()),
+                p.get(1).and_then(|y| y.as_f64()),
+            ) {
+                (Some(x), Some(y)) => Ok(Geometry::Point(x, y)),
+                _ => Err(bad()),
+            }
+        }
+        Some("Polygon") => rings(coords).map(Geometry::Polygon),
+        Some("MultiPolygon") => coords
+            .and_then(|c| c.as_array())
+            .ok_or_else(|| "no coordinates".to_string())?
+            .iter()
+            .map(|part| rings(Some(part)))
+            .collect::<Result<Vec<_>, _>>()
+            .map(Geometry::MultiPolygon),
+        Some(t) => Ok(Geometry::Other(t.to_string())),
+        None => Err("a geometry without a \"type\"".into()),
+    }
+}
+
+/// A Shapefile shape. Shapefile rings run clockwise; they are turned counterclockwise (as
+/// RFC 7946 and the rest of plotsieve have them).
+pub fn geometry_of_shape(shape: Shape) -> Geometry {
+    match shape {
+        Shape::NullShape => Geometry::Empty,
+        Shape::Point(p) => Geometry::Point(p.x, p.y),
+        Shape::PointM(p) => Geometry::Point(p.x, p.y),
+        Shape::PointZ(p) => Geometry::Point(p.x, p.y),
+        Shape::Polygon(p) => {
+            let mut parts: Vec<Vec<Ring>> = Vec::new();
+            for r in p.rings() {
+                let mut pts: Ring = r.points().iter().map(|p| (p.x, p.y)).collect();
+                pts.reverse();
+                match (r, parts.last_mut()) {
+                    (PolygonRing::Inner(_), Some(last)) => last.push(pts),
+                    _ => parts.push(vec![pts]),
+                }
+            }
+            match parts.len() {
+                0 => Geometry::Empty,
+                1 => Geometry::Polygon(parts.remove(0)),
+                _ => Geometry::MultiPolygon(parts),
+            }
+        }
+        other => Geometry::Other(other.shapetype().to_string()),
+    }
+}
+
+/// A dBASE value as text ("" for null).
+pub fn field_text(v: &FieldValue) -> String {
+    match v {
+        FieldValue::Character(Some(s)) | FieldValue::Memo(s) => s.trim().to_string(),
+        FieldValue::Numeric(Some(x)) => format!("{x}"),
+        FieldValue::Float(Some(x)) => format!("{x}"),
+        FieldValue::Integer(n) => n.to_string(),
+        FieldValue::Double(x) => format!("{x}"),
+        FieldValue::Currency(x) => format!("{x}"),
+        FieldValue::Logical(Some(b)) => b.to_string(),
+        FieldValue::Date(Some(d)) => format!("{:04}-{:02}-{:02}", d.year(), d.month(), d.day()),
+        _ => String::new(),
+    }
+}
+
+fn read_shapefile(path: &Path, name: &str) -> Result<Layer, IngestError> {
+    let unusable = |message: String| IngestError::Unusable {
+        file: name.to_string(),
+        message,
+    };
+    let mut reader = super::shapefile_plots::open(path, name)?;
+    let mut fields: Vec<String> = Vec::new();
+    let mut features = Vec::new();
+    for (i, item) in reader.iter_shapes_and_records().enumerate() {
+        let (shape, record) = item.map_err(|e| unusable(format!("record {}: {e}", i + 1)))?;
+        let record: std::collections::BTreeMap<String, FieldValue> = record.into_iter().collect();
+        if fields.is_empty() {
+            fields = record.keys().cloned().collect();
+        }
+        features.push(Feature {
+            number: i as u64 + 1,
+            values: fields
+                .iter()
+                .map(|f| record.get(f).map(field_text).unwrap_or_default())
+                .collect(),
+            geometry: Ok(geometry_of_shape(shape)),
+        });
+    }
+    let crs = match std::fs::read_to_string(path.with_extension("prj")) {
+        Err(_) => Ok(None),
+        Ok(wkt) => {
+            super::shapefile_plots::crs_of_prj(&wkt).map(|c| Some(c).filter(|c| !c.is_empty()))
+        }
+    };
+    Ok(Layer {
+        word: "record",
+        what: "Shapefile".into(),
+        fields,
+        features,
+        crs,
+    })
+}
+
+/// Plot polygons from a polygon layer: the plot id from the attribute `id_prop`
+/// (`inputs.plot_id_property`), one polygon per feature; any feature that is not one is an
+/// error naming it.
+pub fn plot_polygons(
+    layer: Layer,
+    name: &str,
+    id_prop: &str,
+) -> Result<Vec<crate::table::PlotPolygon>, IngestError> {
+    let unusable = |message: String| IngestError::Unusable {
+        file: name.to_string(),
+        message,
+    };
+    let attr = if layer.what == "GeoJSON" {
+        "property"
+    } else {
+        "attribute"
+    };
+    let at = layer.field(id_prop);
+    let word = layer.word;
+    let mut out = Vec::new();
+    for f in layer.features {
+        let n = f.number;
+        let id = match at.map(|i| f.values[i].clone()) {
+            Some(id) if !id.is_empty() => id,
+            _ => {
+                return Err(unusable(format!(
+                    "{word} {n}: no {attr} {id_prop:?} (inputs.plot_id_property)"
+                )))
+            }
+        };
+        let (exterior, holes) = f
+            .geometry
+            .and_then(Geometry::polygon)
+            .map_err(|e| unusable(format!("{word} {n} (plot {id}): {e}")))?;
+        out.push(crate::table::PlotPolygon {
+            plot_id: id,
+            exterior,
+            holes,
+        });
+    }
+    if out.is_empty() {
+        return Err(unusable(format!("no plot {word}s")));
+    }
+    Ok(out)
+}
