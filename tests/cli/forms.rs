@@ -463,17 +463,23 @@ fn plot_polygons_from_a_shapefile_read_as_the_geojson() {
 }
 
 #[test]
-fn monitor_points_from_shapefiles_read_as_the_text_exports() {
+fn monitor_points_from_shapefiles_and_geopackages_read_as_the_text_exports() {
     // tests/fixtures/shp/monitor: the demo trial's two exports as point Shapefiles written by
-    // pyshp (attributes under 10-character dBase names). Mapped by [columns] like a table,
-    // they give the text run's plots and the same rejections.
-    let w = Workdir::new("forms-shp-points");
+    // pyshp in lon/lat (attributes under 10-character dBase names); tests/fixtures/layers/
+    // monitor: the same as GeoPackage point layers in UTM 14N written by GDAL through
+    // pyogrio. Mapped by [columns] like a table, they give the text run's plots and the same
+    // rejections.
+    let w = Workdir::new("forms-point-layers");
     let d = w.path("t");
     copy_dir(&repo().join("sample-input"), &d);
     std::fs::remove_dir_all(d.join("distance-3s")).unwrap();
     copy_dir(
         &repo().join("tests/fixtures/shp/monitor"),
         &d.join("shp_monitor"),
+    );
+    copy_dir(
+        &repo().join("tests/fixtures/layers/monitor"),
+        &d.join("gpkg_monitor"),
     );
     let t = d.join("trial.toml");
     run(&w, &t, "text");
@@ -485,25 +491,46 @@ fn monitor_points_from_shapefiles_read_as_the_text_exports() {
     ] {
         replace(&t, a, b, 1);
     }
-    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
-    ok(&o);
-    assert!(String::from_utf8_lossy(&o.stdout)
-        .contains("read: shp_monitor/field-A.shp: shapefile_points: point geometry"));
-    run(&w, &t, "shp");
-    let (a, b) = (plots(&w.path("text")), plots(&w.path("shp")));
-    assert_eq!(
-        a.values().map(|v| &v.0).collect::<Vec<_>>(),
-        b.values().map(|v| &v.0).collect::<Vec<_>>()
-    );
-    let diff = yield_differences(&a, &b);
-    assert!(*diff.last().unwrap() < 1e-9, "{:?}", diff.last());
-    let (ra, rb) = (
-        csv_rows(&w.path("text/2-clean/rejected.csv")),
-        csv_rows(&w.path("shp/2-clean/rejected.csv")),
-    );
-    assert_eq!(ra.len(), rb.len());
-    assert!(ra
-        .iter()
-        .zip(&rb)
-        .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
+    for (dir, says, tolerance) in [
+        (
+            "shp_monitor",
+            "shp_monitor/field-A.shp: shapefile_points: point geometry",
+            1e-9,
+        ),
+        // Through UTM and back: positions move by nanometres, yields by no more than this.
+        (
+            "gpkg_monitor",
+            "gpkg_monitor/field-A.gpkg: geopackage_points: point geometry",
+            1e-7,
+        ),
+    ] {
+        if dir == "gpkg_monitor" {
+            replace(&t, "shp_monitor", "gpkg_monitor", 1);
+        }
+        let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+        ok(&o);
+        let out = String::from_utf8_lossy(&o.stdout);
+        assert!(out.contains(&format!("read: {says}")), "{out}");
+        run(&w, &t, dir);
+        let (a, b) = (plots(&w.path("text")), plots(&w.path(dir)));
+        assert_eq!(
+            a.values().map(|v| &v.0).collect::<Vec<_>>(),
+            b.values().map(|v| &v.0).collect::<Vec<_>>()
+        );
+        let diff = yield_differences(&a, &b);
+        assert!(
+            *diff.last().unwrap() < tolerance,
+            "{dir}: {:?}",
+            diff.last()
+        );
+        let (ra, rb) = (
+            csv_rows(&w.path("text/2-clean/rejected.csv")),
+            csv_rows(&w.path(&format!("{dir}/2-clean/rejected.csv"))),
+        );
+        assert_eq!(ra.len(), rb.len(), "{dir}");
+        assert!(ra
+            .iter()
+            .zip(&rb)
+            .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
+    }
 }

@@ -276,7 +276,7 @@ pub fn field_text(v: &FieldValue) -> String {
         FieldValue::Integer(n) => n.to_string(),
         FieldValue::Double(x) => format!("{x}"),
         FieldValue::Currency(x) => format!("{x}"),
-        FieldValue::Logical(Some(b)) => b.to_string(),
+        FieldValue::Logical(Some(b)) => u8::from(*b).to_string(),
         FieldValue::Date(Some(d)) => format!("{:04}-{:02}-{:02}", d.year(), d.month(), d.day()),
         _ => String::new(),
     }

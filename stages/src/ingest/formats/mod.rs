@@ -11,7 +11,7 @@
 
 mod mapped_text;
 mod mapping_words;
-mod shapefile_points;
+mod point_layers;
 
 use super::IngestError;
 use crate::config::TrialConfig;
@@ -20,8 +20,11 @@ use std::io::Read;
 use std::path::Path;
 
 /// Every monitor format, in sniffing order (the last is the fallback).
-pub static FORMATS: &[&dyn MonitorFormat] =
-    &[&shapefile_points::ShapefilePoints, &mapped_text::MappedText];
+pub static FORMATS: &[&dyn MonitorFormat] = &[
+    &point_layers::ShapefilePoints,
+    &point_layers::GeoPackagePoints,
+    &mapped_text::MappedText,
+];
 
 /// A monitor export format.
 pub trait MonitorFormat: Sync {
