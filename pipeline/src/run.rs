@@ -143,7 +143,7 @@ fn unfinished(status: &str, error: String) -> StageRecord {
     }
 }
 
-fn sha256_file(path: &Path) -> Result<(u64, String)> {
+pub(crate) fn sha256_file(path: &Path) -> Result<(u64, String)> {
     let bytes = std::fs::read(path).with_context(|| format!("reading {}", path.display()))?;
     let digest = Sha256::digest(&bytes);
     Ok((
@@ -162,6 +162,9 @@ fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
             paths.push(t.base.join(&t.cfg.inputs.plots));
         }
         paths.push(t.base.join(&t.cfg.inputs.design));
+    }
+    if !t.cfg.adjust.priors_from.is_empty() {
+        paths.push(t.base.join(&t.cfg.adjust.priors_from));
     }
     // A Shapefile is its .shp with the files beside it.
     let sidecars: Vec<PathBuf> = paths

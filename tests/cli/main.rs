@@ -14,6 +14,7 @@ mod geometry;
 mod inputs;
 mod intake;
 mod plot_layers;
+mod priors;
 mod report;
 mod run_folder;
 mod settings;

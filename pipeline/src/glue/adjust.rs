@@ -5,6 +5,7 @@ use super::{read_plots, write_stage_tables, Ctx};
 use crate::io;
 use anyhow::{bail, Result};
 use plotsieve_stages::adjust;
+use plotsieve_stages::adjust::priors::PriorsFile;
 use plotsieve_stages::table::{Rejection, StageSummary};
 
 /// Run the stage against the run folder.
@@ -40,7 +41,31 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         }
         table.plots
     };
-    let s = cfg.adjust.checked(&cfg.trial.check, unit.kg_ha_per_unit());
+    let mut s = cfg.adjust.checked(&cfg.trial.check, unit.kg_ha_per_unit());
+    let mut carried = None;
+    if !cfg.adjust.priors_from.is_empty() {
+        let name = &cfg.adjust.priors_from;
+        let path = t.base.join(name);
+        let text = std::fs::read_to_string(&path)
+            .map_err(|e| anyhow::anyhow!("{name} (adjust.priors_from): {e}"))?;
+        let file = PriorsFile::parse(&text, name).map_err(anyhow::Error::msg)?;
+        let (priors, said) = file
+            .priors_for(
+                name,
+                &cfg.trial.crop,
+                &cfg.trial.check,
+                cfg.adjust.priors_widen,
+                cfg.adjust.priors_sd,
+                &s.product_prior,
+            )
+            .map_err(anyhow::Error::msg)?;
+        s.product_prior = priors;
+        let (_, sha256) = crate::run::sha256_file(&path)?;
+        carried = Some(serde_json::json!({
+            "file": name, "sha256": sha256, "widen": cfg.adjust.priors_widen,
+            "sd": cfg.adjust.priors_sd.as_str(), "taken": said,
+        }));
+    }
     let mut o = adjust::run_with(&plots, &s, progress)?;
     if !o.missing_fields.is_empty() {
         if !cfg.adjust.allow_missing_fields {
@@ -60,6 +85,17 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     io::write_table(&dir.join("treatments.csv"), &o.treatments, &unit)?;
     io::write_table(&dir.join("hyperparameters.csv"), &o.hyper, &unit)?;
     io::write_table(&dir.join("comparison.csv"), &o.comparisons, &unit)?;
+    // What this trial learned, for a later trial's adjust.priors_from.
+    io::write_json(
+        &dir.join("priors.json"),
+        &PriorsFile::from_fit(
+            &cfg.trial.name,
+            &cfg.trial.crop,
+            &cfg.trial.check,
+            &o.treatments,
+            &o.hyper,
+        ),
+    )?;
     // Kept plots of fields that could not be fitted are this stage's rejections.
     let fitted: std::collections::BTreeSet<&str> =
         o.hyper.iter().map(|h| h.field.as_str()).collect();
@@ -79,6 +115,9 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let kept_in = plots.iter().filter(|p| p.status == "kept").count() as u64;
     let mut summary = StageSummary::from_rejections("adjust", "plots", kept_in, &rejections);
     summary.set_warnings(&o.warnings);
+    if let Some(c) = carried {
+        summary.details.insert("priors_from".into(), c);
+    }
     if o.joint_ess.is_finite() {
         summary.details.insert(
             "joint_effective_draws".into(),

@@ -68,6 +68,7 @@ mod optimise;
 pub mod oracle;
 pub mod output;
 mod prepare;
+pub mod priors;
 mod random;
 #[cfg(test)]
 pub mod reference;

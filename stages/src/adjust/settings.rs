@@ -93,6 +93,10 @@ pub struct AdjustSettings {
     pub weak_prior_sd: f64,
     pub product_prior_mean: BTreeMap<String, f64>,
     pub product_prior_sd: BTreeMap<String, f64>,
+    /// A priors file of an earlier run ([`super::priors`]), relative to the trial file.
+    pub priors_from: String,
+    pub priors_widen: f64,
+    pub priors_sd: super::priors::PriorSd,
     pub exact_max_plots: i64,
     pub hsgp_max_basis: i64,
     pub hsgp_boundary_factor: f64,
@@ -155,6 +159,12 @@ impl AdjustSettings {
 
     /// Range problems, each naming its key.
     pub fn problems(&self, p: &mut Vec<String>) {
+        if !(self.priors_widen > 0.0 && self.priors_widen.is_finite()) {
+            p.push(format!(
+                "adjust.priors_widen must be above 0 (got {})",
+                self.priors_widen
+            ));
+        }
         if self.blocks && self.random_effects.contains(&RandomEffect::Block) {
             p.push("adjust.random_effects has \"block\" while adjust.blocks is true: blocks are either fixed or random, not both".into());
         }
