@@ -73,6 +73,35 @@ fn report_html_renders_in_headless_chromium_without_the_network() {
         "the browser built every map"
     );
     assert!(dom.matches("<table").count() >= 6, "tables present");
+    // The report starts with the answer: the first table the browser built is the decision
+    // table (one row per product, pooled over fields), with the forest plot beside it.
+    let first = dom.find("<table").unwrap();
+    let heading = &dom[dom[..first].rfind("<h2").unwrap()..first];
+    assert!(
+        heading.contains("Decision: products against the check (check)"),
+        "{heading}"
+    );
+    let table = &dom[first..first + dom[first..].find("</table>").unwrap()];
+    assert!(table.contains("<th>product</th>") && table.contains("P(uplift &gt; 0)"));
+    assert_eq!(
+        table.matches("<tr>").count(),
+        1 + 5,
+        "a header and the five products"
+    );
+    for p in ["prod-a", "prod-b", "prod-c", "prod-d", "prod-e"] {
+        assert!(table.contains(&format!("<td>{p}</td>")), "{p}");
+    }
+    let decision_end = first + dom[first..].find("</section>").unwrap();
+    assert!(dom[first..decision_end].contains("<svg class=\"forest\""));
+    assert!(dom.find("Points and plots through the stages").unwrap() > decision_end);
+    // report.md opens the same way: after the caution (and warnings), the decision.
+    let md = read(&out.join("5-report/report.md"));
+    let sections: Vec<&str> = md.lines().filter(|l| l.starts_with("## ")).collect();
+    let first_md = sections
+        .iter()
+        .find(|l| !l.starts_with("## Warnings"))
+        .unwrap();
+    assert_eq!(*first_md, "## Decision: products against the check (check)");
     assert!(dom.contains("<circle"), "points drawn");
     // The page itself asked for nothing: every URL in the network log is the report's own
     // file or the browser's own background services (which the flags and the host rules keep

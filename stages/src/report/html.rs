@@ -202,6 +202,92 @@ fn ring_path(p: &Panel, ring: &[(f64, f64)]) -> String {
     d
 }
 
+/// The forest plot of uplifts over the check, 95 % intervals (pooled rows in blue).
+fn forest(s: &mut String, rows: &[&TreatmentRow], u: &str) {
+    if !rows.is_empty() {
+        let lo = rows
+            .iter()
+            .map(|t| t.uplift_lo95)
+            .chain(rows.iter().map(|t| t.break_even).filter(|v| v.is_finite()))
+            .fold(0.0, f64::min);
+        let hi = rows
+            .iter()
+            .map(|t| t.uplift_hi95)
+            .chain(rows.iter().map(|t| t.break_even).filter(|v| v.is_finite()))
+            .fold(0.0, f64::max);
+        let (w, rh, left) = (520.0, 18.0, 150.0);
+        let h = rows.len() as f64 * rh + 50.0;
+        let x = |v: f64| left + (v - lo) / (hi - lo).max(1e-9) * w;
+        let ticks = if rows.iter().any(|t| t.break_even.is_finite()) {
+            ", ticks mark each product's break-even"
+        } else {
+            ""
+        };
+        let _ = write!(s, "<figure><figcaption>Uplift over the check with 95 % intervals (pooled rows, field all, in blue); the dashed line is zero{ticks}</figcaption><svg class=\"forest\" role=\"img\" aria-label=\"forest plot of uplifts\" width=\"{:.0}\" height=\"{h:.0}\" viewBox=\"0 0 {:.0} {h:.0}\" xmlns=\"http://www.w3.org/2000/svg\">", left + w + 20.0, left + w + 20.0);
+        let _ = write!(
+            s,
+            "<line x1=\"{:.1}\" y1=\"4\" x2=\"{:.1}\" y2=\"{:.1}\" class=\"zero\"/>",
+            x(0.0),
+            x(0.0),
+            h - 34.0
+        );
+        for (k, t) in rows.iter().enumerate() {
+            let y = 12.0 + k as f64 * rh;
+            let c = if t.field == "all" {
+                "#0072B2"
+            } else {
+                "#555555"
+            };
+            let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"end\">{} / {}</text><line x1=\"{:.1}\" y1=\"{y:.1}\" x2=\"{:.1}\" y2=\"{y:.1}\" stroke=\"{c}\" stroke-width=\"2\"/><circle cx=\"{:.1}\" cy=\"{y:.1}\" r=\"3.5\" fill=\"{c}\"/>", left - 8.0, y + 4.0, esc(&t.field), esc(&t.treatment), x(t.uplift_lo95), x(t.uplift_hi95), x(t.uplift));
+            if t.break_even.is_finite() {
+                let _ = write!(s, "<line x1=\"{:.1}\" y1=\"{:.1}\" x2=\"{:.1}\" y2=\"{:.1}\" stroke=\"#D55E00\" stroke-width=\"2\"/>", x(t.break_even), y - 6.0, x(t.break_even), y + 6.0);
+            }
+        }
+        let step = nice_step((hi - lo) / 5.0);
+        let mut v = (lo / step).ceil() * step;
+        while v <= hi + 1e-12 {
+            let _ = write!(s, "<line x1=\"{:.1}\" y1=\"{:.1}\" x2=\"{:.1}\" y2=\"{:.1}\" class=\"tick\"/><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"middle\">{}</text>", x(v), h - 34.0, x(v), h - 30.0, x(v), h - 19.0, fmt(v, 2));
+            v += step;
+        }
+        let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"al\" text-anchor=\"middle\">uplift over the check ({u})</text></svg></figure>", left + w / 2.0, h - 4.0);
+    }
+}
+
+/// The decision table and forest plot: the first section after the caution and warnings.
+fn decision(s: &mut String, r: &HtmlInput) {
+    let rows = super::decision_rows(r.treatments);
+    let _ = write!(
+        s,
+        "<section class=\"decision\"><h2>Decision: products against the check ({})</h2>",
+        esc(r.check)
+    );
+    if rows.is_empty() {
+        let _ = write!(
+            s,
+            "<p>No product could be compared with the check.</p></section>"
+        );
+        return;
+    }
+    let _ = write!(s, "<p class=\"note\">{}</p>", esc(super::DECISION_WORDS));
+    let cols = super::decision_columns(&rows, r.decimals, r.unit_label);
+    let _ = write!(s, "<table><thead><tr><th>product</th>");
+    for c in &cols {
+        let _ = write!(s, "<th>{}</th>", esc(&c.0));
+    }
+    let _ = write!(s, "</tr></thead><tbody>");
+    for t in &rows {
+        let _ = write!(s, "<tr><td>{}</td>", esc(&t.treatment));
+        for c in &cols {
+            let _ = write!(s, "<td class=\"n\">{}</td>", esc(&c.1(t)));
+        }
+        let _ = write!(s, "</tr>");
+    }
+    let _ = write!(s, "</tbody></table>");
+    let all: Vec<&TreatmentRow> = r.treatments.iter().filter(|t| !t.uplift.is_nan()).collect();
+    forest(s, &all, r.unit_label);
+    let _ = write!(s, "</section>");
+}
+
 /// Render the report.
 pub fn render(r: &HtmlInput) -> String {
     let d = r.decimals;
@@ -225,6 +311,7 @@ pub fn render(r: &HtmlInput) -> String {
         }
         let _ = write!(s, "</ul></section>");
     }
+    decision(&mut s, r);
     // Counts per stage.
     let _ = write!(s, "<section><h2>Points and plots through the stages</h2><table><thead><tr><th>stage</th><th>counted</th><th>in</th><th>kept</th><th>rejected</th></tr></thead><tbody>");
     for x in r.summaries {
@@ -497,7 +584,7 @@ pub fn render(r: &HtmlInput) -> String {
     // Treatment table and forest plot.
     let _ = write!(
         s,
-        "<section><h2>Products against the check ({})</h2>",
+        "<section><h2>Products against the check, per field ({})</h2>",
         esc(r.check)
     );
     // Economics columns only when a price was given (otherwise they would all be blank).
@@ -558,49 +645,6 @@ pub fn render(r: &HtmlInput) -> String {
             let _ = write!(s, "</tr>");
         }
         let _ = write!(s, "</tbody></table>");
-    }
-    let rows: Vec<&TreatmentRow> = r.treatments.iter().filter(|t| !t.uplift.is_nan()).collect();
-    if !rows.is_empty() {
-        let lo = rows
-            .iter()
-            .map(|t| t.uplift_lo95)
-            .chain(rows.iter().map(|t| t.break_even).filter(|v| v.is_finite()))
-            .fold(0.0, f64::min);
-        let hi = rows
-            .iter()
-            .map(|t| t.uplift_hi95)
-            .chain(rows.iter().map(|t| t.break_even).filter(|v| v.is_finite()))
-            .fold(0.0, f64::max);
-        let (w, rh, left) = (520.0, 18.0, 150.0);
-        let h = rows.len() as f64 * rh + 50.0;
-        let x = |v: f64| left + (v - lo) / (hi - lo).max(1e-9) * w;
-        let _ = write!(s, "<figure><figcaption>Uplift over the check with 95 % intervals; the dashed line is zero, ticks mark each product's break-even</figcaption><svg class=\"forest\" role=\"img\" aria-label=\"forest plot of uplifts\" width=\"{:.0}\" height=\"{h:.0}\" viewBox=\"0 0 {:.0} {h:.0}\" xmlns=\"http://www.w3.org/2000/svg\">", left + w + 20.0, left + w + 20.0);
-        let _ = write!(
-            s,
-            "<line x1=\"{:.1}\" y1=\"4\" x2=\"{:.1}\" y2=\"{:.1}\" class=\"zero\"/>",
-            x(0.0),
-            x(0.0),
-            h - 34.0
-        );
-        for (k, t) in rows.iter().enumerate() {
-            let y = 12.0 + k as f64 * rh;
-            let c = if t.field == "all" {
-                "#0072B2"
-            } else {
-                "#555555"
-            };
-            let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"end\">{} / {}</text><line x1=\"{:.1}\" y1=\"{y:.1}\" x2=\"{:.1}\" y2=\"{y:.1}\" stroke=\"{c}\" stroke-width=\"2\"/><circle cx=\"{:.1}\" cy=\"{y:.1}\" r=\"3.5\" fill=\"{c}\"/>", left - 8.0, y + 4.0, esc(&t.field), esc(&t.treatment), x(t.uplift_lo95), x(t.uplift_hi95), x(t.uplift));
-            if t.break_even.is_finite() {
-                let _ = write!(s, "<line x1=\"{:.1}\" y1=\"{:.1}\" x2=\"{:.1}\" y2=\"{:.1}\" stroke=\"#D55E00\" stroke-width=\"2\"/>", x(t.break_even), y - 6.0, x(t.break_even), y + 6.0);
-            }
-        }
-        let step = nice_step((hi - lo) / 5.0);
-        let mut v = (lo / step).ceil() * step;
-        while v <= hi + 1e-12 {
-            let _ = write!(s, "<line x1=\"{:.1}\" y1=\"{:.1}\" x2=\"{:.1}\" y2=\"{:.1}\" class=\"tick\"/><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"middle\">{}</text>", x(v), h - 34.0, x(v), h - 30.0, x(v), h - 19.0, fmt(v, 2));
-            v += step;
-        }
-        let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"al\" text-anchor=\"middle\">uplift over the check ({u})</text></svg></figure>", left + w / 2.0, h - 4.0);
     }
     let _ = write!(s, "</section>");
     // Spatial model.

@@ -56,6 +56,7 @@ pub fn markdown(r: &ReportInput) -> String {
         }
         let _ = writeln!(s);
     }
+    decision_markdown(&mut s, r);
     let _ = writeln!(s, "## Points and plots per stage\n");
     let _ = writeln!(s, "| stage | counted | in | kept | rejected |");
     let _ = writeln!(s, "|---|---|---:|---:|---:|");
@@ -159,7 +160,11 @@ pub fn markdown(r: &ReportInput) -> String {
             );
         }
     }
-    let _ = writeln!(s, "\n## Products against the check ({})\n", r.check);
+    let _ = writeln!(
+        s,
+        "\n## Products against the check, per field ({})\n",
+        r.check
+    );
     let _ = writeln!(s, "Yields in {u} at standard moisture; uplift = treatment minus check; 95 % intervals. Field `all` is the effect shared by the fields in the joint model (the fields' own rows include the treatment x field interaction), or with `adjust.pooling = \"separate\"` the inverse-variance combination of the separate field fits.\n", u = r.unit_label);
     let _ = writeln!(s, "| field | treatment | plots | estimate | SD | uplift | uplift 95 % interval | prior (mean +- SD) | P(uplift > 0) |");
     let _ = writeln!(s, "|---|---|---:|---:|---:|---:|---|---|---:|");
@@ -239,6 +244,103 @@ pub fn markdown(r: &ReportInput) -> String {
         }
     }
     s
+}
+
+/// The decision table's rows: each product's pooled ("all") row.
+pub(crate) fn decision_rows(rows: &[TreatmentRow]) -> Vec<&TreatmentRow> {
+    rows.iter()
+        .filter(|t| t.field == "all" && t.uplift.is_finite())
+        .collect()
+}
+
+/// The decision table's columns: (heading, cell), each only when some product has a value.
+#[allow(clippy::type_complexity)]
+pub(crate) fn decision_columns(
+    rows: &[&TreatmentRow],
+    d: usize,
+    u: &str,
+) -> Vec<(String, Box<dyn Fn(&TreatmentRow) -> String>)> {
+    let mut cols: Vec<(String, Box<dyn Fn(&TreatmentRow) -> String>)> = vec![
+        (
+            format!("uplift ({u})"),
+            Box::new(move |t: &TreatmentRow| fmt(t.uplift, d)),
+        ),
+        (
+            "95 % interval".into(),
+            Box::new(move |t: &TreatmentRow| {
+                format!("{} to {}", fmt(t.uplift_lo95, d), fmt(t.uplift_hi95, d))
+            }),
+        ),
+        (
+            "P(uplift > 0)".into(),
+            Box::new(|t: &TreatmentRow| format!("{:.3}", t.p_uplift_gt0)),
+        ),
+    ];
+    let any = |f: fn(&TreatmentRow) -> f64| rows.iter().any(|t| f(t).is_finite());
+    let prob = |x: f64| {
+        if x.is_finite() {
+            format!("{x:.3}")
+        } else {
+            String::new()
+        }
+    };
+    if any(|t| t.p_uplift_gt_break_even) {
+        cols.push((
+            "P(uplift > break-even)".into(),
+            Box::new(move |t: &TreatmentRow| prob(t.p_uplift_gt_break_even)),
+        ));
+    }
+    if any(|t| t.p_new_field_gt0) {
+        cols.push((
+            "new field: P(uplift > 0)".into(),
+            Box::new(move |t: &TreatmentRow| prob(t.p_new_field_gt0)),
+        ));
+    }
+    if any(|t| t.p_new_field_gt_break_even) {
+        cols.push((
+            "new field: P(uplift > break-even)".into(),
+            Box::new(move |t: &TreatmentRow| prob(t.p_new_field_gt_break_even)),
+        ));
+    }
+    if any(|t| t.expected_net_return_per_ha) {
+        cols.push((
+            "expected net return per ha".into(),
+            Box::new(|t: &TreatmentRow| fmt(t.expected_net_return_per_ha, 0)),
+        ));
+    }
+    cols
+}
+
+/// What the decision table says, in plain words (both reports).
+pub(crate) const DECISION_WORDS: &str = "Each product against the check over the trial's fields (the pooled estimate). P(uplift > 0) is the probability that the product gains yield on average over fields like these; P(uplift > break-even) that the gain pays for the product at the given price and cost; the new-field columns give the same for a field that was not in the trial, which varies more. Quality control (counts, rules, maps, the spatial model) follows below.";
+
+fn decision_markdown(s: &mut String, r: &ReportInput) {
+    let rows = decision_rows(r.treatments);
+    let _ = writeln!(s, "## Decision: products against the check ({})\n", r.check);
+    if rows.is_empty() {
+        let _ = writeln!(s, "No product could be compared with the check.\n");
+        return;
+    }
+    let _ = writeln!(s, "{DECISION_WORDS}\n");
+    let cols = decision_columns(&rows, r.decimals, r.unit_label);
+    let _ = writeln!(
+        s,
+        "| product | {} |",
+        cols.iter()
+            .map(|c| c.0.as_str())
+            .collect::<Vec<_>>()
+            .join(" | ")
+    );
+    let _ = writeln!(s, "|---|{}", "---:|".repeat(cols.len()));
+    for t in rows {
+        let _ = writeln!(
+            s,
+            "| {} | {} |",
+            t.treatment,
+            cols.iter().map(|c| c.1(t)).collect::<Vec<_>>().join(" | ")
+        );
+    }
+    let _ = writeln!(s);
 }
 
 /// What the new-field rows mean, in plain words (both reports).
