@@ -103,6 +103,8 @@ impl Utm {
 /// through `proj4rs`. Checked against pyproj in four CRSs (`tests/fixtures/crs_pyproj.csv`).
 pub struct Crs {
     code: u16,
+    /// `EPSG:n`, or the proj string of a CRS read from WKT.
+    label: String,
     proj: Proj,
     wgs84: Proj,
     geographic: bool,
@@ -110,8 +112,24 @@ pub struct Crs {
 
 impl Crs {
     /// `EPSG:32614`, `epsg:32614`, `32614` or `urn:ogc:def:crs:EPSG::32614`.
+    /// A proj string (`+proj=...`, as [`crate::ingest::wkt`] makes from a `.prj`) is taken
+    /// as it is, with code 0.
     pub fn parse(text: &str) -> Result<Crs, String> {
         let t = text.trim();
+        let wgs84 = || {
+            Proj::from_proj_string("+proj=longlat +datum=WGS84 +no_defs")
+                .expect("static WGS84 definition parses")
+        };
+        if t.starts_with("+proj=") {
+            let proj = Proj::from_proj_string(t).map_err(|e| format!("{t:?}: {e}"))?;
+            return Ok(Crs {
+                code: 0,
+                label: t.to_string(),
+                geographic: proj.is_latlong(),
+                proj,
+                wgs84: wgs84(),
+            });
+        }
         let code = t
             .rsplit(':')
             .next()
@@ -130,15 +148,20 @@ impl Crs {
         let geographic = proj.is_latlong();
         Ok(Crs {
             code,
+            label: format!("EPSG:{code}"),
             proj,
-            wgs84: Proj::from_proj_string("+proj=longlat +datum=WGS84 +no_defs")
-                .expect("static WGS84 definition parses"),
+            wgs84: wgs84(),
             geographic,
         })
     }
 
     pub fn code(&self) -> u16 {
         self.code
+    }
+
+    /// `EPSG:n`, or the proj string.
+    pub fn label(&self) -> &str {
+        &self.label
     }
 
     /// (x, y) in this CRS (degrees for a geographic one) to WGS84 (lon, lat) in degrees.
@@ -152,7 +175,7 @@ impl Crs {
             ProjectionError::Transform {
                 lon: x,
                 lat: y,
-                message: format!("from EPSG:{}: {e}", self.code),
+                message: format!("from {}: {e}", self.label),
             }
         })?;
         let (lon, lat) = (p.0.to_degrees(), p.1.to_degrees());
@@ -160,7 +183,7 @@ impl Crs {
             return Err(ProjectionError::Transform {
                 lon: x,
                 lat: y,
-                message: format!("from EPSG:{}: no position", self.code),
+                message: format!("from {}: no position", self.label),
             });
         }
         Ok((lon, lat))

@@ -105,6 +105,36 @@ fn a_plot_table_as_a_polygon_layer_reads_as_the_csv() {
         // The trial file and the layer; a Shapefile with its .shx, .dbf and .prj.
         assert_eq!(n, if file.ends_with(".shp") { 5 } else { 2 }, "{file}");
     }
+    // The same Shapefile with a .prj of NAD83 / UTM zone 14N (ESRI WKT from pyproj 3.7.2):
+    // read from its WKT (transverse Mercator on GRS 1980, NAD83 taken as WGS 84), the same
+    // centroids within a millimetre.
+    copy_dir(&w.path("t/shp"), &w.path("t/nad83"));
+    std::fs::write(
+        w.path("t/nad83/plot_table.prj"),
+        r#"PROJCS["NAD_1983_UTM_Zone_14N",GEOGCS["GCS_North_American_1983",DATUM["D_North_American_1983",SPHEROID["GRS_1980",6378137.0,298.257222101]],PRIMEM["Greenwich",0.0],UNIT["Degree",0.0174532925199433]],PROJECTION["Transverse_Mercator"],PARAMETER["False_Easting",500000.0],PARAMETER["False_Northing",0.0],PARAMETER["Central_Meridian",-99.0],PARAMETER["Scale_Factor",0.9996],PARAMETER["Latitude_Of_Origin",0.0],UNIT["Meter",1.0]]"#,
+    )
+    .unwrap();
+    let t = trial(&w, "nad83/plot_table.shp", "");
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    ok(&o);
+    assert!(String::from_utf8_lossy(&o.stdout)
+        .contains("from +proj=tmerc +lat_0=0 +lon_0=-99 +k_0=0.9996"));
+    ok(&plotsieve(
+        &w.0,
+        &["run", t.to_str().unwrap(), "--out", "nad83", "--quiet"],
+    ));
+    let got = table(&w.path("nad83"));
+    for (id, b) in &base {
+        let g = &got[id];
+        assert!(
+            (g.3 - b.3).abs() < 1e-3 && (g.4 - b.4).abs() < 1e-3,
+            "plot {id} at ({}, {}), shapely ({}, {})",
+            g.3,
+            g.4,
+            b.3,
+            b.4
+        );
+    }
 }
 
 #[test]

@@ -59,7 +59,7 @@ pub fn read_plot_input(
         for ring in std::iter::once(&mut p.exterior).chain(p.holes.iter_mut()) {
             for v in ring.iter_mut() {
                 *v = c.to_wgs84(v.0, v.1).map_err(|e| {
-                    unusable(format!("plot {id}: {e} (coordinates in EPSG:{})", c.code()))
+                    unusable(format!("plot {id}: {e} (coordinates in {})", c.label()))
                 })?;
             }
         }

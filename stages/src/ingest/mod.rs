@@ -26,6 +26,7 @@ mod robustness;
 pub mod settings;
 pub mod shapefile_plots;
 pub mod time;
+pub mod wkt;
 
 pub use design::{read_design, reconcile};
 pub use geojson::read_geojson;

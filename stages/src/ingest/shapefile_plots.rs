@@ -22,6 +22,14 @@ pub(crate) fn open(
 /// The EPSG code a `.prj` names, for the CRSs farm data travels in without `inputs.crs`:
 /// WGS84 geographic ("") and WGS84 / UTM zones.
 pub(crate) fn crs_of_prj(wkt: &str) -> Result<String, String> {
+    crs_of_wgs84_prj(wkt).or_else(|e| {
+        // Another projected CRS: its WKT read to a proj string.
+        super::wkt::proj_string(wkt).map_err(|why| format!("{e} ({why})"))
+    })
+}
+
+/// WGS84 geographic ("") and WGS84 / UTM zones, by name.
+fn crs_of_wgs84_prj(wkt: &str) -> Result<String, String> {
     let w = wkt.to_ascii_uppercase().replace(' ', "_");
     if !w.contains("WGS_1984") && !w.contains("WGS_84") {
         return Err(format!(

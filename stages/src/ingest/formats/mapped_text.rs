@@ -421,7 +421,7 @@ pub(super) fn read_records<R: std::io::Read>(
                         "coordinate_range",
                         &c.longitude,
                         &format!("{lon}, {lat}"),
-                        &format!("a position in EPSG:{} (inputs.crs)", k.code()),
+                        &format!("a position in {} (inputs.crs)", k.label()),
                     ));
                     continue;
                 }
