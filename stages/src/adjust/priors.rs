@@ -14,6 +14,9 @@ use super::output::{FieldHyper, TreatmentRow};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
+/// Product priors (mean, SD) in kg/ha, by product.
+pub type Priors = BTreeMap<String, (f64, f64)>;
+
 /// The file's format tag.
 pub const FORMAT: &str = "plotsieve-priors-1";
 
@@ -137,7 +140,7 @@ impl PriorsFile {
         widen: f64,
         which: PriorSd,
         own: &BTreeMap<String, (f64, f64)>,
-    ) -> Result<(BTreeMap<String, (f64, f64)>, String), String> {
+    ) -> Result<(Priors, String), String> {
         if !self.crop.eq_ignore_ascii_case(crop) {
             return Err(format!(
                 "{name} (adjust.priors_from) is from a {} trial; this trial's crop is {crop}",
