@@ -100,9 +100,10 @@ enum Command {
         /// SD of each record's own yield noise before grain mixing, kg/ha.
         #[arg(long, default_value_t = 400.0)]
         point_noise: f64,
-        /// Layout of the monitor exports: text (comma-delimited, speed column) or
+        /// Layout of the monitor exports: text (comma-delimited, speed column),
         /// distance_text (semicolons, decimal commas, date and time columns, distance per
-        /// record and interval instead of speed).
+        /// record and interval instead of speed), yield_points (yields already computed) or
+        /// geopackage (the text form's records as a GeoPackage point layer).
         #[arg(long, default_value = "text")]
         form: String,
         /// Seconds between logged records (1-5).

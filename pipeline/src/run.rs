@@ -592,7 +592,23 @@ pub fn simulate(dir: &Path, o: &simulate::SimOptions) -> Result<()> {
     }
     let sim = simulate::generate(o);
     for (rel, text) in &sim.files {
-        io::write_atomic(&dir.join(rel), text.as_bytes())?;
+        let path = dir.join(rel);
+        if rel.ends_with(".gpkg") {
+            // A GeoPackage is written whole into a temporary file, then renamed.
+            let parent = path.parent().unwrap_or(dir);
+            std::fs::create_dir_all(parent)?;
+            let tmp = parent.join(format!(
+                ".{}.{}.tmp",
+                rel.replace('/', "_"),
+                std::process::id()
+            ));
+            let _ = std::fs::remove_file(&tmp);
+            ingest::geopackage::write_points(&tmp, text)
+                .map_err(|e| anyhow::anyhow!("writing {}: {e}", path.display()))?;
+            std::fs::rename(&tmp, &path)?;
+        } else {
+            io::write_atomic(&path, text.as_bytes())?;
+        }
     }
     println!(
         "wrote {} files ({} monitor points) to {}",

@@ -48,6 +48,27 @@ fn run(w: &Workdir, trial: &std::path::Path, out: &str) {
     ));
 }
 
+/// Runs two trials into `ra` and `rb`; the same plots kept or set aside in both. Returns
+/// the sorted relative differences of the plot yields kept in both.
+fn same_plots(
+    w: &Workdir,
+    a: &std::path::Path,
+    b: &std::path::Path,
+    ra: &str,
+    rb: &str,
+) -> Vec<f64> {
+    run(w, a, ra);
+    run(w, b, rb);
+    let (pa, pb) = (plots(&w.path(ra)), plots(&w.path(rb)));
+    assert_eq!(
+        pa.values().map(|v| &v.0).collect::<Vec<_>>(),
+        pb.values().map(|v| &v.0).collect::<Vec<_>>()
+    );
+    let d = yield_differences(&pa, &pb);
+    assert!(d.len() >= 40, "{} plots kept in both", d.len());
+    d
+}
+
 #[test]
 fn distance_per_record_with_decimal_commas_and_date_columns_reads_as_the_text_form() {
     let w = Workdir::new("forms-distance");
@@ -73,15 +94,7 @@ fn distance_per_record_with_decimal_commas_and_date_columns_reads_as_the_text_fo
             && out.contains("speed = distance Distance_in (in) / interval Interval_s (s)"),
         "{out}"
     );
-    run(&w, &text, "r-text");
-    run(&w, &dist, "r-dist");
-    let (a, b) = (plots(&w.path("r-text")), plots(&w.path("r-dist")));
-    assert_eq!(
-        a.values().map(|v| &v.0).collect::<Vec<_>>(),
-        b.values().map(|v| &v.0).collect::<Vec<_>>()
-    );
-    let d = yield_differences(&a, &b);
-    assert!(d.len() >= 40, "{} plots kept in both", d.len());
+    let d = same_plots(&w, &text, &dist, "r-text", "r-dist");
     // The distance is written to 0.1 inch, so speeds agree to about 0.1 %.
     assert!(
         *d.last().unwrap() < 0.005,
@@ -95,6 +108,54 @@ fn distance_per_record_with_decimal_commas_and_date_columns_reads_as_the_text_fo
             .unwrap()
             .contains("speed = distance"),
         "{s}"
+    );
+}
+
+#[test]
+fn a_simulated_harvest_as_geopackage_points_reads_as_the_text_form() {
+    // `simulate --form geopackage`: the text form's records as GeoPackage point layers
+    // (written through SQLite); the same plots, yields and rejections.
+    let w = Workdir::new("forms-gpkg-sim");
+    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
+    let gpkg = simulate(
+        &w,
+        "gpkg",
+        &["--seed", "2", "--form", "geopackage", "--quiet"],
+    );
+    assert!(w.path("gpkg/monitor/field-A.gpkg").is_file());
+    assert!(!w.path("gpkg/monitor/field-A.csv").exists());
+    let o = plotsieve(&w.0, &["check", gpkg.to_str().unwrap()]);
+    ok(&o);
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("read: monitor/field-A.gpkg: geopackage_points: point geometry"),
+        "{out}"
+    );
+    let d = same_plots(&w, &text, &gpkg, "r-text", "r-gpkg");
+    assert!(
+        *d.last().unwrap() < 1e-9,
+        "largest difference {:?}",
+        d.last()
+    );
+    let (ra, rb) = (
+        csv_rows(&w.path("r-text/2-clean/rejected.csv")),
+        csv_rows(&w.path("r-gpkg/2-clean/rejected.csv")),
+    );
+    assert_eq!(ra.len(), rb.len());
+    assert!(ra
+        .iter()
+        .zip(&rb)
+        .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
+    // The simulator writes the same bytes again.
+    let again = simulate(
+        &w,
+        "gpkg2",
+        &["--seed", "2", "--form", "geopackage", "--quiet"],
+    );
+    assert!(again.exists());
+    assert_eq!(
+        sha(&w.path("gpkg/monitor/field-B.gpkg")),
+        sha(&w.path("gpkg2/monitor/field-B.gpkg"))
     );
 }
 

@@ -59,12 +59,27 @@ pub fn read(path: &Path, layer: &str) -> Result<Layer, String> {
         .position(|n| n.eq_ignore_ascii_case(&geom_col))
         .map(|i| i + 1)
         .ok_or_else(|| format!("layer {table}: its geometry column {geom_col:?} is missing"))?;
-    let fields: Vec<String> = names
-        .iter()
-        .enumerate()
-        .skip(1)
-        .filter(|(i, _)| *i != geom_at)
-        .map(|(_, n)| n.clone())
+    // The integer primary key (the feature id, `fid` as GDAL names it) is not an attribute.
+    let pk: Option<String> = db
+        .prepare(&format!("PRAGMA table_info({quoted})"))
+        .and_then(|mut st| {
+            st.query_map([], |r| {
+                Ok((
+                    r.get::<_, String>(1)?,
+                    r.get::<_, String>(2)?,
+                    r.get::<_, i64>(5)?,
+                ))
+            })?
+            .collect::<Result<Vec<_>, _>>()
+        })
+        .map_err(sql)?
+        .into_iter()
+        .find(|(_, kind, pk)| *pk == 1 && kind.eq_ignore_ascii_case("INTEGER"))
+        .map(|(n, _, _)| n);
+    let skip = |i: usize| i == 0 || i == geom_at || pk.as_deref() == Some(names[i].as_str());
+    let fields: Vec<String> = (0..names.len())
+        .filter(|&i| !skip(i))
+        .map(|i| names[i].clone())
         .collect();
     let mut rows = stmt.query([]).map_err(sql)?;
     let mut features = Vec::new();
@@ -74,6 +89,9 @@ pub fn read(path: &Path, layer: &str) -> Result<Layer, String> {
         let mut geometry = Ok(Geometry::Empty);
         for i in 1..names.len() {
             let v = row.get_ref(i).map_err(sql)?;
+            if i != geom_at && skip(i) {
+                continue;
+            }
             if i == geom_at {
                 geometry = match v {
                     ValueRef::Null => Ok(Geometry::Empty),
@@ -262,6 +280,98 @@ impl Wkb<'_> {
     }
 }
 
+/// Write a table of points (a CSV text with `lon_deg` and `lat_deg` columns, the rest
+/// attributes: `time_utc` as text, every other column as a number) as a GeoPackage point
+/// layer `points` in WGS84 lon/lat, for the simulator. The file is new (an existing one is
+/// an error) and its bytes depend only on the table (a fixed `last_change`).
+pub fn write_points(path: &Path, csv_text: &str) -> Result<(), String> {
+    let mut rdr = csv::Reader::from_reader(csv_text.as_bytes());
+    let header: Vec<String> = rdr
+        .headers()
+        .map_err(|e| e.to_string())?
+        .iter()
+        .map(String::from)
+        .collect();
+    let at = |n: &str| header.iter().position(|h| h == n);
+    let (ilon, ilat) = at("lon_deg")
+        .zip(at("lat_deg"))
+        .ok_or("a point table needs lon_deg and lat_deg")?;
+    let attrs: Vec<usize> = (0..header.len())
+        .filter(|&i| i != ilon && i != ilat)
+        .collect();
+    if path.exists() {
+        return Err(format!("{} exists", path.display()));
+    }
+    let db = Connection::open(path).map_err(|e| e.to_string())?;
+    let q = |s: &str| format!("\"{}\"", s.replace('"', "\"\""));
+    let columns: Vec<String> = attrs
+        .iter()
+        .map(|&i| {
+            let kind = if header[i] == "time_utc" {
+                "TEXT"
+            } else {
+                "REAL"
+            };
+            format!("{} {kind}", q(&header[i]))
+        })
+        .collect();
+    let wgs84 = "GEOGCS[\"WGS 84\",DATUM[\"WGS_1984\",SPHEROID[\"WGS 84\",6378137,298.257223563]],PRIMEM[\"Greenwich\",0],UNIT[\"degree\",0.0174532925199433]]";
+    let ddl = format!(
+        "PRAGMA application_id = 1196444487; PRAGMA user_version = 10400;
+         CREATE TABLE gpkg_spatial_ref_sys (srs_name TEXT NOT NULL, srs_id INTEGER PRIMARY KEY, organization TEXT NOT NULL, organization_coordsys_id INTEGER NOT NULL, definition TEXT NOT NULL, description TEXT);
+         INSERT INTO gpkg_spatial_ref_sys VALUES ('WGS 84', 4326, 'EPSG', 4326, '{wgs84}', NULL), ('Undefined cartesian SRS', -1, 'NONE', -1, 'undefined', NULL), ('Undefined geographic SRS', 0, 'NONE', 0, 'undefined', NULL);
+         CREATE TABLE gpkg_contents (table_name TEXT NOT NULL PRIMARY KEY, data_type TEXT NOT NULL, identifier TEXT UNIQUE, description TEXT DEFAULT '', last_change DATETIME NOT NULL, min_x DOUBLE, min_y DOUBLE, max_x DOUBLE, max_y DOUBLE, srs_id INTEGER);
+         INSERT INTO gpkg_contents VALUES ('points', 'features', 'points', '', '2026-01-01T00:00:00.000Z', NULL, NULL, NULL, NULL, 4326);
+         CREATE TABLE gpkg_geometry_columns (table_name TEXT NOT NULL, column_name TEXT NOT NULL, geometry_type_name TEXT NOT NULL, srs_id INTEGER NOT NULL, z TINYINT NOT NULL, m TINYINT NOT NULL, PRIMARY KEY (table_name, column_name));
+         INSERT INTO gpkg_geometry_columns VALUES ('points', 'geom', 'POINT', 4326, 0, 0);
+         CREATE TABLE points (fid INTEGER PRIMARY KEY AUTOINCREMENT, geom BLOB, {});",
+        columns.join(", ")
+    );
+    db.execute_batch(&ddl).map_err(|e| e.to_string())?;
+    let insert = format!(
+        "INSERT INTO points (geom, {}) VALUES (?1{})",
+        attrs
+            .iter()
+            .map(|&i| q(&header[i]))
+            .collect::<Vec<_>>()
+            .join(", "),
+        (0..attrs.len())
+            .map(|k| format!(", ?{}", k + 2))
+            .collect::<String>()
+    );
+    let tx = db.unchecked_transaction().map_err(|e| e.to_string())?;
+    {
+        let mut stmt = tx.prepare(&insert).map_err(|e| e.to_string())?;
+        for (k, rec) in rdr.records().enumerate() {
+            let rec = rec.map_err(|e| format!("row {}: {e}", k + 2))?;
+            let num = |i: usize| -> Result<f64, String> {
+                rec.get(i)
+                    .unwrap_or("")
+                    .parse::<f64>()
+                    .map_err(|_| format!("row {}, column {}: not a number", k + 2, header[i]))
+            };
+            // GeoPackage header (little-endian, no envelope, SRS 4326), then WKB Point.
+            let mut blob = vec![b'G', b'P', 0, 1];
+            blob.extend(4326i32.to_le_bytes());
+            blob.push(1);
+            blob.extend(1u32.to_le_bytes());
+            blob.extend(num(ilon)?.to_le_bytes());
+            blob.extend(num(ilat)?.to_le_bytes());
+            let mut values: Vec<rusqlite::types::Value> = vec![blob.into()];
+            for &i in &attrs {
+                values.push(if header[i] == "time_utc" {
+                    rec.get(i).unwrap_or("").to_string().into()
+                } else {
+                    num(i)?.into()
+                });
+            }
+            stmt.execute(rusqlite::params_from_iter(values))
+                .map_err(|e| e.to_string())?;
+        }
+    }
+    tx.commit().map_err(|e| e.to_string())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -279,6 +389,36 @@ mod tests {
         }
         b.extend(wkb);
         b
+    }
+
+    #[test]
+    fn points_written_read_back_with_their_attributes() {
+        let dir = std::env::temp_dir().join(format!("plotsieve-gpkg-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let p = dir.join("pts.gpkg");
+        let _ = std::fs::remove_file(&p);
+        let text = "time_utc,lon_deg,lat_deg,mass_flow_lb_s,header_state\n\
+                    2026-09-18T09:00:00Z,-97.79994765,40.59998948,0.1234,1\n\
+                    2026-09-18T09:00:01Z,-97.79994,40.59999,7.5,0\n";
+        write_points(&p, text).unwrap();
+        assert!(write_points(&p, text).unwrap_err().contains("exists"));
+        let l = read(&p, "").unwrap();
+        assert_eq!(l.fields, vec!["time_utc", "mass_flow_lb_s", "header_state"]);
+        assert_eq!(l.crs, Ok(None));
+        assert_eq!(l.features.len(), 2);
+        assert_eq!(
+            l.features[0].values,
+            vec!["2026-09-18T09:00:00Z", "0.1234", "1"]
+        );
+        assert_eq!(
+            l.features[0].geometry,
+            Ok(Geometry::Point(-97.79994765, 40.59998948))
+        );
+        let bytes = std::fs::read(&p).unwrap();
+        std::fs::remove_file(&p).unwrap();
+        write_points(&p, text).unwrap();
+        assert_eq!(std::fs::read(&p).unwrap(), bytes, "the same bytes again");
+        std::fs::remove_file(&p).unwrap();
     }
 
     #[test]

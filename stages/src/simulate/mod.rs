@@ -74,6 +74,9 @@ crate::choice! {
         /// yield (t/ha at standard moisture, delay-corrected), the standard moisture filled
         /// in, heading and header state; no flow, speed or swath.
         YieldPoints = "yield_points",
+        /// The text form's records as a GeoPackage point layer (WGS84 lon/lat geometry,
+        /// the other columns as attributes of the same names).
+        GeoPackage = "geopackage",
     }
 }
 
@@ -109,7 +112,9 @@ pub const TREATMENTS: &[(&str, f64)] = &[
 
 /// A simulated trial, as file contents.
 pub struct SimTrial {
-    /// (relative path, contents) of every file, including `trial.toml` and `truth.json`.
+    /// (relative path, contents) of every file, including `trial.toml` and `truth.json`. A
+    /// `.gpkg` file's contents are the CSV of its points (the text form), to be written as a
+    /// GeoPackage point layer by [`crate::ingest::geopackage::write_points`].
     pub files: Vec<(String, String)>,
     pub points: usize,
 }
@@ -447,11 +452,18 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         };
         let moist_series: Vec<f64> = rows.iter().map(|r| r.moisture).collect();
         let mut csv = String::from(match o.form {
-            SimForm::Text => "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
+            SimForm::Text | SimForm::GeoPackage => "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
             SimForm::DistanceText => "Date;Time;Longitude;Latitude;Flow_lb_s;Distance_in;Interval_s;Swath_ft;Moisture_pct;Heading_deg;Header;HDOP\n",
             SimForm::YieldPoints => "time_utc,lon_deg,lat_deg,dry_yield_t_ha,moisture_pct,heading_deg,header_state\n",
         });
-        let file_name = format!("monitor/field-{fname}.csv");
+        let file_name = format!(
+            "monitor/field-{fname}.{}",
+            if o.form == SimForm::GeoPackage {
+                "gpkg"
+            } else {
+                "csv"
+            }
+        );
         let mut labels_out: BTreeMap<&str, Vec<u64>> = BTreeMap::new();
         let mut flows_out = Vec::with_capacity(n);
         let mut moist_out = Vec::with_capacity(n);
@@ -517,7 +529,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             let flow = flows_out[from..=i].iter().map(|f| f.max(0.0)).sum::<f64>() / span;
             let distance: f64 = rows[from..=i].iter().map(|r| r.speed).sum();
             match o.form {
-                SimForm::Text => {
+                SimForm::Text | SimForm::GeoPackage => {
                     let _ = writeln!(
                         csv,
                         "{},{:.8},{:.8},{:.4},{:.3},{:.2},{:.2},{:.1},{},{:.2}",

@@ -49,7 +49,7 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
         how += &format!(" --interval-s {}", o.interval_s);
     }
     let columns = match o.form {
-        SimForm::Text => TEXT_COLUMNS,
+        SimForm::Text | SimForm::GeoPackage => TEXT_COLUMNS,
         SimForm::DistanceText => DISTANCE_COLUMNS,
         SimForm::YieldPoints => YIELD_COLUMNS,
     };
