@@ -123,21 +123,25 @@ pub fn read(path: &Path, layer: &str) -> Result<Layer, String> {
     })
 }
 
-/// The CRS of a spatial reference id: `None` for WGS84 lon/lat (EPSG:4326), else `EPSG:n`.
+/// The CRS of a spatial reference id: `None` for WGS84 lon/lat (EPSG:4326), else `EPSG:n`,
+/// or for a reference without an EPSG code the proj string its WKT definition reads to
+/// ([`super::wkt`]).
 fn crs_of_srs(db: &Connection, srs_id: i64) -> Result<Option<String>, String> {
-    let (org, code): (String, i64) = db
+    let (org, code, definition): (String, i64, String) = db
         .query_row(
-            "SELECT organization, organization_coordsys_id FROM gpkg_spatial_ref_sys WHERE srs_id = ?1",
+            "SELECT organization, organization_coordsys_id, definition FROM gpkg_spatial_ref_sys WHERE srs_id = ?1",
             [srs_id],
-            |r| Ok((r.get(0)?, r.get(1)?)),
+            |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)),
         )
         .map_err(|e| format!("spatial reference {srs_id} not in gpkg_spatial_ref_sys ({e})"))?;
-    if !org.eq_ignore_ascii_case("EPSG") || code <= 0 {
-        return Err(format!(
-            "its spatial reference is {org} {code}, not an EPSG code; give the CRS as inputs.crs = \"EPSG:...\""
-        ));
+    if org.eq_ignore_ascii_case("EPSG") && code > 0 {
+        return Ok((code != 4326).then(|| format!("EPSG:{code}")));
     }
-    Ok((code != 4326).then(|| format!("EPSG:{code}")))
+    super::wkt::proj_string(&definition).map(Some).map_err(|why| {
+        format!(
+            "its spatial reference is {org} {code}, not an EPSG code, and its definition cannot be read ({why}); give the CRS as inputs.crs = \"EPSG:...\""
+        )
+    })
 }
 
 /// A GeoPackage geometry blob: "GP", version, flags, srs id, envelope, then WKB.
@@ -418,6 +422,26 @@ mod tests {
         std::fs::remove_file(&p).unwrap();
         write_points(&p, text).unwrap();
         assert_eq!(std::fs::read(&p).unwrap(), bytes, "the same bytes again");
+        // A spatial reference without an EPSG code is read from its WKT definition (NAD83 /
+        // UTM 14N in ESRI WKT, as pyproj writes it); an unreadable one asks for inputs.crs.
+        let db = Connection::open(&p).unwrap();
+        db.execute_batch(r#"INSERT INTO gpkg_spatial_ref_sys VALUES ('local', 100001, 'NONE', 100001, 'PROJCS["NAD_1983_UTM_Zone_14N",GEOGCS["GCS_North_American_1983",DATUM["D_North_American_1983",SPHEROID["GRS_1980",6378137.0,298.257222101]],PRIMEM["Greenwich",0.0],UNIT["Degree",0.0174532925199433]],PROJECTION["Transverse_Mercator"],PARAMETER["False_Easting",500000.0],PARAMETER["False_Northing",0.0],PARAMETER["Central_Meridian",-99.0],PARAMETER["Scale_Factor",0.9996],PARAMETER["Latitude_Of_Origin",0.0],UNIT["Meter",1.0]]', NULL);
+            UPDATE gpkg_geometry_columns SET srs_id = 100001;"#)
+            .unwrap();
+        let crs = read(&p, "").unwrap().crs.unwrap().unwrap();
+        assert!(
+            crs.starts_with("+proj=tmerc +lat_0=0 +lon_0=-99 +k_0=0.9996 +x_0=500000"),
+            "{crs}"
+        );
+        db.execute_batch(
+            "UPDATE gpkg_spatial_ref_sys SET definition = 'undefined' WHERE srs_id = 100001;",
+        )
+        .unwrap();
+        drop(db);
+        assert!(read(&p, "")
+            .err()
+            .unwrap()
+            .contains("not an EPSG code, and its definition cannot be read"));
         std::fs::remove_file(&p).unwrap();
     }
 
