@@ -181,39 +181,44 @@ fn layer_source(cfg: &TrialConfig, path: &Path, name: &str) -> Result<Source, In
         })
         .collect();
     let (lons, lats): (Vec<f64>, Vec<f64>) = lonlat.iter().flatten().map(|(ext, _)| ext[0]).unzip();
-    let mut positions = Vec::with_capacity(lonlat.len());
-    let mut how = String::from("no polygon");
-    if !lons.is_empty() {
-        let utm = super::choose_projection(cfg, &lons, &lats)?;
-        let proj = |r: &layers::Ring| -> Result<LineString<f64>, String> {
-            r.iter()
-                .map(|&(lon, lat)| utm.forward(lon, lat).map_err(|e| e.to_string()))
-                .collect::<Result<Vec<_>, _>>()
-                .map(LineString::from)
-        };
-        for p in &lonlat {
-            positions.push(p.clone().and_then(|(ext, holes)| {
-                let poly = Polygon::new(
-                    proj(&ext)?,
-                    holes.iter().map(proj).collect::<Result<_, _>>()?,
-                );
-                poly.centroid()
-                    .map(|c| (c.x(), c.y()))
-                    .ok_or_else(|| "a polygon without area".to_string())
-            }));
-        }
-        how = format!(
-            "polygon centroids in UTM (EPSG:{}), from {}",
-            utm.epsg(),
-            if named.is_empty() {
-                "WGS84 lon/lat".to_string()
-            } else {
-                named.clone()
-            }
-        );
+    // Every feature with a polygon has a position in lon/lat, so a projection exists for it.
+    let utm = if lons.is_empty() {
+        None
     } else {
-        positions.extend(lonlat.into_iter().map(|p| p.map(|_| (0.0, 0.0))));
-    }
+        Some(super::choose_projection(cfg, &lons, &lats)?)
+    };
+    let how = match &utm {
+        None => "no polygon".to_string(),
+        Some(u) => format!(
+            "polygon centroids in UTM (EPSG:{}), from {}",
+            u.epsg(),
+            if named.is_empty() {
+                "WGS84 lon/lat"
+            } else {
+                named.as_str()
+            }
+        ),
+    };
+    let positions: Positions = lonlat
+        .into_iter()
+        .map(|p| {
+            let (ext, holes) = p?;
+            let utm = utm.as_ref().expect("a polygon gives a projection");
+            let proj = |r: &layers::Ring| -> Result<LineString<f64>, String> {
+                r.iter()
+                    .map(|&(lon, lat)| utm.forward(lon, lat).map_err(|e| e.to_string()))
+                    .collect::<Result<Vec<_>, _>>()
+                    .map(LineString::from)
+            };
+            Polygon::new(
+                proj(&ext)?,
+                holes.iter().map(proj).collect::<Result<_, _>>()?,
+            )
+            .centroid()
+            .map(|c| (c.x(), c.y()))
+            .ok_or_else(|| "a polygon without area".to_string())
+        })
+        .collect();
     Ok(Source {
         header: layer.fields.clone(),
         rows: layer

@@ -50,9 +50,7 @@ impl Node {
 
 fn parse(s: &str) -> Result<Node, String> {
     let b: Vec<char> = s.chars().collect();
-    let mut at = 0;
-    let n = node(&b, &mut at)?;
-    Ok(n)
+    node(&b, &mut 0)
 }
 
 fn skip_ws(b: &[char], at: &mut usize) {
