@@ -27,28 +27,65 @@ use std::path::{Path, PathBuf};
 /// Records an export needs inside a trial's extent to be taken for it.
 const MIN_POINTS: usize = 10;
 
+/// A season file: `[season]` and the trials (`[[trial]]`); read by intake and by the
+/// season fit.
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-struct Season {
+pub(crate) struct Season {
     #[serde(default)]
-    season: SeasonMeta,
-    trial: Vec<SeasonTrial>,
+    pub(crate) season: SeasonMeta,
+    pub(crate) trial: Vec<SeasonTrial>,
 }
 
+/// `[season]`: its name, and what `plotsieve season` needs beyond the trials.
 #[derive(Debug, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
-struct SeasonMeta {
+pub(crate) struct SeasonMeta {
     #[serde(default)]
-    name: String,
+    pub(crate) name: String,
+    /// The season fit's folder, relative to the season file [default: season-run].
+    #[serde(default)]
+    pub(crate) out: Option<PathBuf>,
+    /// Output unit [default: the first trial's].
+    #[serde(default)]
+    pub(crate) output_unit: Option<plotsieve_stages::crop::OutputUnit>,
+    /// Grain price per tonne at standard moisture (0 = no economics).
+    #[serde(default)]
+    pub(crate) grain_price_per_t: f64,
+    /// Product cost per hectare, by product.
+    #[serde(default)]
+    pub(crate) product_cost_per_ha: BTreeMap<String, f64>,
+    /// P(product x field SD > this) = 0.05, in the output unit; 0 = the mean SD of the
+    /// fields' plot yields (as in a trial's joint fit).
+    #[serde(default)]
+    pub(crate) interaction_sd_u: f64,
 }
 
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-struct SeasonTrial {
+pub(crate) struct SeasonTrial {
     /// Trial file, relative to the season file.
-    file: PathBuf,
+    pub(crate) file: PathBuf,
     /// Run folder, relative to the season file.
-    out: PathBuf,
+    pub(crate) out: PathBuf,
+}
+
+/// Read a season file; returns it and the folder its paths are relative to.
+pub(crate) fn read_season(season_file: &Path) -> Result<(Season, PathBuf)> {
+    let text = std::fs::read_to_string(season_file)
+        .with_context(|| format!("reading season file {}", season_file.display()))?;
+    let season: Season = toml::from_str(&text)
+        .with_context(|| format!("{}: not a season file", season_file.display()))?;
+    let dir = season_file
+        .parent()
+        .map(Path::to_path_buf)
+        .unwrap_or_default();
+    let dir = if dir.as_os_str().is_empty() {
+        PathBuf::from(".")
+    } else {
+        dir
+    };
+    Ok((season, dir))
 }
 
 /// One export in `intake-manifest.json`.
@@ -174,19 +211,7 @@ fn match_export(bytes: &[u8], trials: &[TrialInfo]) -> Result<Vec<usize>, String
 
 /// `plotsieve intake INBOX SEASON.toml`.
 pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
-    let text = std::fs::read_to_string(season_file)
-        .with_context(|| format!("reading season file {}", season_file.display()))?;
-    let season: Season = toml::from_str(&text)
-        .with_context(|| format!("{}: not a season file", season_file.display()))?;
-    let season_dir = season_file
-        .parent()
-        .map(Path::to_path_buf)
-        .unwrap_or_default();
-    let season_dir = if season_dir.as_os_str().is_empty() {
-        PathBuf::from(".")
-    } else {
-        season_dir
-    };
+    let (season, season_dir) = read_season(season_file)?;
     let trials: Vec<TrialInfo> = season
         .trial
         .iter()

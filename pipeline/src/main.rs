@@ -9,6 +9,7 @@ mod glue;
 mod intake;
 mod io;
 mod run;
+mod season;
 mod stage;
 
 use clap::{Parser, Subcommand};
@@ -118,6 +119,13 @@ enum Command {
         /// Season file listing the trials ([[trial]] file = ..., out = ...).
         season: PathBuf,
     },
+    /// Fit the products across every trial of a season (two-stage: each trial's adjusted
+    /// contrasts, then products x fields) and write the season's tables and report.
+    Season {
+        /// Season file listing the trials ([[trial]] file = ..., out = ...); each trial must
+        /// have been run into its `out` folder.
+        season: PathBuf,
+    },
 }
 
 fn main() -> ExitCode {
@@ -139,6 +147,7 @@ fn main() -> ExitCode {
         } => run::run_one(name, &trial, out, &set, cli.quiet),
         Command::Check { trial, set } => run::check(&trial, &set),
         Command::Intake { inbox, season } => intake::intake(&inbox, &season, cli.quiet),
+        Command::Season { season } => season::season(&season, cli.quiet),
         Command::Simulate {
             dir,
             seed,

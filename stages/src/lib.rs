@@ -14,6 +14,7 @@ pub mod plots;
 pub mod progress;
 pub mod projection;
 pub mod report;
+pub mod season;
 pub mod simulate;
 pub mod table;
 pub mod util;

@@ -17,5 +17,6 @@ mod plot_layers;
 mod priors;
 mod report;
 mod run_folder;
+mod season;
 mod settings;
 mod warnings;

@@ -96,6 +96,42 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             &o.hyper,
         ),
     )?;
+    // Stage one of a season fit: each field's contrasts, with the field's centre in WGS 84
+    // where the run knows its projection.
+    let utm = c
+        .epsg()
+        .ok()
+        .and_then(|e| plotsieve_stages::projection::Utm::from_epsg(e).ok());
+    let mut fields = o.stage_one.clone();
+    for f in &mut fields {
+        let xy: Vec<(f64, f64)> = plots
+            .iter()
+            .filter(|p| p.field == f.field && p.status == "kept")
+            .map(|p| (p.centroid_x_m, p.centroid_y_m))
+            .filter(|p| p.0.is_finite() && p.1.is_finite())
+            .collect();
+        if let (Some(u), false) = (&utm, xy.is_empty()) {
+            let n = xy.len() as f64;
+            let (x, y) = xy
+                .iter()
+                .fold((0.0, 0.0), |a, p| (a.0 + p.0 / n, a.1 + p.1 / n));
+            if let Ok((lon, lat)) = u.inverse(x, y) {
+                // A metre is about 1e-5 degrees: six decimals keep the file's bytes stable.
+                f.lon = Some((lon * 1e6).round() / 1e6);
+                f.lat = Some((lat * 1e6).round() / 1e6);
+            }
+        }
+    }
+    io::write_json(
+        &dir.join("contrasts.json"),
+        &plotsieve_stages::season::ContrastsFile {
+            format: plotsieve_stages::season::CONTRASTS_FORMAT.into(),
+            trial: cfg.trial.name.clone(),
+            crop: cfg.trial.crop.clone(),
+            check: cfg.trial.check.clone(),
+            fields,
+        },
+    )?;
     // Kept plots of fields that could not be fitted are this stage's rejections.
     let fitted: std::collections::BTreeSet<&str> =
         o.hyper.iter().map(|h| h.field.as_str()).collect();

@@ -1,6 +1,6 @@
 //! The run folder's CSV tables as [`Table`] row types: `rejected.csv`, `design.csv`,
 //! `plots.csv`, `adjusted_plots.csv`, `treatments.csv`, `comparison.csv` and
-//! `hyperparameters.csv`. Each column is named, written and read in one place.
+//! `hyperparameters.csv`, and the season's `locations.csv` and `product_x_field_sd.csv`. Each column is named, written and read in one place.
 
 use super::table::{col, count, number, yield_col, Col, Table};
 use plotsieve_stages::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
@@ -341,6 +341,36 @@ impl Table for FieldHyper {
             num!("log_marginal_likelihood", log_marginal_likelihood, 6),
             text!("method", method),
             text!("warning", warning),
+        ]
+    }
+}
+
+impl Table for plotsieve_stages::season::LocationRow {
+    fn columns(unit: &str) -> Vec<Col<Self>> {
+        vec![
+            text!("trial", trial),
+            text!("field", field),
+            text!("product", product),
+            whole!("plots", plots),
+            yld!(format!("stage_one_uplift_{unit}"), stage_one_uplift, 6),
+            yld!(format!("stage_one_sd_{unit}"), stage_one_sd, 6),
+            yld!(format!("uplift_{unit}"), uplift, 6),
+            yld!(format!("uplift_sd_{unit}"), uplift_sd, 6),
+            yld!(format!("uplift_lo95_{unit}"), uplift_lo95, 6),
+            yld!(format!("uplift_hi95_{unit}"), uplift_hi95, 6),
+            num!("p_uplift_gt0", p_uplift_gt0, 6),
+            num!("lon", lon, 6),
+            num!("lat", lat, 6),
+        ]
+    }
+}
+
+impl Table for plotsieve_stages::season::TauNode {
+    fn columns(unit: &str) -> Vec<Col<Self>> {
+        vec![
+            yld!(format!("product_x_field_sd_{unit}"), sd, 6),
+            num!("prior_mass", prior, 8),
+            num!("posterior_weight", posterior, 8),
         ]
     }
 }

@@ -162,7 +162,12 @@ pub(crate) fn top_weights(mut v: Vec<Weighted>, cap: usize) -> Vec<Weighted> {
 /// geometric ladder from 0.01 U to 4 U, cells split at (geometric) midpoints, under the PC
 /// prior s ~ Exp(l) with P(s > U) = 0.05.
 pub(crate) fn interaction_nodes(u: f64) -> Vec<(f64, f64)> {
-    let k = 14;
+    interaction_ladder(u, 14)
+}
+
+/// [`interaction_nodes`] with `k` rungs on the ladder (the season's stage two, where each
+/// node costs little, uses a fine one).
+pub(crate) fn interaction_ladder(u: f64, k: usize) -> Vec<(f64, f64)> {
     let mut s: Vec<f64> = vec![0.0];
     for i in 0..k {
         s.push(0.01 * u * (400f64).powf(i as f64 / (k - 1) as f64));

@@ -261,6 +261,7 @@ pub fn run_with(
         warnings,
         missing_fields: Vec::new(),
         joint_ess: f64::NAN,
+        stage_one: Vec::new(),
     };
     // Fields that failed their own fit leave the joint fit too.
     let mut keep = Vec::new();
@@ -414,12 +415,6 @@ pub fn run_with(
                 None,
             )];
             for (g, name) in products.iter().enumerate() {
-                let up = Mixture::new(
-                    jf.comps
-                        .iter()
-                        .map(|(w, c, _, _)| (*w, c.beta_mean[g], c.beta_var[g]))
-                        .collect(),
-                );
                 let count = preps
                     .iter()
                     .zip(&maps)
@@ -430,25 +425,18 @@ pub fn run_with(
                             .map(|t| p.counts[t + 1])
                     })
                     .sum();
-                let mut row = treatment_row(
+                let parts: Vec<(f64, f64, f64, f64)> = jf
+                    .comps
+                    .iter()
+                    .map(|(w, c, sv, _)| (*w, c.beta_mean[g], c.beta_var[g], *sv))
+                    .collect();
+                pooled.push(pooled_row(
                     s,
-                    "all",
                     name,
                     count,
-                    None,
-                    Some(&up),
-                    Some((global.mean[g], global.var[g].sqrt())),
-                );
-                // A field not in the trial: the shared effect plus a new interaction draw,
-                // delta_new = beta + u, u ~ N(0, s^2), mixed over the same components.
-                let new_field = Mixture::new(
-                    jf.comps
-                        .iter()
-                        .map(|(w, c, sv, _)| (*w, c.beta_mean[g], c.beta_var[g] + sv * sv))
-                        .collect(),
-                );
-                set_new_field(&mut row, &new_field);
-                pooled.push(row);
+                    &parts,
+                    (global.mean[g], global.var[g].sqrt()),
+                ));
             }
             out.treatments.extend(pooled);
         }
@@ -518,6 +506,7 @@ pub fn run_with(
 }
 
 pub(crate) fn push_fit(out: &mut AdjustOutput, f: FieldFit) {
+    out.stage_one.push(f.stage_one);
     out.plots.extend(f.plots);
     out.comparisons.push(f.comparison);
     out.treatments.extend(f.rows);
@@ -554,6 +543,6 @@ pub(crate) fn placeholder() -> FieldModel {
 #[cfg(test)]
 mod random_tests;
 #[cfg(test)]
-mod season_tests;
+pub(crate) mod season_tests;
 #[cfg(test)]
 mod tests;

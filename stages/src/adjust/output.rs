@@ -164,6 +164,32 @@ pub struct AdjustOutput {
     pub missing_fields: Vec<String>,
     /// Effective sample size of the joint importance draws (NaN without a joint fit).
     pub joint_ess: f64,
+    /// Each fitted field's contrasts from its own fit (the stage-one input of a season).
+    pub stage_one: Vec<StageOne>,
+}
+
+/// One field's product contrasts with the check from the field fitted alone, with flat
+/// priors on the contrasts: the posterior mean and covariance over the field's
+/// hyperparameter posterior (a mixture of the GLS estimates, moment-matched), kg/ha. This is
+/// stage one of a season's two-stage fit (`crate::season`).
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct StageOne {
+    pub field: String,
+    /// Kept plots fitted.
+    pub plots: u64,
+    /// SD of the field's plot yields (sets the season's default priors as in a joint fit).
+    pub yield_sd_kg_ha: f64,
+    /// The field's centre (mean of the plot centres), WGS 84; the pipeline fills it in.
+    #[serde(default)]
+    pub lon: Option<f64>,
+    #[serde(default)]
+    pub lat: Option<f64>,
+    /// Products (the check excluded), their kept plots, uplifts and covariance (row major
+    /// rows, one per product).
+    pub products: Vec<String>,
+    pub product_plots: Vec<u64>,
+    pub uplift_kg_ha: Vec<f64>,
+    pub cov_kg_ha2: Vec<Vec<f64>>,
 }
 
 /// Break-even uplift (cost / price, kg/ha) and expected net return per hectare for one
@@ -269,6 +295,24 @@ impl Odds {
 
 /// Sets a pooled row's new-field predictive from its mixture (the row's break-even must be
 /// set already).
+/// A product's pooled row (field "all") from the components of a joint posterior, each
+/// (weight, mean and variance of the shared effect, interaction SD): the shared effect's
+/// mixture, and a field not in the fit, delta_new = beta + u with u ~ N(0, s^2), mixed over
+/// the same components. `prior` is the product's (mean, SD).
+pub(crate) fn pooled_row(
+    s: &FitSettings,
+    name: &str,
+    count: u64,
+    parts: &[(f64, f64, f64, f64)],
+    prior: (f64, f64),
+) -> TreatmentRow {
+    let up = Mixture::new(parts.iter().map(|p| (p.0, p.1, p.2)).collect());
+    let mut row = treatment_row(s, "all", name, count, None, Some(&up), Some(prior));
+    let new_field = Mixture::new(parts.iter().map(|p| (p.0, p.1, p.2 + p.3 * p.3)).collect());
+    set_new_field(&mut row, &new_field);
+    row
+}
+
 pub(crate) fn set_new_field(r: &mut TreatmentRow, m: &Mixture) {
     let o = Odds::of(m, r.break_even);
     (r.new_field_uplift, r.new_field_sd) = (o.mean, o.sd);

@@ -11,6 +11,49 @@ pub(crate) struct FieldFit {
     pub(crate) hyper: FieldHyper,
     /// (treatment, uplift mean, variance) for inverse-variance pooling.
     pub(crate) uplifts: Vec<(String, f64, f64)>,
+    pub(crate) stage_one: StageOne,
+}
+
+/// The field's contrasts under flat priors on them: the GLS estimates mixed over the
+/// hyperparameter posterior without the product prior (REML likelihood x hyperparameter
+/// priors), moment-matched to one mean vector and covariance.
+fn stage_one(prep: &Prepared, lat: &Lattice) -> StageOne {
+    let m = &prep.model;
+    let d = m.treatments.len() - 1;
+    let mut all: Vec<Weighted> = Vec::new();
+    for &k in &lat.keys {
+        let node = &m.nodes[&k];
+        let lpr = m.log_prior_range(node.l, lat.rho0) + lat.lvol;
+        for (i, pt) in node.points.iter().enumerate() {
+            all.push((lpr + pt.lw, k, i));
+        }
+    }
+    let mut mean = vec![0.0; d];
+    let mut second = vec![vec![0.0; d]; d];
+    for (w, k, i) in top_weights(all, 3000) {
+        let fit = &m.nodes[&k].points[i].fit;
+        let p = (fit.cov.len() as f64).sqrt().round() as usize;
+        for a in 0..d {
+            mean[a] += w * fit.b[1 + a];
+            for b in 0..d {
+                second[a][b] += w * (fit.cov[(1 + a) * p + 1 + b] + fit.b[1 + a] * fit.b[1 + b]);
+            }
+        }
+    }
+    let cov = (0..d)
+        .map(|a| (0..d).map(|b| second[a][b] - mean[a] * mean[b]).collect())
+        .collect();
+    StageOne {
+        field: m.name.clone(),
+        plots: m.design.n() as u64,
+        yield_sd_kg_ha: m.sy,
+        lon: None,
+        lat: None,
+        products: m.treatments[1..].to_vec(),
+        product_plots: prep.counts[1..].to_vec(),
+        uplift_kg_ha: mean,
+        cov_kg_ha2: cov,
+    }
 }
 
 /// Summaries of a field's hyperparameters from weighted points.
@@ -240,5 +283,6 @@ pub(crate) fn fit_own(
         comparison,
         hyper,
         uplifts,
+        stage_one: stage_one(prep, lat),
     })
 }

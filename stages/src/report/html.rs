@@ -74,7 +74,7 @@ pub fn scale(anchors: &[&str], t: f64) -> String {
     format!("#{:02x}{:02x}{:02x}", m(a.0, b.0), m(a.1, b.1), m(a.2, b.2))
 }
 
-fn esc(s: &str) -> String {
+pub(crate) fn esc(s: &str) -> String {
     s.replace('&', "&amp;")
         .replace('<', "&lt;")
         .replace('>', "&gt;")
@@ -169,7 +169,7 @@ impl Panel {
     }
 }
 
-fn nice_step(x: f64) -> f64 {
+pub(crate) fn nice_step(x: f64) -> f64 {
     let p = 10f64.powf(x.max(1e-9).log10().floor());
     [1.0, 2.0, 5.0, 10.0]
         .iter()
@@ -203,7 +203,20 @@ fn ring_path(p: &Panel, ring: &[(f64, f64)]) -> String {
 }
 
 /// The forest plot of uplifts over the check, 95 % intervals (pooled rows in blue).
-fn forest(s: &mut String, rows: &[&TreatmentRow], u: &str) {
+pub(crate) fn forest(s: &mut String, rows: &[&TreatmentRow], u: &str, caption: &str) {
+    forest_labelled(s, rows, u, caption, |t| {
+        format!("{} / {}", t.field, t.treatment)
+    })
+}
+
+/// [`forest`] with each row's label from `label`; the label column widens for long labels.
+pub(crate) fn forest_labelled(
+    s: &mut String,
+    rows: &[&TreatmentRow],
+    u: &str,
+    caption: &str,
+    label: impl Fn(&TreatmentRow) -> String,
+) {
     if !rows.is_empty() {
         let lo = rows
             .iter()
@@ -215,7 +228,13 @@ fn forest(s: &mut String, rows: &[&TreatmentRow], u: &str) {
             .map(|t| t.uplift_hi95)
             .chain(rows.iter().map(|t| t.break_even).filter(|v| v.is_finite()))
             .fold(0.0, f64::max);
-        let (w, rh, left) = (520.0, 18.0, 150.0);
+        let longest = rows
+            .iter()
+            .map(|t| label(t).chars().count())
+            .max()
+            .unwrap_or(0);
+        let left = (10.0 + 6.2 * longest as f64).clamp(150.0, 480.0);
+        let (w, rh) = (520.0, 18.0);
         let h = rows.len() as f64 * rh + 50.0;
         let x = |v: f64| left + (v - lo) / (hi - lo).max(1e-9) * w;
         let ticks = if rows.iter().any(|t| t.break_even.is_finite()) {
@@ -223,7 +242,7 @@ fn forest(s: &mut String, rows: &[&TreatmentRow], u: &str) {
         } else {
             ""
         };
-        let _ = write!(s, "<figure><figcaption>Uplift over the check with 95 % intervals (pooled rows, field all, in blue); the dashed line is zero{ticks}</figcaption><svg class=\"forest\" role=\"img\" aria-label=\"forest plot of uplifts\" width=\"{:.0}\" height=\"{h:.0}\" viewBox=\"0 0 {:.0} {h:.0}\" xmlns=\"http://www.w3.org/2000/svg\">", left + w + 20.0, left + w + 20.0);
+        let _ = write!(s, "<figure><figcaption>{}{ticks}</figcaption><svg class=\"forest\" role=\"img\" aria-label=\"forest plot of uplifts\" width=\"{:.0}\" height=\"{h:.0}\" viewBox=\"0 0 {:.0} {h:.0}\" xmlns=\"http://www.w3.org/2000/svg\">", esc(caption), left + w + 20.0, left + w + 20.0);
         let _ = write!(
             s,
             "<line x1=\"{:.1}\" y1=\"4\" x2=\"{:.1}\" y2=\"{:.1}\" class=\"zero\"/>",
@@ -238,19 +257,39 @@ fn forest(s: &mut String, rows: &[&TreatmentRow], u: &str) {
             } else {
                 "#555555"
             };
-            let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"end\">{} / {}</text><line x1=\"{:.1}\" y1=\"{y:.1}\" x2=\"{:.1}\" y2=\"{y:.1}\" stroke=\"{c}\" stroke-width=\"2\"/><circle cx=\"{:.1}\" cy=\"{y:.1}\" r=\"3.5\" fill=\"{c}\"/>", left - 8.0, y + 4.0, esc(&t.field), esc(&t.treatment), x(t.uplift_lo95), x(t.uplift_hi95), x(t.uplift));
+            let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"end\">{}</text><line x1=\"{:.1}\" y1=\"{y:.1}\" x2=\"{:.1}\" y2=\"{y:.1}\" stroke=\"{c}\" stroke-width=\"2\"/><circle cx=\"{:.1}\" cy=\"{y:.1}\" r=\"3.5\" fill=\"{c}\"/>", left - 8.0, y + 4.0, esc(&label(t)), x(t.uplift_lo95), x(t.uplift_hi95), x(t.uplift));
             if t.break_even.is_finite() {
                 let _ = write!(s, "<line x1=\"{:.1}\" y1=\"{:.1}\" x2=\"{:.1}\" y2=\"{:.1}\" stroke=\"#D55E00\" stroke-width=\"2\"/>", x(t.break_even), y - 6.0, x(t.break_even), y + 6.0);
             }
         }
         let step = nice_step((hi - lo) / 5.0);
-        let mut v = (lo / step).ceil() * step;
-        while v <= hi + 1e-12 {
+        // Ticks at whole multiples of the step (a running sum would label zero "-0.00").
+        let mut k = (lo / step).ceil();
+        while k * step <= hi + 1e-12 {
+            let v = if k == 0.0 { 0.0 } else { k * step };
             let _ = write!(s, "<line x1=\"{:.1}\" y1=\"{:.1}\" x2=\"{:.1}\" y2=\"{:.1}\" class=\"tick\"/><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\" text-anchor=\"middle\">{}</text>", x(v), h - 34.0, x(v), h - 30.0, x(v), h - 19.0, fmt(v, 2));
-            v += step;
+            k += 1.0;
         }
         let _ = write!(s, "<text x=\"{:.1}\" y=\"{:.1}\" class=\"al\" text-anchor=\"middle\">uplift over the check ({u})</text></svg></figure>", left + w / 2.0, h - 4.0);
     }
+}
+
+/// An HTML table: the first `left` columns text, the others numbers (right-aligned).
+pub(crate) fn table(s: &mut String, head: &[String], cells: &[Vec<String>], left: usize) {
+    let _ = write!(s, "<table><thead><tr>");
+    for h in head {
+        let _ = write!(s, "<th>{}</th>", esc(h));
+    }
+    let _ = write!(s, "</tr></thead><tbody>");
+    for row in cells {
+        for (k, c) in row.iter().enumerate() {
+            let row_start = if k == 0 { "<tr>" } else { "" };
+            let cell = if k < left { "<td>" } else { "<td class=\"n\">" };
+            let _ = write!(s, "{row_start}{cell}{}</td>", esc(c));
+        }
+        let _ = write!(s, "</tr>");
+    }
+    let _ = write!(s, "</tbody></table>");
 }
 
 /// The decision table and forest plot: the first section after the caution and warnings.
@@ -269,22 +308,15 @@ fn decision(s: &mut String, r: &HtmlInput) {
         return;
     }
     let _ = write!(s, "<p class=\"note\">{}</p>", esc(super::DECISION_WORDS));
-    let cols = super::decision_columns(&rows, r.decimals, r.unit_label);
-    let _ = write!(s, "<table><thead><tr><th>product</th>");
-    for c in &cols {
-        let _ = write!(s, "<th>{}</th>", esc(&c.0));
-    }
-    let _ = write!(s, "</tr></thead><tbody>");
-    for t in &rows {
-        let _ = write!(s, "<tr><td>{}</td>", esc(&t.treatment));
-        for c in &cols {
-            let _ = write!(s, "<td class=\"n\">{}</td>", esc(&c.1(t)));
-        }
-        let _ = write!(s, "</tr>");
-    }
-    let _ = write!(s, "</tbody></table>");
+    let (head, cells) = super::decision_cells(&rows, r.decimals, r.unit_label, Vec::new());
+    table(s, &head, &cells, 1);
     let all: Vec<&TreatmentRow> = r.treatments.iter().filter(|t| !t.uplift.is_nan()).collect();
-    forest(s, &all, r.unit_label);
+    forest(
+        s,
+        &all,
+        r.unit_label,
+        "Uplift over the check with 95 % intervals (pooled rows, field all, in blue); the dashed line is zero",
+    );
     let _ = write!(s, "</section>");
 }
 
@@ -700,7 +732,7 @@ pub fn render(r: &HtmlInput) -> String {
     s
 }
 
-const CSS: &str = "body{font:14px/1.45 system-ui,sans-serif;margin:0 auto;max-width:1500px;padding:0 24px 40px;color:#1d2528;background:#fbfaf6}\
+pub(crate) const CSS: &str = "body{font:14px/1.45 system-ui,sans-serif;margin:0 auto;max-width:1500px;padding:0 24px 40px;color:#1d2528;background:#fbfaf6}\
 header{border-bottom:3px solid #2f5d50;margin-bottom:12px}h1{font-size:24px;margin:18px 0 2px;color:#2f5d50}.sub{margin:0 0 10px;color:#5b6b66}\
 h2{font-size:18px;color:#2f5d50;border-bottom:1px solid #d9d4c7;padding-bottom:3px;margin-top:28px}h3{font-size:15px;margin:18px 0 6px}\
 .caution{background:#fff4d6;border-left:5px solid #b58a00;padding:8px 12px;margin:10px 0}\

@@ -311,6 +311,48 @@ pub(crate) fn decision_columns(
     cols
 }
 
+/// An extra decision-table column: heading and cell.
+pub(crate) type ExtraColumn<'a> = (String, Box<dyn Fn(&TreatmentRow) -> String + 'a>);
+
+/// The decision table as headings and cells: the product, the `extra` columns, then
+/// [`decision_columns`].
+pub(crate) fn decision_cells(
+    rows: &[&TreatmentRow],
+    d: usize,
+    u: &str,
+    extra: Vec<ExtraColumn>,
+) -> (Vec<String>, Vec<Vec<String>>) {
+    let cols = decision_columns(rows, d, u);
+    let head = std::iter::once("product".to_string())
+        .chain(extra.iter().map(|c| c.0.clone()))
+        .chain(cols.iter().map(|c| c.0.clone()))
+        .collect();
+    let cells = rows
+        .iter()
+        .map(|t| {
+            std::iter::once(t.treatment.clone())
+                .chain(extra.iter().map(|c| c.1(t)))
+                .chain(cols.iter().map(|c| c.1(t)))
+                .collect()
+        })
+        .collect();
+    (head, cells)
+}
+
+/// A Markdown table: the first `left` columns left-aligned, the others right-aligned.
+pub(crate) fn markdown_table(s: &mut String, head: &[String], cells: &[Vec<String>], left: usize) {
+    let _ = writeln!(s, "| {} |", head.join(" | "));
+    let _ = writeln!(
+        s,
+        "|{}{}",
+        "---|".repeat(left),
+        "---:|".repeat(head.len().saturating_sub(left))
+    );
+    for row in cells {
+        let _ = writeln!(s, "| {} |", row.join(" | "));
+    }
+}
+
 /// What the decision table says, in plain words (both reports).
 pub(crate) const DECISION_WORDS: &str = "Each product against the check over the trial's fields (the pooled estimate). P(uplift > 0) is the probability that the product gains yield on average over fields like these; P(uplift > break-even) that the gain pays for the product at the given price and cost; the new-field columns give the same for a field that was not in the trial, which varies more. Quality control (counts, rules, maps, the spatial model) follows below.";
 
@@ -322,24 +364,8 @@ fn decision_markdown(s: &mut String, r: &ReportInput) {
         return;
     }
     let _ = writeln!(s, "{DECISION_WORDS}\n");
-    let cols = decision_columns(&rows, r.decimals, r.unit_label);
-    let _ = writeln!(
-        s,
-        "| product | {} |",
-        cols.iter()
-            .map(|c| c.0.as_str())
-            .collect::<Vec<_>>()
-            .join(" | ")
-    );
-    let _ = writeln!(s, "|---|{}", "---:|".repeat(cols.len()));
-    for t in rows {
-        let _ = writeln!(
-            s,
-            "| {} | {} |",
-            t.treatment,
-            cols.iter().map(|c| c.1(t)).collect::<Vec<_>>().join(" | ")
-        );
-    }
+    let (head, cells) = decision_cells(&rows, r.decimals, r.unit_label, Vec::new());
+    markdown_table(s, &head, &cells, 1);
     let _ = writeln!(s);
 }
 
@@ -414,6 +440,7 @@ pub(crate) fn mean_interval(m: f64, lo: f64, hi: f64, k: usize) -> String {
 }
 
 pub mod html;
+pub mod season;
 
 /// (field, factor, SD summary) for each random design factor fitted (rows, columns,
 /// incomplete blocks), for the reports.
