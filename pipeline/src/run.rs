@@ -157,7 +157,22 @@ fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
     if !t.cfg.inputs.plot_table.is_empty() {
         paths.push(t.base.join(&t.cfg.inputs.plot_table));
     } else {
-        paths.extend(ingest::monitor_files(&t.cfg, &t.base)?);
+        for p in ingest::monitor_files(&t.cfg, &t.base)? {
+            // A task-data time log: the set's file, and in a folder the log's header and
+            // records beside it.
+            let (file, log) = ingest::formats::taskdata::split(&p);
+            if let (Some(log), Some(dir)) = (log, file.parent()) {
+                for ext in ["XML", "BIN", "xml", "bin"] {
+                    let f = dir.join(format!("{log}.{ext}"));
+                    if f.is_file() && !paths.contains(&f) {
+                        paths.push(f);
+                    }
+                }
+            }
+            if !paths.contains(&file) {
+                paths.push(file);
+            }
+        }
         if !t.cfg.inputs.plots.is_empty() {
             paths.push(t.base.join(&t.cfg.inputs.plots));
         }
@@ -591,9 +606,35 @@ pub fn simulate(dir: &Path, o: &simulate::SimOptions) -> Result<()> {
         }
     }
     let sim = simulate::generate(o);
+    // Task data: every field's records as one task-data set, written into a temporary
+    // folder and renamed.
+    let logs: Vec<(String, String)> = sim
+        .files
+        .iter()
+        .filter(|(rel, _)| rel.ends_with(".taskdata"))
+        .map(|(rel, text)| {
+            let field = rel
+                .trim_start_matches("monitor/")
+                .trim_end_matches(".taskdata");
+            (format!("harvest {field}"), text.clone())
+        })
+        .collect();
+    if !logs.is_empty() {
+        let to = dir.join("monitor/TASKDATA");
+        let tmp = dir.join(format!("monitor/.TASKDATA.{}.tmp", std::process::id()));
+        let _ = std::fs::remove_dir_all(&tmp);
+        ingest::formats::taskdata::write_set(&tmp, &logs)
+            .map_err(|e| anyhow::anyhow!("writing {}: {e}", to.display()))?;
+        if to.exists() {
+            std::fs::remove_dir_all(&to)?;
+        }
+        std::fs::rename(&tmp, &to)?;
+    }
     for (rel, text) in &sim.files {
         let path = dir.join(rel);
-        if rel.ends_with(".gpkg") {
+        if rel.ends_with(".taskdata") {
+            continue;
+        } else if rel.ends_with(".gpkg") {
             // A GeoPackage is written whole into a temporary file, then renamed.
             let parent = path.parent().unwrap_or(dir);
             std::fs::create_dir_all(parent)?;

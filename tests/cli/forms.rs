@@ -160,6 +160,49 @@ fn a_simulated_harvest_as_geopackage_points_reads_as_the_text_form() {
 }
 
 #[test]
+fn a_simulated_harvest_as_iso_11783_task_data_reads_as_the_text_form() {
+    // `simulate --form taskdata`: one task-data set (monitor/TASKDATA/, one task and binary
+    // time log per field, values logged when they change, integer DDI units). Each time log
+    // is an export of its own; the plots and yields are the text form's within 0.5 % (the
+    // DDI units round flow to 1 mg/s, speed to 1 mm/s, position to 1e-7 degrees).
+    let w = Workdir::new("forms-taskdata");
+    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
+    let td = simulate(&w, "td", &["--seed", "2", "--form", "taskdata", "--quiet"]);
+    assert!(w.path("td/monitor/TASKDATA/TASKDATA.XML").is_file());
+    assert!(w.path("td/monitor/TASKDATA/TLG00002.BIN").is_file());
+    let o = plotsieve(&w.0, &["check", td.to_str().unwrap()]);
+    ok(&o);
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("read: monitor/TASKDATA/TASKDATA.XML#TLG00001: iso11783_taskdata: ISO 11783-10 task data, task \"harvest field-A\", TLG00001: mass flow 0057 of DET-1 (Combine), moisture 0063"),
+        "{out}"
+    );
+    let d = same_plots(&w, &text, &td, "r-text", "r-td");
+    let worst = *d.last().unwrap();
+    eprintln!("task data vs text: largest plot-yield difference {worst:.5}");
+    assert!(worst < 0.005, "largest difference {worst}");
+    // Records in = points + rejections, per time log, and the manifest hashes the set's
+    // files.
+    let s = json(&w.path("r-td/1-ingest/summary.json"));
+    assert_eq!(
+        s["count_in"].as_u64().unwrap(),
+        s["kept"].as_u64().unwrap() + s["rejected"].as_u64().unwrap()
+    );
+    let m = read(&w.path("r-td/manifest.json"));
+    for f in ["TASKDATA.XML", "TLG00001.BIN", "TLG00002.XML"] {
+        assert!(m.contains(&format!("monitor/TASKDATA/{f}")), "{f}");
+    }
+    // The simulator writes the same bytes again.
+    simulate(&w, "td2", &["--seed", "2", "--form", "taskdata", "--quiet"]);
+    for f in ["TASKDATA.XML", "TLG00001.BIN", "TLG00002.BIN"] {
+        assert_eq!(
+            sha(&w.path(&format!("td/monitor/TASKDATA/{f}"))),
+            sha(&w.path(&format!("td2/monitor/TASKDATA/{f}")))
+        );
+    }
+}
+
+#[test]
 fn a_harvest_logged_every_3_s_keeps_its_plots_and_their_coverage() {
     // Logged every 3 s, a record reports the flow over its interval and the ground covered
     // in it. A footprint capped at 2 s of travel covered two thirds of that ground (mean

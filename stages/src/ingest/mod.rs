@@ -112,8 +112,23 @@ pub(crate) fn open_table(
     Ok((rdr, header))
 }
 
+/// A task-data set as one export per time log (`TASKDATA.XML#TLG00001`, ...); any other
+/// file (or a set whose logs cannot be listed, for its reader to name the problem) as is.
+fn by_time_log(p: PathBuf) -> Vec<PathBuf> {
+    if formats::for_file(&p).name() != "iso11783_taskdata" {
+        return vec![p];
+    }
+    match formats::taskdata::time_logs(&p) {
+        Ok(logs) if !logs.is_empty() => logs
+            .into_iter()
+            .map(|l| PathBuf::from(format!("{}#{l}", p.display())))
+            .collect(),
+        _ => vec![p],
+    }
+}
+
 /// The monitor export files named by `inputs.monitor` (folders give every file a format
-/// claims by its extension, sorted).
+/// claims, and the TASKDATA.XML of a task-data folder inside them, sorted).
 pub fn monitor_files(cfg: &TrialConfig, base: &Path) -> Result<Vec<PathBuf>, IngestError> {
     let mut out = Vec::new();
     for entry in &cfg.inputs.monitor {
@@ -125,9 +140,25 @@ pub fn monitor_files(cfg: &TrialConfig, base: &Path) -> Result<Vec<PathBuf>, Ing
                     message: e.to_string(),
                 })?
                 .filter_map(|e| e.ok().map(|e| e.path()))
-                .filter(|p| formats::is_export(p))
+                .filter_map(|p| {
+                    if p.is_dir() {
+                        // A task-data folder copied in whole: its TASKDATA.XML.
+                        std::fs::read_dir(&p)
+                            .ok()?
+                            .filter_map(|e| e.ok())
+                            .map(|e| e.path())
+                            .find(|f| {
+                                f.file_name()
+                                    .and_then(|n| n.to_str())
+                                    .is_some_and(|n| n.eq_ignore_ascii_case("TASKDATA.XML"))
+                            })
+                    } else {
+                        formats::is_export(&p).then_some(p)
+                    }
+                })
                 .collect();
             v.sort();
+            let v = v.into_iter().flat_map(by_time_log).collect::<Vec<_>>();
             if v.is_empty() {
                 return Err(IngestError::Unusable {
                     file: entry.clone(),
@@ -136,7 +167,7 @@ pub fn monitor_files(cfg: &TrialConfig, base: &Path) -> Result<Vec<PathBuf>, Ing
             }
             out.extend(v);
         } else if p.is_file() {
-            out.push(p);
+            out.extend(by_time_log(p));
         } else {
             return Err(IngestError::Read {
                 file: entry.clone(),
@@ -215,7 +246,7 @@ pub fn run_with(
         let format = formats::for_file(p);
         how.insert(
             name.clone(),
-            format!("{}: {}", format.name(), format.describe(cfg)),
+            format!("{}: {}", format.name(), format.describe_file(cfg, p)),
         );
         let read = format.read(cfg, p, name, i as u32)?;
         count_in += read.rows;
@@ -419,7 +450,7 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
                 problems.push(format!(
                     "read: {name}: {}: {}",
                     format.name(),
-                    format.describe(cfg)
+                    format.describe_file(cfg, p)
                 ));
                 if let Err(e) = format.check(cfg, p, &name) {
                     problems.push(e);

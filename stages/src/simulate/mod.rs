@@ -77,6 +77,9 @@ crate::choice! {
         /// The text form's records as a GeoPackage point layer (WGS84 lon/lat geometry,
         /// the other columns as attributes of the same names).
         GeoPackage = "geopackage",
+        /// ISO 11783-10 task data: one task per field with a binary time log of the text
+        /// form's records (mass flow, moisture, speed, working width, work state, position).
+        TaskData = "taskdata",
     }
 }
 
@@ -114,7 +117,9 @@ pub const TREATMENTS: &[(&str, f64)] = &[
 pub struct SimTrial {
     /// (relative path, contents) of every file, including `trial.toml` and `truth.json`. A
     /// `.gpkg` file's contents are the CSV of its points (the text form), to be written as a
-    /// GeoPackage point layer by [`crate::ingest::geopackage::write_points`].
+    /// GeoPackage point layer by [`crate::ingest::geopackage::write_points`]; the `.taskdata`
+    /// files' are too, written together as one task-data set (`monitor/TASKDATA/`, one task
+    /// per file) by [`crate::ingest::formats::taskdata::write_set`].
     pub files: Vec<(String, String)>,
     pub points: usize,
 }
@@ -452,16 +457,16 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         };
         let moist_series: Vec<f64> = rows.iter().map(|r| r.moisture).collect();
         let mut csv = String::from(match o.form {
-            SimForm::Text | SimForm::GeoPackage => "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
+            SimForm::Text | SimForm::GeoPackage | SimForm::TaskData => "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
             SimForm::DistanceText => "Date;Time;Longitude;Latitude;Flow_lb_s;Distance_in;Interval_s;Swath_ft;Moisture_pct;Heading_deg;Header;HDOP\n",
             SimForm::YieldPoints => "time_utc,lon_deg,lat_deg,dry_yield_t_ha,moisture_pct,heading_deg,header_state\n",
         });
         let file_name = format!(
             "monitor/field-{fname}.{}",
-            if o.form == SimForm::GeoPackage {
-                "gpkg"
-            } else {
-                "csv"
+            match o.form {
+                SimForm::GeoPackage => "gpkg",
+                SimForm::TaskData => "taskdata",
+                _ => "csv",
             }
         );
         let mut labels_out: BTreeMap<&str, Vec<u64>> = BTreeMap::new();
@@ -529,7 +534,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             let flow = flows_out[from..=i].iter().map(|f| f.max(0.0)).sum::<f64>() / span;
             let distance: f64 = rows[from..=i].iter().map(|r| r.speed).sum();
             match o.form {
-                SimForm::Text | SimForm::GeoPackage => {
+                SimForm::Text | SimForm::GeoPackage | SimForm::TaskData => {
                     let _ = writeln!(
                         csv,
                         "{},{:.8},{:.8},{:.4},{:.3},{:.2},{:.2},{:.1},{},{:.2}",

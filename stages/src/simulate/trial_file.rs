@@ -50,6 +50,8 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
     }
     let columns = match o.form {
         SimForm::Text | SimForm::GeoPackage => TEXT_COLUMNS,
+        // Task data names its quantities by DDI; [columns] is not read for it.
+        SimForm::TaskData => TEXT_COLUMNS,
         SimForm::DistanceText => DISTANCE_COLUMNS,
         SimForm::YieldPoints => YIELD_COLUMNS,
     };

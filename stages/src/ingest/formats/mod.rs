@@ -12,6 +12,7 @@
 mod mapped_text;
 mod mapping_words;
 mod point_layers;
+pub mod taskdata;
 
 use super::IngestError;
 use crate::config::TrialConfig;
@@ -21,6 +22,7 @@ use std::path::Path;
 
 /// Every monitor format, in sniffing order (the last is the fallback).
 pub static FORMATS: &[&dyn MonitorFormat] = &[
+    &taskdata::TaskData,
     &point_layers::ShapefilePoints,
     &point_layers::GeoPackagePoints,
     &mapped_text::MappedText,
@@ -33,11 +35,25 @@ pub trait MonitorFormat: Sync {
     /// File-name extensions (lower case, no dot) of this format's exports: a folder named in
     /// `inputs.monitor` contributes every file with one of them.
     fn extensions(&self) -> &'static [&'static str];
+    /// Whether a file in a folder named by `inputs.monitor` is one of this format's exports
+    /// (by default: its extension is one of [`MonitorFormat::extensions`]).
+    fn claims(&self, path: &Path) -> bool {
+        path.extension().is_some_and(|x| {
+            let x = x.to_string_lossy().to_ascii_lowercase();
+            self.extensions().contains(&x.as_str())
+        })
+    }
     /// Whether this format reads the file, from its path and first bytes.
     fn sniff(&self, path: &Path, head: &[u8]) -> bool;
     /// How this format reads an export under the trial's settings (the mapping, units and
     /// any fixed values standing in for missing columns), in words.
     fn describe(&self, cfg: &TrialConfig) -> String;
+    /// How this format reads the export at `path` (by default [`MonitorFormat::describe`];
+    /// a format whose mapping comes from the file itself says what it found there).
+    fn describe_file(&self, cfg: &TrialConfig, path: &Path) -> String {
+        let _ = path;
+        self.describe(cfg)
+    }
     /// What can be checked without reading every record (readable, header, mapped columns);
     /// `Err` is the problem, naming the file.
     fn check(&self, cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String>;
@@ -89,7 +105,8 @@ pub struct ExportRead {
 /// 4 KiB (a file that cannot be opened goes to the fallback, whose reader names the error).
 pub fn for_file(path: &Path) -> &'static dyn MonitorFormat {
     let mut head = Vec::new();
-    if let Ok(f) = std::fs::File::open(path) {
+    // One time log of a task-data set is read from the set's file.
+    if let Ok(f) = std::fs::File::open(taskdata::split(path).0) {
         let _ = f.take(4096).read_to_end(&mut head);
     }
     for_bytes(path, &head)
@@ -104,12 +121,9 @@ pub fn for_bytes(path: &Path, head: &[u8]) -> &'static dyn MonitorFormat {
         .unwrap_or(*FORMATS.last().expect("at least one format"))
 }
 
-/// Whether some format claims files with this extension.
+/// Whether some format claims this file (by its extension, or its name).
 pub fn is_export(path: &Path) -> bool {
-    path.extension().is_some_and(|x| {
-        let x = x.to_string_lossy().to_ascii_lowercase();
-        FORMATS.iter().any(|f| f.extensions().contains(&x.as_str()))
-    })
+    FORMATS.iter().any(|f| f.claims(path))
 }
 
 /// A CSV record the reader could not parse, at `line` of `file`.

@@ -1,0 +1,706 @@
+//! ISO 11783-10 task data: `TASKDATA.XML` with its binary time logs, in a folder or a zip
+//! archive (`.zip` holding a `TASKDATA.XML`), as task controllers and farm software exchange
+//! it. The export is the `TASKDATA.XML` file (or the archive); every time log (`TLG`) of
+//! every task (`TSK`), in document order, is read: its header (`TLGnnnnn.XML`: a `TIM` with a
+//! `PTN` and `DLV`s; an attribute present and empty means "in each binary record") and its
+//! records (`TLGnnnnn.BIN`: time as ms since midnight and days since 1980-01-01, the
+//! position fields the header leaves empty, then the number of values and (DLV index, value)
+//! pairs; little-endian). Task controllers log a value when it changes, so each value holds
+//! until the next one (as isoxml-js's filled time logs do); a record before the first value
+//! of the yield quantity is a rejection.
+//!
+//! Process data by DDI (ISO 11783-11 data dictionary; scales as isoxml 1.11.2 lists them):
+//! 0x0057 mass per time yield, mg/s (the mass flow); without it 0x0054 mass per area yield,
+//! mg/m2, wet, standardised with the moisture, or 0x00B5 dry mass per area yield, mg/m2, at
+//! 0 % moisture (from memory of the dictionary's definition; standardised to the crop's
+//! moisture); 0x0063 crop moisture, ppm; 0x0043 actual working width, mm; 0x018D actual
+//! speed, mm/s; 0x008D actual work state (0 off, 1 on). Where several device elements log
+//! one DDI the first in the header is read, and `check` says which. Positions are WGS 84
+//! degrees (1e-7 units); a record with north = east = 0 or position status 0 (no fix) is
+//! `no_position`. Time is read as UTC. The PTN's HDOP and status go to the optional HDOP and
+//! fix-quality fields (the status codes 0-5 follow the GGA fix qualities).
+//!
+//! A rejection's row is the record's place in its time log (from 1) and its file is
+//! `<export>#TLGnnnnn`.
+
+use super::{reject, ExportRead, MonitorFormat, RawPoint};
+use crate::config::TrialConfig;
+use crate::ingest::IngestError;
+use std::collections::BTreeMap;
+use std::io::Read;
+use std::path::Path;
+
+/// The task-data reader.
+pub struct TaskData;
+
+/// A task-data export read one time log at a time: `…/TASKDATA.XML#TLG00001` (or
+/// `….zip#TLG00001`) is that log of that set; each is an export of its own, as each task is
+/// its own run of the machine. Splits such a path into the file and the log.
+pub fn split(path: &Path) -> (std::path::PathBuf, Option<String>) {
+    let s = path.to_string_lossy();
+    match s.rsplit_once('#') {
+        Some((file, log)) if log.to_ascii_uppercase().starts_with("TLG") => {
+            (std::path::PathBuf::from(file), Some(log.to_string()))
+        }
+        _ => (path.to_path_buf(), None),
+    }
+}
+
+/// The time logs of a task-data export, in document order.
+pub fn time_logs(path: &Path) -> Result<Vec<String>, String> {
+    let files = Files::open(&split(path).0)?;
+    let (logs, _) = tasks(&text(files.get("TASKDATA.XML")?, "TASKDATA.XML")?)?;
+    Ok(logs.into_iter().map(|l| l.file).collect())
+}
+
+/// Seconds from 1970-01-01 to 1980-01-01.
+const EPOCH_1980_S: f64 = 315_532_800.0;
+
+/// The DDIs read, with what they become.
+const FLOW: u16 = 0x0057;
+const WET_YIELD: u16 = 0x0054;
+const DRY_YIELD: u16 = 0x00B5;
+const MOISTURE: u16 = 0x0063;
+const WIDTH: u16 = 0x0043;
+const SPEED: u16 = 0x018D;
+const WORK_STATE: u16 = 0x008D;
+
+/// The task data's files by upper-case name (the folder of `TASKDATA.XML`, or its folder
+/// inside the archive).
+struct Files(BTreeMap<String, Vec<u8>>);
+
+impl Files {
+    fn open(path: &Path) -> Result<Files, String> {
+        let is_zip = path
+            .extension()
+            .is_some_and(|x| x.eq_ignore_ascii_case("zip"));
+        let mut files = BTreeMap::new();
+        if is_zip {
+            let f = std::fs::File::open(path).map_err(|e| e.to_string())?;
+            let mut z = zip::ZipArchive::new(f).map_err(|e| format!("not a zip archive ({e})"))?;
+            let mut names: Vec<String> = Vec::with_capacity(z.len());
+            for i in 0..z.len() {
+                let e = z.by_index(i).map_err(|e| format!("entry {i}: {e}"))?;
+                names.push(e.name().map_err(|e| format!("entry {i}: {e}"))?.to_string());
+            }
+            let main = names
+                .iter()
+                .filter(|n| {
+                    n.rsplit('/')
+                        .next()
+                        .is_some_and(|b| b.eq_ignore_ascii_case("TASKDATA.XML"))
+                })
+                .min_by_key(|n| n.len())
+                .ok_or("the archive holds no TASKDATA.XML")?
+                .clone();
+            let dir = &main[..main.len() - "TASKDATA.XML".len()];
+            for n in &names {
+                let Some(base) = n.strip_prefix(dir) else {
+                    continue;
+                };
+                if base.is_empty() || base.contains('/') {
+                    continue;
+                }
+                let mut e = z.by_name(n).map_err(|e| format!("{n}: {e}"))?;
+                let mut bytes = Vec::new();
+                e.read_to_end(&mut bytes).map_err(|e| format!("{n}: {e}"))?;
+                files.insert(base.to_ascii_uppercase(), bytes);
+            }
+        } else {
+            let dir = path.parent().unwrap_or(Path::new("."));
+            let dir = if dir.as_os_str().is_empty() {
+                Path::new(".")
+            } else {
+                dir
+            };
+            for e in std::fs::read_dir(dir).map_err(|e| e.to_string())? {
+                let p = e.map_err(|e| e.to_string())?.path();
+                let Some(base) = p.file_name().and_then(|b| b.to_str()) else {
+                    continue;
+                };
+                let up = base.to_ascii_uppercase();
+                if p.is_file() && (up == "TASKDATA.XML" || up.starts_with("TLG")) {
+                    files.insert(up, std::fs::read(&p).map_err(|e| format!("{base}: {e}"))?);
+                }
+            }
+        }
+        Ok(Files(files))
+    }
+
+    fn get(&self, name: &str) -> Result<&[u8], String> {
+        self.0
+            .get(&name.to_ascii_uppercase())
+            .map(Vec::as_slice)
+            .ok_or_else(|| format!("{name} is missing"))
+    }
+}
+
+fn text(bytes: &[u8], what: &str) -> Result<String, String> {
+    String::from_utf8(bytes.to_vec()).map_err(|_| format!("{what} is not UTF-8 text"))
+}
+
+/// A time log named by a task.
+struct LogRef {
+    task: String,
+    file: String,
+}
+
+/// The time logs of every task, in document order; device elements' designators by id.
+fn tasks(xml: &str) -> Result<(Vec<LogRef>, BTreeMap<String, String>), String> {
+    let doc = roxmltree::Document::parse(xml).map_err(|e| format!("TASKDATA.XML: {e}"))?;
+    let root = doc.root_element();
+    if root.tag_name().name() != "ISO11783_TaskData" {
+        return Err(format!(
+            "TASKDATA.XML: root element {}, expected ISO11783_TaskData",
+            root.tag_name().name()
+        ));
+    }
+    let mut logs = Vec::new();
+    let mut dets = BTreeMap::new();
+    for n in root.descendants().filter(|n| n.is_element()) {
+        match n.tag_name().name() {
+            "TSK" => {
+                let task = n
+                    .attribute("B")
+                    .or(n.attribute("A"))
+                    .unwrap_or("")
+                    .to_string();
+                for t in n.children().filter(|c| c.has_tag_name("TLG")) {
+                    let file = t.attribute("A").ok_or_else(|| {
+                        format!("TASKDATA.XML: task {task}: a TLG without A (file name)")
+                    })?;
+                    logs.push(LogRef {
+                        task: task.clone(),
+                        file: file.to_string(),
+                    });
+                }
+            }
+            "DET" => {
+                if let Some(id) = n.attribute("A") {
+                    dets.insert(id.to_string(), n.attribute("D").unwrap_or("").to_string());
+                }
+            }
+            _ => {}
+        }
+    }
+    Ok((logs, dets))
+}
+
+/// How a position field is given: absent, fixed in the header, or in each record.
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum Field {
+    Absent,
+    Fixed(f64),
+    InRecord,
+}
+
+/// A time log's header.
+struct Header {
+    /// north, east, up, status, PDOP, HDOP, satellites, GPS time, GPS date.
+    ptn: [Field; 9],
+    /// (DDI, device element) of each data log value.
+    dlv: Vec<(u16, String)>,
+}
+
+const PTN_ATTRS: [&str; 9] = ["A", "B", "C", "D", "E", "F", "G", "H", "I"];
+/// Bytes of each position field in a record.
+const PTN_BYTES: [usize; 9] = [4, 4, 4, 1, 2, 2, 1, 4, 2];
+
+fn header(xml: &str, file: &str) -> Result<Header, String> {
+    let doc = roxmltree::Document::parse(xml).map_err(|e| format!("{file}: {e}"))?;
+    let tim = doc
+        .descendants()
+        .find(|n| n.has_tag_name("TIM"))
+        .ok_or_else(|| format!("{file}: no TIM element"))?;
+    if tim.attribute("A") != Some("") {
+        return Err(format!(
+            "{file}: TIM A (start) must be empty, as in a binary time log whose records carry their times"
+        ));
+    }
+    let mut ptn = [Field::Absent; 9];
+    if let Some(p) = tim.children().find(|n| n.has_tag_name("PTN")) {
+        for (k, a) in PTN_ATTRS.iter().enumerate() {
+            ptn[k] =
+                match p.attribute(*a) {
+                    None => Field::Absent,
+                    Some("") => Field::InRecord,
+                    Some(v) => Field::Fixed(v.parse().map_err(|_| {
+                        format!("{file}: PTN {a} = {v:?}, expected a number or empty")
+                    })?),
+                };
+        }
+    }
+    let mut dlv = Vec::new();
+    for d in tim.children().filter(|n| n.has_tag_name("DLV")) {
+        let ddi = d.attribute("A").unwrap_or("");
+        let ddi = u16::from_str_radix(ddi, 16)
+            .map_err(|_| format!("{file}: DLV A = {ddi:?}, expected a DDI in hexadecimal"))?;
+        if d.attribute("B") != Some("") {
+            return Err(format!(
+                "{file}: DLV {ddi:04X}: B (value) must be empty (the value in each record)"
+            ));
+        }
+        dlv.push((ddi, d.attribute("C").unwrap_or("").to_string()));
+    }
+    Ok(Header { ptn, dlv })
+}
+
+/// Which data log value feeds each quantity (the first with its DDI).
+struct Picks {
+    flow: Option<usize>,
+    wet: Option<usize>,
+    dry: Option<usize>,
+    moisture: Option<usize>,
+    width: Option<usize>,
+    speed: Option<usize>,
+    state: Option<usize>,
+}
+
+impl Picks {
+    fn of(h: &Header) -> Picks {
+        let f = |ddi: u16| h.dlv.iter().position(|d| d.0 == ddi);
+        Picks {
+            flow: f(FLOW),
+            wet: f(WET_YIELD),
+            dry: f(DRY_YIELD),
+            moisture: f(MOISTURE),
+            width: f(WIDTH),
+            speed: f(SPEED),
+            state: f(WORK_STATE),
+        }
+    }
+    /// The quantity yields come from, or why none can.
+    fn amount(&self, file: &str) -> Result<usize, String> {
+        self.flow.or(self.wet).or(self.dry).ok_or_else(|| {
+            format!("{file}: logs no mass per time yield (DDI 0057), mass per area yield (0054) or dry mass per area yield (00B5)")
+        })
+    }
+}
+
+/// One time log read to points (row = record number from 1).
+#[allow(clippy::too_many_arguments)]
+fn read_log(
+    h: &Header,
+    bin: &[u8],
+    source: &str,
+    file_idx: u32,
+    standard: f64,
+    out: &mut ExportRead,
+) -> Result<(), String> {
+    let picks = Picks::of(h);
+    let amount = picks.amount(source)?;
+    let mut last: Vec<Option<i32>> = vec![None; h.dlv.len()];
+    let mut at = 0usize;
+    let mut row = 0u64;
+    let take = |at: &mut usize, n: usize| -> Option<&[u8]> {
+        let s = bin.get(*at..*at + n)?;
+        *at += n;
+        Some(s)
+    };
+    while at < bin.len() {
+        row += 1;
+        let left = bin.len() - at;
+        let cut = |row: u64| {
+            reject(
+                source,
+                row,
+                "unreadable_row",
+                "",
+                &format!("{left} bytes left"),
+                "a whole time-log record (the file ends inside one)",
+            )
+        };
+        let Some(t) = take(&mut at, 6) else {
+            out.rejections.push(cut(row));
+            out.rows += 1;
+            break;
+        };
+        let ms = u32::from_le_bytes([t[0], t[1], t[2], t[3]]);
+        let days = u16::from_le_bytes([t[4], t[5]]);
+        let mut pos = [f64::NAN; 9];
+        let mut whole = true;
+        for k in 0..9 {
+            pos[k] = match h.ptn[k] {
+                Field::Absent => f64::NAN,
+                Field::Fixed(v) => v,
+                Field::InRecord => match take(&mut at, PTN_BYTES[k]) {
+                    None => {
+                        whole = false;
+                        break;
+                    }
+                    Some(b) => match PTN_BYTES[k] {
+                        4 if k < 3 => i32::from_le_bytes([b[0], b[1], b[2], b[3]]) as f64,
+                        4 => u32::from_le_bytes([b[0], b[1], b[2], b[3]]) as f64,
+                        2 => u16::from_le_bytes([b[0], b[1]]) as f64,
+                        _ => b[0] as f64,
+                    },
+                },
+            };
+        }
+        let count = if whole { take(&mut at, 1) } else { None };
+        let Some(count) = count else {
+            out.rejections.push(cut(row));
+            out.rows += 1;
+            break;
+        };
+        let mut bad_index = None;
+        for _ in 0..count[0] {
+            let Some(v) = take(&mut at, 5) else {
+                whole = false;
+                break;
+            };
+            let idx = v[0] as usize;
+            let value = i32::from_le_bytes([v[1], v[2], v[3], v[4]]);
+            match last.get_mut(idx) {
+                Some(slot) => *slot = Some(value),
+                None => bad_index = Some(idx),
+            }
+        }
+        out.rows += 1;
+        if !whole {
+            out.rejections.push(cut(row));
+            break;
+        }
+        if let Some(idx) = bad_index {
+            // The rest of the log cannot be trusted to line up either.
+            out.rejections.push(reject(
+                source,
+                row,
+                "unreadable_row",
+                "DLV",
+                &idx.to_string(),
+                &format!("a data log value index below {}", h.dlv.len()),
+            ));
+            break;
+        }
+        // Positions: the header's fixed values are in degrees, the records' in 1e-7.
+        let deg = |k: usize| match h.ptn[k] {
+            Field::InRecord => pos[k] * 1e-7,
+            _ => pos[k],
+        };
+        let (lat, lon) = (deg(0), deg(1));
+        let status = pos[3];
+        if !(lat.is_finite() && lon.is_finite()) || (lat == 0.0 && lon == 0.0) || status == 0.0 {
+            out.rejections.push(reject(
+                source,
+                row,
+                "no_position",
+                "PTN",
+                &format!("{lat}, {lon}, status {status}"),
+                "a GPS fix",
+            ));
+            continue;
+        }
+        let value = |p: Option<usize>| p.and_then(|i| last[i]).map(f64::from);
+        let Some(raw) = value(Some(amount)) else {
+            out.rejections.push(reject(
+                source,
+                row,
+                "missing_value",
+                &format!("DDI {:04X}", h.dlv[amount].0),
+                "",
+                "a yield value logged at or before this record",
+            ));
+            continue;
+        };
+        let moisture = value(picks.moisture).map_or(f64::NAN, |v| v * 1e-4);
+        let (flow, given) = if Some(amount) == picks.flow {
+            (raw * 1e-6, f64::NAN)
+        } else if Some(amount) == picks.wet {
+            // mg/m2 -> kg/ha is x 0.01; wet, to standard moisture.
+            let kg = raw * 0.01;
+            (
+                f64::NAN,
+                crate::clean::to_standard_moisture(kg, moisture.min(99.0), standard),
+            )
+        } else {
+            (
+                f64::NAN,
+                crate::clean::to_standard_moisture(raw * 0.01, 0.0, standard),
+            )
+        };
+        let hdop = pos[5] / 10.0;
+        let state = value(picks.state).map_or(f64::NAN, |v| match v as i32 {
+            0 => 0.0,
+            1 => 1.0,
+            _ => f64::NAN,
+        });
+        out.points.push(RawPoint {
+            file: file_idx,
+            row,
+            time_s: EPOCH_1980_S + days as f64 * 86_400.0 + ms as f64 / 1000.0,
+            lon,
+            lat,
+            flow_kg_s: flow,
+            speed_m_s: value(picks.speed).map_or(f64::NAN, |v| v * 1e-3),
+            width_m: value(picks.width).map_or(f64::NAN, |v| v * 1e-3),
+            moisture_pct: moisture,
+            optional: [state, hdop, status],
+            yield_kg_ha: given,
+        });
+    }
+    Ok(())
+}
+
+/// The whole task data read (records = points + rejections), or why it cannot be.
+fn read_all(cfg: &TrialConfig, path: &Path, name: &str, file: u32) -> Result<ExportRead, String> {
+    let (path, only) = split(path);
+    let files = Files::open(&path)?;
+    let (mut logs, _) = tasks(&text(files.get("TASKDATA.XML")?, "TASKDATA.XML")?)?;
+    if let Some(o) = &only {
+        logs.retain(|l| l.file.eq_ignore_ascii_case(o));
+        if logs.is_empty() {
+            return Err(format!("TASKDATA.XML names no time log {o}"));
+        }
+    }
+    if logs.is_empty() {
+        return Err("TASKDATA.XML: no task has a time log (TLG)".into());
+    }
+    let standard = cfg
+        .crop()
+        .map(|c| c.standard_moisture_pct)
+        .unwrap_or(f64::NAN);
+    let mut out = ExportRead::default();
+    for l in &logs {
+        let h = header(
+            &text(files.get(&format!("{}.XML", l.file))?, &l.file)?,
+            &format!("{}.XML", l.file),
+        )?;
+        let bin = files.get(&format!("{}.BIN", l.file))?;
+        let source = if only.is_some() {
+            name.to_string()
+        } else {
+            format!("{name}#{}", l.file)
+        };
+        read_log(&h, bin, &source, file, standard, &mut out)?;
+    }
+    if out.rows == 0 {
+        return Err("the time logs hold no record".into());
+    }
+    Ok(out)
+}
+
+/// What each time log maps, in words.
+fn mapping(path: &Path) -> Result<Vec<String>, String> {
+    let (path, only) = split(path);
+    let files = Files::open(&path)?;
+    let (logs, dets) = tasks(&text(files.get("TASKDATA.XML")?, "TASKDATA.XML")?)?;
+    let mut out = Vec::new();
+    for l in logs
+        .iter()
+        .filter(|l| only.as_ref().is_none_or(|o| l.file.eq_ignore_ascii_case(o)))
+    {
+        let file = format!("{}.XML", l.file);
+        let h = header(&text(files.get(&file)?, &file)?, &file)?;
+        files.get(&format!("{}.BIN", l.file))?;
+        let p = Picks::of(&h);
+        let amount = p.amount(&l.file)?;
+        let det = |i: Option<usize>| {
+            i.map(|i| {
+                let id = &h.dlv[i].1;
+                let d = dets.get(id).map(String::as_str).unwrap_or("");
+                format!(
+                    "{:04X} of {id}{}",
+                    h.dlv[i].0,
+                    if d.is_empty() {
+                        String::new()
+                    } else {
+                        format!(" ({d})")
+                    }
+                )
+            })
+            .unwrap_or_else(|| "not logged".into())
+        };
+        let what = if Some(amount) == p.flow {
+            "mass flow"
+        } else if Some(amount) == p.wet {
+            "wet yield"
+        } else {
+            "dry yield"
+        };
+        out.push(format!(
+            "task {:?}, {}: {what} {}, moisture {}, width {}, speed {}, work state {}",
+            l.task,
+            l.file,
+            det(Some(amount)),
+            det(p.moisture),
+            det(p.width),
+            det(p.speed),
+            det(p.state)
+        ));
+    }
+    Ok(out)
+}
+
+impl MonitorFormat for TaskData {
+    fn name(&self) -> &'static str {
+        "iso11783_taskdata"
+    }
+    fn extensions(&self) -> &'static [&'static str] {
+        &["xml", "zip"]
+    }
+    fn claims(&self, path: &Path) -> bool {
+        let path = split(path).0;
+        path.file_name()
+            .and_then(|n| n.to_str())
+            .is_some_and(|n| n.eq_ignore_ascii_case("TASKDATA.XML"))
+            || path
+                .extension()
+                .is_some_and(|x| x.eq_ignore_ascii_case("zip"))
+    }
+    fn sniff(&self, path: &Path, head: &[u8]) -> bool {
+        self.claims(path)
+            && (head.starts_with(b"PK\x03\x04")
+                || String::from_utf8_lossy(head).contains("ISO11783_TaskData"))
+    }
+    fn describe(&self, _cfg: &TrialConfig) -> String {
+        "ISO 11783-10 task data: every task's binary time logs; mass flow from DDI 0057 (mg/s), else yield from 0054 (wet, mg/m2) or 00B5 (dry, mg/m2); moisture 0063 (ppm), width 0043 (mm), speed 018D (mm/s), work state 008D; positions WGS 84; [columns] is not used".into()
+    }
+    fn describe_file(&self, cfg: &TrialConfig, path: &Path) -> String {
+        match mapping(path) {
+            Ok(m) => format!(
+                "ISO 11783-10 task data, {}; positions WGS 84; [columns] is not used",
+                m.join("; ")
+            ),
+            Err(_) => self.describe(cfg),
+        }
+    }
+    fn check(&self, _cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String> {
+        mapping(path)
+            .map(|_| ())
+            .map_err(|e| format!("{name}: {e}"))
+    }
+    fn read(
+        &self,
+        cfg: &TrialConfig,
+        path: &Path,
+        name: &str,
+        file: u32,
+    ) -> Result<ExportRead, IngestError> {
+        read_all(cfg, path, name, file).map_err(|message| IngestError::Unusable {
+            file: name.to_string(),
+            message,
+        })
+    }
+    fn positions(
+        &self,
+        _cfg: &TrialConfig,
+        _bytes: &[u8],
+    ) -> Result<Option<Vec<(f64, f64)>>, String> {
+        // Intake matches delimited exports only.
+        Ok(None)
+    }
+}
+
+/// Writes a task-data set into the folder `dir` (created; it must not exist): one task per
+/// `(designator, csv)`, each with one time log made from a point table in the simulator's
+/// text form (`time_utc`, `lon_deg`, `lat_deg`, `mass_flow_lb_s`, `speed_mph`, `swath_ft`,
+/// `moisture_pct`, `header_state`, `hdop`): mass flow as DDI 0057 (mg/s), moisture 0063
+/// (ppm), speed 018D (mm/s), working width 0043 (mm), work state 008D, positions in 1e-7
+/// degrees with status 2 (DGNSS) and the HDOP, each value logged when it changes. For
+/// `plotsieve simulate --form taskdata`; the bytes depend only on the tables.
+pub fn write_set(dir: &Path, logs: &[(String, String)]) -> Result<(), String> {
+    if dir.exists() {
+        return Err(format!("{} exists", dir.display()));
+    }
+    std::fs::create_dir_all(dir).map_err(|e| e.to_string())?;
+    let mut tasks = String::new();
+    const DLVS: [(&str, &str); 5] = [
+        ("0057", "DET-1"),
+        ("0063", "DET-1"),
+        ("018D", "DET-1"),
+        ("0043", "DET-1"),
+        ("008D", "DET-1"),
+    ];
+    for (k, (task, csv_text)) in logs.iter().enumerate() {
+        let tlg = format!("TLG{:05}", k + 1);
+        tasks += &format!(
+            "<TSK A=\"TSK{}\" B=\"{}\" G=\"4\">\n<TLG A=\"{tlg}\" C=\"1\"/>\n</TSK>\n",
+            k + 1,
+            task.replace('&', "&amp;")
+                .replace('"', "&quot;")
+                .replace('<', "&lt;")
+        );
+        let mut rdr = csv::Reader::from_reader(csv_text.as_bytes());
+        let header: Vec<String> = rdr
+            .headers()
+            .map_err(|e| e.to_string())?
+            .iter()
+            .map(String::from)
+            .collect();
+        let col = |n: &str| {
+            header
+                .iter()
+                .position(|h| h == n)
+                .ok_or_else(|| format!("the point table has no {n} column"))
+        };
+        let idx = [
+            col("time_utc")?,
+            col("lon_deg")?,
+            col("lat_deg")?,
+            col("mass_flow_lb_s")?,
+            col("moisture_pct")?,
+            col("speed_mph")?,
+            col("swath_ft")?,
+            col("header_state")?,
+            col("hdop")?,
+        ];
+        let mut bin = Vec::new();
+        let mut last: [Option<i32>; 5] = [None; 5];
+        for (r, rec) in rdr.records().enumerate() {
+            let rec = rec.map_err(|e| e.to_string())?;
+            let num = |i: usize| -> Result<f64, String> {
+                rec.get(idx[i])
+                    .and_then(|v| v.parse::<f64>().ok())
+                    .ok_or_else(|| format!("record {}: {} is not a number", r + 1, header[idx[i]]))
+            };
+            let t = crate::ingest::time::parse_iso8601(rec.get(idx[0]).unwrap_or(""))
+                .ok_or_else(|| format!("record {}: time is not ISO 8601", r + 1))?;
+            let since = t - EPOCH_1980_S;
+            let days = (since / 86_400.0).floor();
+            let ms = ((since - days * 86_400.0) * 1000.0).round();
+            bin.extend((ms as u32).to_le_bytes());
+            bin.extend((days as u16).to_le_bytes());
+            let deg = |v: f64| (v * 1e7).round() as i32;
+            bin.extend(deg(num(2)?).to_le_bytes());
+            bin.extend(deg(num(1)?).to_le_bytes());
+            bin.push(2);
+            bin.extend(((num(8)? * 10.0).round() as u16).to_le_bytes());
+            let now: [i32; 5] = [
+                (num(3)? * 0.453_592_37 * 1e6).round() as i32,
+                (num(4)? * 1e4).round() as i32,
+                (num(5)? * 447.04).round() as i32,
+                (num(6)? * 304.8).round() as i32,
+                num(7)?.round() as i32,
+            ];
+            let changed: Vec<usize> = (0..5).filter(|&i| last[i] != Some(now[i])).collect();
+            bin.push(changed.len() as u8);
+            for i in changed {
+                bin.push(i as u8);
+                bin.extend(now[i].to_le_bytes());
+                last[i] = Some(now[i]);
+            }
+        }
+        let dlvs: String = DLVS
+            .iter()
+            .map(|(d, e)| format!("<DLV A=\"{d}\" B=\"\" C=\"{e}\"/>\n"))
+            .collect();
+        let head = format!(
+            "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n<TIM A=\"\" D=\"4\">\n<PTN A=\"\" B=\"\" D=\"\" F=\"\"/>\n{dlvs}</TIM>\n"
+        );
+        std::fs::write(dir.join(format!("{tlg}.XML")), head).map_err(|e| e.to_string())?;
+        std::fs::write(dir.join(format!("{tlg}.BIN")), bin).map_err(|e| e.to_string())?;
+    }
+    let main = format!(
+        "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n<ISO11783_TaskData VersionMajor=\"4\" VersionMinor=\"3\" ManagementSoftwareManufacturer=\"plotsieve simulate\" ManagementSoftwareVersion=\"1\" DataTransferOrigin=\"2\">\n<DVC A=\"DVC-1\" B=\"Combine\" D=\"A000860025A00001\" F=\"FF000000006C6A\" G=\"FF000000006C6A\">\n<DET A=\"DET-1\" B=\"1\" C=\"1\" D=\"Combine\" E=\"0\" F=\"0\"/>\n</DVC>\n{tasks}</ISO11783_TaskData>\n"
+    );
+    std::fs::write(dir.join("TASKDATA.XML"), main).map_err(|e| e.to_string())
+}
+
+/// The mapping `check` prints for a task-data export.
+pub fn describe_file(path: &Path) -> Result<Vec<String>, String> {
+    mapping(path)
+}
+
+#[cfg(test)]
+mod tests;
