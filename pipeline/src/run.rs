@@ -634,6 +634,15 @@ pub fn simulate(dir: &Path, o: &simulate::SimOptions) -> Result<()> {
         let path = dir.join(rel);
         if rel.ends_with(".taskdata") {
             continue;
+        } else if rel.ends_with(".shp") {
+            // The .shp, .shx, .dbf and .prj are written together, then the stale ones of an
+            // earlier run are gone.
+            std::fs::create_dir_all(path.parent().unwrap_or(dir))?;
+            for ext in ["shp", "shx", "dbf", "prj"] {
+                let _ = std::fs::remove_file(path.with_extension(ext));
+            }
+            ingest::layers::write_point_shapefile(&path, text)
+                .map_err(|e| anyhow::anyhow!("writing {}: {e}", path.display()))?;
         } else if rel.ends_with(".gpkg") {
             // A GeoPackage is written whole into a temporary file, then renamed.
             let parent = path.parent().unwrap_or(dir);

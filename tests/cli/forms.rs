@@ -160,6 +160,59 @@ fn a_simulated_harvest_as_geopackage_points_reads_as_the_text_form() {
 }
 
 #[test]
+fn a_simulated_harvest_as_point_shapefiles_reads_as_the_text_form() {
+    // `simulate --form shapefile`: the text form's records as point Shapefiles (dBase names
+    // of at most 10 characters, a WGS 84 .prj); the same plots, yields and rejections.
+    let w = Workdir::new("forms-shp-sim");
+    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
+    let shp = simulate(
+        &w,
+        "shp",
+        &["--seed", "2", "--form", "shapefile", "--quiet"],
+    );
+    for ext in ["shp", "shx", "dbf", "prj"] {
+        assert!(
+            w.path(&format!("shp/monitor/field-A.{ext}")).is_file(),
+            "{ext}"
+        );
+    }
+    let o = plotsieve(&w.0, &["check", shp.to_str().unwrap()]);
+    ok(&o);
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("read: monitor/field-A.shp: shapefile_points: point geometry"),
+        "{out}"
+    );
+    let d = same_plots(&w, &text, &shp, "r-text", "r-shp");
+    assert!(
+        *d.last().unwrap() < 1e-9,
+        "largest difference {:?}",
+        d.last()
+    );
+    let (ra, rb) = (
+        csv_rows(&w.path("r-text/2-clean/rejected.csv")),
+        csv_rows(&w.path("r-shp/2-clean/rejected.csv")),
+    );
+    assert_eq!(ra.len(), rb.len());
+    assert!(ra
+        .iter()
+        .zip(&rb)
+        .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
+    // The same bytes again (the dBase header's date is fixed).
+    simulate(
+        &w,
+        "shp2",
+        &["--seed", "2", "--form", "shapefile", "--quiet"],
+    );
+    for ext in ["shp", "dbf"] {
+        assert_eq!(
+            sha(&w.path(&format!("shp/monitor/field-B.{ext}"))),
+            sha(&w.path(&format!("shp2/monitor/field-B.{ext}")))
+        );
+    }
+}
+
+#[test]
 fn a_simulated_harvest_as_iso_11783_task_data_reads_as_the_text_form() {
     // `simulate --form taskdata`: one task-data set (monitor/TASKDATA/, one task and binary
     // time log per field, values logged when they change, integer DDI units). Each time log

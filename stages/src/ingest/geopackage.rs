@@ -289,20 +289,12 @@ impl Wkb<'_> {
 /// layer `points` in WGS84 lon/lat, for the simulator. The file is new (an existing one is
 /// an error) and its bytes depend only on the table (a fixed `last_change`).
 pub fn write_points(path: &Path, csv_text: &str) -> Result<(), String> {
-    let mut rdr = csv::Reader::from_reader(csv_text.as_bytes());
-    let header: Vec<String> = rdr
-        .headers()
-        .map_err(|e| e.to_string())?
-        .iter()
-        .map(String::from)
-        .collect();
-    let at = |n: &str| header.iter().position(|h| h == n);
-    let (ilon, ilat) = at("lon_deg")
-        .zip(at("lat_deg"))
-        .ok_or("a point table needs lon_deg and lat_deg")?;
-    let attrs: Vec<usize> = (0..header.len())
-        .filter(|&i| i != ilon && i != ilat)
-        .collect();
+    let crate::ingest::layers::PointTable {
+        mut rdr,
+        header,
+        lonlat: (ilon, ilat),
+        attrs,
+    } = crate::ingest::layers::point_table(csv_text)?;
     if path.exists() {
         return Err(format!("{} exists", path.display()));
     }

@@ -365,3 +365,99 @@ pub fn plot_polygons(
     }
     Ok(out)
 }
+
+/// A simulator's point table (CSV text): its reader after the header, the header, the
+/// positions of `lon_deg` and `lat_deg`, and the other columns.
+pub(crate) struct PointTable<'a> {
+    pub(crate) rdr: csv::Reader<&'a [u8]>,
+    pub(crate) header: Vec<String>,
+    pub(crate) lonlat: (usize, usize),
+    pub(crate) attrs: Vec<usize>,
+}
+
+pub(crate) fn point_table(csv_text: &str) -> Result<PointTable<'_>, String> {
+    let mut rdr = csv::Reader::from_reader(csv_text.as_bytes());
+    let header: Vec<String> = rdr
+        .headers()
+        .map_err(|e| e.to_string())?
+        .iter()
+        .map(String::from)
+        .collect();
+    let at = |n: &str| header.iter().position(|h| h == n);
+    let (ilon, ilat) = at("lon_deg")
+        .zip(at("lat_deg"))
+        .ok_or("a point table needs lon_deg and lat_deg")?;
+    let attrs: Vec<usize> = (0..header.len())
+        .filter(|&i| i != ilon && i != ilat)
+        .collect();
+    Ok(PointTable {
+        rdr,
+        header,
+        lonlat: (ilon, ilat),
+        attrs,
+    })
+}
+
+/// Writes a point table (CSV text with `lon_deg` and `lat_deg` and other columns of at most
+/// 10 characters) as a point Shapefile at `path` (`.shp`, `.shx`, `.dbf`, and a `.prj` in
+/// WGS 84): each record a point with the other columns as attributes (`time_utc` as text,
+/// the rest as numbers with 8 decimals). The dBase header's date is set to 2026-01-01 so
+/// that the same table gives the same bytes. For `plotsieve simulate --form shapefile`.
+pub fn write_point_shapefile(path: &Path, csv_text: &str) -> Result<(), String> {
+    use shapefile::dbase::{FieldName, Record, TableWriterBuilder};
+    let PointTable {
+        mut rdr,
+        header,
+        lonlat: (ilon, ilat),
+        attrs,
+    } = point_table(csv_text)?;
+    let mut table = TableWriterBuilder::new();
+    for &i in &attrs {
+        let name = FieldName::try_from(header[i].as_str()).map_err(|_| {
+            format!(
+                "{}: not a dBase field name (at most 10 characters)",
+                header[i]
+            )
+        })?;
+        table = if header[i] == "time_utc" {
+            table.add_character_field(name, 24)
+        } else {
+            table.add_numeric_field(name, 19, 8)
+        };
+    }
+    {
+        let mut w = shapefile::Writer::from_path(path, table).map_err(|e| e.to_string())?;
+        for (r, rec) in rdr.records().enumerate() {
+            let rec = rec.map_err(|e| e.to_string())?;
+            let num = |i: usize| -> Result<f64, String> {
+                rec.get(i)
+                    .and_then(|v| v.parse::<f64>().ok())
+                    .ok_or_else(|| format!("record {}: {} is not a number", r + 1, header[i]))
+            };
+            let point = shapefile::Point::new(num(ilon)?, num(ilat)?);
+            let mut record = Record::default();
+            for &i in &attrs {
+                let v = if header[i] == "time_utc" {
+                    FieldValue::Character(Some(rec.get(i).unwrap_or("").to_string()))
+                } else {
+                    FieldValue::Numeric(Some(num(i)?))
+                };
+                record.insert(header[i].clone(), v);
+            }
+            w.write_shape_and_record(&point, &record)
+                .map_err(|e| e.to_string())?;
+        }
+    }
+    // A fixed last-update date (bytes 1-3: years since 1900, month, day).
+    let dbf = path.with_extension("dbf");
+    let mut bytes = std::fs::read(&dbf).map_err(|e| e.to_string())?;
+    if bytes.len() > 4 {
+        bytes[1..4].copy_from_slice(&[126, 1, 1]);
+    }
+    std::fs::write(&dbf, bytes).map_err(|e| e.to_string())?;
+    std::fs::write(
+        path.with_extension("prj"),
+        "GEOGCS[\"GCS_WGS_1984\",DATUM[\"D_WGS_1984\",SPHEROID[\"WGS_1984\",6378137.0,298.257223563]],PRIMEM[\"Greenwich\",0.0],UNIT[\"Degree\",0.0174532925199433]]",
+    )
+    .map_err(|e| e.to_string())
+}

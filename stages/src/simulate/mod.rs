@@ -80,6 +80,9 @@ crate::choice! {
         /// ISO 11783-10 task data: one task per field with a binary time log of the text
         /// form's records (mass flow, moisture, speed, working width, work state, position).
         TaskData = "taskdata",
+        /// The text form's records as point Shapefiles (WGS 84 points with a `.prj`; the
+        /// columns under dBase names of at most 10 characters).
+        Shapefile = "shapefile",
     }
 }
 
@@ -119,7 +122,8 @@ pub struct SimTrial {
     /// `.gpkg` file's contents are the CSV of its points (the text form), to be written as a
     /// GeoPackage point layer by [`crate::ingest::geopackage::write_points`]; the `.taskdata`
     /// files' are too, written together as one task-data set (`monitor/TASKDATA/`, one task
-    /// per file) by [`crate::ingest::formats::taskdata::write_set`].
+    /// per file) by [`crate::ingest::formats::taskdata::write_set`]; a `.shp` file's too,
+    /// written as a point Shapefile by [`crate::ingest::layers::write_point_shapefile`].
     pub files: Vec<(String, String)>,
     pub points: usize,
 }
@@ -460,12 +464,14 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             SimForm::Text | SimForm::GeoPackage | SimForm::TaskData => "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
             SimForm::DistanceText => "Date;Time;Longitude;Latitude;Flow_lb_s;Distance_in;Interval_s;Swath_ft;Moisture_pct;Heading_deg;Header;HDOP\n",
             SimForm::YieldPoints => "time_utc,lon_deg,lat_deg,dry_yield_t_ha,moisture_pct,heading_deg,header_state\n",
+            SimForm::Shapefile => "time_utc,lon_deg,lat_deg,flow_lb_s,speed_mph,swath_ft,moist_pct,heading,header,hdop\n",
         });
         let file_name = format!(
             "monitor/field-{fname}.{}",
             match o.form {
                 SimForm::GeoPackage => "gpkg",
                 SimForm::TaskData => "taskdata",
+                SimForm::Shapefile => "shp",
                 _ => "csv",
             }
         );
@@ -534,7 +540,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             let flow = flows_out[from..=i].iter().map(|f| f.max(0.0)).sum::<f64>() / span;
             let distance: f64 = rows[from..=i].iter().map(|r| r.speed).sum();
             match o.form {
-                SimForm::Text | SimForm::GeoPackage | SimForm::TaskData => {
+                SimForm::Text | SimForm::GeoPackage | SimForm::TaskData | SimForm::Shapefile => {
                     let _ = writeln!(
                         csv,
                         "{},{:.8},{:.8},{:.4},{:.3},{:.2},{:.2},{:.1},{},{:.2}",

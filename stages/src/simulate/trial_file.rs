@@ -29,6 +29,18 @@ work_state = "Header"
 hdop = "HDOP"
 "#;
 
+const SHAPE_COLUMNS: &str = r#"delimiter = ","
+time = { name = "time_utc", format = "iso8601" }
+longitude = "lon_deg"
+latitude = "lat_deg"
+flow = { name = "flow_lb_s", unit = "lb_s" }
+speed = { name = "speed_mph", unit = "mph" }
+width = { name = "swath_ft", unit = "ft" }
+moisture = "moist_pct"
+work_state = "header"
+hdop = "hdop"
+"#;
+
 const YIELD_COLUMNS: &str = r#"delimiter = ","
 time = { name = "time_utc", format = "iso8601" }
 longitude = "lon_deg"
@@ -52,6 +64,8 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
         SimForm::Text | SimForm::GeoPackage => TEXT_COLUMNS,
         // Task data names its quantities by DDI; [columns] is not read for it.
         SimForm::TaskData => TEXT_COLUMNS,
+        // dBase names: at most 10 characters.
+        SimForm::Shapefile => SHAPE_COLUMNS,
         SimForm::DistanceText => DISTANCE_COLUMNS,
         SimForm::YieldPoints => YIELD_COLUMNS,
     };

@@ -621,13 +621,9 @@ pub fn write_set(dir: &Path, logs: &[(String, String)]) -> Result<(), String> {
                 .replace('"', "&quot;")
                 .replace('<', "&lt;")
         );
-        let mut rdr = csv::Reader::from_reader(csv_text.as_bytes());
-        let header: Vec<String> = rdr
-            .headers()
-            .map_err(|e| e.to_string())?
-            .iter()
-            .map(String::from)
-            .collect();
+        let crate::ingest::layers::PointTable {
+            mut rdr, header, ..
+        } = crate::ingest::layers::point_table(csv_text)?;
         let col = |n: &str| {
             header
                 .iter()
