@@ -180,8 +180,10 @@ fn trial_info(season_dir: &Path, t: &SeasonTrial) -> Result<TrialInfo> {
 }
 
 /// How many records of the export fall in each trial's box, or why it cannot be read.
-fn match_export(bytes: &[u8], trials: &[TrialInfo]) -> Result<Vec<usize>, String> {
-    if !bytes.ends_with(b"\n") {
+fn match_export(path: &Path, bytes: &[u8], trials: &[TrialInfo]) -> Result<Vec<usize>, String> {
+    let format = ingest::formats::for_bytes(path, bytes);
+    // A text export cut short has no line end; other formats say so themselves.
+    if format.name() == "mapped_text" && !bytes.ends_with(b"\n") {
         let lines = bytes.iter().filter(|&&c| c == b'\n').count() + 1;
         return Err(format!(
             "partial: the last line (line {lines}) is cut short (no line end)"
@@ -190,7 +192,6 @@ fn match_export(bytes: &[u8], trials: &[TrialInfo]) -> Result<Vec<usize>, String
     let mut counts = vec![0usize; trials.len()];
     let mut any_mapping = false;
     for (k, t) in trials.iter().enumerate() {
-        let format = ingest::formats::for_bytes(Path::new("export"), bytes);
         let Some(positions) = format.positions(&t.cfg, bytes)? else {
             continue;
         };
@@ -255,7 +256,7 @@ pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
             reason: String::new(),
             trials: BTreeMap::new(),
         };
-        match match_export(&bytes, &trials) {
+        match match_export(path, &bytes, &trials) {
             Err(reason) => {
                 record.status = "partial".into();
                 lines.push(format!("left in the inbox: {name}: {reason}"));

@@ -169,3 +169,65 @@ fn intake_matches_exports_to_trials_and_reruns_only_what_changed() {
             .unwrap()
     );
 }
+
+#[test]
+fn a_zipped_task_data_set_in_the_inbox_goes_to_its_trial() {
+    // Task data comes off a terminal as a zipped TASKDATA folder: intake reads the positions
+    // in its time logs, copies the archive to the trial it covers and reruns that trial,
+    // which reads each time log as an export. A TASKDATA.XML without its logs is left in the
+    // inbox with the reason.
+    let w = Workdir::new("intake-taskdata");
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "simulate", "north", "--seed", "71", "--form", "taskdata", "--quiet",
+        ],
+    ));
+    let inbox = w.path("inbox");
+    std::fs::create_dir_all(&inbox).unwrap();
+    let set = w.path("north/monitor/TASKDATA");
+    {
+        let f = std::fs::File::create(inbox.join("north-harvest.zip")).unwrap();
+        let mut z = ::zip::ZipWriter::new(f);
+        let opts = ::zip::write::SimpleFileOptions::default()
+            .compression_method(::zip::CompressionMethod::Stored);
+        let mut names: Vec<String> = std::fs::read_dir(&set)
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+            .collect();
+        names.sort();
+        for n in names {
+            z.start_file(format!("TASKDATA/{n}"), opts).unwrap();
+            std::io::Write::write_all(&mut z, &std::fs::read(set.join(&n)).unwrap()).unwrap();
+        }
+        z.finish().unwrap();
+    }
+    std::fs::copy(set.join("TASKDATA.XML"), inbox.join("TASKDATA.XML")).unwrap();
+    std::fs::remove_dir_all(&set).unwrap();
+    std::fs::write(
+        w.path("season.toml"),
+        "[[trial]]\nfile = \"north/trial.toml\"\nout = \"runs/north\"\n",
+    )
+    .unwrap();
+    let o = plotsieve(&w.0, &["intake", "inbox", "season.toml"]);
+    ok(&o);
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("taken: north-harvest.zip -> north/trial.toml"),
+        "{out}"
+    );
+    assert!(
+        out.contains("left in the inbox: TASKDATA.XML") && out.contains("zipped"),
+        "{out}"
+    );
+    assert!(w.path("north/monitor/north-harvest.zip").is_file());
+    let s = json(&w.path("runs/north/1-ingest/summary.json"));
+    let read_as = s["details"].to_string();
+    assert!(
+        read_as.contains("north-harvest.zip#TLG00001")
+            && read_as.contains("north-harvest.zip#TLG00002"),
+        "{read_as}"
+    );
+    let plots = csv_rows(&w.path("runs/north/3-plots/plots.csv"));
+    assert!(plots.iter().filter(|p| p["status"] == "kept").count() >= 40);
+}

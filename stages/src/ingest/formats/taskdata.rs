@@ -77,35 +77,7 @@ impl Files {
         let mut files = BTreeMap::new();
         if is_zip {
             let f = std::fs::File::open(path).map_err(|e| e.to_string())?;
-            let mut z = zip::ZipArchive::new(f).map_err(|e| format!("not a zip archive ({e})"))?;
-            let mut names: Vec<String> = Vec::with_capacity(z.len());
-            for i in 0..z.len() {
-                let e = z.by_index(i).map_err(|e| format!("entry {i}: {e}"))?;
-                names.push(e.name().map_err(|e| format!("entry {i}: {e}"))?.to_string());
-            }
-            let main = names
-                .iter()
-                .filter(|n| {
-                    n.rsplit('/')
-                        .next()
-                        .is_some_and(|b| b.eq_ignore_ascii_case("TASKDATA.XML"))
-                })
-                .min_by_key(|n| n.len())
-                .ok_or("the archive holds no TASKDATA.XML")?
-                .clone();
-            let dir = &main[..main.len() - "TASKDATA.XML".len()];
-            for n in &names {
-                let Some(base) = n.strip_prefix(dir) else {
-                    continue;
-                };
-                if base.is_empty() || base.contains('/') {
-                    continue;
-                }
-                let mut e = z.by_name(n).map_err(|e| format!("{n}: {e}"))?;
-                let mut bytes = Vec::new();
-                e.read_to_end(&mut bytes).map_err(|e| format!("{n}: {e}"))?;
-                files.insert(base.to_ascii_uppercase(), bytes);
-            }
+            return Files::from_zip(f);
         } else {
             let dir = path.parent().unwrap_or(Path::new("."));
             let dir = if dir.as_os_str().is_empty() {
@@ -123,6 +95,41 @@ impl Files {
                     files.insert(up, std::fs::read(&p).map_err(|e| format!("{base}: {e}"))?);
                 }
             }
+        }
+        Ok(Files(files))
+    }
+
+    /// The files of the archive's folder that holds `TASKDATA.XML` (the shallowest).
+    fn from_zip<R: Read + std::io::Seek>(r: R) -> Result<Files, String> {
+        let mut files = BTreeMap::new();
+        let mut z = zip::ZipArchive::new(r).map_err(|e| format!("not a zip archive ({e})"))?;
+        let mut names: Vec<String> = Vec::with_capacity(z.len());
+        for i in 0..z.len() {
+            let e = z.by_index(i).map_err(|e| format!("entry {i}: {e}"))?;
+            names.push(e.name().map_err(|e| format!("entry {i}: {e}"))?.to_string());
+        }
+        let main = names
+            .iter()
+            .filter(|n| {
+                n.rsplit('/')
+                    .next()
+                    .is_some_and(|b| b.eq_ignore_ascii_case("TASKDATA.XML"))
+            })
+            .min_by_key(|n| n.len())
+            .ok_or("the archive holds no TASKDATA.XML")?
+            .clone();
+        let dir = &main[..main.len() - "TASKDATA.XML".len()];
+        for n in &names {
+            let Some(base) = n.strip_prefix(dir) else {
+                continue;
+            };
+            if base.is_empty() || base.contains('/') {
+                continue;
+            }
+            let mut e = z.by_name(n).map_err(|e| format!("{n}: {e}"))?;
+            let mut bytes = Vec::new();
+            e.read_to_end(&mut bytes).map_err(|e| format!("{n}: {e}"))?;
+            files.insert(base.to_ascii_uppercase(), bytes);
         }
         Ok(Files(files))
     }
@@ -585,10 +592,25 @@ impl MonitorFormat for TaskData {
     fn positions(
         &self,
         _cfg: &TrialConfig,
-        _bytes: &[u8],
+        bytes: &[u8],
     ) -> Result<Option<Vec<(f64, f64)>>, String> {
-        // Intake matches delimited exports only.
-        Ok(None)
+        // Intake takes a zipped set (its time logs travel with it).
+        if !bytes.starts_with(b"PK\x03\x04") {
+            return Err(
+                "unreadable: a task-data set goes into the inbox zipped, with its time logs".into(),
+            );
+        }
+        let files =
+            Files::from_zip(std::io::Cursor::new(bytes)).map_err(|e| format!("unreadable: {e}"))?;
+        let (logs, _) = tasks(&text(files.get("TASKDATA.XML")?, "TASKDATA.XML")?)?;
+        let mut out = ExportRead::default();
+        for l in &logs {
+            let file = format!("{}.XML", l.file);
+            let h = header(&text(files.get(&file)?, &file)?, &file)?;
+            let bin = files.get(&format!("{}.BIN", l.file))?;
+            read_log(&h, bin, &l.file, 0, f64::NAN, &mut out)?;
+        }
+        Ok(Some(out.points.iter().map(|p| (p.lon, p.lat)).collect()))
     }
 }
 
