@@ -160,7 +160,7 @@ fn speed_factor(u: SpeedUnit) -> f64 {
         SpeedUnit::Mph => 0.44704,
     }
 }
-fn width_factor(u: WidthUnit) -> f64 {
+pub(crate) fn width_factor(u: WidthUnit) -> f64 {
     match u {
         WidthUnit::M => 1.0,
         WidthUnit::Ft => 0.3048,

@@ -9,7 +9,7 @@
 //! [`MonitorFormat`] and its tests, then add one line to [`FORMATS`]. Formats are sniffed in
 //! list order, so a format that recognises its files by content goes before the fallback.
 
-mod mapped_text;
+pub(crate) mod mapped_text;
 mod mapping_words;
 mod point_layers;
 pub mod taskdata;

@@ -14,7 +14,9 @@
 //! mg/m2, wet, standardised with the moisture, or 0x00B5 dry mass per area yield, mg/m2, at
 //! 0 % moisture (from memory of the dictionary's definition; standardised to the crop's
 //! moisture); 0x0063 crop moisture, ppm; 0x0043 actual working width, mm; 0x018D actual
-//! speed, mm/s; 0x008D actual work state (0 off, 1 on). Where several device elements log
+//! speed, mm/s; 0x008D actual work state (0 off, 1 on). A log without a speed gets it from
+//! successive positions and times; one without a working width takes `columns.width.value`
+//! (else the rules that need a width are skipped). Where several device elements log
 //! one DDI the first in the header is read, and `check` says which. Positions are WGS 84
 //! degrees (1e-7 units); a record with north = east = 0 or position status 0 (no fix) is
 //! `no_position`. Time is read as UTC. The PTN's HDOP and status go to the optional HDOP and
@@ -292,9 +294,11 @@ fn read_log(
     source: &str,
     file_idx: u32,
     standard: f64,
+    fixed_width_m: f64,
     out: &mut ExportRead,
 ) -> Result<(), String> {
     let picks = Picks::of(h);
+    let first_point = out.points.len();
     let amount = picks.amount(source)?;
     let mut last: Vec<Option<i32>> = vec![None; h.dlv.len()];
     let mut at = 0usize;
@@ -440,13 +444,52 @@ fn read_log(
             lat,
             flow_kg_s: flow,
             speed_m_s: value(picks.speed).map_or(f64::NAN, |v| v * 1e-3),
-            width_m: value(picks.width).map_or(f64::NAN, |v| v * 1e-3),
+            width_m: value(picks.width).map_or(fixed_width_m, |v| v * 1e-3),
             moisture_pct: moisture,
             optional: [state, hdop, status],
             yield_kg_ha: given,
         });
     }
+    if picks.speed.is_none() {
+        speed_from_positions(&mut out.points[first_point..]);
+    }
     Ok(())
+}
+
+/// Speeds from positions and times where the log has no speed: the distance to the
+/// previous point over the time between them (the first point: to the next), on a local
+/// sphere of radius 6,371,008.8 m (the mean Earth radius); NaN where the time does not move
+/// forward.
+fn speed_from_positions(pts: &mut [RawPoint]) {
+    const R: f64 = 6_371_008.8;
+    let step = |a: &RawPoint, b: &RawPoint| {
+        let lat = (0.5 * (a.lat + b.lat)).to_radians();
+        let dx = R * lat.cos() * (b.lon - a.lon).to_radians();
+        let dy = R * (b.lat - a.lat).to_radians();
+        let dt = b.time_s - a.time_s;
+        if dt > 0.0 {
+            (dx * dx + dy * dy).sqrt() / dt
+        } else {
+            f64::NAN
+        }
+    };
+    let speeds: Vec<f64> = (0..pts.len())
+        .map(|i| match i {
+            0 if pts.len() > 1 => step(&pts[0], &pts[1]),
+            0 => f64::NAN,
+            _ => step(&pts[i - 1], &pts[i]),
+        })
+        .collect();
+    for (p, v) in pts.iter_mut().zip(speeds) {
+        p.speed_m_s = v;
+    }
+}
+
+/// The swath a log without a working width falls back to: `columns.width.value` (in
+/// `columns.width.unit`), else NaN (and the rules that need a width are skipped).
+fn fixed_width_m(cfg: &TrialConfig) -> f64 {
+    let w = &cfg.columns.width;
+    w.value.unwrap_or(f64::NAN) * super::mapped_text::width_factor(w.unit)
 }
 
 /// The whole task data read (records = points + rejections), or why it cannot be.
@@ -467,6 +510,7 @@ fn read_all(cfg: &TrialConfig, path: &Path, name: &str, file: u32) -> Result<Exp
         .crop()
         .map(|c| c.standard_moisture_pct)
         .unwrap_or(f64::NAN);
+    let fixed_width = fixed_width_m(cfg);
     let mut out = ExportRead::default();
     for l in &logs {
         let h = header(
@@ -479,7 +523,7 @@ fn read_all(cfg: &TrialConfig, path: &Path, name: &str, file: u32) -> Result<Exp
         } else {
             format!("{name}#{}", l.file)
         };
-        read_log(&h, bin, &source, file, standard, &mut out)?;
+        read_log(&h, bin, &source, file, standard, fixed_width, &mut out)?;
     }
     if out.rows == 0 {
         return Err("the time logs hold no record".into());
@@ -488,7 +532,7 @@ fn read_all(cfg: &TrialConfig, path: &Path, name: &str, file: u32) -> Result<Exp
 }
 
 /// What each time log maps, in words.
-fn mapping(path: &Path) -> Result<Vec<String>, String> {
+fn mapping(cfg: &TrialConfig, path: &Path) -> Result<Vec<String>, String> {
     let (path, only) = split(path);
     let files = Files::open(&path)?;
     let (logs, dets) = tasks(&text(files.get("TASKDATA.XML")?, "TASKDATA.XML")?)?;
@@ -525,14 +569,20 @@ fn mapping(path: &Path) -> Result<Vec<String>, String> {
         } else {
             "dry yield"
         };
+        let width = match (p.width, fixed_width_m(cfg)) {
+            (None, w) if w.is_finite() => format!("not logged: {w} m (columns.width.value)"),
+            (i, _) => det(i),
+        };
+        let speed = match p.speed {
+            None => "not logged: from positions and times".to_string(),
+            i => det(i),
+        };
         out.push(format!(
-            "task {:?}, {}: {what} {}, moisture {}, width {}, speed {}, work state {}",
+            "task {:?}, {}: {what} {}, moisture {}, width {width}, speed {speed}, work state {}",
             l.task,
             l.file,
             det(Some(amount)),
             det(p.moisture),
-            det(p.width),
-            det(p.speed),
             det(p.state)
         ));
     }
@@ -564,7 +614,7 @@ impl MonitorFormat for TaskData {
         "ISO 11783-10 task data: every task's binary time logs; mass flow from DDI 0057 (mg/s), else yield from 0054 (wet, mg/m2) or 00B5 (dry, mg/m2); moisture 0063 (ppm), width 0043 (mm), speed 018D (mm/s), work state 008D; positions WGS 84; [columns] is not used".into()
     }
     fn describe_file(&self, cfg: &TrialConfig, path: &Path) -> String {
-        match mapping(path) {
+        match mapping(cfg, path) {
             Ok(m) => format!(
                 "ISO 11783-10 task data, {}; positions WGS 84; [columns] is not used",
                 m.join("; ")
@@ -572,8 +622,8 @@ impl MonitorFormat for TaskData {
             Err(_) => self.describe(cfg),
         }
     }
-    fn check(&self, _cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String> {
-        mapping(path)
+    fn check(&self, cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String> {
+        mapping(cfg, path)
             .map(|_| ())
             .map_err(|e| format!("{name}: {e}"))
     }
@@ -608,7 +658,7 @@ impl MonitorFormat for TaskData {
             let file = format!("{}.XML", l.file);
             let h = header(&text(files.get(&file)?, &file)?, &file)?;
             let bin = files.get(&format!("{}.BIN", l.file))?;
-            read_log(&h, bin, &l.file, 0, f64::NAN, &mut out)?;
+            read_log(&h, bin, &l.file, 0, f64::NAN, f64::NAN, &mut out)?;
         }
         Ok(Some(out.points.iter().map(|p| (p.lon, p.lat)).collect()))
     }
@@ -616,8 +666,8 @@ impl MonitorFormat for TaskData {
 
 /// Writes a task-data set into the folder `dir` (created; it must not exist): one task per
 /// `(designator, csv)`, each with one time log made from a point table in the simulator's
-/// text form (`time_utc`, `lon_deg`, `lat_deg`, `mass_flow_lb_s`, `speed_mph`, `swath_ft`,
-/// `moisture_pct`, `header_state`, `hdop`): mass flow as DDI 0057 (mg/s), moisture 0063
+/// text form (`time_utc`, `lon_deg`, `lat_deg`, `mass_flow_lb_s`, `hdop`, and where present
+/// `speed_mph`, `swath_ft`, `moisture_pct`, `header_state`): mass flow as DDI 0057 (mg/s), moisture 0063
 /// (ppm), speed 018D (mm/s), working width 0043 (mm), work state 008D, positions in 1e-7
 /// degrees with status 2 (DGNSS) and the HDOP, each value logged when it changes. For
 /// `plotsieve simulate --form taskdata`; the bytes depend only on the tables.
@@ -627,12 +677,14 @@ pub fn write_set(dir: &Path, logs: &[(String, String)]) -> Result<(), String> {
     }
     std::fs::create_dir_all(dir).map_err(|e| e.to_string())?;
     let mut tasks = String::new();
-    const DLVS: [(&str, &str); 5] = [
-        ("0057", "DET-1"),
-        ("0063", "DET-1"),
-        ("018D", "DET-1"),
-        ("0043", "DET-1"),
-        ("008D", "DET-1"),
+    // (DDI, column, factor to the DDI's unit): a column the table lacks (speed, swath) is
+    // not logged.
+    const QUANTITIES: [(&str, &str, f64); 5] = [
+        ("0057", "mass_flow_lb_s", 0.453_592_37 * 1e6),
+        ("0063", "moisture_pct", 1e4),
+        ("018D", "speed_mph", 447.04),
+        ("0043", "swath_ft", 304.8),
+        ("008D", "header_state", 1.0),
     ];
     for (k, (task, csv_text)) in logs.iter().enumerate() {
         let tlg = format!("TLG{:05}", k + 1);
@@ -656,21 +708,23 @@ pub fn write_set(dir: &Path, logs: &[(String, String)]) -> Result<(), String> {
             col("time_utc")?,
             col("lon_deg")?,
             col("lat_deg")?,
-            col("mass_flow_lb_s")?,
-            col("moisture_pct")?,
-            col("speed_mph")?,
-            col("swath_ft")?,
-            col("header_state")?,
             col("hdop")?,
         ];
+        let logged: Vec<(&str, usize, f64)> = QUANTITIES
+            .iter()
+            .filter_map(|(d, c, f)| col(c).ok().map(|i| (*d, i, *f)))
+            .collect();
+        if !logged.iter().any(|q| q.0 == "0057") {
+            return Err("the point table has no mass_flow_lb_s column".into());
+        }
         let mut bin = Vec::new();
-        let mut last: [Option<i32>; 5] = [None; 5];
+        let mut last: Vec<Option<i32>> = vec![None; logged.len()];
         for (r, rec) in rdr.records().enumerate() {
             let rec = rec.map_err(|e| e.to_string())?;
             let num = |i: usize| -> Result<f64, String> {
-                rec.get(idx[i])
+                rec.get(i)
                     .and_then(|v| v.parse::<f64>().ok())
-                    .ok_or_else(|| format!("record {}: {} is not a number", r + 1, header[idx[i]]))
+                    .ok_or_else(|| format!("record {}: {} is not a number", r + 1, header[i]))
             };
             let t = crate::ingest::time::parse_iso8601(rec.get(idx[0]).unwrap_or(""))
                 .ok_or_else(|| format!("record {}: time is not ISO 8601", r + 1))?;
@@ -680,18 +734,17 @@ pub fn write_set(dir: &Path, logs: &[(String, String)]) -> Result<(), String> {
             bin.extend((ms as u32).to_le_bytes());
             bin.extend((days as u16).to_le_bytes());
             let deg = |v: f64| (v * 1e7).round() as i32;
-            bin.extend(deg(num(2)?).to_le_bytes());
-            bin.extend(deg(num(1)?).to_le_bytes());
+            bin.extend(deg(num(idx[2])?).to_le_bytes());
+            bin.extend(deg(num(idx[1])?).to_le_bytes());
             bin.push(2);
-            bin.extend(((num(8)? * 10.0).round() as u16).to_le_bytes());
-            let now: [i32; 5] = [
-                (num(3)? * 0.453_592_37 * 1e6).round() as i32,
-                (num(4)? * 1e4).round() as i32,
-                (num(5)? * 447.04).round() as i32,
-                (num(6)? * 304.8).round() as i32,
-                num(7)?.round() as i32,
-            ];
-            let changed: Vec<usize> = (0..5).filter(|&i| last[i] != Some(now[i])).collect();
+            bin.extend(((num(idx[3])? * 10.0).round() as u16).to_le_bytes());
+            let now = logged
+                .iter()
+                .map(|(_, i, f)| num(*i).map(|v| (v * f).round() as i32))
+                .collect::<Result<Vec<i32>, String>>()?;
+            let changed: Vec<usize> = (0..now.len())
+                .filter(|&i| last[i] != Some(now[i]))
+                .collect();
             bin.push(changed.len() as u8);
             for i in changed {
                 bin.push(i as u8);
@@ -699,9 +752,9 @@ pub fn write_set(dir: &Path, logs: &[(String, String)]) -> Result<(), String> {
                 last[i] = Some(now[i]);
             }
         }
-        let dlvs: String = DLVS
+        let dlvs: String = logged
             .iter()
-            .map(|(d, e)| format!("<DLV A=\"{d}\" B=\"\" C=\"{e}\"/>\n"))
+            .map(|(d, ..)| format!("<DLV A=\"{d}\" B=\"\" C=\"DET-1\"/>\n"))
             .collect();
         let head = format!(
             "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n<TIM A=\"\" D=\"4\">\n<PTN A=\"\" B=\"\" D=\"\" F=\"\"/>\n{dlvs}</TIM>\n"
@@ -716,8 +769,8 @@ pub fn write_set(dir: &Path, logs: &[(String, String)]) -> Result<(), String> {
 }
 
 /// The mapping `check` prints for a task-data export.
-pub fn describe_file(path: &Path) -> Result<Vec<String>, String> {
-    mapping(path)
+pub fn describe_file(cfg: &TrialConfig, path: &Path) -> Result<Vec<String>, String> {
+    mapping(cfg, path)
 }
 
 #[cfg(test)]

@@ -101,7 +101,7 @@ fn the_format_claims_task_data_and_says_what_it_maps() {
     assert!(!crate::ingest::formats::is_export(
         &fixtures().join("TASKDATA/TLG00001.XML")
     ));
-    let m = describe_file(&xml).unwrap();
+    let m = describe_file(&cfg(), &xml).unwrap();
     assert_eq!(m.len(), 2);
     assert!(
         m[0].contains("mass flow 0057 of DET-1 (Combine)"),
@@ -148,5 +148,51 @@ fn a_cut_or_incomplete_task_data_set_is_a_located_error_or_rejection() {
     );
     assert_eq!(out.rows, 100);
     assert_eq!(out.rows, (out.points.len() + out.rejections.len()) as u64);
+    std::fs::remove_dir_all(&dir).unwrap();
+}
+
+#[test]
+fn a_log_without_speed_or_width_takes_speed_from_positions_and_the_stated_width() {
+    // A combine that logs no speed (018D) or working width (0043): speed is the distance
+    // between successive positions over the time between them, and the width the trial
+    // file's columns.width.value; check says both. Checked on a straight run north at
+    // 2 m/s logged every 2 s: every speed within 6 mm/s of 2 m/s (positions are stored to
+    // 1e-7 degrees, 1.1 cm of latitude, so a 4 m step is known to 2.2 cm at worst).
+    let dir = std::env::temp_dir().join(format!("plotsieve-td-nospeed-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    let mut csv =
+        String::from("time_utc,lon_deg,lat_deg,mass_flow_lb_s,moisture_pct,header_state,hdop\n");
+    // 2 m/s north: 4 m per 2 s record is 4 / 111,194.93 degrees on the 6,371,008.8 m sphere.
+    let per_deg = 6_371_008.8f64.to_radians();
+    for i in 0..20 {
+        csv += &format!(
+            "2026-10-27T10:00:{:02}Z,-97.8,{:.9},5.0,18.5,1,0.9\n",
+            2 * i,
+            40.6 + 4.0 * i as f64 / per_deg
+        );
+    }
+    write_set(&dir, &[("run north".into(), csv)]).unwrap();
+    let mut c = cfg();
+    c.columns.width.value = Some(30.0);
+    c.columns.width.unit = crate::ingest::settings::WidthUnit::Ft;
+    let out = TaskData
+        .read(&c, &dir.join("TASKDATA.XML"), "T", 0)
+        .unwrap();
+    assert_eq!(out.points.len(), 20);
+    for p in &out.points {
+        assert!((p.speed_m_s - 2.0).abs() < 6e-3, "{}", p.speed_m_s);
+        assert!((p.width_m - 9.144).abs() < 1e-9);
+    }
+    let m = describe_file(&c, &dir.join("TASKDATA.XML")).unwrap();
+    assert!(
+        m[0].contains("speed not logged: from positions and times"),
+        "{}",
+        m[0]
+    );
+    assert!(
+        m[0].contains("width not logged: 9.144 m (columns.width.value)"),
+        "{}",
+        m[0]
+    );
     std::fs::remove_dir_all(&dir).unwrap();
 }
