@@ -23,7 +23,7 @@ pub fn front_half(cfg: &TrialConfig, base: &Path) -> Result<(Vec<String>, Vec<St
         &ing.points.files,
         &ing.polygons,
         &ing.design,
-        &cfg.inputs.design,
+        &cfg.design_name(),
         &cfg.plots,
     );
     let mut warnings: Vec<String> = Vec::new();

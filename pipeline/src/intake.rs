@@ -136,6 +136,12 @@ fn trial_info(season_dir: &Path, t: &SeasonTrial) -> Result<TrialInfo> {
         );
     }
     let mut pts: Vec<(f64, f64)> = Vec::new();
+    if !cfg.columns.treatment.is_empty() {
+        bail!(
+            "{}: its plots are built from the treatment labels on its records (columns.treatment), so it has no plot extent to match exports to; copy its exports into {mon} by hand",
+            file.display()
+        );
+    }
     if cfg.layout.is_empty() {
         for p in ingest::geojson::read_plot_input(
             &base.join(&cfg.inputs.plots),

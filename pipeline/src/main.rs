@@ -110,6 +110,10 @@ enum Command {
         /// Seconds between logged records (1-5).
         #[arg(long, default_value_t = 1)]
         interval_s: usize,
+        /// Each record carries the treatment of the plot it was cut in, and no plot
+        /// polygons or design are written: plots are built from the labels.
+        #[arg(long)]
+        labels: bool,
     },
     /// Take a harvest's exports from an inbox: match each to the trials its points fall in,
     /// copy it there, and rerun only the trials that got something new.
@@ -162,10 +166,14 @@ fn main() -> ExitCode {
             point_noise,
             form,
             interval_s,
+            labels,
         } => match simulate::SimForm::from_name(&form) {
             None => Err(anyhow::anyhow!(
                 "--form {}",
                 plotsieve_stages::choice::refusal(simulate::SimForm::NAMES, &form)
+            )),
+            Some(simulate::SimForm::TaskData) if labels => Err(anyhow::anyhow!(
+                "--labels goes with the text, distance_text, yield_points, geopackage and shapefile forms (task data carries no label column)"
             )),
             Some(form) => run::simulate(
                 &dir,
@@ -182,6 +190,7 @@ fn main() -> ExitCode {
                     point_noise_kg_ha: point_noise,
                     form,
                     interval_s,
+                    labels,
                     ..Default::default()
                 },
             ),

@@ -176,7 +176,9 @@ fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
         if !t.cfg.inputs.plots.is_empty() {
             paths.push(t.base.join(&t.cfg.inputs.plots));
         }
-        paths.push(t.base.join(&t.cfg.inputs.design));
+        if !t.cfg.inputs.design.is_empty() {
+            paths.push(t.base.join(&t.cfg.inputs.design));
+        }
     }
     if !t.cfg.adjust.priors_from.is_empty() {
         paths.push(t.base.join(&t.cfg.adjust.priors_from));

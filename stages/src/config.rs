@@ -249,6 +249,16 @@ impl TrialConfig {
         Ok(cfg)
     }
 
+    /// The design table's name in rejection rows: `inputs.design`, or for plots built from
+    /// treatment labels the table ingest writes.
+    pub fn design_name(&self) -> String {
+        if self.columns.treatment.is_empty() {
+            self.inputs.design.clone()
+        } else {
+            "1-ingest/design.csv".into()
+        }
+    }
+
     /// The crop of this trial from the crop table.
     pub fn crop(&self) -> Result<Crop, ConfigError> {
         let table = crop_table();
@@ -284,8 +294,16 @@ impl TrialConfig {
                     p.push("inputs.plot_table is the whole input of a plot-table trial: leave out inputs.monitor, inputs.plots, inputs.design and [[layout]]".into());
                 }
             }
+            _ if !self.columns.treatment.is_empty() => {
+                if !self.inputs.plots.is_empty()
+                    || !self.inputs.design.is_empty()
+                    || !self.layout.is_empty()
+                {
+                    p.push("columns.treatment builds the plots and the design from the records' treatment labels: leave out inputs.plots, inputs.design and [[layout]]".into());
+                }
+            }
             (true, true) => p.push(
-                "inputs.plots is empty and there is no [[layout]]: give one of them (or inputs.plot_table for plot-level yields)".into(),
+                "inputs.plots is empty and there is no [[layout]]: give one of them (or columns.treatment for a strip trial labelled on its records, or inputs.plot_table for plot-level yields)".into(),
             ),
             (false, false) => p.push("give inputs.plots or [[layout]], not both".into()),
             _ => {}

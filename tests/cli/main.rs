@@ -19,4 +19,5 @@ mod report;
 mod run_folder;
 mod season;
 mod settings;
+mod strips;
 mod warnings;

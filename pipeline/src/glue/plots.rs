@@ -39,7 +39,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         &files,
         &polys,
         &design,
-        &cfg.inputs.design,
+        &cfg.design_name(),
         &cfg.plots,
     );
     let kept: Vec<_> = o.assignment.iter().map(|&(i, _)| pts[i].clone()).collect();

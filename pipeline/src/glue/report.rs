@@ -62,7 +62,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             &shown,
             "rerun its stage",
         )? {
-            if !r.id.is_empty() && r.source_file != cfg.inputs.design {
+            if !r.id.is_empty() && r.source_file != cfg.design_name() {
                 removed.entry(r.id).or_insert(r.rule);
             }
         }

@@ -25,6 +25,7 @@ pub mod plot_table;
 mod robustness;
 pub mod settings;
 pub mod shapefile_plots;
+pub mod strips;
 pub mod time;
 pub mod wkt;
 
@@ -237,8 +238,10 @@ pub fn run_with(
     let files = monitor_files(cfg, base)?;
     progress.start(files.len() as u64, "exports read");
     let names: Vec<String> = files.iter().map(|p| display(base, p)).collect();
-    let mut raw = Vec::new();
+    let mut raw: Vec<formats::RawPoint> = Vec::new();
     let mut rejections = Vec::new();
+    // Treatment, strip and replicate labels of the records, over all exports (0: none).
+    let mut tags: Vec<[String; 3]> = vec![Default::default()];
     let mut count_in = 0;
     // How each export was read (format and mapping), for the summary and the report.
     let mut how: std::collections::BTreeMap<String, String> = Default::default();
@@ -250,12 +253,37 @@ pub fn run_with(
         );
         let read = format.read(cfg, p, name, i as u32)?;
         count_in += read.rows;
-        raw.extend(read.points);
+        let global: Vec<u32> = read
+            .labels
+            .iter()
+            .enumerate()
+            .map(|(k, l)| {
+                if k == 0 {
+                    return 0;
+                }
+                match tags.iter().position(|t| t == l) {
+                    Some(g) => g as u32,
+                    None => {
+                        tags.push(l.clone());
+                        tags.len() as u32 - 1
+                    }
+                }
+            })
+            .collect();
+        raw.extend(read.points.into_iter().map(|mut p| {
+            p.label = global.get(p.label as usize).copied().unwrap_or(0);
+            p
+        }));
         rejections.extend(read.rejections);
         progress.step();
     }
-    let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design)?;
-    let polygons_ll = if cfg.layout.is_empty() {
+    let labelled = !cfg.columns.treatment.is_empty();
+    let design = if labelled {
+        Vec::new()
+    } else {
+        read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design)?
+    };
+    let polygons_ll = if cfg.layout.is_empty() && !labelled {
         geojson::read_plot_input(
             &base.join(&cfg.inputs.plots),
             &cfg.inputs.plots,
@@ -317,22 +345,51 @@ pub fn run_with(
             yield_kg_ha: r.yield_kg_ha,
         })
         .collect();
-    let polygons = if cfg.layout.is_empty() {
-        project_polygons(&utm, polygons_ll)?
+    let mut strip_details = None;
+    let mut strip_warnings = Vec::new();
+    let (polygons, design) = if labelled {
+        let labels: Vec<u32> = raw.iter().map(|r| r.label).collect();
+        let built = strips::build(
+            &points,
+            &labels,
+            &tags,
+            &names,
+            &strips::StripSettings {
+                plot_length_m: cfg.ingest.strip_plot_length_m,
+                min_records: cfg.ingest.strip_min_records,
+                fallback_width_m: cfg
+                    .columns
+                    .width
+                    .value
+                    .map(|v| v * formats::mapped_text::width_factor(cfg.columns.width.unit)),
+            },
+        )
+        .map_err(|message| IngestError::Unusable {
+            file: "columns.treatment".into(),
+            message,
+        })?;
+        strip_details = Some(built.details);
+        strip_warnings = built.warnings;
+        (built.polygons, built.design)
+    } else if cfg.layout.is_empty() {
+        (project_polygons(&utm, polygons_ll)?, design)
     } else {
         let mut v = Vec::new();
         for l in &cfg.layout {
             let (ox, oy) = utm.forward(l.origin_lon, l.origin_lat)?;
             v.extend(l.polygons(ox, oy));
         }
-        v
+        (v, design)
     };
-    let plots_name = if cfg.layout.is_empty() {
+    let plots_name = if labelled {
+        "the treatment labels (columns.treatment)".to_string()
+    } else if cfg.layout.is_empty() {
         cfg.inputs.plots.clone()
     } else {
         "[[layout]]".to_string()
     };
     let (polygons, design, mut warnings) = reconcile(cfg, &plots_name, polygons, design)?;
+    warnings.extend(strip_warnings);
     warnings.extend(unread_exports(&names, &raw, &rejections));
     let mut summary = StageSummary::from_rejections("ingest", "points", count_in, &rejections);
     summary
@@ -347,6 +404,34 @@ pub fn run_with(
     summary
         .details
         .insert("plots".into(), serde_json::json!(polygons.len()));
+    if let Some(d) = strip_details {
+        // How the plots were made, beside how each export was read (the report shows both).
+        let fields: Vec<String> = d["fields"]
+            .as_object()
+            .map(|m| {
+                m.iter()
+                    .map(|(f, x)| {
+                        format!(
+                            "{f}: {} plots in {} strips (travel {} degrees, swath {} m)",
+                            x["plots"], x["strips"], x["bearing_deg"], x["swath_m"]
+                        )
+                    })
+                    .collect()
+            })
+            .unwrap_or_default();
+        how.insert(
+            "(plots)".into(),
+            format!(
+                "built from the treatment labels in column {:?} (columns.treatment): {}",
+                cfg.columns.treatment,
+                fields.join("; ")
+            ),
+        );
+        summary
+            .details
+            .insert("read_as".into(), serde_json::json!(how));
+        summary.details.insert("plots_from_labels".into(), d);
+    }
     summary
         .details
         .insert("warnings".into(), serde_json::json!(warnings));
@@ -472,6 +557,24 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
                 }
             }
         }
+    }
+    if !cfg.columns.treatment.is_empty() {
+        // Plots and design come from the labels: build them as run would.
+        match run(cfg, base) {
+            Err(e) => problems.push(e.to_string()),
+            Ok(o) => {
+                let fields: std::collections::BTreeSet<&str> =
+                    o.design.iter().map(|d| d.field.as_str()).collect();
+                // Its warnings come with the front half's (`plotsieve check` runs it next).
+                problems.push(format!(
+                    "read: plots: {} plots in {} field(s) built from the treatment labels in column {:?} (columns.treatment)",
+                    o.polygons.len(),
+                    fields.len(),
+                    cfg.columns.treatment
+                ));
+            }
+        }
+        return problems;
     }
     let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design);
     let polys = if cfg.layout.is_empty() {

@@ -201,6 +201,19 @@ pub struct ColumnsSection {
     /// Optional: GPS fix quality (NMEA GGA: 0 invalid, 1 GPS, 2 DGPS, 4 RTK fixed, 5 RTK float).
     #[serde(default)]
     pub fix_quality: String,
+    /// A strip trial without plot polygons: the column naming the treatment applied where
+    /// each record was cut (as-applied or prescription label; empty text = none). The plots
+    /// and the design are then built from the labels ([`crate::ingest::strips`]).
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub treatment: String,
+    /// With `treatment`: a column naming each record's strip (else strips are found from
+    /// where the labelled records lie).
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub strip: String,
+    /// With `treatment`: a column naming each record's replicate (else replicates are formed
+    /// from neighbouring strips).
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub replicate: String,
 }
 
 /// Time column and its format.
@@ -230,6 +243,12 @@ fn is_dot(s: &str) -> bool {
 pub struct IngestSettings {
     pub utm_zone: i64,
     pub hemisphere: Hemisphere,
+    /// Plots built from treatment labels: each strip piece is cut into plots about this
+    /// long along travel; 0 = each piece is one plot.
+    pub strip_plot_length_m: f64,
+    /// Plots built from treatment labels: a strip piece with fewer labelled records than
+    /// this is not a plot (a stray label), with a warning.
+    pub strip_min_records: u64,
 }
 
 impl IngestSettings {
@@ -239,6 +258,18 @@ impl IngestSettings {
             p.push(format!(
                 "ingest.utm_zone must be 0 (automatic) or a zone 1-60 (got {})",
                 self.utm_zone
+            ));
+        }
+        let l = self.strip_plot_length_m;
+        if !(l == 0.0 || (l >= 5.0 && l.is_finite())) {
+            p.push(format!(
+                "ingest.strip_plot_length_m must be 0 (whole strips) or at least 5 m (got {l})"
+            ));
+        }
+        if self.strip_min_records < 3 {
+            p.push(format!(
+                "ingest.strip_min_records must be at least 3 (got {})",
+                self.strip_min_records
             ));
         }
     }
@@ -292,6 +323,9 @@ impl ColumnsSection {
                 "[columns] has both speed and distance; give one (speed is read, or computed from distance / interval)".into(),
             ),
             _ => {}
+        }
+        if self.treatment.is_empty() && !(self.strip.is_empty() && self.replicate.is_empty()) {
+            p.push("columns.strip and columns.replicate go with columns.treatment (plots built from treatment labels)".into());
         }
         if !self.interval.is_empty() && self.distance.is_none() {
             p.push("columns.interval is only read with columns.distance".into());

@@ -58,6 +58,10 @@ pub struct SimOptions {
     /// Seconds between logged records (1-5): a record reports the mass flow averaged over
     /// its interval and the distance travelled in it.
     pub interval_s: usize,
+    /// Each record carries the treatment of the plot it was cut in (a last `treatment`
+    /// column, empty outside plots) and no plot polygons or design table are written: the
+    /// plots are built from the labels (`columns.treatment`). Not for the task-data form.
+    pub labels: bool,
 }
 
 crate::choice! {
@@ -102,6 +106,7 @@ impl Default for SimOptions {
             point_noise_kg_ha: 400.0,
             form: SimForm::Text,
             interval_s: 1,
+            labels: false,
         }
     }
 }
@@ -375,7 +380,9 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                 if k == partial_pass {
                     labels.push("partial_swath");
                 }
+                let label = plot_at(pu, v).map(|(b, c)| TREATMENTS[layout[b][c]].0);
                 rows.push(Rec {
+                    label,
                     t,
                     pu,
                     v,
@@ -418,6 +425,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                     let pu = if forward { end_u + du } else { end_u - du };
                     let pv = v + r * (1.0 - a.cos());
                     rows.push(Rec {
+                        label: None,
                         t,
                         pu,
                         v: pv,
@@ -466,6 +474,13 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             SimForm::YieldPoints => "time_utc,lon_deg,lat_deg,dry_yield_t_ha,moisture_pct,heading_deg,header_state\n",
             SimForm::Shapefile => "time_utc,lon_deg,lat_deg,flow_lb_s,speed_mph,swath_ft,moist_pct,heading,header,hdop\n",
         });
+        if o.labels {
+            csv.pop();
+            csv.push_str(match o.form {
+                SimForm::DistanceText => ";Treatment\n",
+                _ => ",treatment\n",
+            });
+        }
         let file_name = format!(
             "monitor/field-{fname}.{}",
             match o.form {
@@ -599,18 +614,30 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                     let _ = writeln!(csv, "{}", line.replace('.', ","));
                 }
             }
+            if o.labels {
+                csv.pop();
+                csv.push(if o.form == SimForm::DistanceText {
+                    ';'
+                } else {
+                    ','
+                });
+                csv.push_str(rows[i].label.unwrap_or(""));
+                csv.push('\n');
+            }
         }
         let n = logged.len();
         total_points += n;
         artifacts.insert(file_name.clone(), labels_out);
         files.push((file_name, csv));
     }
-    let geo = json!({"type": "FeatureCollection", "features": features});
-    files.push((
-        "plots.geojson".into(),
-        serde_json::to_string_pretty(&geo).unwrap() + "\n",
-    ));
-    files.push(("design.csv".into(), design));
+    if !o.labels {
+        let geo = json!({"type": "FeatureCollection", "features": features});
+        files.push((
+            "plots.geojson".into(),
+            serde_json::to_string_pretty(&geo).unwrap() + "\n",
+        ));
+        files.push(("design.csv".into(), design));
+    }
     let effects: BTreeMap<&str, f64> = TREATMENTS
         .iter()
         .map(|(t, e)| (*t, e * o.effect_scale / 1000.0))
@@ -640,6 +667,8 @@ pub fn generate(o: &SimOptions) -> SimTrial {
 }
 
 struct Rec {
+    /// The treatment of the plot the record was cut in.
+    label: Option<&'static str>,
     t: f64,
     pu: f64,
     v: f64,

@@ -60,6 +60,23 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
     if o.interval_s > 1 {
         how += &format!(" --interval-s {}", o.interval_s);
     }
+    if o.strips {
+        how += " --strips";
+    }
+    if o.labels {
+        how += " --labels";
+    }
+    // Plots as polygons with a design table, or built from the records' labels.
+    let plots = if o.labels {
+        ""
+    } else {
+        "plots = \"plots.geojson\"\nplot_id_property = \"plot_id\"\ndesign = \"design.csv\"\n"
+    };
+    let label = match (o.labels, o.form) {
+        (false, _) => "",
+        (true, SimForm::DistanceText) => "treatment = \"Treatment\"\n",
+        (true, _) => "treatment = \"treatment\"\n",
+    };
     let columns = match o.form {
         SimForm::Text | SimForm::GeoPackage => TEXT_COLUMNS,
         // Task data names its quantities by DDI; [columns] is not read for it.
@@ -81,13 +98,10 @@ check = "check"
 
 [inputs]
 monitor = ["monitor"]
-plots = "plots.geojson"
-plot_id_property = "plot_id"
-design = "design.csv"
-
+{plots}
 # How this combine's monitor names and scales its columns.
 [columns]
-{columns}
+{columns}{label}
 [clean]
 # Flow and moisture delays are estimated per export (clean.delay.mode = "auto"); these are
 # the fallbacks when an export has too few opposite passes.

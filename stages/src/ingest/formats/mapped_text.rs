@@ -32,6 +32,9 @@ struct ColumnIndex {
     moisture: Option<usize>,
     /// Optional columns: (index, name) when mapped.
     optional: [Option<(usize, String)>; 3],
+    /// Treatment, strip and replicate label columns when mapped (strip trials without
+    /// plot polygons).
+    labels: [Option<usize>; 3],
 }
 
 /// How ground speed is read.
@@ -143,6 +146,11 @@ fn column_index(
         .collect::<Result<Vec<_>, _>>()?
         .try_into()
         .expect("three optional columns"),
+        labels: [
+            opt(&c.treatment, "treatment")?,
+            opt(&c.strip, "strip")?,
+            opt(&c.replicate, "replicate")?,
+        ],
     })
 }
 
@@ -261,6 +269,9 @@ pub(super) fn read_records<R: std::io::Read>(
     if let Some(i) = idx.width {
         cols.push((i, c.width.name.as_str()));
     }
+    // Label texts (treatment, strip, replicate) -> index into `labels` (0: no treatment).
+    let mut labels: Vec<[String; 3]> = vec![Default::default()];
+    let mut label_of: std::collections::HashMap<[String; 3], u32> = Default::default();
     // Per point kept: the distance travelled (m) and interval (s, NaN: from the times).
     let mut travel: Vec<(f64, f64)> = Vec::new();
     let mut n = 0u64;
@@ -464,6 +475,21 @@ pub(super) fn read_records<R: std::io::Read>(
             ));
             continue;
         }
+        let label = match idx.labels {
+            [Some(t), s, r] if !record[t].trim().is_empty() => {
+                let text = |i: Option<usize>| i.map(|i| record[i].trim().to_string());
+                let key = [
+                    record[t].trim().to_string(),
+                    text(s).unwrap_or_default(),
+                    text(r).unwrap_or_default(),
+                ];
+                *label_of.entry(key.clone()).or_insert_with(|| {
+                    labels.push(key);
+                    labels.len() as u32 - 1
+                })
+            }
+            _ => 0,
+        };
         travel.push((dist, interval));
         out.push(RawPoint {
             file: file_idx,
@@ -477,6 +503,7 @@ pub(super) fn read_records<R: std::io::Read>(
             moisture_pct: moisture,
             optional,
             yield_kg_ha: given,
+            label,
         });
     }
     if n == 0 {
@@ -532,6 +559,7 @@ pub(super) fn read_records<R: std::io::Read>(
         rows: n,
         points: out,
         rejections: rej,
+        labels,
     })
 }
 

@@ -88,5 +88,14 @@ pub(crate) fn describe(cfg: &TrialConfig) -> String {
     } else {
         format!("moisture {} (%)", c.moisture)
     });
+    if !c.treatment.is_empty() {
+        let mut l = format!("treatment label {}", c.treatment);
+        for (what, col) in [("strip", &c.strip), ("replicate", &c.replicate)] {
+            if !col.is_empty() {
+                l += &format!(", {what} {col}");
+            }
+        }
+        parts.push(l);
+    }
     parts.join("; ")
 }

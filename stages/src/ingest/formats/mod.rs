@@ -91,6 +91,9 @@ pub struct RawPoint {
     pub optional: [f64; 3],
     /// Yield at standard moisture, kg/ha, of a yield-point export; NaN otherwise.
     pub yield_kg_ha: f64,
+    /// Index into [`ExportRead::labels`]: the record's treatment, strip and replicate
+    /// labels (0: no treatment label, or the export has none).
+    pub label: u32,
 }
 
 /// One export read: records seen (`rows = points + rejections`), points and rejections.
@@ -99,6 +102,9 @@ pub struct ExportRead {
     pub rows: u64,
     pub points: Vec<RawPoint>,
     pub rejections: Vec<Rejection>,
+    /// Treatment, strip and replicate label texts of the records (`columns.treatment`,
+    /// `strip`, `replicate`); the first entry is "no label". Empty when none are read.
+    pub labels: Vec<[String; 3]>,
 }
 
 /// The format that reads `path`: the first of [`FORMATS`] whose sniff accepts its first

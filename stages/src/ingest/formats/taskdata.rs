@@ -448,6 +448,7 @@ fn read_log(
             moisture_pct: moisture,
             optional: [state, hdop, status],
             yield_kg_ha: given,
+            label: 0,
         });
     }
     if picks.speed.is_none() {

@@ -1,0 +1,794 @@
+//! Plots and design of a strip trial from the treatment labels on its records (as-applied or
+//! prescription labels in `columns.treatment`), for on-farm trials without drawn plots.
+//!
+//! 1. Fields: exports whose labelled records overlap (bounding boxes within 30 m) are one
+//!    field, named after the first export's file name.
+//! 2. Direction of travel: the length-weighted mean axis of the steps between consecutive
+//!    records of one label (doubled angles, so back-and-forth passes agree). `u` runs along
+//!    it, `v` across.
+//! 3. Runs: consecutive records of one export with one label, cut where the combine moves
+//!    more across travel than along it (a turn) or more than 5 median steps + 2 m along it
+//!    (a GPS jump).
+//! 4. Pieces: runs of one treatment (with `columns.strip`: of one strip name) whose middles
+//!    lie within 1.25 swaths across travel and that overlap or come within 2.5 median
+//!    steps along it (a record lost to a GPS jump leaves a gap of two) are one piece: the
+//!    passes of a strip several passes wide join, strips of one treatment on either side
+//!    of another stay apart, and an unlabelled alley of a few metres between blocks splits
+//!    a strip. A piece spans its records along travel plus half a step each end, and
+//!    across from its passes' centres (2nd to 98th percentile) plus half the swath (the
+//!    field's median logged width) each side: the extent of its records' swath footprints.
+//!    One or two records on their own are GPS jumps (counted); a piece with fewer than
+//!    `ingest.strip_min_records` one-second records is a stray label (no plot, a warning).
+//!    Pieces whose centres lie within half a swath across travel form one strip. Where
+//!    pieces of neighbouring strips overlap across travel, the border is the middle of the
+//!    overlap.
+//! 5. Plots: each piece one plot, or cut into equal plots about `ingest.strip_plot_length_m`
+//!    long. Ids `FIELD-Sss-Ppp` (strip across, plot along, from 1).
+//! 6. Replicates (blocks): with `columns.replicate`, the most common replicate name of the
+//!    piece's records; otherwise pieces are grouped into ranges along travel (overlapping by
+//!    more than half the shorter), and within each range, going across, a new replicate
+//!    starts where a treatment repeats. Blocks are numbered 1, 2, ... in that order.
+//!
+//! Common practice for on-farm strip trials (adjacent strips of a check and a product form a
+//! replicate); the geometry rules are this program's own.
+
+use crate::table::{DesignRow, PlotPolygon, Point};
+use crate::util::median;
+use std::collections::BTreeMap;
+
+/// What `build` needs besides the points.
+#[derive(Clone, Debug)]
+pub struct StripSettings {
+    /// 0 = each piece one plot.
+    pub plot_length_m: f64,
+    /// Pieces with fewer one-second records are stray labels.
+    pub min_records: u64,
+    /// The swath width when the exports log none (`columns.width.value`), metres.
+    pub fallback_width_m: Option<f64>,
+}
+
+/// Plots, design and what was found, for the ingest summary.
+#[derive(Clone, Debug, Default)]
+pub struct Built {
+    pub polygons: Vec<PlotPolygon>,
+    pub design: Vec<DesignRow>,
+    pub details: serde_json::Value,
+    pub warnings: Vec<String>,
+}
+
+/// A field's name from an export's name: its file stem (a task-data time log: the log).
+fn field_name(export: &str) -> String {
+    let tail = export.rsplit(['/', '#']).next().unwrap_or(export);
+    let stem = match tail.rfind('.') {
+        Some(i) if i > 0 => &tail[..i],
+        _ => tail,
+    };
+    stem.to_string()
+}
+
+fn find(parent: &mut [usize], mut i: usize) -> usize {
+    while parent[i] != i {
+        parent[i] = parent[parent[i]];
+        i = parent[i];
+    }
+    i
+}
+
+/// The `q` quantile (0-1) of sorted values, by the nearest rank.
+fn quantile(sorted: &[f64], q: f64) -> f64 {
+    sorted[((sorted.len() - 1) as f64 * q).round() as usize]
+}
+
+/// One piece of a strip before it is cut into plots.
+#[derive(Clone, Debug)]
+struct Piece {
+    treatment: String,
+    strip: usize,
+    u0: f64,
+    u1: f64,
+    v0: f64,
+    v1: f64,
+    /// Point indices of its records.
+    members: Vec<usize>,
+    block: String,
+}
+
+/// Build the plots and design of every field from the labelled records. `labels[i]` is
+/// point i's index into `table` (0: none); `names` the exports' names.
+pub fn build(
+    points: &[Point],
+    labels: &[u32],
+    table: &[[String; 3]],
+    names: &[String],
+    s: &StripSettings,
+) -> Result<Built, String> {
+    let mut warnings = Vec::new();
+    // 1. Fields: exports with labelled records, joined where their extents overlap.
+    let nf = names.len();
+    let mut bbox = vec![(f64::MAX, f64::MAX, f64::MIN, f64::MIN); nf];
+    let mut labelled = vec![0u64; nf];
+    for (p, &l) in points.iter().zip(labels) {
+        if l == 0 {
+            continue;
+        }
+        let b = &mut bbox[p.file as usize];
+        *b = (
+            b.0.min(p.x_m),
+            b.1.min(p.y_m),
+            b.2.max(p.x_m),
+            b.3.max(p.y_m),
+        );
+        labelled[p.file as usize] += 1;
+    }
+    for (f, name) in names.iter().enumerate() {
+        if labelled[f] == 0 {
+            warnings.push(format!(
+                "export {name}: no record carries a treatment label (columns.treatment); it is in no plot"
+            ));
+        }
+    }
+    let mut parent: Vec<usize> = (0..nf).collect();
+    let near = 30.0;
+    for a in 0..nf {
+        for b in a + 1..nf {
+            let (p, q) = (bbox[a], bbox[b]);
+            if labelled[a] > 0
+                && labelled[b] > 0
+                && p.0 <= q.2 + near
+                && q.0 <= p.2 + near
+                && p.1 <= q.3 + near
+                && q.1 <= p.3 + near
+            {
+                let (ra, rb) = (find(&mut parent, a), find(&mut parent, b));
+                parent[ra.max(rb)] = ra.min(rb);
+            }
+        }
+    }
+    let mut fields: BTreeMap<usize, Vec<usize>> = BTreeMap::new();
+    for f in (0..nf).filter(|f| labelled[*f] > 0) {
+        let r = find(&mut parent, f);
+        fields.entry(r).or_default().push(f);
+    }
+    if fields.is_empty() {
+        return Err(format!(
+            "no record of any export carries a treatment label in the column named by columns.treatment, so no plot can be built ({} exports read)",
+            names.len()
+        ));
+    }
+    let mut by_point_field = vec![usize::MAX; nf];
+    let mut field_names = Vec::new();
+    for (k, files) in fields.values().enumerate() {
+        let mut name = field_name(&names[files[0]]);
+        if field_names.contains(&name) {
+            name = format!("{name}-{}", k + 1);
+        }
+        field_names.push(name);
+        for &f in files {
+            by_point_field[f] = k;
+        }
+    }
+    let mut out = Built::default();
+    let mut details = serde_json::Map::new();
+    for (k, files) in fields.values().enumerate() {
+        let fname = &field_names[k];
+        let idx: Vec<usize> = (0..points.len())
+            .filter(|&i| labels[i] != 0 && by_point_field[points[i].file as usize] == k)
+            .collect();
+        let f = field(points, labels, table, &idx, fname, s, &mut warnings)?;
+        let mut d = f.details;
+        d.insert(
+            "exports".into(),
+            serde_json::json!(files.iter().map(|&i| &names[i]).collect::<Vec<_>>()),
+        );
+        details.insert(fname.clone(), serde_json::Value::Object(d));
+        out.polygons.extend(f.polygons);
+        out.design.extend(f.design);
+    }
+    for (i, d) in out.design.iter_mut().enumerate() {
+        d.row = i as u64 + 2;
+    }
+    out.details = serde_json::json!({
+        "from": "treatment labels on the records (columns.treatment)",
+        "plot_length_m": s.plot_length_m,
+        "fields": details,
+    });
+    out.warnings = warnings;
+    Ok(out)
+}
+
+struct FieldBuilt {
+    polygons: Vec<PlotPolygon>,
+    design: Vec<DesignRow>,
+    details: serde_json::Map<String, serde_json::Value>,
+}
+
+/// One field's plots from its labelled records `idx` (in point order).
+fn field(
+    points: &[Point],
+    labels: &[u32],
+    table: &[[String; 3]],
+    idx: &[usize],
+    fname: &str,
+    s: &StripSettings,
+    warnings: &mut Vec<String>,
+) -> Result<FieldBuilt, String> {
+    let widths: Vec<f64> = idx
+        .iter()
+        .map(|&i| points[i].width_m)
+        .filter(|w| w.is_finite() && *w > 0.0)
+        .collect();
+    let w = if widths.is_empty() {
+        s.fallback_width_m.ok_or_else(|| {
+            format!("field {fname}: its exports log no swath width to build strips from: map columns.width or give columns.width.value")
+        })?
+    } else {
+        median(&widths)
+    };
+    // 2. Direction of travel; consecutive records of one label.
+    let (mut c2, mut s2) = (0.0, 0.0);
+    let mut dts = Vec::new();
+    for pair in idx.windows(2) {
+        let (i, j) = (pair[0], pair[1]);
+        if j != i + 1 || points[i].file != points[j].file {
+            continue;
+        }
+        let dt = points[j].time_s - points[i].time_s;
+        if dt > 0.0 {
+            dts.push(dt);
+        }
+        if labels[i] != labels[j] {
+            continue;
+        }
+        let (dx, dy) = (points[j].x_m - points[i].x_m, points[j].y_m - points[i].y_m);
+        let l = dx.hypot(dy);
+        if l > 0.2 && l < 3.0 * w {
+            let a = 2.0 * dy.atan2(dx);
+            c2 += l * a.cos();
+            s2 += l * a.sin();
+        }
+    }
+    if c2 == 0.0 && s2 == 0.0 {
+        return Err(format!(
+            "field {fname}: its labelled records give no direction of travel (no two consecutive records of one treatment a step apart)"
+        ));
+    }
+    let theta = 0.5 * s2.atan2(c2);
+    let (ax, ay) = (theta.cos(), theta.sin());
+    let (cx, cy) = (-ay, ax);
+    let (ox, oy) = (points[idx[0]].x_m, points[idx[0]].y_m);
+    let uv = |i: usize| {
+        let (dx, dy) = (points[i].x_m - ox, points[i].y_m - oy);
+        (dx * ax + dy * ay, dx * cx + dy * cy)
+    };
+    // One-second records per record (an export logging every 3 s counts 3).
+    let weight = if dts.is_empty() {
+        1.0
+    } else {
+        median(&dts).round().max(1.0)
+    };
+    // 3-4. Runs: consecutive records of one export with one label, split where the combine
+    // moves more across travel than along it (a turn) or jumps along it.
+    let steps: Vec<f64> = idx
+        .windows(2)
+        .filter(|p| p[1] == p[0] + 1 && labels[p[0]] == labels[p[1]])
+        .filter(|p| points[p[0]].file == points[p[1]].file)
+        .map(|p| (uv(p[1]).0 - uv(p[0]).0).abs())
+        .filter(|d| *d > 0.05)
+        .collect();
+    let step = if steps.is_empty() {
+        1.0
+    } else {
+        median(&steps)
+    };
+    let jump = 5.0 * step + 2.0;
+    let mut runs: Vec<Vec<usize>> = Vec::new();
+    for &i in idx {
+        let joins = |r: &Vec<usize>| {
+            let j = *r.last().unwrap();
+            if j + 1 != i || points[i].file != points[j].file || labels[i] != labels[j] {
+                return false;
+            }
+            let ((u0, v0), (u1, v1)) = (uv(j), uv(i));
+            let (du, dv) = ((u1 - u0).abs(), (v1 - v0).abs());
+            du <= jump && !(dv > du && dv.hypot(du) > 0.2)
+        };
+        match runs.last_mut() {
+            Some(r) if joins(r) => r.push(i),
+            _ => runs.push(vec![i]),
+        }
+    }
+    // Pieces: runs of one treatment (and strip name) joined where they lie within 1.25
+    // swaths across and overlap or come within 2.5 steps along.
+    let info: Vec<(f64, f64, f64)> = runs
+        .iter()
+        .map(|r| {
+            let u: Vec<f64> = r.iter().map(|&i| uv(i).0).collect();
+            let mut v: Vec<f64> = r.iter().map(|&i| uv(i).1).collect();
+            v.sort_by(f64::total_cmp);
+            (
+                u.iter().cloned().fold(f64::MAX, f64::min),
+                u.iter().cloned().fold(f64::MIN, f64::max),
+                v[v.len() / 2],
+            )
+        })
+        .collect();
+    let key = |r: &Vec<usize>| {
+        let t = &table[labels[r[0]] as usize];
+        (t[0].as_str(), t[1].as_str())
+    };
+    let mut parent: Vec<usize> = (0..runs.len()).collect();
+    let mut by_key: BTreeMap<(&str, &str), Vec<usize>> = BTreeMap::new();
+    for (k, r) in runs.iter().enumerate() {
+        by_key.entry(key(r)).or_default().push(k);
+    }
+    for ((_, strip_name), members) in &by_key {
+        for (x, &a) in members.iter().enumerate() {
+            for &b in &members[x + 1..] {
+                let (p, q) = (info[a], info[b]);
+                let near = !strip_name.is_empty()
+                    || ((p.2 - q.2).abs() <= 1.25 * w && p.0.max(q.0) - p.1.min(q.1) <= 2.5 * step);
+                if near {
+                    let (ra, rb) = (find(&mut parent, a), find(&mut parent, b));
+                    parent[ra.max(rb)] = ra.min(rb);
+                }
+            }
+        }
+    }
+    let mut comps: BTreeMap<usize, Vec<usize>> = BTreeMap::new();
+    for k in 0..runs.len() {
+        let r = find(&mut parent, k);
+        comps.entry(r).or_default().push(k);
+    }
+    let mut pieces: Vec<Piece> = Vec::new();
+    // Pieces too short to be plots, in words.
+    let mut short: Vec<String> = Vec::new();
+    let mut stray = 0u64;
+    let mut isolated = 0u64;
+    for ks in comps.values() {
+        let mut m: Vec<usize> = ks.iter().flat_map(|&k| runs[k].iter().copied()).collect();
+        m.sort_unstable();
+        let treatment = key(&runs[ks[0]]).0.to_string();
+        let lo = ks.iter().map(|&k| info[k].0).fold(f64::MAX, f64::min);
+        let hi = ks.iter().map(|&k| info[k].1).fold(f64::MIN, f64::max);
+        let mut v: Vec<f64> = m.iter().map(|&i| uv(i).1).collect();
+        v.sort_by(f64::total_cmp);
+        let (v0, v1) = (quantile(&v, 0.02) - 0.5 * w, quantile(&v, 0.98) + 0.5 * w);
+        let records = (m.len() as f64 * weight) as u64;
+        if m.len() <= 2 {
+            // A record or two on their own: GPS jumps (clean removes them as such).
+            isolated += m.len() as u64;
+            continue;
+        }
+        if records < s.min_records {
+            stray += m.len() as u64;
+            short.push(format!(
+                "{treatment} ({} at {:.0} to {:.0} m along, {:.0} m across)",
+                m.len(),
+                lo,
+                hi,
+                0.5 * (v0 + v1)
+            ));
+            continue;
+        }
+        pieces.push(Piece {
+            treatment,
+            strip: 0,
+            u0: lo - 0.5 * step,
+            u1: hi + 0.5 * step,
+            v0,
+            v1,
+            members: m,
+            block: String::new(),
+        });
+    }
+    if !short.is_empty() {
+        let n: usize = short.len();
+        warnings.push(format!(
+            "field {fname}: {n} run(s) of labelled records too short for a plot (fewer than ingest.strip_min_records = {} one-second records; stray labels or GPS jumps) are in no plot: treatment (records, from the field's first labelled record) {}",
+            s.min_records,
+            short.join("; ")
+        ));
+    }
+    // Strips across travel: pieces whose centres lie within half a swath of the first of
+    // the strip, numbered from 1 across.
+    pieces.sort_by(|a, b| {
+        (a.v0 + a.v1)
+            .total_cmp(&(b.v0 + b.v1))
+            .then(a.u0.total_cmp(&b.u0))
+    });
+    let mut nstrips = 0;
+    let mut first = f64::NEG_INFINITY;
+    for p in pieces.iter_mut() {
+        let c = 0.5 * (p.v0 + p.v1);
+        if c - first > 0.5 * w {
+            nstrips += 1;
+            first = c;
+        }
+        p.strip = nstrips;
+    }
+    // Neighbouring pieces that overlap across travel meet in the middle of the overlap.
+    for a in 0..pieces.len() {
+        for b in a + 1..pieces.len() {
+            let (p, q) = (&pieces[a], &pieces[b]);
+            let along = p.u1.min(q.u1) - p.u0.max(q.u0);
+            let across = p.v1.min(q.v1) - p.v0.max(q.v0);
+            if along <= 0.0 || across <= 0.0 || p.strip == q.strip {
+                continue;
+            }
+            let mid = 0.5 * (p.v0.max(q.v0) + p.v1.min(q.v1));
+            let (lo, hi) = if p.v0 + p.v1 <= q.v0 + q.v1 {
+                (a, b)
+            } else {
+                (b, a)
+            };
+            pieces[lo].v1 = pieces[lo].v1.min(mid);
+            pieces[hi].v0 = pieces[hi].v0.max(mid);
+        }
+    }
+    // 6. Replicates.
+    let replicate_named = pieces.iter().any(|p| {
+        p.members
+            .iter()
+            .any(|&i| !table[labels[i] as usize][2].is_empty())
+    });
+    if replicate_named {
+        for p in pieces.iter_mut() {
+            let mut n: BTreeMap<&str, u64> = BTreeMap::new();
+            for &i in &p.members {
+                *n.entry(table[labels[i] as usize][2].as_str()).or_default() += 1;
+            }
+            let best = n
+                .iter()
+                .max_by_key(|(_, c)| **c)
+                .map(|(r, _)| r.to_string());
+            p.block = best.unwrap_or_default();
+        }
+    } else {
+        let mut order: Vec<usize> = (0..pieces.len()).collect();
+        order.sort_by(|&a, &b| pieces[a].u0.total_cmp(&pieces[b].u0));
+        let mut ranges: Vec<(f64, f64, Vec<usize>)> = Vec::new();
+        for &j in &order {
+            let p = &pieces[j];
+            let fits = ranges.iter().position(|r| {
+                let shorter = (r.1 - r.0).min(p.u1 - p.u0);
+                p.u1.min(r.1) - p.u0.max(r.0) > 0.5 * shorter
+            });
+            match fits {
+                Some(r) => ranges[r].2.push(j),
+                None => ranges.push((p.u0, p.u1, vec![j])),
+            }
+        }
+        let mut n = 0;
+        for (_, _, mut members) in ranges {
+            members.sort_by(|&a, &b| {
+                (pieces[a].v0 + pieces[a].v1).total_cmp(&(pieces[b].v0 + pieces[b].v1))
+            });
+            let mut seen: Vec<String> = Vec::new();
+            n += 1;
+            for j in members {
+                if seen.contains(&pieces[j].treatment) {
+                    seen.clear();
+                    n += 1;
+                }
+                seen.push(pieces[j].treatment.clone());
+                pieces[j].block = n.to_string();
+            }
+        }
+    }
+    // 5. Plots, in strip order across and along.
+    pieces.sort_by(|a, b| a.strip.cmp(&b.strip).then(a.u0.total_cmp(&b.u0)));
+    let at = |u: f64, v: f64| (ox + u * ax + v * cx, oy + u * ay + v * cy);
+    let mut polygons = Vec::new();
+    let mut design = Vec::new();
+    let mut along_no: BTreeMap<usize, usize> = BTreeMap::new();
+    for p in &pieces {
+        let len = p.u1 - p.u0;
+        let n = if s.plot_length_m > 0.0 && len >= 1.5 * s.plot_length_m {
+            (len / s.plot_length_m).round() as usize
+        } else {
+            1
+        };
+        for c in 0..n {
+            let (a0, a1) = (
+                p.u0 + len * c as f64 / n as f64,
+                p.u0 + len * (c + 1) as f64 / n as f64,
+            );
+            let no = along_no.entry(p.strip).or_default();
+            *no += 1;
+            let id = format!("{fname}-S{:02}-P{:02}", p.strip, no);
+            let mut ring: Vec<(f64, f64)> = [(a0, p.v0), (a1, p.v0), (a1, p.v1), (a0, p.v1)]
+                .iter()
+                .map(|&(u, v)| at(u, v))
+                .collect();
+            let area2: f64 = (0..4)
+                .map(|k| {
+                    let (a, b) = (ring[k], ring[(k + 1) % 4]);
+                    a.0 * b.1 - b.0 * a.1
+                })
+                .sum();
+            if area2 < 0.0 {
+                ring.reverse();
+            }
+            ring.push(ring[0]);
+            polygons.push(PlotPolygon {
+                plot_id: id.clone(),
+                exterior: ring,
+                holes: Vec::new(),
+            });
+            design.push(DesignRow {
+                plot_id: id,
+                treatment: p.treatment.clone(),
+                block: p.block.clone(),
+                field: fname.to_string(),
+                row: 0,
+            });
+        }
+    }
+    let mut details = serde_json::Map::new();
+    let bearing = ax.atan2(ay).to_degrees().rem_euclid(180.0);
+    details.insert(
+        "bearing_deg".into(),
+        serde_json::json!((bearing * 10.0).round() / 10.0),
+    );
+    details.insert(
+        "swath_m".into(),
+        serde_json::json!((w * 1000.0).round() / 1000.0),
+    );
+    details.insert("labelled_records".into(), serde_json::json!(idx.len()));
+    details.insert("records_in_short_runs".into(), serde_json::json!(stray));
+    details.insert("isolated_records".into(), serde_json::json!(isolated));
+    details.insert("strips".into(), serde_json::json!(nstrips));
+    details.insert("pieces".into(), serde_json::json!(pieces.len()));
+    details.insert("plots".into(), serde_json::json!(polygons.len()));
+    details.insert(
+        "replicates".into(),
+        serde_json::json!(if replicate_named {
+            "from columns.replicate"
+        } else {
+            "from neighbouring strips"
+        }),
+    );
+    Ok(FieldBuilt {
+        polygons,
+        design,
+        details,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A point at (x, y) with the given time and width, in export `file`.
+    fn pt(file: u32, t: f64, x: f64, y: f64, w: f64) -> Point {
+        Point {
+            id: 0,
+            file,
+            row: 0,
+            time_s: t,
+            lon: 0.0,
+            lat: 0.0,
+            x_m: x,
+            y_m: y,
+            flow_kg_s: 1.0,
+            speed_m_s: 2.0,
+            width_m: w,
+            moisture_pct: 18.0,
+            work_state: 1.0,
+            hdop: f64::NAN,
+            fix_quality: f64::NAN,
+            yield_kg_ha: f64::NAN,
+        }
+    }
+
+    /// `build` on one export named `name`.
+    fn build_one(
+        (points, labels, table): &(Vec<Point>, Vec<u32>, Vec<[String; 3]>),
+        name: &str,
+        s: &StripSettings,
+    ) -> Result<Built, String> {
+        build(points, labels, table, &[name.to_string()], s)
+    }
+
+    fn settings() -> StripSettings {
+        StripSettings {
+            plot_length_m: 0.0,
+            min_records: 20,
+            fallback_width_m: None,
+        }
+    }
+
+    /// Strips `w` wide running north, driven back and forth, one pass each, records every
+    /// 2 m from y = 0 to 200: treatments as given, west to east.
+    fn strip_field(treatments: &[&str], w: f64) -> (Vec<Point>, Vec<u32>, Vec<[String; 3]>) {
+        let mut table: Vec<[String; 3]> = vec![Default::default()];
+        let mut points = Vec::new();
+        let mut labels = Vec::new();
+        let mut t = 0.0;
+        for (k, tr) in treatments.iter().enumerate() {
+            let l = match table.iter().position(|e| e[0] == *tr) {
+                Some(l) => l,
+                None => {
+                    table.push([tr.to_string(), String::new(), String::new()]);
+                    table.len() - 1
+                }
+            };
+            let x = 500_000.0 + (k as f64 + 0.5) * w;
+            for j in 0..=100 {
+                let y = if k % 2 == 0 {
+                    2.0 * j as f64
+                } else {
+                    200.0 - 2.0 * j as f64
+                };
+                points.push(pt(0, t, x, 4_000_000.0 + y, w));
+                labels.push(l as u32);
+                t += 1.0;
+            }
+        }
+        (points, labels, table)
+    }
+
+    #[test]
+    fn alternating_strips_become_one_plot_each_with_pair_replicates() {
+        let f = strip_field(&["check", "prod", "check", "prod", "check", "prod"], 9.0);
+        let b = build_one(&f, "monitor/north-40.csv", &settings()).unwrap();
+        assert_eq!(b.polygons.len(), 6);
+        let ids: Vec<&str> = b.design.iter().map(|d| d.plot_id.as_str()).collect();
+        assert_eq!(ids[0], "north-40-S01-P01");
+        assert!(b.design.iter().all(|d| d.field == "north-40"));
+        // Treatments in strip order west to east (the across axis points west or east; the
+        // order is either the written one or its reverse), replicates in pairs.
+        let tr: Vec<&str> = b.design.iter().map(|d| d.treatment.as_str()).collect();
+        let written = ["check", "prod", "check", "prod", "check", "prod"];
+        let mut rev = written;
+        rev.reverse();
+        assert!(tr == written || tr == rev, "{tr:?}");
+        let blocks: Vec<&str> = b.design.iter().map(|d| d.block.as_str()).collect();
+        assert!(
+            blocks == ["1", "1", "2", "2", "3", "3"] || blocks == ["3", "3", "2", "2", "1", "1"],
+            "{blocks:?}"
+        );
+        // Each strip: 9 m across its pass centre, from 1 m before the first record to 1 m
+        // after the last along travel (half a step each end): 9 x 202 m.
+        for p in &b.polygons {
+            let xs: Vec<f64> = p.exterior.iter().map(|q| q.0).collect();
+            let ys: Vec<f64> = p.exterior.iter().map(|q| q.1).collect();
+            let span = |v: &[f64]| {
+                v.iter().cloned().fold(f64::MIN, f64::max)
+                    - v.iter().cloned().fold(f64::MAX, f64::min)
+            };
+            assert!((span(&xs) - 9.0).abs() < 1e-6, "{}", span(&xs));
+            assert!((span(&ys) - 202.0).abs() < 1e-6, "{}", span(&ys));
+        }
+        assert_eq!(b.details["fields"]["north-40"]["strips"], 6);
+        assert!(b.warnings.is_empty(), "{:?}", b.warnings);
+    }
+
+    #[test]
+    fn adjacent_passes_of_one_treatment_are_one_strip_cut_into_plots() {
+        // Two passes of the check, two of the product, two of the check.
+        let f = strip_field(&["check", "check", "prod", "prod", "check", "check"], 9.0);
+        let s = StripSettings {
+            plot_length_m: 50.0,
+            ..settings()
+        };
+        let b = build_one(&f, "f.csv", &s).unwrap();
+        // Three strips 18 m wide, each 202 m cut into 4 plots of 50.5 m.
+        assert_eq!(b.details["fields"]["f"]["strips"], 3);
+        assert_eq!(b.polygons.len(), 12);
+        let area: f64 = b.polygons.iter().map(|p| ring_area(&p.exterior)).sum();
+        assert!((area - 3.0 * 18.0 * 202.0).abs() < 1e-3, "{area}");
+        assert_eq!(b.design.iter().filter(|d| d.treatment == "prod").count(), 4);
+    }
+
+    fn ring_area(r: &[(f64, f64)]) -> f64 {
+        0.5 * r
+            .windows(2)
+            .map(|w| w[0].0 * w[1].1 - w[1].0 * w[0].1)
+            .sum::<f64>()
+    }
+
+    #[test]
+    fn stray_labels_and_gps_jumps_make_no_plot_and_are_reported() {
+        let (mut points, mut labels, mut table) = strip_field(&["check", "prod"], 9.0);
+        // A GPS jump 40 m sideways in the first strip's run, and six records of a typo'd
+        // label beyond the strips.
+        points[50].x_m += 40.0;
+        table.push(["chek".into(), String::new(), String::new()]);
+        let mut t = 1000.0;
+        for j in 0..6 {
+            points.push(pt(0, t, 500_100.0, 4_000_000.0 + 2.0 * j as f64, 9.0));
+            labels.push(table.len() as u32 - 1);
+            t += 1.0;
+        }
+        let b = build(
+            &points,
+            &labels,
+            &table,
+            &["f.csv".to_string()],
+            &settings(),
+        )
+        .unwrap();
+        assert_eq!(b.polygons.len(), 2);
+        assert_eq!(b.details["fields"]["f"]["records_in_short_runs"], 6);
+        assert_eq!(b.details["fields"]["f"]["isolated_records"], 1);
+        assert!(
+            b.warnings
+                .iter()
+                .any(|w| w.contains("chek (6 at 0 to 10 m along")),
+            "{:?}",
+            b.warnings
+        );
+        // The jump does not widen the strip: still 9 m by 202 m.
+        let area = ring_area(&b.polygons[0].exterior).abs();
+        assert!((area - 9.0 * 202.0).abs() < 1e-3, "{area}");
+    }
+
+    #[test]
+    fn named_strips_and_replicates_are_taken_from_their_columns() {
+        let (points, mut labels, mut table) = strip_field(&["check", "prod", "check", "prod"], 9.0);
+        // Replicates I, I, II, II named on the records; strips named too.
+        let names = [("1", "I"), ("2", "I"), ("3", "II"), ("4", "II")];
+        let base = table.clone();
+        table.truncate(1);
+        for (k, l) in labels.iter_mut().enumerate() {
+            let strip = k / 101;
+            let e = [
+                base[*l as usize][0].clone(),
+                names[strip].0.to_string(),
+                names[strip].1.to_string(),
+            ];
+            *l = match table.iter().position(|x| *x == e) {
+                Some(i) => i as u32,
+                None => {
+                    table.push(e);
+                    table.len() as u32 - 1
+                }
+            };
+        }
+        let b = build(
+            &points,
+            &labels,
+            &table,
+            &["f.csv".to_string()],
+            &settings(),
+        )
+        .unwrap();
+        assert_eq!(b.polygons.len(), 4);
+        let mut pairs: Vec<(String, String)> = b
+            .design
+            .iter()
+            .map(|d| (d.treatment.clone(), d.block.clone()))
+            .collect();
+        pairs.sort();
+        assert_eq!(
+            pairs,
+            [
+                ("check", "I"),
+                ("check", "II"),
+                ("prod", "I"),
+                ("prod", "II")
+            ]
+            .map(|(a, b)| (a.to_string(), b.to_string()))
+        );
+        assert_eq!(
+            b.details["fields"]["f"]["replicates"],
+            "from columns.replicate"
+        );
+    }
+
+    #[test]
+    fn no_label_at_all_is_an_error_naming_the_key() {
+        let (points, _, table) = strip_field(&["check"], 9.0);
+        let labels = vec![0; points.len()];
+        let e = build(
+            &points,
+            &labels,
+            &table,
+            &["f.csv".to_string()],
+            &settings(),
+        )
+        .unwrap_err();
+        assert!(e.contains("columns.treatment"), "{e}");
+    }
+}
