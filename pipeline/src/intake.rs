@@ -136,9 +136,9 @@ fn trial_info(season_dir: &Path, t: &SeasonTrial) -> Result<TrialInfo> {
         );
     }
     let mut pts: Vec<(f64, f64)> = Vec::new();
-    if !cfg.columns.treatment.is_empty() {
+    if cfg.plots_from_labels() {
         bail!(
-            "{}: its plots are built from the treatment labels on its records (columns.treatment), so it has no plot extent to match exports to; copy its exports into {mon} by hand",
+            "{}: its plots are built from the treatment labels on its records (columns.treatment or inputs.prescription), so it has no plot extent to match exports to; copy its exports into {mon} by hand",
             file.display()
         );
     }

@@ -114,6 +114,10 @@ enum Command {
         /// polygons or design are written: plots are built from the labels.
         #[arg(long)]
         labels: bool,
+        /// No plot polygons or design but prescription polygons (each plot's rectangle
+        /// with its treatment): plots are built from the records' treatments by position.
+        #[arg(long, conflicts_with = "labels")]
+        prescription: bool,
     },
     /// Take a harvest's exports from an inbox: match each to the trials its points fall in,
     /// copy it there, and rerun only the trials that got something new.
@@ -167,6 +171,7 @@ fn main() -> ExitCode {
             form,
             interval_s,
             labels,
+            prescription,
         } => match simulate::SimForm::from_name(&form) {
             None => Err(anyhow::anyhow!(
                 "--form {}",
@@ -191,6 +196,7 @@ fn main() -> ExitCode {
                     form,
                     interval_s,
                     labels,
+                    prescription,
                     ..Default::default()
                 },
             ),

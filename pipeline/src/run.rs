@@ -179,6 +179,9 @@ fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
         if !t.cfg.inputs.design.is_empty() {
             paths.push(t.base.join(&t.cfg.inputs.design));
         }
+        if !t.cfg.inputs.prescription.is_empty() {
+            paths.push(t.base.join(&t.cfg.inputs.prescription));
+        }
     }
     if !t.cfg.adjust.priors_from.is_empty() {
         paths.push(t.base.join(&t.cfg.adjust.priors_from));

@@ -249,10 +249,16 @@ impl TrialConfig {
         Ok(cfg)
     }
 
+    /// Whether the plots and design are built from treatment labels on the records
+    /// (`columns.treatment`, or prescription polygons) rather than read.
+    pub fn plots_from_labels(&self) -> bool {
+        !self.columns.treatment.is_empty() || !self.inputs.prescription.is_empty()
+    }
+
     /// The design table's name in rejection rows: `inputs.design`, or for plots built from
     /// treatment labels the table ingest writes.
     pub fn design_name(&self) -> String {
-        if self.columns.treatment.is_empty() {
+        if !self.plots_from_labels() {
             self.inputs.design.clone()
         } else {
             "1-ingest/design.csv".into()
@@ -294,16 +300,24 @@ impl TrialConfig {
                     p.push("inputs.plot_table is the whole input of a plot-table trial: leave out inputs.monitor, inputs.plots, inputs.design and [[layout]]".into());
                 }
             }
-            _ if !self.columns.treatment.is_empty() => {
+            _ if self.plots_from_labels() => {
+                let key = if self.columns.treatment.is_empty() {
+                    "inputs.prescription"
+                } else {
+                    "columns.treatment"
+                };
                 if !self.inputs.plots.is_empty()
                     || !self.inputs.design.is_empty()
                     || !self.layout.is_empty()
                 {
-                    p.push("columns.treatment builds the plots and the design from the records' treatment labels: leave out inputs.plots, inputs.design and [[layout]]".into());
+                    p.push(format!("{key} builds the plots and the design from the records' treatment labels: leave out inputs.plots, inputs.design and [[layout]]"));
+                }
+                if !self.columns.treatment.is_empty() && !self.inputs.prescription.is_empty() {
+                    p.push("give columns.treatment (labels on the records) or inputs.prescription (labels from polygons), not both".into());
                 }
             }
             (true, true) => p.push(
-                "inputs.plots is empty and there is no [[layout]]: give one of them (or columns.treatment for a strip trial labelled on its records, or inputs.plot_table for plot-level yields)".into(),
+                "inputs.plots is empty and there is no [[layout]]: give one of them (or columns.treatment or inputs.prescription for a strip trial without drawn plots, or inputs.plot_table for plot-level yields)".into(),
             ),
             (false, false) => p.push("give inputs.plots or [[layout]], not both".into()),
             _ => {}

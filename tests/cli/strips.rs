@@ -97,7 +97,7 @@ fn plots_built_from_treatment_labels_match_the_drawn_plots_of_the_same_harvest()
     ok(&o);
     let out = String::from_utf8_lossy(&o.stdout);
     assert!(
-        out.contains("read: plots: 48 plots in 2 field(s) built from the treatment labels in column \"treatment\" (columns.treatment)"),
+        out.contains("read: plots: 48 plots in 2 field(s) built from the treatment labels (column \"treatment\", columns.treatment)"),
         "{out}"
     );
     for (t, r) in [(&drawn, "r-drawn"), (&labelled, "r-labelled")] {
@@ -253,7 +253,59 @@ fn labelled_trials_refuse_drawn_plots_and_unlabelled_exports_say_so() {
     );
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(
-        err.contains("export monitor/field-B.csv: no record carries a treatment label (columns.treatment); it is in no plot"),
+        err.contains("export monitor/field-B.csv: no record carries a treatment label (column \"treatment\", columns.treatment); it is in no plot"),
+        "{err}"
+    );
+}
+
+#[test]
+fn plots_built_from_prescription_polygons_match_the_drawn_plots() {
+    // The same harvest with prescription polygons (each plot's rectangle, its treatment as
+    // `product`) and no plots or design: each record takes the treatment of the polygon it
+    // lies in, and the plots are built from those labels.
+    let w = Workdir::new("strips-prescription");
+    let drawn = simulate(&w, "drawn", &["--seed", "2", "--quiet"]);
+    let rx = simulate(&w, "rx", &["--seed", "2", "--prescription", "--quiet"]);
+    assert!(w.path("rx/prescription.geojson").is_file());
+    assert!(!w.path("rx/plots.geojson").exists());
+    let o = plotsieve(&w.0, &["check", rx.to_str().unwrap()]);
+    ok(&o);
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("read: plots: 48 plots in 2 field(s) built from the treatment labels (the prescription polygons of prescription.geojson by their \"product\", inputs.prescription)"),
+        "{out}"
+    );
+    for (t, r) in [(&drawn, "r-drawn"), (&rx, "r-rx")] {
+        ok(&plotsieve(
+            &w.0,
+            &["run", t.to_str().unwrap(), "--out", r, "--quiet"],
+        ));
+    }
+    let d = matched(
+        &plot_rows(&w.path("r-drawn")),
+        &plot_rows(&w.path("r-rx")),
+        2.0,
+    );
+    eprintln!(
+        "RCBD from prescription polygons: {} kept plots, largest yield difference {:.5}",
+        d.len(),
+        d.last().unwrap()
+    );
+    assert!(d.len() >= 40, "{}", d.len());
+    assert!(*d.last().unwrap() < 0.005, "{:?}", d.last());
+    // The manifest hashes the prescription file; both label sources at once are refused.
+    assert!(read(&w.path("r-rx/manifest.json")).contains("prescription.geojson"));
+    let both = w.path("rx/both.toml");
+    std::fs::write(
+        &both,
+        read(&rx).replace("[columns]\n", "[columns]\ntreatment = \"product\"\n"),
+    )
+    .unwrap();
+    let o = plotsieve(&w.0, &["check", both.to_str().unwrap()]);
+    assert!(!o.status.success());
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        err.contains("give columns.treatment (labels on the records) or inputs.prescription (labels from polygons), not both"),
         "{err}"
     );
 }

@@ -13,7 +13,12 @@ pub fn read_geojson(
     name: &str,
     id_prop: &str,
 ) -> Result<Vec<PlotPolygon>, IngestError> {
-    super::layers::plot_polygons(super::layers::read(path, name, "")?, name, id_prop)
+    super::layers::plot_polygons(
+        super::layers::read(path, name, "")?,
+        name,
+        id_prop,
+        "inputs.plot_id_property",
+    )
 }
 
 /// The analyst's plot file (GeoJSON, or a Shapefile or GeoPackage by its `.shp` or `.gpkg`
@@ -25,6 +30,19 @@ pub fn read_plot_input(
     path: &Path,
     name: &str,
     id_prop: &str,
+    crs: &str,
+    layer: &str,
+) -> Result<Vec<PlotPolygon>, IngestError> {
+    read_polygon_layer(path, name, id_prop, "inputs.plot_id_property", crs, layer)
+}
+
+/// [`read_plot_input`] for any polygon layer whose attribute `prop` (the setting `key`)
+/// names each polygon (plot ids; treatments of prescription polygons).
+pub fn read_polygon_layer(
+    path: &Path,
+    name: &str,
+    id_prop: &str,
+    key: &str,
     crs: &str,
     layer: &str,
 ) -> Result<Vec<PlotPolygon>, IngestError> {
@@ -46,7 +64,7 @@ pub fn read_plot_input(
             .flatten()
             .unwrap_or_else(|| crs.to_string())
     };
-    let mut polys = super::layers::plot_polygons(layer, name, id_prop)?;
+    let mut polys = super::layers::plot_polygons(layer, name, id_prop, key)?;
     if named.is_empty() {
         return Ok(polys);
     }

@@ -327,6 +327,7 @@ pub fn plot_polygons(
     layer: Layer,
     name: &str,
     id_prop: &str,
+    key: &str,
 ) -> Result<Vec<crate::table::PlotPolygon>, IngestError> {
     let unusable = |message: String| IngestError::Unusable {
         file: name.to_string(),
@@ -346,7 +347,7 @@ pub fn plot_polygons(
             Some(id) if !id.is_empty() => id,
             _ => {
                 return Err(unusable(format!(
-                    "{word} {n}: no {attr} {id_prop:?} (inputs.plot_id_property)"
+                    "{word} {n}: no {attr} {id_prop:?} ({key})"
                 )))
             }
         };

@@ -277,7 +277,12 @@ pub fn run_with(
         rejections.extend(read.rejections);
         progress.step();
     }
-    let labelled = !cfg.columns.treatment.is_empty();
+    let labelled = cfg.plots_from_labels();
+    let prescription = if cfg.inputs.prescription.is_empty() {
+        Vec::new()
+    } else {
+        read_prescription(cfg, base)?
+    };
     let design = if labelled {
         Vec::new()
     } else {
@@ -348,7 +353,11 @@ pub fn run_with(
     let mut strip_details = None;
     let mut strip_warnings = Vec::new();
     let (polygons, design) = if labelled {
-        let labels: Vec<u32> = raw.iter().map(|r| r.label).collect();
+        let (labels, tags) = if cfg.inputs.prescription.is_empty() {
+            (raw.iter().map(|r| r.label).collect(), tags)
+        } else {
+            strips::label_by_polygons(&points, &project_polygons(&utm, prescription)?)
+        };
         let built = strips::build(
             &points,
             &labels,
@@ -362,10 +371,11 @@ pub fn run_with(
                     .width
                     .value
                     .map(|v| v * formats::mapped_text::width_factor(cfg.columns.width.unit)),
+                source: label_source(cfg),
             },
         )
         .map_err(|message| IngestError::Unusable {
-            file: "columns.treatment".into(),
+            file: label_source(cfg),
             message,
         })?;
         strip_details = Some(built.details);
@@ -382,7 +392,7 @@ pub fn run_with(
         (v, design)
     };
     let plots_name = if labelled {
-        "the treatment labels (columns.treatment)".to_string()
+        format!("the treatment labels ({})", label_source(cfg))
     } else if cfg.layout.is_empty() {
         cfg.inputs.plots.clone()
     } else {
@@ -422,8 +432,8 @@ pub fn run_with(
         how.insert(
             "(plots)".into(),
             format!(
-                "built from the treatment labels in column {:?} (columns.treatment): {}",
-                cfg.columns.treatment,
+                "built from the treatment labels ({}): {}",
+                label_source(cfg),
                 fields.join("; ")
             ),
         );
@@ -446,6 +456,37 @@ pub fn run_with(
         rejections,
         summary,
     })
+}
+
+/// Where a trial's treatment labels come from, in words with the setting.
+fn label_source(cfg: &TrialConfig) -> String {
+    if cfg.inputs.prescription.is_empty() {
+        format!("column {:?}, columns.treatment", cfg.columns.treatment)
+    } else {
+        format!(
+            "the prescription polygons of {} by their {:?}, inputs.prescription",
+            cfg.inputs.prescription, cfg.inputs.prescription_property
+        )
+    }
+}
+
+/// The prescription polygons in WGS84 lon/lat, named by their treatment, checked as plots
+/// are.
+fn read_prescription(cfg: &TrialConfig, base: &Path) -> Result<Vec<PlotPolygon>, IngestError> {
+    let name = &cfg.inputs.prescription;
+    let polys = geojson::read_polygon_layer(
+        &base.join(name),
+        name,
+        &cfg.inputs.prescription_property,
+        "inputs.prescription_property",
+        &cfg.inputs.crs,
+        &cfg.inputs.layer,
+    )?;
+    let bad = plot_checks::problems(&polys, name);
+    if !bad.is_empty() {
+        return Err(IngestError::BadPlots(bad));
+    }
+    Ok(polys)
 }
 
 fn project_polygons(utm: &Utm, polys: Vec<PlotPolygon>) -> Result<Vec<PlotPolygon>, IngestError> {
@@ -558,7 +599,7 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
             }
         }
     }
-    if !cfg.columns.treatment.is_empty() {
+    if cfg.plots_from_labels() {
         // Plots and design come from the labels: build them as run would.
         match run(cfg, base) {
             Err(e) => problems.push(e.to_string()),
@@ -567,10 +608,10 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
                     o.design.iter().map(|d| d.field.as_str()).collect();
                 // Its warnings come with the front half's (`plotsieve check` runs it next).
                 problems.push(format!(
-                    "read: plots: {} plots in {} field(s) built from the treatment labels in column {:?} (columns.treatment)",
+                    "read: plots: {} plots in {} field(s) built from the treatment labels ({})",
                     o.polygons.len(),
                     fields.len(),
-                    cfg.columns.treatment
+                    label_source(cfg)
                 ));
             }
         }

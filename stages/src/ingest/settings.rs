@@ -38,6 +38,12 @@ pub struct InputsSection {
     pub yield_property: String,
     /// The unit of `yield_property`: t_ha, kg_ha, q_ha, bu_ac or lb_ac.
     pub yield_unit: String,
+    /// Prescription polygons (GeoJSON, Shapefile or GeoPackage) whose attribute
+    /// `prescription_property` names the treatment applied in each: every record takes the
+    /// treatment of the polygon it lies in, and the plots and design are built from these
+    /// labels as from `columns.treatment`.
+    pub prescription: String,
+    pub prescription_property: String,
     /// The CRS of coordinates in the inputs (`EPSG:32614`, ...): monitor exports' x/y
     /// columns, and plot files without a `crs` member of their own. Empty: WGS84 lon/lat.
     pub crs: String,

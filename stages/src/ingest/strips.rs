@@ -1,5 +1,6 @@
 //! Plots and design of a strip trial from the treatment labels on its records (as-applied or
-//! prescription labels in `columns.treatment`), for on-farm trials without drawn plots.
+//! prescription labels in `columns.treatment`, or the treatment of the prescription polygon
+//! each record lies in, [`label_by_polygons`]), for on-farm trials without drawn plots.
 //!
 //! 1. Fields: exports whose labelled records overlap (bounding boxes within 30 m) are one
 //!    field, named after the first export's file name.
@@ -45,6 +46,8 @@ pub struct StripSettings {
     pub min_records: u64,
     /// The swath width when the exports log none (`columns.width.value`), metres.
     pub fallback_width_m: Option<f64>,
+    /// Where the labels come from, in words with the setting (for messages).
+    pub source: String,
 }
 
 /// Plots, design and what was found, for the ingest summary.
@@ -77,6 +80,54 @@ fn find(parent: &mut [usize], mut i: usize) -> usize {
 /// The `q` quantile (0-1) of sorted values, by the nearest rank.
 fn quantile(sorted: &[f64], q: f64) -> f64 {
     sorted[((sorted.len() - 1) as f64 * q).round() as usize]
+}
+
+/// Labels from prescription polygons (projected, named by their treatment): each point
+/// takes the treatment of the first polygon that contains it (0: none). Returns the labels
+/// and their table (entry 0: no label; then the treatments in polygon order).
+pub fn label_by_polygons(points: &[Point], polys: &[PlotPolygon]) -> (Vec<u32>, Vec<[String; 3]>) {
+    use geo::{BoundingRect, Contains};
+    use rayon::prelude::*;
+    let mut table: Vec<[String; 3]> = vec![Default::default()];
+    let mut tag = Vec::with_capacity(polys.len());
+    for p in polys {
+        let t = match table.iter().position(|e| e[0] == p.plot_id) {
+            Some(t) => t,
+            None => {
+                table.push([p.plot_id.clone(), String::new(), String::new()]);
+                table.len() - 1
+            }
+        };
+        tag.push(t as u32);
+    }
+    let shapes: Vec<(geo::Polygon<f64>, geo::Rect<f64>)> = polys
+        .iter()
+        .filter_map(|p| {
+            let g = geo::Polygon::new(
+                p.exterior.clone().into(),
+                p.holes.iter().map(|h| h.clone().into()).collect(),
+            );
+            g.bounding_rect().map(|r| (g, r))
+        })
+        .collect();
+    let labels = points
+        .par_iter()
+        .map(|q| {
+            let c = geo::Coord { x: q.x_m, y: q.y_m };
+            shapes
+                .iter()
+                .zip(&tag)
+                .find(|((g, r), _)| {
+                    c.x >= r.min().x
+                        && c.x <= r.max().x
+                        && c.y >= r.min().y
+                        && c.y <= r.max().y
+                        && g.contains(&c)
+                })
+                .map_or(0, |(_, t)| *t)
+        })
+        .collect();
+    (labels, table)
 }
 
 /// One piece of a strip before it is cut into plots.
@@ -123,7 +174,8 @@ pub fn build(
     for (f, name) in names.iter().enumerate() {
         if labelled[f] == 0 {
             warnings.push(format!(
-                "export {name}: no record carries a treatment label (columns.treatment); it is in no plot"
+                "export {name}: no record carries a treatment label ({}); it is in no plot",
+                s.source
             ));
         }
     }
@@ -151,7 +203,8 @@ pub fn build(
     }
     if fields.is_empty() {
         return Err(format!(
-            "no record of any export carries a treatment label in the column named by columns.treatment, so no plot can be built ({} exports read)",
+            "no record of any export carries a treatment label ({}), so no plot can be built ({} exports read)",
+            s.source,
             names.len()
         ));
     }
@@ -188,7 +241,7 @@ pub fn build(
         d.row = i as u64 + 2;
     }
     out.details = serde_json::json!({
-        "from": "treatment labels on the records (columns.treatment)",
+        "from": s.source,
         "plot_length_m": s.plot_length_m,
         "fields": details,
     });
@@ -595,6 +648,7 @@ mod tests {
             plot_length_m: 0.0,
             min_records: 20,
             fallback_width_m: None,
+            source: "column \"treatment\" (columns.treatment)".into(),
         }
     }
 

@@ -62,6 +62,10 @@ pub struct SimOptions {
     /// column, empty outside plots) and no plot polygons or design table are written: the
     /// plots are built from the labels (`columns.treatment`). Not for the task-data form.
     pub labels: bool,
+    /// No plot polygons or design either, but prescription polygons: `prescription.geojson`,
+    /// each plot's rectangle with the treatment applied in it as its `product`
+    /// (`inputs.prescription`).
+    pub prescription: bool,
 }
 
 crate::choice! {
@@ -107,6 +111,7 @@ impl Default for SimOptions {
             form: SimForm::Text,
             interval_s: 1,
             labels: false,
+            prescription: false,
         }
     }
 }
@@ -304,9 +309,14 @@ pub fn generate(o: &SimOptions) -> SimTrial {
                     .iter()
                     .map(|&(x, y)| json!([(x * 1e8).round() / 1e8, (y * 1e8).round() / 1e8]))
                     .collect();
+                let properties = if o.prescription {
+                    json!({"product": t})
+                } else {
+                    json!({"plot_id": id, "field": fname})
+                };
                 features.push(json!({
                     "type": "Feature",
-                    "properties": {"plot_id": id, "field": fname},
+                    "properties": properties,
                     "geometry": {"type": "Polygon", "coordinates": [coords]}
                 }));
                 let (cu, cv) = (0.5 * (u0 + u1), 0.5 * (v0 + v1));
@@ -630,8 +640,13 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         artifacts.insert(file_name.clone(), labels_out);
         files.push((file_name, csv));
     }
-    if !o.labels {
-        let geo = json!({"type": "FeatureCollection", "features": features});
+    let geo = json!({"type": "FeatureCollection", "features": features});
+    if o.prescription {
+        files.push((
+            "prescription.geojson".into(),
+            serde_json::to_string_pretty(&geo).unwrap() + "\n",
+        ));
+    } else if !o.labels {
         files.push((
             "plots.geojson".into(),
             serde_json::to_string_pretty(&geo).unwrap() + "\n",

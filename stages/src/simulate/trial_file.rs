@@ -66,8 +66,13 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
     if o.labels {
         how += " --labels";
     }
+    if o.prescription {
+        how += " --prescription";
+    }
     // Plots as polygons with a design table, or built from the records' labels.
-    let plots = if o.labels {
+    let plots = if o.prescription {
+        "prescription = \"prescription.geojson\"\nprescription_property = \"product\"\n"
+    } else if o.labels {
         ""
     } else {
         "plots = \"plots.geojson\"\nplot_id_property = \"plot_id\"\ndesign = \"design.csv\"\n"
