@@ -65,6 +65,7 @@ fn plot_geometry_matches_shapely() {
         .map(ring)
         .collect();
     let (_, ext) = &polys["rect"];
+    let fps: Vec<&[(f64, f64)]> = fps.iter().map(|f| f.as_slice()).collect();
     let ours = coverage(ext, &fps, 0.25);
     let theirs = c["fraction"].as_f64().unwrap();
     assert!(

@@ -136,7 +136,8 @@ pub fn coarse_best(curve: &[(f64, f64)]) -> usize {
         .unwrap_or(0)
 }
 
-/// Estimate the lag over the grid `lo..=hi` by `step`.
+/// Estimate the lag over the grid `lo..=hi` by `step`, judged on the `candidate` pairs of
+/// `pts` ([`opposite_pairs`], found once per export and shared by flow and moisture).
 #[allow(clippy::too_many_arguments)]
 pub fn estimate(
     pts: &[PairPoint],
@@ -146,7 +147,7 @@ pub fn estimate(
     lo: f64,
     hi: f64,
     step: f64,
-    dist: f64,
+    candidate: &[(usize, usize)],
     min_pairs: usize,
 ) -> Option<DelayEstimate> {
     let lags: Vec<f64> = {
@@ -159,8 +160,8 @@ pub fn estimate(
     let fine_step = step / 4.0;
     let base = lo - 2.0;
     let n_samples = ((hi + 2.0 - base) / fine_step).round() as usize + 1;
-    let sample_all = |p: &PairPoint| -> Vec<f64> {
-        let mut out = Vec::with_capacity(n_samples);
+    let sample_all = |p: &PairPoint, out: &mut Vec<f64>| {
+        out.clear();
         let mut j = times.partition_point(|&x| x < p.time_s + base).max(1);
         for k in 0..n_samples {
             let t = p.time_s + base + k as f64 * fine_step;
@@ -186,23 +187,20 @@ pub fn estimate(
             };
             out.push(v / p.divisor);
         }
-        out
     };
     // The value at a point for a lag: the mean of five samples one second apart around
     // time + lag (damping point noise), precomputed per point.
     let offsets: Vec<isize> = (-2..=2)
         .map(|k| (k as f64 / fine_step).round() as isize)
         .collect();
-    let smooth = |raw: Vec<f64>| -> Vec<f64> {
-        (0..raw.len() as isize)
-            .map(|c| {
-                offsets
-                    .iter()
-                    .map(|o| raw.get((c + o) as usize).copied().unwrap_or(f64::NAN))
-                    .sum::<f64>()
-                    / 5.0
-            })
-            .collect()
+    let smooth = |raw: &[f64], out: &mut Vec<f64>| {
+        out.extend((0..raw.len() as isize).map(|c| {
+            offsets
+                .iter()
+                .map(|o| raw.get((c + o) as usize).copied().unwrap_or(f64::NAN))
+                .sum::<f64>()
+                / 5.0
+        }));
     };
     let at = |samples: &[f64], lag: f64| -> f64 {
         let c = ((lag - base) / fine_step).round() as usize;
@@ -210,18 +208,28 @@ pub fn estimate(
     };
     // Keep pairs whose values exist at both ends of the lag range, so that each lag is
     // judged on (nearly) the same pairs.
-    let candidate = opposite_pairs(pts, dist);
-    let mut samples: Vec<Option<Vec<f64>>> = vec![None; pts.len()];
-    for &(i, j) in &candidate {
+    // Each paired point's smoothed samples, one after another in `buf` (`slot`: where).
+    let mut slot = vec![u32::MAX; pts.len()];
+    let mut buf: Vec<f64> = Vec::new();
+    let mut raw: Vec<f64> = Vec::with_capacity(n_samples);
+    let mut used = 0u32;
+    for &(i, j) in candidate {
         for k in [i, j] {
-            if samples[k].is_none() {
-                samples[k] = Some(smooth(sample_all(&pts[k])));
+            if slot[k] == u32::MAX {
+                sample_all(&pts[k], &mut raw);
+                smooth(&raw, &mut buf);
+                slot[k] = used;
+                used += 1;
             }
         }
     }
-    let sampled = |k: usize| samples[k].as_deref().unwrap_or(&[]);
+    let sampled = |k: usize| match slot[k] {
+        u32::MAX => &[][..],
+        s => &buf[s as usize * n_samples..(s as usize + 1) * n_samples],
+    };
     let pairs: Vec<(usize, usize)> = candidate
-        .into_iter()
+        .iter()
+        .copied()
         .filter(|&(i, j)| {
             [lo, hi]
                 .iter()
@@ -365,6 +373,8 @@ pub fn shift(e: &mut Export) {
         } else {
             1.2 * header
         };
+        // The pairs depend on positions only: found once for flow, moisture and widening.
+        let candidate = opposite_pairs(&core, dist);
         let est = |series: &[f64], pts: &[PairPoint]| {
             let scan = |lo, hi| {
                 estimate(
@@ -375,7 +385,7 @@ pub fn shift(e: &mut Export) {
                     lo,
                     hi,
                     s.delay.step_s,
-                    dist,
+                    &candidate,
                     s.delay.min_pairs as usize,
                 )
             };
@@ -474,7 +484,8 @@ mod tests {
                 truth(pos[src as usize].0)
             });
         }
-        let e = estimate(&pts, &times, &series, 5.0, 0.0, 15.0, 1.0, 11.0, 10).unwrap();
+        let pairs = opposite_pairs(&pts, 11.0);
+        let e = estimate(&pts, &times, &series, 5.0, 0.0, 15.0, 1.0, &pairs, 10).unwrap();
         assert!((e.lag_s - delay).abs() < 0.5, "{e:?}");
         assert_eq!(e.curve.len(), 16);
     }
@@ -489,6 +500,7 @@ mod tests {
             pass: 0,
             divisor: 1.0,
         }];
-        assert!(estimate(&pts, &[0.0], &[1.0], 5.0, 0.0, 0.0, 1.0, 10.0, 1).is_none());
+        let pairs = opposite_pairs(&pts, 10.0);
+        assert!(estimate(&pts, &[0.0], &[1.0], 5.0, 0.0, 0.0, 1.0, &pairs, 1).is_none());
     }
 }

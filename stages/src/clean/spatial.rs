@@ -14,7 +14,7 @@
 //! `min_neighbours` of them (the deviation-from-neighbourhood-median alternative to local
 //! Moran's I named in Anselin 1995, Geographical Analysis 27:93).
 
-use crate::util::{mad, median};
+use crate::util::median_mut;
 use rstar::primitives::{GeomWithData, Rectangle};
 use rstar::{RTree, AABB};
 
@@ -117,21 +117,27 @@ pub fn local_outliers(
             .map(|(i, p)| GeomWithData::new([p.0, p.1], i))
             .collect(),
     );
+    // Buffers reused from point to point.
+    let mut nb: Vec<f64> = Vec::new();
+    let mut dev: Vec<f64> = Vec::new();
     xy.iter()
         .enumerate()
         .map(|(i, p)| {
-            let nb: Vec<f64> = tree
-                .locate_within_distance([p.0, p.1], radius * radius)
-                .filter(|g| g.data != i && group[g.data] == group[i])
-                .map(|g| y[g.data])
-                .collect();
+            nb.clear();
+            nb.extend(
+                tree.locate_within_distance([p.0, p.1], radius * radius)
+                    .filter(|g| g.data != i && group[g.data] == group[i])
+                    .map(|g| y[g.data]),
+            );
             if nb.len() < min_neighbours {
                 return None;
             }
-            let m = median(&nb);
+            let m = median_mut(&mut nb);
+            dev.clear();
+            dev.extend(nb.iter().map(|v| (v - m).abs()));
             // A floor of 1 % of the median keeps a neighbourhood of identical values (MAD 0)
             // from flagging every small difference.
-            let limit = (k * 1.4826 * mad(&nb, m)).max(0.01 * m.abs());
+            let limit = (k * 1.4826 * median_mut(&mut dev)).max(0.01 * m.abs());
             let dev = y[i] - m;
             (dev.abs() > limit).then_some((dev, limit))
         })

@@ -34,6 +34,7 @@ use crate::table::{CleanPoint, DesignRow, PlotCounts, PlotPolygon, Rejection, St
 use crate::util::{mean, median, sd};
 use geo::{Area, Centroid, Contains, LineString, Polygon};
 use geometry::{clip_area, net_polygon, oriented_rect, Frame};
+use rayon::prelude::*;
 use rstar::primitives::{GeomWithData, Rectangle};
 use rstar::{PointDistance, RTree};
 pub use settings::PlotsSettings;
@@ -420,6 +421,29 @@ pub fn run(
         count_in: ordered.len() as u64,
         ..Default::default()
     };
+    // Each plot's coverage (the raster of its footprints), plots in parallel.
+    let coverages: Vec<f64> = (0..ordered.len())
+        .into_par_iter()
+        .map(|k| {
+            let net_ring = nets[k].as_deref().unwrap_or_default();
+            // Without a swath width (a yield-point export without one) the harvested area
+            // is unknown: coverage is NaN and min_coverage does not apply.
+            let widths_known = members[k]
+                .iter()
+                .any(|&i| points[i].base.width_m.is_finite());
+            if net_ring.is_empty() {
+                0.0
+            } else if !widths_known {
+                f64::NAN
+            } else {
+                let fps: Vec<&[(f64, f64)]> = members[k]
+                    .iter()
+                    .map(|&i| footprint[i].as_slice())
+                    .collect();
+                geometry::coverage(net_ring, &fps, s.coverage_cell_m)
+            }
+        })
+        .collect();
     for (k, (d, _)) in ordered.iter().enumerate() {
         let ys: Vec<f64> = members[k]
             .iter()
@@ -431,20 +455,7 @@ pub fn run(
             .collect();
         let net_ring = nets[k].clone().unwrap_or_default();
         let net_area = geometry::signed_area(&net_ring).abs();
-        // Without a swath width (a yield-point export without one) the harvested area is
-        // unknown: coverage is NaN and min_coverage does not apply.
-        let widths_known = members[k]
-            .iter()
-            .any(|&i| points[i].base.width_m.is_finite());
-        let cov = if net_ring.is_empty() {
-            0.0
-        } else if !widths_known {
-            f64::NAN
-        } else {
-            let fps: Vec<Vec<(f64, f64)>> =
-                members[k].iter().map(|&i| footprint[i].clone()).collect();
-            geometry::coverage(&net_ring, &fps, s.coverage_cell_m)
-        };
+        let cov = coverages[k];
         let n = ys.len() as u64;
         // Records in one-second terms: a record of an export logging every 3 s counts 3.
         let seconds: f64 = members[k]
