@@ -1,15 +1,22 @@
-//! Benchmark: ingest + clean on a simulated harvest of about 2 million monitor points.
+//! Benchmark: the front half (ingest + clean + plots) on a simulated harvest, side by side
+//! with polars reading the same CSV files.
 //!
 //! Run: `cargo bench -p plotsieve --bench ingest_clean` (add `-- --fields N` to change the
-//! size; 92 fields of 60 blocks give about 2.0 million points). The parent process writes
-//! the simulated exports to a temporary folder, then runs the measurement in a child process
-//! so that the child's peak resident memory (VmHWM from /proc/self/status) counts ingest and
-//! clean only, not the simulator. `PLOTSIEVE_BENCH_SET` adds `--set` style overrides,
-//! separated by `;`.
+//! size; 92 fields of 60 blocks give about 2.0 million points, 23 about 0.5 million, 368
+//! about 8 million). The parent process writes the simulated exports to a temporary folder,
+//! then runs the measurement in a child process so that the child's peak resident memory
+//! (VmHWM from /proc/self/status) counts the front half only, not the simulator. In the
+//! child, polars first reads every export (`CsvReader`, all columns, its own threads) as the
+//! floor any reader of these files meets; then ingest, clean (with the plots as zones, as
+//! `plotsieve run` does) and plots run in memory, and the ratio of their time to the
+//! floor's is printed. `PLOTSIEVE_BENCH_SET` adds `--set` style overrides, separated by `;`.
 
+use plotsieve_stages::clean::zones::Zones;
 use plotsieve_stages::config::TrialConfig;
+use plotsieve_stages::progress::Progress;
 use plotsieve_stages::simulate::{generate, SimOptions};
-use plotsieve_stages::{clean, ingest};
+use plotsieve_stages::{clean, ingest, plots};
+use polars::prelude::{CsvReadOptions, SerReader};
 use std::path::Path;
 use std::time::Instant;
 
@@ -40,27 +47,53 @@ fn measure(dir: &Path) {
         .unwrap_or_default();
     let cfg = TrialConfig::from_toml(&text, "trial.toml", &sets).expect("config");
     let crop = cfg.crop().expect("crop");
+    // The floor: polars reads every export.
+    let mut csvs: Vec<_> = std::fs::read_dir(dir.join("monitor"))
+        .expect("monitor folder")
+        .map(|e| e.expect("entry").path())
+        .collect();
+    csvs.sort();
+    let t = Instant::now();
+    let mut rows = 0;
+    for p in &csvs {
+        let df = CsvReadOptions::default()
+            .with_has_header(true)
+            .try_into_reader_with_file_path(Some(p.clone()))
+            .expect("polars opens the export")
+            .finish()
+            .expect("polars reads the export");
+        rows += df.height();
+    }
+    let t_polars = t.elapsed().as_secs_f64();
+    let none = Progress::none();
     let t0 = Instant::now();
     let ing = ingest::run(&cfg, dir).expect("ingest");
     let t_ingest = t0.elapsed().as_secs_f64();
     let n = ing.points.points.len();
     let t1 = Instant::now();
-    let cl = clean::run(&ing.points, &cfg.clean, &crop);
+    let zones = Zones::new(&ing.polygons, &ing.design);
+    let cl = clean::run_with(&ing.points, &cfg.clean, &crop, Some(&zones), &none);
     let t_clean = t1.elapsed().as_secs_f64();
-    println!("points                {n}");
-    println!(
-        "ingest                {t_ingest:.2} s  ({:.0} points/s)",
-        n as f64 / t_ingest
+    let t2 = Instant::now();
+    let pl = plots::run(
+        &cl.points,
+        &ing.points.files,
+        &ing.polygons,
+        &ing.design,
+        &cfg.design_name(),
+        &cfg.plots,
     );
-    println!(
-        "clean                 {t_clean:.2} s  ({:.0} points/s)",
-        n as f64 / t_clean
-    );
-    println!(
-        "ingest + clean        {:.2} s  ({:.0} points/s)",
-        t_ingest + t_clean,
-        n as f64 / (t_ingest + t_clean)
-    );
+    let t_plots = t2.elapsed().as_secs_f64();
+    let front = t_ingest + t_clean + t_plots;
+    let rate = |t: f64| format!("{t:.2} s  ({:.0} points/s)", n as f64 / t);
+    println!("points                {n} ({rows} CSV rows read by polars)");
+    println!("plots                 {}", pl.plots.len());
+    println!("polars CSV read       {}", rate(t_polars));
+    println!("ingest                {}", rate(t_ingest));
+    println!("clean                 {}", rate(t_clean));
+    println!("plots                 {}", rate(t_plots));
+    println!("ingest + clean + plots {}", rate(front));
+    println!("ratio to polars read  {:.1}x", front / t_polars);
     println!(
         "kept after clean      {} ({:.1} %)",
         cl.points.len(),

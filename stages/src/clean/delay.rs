@@ -15,14 +15,12 @@
 //! grid and the pairing distance.
 //! Returns: the lag, the objective curve and the number of pairs; `None` when there are
 //! fewer pairs than `min_pairs` (the caller then uses the fixed delay).
-//! Complexity: O(n log n) to pair with an R-tree, then O(n x lags).
+//! Complexity: O(n) to pair on a grid of cells the pairing distance wide, then O(n x lags).
 
 use super::passes;
 use super::rules::Export;
 use super::settings::DelayMode;
 use crate::util::median;
-use rstar::primitives::GeomWithData;
-use rstar::RTree;
 use std::collections::BTreeMap;
 
 /// One point offered for pairing.
@@ -58,27 +56,23 @@ fn angle_diff(a: f64, b: f64) -> f64 {
 
 /// Pair each point with its nearest neighbour on an opposite-direction pass within `dist`.
 pub fn opposite_pairs(pts: &[PairPoint], dist: f64) -> Vec<(usize, usize)> {
-    let tree = RTree::bulk_load(
-        pts.iter()
-            .enumerate()
-            .map(|(i, p)| GeomWithData::new([p.x, p.y], i))
-            .collect(),
-    );
+    let xy: Vec<(f64, f64)> = pts.iter().map(|p| (p.x, p.y)).collect();
+    let grid = super::grid::Grid::new(&xy, dist);
     let mut pairs = Vec::new();
     for (i, p) in pts.iter().enumerate() {
-        let best = tree
-            .locate_within_distance([p.x, p.y], dist * dist)
-            .filter(|g| {
-                let q = &pts[g.data];
+        let best = grid
+            .within(&xy, p.x, p.y, dist * dist)
+            .filter(|&g| {
+                let q = &pts[g];
                 q.pass != p.pass && angle_diff(p.heading_deg, q.heading_deg) > 135.0
             })
-            .min_by(|a, b| {
-                let da = (pts[a.data].x - p.x).powi(2) + (pts[a.data].y - p.y).powi(2);
-                let db = (pts[b.data].x - p.x).powi(2) + (pts[b.data].y - p.y).powi(2);
-                da.total_cmp(&db).then(a.data.cmp(&b.data))
+            .min_by(|&a, &b| {
+                let da = (pts[a].x - p.x).powi(2) + (pts[a].y - p.y).powi(2);
+                let db = (pts[b].x - p.x).powi(2) + (pts[b].y - p.y).powi(2);
+                da.total_cmp(&db).then(a.cmp(&b))
             });
         if let Some(g) = best {
-            pairs.push((i.min(g.data), i.max(g.data)));
+            pairs.push((i.min(g), i.max(g)));
         }
     }
     pairs.sort_unstable();
@@ -160,80 +154,117 @@ pub fn estimate(
     let fine_step = step / 4.0;
     let base = lo - 2.0;
     let n_samples = ((hi + 2.0 - base) / fine_step).round() as usize + 1;
-    let sample_all = |p: &PairPoint, out: &mut Vec<f64>| {
-        out.clear();
-        let mut j = times.partition_point(|&x| x < p.time_s + base).max(1);
-        for k in 0..n_samples {
-            let t = p.time_s + base + k as f64 * fine_step;
-            while j < times.len() && times[j] < t {
-                j += 1;
-            }
-            let v = if t < times[0] || j >= times.len() {
-                if times.last() == Some(&t) {
-                    series[times.len() - 1]
-                } else {
-                    f64::NAN
-                }
-            } else if times[j] == t {
-                series[j]
-            } else {
-                let dt = times[j] - times[j - 1];
-                if dt > max_gap {
-                    f64::NAN
-                } else {
-                    let w = (t - times[j - 1]) / dt;
-                    series[j - 1] * (1.0 - w) + series[j] * w
-                }
-            };
-            out.push(v / p.divisor);
+    // The series at sample k of point p (time + base + k x fine_step), walking the time
+    // line forward from `j` (the record index reached for an earlier sample of p): the
+    // index found for a sample depends only on where the walk started, so a point's
+    // samples can be taken in any increasing subset.
+    let sample = |p: &PairPoint, k: usize, j: &mut usize| -> f64 {
+        let t = p.time_s + base + k as f64 * fine_step;
+        while *j < times.len() && times[*j] < t {
+            *j += 1;
         }
+        let j = *j;
+        let v = if t < times[0] || j >= times.len() {
+            if times.last() == Some(&t) {
+                series[times.len() - 1]
+            } else {
+                f64::NAN
+            }
+        } else if times[j] == t {
+            series[j]
+        } else {
+            let dt = times[j] - times[j - 1];
+            if dt > max_gap {
+                f64::NAN
+            } else {
+                let w = (t - times[j - 1]) / dt;
+                series[j - 1] * (1.0 - w) + series[j] * w
+            }
+        };
+        v / p.divisor
     };
+    let walk_start = |p: &PairPoint| times.partition_point(|&x| x < p.time_s + base).max(1);
     // The value at a point for a lag: the mean of five samples one second apart around
-    // time + lag (damping point noise), precomputed per point.
+    // time + lag (damping point noise).
     let offsets: Vec<isize> = (-2..=2)
         .map(|k| (k as f64 / fine_step).round() as isize)
         .collect();
-    let smooth = |raw: &[f64], out: &mut Vec<f64>| {
-        out.extend((0..raw.len() as isize).map(|c| {
-            offsets
-                .iter()
-                .map(|o| raw.get((c + o) as usize).copied().unwrap_or(f64::NAN))
-                .sum::<f64>()
-                / 5.0
-        }));
-    };
-    let at = |samples: &[f64], lag: f64| -> f64 {
-        let c = ((lag - base) / fine_step).round() as usize;
-        samples.get(c).copied().unwrap_or(f64::NAN)
-    };
-    // Keep pairs whose values exist at both ends of the lag range, so that each lag is
-    // judged on (nearly) the same pairs.
-    // Each paired point's smoothed samples, one after another in `buf` (`slot`: where).
+    let centre = |lag: f64| ((lag - base) / fine_step).round() as usize;
+    // Each paired point's samples and smoothed values, one block of n_samples after
+    // another (`slot`: which block). Only the samples the lags read are taken: first those
+    // of the coarse lags and the scan's ends, later those of the fine lags.
     let mut slot = vec![u32::MAX; pts.len()];
-    let mut buf: Vec<f64> = Vec::new();
-    let mut raw: Vec<f64> = Vec::with_capacity(n_samples);
-    let mut used = 0u32;
+    let mut order: Vec<usize> = Vec::new();
     for &(i, j) in candidate {
         for k in [i, j] {
             if slot[k] == u32::MAX {
-                sample_all(&pts[k], &mut raw);
-                smooth(&raw, &mut buf);
-                slot[k] = used;
-                used += 1;
+                slot[k] = order.len() as u32;
+                order.push(k);
             }
         }
     }
-    let sampled = |k: usize| match slot[k] {
-        u32::MAX => &[][..],
-        s => &buf[s as usize * n_samples..(s as usize + 1) * n_samples],
+    let mut raw = vec![f64::NAN; order.len() * n_samples];
+    let mut sm = vec![f64::NAN; order.len() * n_samples];
+    // Take the samples that the smoothed values at `centres` need (those not yet taken).
+    let mut taken = vec![false; n_samples];
+    let mut fill = |centres: &[usize], raw: &mut [f64], sm: &mut [f64]| {
+        let mut need: Vec<usize> = centres
+            .iter()
+            .flat_map(|&c| offsets.iter().map(move |o| c as isize + o))
+            .filter(|&m| m >= 0 && (m as usize) < n_samples && !taken[m as usize])
+            .map(|m| m as usize)
+            .collect();
+        need.sort_unstable();
+        need.dedup();
+        for (b, &k) in order.iter().enumerate() {
+            let p = &pts[k];
+            let r = &mut raw[b * n_samples..(b + 1) * n_samples];
+            let mut j = walk_start(p);
+            for &m in &need {
+                r[m] = sample(p, m, &mut j);
+            }
+            let sm = &mut sm[b * n_samples..(b + 1) * n_samples];
+            for &c in centres {
+                sm[c] = offsets
+                    .iter()
+                    .map(|o| {
+                        r.get((c as isize + o) as usize)
+                            .copied()
+                            .unwrap_or(f64::NAN)
+                    })
+                    .sum::<f64>()
+                    / 5.0;
+            }
+        }
+        for m in need {
+            taken[m] = true;
+        }
     };
+    let coarse: Vec<usize> = lags
+        .iter()
+        .chain([lo, hi].iter())
+        .map(|&l| centre(l))
+        .filter(|&c| c < n_samples)
+        .collect();
+    fill(&coarse, &mut raw, &mut sm);
+    let at = |sm: &[f64], k: usize, lag: f64| -> f64 {
+        match slot[k] {
+            u32::MAX => f64::NAN,
+            b => sm[b as usize * n_samples..(b as usize + 1) * n_samples]
+                .get(centre(lag))
+                .copied()
+                .unwrap_or(f64::NAN),
+        }
+    };
+    // Keep pairs whose values exist at both ends of the lag range, so that each lag is
+    // judged on (nearly) the same pairs.
     let pairs: Vec<(usize, usize)> = candidate
         .iter()
         .copied()
         .filter(|&(i, j)| {
             [lo, hi]
                 .iter()
-                .all(|&l| at(sampled(i), l).is_finite() && at(sampled(j), l).is_finite())
+                .all(|&l| at(&sm, i, l).is_finite() && at(&sm, j, l).is_finite())
         })
         .collect();
     if pairs.len() < min_pairs {
@@ -241,12 +272,23 @@ pub fn estimate(
     }
     // Robust objective: the mean of the squared differences without the largest 2 %, so a
     // sensor spike or a stray pair cannot decide the lag.
-    let objective = |l: f64| -> f64 {
-        let mut d: Vec<f64> = pairs
-            .iter()
-            .map(|&(i, j)| (at(sampled(i), l) - at(sampled(j), l)).powi(2))
-            .filter(|v| v.is_finite())
-            .collect();
+    // Each pair's two blocks of smoothed values (both points are paired, so both have one).
+    let blocks: Vec<(usize, usize)> = pairs
+        .iter()
+        .map(|&(i, j)| (slot[i] as usize * n_samples, slot[j] as usize * n_samples))
+        .collect();
+    let mut d: Vec<f64> = Vec::with_capacity(pairs.len());
+    let mut objective = |sm: &[f64], l: f64| -> f64 {
+        let c = centre(l);
+        d.clear();
+        if c < n_samples {
+            d.extend(
+                blocks
+                    .iter()
+                    .map(|&(a, b)| (sm[a + c] - sm[b + c]).powi(2))
+                    .filter(|v| v.is_finite()),
+            );
+        }
         let keep = ((d.len() as f64 * 0.98).ceil() as usize).min(d.len());
         if keep == 0 {
             return f64::INFINITY;
@@ -256,15 +298,21 @@ pub fn estimate(
         }
         d[..keep].iter().sum::<f64>() / keep as f64
     };
-    let curve: Vec<(f64, f64)> = lags.iter().map(|&l| (l, objective(l))).collect();
+    let curve: Vec<(f64, f64)> = lags.iter().map(|&l| (l, objective(&sm, l))).collect();
     let k = coarse_best(&curve);
     // Refine on a quarter-step grid around the best lag, then a parabola through the best
     // fine lag and its neighbours.
-    let fine: Vec<(f64, f64)> = (-6..=6)
+    let fine_lags: Vec<f64> = (-6..=6)
         .map(|j| curve[k].0 + j as f64 * fine_step)
         .filter(|l| *l >= lo && *l <= hi)
-        .map(|l| (l, objective(l)))
         .collect();
+    let centres: Vec<usize> = fine_lags
+        .iter()
+        .map(|&l| centre(l))
+        .filter(|&c| c < n_samples)
+        .collect();
+    fill(&centres, &mut raw, &mut sm);
+    let fine: Vec<(f64, f64)> = fine_lags.iter().map(|&l| (l, objective(&sm, l))).collect();
     let f = (0..fine.len())
         .min_by(|&a, &b| fine[a].1.total_cmp(&fine[b].1))
         .unwrap_or(0);

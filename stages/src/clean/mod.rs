@@ -46,6 +46,7 @@
 //! Complexity: O(n log n) per export (sort, R-trees); the delay scan is O(n x lags).
 
 pub mod delay;
+pub mod grid;
 pub mod passes;
 pub mod rules;
 pub mod settings;

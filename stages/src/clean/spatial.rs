@@ -102,7 +102,8 @@ pub fn overlap_fractions(fp: &[Footprint], skip_s: f64) -> Vec<f64> {
 }
 
 /// Local outlier test for each point: Some((deviation, limit)) when it fails. A point's
-/// neighbours are the other points of its own group within `radius`.
+/// neighbours are the other points of its own group within `radius` (found on a grid of
+/// `radius` cells).
 pub fn local_outliers(
     xy: &[(f64, f64)],
     y: &[f64],
@@ -111,12 +112,7 @@ pub fn local_outliers(
     k: f64,
     min_neighbours: usize,
 ) -> Vec<Option<(f64, f64)>> {
-    let tree = RTree::bulk_load(
-        xy.iter()
-            .enumerate()
-            .map(|(i, p)| GeomWithData::new([p.0, p.1], i))
-            .collect(),
-    );
+    let grid = super::grid::Grid::new(xy, radius);
     // Buffers reused from point to point.
     let mut nb: Vec<f64> = Vec::new();
     let mut dev: Vec<f64> = Vec::new();
@@ -125,9 +121,9 @@ pub fn local_outliers(
         .map(|(i, p)| {
             nb.clear();
             nb.extend(
-                tree.locate_within_distance([p.0, p.1], radius * radius)
-                    .filter(|g| g.data != i && group[g.data] == group[i])
-                    .map(|g| y[g.data]),
+                grid.within(xy, p.0, p.1, radius * radius)
+                    .filter(|&g| g != i && group[g] == group[i])
+                    .map(|g| y[g]),
             );
             if nb.len() < min_neighbours {
                 return None;

@@ -245,13 +245,22 @@ pub fn run_with(
     let mut count_in = 0;
     // How each export was read (format and mapping), for the summary and the report.
     let mut how: std::collections::BTreeMap<String, String> = Default::default();
-    for (i, (p, name)) in files.iter().zip(&names).enumerate() {
-        let format = formats::for_file(p);
-        how.insert(
-            name.clone(),
-            format!("{}: {}", format.name(), format.describe_file(cfg, p)),
-        );
-        let read = format.read(cfg, p, name, i as u32)?;
+    // Exports are read in parallel (each on its own), then taken in order.
+    let reads: Vec<Result<(String, formats::ExportRead), IngestError>> = files
+        .par_iter()
+        .zip(&names)
+        .enumerate()
+        .map(|(i, (p, name))| {
+            let format = formats::for_file(p);
+            let described = format!("{}: {}", format.name(), format.describe_file(cfg, p));
+            let read = format.read(cfg, p, name, i as u32)?;
+            progress.step();
+            Ok((described, read))
+        })
+        .collect();
+    for (read, name) in reads.into_iter().zip(&names) {
+        let (described, read) = read?;
+        how.insert(name.clone(), described);
         count_in += read.rows;
         let global: Vec<u32> = read
             .labels
@@ -275,7 +284,6 @@ pub fn run_with(
             p
         }));
         rejections.extend(read.rejections);
-        progress.step();
     }
     let labelled = cfg.plots_from_labels();
     let prescription = if cfg.inputs.prescription.is_empty() {
