@@ -262,22 +262,11 @@ pub fn run_with(
         let (described, read) = read?;
         how.insert(name.clone(), described);
         count_in += read.rows;
+        // The export's label indices to the trial's (its entry 0, no label, stays 0).
         let global: Vec<u32> = read
             .labels
             .iter()
-            .enumerate()
-            .map(|(k, l)| {
-                if k == 0 {
-                    return 0;
-                }
-                match tags.iter().position(|t| t == l) {
-                    Some(g) => g as u32,
-                    None => {
-                        tags.push(l.clone());
-                        tags.len() as u32 - 1
-                    }
-                }
-            })
+            .map(|l| strips::intern(&mut tags, l))
             .collect();
         raw.extend(read.points.into_iter().map(|mut p| {
             p.label = global.get(p.label as usize).copied().unwrap_or(0);
@@ -409,20 +398,7 @@ pub fn run_with(
     let (polygons, design, mut warnings) = reconcile(cfg, &plots_name, polygons, design)?;
     warnings.extend(strip_warnings);
     warnings.extend(unread_exports(&names, &raw, &rejections));
-    let mut summary = StageSummary::from_rejections("ingest", "points", count_in, &rejections);
-    summary
-        .details
-        .insert("epsg".into(), serde_json::json!(utm.epsg()));
-    summary
-        .details
-        .insert("files".into(), serde_json::json!(names.len()));
-    summary
-        .details
-        .insert("read_as".into(), serde_json::json!(how));
-    summary
-        .details
-        .insert("plots".into(), serde_json::json!(polygons.len()));
-    if let Some(d) = strip_details {
+    if let Some(d) = &strip_details {
         // How the plots were made, beside how each export was read (the report shows both).
         let fields: Vec<String> = d["fields"]
             .as_object()
@@ -445,9 +421,21 @@ pub fn run_with(
                 fields.join("; ")
             ),
         );
-        summary
-            .details
-            .insert("read_as".into(), serde_json::json!(how));
+    }
+    let mut summary = StageSummary::from_rejections("ingest", "points", count_in, &rejections);
+    summary
+        .details
+        .insert("epsg".into(), serde_json::json!(utm.epsg()));
+    summary
+        .details
+        .insert("files".into(), serde_json::json!(names.len()));
+    summary
+        .details
+        .insert("read_as".into(), serde_json::json!(how));
+    summary
+        .details
+        .insert("plots".into(), serde_json::json!(polygons.len()));
+    if let Some(d) = strip_details {
         summary.details.insert("plots_from_labels".into(), d);
     }
     summary

@@ -82,6 +82,22 @@ fn quantile(sorted: &[f64], q: f64) -> f64 {
     sorted[((sorted.len() - 1) as f64 * q).round() as usize]
 }
 
+/// The index of `key` in a label table (first entry: no label), added at the end if new.
+pub fn intern(table: &mut Vec<[String; 3]>, key: &[String; 3]) -> u32 {
+    match table.iter().position(|e| e == key) {
+        Some(i) => i as u32,
+        None => {
+            table.push(key.clone());
+            table.len() as u32 - 1
+        }
+    }
+}
+
+/// A label table's key of a treatment alone (no strip or replicate name).
+fn treatment_key(treatment: &str) -> [String; 3] {
+    [treatment.to_string(), String::new(), String::new()]
+}
+
 /// Labels from prescription polygons (projected, named by their treatment): each point
 /// takes the treatment of the first polygon that contains it (0: none). Returns the labels
 /// and their table (entry 0: no label; then the treatments in polygon order).
@@ -89,17 +105,10 @@ pub fn label_by_polygons(points: &[Point], polys: &[PlotPolygon]) -> (Vec<u32>, 
     use geo::{BoundingRect, Contains};
     use rayon::prelude::*;
     let mut table: Vec<[String; 3]> = vec![Default::default()];
-    let mut tag = Vec::with_capacity(polys.len());
-    for p in polys {
-        let t = match table.iter().position(|e| e[0] == p.plot_id) {
-            Some(t) => t,
-            None => {
-                table.push([p.plot_id.clone(), String::new(), String::new()]);
-                table.len() - 1
-            }
-        };
-        tag.push(t as u32);
-    }
+    let tag: Vec<u32> = polys
+        .iter()
+        .map(|p| intern(&mut table, &treatment_key(&p.plot_id)))
+        .collect();
     let shapes: Vec<(geo::Polygon<f64>, geo::Rect<f64>)> = polys
         .iter()
         .filter_map(|p| {
@@ -636,7 +645,7 @@ mod tests {
 
     /// `build` on one export named `name`.
     fn build_one(
-        (points, labels, table): &(Vec<Point>, Vec<u32>, Vec<[String; 3]>),
+        (points, labels, table): (&[Point], &[u32], &[[String; 3]]),
         name: &str,
         s: &StripSettings,
     ) -> Result<Built, String> {
@@ -660,13 +669,7 @@ mod tests {
         let mut labels = Vec::new();
         let mut t = 0.0;
         for (k, tr) in treatments.iter().enumerate() {
-            let l = match table.iter().position(|e| e[0] == *tr) {
-                Some(l) => l,
-                None => {
-                    table.push([tr.to_string(), String::new(), String::new()]);
-                    table.len() - 1
-                }
-            };
+            let l = intern(&mut table, &treatment_key(tr));
             let x = 500_000.0 + (k as f64 + 0.5) * w;
             for j in 0..=100 {
                 let y = if k % 2 == 0 {
@@ -675,7 +678,7 @@ mod tests {
                     200.0 - 2.0 * j as f64
                 };
                 points.push(pt(0, t, x, 4_000_000.0 + y, w));
-                labels.push(l as u32);
+                labels.push(l);
                 t += 1.0;
             }
         }
@@ -685,7 +688,7 @@ mod tests {
     #[test]
     fn alternating_strips_become_one_plot_each_with_pair_replicates() {
         let f = strip_field(&["check", "prod", "check", "prod", "check", "prod"], 9.0);
-        let b = build_one(&f, "monitor/north-40.csv", &settings()).unwrap();
+        let b = build_one((&f.0, &f.1, &f.2), "monitor/north-40.csv", &settings()).unwrap();
         assert_eq!(b.polygons.len(), 6);
         let ids: Vec<&str> = b.design.iter().map(|d| d.plot_id.as_str()).collect();
         assert_eq!(ids[0], "north-40-S01-P01");
@@ -726,7 +729,7 @@ mod tests {
             plot_length_m: 50.0,
             ..settings()
         };
-        let b = build_one(&f, "f.csv", &s).unwrap();
+        let b = build_one((&f.0, &f.1, &f.2), "f.csv", &s).unwrap();
         // Three strips 18 m wide, each 202 m cut into 4 plots of 50.5 m.
         assert_eq!(b.details["fields"]["f"]["strips"], 3);
         assert_eq!(b.polygons.len(), 12);
@@ -748,21 +751,14 @@ mod tests {
         // A GPS jump 40 m sideways in the first strip's run, and six records of a typo'd
         // label beyond the strips.
         points[50].x_m += 40.0;
-        table.push(["chek".into(), String::new(), String::new()]);
+        let chek = intern(&mut table, &treatment_key("chek"));
         let mut t = 1000.0;
         for j in 0..6 {
             points.push(pt(0, t, 500_100.0, 4_000_000.0 + 2.0 * j as f64, 9.0));
-            labels.push(table.len() as u32 - 1);
+            labels.push(chek);
             t += 1.0;
         }
-        let b = build(
-            &points,
-            &labels,
-            &table,
-            &["f.csv".to_string()],
-            &settings(),
-        )
-        .unwrap();
+        let b = build_one((&points, &labels, &table), "f.csv", &settings()).unwrap();
         assert_eq!(b.polygons.len(), 2);
         assert_eq!(b.details["fields"]["f"]["records_in_short_runs"], 6);
         assert_eq!(b.details["fields"]["f"]["isolated_records"], 1);
@@ -792,22 +788,9 @@ mod tests {
                 names[strip].0.to_string(),
                 names[strip].1.to_string(),
             ];
-            *l = match table.iter().position(|x| *x == e) {
-                Some(i) => i as u32,
-                None => {
-                    table.push(e);
-                    table.len() as u32 - 1
-                }
-            };
+            *l = intern(&mut table, &e);
         }
-        let b = build(
-            &points,
-            &labels,
-            &table,
-            &["f.csv".to_string()],
-            &settings(),
-        )
-        .unwrap();
+        let b = build_one((&points, &labels, &table), "f.csv", &settings()).unwrap();
         assert_eq!(b.polygons.len(), 4);
         let mut pairs: Vec<(String, String)> = b
             .design
@@ -835,14 +818,7 @@ mod tests {
     fn no_label_at_all_is_an_error_naming_the_key() {
         let (points, _, table) = strip_field(&["check"], 9.0);
         let labels = vec![0; points.len()];
-        let e = build(
-            &points,
-            &labels,
-            &table,
-            &["f.csv".to_string()],
-            &settings(),
-        )
-        .unwrap_err();
+        let e = build_one((&points, &labels, &table), "f.csv", &settings()).unwrap_err();
         assert!(e.contains("columns.treatment"), "{e}");
     }
 }
