@@ -84,6 +84,56 @@ fn main() {
             out.hyper[0].method, out.hyper[0].range_m
         );
     }
+    if want("variety") {
+        // A variety trial: 56 entries x 4 complete blocks (224 plots, 8 columns x 28 rows of
+        // 18 m x 66 m plots, each block 7 rows), entries shuffled within each block; block
+        // effects as fixed columns. And uniformity-trial fits with many blocks.
+        let mut rng = Rng::new(56);
+        let mut plots = Vec::new();
+        for b in 0..4 {
+            let mut order: Vec<usize> = (0..56).collect();
+            rng.shuffle(&mut order);
+            for (k, e) in order.into_iter().enumerate() {
+                let i = b * 56 + k;
+                let (x, y) = (18.0 * (i % 8) as f64, 66.0 * (i / 8) as f64);
+                let trend = (x / 90.0).sin() + (y / 400.0).cos() + 0.2 * b as f64;
+                let t = if e == 0 {
+                    "chk".to_string()
+                } else {
+                    format!("e{e:02}")
+                };
+                let effect = if e == 1 { 300.0 } else { 0.0 };
+                plots.push(PlotStats::from_yield(
+                    &format!("V-{i}"),
+                    "V",
+                    &t,
+                    &b.to_string(),
+                    11_000.0 + 1000.0 * trend + effect + 250.0 * rng.normal(),
+                    x,
+                    y,
+                ));
+            }
+        }
+        let mut s = FitSettings::new("chk");
+        s.blocks = true;
+        let (t, out) = timed(&plots, &s);
+        let (u, sd) = uplift(&out, "V", "e01");
+        println!("224 plots, 56 entries, 4 blocks: {t:.2} s (uplift of e01 {u:.0} +- {sd:.0} kg/ha, true 300)");
+        for nb in [30, 46] {
+            let n = nb * 6;
+            let mut plots = field("U", n, 11);
+            for (i, p) in plots.iter_mut().enumerate() {
+                p.block = (i / 6).to_string();
+            }
+            let (t0, _) = timed(&plots, &FitSettings::new("chk"));
+            let mut s = FitSettings::new("chk");
+            s.blocks = true;
+            let (t1, _) = timed(&plots, &s);
+            println!(
+                "{n} plots, six treatments, {nb} blocks: {t1:.2} s with blocks, {t0:.2} s without"
+            );
+        }
+    }
     if want("many") {
         // Many small fields: the importance sampler's effective sample size as fields grow.
         for nf in [10, 30, 60] {

@@ -15,6 +15,7 @@
 //! than 1e-4 of the peak. Every point carries its weight (prior x likelihood x cell volume).
 
 use super::spectral::{Design, Inner, Method, Repr};
+use rayon::prelude::*;
 use std::collections::BTreeMap;
 
 /// -ln(0.05): the PC priors' tail probability 0.05 on the log scale.
@@ -109,11 +110,16 @@ impl FieldModel {
     /// random design factors when the design has them (see `random`). `warm` is a nearby
     /// conditional mode to start the search from.
     pub fn node(&self, l: (f64, f64), warm: Option<Vec<f64>>) -> Node {
+        self.node_from(l, warm, self.repr(l))
+    }
+
+    /// [`FieldModel::node`] from the spectral form at `l` built beforehand.
+    pub fn node_from(&self, l: (f64, f64), warm: Option<Vec<f64>>, repr: Option<Repr>) -> Node {
         if !self.design.groups.is_empty() {
-            return self.node_random(l, warm);
+            return self.node_random(l, warm, repr);
         }
         let warm = warm.map(|w| [w[0], w[1]]);
-        let Some(repr) = self.repr(l) else {
+        let Some(repr) = repr else {
             return Node {
                 l,
                 lz: f64::NEG_INFINITY,
@@ -127,8 +133,8 @@ impl FieldModel {
             if t.iter().any(|v| *v < lo || *v > hi) {
                 return f64::NEG_INFINITY;
             }
-            match repr.evaluate(t[0].exp(), t[1].exp()) {
-                Some(e) => e.reml + self.log_prior_sd(t[0], t[1]),
+            match repr.reml_groups(t[0].exp(), t[1].exp(), &[]) {
+                Some(reml) => reml + self.log_prior_sd(t[0], t[1]),
                 None => f64::NEG_INFINITY,
             }
         };
@@ -157,18 +163,23 @@ impl FieldModel {
         let mut cache: BTreeMap<(i64, i64), Option<(f64, Inner)>> = BTreeMap::new();
         let at = |i: i64, j: i64| [mode[0] + i as f64 * step[0], mode[1] + j as f64 * step[1]];
         for _ in 0..12 {
-            for i in ext[0][0]..=ext[0][1] {
-                for j in ext[1][0]..=ext[1][1] {
-                    cache.entry((i, j)).or_insert_with(|| {
-                        let t = at(i, j);
-                        if t.iter().any(|v| *v < lo || *v > hi) {
-                            return None;
-                        }
-                        let e = repr.evaluate(t[0].exp(), t[1].exp())?;
-                        Some((e.reml + self.log_prior_sd(t[0], t[1]), e))
-                    });
-                }
-            }
+            // The new points of the lattice, evaluated in parallel (each on its own).
+            let new: Vec<(i64, i64)> = (ext[0][0]..=ext[0][1])
+                .flat_map(|i| (ext[1][0]..=ext[1][1]).map(move |j| (i, j)))
+                .filter(|k| !cache.contains_key(k))
+                .collect();
+            let values: Vec<Option<(f64, Inner)>> = new
+                .par_iter()
+                .map(|&(i, j)| {
+                    let t = at(i, j);
+                    if t.iter().any(|v| *v < lo || *v > hi) {
+                        return None;
+                    }
+                    let e = repr.evaluate(t[0].exp(), t[1].exp())?;
+                    Some((e.reml + self.log_prior_sd(t[0], t[1]), e))
+                })
+                .collect();
+            cache.extend(new.into_iter().zip(values));
             let value = |i: i64, j: i64| {
                 cache
                     .get(&(i, j))

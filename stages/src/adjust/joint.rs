@@ -60,6 +60,8 @@ struct FieldTerms {
     v: Vec<f64>,
     w: Vec<f64>,
     logdet_w: f64,
+    /// Cholesky factor of W.
+    lw: Vec<f64>,
     wi: Vec<f64>,
     wic: Vec<f64>,
 }
@@ -82,18 +84,30 @@ fn field_terms(fit: &Inner, d: usize, s: f64) -> Option<FieldTerms> {
         v,
         w,
         logdet_w: linalg::logdet(&l, d),
+        lw: l,
         wi,
         wic,
     })
 }
 
-/// Joins one GLS fit per field at interaction SD `s`. `moments` = false computes log C only.
+/// What [`combine`] computes beside log C.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum Moments {
+    /// log C only.
+    None,
+    /// The product effects, uplifts and treatment means (`Component::b` left empty).
+    Rows,
+    /// Those and every mean parameter's moments (`Component::b`, for per-plot effects).
+    All,
+}
+
+/// Joins one GLS fit per field at interaction SD `s`, computing what `moments` asks for.
 pub fn combine(
     fits: &[&Inner],
     maps: &[FieldMap],
     prior: &EffectPrior,
     s: f64,
-    moments: bool,
+    moments: Moments,
 ) -> Option<Component> {
     let np = prior.mean.len();
     let ln2pi = (2.0 * std::f64::consts::PI).ln();
@@ -127,7 +141,7 @@ pub fn combine(
     let mut mb = h.clone();
     linalg::solve(&lp, np, &mut mb);
     log_c -= 0.5 * (linalg::logdet(&lp, np) - h.iter().zip(&mb).map(|(x, y)| x * y).sum::<f64>());
-    if !moments {
+    if moments == Moments::None {
         return Some(Component {
             log_c,
             beta_mean: Vec::new(),
@@ -144,22 +158,34 @@ pub fn combine(
     for ((fit, map), loc) in fits.iter().zip(maps).zip(&locals) {
         let d = map.index.len();
         let p = (fit.cov.len() as f64).sqrt().round() as usize;
-        let g = linalg::matmul(&loc.v, &loc.wi, d, d, d);
         let hm: Vec<f64> = map.index.iter().map(|&k| mb[k]).collect();
-        let diff: Vec<f64> = (0..d).map(|a| loc.c[a] - hm[a]).collect();
-        let gd = linalg::matmul(&g, &diff, d, d, 1);
-        let dm: Vec<f64> = (0..d).map(|a| loc.c[a] - gd[a]).collect();
-        let gv = linalg::matmul(&g, &loc.v, d, d, d);
         let hsh: Vec<f64> = (0..d * d)
             .map(|k| sb[map.index[k / d] * np + map.index[k % d]])
             .collect();
-        let ghsh = linalg::matmul(&g, &hsh, d, d, d);
-        let gt: Vec<f64> = (0..d * d).map(|k| g[(k % d) * d + k / d]).collect();
-        let ghshg = linalg::matmul(&ghsh, &gt, d, d, d);
-        let dc: Vec<f64> = (0..d * d).map(|k| loc.v[k] - gv[k] + ghshg[k]).collect();
+        let (dm, dc) = if s == 0.0 && d >= linalg::LARGE {
+            // Without an interaction G = V V^-1 = I: the field's effects are the shared ones
+            // (many products: taken exactly rather than through four d x d products).
+            (hm, hsh)
+        } else {
+            let g = linalg::matmul(&loc.v, &loc.wi, d, d, d);
+            let diff: Vec<f64> = (0..d).map(|a| loc.c[a] - hm[a]).collect();
+            let gd = linalg::matmul(&g, &diff, d, d, 1);
+            let dm: Vec<f64> = (0..d).map(|a| loc.c[a] - gd[a]).collect();
+            let gv = linalg::matmul(&g, &loc.v, d, d, d);
+            let ghsh = linalg::matmul(&g, &hsh, d, d, d);
+            let gt: Vec<f64> = (0..d * d).map(|k| g[(k % d) * d + k / d]).collect();
+            let ghshg = linalg::matmul(&ghsh, &gt, d, d, d);
+            let dc: Vec<f64> = (0..d * d).map(|k| loc.v[k] - gv[k] + ghshg[k]).collect();
+            (dm, dc)
+        };
         // The field mean given its contrasts: b0 = b0_hat + g'(delta - c_hat), g = V^-1 cov(c, b0).
         let cov_cb0: Vec<f64> = (1..=d).map(|i| fit.cov[i * p]).collect();
-        let lv = linalg::chol(&loc.v, d)?;
+        // V's factor: W's when there is no interaction (W = V + 0 I, the same numbers).
+        let lv = if s == 0.0 {
+            loc.lw.clone()
+        } else {
+            linalg::chol(&loc.v, d)?
+        };
         let mut gb = cov_cb0.clone();
         linalg::solve(&lv, d, &mut gb);
         let b0_mean = fit.b[0] + (0..d).map(|a| gb[a] * (dm[a] - loc.c[a])).sum::<f64>();
@@ -176,19 +202,19 @@ pub fn combine(
         }
         delta.push((0..d).map(|a| (dm[a], dc[a * d + a].max(0.0))).collect());
         est.push(e);
-        // All mean parameters: M = C_.c V^-1 (p x d), row r solving V x = C_c,r.
-        let mut m = vec![0.0; p * d];
-        for r in 0..p {
-            let mut x: Vec<f64> = (1..=d).map(|i| fit.cov[i * p + r]).collect();
-            linalg::solve(&lv, d, &mut x);
-            m[r * d..(r + 1) * d].copy_from_slice(&x);
+        if moments == Moments::Rows {
+            continue;
         }
+        // All mean parameters: M = C_.c V^-1 (p x d), row r solving V x = C_c,r.
+        let c_c: Vec<f64> = (0..d * p)
+            .map(|k| fit.cov[(k / p + 1) * p + k % p])
+            .collect();
+        let mut vic = c_c.clone();
+        linalg::solve_many(&lv, d, &mut vic, p);
+        let m: Vec<f64> = (0..p * d).map(|k| vic[(k % d) * p + k / d]).collect();
         let shift: Vec<f64> = (0..d).map(|a| dm[a] - loc.c[a]).collect();
         let mean_b: Vec<f64> = (0..p)
             .map(|r| fit.b[r] + (0..d).map(|a| m[r * d + a] * shift[a]).sum::<f64>())
-            .collect();
-        let c_c: Vec<f64> = (0..d * p)
-            .map(|k| fit.cov[(k / p + 1) * p + k % p])
             .collect();
         let mcc = linalg::matmul(&m, &c_c, p, d, p);
         let mdc = linalg::matmul(&m, &dc, p, d, d);
@@ -417,7 +443,7 @@ mod tests {
             var: vec![1.0],
         };
         let map = FieldMap { index: vec![0] };
-        let c = combine(&[&fit], &[map], &prior, 0.0, true).unwrap();
+        let c = combine(&[&fit], &[map], &prior, 0.0, Moments::All).unwrap();
         assert!((c.beta_mean[0] - 0.9).abs() < 1e-12);
         assert!((c.beta_var[0] - 0.2).abs() < 1e-12);
         let ln = -0.5 * ((2.0 * std::f64::consts::PI * 1.25).ln() + 0.25 / 1.25);
@@ -436,6 +462,58 @@ mod tests {
         for (x, e) in cb.iter().zip([0.192, -0.08, -0.08, 0.2]) {
             assert!((x - e).abs() < 1e-12, "{x} vs {e}");
         }
+    }
+
+    #[test]
+    fn many_products_without_interaction_take_the_shared_effects_exactly() {
+        // 20 products (from linalg::LARGE on, s = 0 takes G = I exactly): the rows equal
+        // those of the general formula, reached with an interaction SD so small that W = V
+        // in floating point (1e-200^2 underflows to 0) but G = V W^-1 is formed.
+        let d = 20;
+        let p = d + 1;
+        let mut rng = crate::util::Rng::new(3);
+        let g: Vec<f64> = (0..p * p).map(|_| 0.3 * rng.normal()).collect();
+        let mut cov = vec![0.0; p * p];
+        for i in 0..p {
+            for j in 0..p {
+                cov[i * p + j] = (0..p).map(|k| g[i * p + k] * g[j * p + k]).sum::<f64>()
+                    + if i == j { 0.5 } else { 0.0 };
+            }
+        }
+        let fit = Inner {
+            reml: 0.0,
+            b: (0..p).map(|i| 10.0 + 0.1 * i as f64).collect(),
+            cov,
+        };
+        let prior = EffectPrior {
+            mean: vec![0.2; d],
+            var: vec![4.0; d],
+        };
+        let map = FieldMap {
+            index: (0..d).collect(),
+        };
+        let maps = std::slice::from_ref(&map);
+        let exact = combine(&[&fit], maps, &prior, 0.0, Moments::All).unwrap();
+        let general = combine(&[&fit], maps, &prior, 1e-200, Moments::All).unwrap();
+        assert!((exact.log_c - general.log_c).abs() < 1e-10);
+        for a in 0..d {
+            let (x, y) = (exact.delta[0][a], general.delta[0][a]);
+            assert!(
+                (x.0 - y.0).abs() < 1e-10 && (x.1 - y.1).abs() < 1e-10,
+                "{a}"
+            );
+        }
+        for (x, y) in exact.est[0].iter().zip(&general.est[0]) {
+            assert!((x.0 - y.0).abs() < 1e-10 && (x.1 - y.1).abs() < 1e-10);
+        }
+        for (x, y) in exact.b[0].1.iter().zip(&general.b[0].1) {
+            assert!((x - y).abs() < 1e-10);
+        }
+        // Rows leaves the per-parameter moments out and nothing else.
+        let rows = combine(&[&fit], maps, &prior, 0.0, Moments::Rows).unwrap();
+        assert!(rows.b.is_empty());
+        assert_eq!(rows.delta, exact.delta);
+        assert_eq!(rows.est, exact.est);
     }
 
     #[test]

@@ -102,7 +102,7 @@ pub(crate) fn fit_joint(
                 })
                 .collect();
             let fits: Vec<&spectral::Inner> = (0..nf).map(|f| fit_of(g, f, best[f])).collect();
-            let lc = combine(&fits, maps, global, snodes[j].0, false)
+            let lc = combine(&fits, maps, global, snodes[j].0, Moments::None)
                 .map_or(f64::NEG_INFINITY, |c| c.log_c);
             let lz: f64 = per.iter().map(|c| log_sum_exp(c.iter().map(|x| x.0))).sum();
             ((g, j), groups[g].0 + snodes[j].1 + lz + lc)
@@ -182,7 +182,7 @@ pub(crate) fn fit_joint(
         let (g, j, _) = cells[ci];
         let fits: Vec<&spectral::Inner> = (0..nf).map(|f| fit_of(g, f, pick[f])).collect();
         let tilt: f64 = (0..nf).map(|f| cell_props[ci].1[f].lnf[pick[f]]).sum();
-        combine(&fits, maps, global, snodes[j].0, false)
+        combine(&fits, maps, global, snodes[j].0, Moments::None)
             .map_or(f64::NEG_INFINITY, |c| c.log_c - tilt)
     };
     // `k` draws in cell `ci`, seeded per cell (and per round) so that the result does not
@@ -266,7 +266,7 @@ pub(crate) fn fit_joint(
             let (_, ci, pick) = &weighted[i];
             let (g, j, _) = cells[*ci];
             let fits: Vec<&spectral::Inner> = (0..nf).map(|f| fit_of(g, f, pick[f])).collect();
-            let c = combine(&fits, maps, global, snodes[j].0, true)?;
+            let c = combine(&fits, maps, global, snodes[j].0, Moments::All)?;
             let pts = (0..nf)
                 .map(|f| {
                     let (_, k, idx) = groups[g].1[f][pick[f]];
@@ -332,9 +332,8 @@ pub(crate) fn joint_plots(prep: &Prepared, f: usize, jf: &JointFit) -> Vec<Adjus
             let mean = (0..n)
                 .map(|j| parts.mean[j] + parts.shift(j, &pt.fit.b, &mean_b))
                 .collect();
-            let var = (0..n)
-                .map(|j| parts.cond_var[j] + parts.quad(j, &cov_b))
-                .collect();
+            let quad = parts.quads(&cov_b);
+            let var = (0..n).map(|j| parts.cond_var[j] + quad[j]).collect();
             Some((*w, mean, var))
         })
         .collect();

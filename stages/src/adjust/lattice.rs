@@ -35,19 +35,30 @@ pub(crate) fn eval_nodes(
     h: [f64; 2],
 ) {
     let mut warm = m.nodes.values().last().and_then(FieldModel::node_mode);
-    for &k in keys {
+    let lat = Lattice {
+        keys: Vec::new(),
+        bounds,
+        h,
+        rho0: m.rho0,
+        at_bound: [false; 2],
+        lvol: 0.0,
+    };
+    // The spectral forms do not depend on the warm starts: built in parallel first.
+    let todo: Vec<(i64, i64)> = keys
+        .iter()
+        .filter(|k| !m.nodes.contains_key(k))
+        .cloned()
+        .collect();
+    let model: &FieldModel = m;
+    let mut reprs: Vec<Option<spectral::Repr>> = todo
+        .par_iter()
+        .map(|&k| model.repr(lat.l(k, model.anisotropic)))
+        .collect();
+    for (&k, repr) in todo.iter().zip(reprs.iter_mut()) {
         if m.nodes.contains_key(&k) {
             continue;
         }
-        let lat = Lattice {
-            keys: Vec::new(),
-            bounds,
-            h,
-            rho0: m.rho0,
-            at_bound: [false; 2],
-            lvol: 0.0,
-        };
-        let node = m.node(lat.l(k, m.anisotropic), warm.clone());
+        let node = m.node_from(lat.l(k, m.anisotropic), warm.clone(), repr.take());
         warm = FieldModel::node_mode(&node).or(warm);
         m.nodes.insert(k, node);
     }

@@ -91,7 +91,7 @@ use single::*;
 use crate::plots::PlotStats;
 use crate::util::{sd, Rng};
 use field::{log_sum_exp, range_lattice, FieldModel, Node, PC_ALPHA_LN};
-use joint::{combine, Component, EffectPrior, FieldMap, Mixture};
+use joint::{combine, Component, EffectPrior, FieldMap, Mixture, Moments};
 use rayon::prelude::*;
 use spectral::{Design, Method};
 use std::collections::{BTreeMap, BTreeSet};

@@ -4,7 +4,7 @@
 //! spectral form, and neither uses curvature, warm starts or the lattice refinement.
 
 use super::field::log_sum_exp;
-use super::joint::{combine, EffectPrior, FieldMap};
+use super::joint::{combine, EffectPrior, FieldMap, Moments};
 use super::spectral::Inner;
 use super::{evaluate, FieldData, Prepared};
 use crate::util::{normal_cdf, Rng};
@@ -65,7 +65,7 @@ impl<'a> Target<'a> {
             std::slice::from_ref(&self.map),
             &self.prior,
             0.0,
-            false,
+            Moments::None,
         )?;
         let l = t[0].exp();
         let lp = e.reml + c.log_c + m.log_prior_range((l, l), m.rho0) + m.log_prior_sd(t[1], t[2]);
@@ -79,7 +79,7 @@ impl<'a> Target<'a> {
             std::slice::from_ref(&self.map),
             &self.prior,
             0.0,
-            true,
+            Moments::Rows,
         )
         .expect("the fit was evaluated");
         c.delta[0].clone()

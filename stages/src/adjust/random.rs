@@ -37,7 +37,12 @@ impl FieldModel {
     }
 
     /// The node at length scales `l` for a design with random factors (module notes).
-    pub(crate) fn node_random(&self, l: (f64, f64), warm: Option<Vec<f64>>) -> Node {
+    pub(crate) fn node_random(
+        &self,
+        l: (f64, f64),
+        warm: Option<Vec<f64>>,
+        repr: Option<Repr>,
+    ) -> Node {
         let empty = |repr| Node {
             l,
             lz: f64::NEG_INFINITY,
@@ -45,7 +50,7 @@ impl FieldModel {
             repr,
             basis: None,
         };
-        let Some(repr) = self.repr(l) else {
+        let Some(repr) = repr else {
             return empty(None);
         };
         let g = self.design.groups.len();

@@ -104,14 +104,34 @@ pub(crate) fn fit_own(
     let m = &prep.model;
     let field = m.name.as_str();
     let (prior, lmap) = local_prior(global, map);
+    // Every point's component (in parallel), then the weights from their log C.
+    let keyed: Vec<((i64, i64), usize, f64)> = lat
+        .keys
+        .iter()
+        .flat_map(|&k| {
+            let node = &m.nodes[&k];
+            let lpr = m.log_prior_range(node.l, lat.rho0) + lat.lvol;
+            (0..node.points.len()).map(move |i| (k, i, lpr + node.points[i].lw))
+        })
+        .collect();
+    let mut by_point: BTreeMap<((i64, i64), usize), Component> = BTreeMap::new();
     let mut all: Vec<Weighted> = Vec::new();
-    for &k in &lat.keys {
-        let node = &m.nodes[&k];
-        let lpr = m.log_prior_range(node.l, lat.rho0) + lat.lvol;
-        for (i, pt) in node.points.iter().enumerate() {
-            if let Some(c) = combine(&[&pt.fit], std::slice::from_ref(&lmap), &prior, 0.0, false) {
-                all.push((lpr + pt.lw + c.log_c, k, i));
-            }
+    let evaluated: Vec<Option<Component>> = keyed
+        .par_iter()
+        .map(|(k, i, _)| {
+            combine(
+                &[&m.nodes[k].points[*i].fit],
+                std::slice::from_ref(&lmap),
+                &prior,
+                0.0,
+                Moments::Rows,
+            )
+        })
+        .collect();
+    for ((k, i, lw), c) in keyed.into_iter().zip(evaluated) {
+        if let Some(c) = c {
+            all.push((lw + c.log_c, k, i));
+            by_point.insert((k, i), c);
         }
     }
     if all.is_empty() {
@@ -122,17 +142,8 @@ pub(crate) fn fit_own(
     let comps_w = top_weights(all, 3000);
     let point = |k: &(i64, i64), i: usize| &m.nodes[k].points[i];
     let comps: Vec<(f64, Component)> = comps_w
-        .par_iter()
-        .filter_map(|(w, k, i)| {
-            combine(
-                &[&point(k, *i).fit],
-                std::slice::from_ref(&lmap),
-                &prior,
-                0.0,
-                true,
-            )
-            .map(|c| (*w, c))
-        })
+        .iter()
+        .filter_map(|(w, k, i)| by_point.remove(&(*k, *i)).map(|c| (*w, c)))
         .collect();
     let nt = m.treatments.len();
     let mut rows = Vec::new();

@@ -72,6 +72,8 @@ pub struct Repr {
     /// U' y and U' X (r x p, row major).
     pub uy: Vec<f64>,
     pub ux: Vec<f64>,
+    /// U' X column by column (p x r, row major), for designs with many mean parameters.
+    uxt: Vec<f64>,
     /// y'y - |U'y|^2, X'X - (U'X)'(U'X), X'y - (U'X)'U'y (zero for the exact form).
     pub yy_c: f64,
     pub xx_c: Vec<f64>,
@@ -91,6 +93,15 @@ pub struct Inner {
     /// GLS estimate of the mean parameters and its covariance (p x p, row major).
     pub b: Vec<f64>,
     pub cov: Vec<f64>,
+}
+
+/// U'X column by column when the design has many mean parameters (empty otherwise).
+fn transposed(ux: &Mat<f64>, p: usize) -> Vec<f64> {
+    if p < linalg::LARGE {
+        return Vec::new();
+    }
+    let r = ux.nrows();
+    (0..p * r).map(|k| ux[(k % r, k / r)]).collect()
 }
 
 impl Repr {
@@ -116,6 +127,7 @@ impl Repr {
             w,
             uy: (0..n).map(|i| uy_m[(i, 0)]).collect(),
             ux: (0..n * d.p).map(|k| ux_m[(k / d.p, k % d.p)]).collect(),
+            uxt: transposed(&ux_m, d.p),
             yy_c: 0.0,
             xx_c: vec![0.0; d.p * d.p],
             xy_c: vec![0.0; d.p],
@@ -146,6 +158,7 @@ impl Repr {
             w: Vec::new(),
             uy: Vec::new(),
             ux: Vec::new(),
+            uxt: Vec::new(),
             yy_c: d.y.iter().map(|v| v * v).sum(),
             xx_c,
             xy_c,
@@ -233,6 +246,7 @@ impl Repr {
             w: keep.iter().map(|&i| s[i]).collect(),
             yy_c: (yy - uy.iter().map(|v| v * v).sum::<f64>()).max(0.0),
             uy,
+            uxt: transposed(&ux_m, p),
             ux,
             xx_c,
             xy_c,
@@ -276,21 +290,51 @@ impl Repr {
         let mut c: Vec<f64> = self.xy_c.iter().map(|v| v * e).collect();
         let mut q = self.yy_c * e;
         let mut logdet_ky = (n - r) as f64 * vn.ln();
-        for i in 0..r {
-            let lam = vf * self.w[i] + vn;
-            let d = 1.0 / lam;
-            logdet_ky += lam.ln();
-            let row = &self.ux[i * p..(i + 1) * p];
-            let uyi = self.uy[i];
-            q += d * uyi * uyi;
+        if p >= linalg::LARGE && r > 0 {
+            // Many mean parameters: X'K_y^-1 X = (U'X)' D (U'X) as one blocked product, from
+            // D U'X built column by column.
+            let mut dv = vec![0.0; r];
+            for i in 0..r {
+                let lam = vf * self.w[i] + vn;
+                let d = 1.0 / lam;
+                logdet_ky += lam.ln();
+                q += d * self.uy[i] * self.uy[i];
+                dv[i] = d;
+            }
+            let du: Vec<f64> = dv.iter().zip(&self.uy).map(|(d, u)| d * u).collect();
+            let mut wx = Vec::with_capacity(r * p);
+            for (aa, src) in self.uxt.chunks_exact(r).enumerate() {
+                wx.extend(src.iter().zip(&dv).map(|(x, d)| x * d));
+                c[aa] += linalg::dot(src, &du);
+            }
+            let mut am = faer::Mat::<f64>::zeros(p, p);
+            linalg::sym_product_lower(
+                am.as_mut(),
+                faer::MatRef::from_column_major_slice(&self.uxt, r, p).transpose(),
+                faer::MatRef::from_column_major_slice(&wx, r, p),
+            );
             for aa in 0..p {
-                let wa = d * row[aa];
-                if wa == 0.0 {
-                    continue;
-                }
-                c[aa] += wa * uyi;
                 for bb in 0..=aa {
-                    a[aa * p + bb] += wa * row[bb];
+                    a[aa * p + bb] += am[(aa, bb)];
+                }
+            }
+        } else {
+            for i in 0..r {
+                let lam = vf * self.w[i] + vn;
+                let d = 1.0 / lam;
+                logdet_ky += lam.ln();
+                let row = &self.ux[i * p..(i + 1) * p];
+                let uyi = self.uy[i];
+                q += d * uyi * uyi;
+                for aa in 0..p {
+                    let wa = d * row[aa];
+                    if wa == 0.0 {
+                        continue;
+                    }
+                    c[aa] += wa * uyi;
+                    for bb in 0..=aa {
+                        a[aa * p + bb] += wa * row[bb];
+                    }
                 }
             }
         }
@@ -345,9 +389,8 @@ impl Repr {
     /// mean K Ky^-1 r; variance diag(K - K Ky^-1 K + R' cov(b) R), R = X' Ky^-1 K.
     pub fn spatial(&self, d: &Design, sf: f64, sn: f64, fit: &Inner) -> (Vec<f64>, Vec<f64>) {
         let parts = self.spatial_parts(d, sf, sn, fit);
-        let var = (0..self.n)
-            .map(|i| parts.cond_var[i] + parts.quad(i, &fit.cov))
-            .collect();
+        let quad = parts.quads(&fit.cov);
+        let var = (0..self.n).map(|i| parts.cond_var[i] + quad[i]).collect();
         (parts.mean, var)
     }
 
@@ -413,6 +456,31 @@ impl SpatialParts {
             }
         }
         s.max(0.0)
+    }
+    /// [`SpatialParts::quad`] for every plot (one blocked product with many parameters).
+    pub fn quads(&self, cov: &[f64]) -> Vec<f64> {
+        let p = self.p;
+        let n = self.rt.len() / p.max(1);
+        if p < linalg::LARGE {
+            return (0..n).map(|i| self.quad(i, cov)).collect();
+        }
+        let mut rc = faer::Mat::<f64>::zeros(n, p);
+        let rt = faer::MatRef::from_row_major_slice(&self.rt, n, p);
+        faer::linalg::matmul::matmul(
+            rc.as_mut(),
+            faer::Accum::Replace,
+            rt,
+            faer::MatRef::from_row_major_slice(cov, p, p),
+            1.0,
+            faer::Par::Seq,
+        );
+        (0..n)
+            .map(|i| {
+                let row = &self.rt[i * p..(i + 1) * p];
+                let s: f64 = (0..p).map(|a| rc[(i, a)] * row[a]).sum();
+                s.max(0.0)
+            })
+            .collect()
     }
     /// R'_i (b_hat - E b): the mean's shift for other mean-parameter means.
     pub fn shift(&self, i: usize, b_hat: &[f64], mean_b: &[f64]) -> f64 {

@@ -222,7 +222,7 @@ fn joint_likelihood_equals_the_stacked_dense_model() {
         })
         .collect();
     let refs: Vec<&spectral::Inner> = fits.iter().collect();
-    let c = combine(&refs, &maps, &global, si, false).unwrap();
+    let c = combine(&refs, &maps, &global, si, Moments::None).unwrap();
     let factored: f64 = fits.iter().map(|f| f.reml).sum::<f64>() + c.log_c;
     // The stacked model: columns = field intercepts (flat); products a, b (prior) and
     // one interaction column per field and product (variance s^2) go into the covariance.
@@ -491,33 +491,39 @@ fn joint_importance_draws_stay_effective_with_many_fields() {
 fn spectral_evaluation_equals_the_dense_cholesky_evaluation() {
     // The exact spectral form against a fresh dense Cholesky (`evaluate`) at several
     // hyperparameters, with blocks in the mean model: REML, GLS estimates and their
-    // covariance to 1e-9, spatial effect means and variances to 1e-8.
-    let plots = trend_field("F", 4, 6, 0.3, 17);
-    let mut s = settings();
-    s.blocks = true;
-    let prep = prepare("F", plots.iter().collect(), &s).unwrap();
-    let d = &prep.model.design;
-    let data = FieldData::from_design(d);
-    for (l, sf, sn) in [(20.0, 0.5, 0.2), (80.0, 1.2, 0.05), (300.0, 0.1, 0.4)] {
-        let rep = spectral::Repr::exact(d, (l, l)).unwrap();
-        let e = rep.evaluate(sf, sn).unwrap();
-        let dense = evaluate(&data, l, sf, sn, true).unwrap();
-        assert!(
-            (e.reml - dense.reml).abs() < 1e-9 * dense.reml.abs(),
-            "{} vs {}",
-            e.reml,
-            dense.reml
-        );
-        for a in 0..d.p {
-            assert!((e.b[a] - dense.b[a]).abs() < 1e-9);
-            for b in 0..d.p {
-                assert!((e.cov[a * d.p + b] - dense.cov_b[(a, b)]).abs() < 1e-9);
+    // covariance to 1e-9, spatial effect means and variances to 1e-8. The second design has
+    // 20 blocks (22 mean parameters), which takes the blocked products of `linalg::LARGE`.
+    for (rows, cols) in [(4, 6), (20, 3)] {
+        let plots = trend_field("F", rows, cols, 0.3, 17);
+        let mut s = settings();
+        s.blocks = true;
+        let prep = prepare("F", plots.iter().collect(), &s).unwrap();
+        let d = &prep.model.design;
+        assert_eq!(d.p >= linalg::LARGE, rows == 20, "p = {}", d.p);
+        let data = FieldData::from_design(d);
+        for (l, sf, sn) in [(20.0, 0.5, 0.2), (80.0, 1.2, 0.05), (300.0, 0.1, 0.4)] {
+            let rep = spectral::Repr::exact(d, (l, l)).unwrap();
+            let e = rep.evaluate(sf, sn).unwrap();
+            let dense = evaluate(&data, l, sf, sn, true).unwrap();
+            assert!(
+                (e.reml - dense.reml).abs() < 1e-9 * dense.reml.abs(),
+                "{} vs {}",
+                e.reml,
+                dense.reml
+            );
+            for a in 0..d.p {
+                assert!((e.b[a] - dense.b[a]).abs() < 1e-9);
+                for b in 0..d.p {
+                    assert!((e.cov[a * d.p + b] - dense.cov_b[(a, b)]).abs() < 1e-9);
+                }
             }
-        }
-        let (m, v) = rep.spatial(d, sf, sn, &e);
-        for i in 0..d.n() {
-            assert!((m[i] - dense.spatial_mean[i]).abs() < 1e-8);
-            assert!((v[i] - dense.spatial_var[i]).abs() < 1e-8);
+            let (m, v) = rep.spatial(d, sf, sn, &e);
+            for i in 0..d.n() {
+                assert!((m[i] - dense.spatial_mean[i]).abs() < 1e-8);
+                assert!((v[i] - dense.spatial_var[i]).abs() < 1e-8);
+            }
+            // The REML alone (the searches' path) is the same number.
+            assert_eq!(rep.reml_groups(sf, sn, &[]), Some(e.reml));
         }
     }
 }

@@ -28,7 +28,7 @@
 //! of a mixture; `tests` measures the difference.
 
 use crate::adjust::field::log_sum_exp;
-use crate::adjust::joint::{combine, Component, EffectPrior, FieldMap, Mixture};
+use crate::adjust::joint::{combine, Component, EffectPrior, FieldMap, Mixture, Moments};
 use crate::adjust::spectral::Inner;
 use crate::adjust::{pooled_row, treatment_row, FitSettings, StageOne, Summary, TreatmentRow};
 use std::collections::BTreeSet;
@@ -195,7 +195,7 @@ pub fn fit(locs: &[Location], s: &FitSettings) -> Result<SeasonFit, String> {
     let comps: Vec<(f64, f64, f64, Component)> = snodes
         .iter()
         .filter_map(|&(sv, lp)| {
-            combine(&fits, &maps, &prior, sv, true).map(|c| (lp + c.log_c, lp, sv, c))
+            combine(&fits, &maps, &prior, sv, Moments::Rows).map(|c| (lp + c.log_c, lp, sv, c))
         })
         .collect();
     if comps.is_empty() {
