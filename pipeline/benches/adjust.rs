@@ -8,7 +8,10 @@
 //! - single: one field of 24 to 600 plots, exact kernel and reduced-rank basis side by side
 //!   (the crossover), with the reduced-rank uplift's difference from the exact one in units
 //!   of its SD;
-//! - large: one field of 1,000 plots (reduced rank, the default above 600 plots);
+//! - large: one field of 1,000 and of 10,000 plots (reduced rank, the default above 600
+//!   plots);
+//! - variety: a 224-plot trial of 56 entries in 4 blocks, and six treatments in 30 and 46
+//!   blocks with and without block effects;
 //! - season: 20 fields x 250 plots fitted jointly (shared range, interaction SD).
 
 use plotsieve_stages::adjust::{run, AdjustOutput, FitSettings, Pooling};
@@ -76,13 +79,15 @@ fn main() {
         }
     }
     if want("large") {
-        let plots = field("F", 1000, 9);
-        let s = FitSettings::new("chk");
-        let (t, out) = timed(&plots, &s);
-        println!(
-            "1000 plots, one field: {t:.2} s ({}; range {:.0} m)",
-            out.hyper[0].method, out.hyper[0].range_m
-        );
+        for n in [1000, 10_000] {
+            let plots = field("F", n, 9);
+            let s = FitSettings::new("chk");
+            let (t, out) = timed(&plots, &s);
+            println!(
+                "{n} plots, one field: {t:.2} s ({}; range {:.0} m)",
+                out.hyper[0].method, out.hyper[0].range_m
+            );
+        }
     }
     if want("variety") {
         // A variety trial: 56 entries x 4 complete blocks (224 plots, 8 columns x 28 rows of

@@ -21,7 +21,7 @@ fn report_html_renders_in_headless_chromium_without_the_network() {
     for bad in ["<script", "src=", "href=", "url(", "@import"] {
         assert!(!html.contains(bad), "report.html contains {bad}");
     }
-    assert!(html.contains("default-src 'none'"));
+    assert!(html.contains("default-src 'none'; style-src 'unsafe-inline'; img-src data:\""));
     assert!(html.contains("statistical estimates") && html.contains("licensed agronomic advice"));
     // Maps (5 per field), the forest plot, legends and axis units.
     assert_eq!(html.matches("<svg class=\"map\"").count(), 10);
@@ -119,6 +119,52 @@ fn report_html_renders_in_headless_chromium_without_the_network() {
                 .any(|h| url.contains(h));
         assert!(ok_url, "unexpected network request {url}");
     }
+}
+
+#[test]
+fn a_field_of_many_records_is_mapped_as_an_image_of_cell_means() {
+    // One field of 24 blocks (about 9,500 records, more than the 8,000 drawn one by one):
+    // the two record maps are PNG images embedded as data URIs (the only references in the
+    // page), their captions count the records, and the page stays small.
+    let w = Workdir::new("report-raster");
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "simulate", "sim", "--fields", "1", "--blocks", "24", "--seed", "3", "--quiet",
+        ],
+    ));
+    ok(&plotsieve(
+        &w.0,
+        &["run", "sim/trial.toml", "--out", "run", "--quiet"],
+    ));
+    let html = read(&w.path("run/5-report/report.html"));
+    let images: Vec<&str> = html.split("<image ").skip(1).collect();
+    assert_eq!(images.len(), 2, "raw yield and removed records");
+    assert_eq!(
+        html.matches("href=").count(),
+        html.matches("href=\"data:image/png;base64,").count()
+    );
+    assert!(!html.contains("<circle cx") || html.matches("<circle").count() < 100);
+    let caption = html
+        .split("every record, raw yield (t/ha); ")
+        .nth(1)
+        .expect("raster caption");
+    let records: usize = caption.split(' ').next().unwrap().parse().unwrap();
+    assert!(records > 8000 && records < 20_000, "{records}");
+    assert!(caption.starts_with(&format!("{records} records, each 2-pixel cell their mean")));
+    for img in images {
+        let b64 = img
+            .split("base64,")
+            .nth(1)
+            .unwrap()
+            .split('"')
+            .next()
+            .unwrap();
+        // PNG signature 89 50 4E 47 0D 0A 1A 0A is "iVBORw0KGgo" in base64.
+        assert!(b64.starts_with("iVBORw0KGgo"), "{}", &b64[..20]);
+        assert!(b64.len() < 60_000);
+    }
+    assert!(html.len() < 1_500_000, "{} bytes", html.len());
 }
 
 #[test]

@@ -6,19 +6,46 @@ use super::*;
 /// Moran's I of values at points, with binary weights for pairs closer than `cutoff`
 /// (Moran 1950): I = n / W x sum_ij w_ij z_i z_j / sum_i z_i^2, z centred.
 pub fn morans_i(xy: &[(f64, f64)], v: &[f64], cutoff: f64) -> f64 {
+    morans_i_with(&neighbours(xy, cutoff), v)
+}
+
+/// Each point's neighbours within `cutoff` (distance `sqrt(dx^2 + dy^2) <= cutoff`, itself
+/// left out), in increasing order: candidates from a grid, then the exact test.
+pub fn neighbours(xy: &[(f64, f64)], cutoff: f64) -> Vec<Vec<usize>> {
+    if !(cutoff > 0.0) || !cutoff.is_finite() {
+        return vec![Vec::new(); xy.len()];
+    }
+    // A looser grid radius than the test, so rounding never loses a neighbour.
+    let grid = crate::clean::grid::Grid::new(xy, 1.01 * cutoff);
+    let r2 = (1.001 * cutoff).powi(2);
+    (0..xy.len())
+        .map(|i| {
+            let mut nb: Vec<usize> = grid
+                .within(xy, xy[i].0, xy[i].1, r2)
+                .filter(|&j| {
+                    j != i && {
+                        let d = ((xy[i].0 - xy[j].0).powi(2) + (xy[i].1 - xy[j].1).powi(2)).sqrt();
+                        d <= cutoff
+                    }
+                })
+                .collect();
+            nb.sort_unstable();
+            nb
+        })
+        .collect()
+}
+
+/// Moran's I of `v` with binary weights on the pairs of `nb` (see [`neighbours`]); the sums
+/// run over i and then j in increasing order, as over all pairs.
+pub fn morans_i_with(nb: &[Vec<usize>], v: &[f64]) -> f64 {
     let n = v.len();
     let m = v.iter().sum::<f64>() / n as f64;
     let z: Vec<f64> = v.iter().map(|x| x - m).collect();
     let (mut num, mut w) = (0.0, 0.0);
-    for i in 0..n {
-        for j in 0..n {
-            if i != j {
-                let d = ((xy[i].0 - xy[j].0).powi(2) + (xy[i].1 - xy[j].1).powi(2)).sqrt();
-                if d <= cutoff {
-                    num += z[i] * z[j];
-                    w += 1.0;
-                }
-            }
+    for (i, js) in nb.iter().enumerate() {
+        for &j in js {
+            num += z[i] * z[j];
+            w += 1.0;
         }
     }
     let den: f64 = z.iter().map(|x| x * x).sum();
@@ -26,6 +53,45 @@ pub fn morans_i(xy: &[(f64, f64)], v: &[f64], cutoff: f64) -> f64 {
         return f64::NAN;
     }
     n as f64 / w * num / den
+}
+
+#[cfg(test)]
+#[test]
+fn neighbour_lists_give_the_all_pairs_sum() {
+    // Against the sum over all pairs, on a lattice (many pairs at exactly the cutoff) and on
+    // scattered points, bit for bit.
+    let mut r = crate::util::Rng::new(9);
+    let lattice: Vec<(f64, f64)> = (0..400)
+        .map(|i| {
+            (
+                500_000.0 + 3.0 * (i % 20) as f64,
+                4_400_000.0 + 4.0 * (i / 20) as f64,
+            )
+        })
+        .collect();
+    let scattered: Vec<(f64, f64)> = (0..400)
+        .map(|_| (r.range(0.0, 90.0), r.range(0.0, 90.0)))
+        .collect();
+    for (xy, cutoff) in [(&lattice, 4.0), (&lattice, 5.0), (&scattered, 7.5)] {
+        let v: Vec<f64> = (0..xy.len()).map(|_| r.normal()).collect();
+        let n = v.len();
+        let m = v.iter().sum::<f64>() / n as f64;
+        let z: Vec<f64> = v.iter().map(|x| x - m).collect();
+        let (mut num, mut w) = (0.0, 0.0);
+        for i in 0..n {
+            for j in 0..n {
+                let d = ((xy[i].0 - xy[j].0).powi(2) + (xy[i].1 - xy[j].1).powi(2)).sqrt();
+                if i != j && d <= cutoff {
+                    num += z[i] * z[j];
+                    w += 1.0;
+                }
+            }
+        }
+        let den: f64 = z.iter().map(|x| x * x).sum();
+        let all_pairs = n as f64 / w * num / den;
+        assert!(w > n as f64);
+        assert_eq!(morans_i(xy, &v, cutoff).to_bits(), all_pairs.to_bits());
+    }
 }
 
 /// The spatial fit at the mode against the same mean model without the spatial field.
@@ -103,14 +169,14 @@ pub(crate) fn compare(
         .iter()
         .map(|p| (p.centroid_x_m, p.centroid_y_m))
         .collect();
-    let cutoff = 1.5 * m.dmin;
+    let nb = neighbours(&xy, 1.5 * m.dmin);
     Ok(Comparison {
         field: field.clone(),
         log_ml_spatial: fit.reml,
         log_ml_without_spatial: reml_rcbd,
         efficiency,
-        moran_without_spatial: morans_i(&xy, &resid_rcbd, cutoff),
-        moran_spatial: morans_i(&xy, &resid_sp, cutoff),
+        moran_without_spatial: morans_i_with(&nb, &resid_rcbd),
+        moran_spatial: morans_i_with(&nb, &resid_sp),
         rank_correlation,
         top_overlap,
     })

@@ -185,6 +185,9 @@ pub fn run_with(
     s: &FitSettings,
     progress: &crate::progress::Progress,
 ) -> Result<AdjustOutput, AdjustError> {
+    // Fields, length scales and lattice points already run in parallel: faer's own
+    // threads inside them only add coordination.
+    faer::set_global_parallelism(faer::Par::Seq);
     let mut by_field: BTreeMap<&str, Vec<&PlotStats>> = BTreeMap::new();
     for p in plots
         .iter()

@@ -7,6 +7,7 @@
 //! of colour blindness. Every map has a legend and axes in metres.
 
 use super::mean_interval;
+use super::raster;
 use crate::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
 use crate::plots::PlotStats;
 use crate::table::{PlotPolygon, StageSummary};
@@ -42,6 +43,8 @@ pub struct HtmlInput<'a> {
     pub warnings: &'a [String],
 }
 
+/// Fields with more records than this draw them as a raster (see `raster`).
+const MAX_CIRCLES: usize = 8000;
 const VIRIDIS: [&str; 10] = [
     "#440154", "#482878", "#3e4989", "#31688e", "#26828e", "#1f9e89", "#35b779", "#6ece58",
     "#b5de2b", "#fde725",
@@ -325,7 +328,7 @@ pub fn render(r: &HtmlInput) -> String {
     let d = r.decimals;
     let u = r.unit_label;
     let mut s = String::new();
-    let _ = write!(s, "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; style-src 'unsafe-inline'\"><title>plotsieve QC report: {}</title><style>{CSS}</style></head><body>", esc(r.trial_name));
+    let _ = write!(s, "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; style-src 'unsafe-inline'; img-src data:\"><title>plotsieve QC report: {}</title><style>{CSS}</style></head><body>", esc(r.trial_name));
     let _ = write!(
         s,
         "<header><h1>{}</h1><p class=\"sub\">plotsieve quality-control report</p></header>",
@@ -453,6 +456,11 @@ pub fn render(r: &HtmlInput) -> String {
         kept
     };
     let (ylo, yhi) = (quantile(&ys, 0.02), quantile(&ys, 0.98));
+    let mut by_x: Vec<usize> = (0..r.points.len())
+        .filter(|&i| r.points[i].x.is_finite())
+        .collect();
+    by_x.sort_by(|&a, &b| r.points[a].x.total_cmp(&r.points[b].x));
+    let p_of = |x0: f64, y0: f64, x1: f64, y1: f64| Panel::new(x0, y0, x1, y1, 440.0);
     for (field, idx) in &fields {
         let rings: Vec<&PlotPolygon> = idx
             .iter()
@@ -472,32 +480,65 @@ pub fn render(r: &HtmlInput) -> String {
         }
         let m = 30.0;
         let (x0, y0, x1, y1) = (x0 - m, y0 - m, x1 + m, y1 + m);
-        let pts: Vec<&MapPoint> = r
-            .points
+        // The records in the field's box (from the points sorted by x), in record order.
+        let from = by_x.partition_point(|&i| r.points[i].x < x0);
+        let to = by_x.partition_point(|&i| r.points[i].x <= x1);
+        let mut inside: Vec<usize> = by_x[from..to]
             .iter()
-            .filter(|p| p.x >= x0 && p.x <= x1 && p.y >= y0 && p.y <= y1)
+            .copied()
+            .filter(|&i| r.points[i].y >= y0 && r.points[i].y <= y1)
             .collect();
-        let stride = (pts.len() / 4000).max(1);
+        inside.sort_unstable();
+        let pts: Vec<&MapPoint> = inside.iter().map(|&i| &r.points[i]).collect();
+        // Up to MAX_CIRCLES records are drawn one by one; more as a raster of cell means.
+        let raster = (pts.len() > MAX_CIRCLES).then(|| {
+            let panel = p_of(x0, y0, x1, y1);
+            let pos: Vec<(f64, f64)> = pts
+                .iter()
+                .map(|q| (panel.px(q.x) - PAD_L, panel.py(q.y) - PAD_T))
+                .collect();
+            raster::Raster::new(panel.w, panel.h, &pos)
+        });
         let _ = write!(
             s,
             "<section><h2>Field {}</h2><div class=\"maps\">",
             esc(field)
         );
         // Raw points by yield.
-        let p = Panel::new(x0, y0, x1, y1, 440.0);
-        p.open(
-            &mut s,
-            &format!("Field {field}: every record, raw yield ({u})"),
-        );
-        for q in pts.iter().step_by(stride) {
-            let t = (q.yield_unit - ylo) / (yhi - ylo);
-            let _ = write!(
-                s,
-                "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"1.3\" fill=\"{}\"/>",
-                p.px(q.x),
-                p.py(q.y),
-                scale(&VIRIDIS, t)
-            );
+        let p = p_of(x0, y0, x1, y1);
+        match &raster {
+            None => {
+                p.open(
+                    &mut s,
+                    &format!("Field {field}: every record, raw yield ({u})"),
+                );
+                for q in &pts {
+                    let t = (q.yield_unit - ylo) / (yhi - ylo);
+                    let _ = write!(
+                        s,
+                        "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"1.3\" fill=\"{}\"/>",
+                        p.px(q.x),
+                        p.py(q.y),
+                        scale(&VIRIDIS, t)
+                    );
+                }
+            }
+            Some(ras) => {
+                p.open(
+                    &mut s,
+                    &format!(
+                        "Field {field}: every record, raw yield ({u}); {} records, each {:.0}-pixel cell their mean",
+                        pts.len(),
+                        raster::CELL_PX
+                    ),
+                );
+                let png = ras.png(&|idx| {
+                    let mean =
+                        idx.iter().map(|&i| pts[i].yield_unit).sum::<f64>() / idx.len() as f64;
+                    Some(raster::rgb(&scale(&VIRIDIS, (mean - ylo) / (yhi - ylo))))
+                });
+                raster::svg_image(&mut s, &png, PAD_L, PAD_T, p.w, p.h);
+            }
         }
         for ring in &rings {
             let _ = write!(
@@ -518,14 +559,33 @@ pub fn render(r: &HtmlInput) -> String {
                 ring_path(&p, &ring.exterior)
             );
         }
-        for q in pts.iter().filter(|q| !q.rule.is_empty()).step_by(stride) {
-            let c = colour_of.get(q.rule.as_str()).copied().unwrap_or("#999999");
-            let _ = write!(
-                s,
-                "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"1.6\" fill=\"{c}\"/>",
-                p.px(q.x),
-                p.py(q.y)
-            );
+        match &raster {
+            None => {
+                for q in pts.iter().filter(|q| !q.rule.is_empty()) {
+                    let c = colour_of.get(q.rule.as_str()).copied().unwrap_or("#999999");
+                    let _ = write!(
+                        s,
+                        "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"1.6\" fill=\"{c}\"/>",
+                        p.px(q.x),
+                        p.py(q.y)
+                    );
+                }
+            }
+            Some(ras) => {
+                // A cell with removed records takes the colour of its most frequent rule
+                // (ties: the rule first by name).
+                let png = ras.png(&|idx| {
+                    let mut n: BTreeMap<&str, usize> = BTreeMap::new();
+                    for &i in idx.iter().filter(|&&i| !pts[i].rule.is_empty()) {
+                        *n.entry(pts[i].rule.as_str()).or_default() += 1;
+                    }
+                    let top = n.iter().max_by(|a, b| a.1.cmp(b.1).then(b.0.cmp(a.0)))?;
+                    Some(raster::rgb(
+                        colour_of.get(top.0).copied().unwrap_or("#999999"),
+                    ))
+                });
+                raster::svg_image(&mut s, &png, PAD_L, PAD_T, p.w, p.h);
+            }
         }
         p.axes(&mut s);
         let lx = PAD_L + p.w + 12.0;

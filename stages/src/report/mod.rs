@@ -440,6 +440,7 @@ pub(crate) fn mean_interval(m: f64, lo: f64, hi: f64, k: usize) -> String {
 }
 
 pub mod html;
+pub mod raster;
 pub mod season;
 
 /// (field, factor, SD summary) for each random design factor fitted (rows, columns,
