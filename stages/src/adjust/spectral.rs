@@ -388,10 +388,10 @@ impl Repr {
         })
     }
 
-    fn u(&self) -> Mat<f64> {
+    fn u(&self) -> std::borrow::Cow<'_, Mat<f64>> {
         match (&self.u, &self.phi_b) {
-            (Some(u), _) => u.clone(),
-            (None, Some((phi, b))) => phi * b,
+            (Some(u), _) => std::borrow::Cow::Borrowed(u),
+            (None, Some((phi, b))) => std::borrow::Cow::Owned(phi * b),
             _ => unreachable!("a representation holds U or its factors"),
         }
     }
@@ -411,7 +411,8 @@ impl Repr {
     /// (from a joint fit) give mean + R'(b_hat - E b) and cond + diag(R' Cov b R).
     pub fn spatial_parts(&self, d: &Design, sf: f64, sn: f64, fit: &Inner) -> SpatialParts {
         let (n, p, r) = (self.n, self.p, self.w.len());
-        let u = self.u();
+        let u_cow = self.u();
+        let u: &Mat<f64> = &u_cow;
         let (vf, vn) = (sf * sf, sn * sn);
         let g: Vec<f64> = self.w.iter().map(|w| vf * w / (vf * w + vn)).collect();
         let resid = Mat::from_fn(n, 1, |i, _| {
@@ -419,9 +420,9 @@ impl Repr {
         });
         let ur = u.transpose() * &resid;
         let gur = Mat::from_fn(r, 1, |i, _| g[i] * ur[(i, 0)]);
-        let mean_m = &u * &gur;
+        let mean_m = u * &gur;
         let gux = Mat::from_fn(r, p, |i, j| g[i] * self.ux[i * p + j]);
-        let rt_m = &u * &gux;
+        let rt_m = u * &gux;
         // Random groups belong to the position too: the effect at plot i is g_i + z_i'u,
         // whose mean adds z_i'u_hat and whose dependence on the mean parameters is R_i - z_i.
         let p0 = d.p_fixed();
@@ -439,9 +440,22 @@ impl Repr {
         SpatialParts {
             p,
             mean,
-            cond_var: (0..n)
-                .map(|i| (0..r).map(|k| u[(i, k)].powi(2) * g[k] * vn).sum())
-                .collect(),
+            cond_var: {
+                // U row by row (U is stored by columns), summed in the same order.
+                let mut rows = vec![0.0; n * r];
+                for k in 0..r {
+                    for (i, v) in u.col(k).iter().enumerate() {
+                        rows[i * r + k] = *v;
+                    }
+                }
+                if r == 0 {
+                    (0..n).map(|_| std::iter::empty::<f64>().sum()).collect()
+                } else {
+                    rows.chunks_exact(r)
+                        .map(|row| row.iter().zip(&g).map(|(x, gk)| x.powi(2) * gk * vn).sum())
+                        .collect()
+                }
+            },
             rt,
         }
     }

@@ -506,6 +506,11 @@ pub fn render(r: &HtmlInput) -> String {
         );
         // Raw points by yield.
         let p = p_of(x0, y0, x1, y1);
+        // Every plot outline of the field as one path (one element, not one per plot).
+        let outlines: String = rings
+            .iter()
+            .map(|ring| ring_path(&p, &ring.exterior))
+            .collect();
         match &raster {
             None => {
                 p.open(
@@ -540,25 +545,13 @@ pub fn render(r: &HtmlInput) -> String {
                 raster::svg_image(&mut s, &png, PAD_L, PAD_T, p.w, p.h);
             }
         }
-        for ring in &rings {
-            let _ = write!(
-                s,
-                "<path d=\"{}\" class=\"outline\"/>",
-                ring_path(&p, &ring.exterior)
-            );
-        }
+        let _ = write!(s, "<path d=\"{outlines}\" class=\"outline\"/>");
         p.axes(&mut s);
         p.colourbar(&mut s, &VIRIDIS, ylo, yhi, u, d);
         let _ = write!(s, "</svg></figure>");
         // Removed points by rule.
         p.open(&mut s, &format!("Field {field}: records removed, by rule"));
-        for ring in &rings {
-            let _ = write!(
-                s,
-                "<path d=\"{}\" class=\"outline\"/>",
-                ring_path(&p, &ring.exterior)
-            );
-        }
+        let _ = write!(s, "<path d=\"{outlines}\" class=\"outline\"/>");
         match &raster {
             None => {
                 for q in pts.iter().filter(|q| !q.rule.is_empty()) {
