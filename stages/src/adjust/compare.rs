@@ -21,7 +21,7 @@ pub fn neighbours(xy: &[(f64, f64)], cutoff: f64) -> Vec<Vec<usize>> {
     (0..xy.len())
         .map(|i| {
             let mut nb: Vec<usize> = grid
-                .within(xy, xy[i].0, xy[i].1, r2)
+                .within(xy[i].0, xy[i].1, r2)
                 .filter(|&j| {
                     j != i && {
                         let d = ((xy[i].0 - xy[j].0).powi(2) + (xy[i].1 - xy[j].1).powi(2)).sqrt();

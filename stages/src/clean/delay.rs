@@ -45,8 +45,19 @@ pub struct DelayEstimate {
     pub curve: Vec<(f64, f64)>,
 }
 
-fn angle_diff(a: f64, b: f64) -> f64 {
-    let d = (a - b).rem_euclid(360.0);
+pub(crate) fn angle_diff(a: f64, b: f64) -> f64 {
+    let x = a - b;
+    // `rem_euclid(360)` without the division where it is exact: for |x| < 360, x % 360 is
+    // x itself, so the remainder is x, or x + 360 below zero (the same bits).
+    let d = if x.abs() < 360.0 {
+        if x < 0.0 {
+            x + 360.0
+        } else {
+            x
+        }
+    } else {
+        x.rem_euclid(360.0)
+    };
     if d > 180.0 {
         360.0 - d
     } else {
@@ -61,7 +72,7 @@ pub fn opposite_pairs(pts: &[PairPoint], dist: f64) -> Vec<(usize, usize)> {
     let mut pairs = Vec::new();
     for (i, p) in pts.iter().enumerate() {
         let best = grid
-            .within(&xy, p.x, p.y, dist * dist)
+            .within(p.x, p.y, dist * dist)
             .filter(|&g| {
                 let q = &pts[g];
                 q.pass != p.pass && angle_diff(p.heading_deg, q.heading_deg) > 135.0
@@ -190,9 +201,12 @@ pub fn estimate(
         .map(|k| (k as f64 / fine_step).round() as isize)
         .collect();
     let centre = |lag: f64| ((lag - base) / fine_step).round() as usize;
-    // Each paired point's samples and smoothed values, one block of n_samples after
-    // another (`slot`: which block). Only the samples the lags read are taken: first those
-    // of the coarse lags and the scan's ends, later those of the fine lags.
+    // Each paired point's slot (its place in `order`). The smoothed values are kept lag by
+    // lag: `sm[c]` holds every paired point's value at sample centre c, by slot, so that the
+    // objective reads one short column per lag instead of one long block per point. Only the
+    // samples the lags read are taken: first those of the coarse lags and the scan's ends,
+    // later those of the fine lags (a sample's value does not depend on which others were
+    // taken, see `sample`).
     let mut slot = vec![u32::MAX; pts.len()];
     let mut order: Vec<usize> = Vec::new();
     for &(i, j) in candidate {
@@ -203,32 +217,41 @@ pub fn estimate(
             }
         }
     }
-    let mut raw = vec![f64::NAN; order.len() * n_samples];
-    let mut sm = vec![f64::NAN; order.len() * n_samples];
-    // Take the samples that the smoothed values at `centres` need (those not yet taken).
-    let mut taken = vec![false; n_samples];
-    let mut fill = |centres: &[usize], raw: &mut [f64], sm: &mut [f64]| {
-        let mut need: Vec<usize> = centres
+    let mut sm: Vec<Vec<f64>> = vec![Vec::new(); n_samples];
+    // One point's samples, reused from point to point: every index read was written for
+    // this point in the same call.
+    let mut raw = vec![f64::NAN; n_samples];
+    let mut fill = |centres: &[usize], sm: &mut [Vec<f64>]| {
+        let mut todo: Vec<usize> = centres
+            .iter()
+            .copied()
+            .filter(|&c| c < n_samples && sm[c].is_empty())
+            .collect();
+        todo.sort_unstable();
+        todo.dedup();
+        if todo.is_empty() {
+            return;
+        }
+        let mut need: Vec<usize> = todo
             .iter()
             .flat_map(|&c| offsets.iter().map(move |o| c as isize + o))
-            .filter(|&m| m >= 0 && (m as usize) < n_samples && !taken[m as usize])
+            .filter(|&m| m >= 0 && (m as usize) < n_samples)
             .map(|m| m as usize)
             .collect();
         need.sort_unstable();
         need.dedup();
+        let mut cols: Vec<Vec<f64>> = todo.iter().map(|_| vec![f64::NAN; order.len()]).collect();
         for (b, &k) in order.iter().enumerate() {
             let p = &pts[k];
-            let r = &mut raw[b * n_samples..(b + 1) * n_samples];
             let mut j = walk_start(p);
             for &m in &need {
-                r[m] = sample(p, m, &mut j);
+                raw[m] = sample(p, m, &mut j);
             }
-            let sm = &mut sm[b * n_samples..(b + 1) * n_samples];
-            for &c in centres {
-                sm[c] = offsets
+            for (col, &c) in cols.iter_mut().zip(&todo) {
+                col[b] = offsets
                     .iter()
                     .map(|o| {
-                        r.get((c as isize + o) as usize)
+                        raw.get((c as isize + o) as usize)
                             .copied()
                             .unwrap_or(f64::NAN)
                     })
@@ -236,8 +259,8 @@ pub fn estimate(
                     / 5.0;
             }
         }
-        for m in need {
-            taken[m] = true;
+        for (col, c) in cols.into_iter().zip(todo) {
+            sm[c] = col;
         }
     };
     let coarse: Vec<usize> = lags
@@ -246,12 +269,13 @@ pub fn estimate(
         .map(|&l| centre(l))
         .filter(|&c| c < n_samples)
         .collect();
-    fill(&coarse, &mut raw, &mut sm);
-    let at = |sm: &[f64], k: usize, lag: f64| -> f64 {
+    fill(&coarse, &mut sm);
+    let at = |sm: &[Vec<f64>], k: usize, lag: f64| -> f64 {
         match slot[k] {
             u32::MAX => f64::NAN,
-            b => sm[b as usize * n_samples..(b as usize + 1) * n_samples]
+            b => sm
                 .get(centre(lag))
+                .and_then(|col| col.get(b as usize))
                 .copied()
                 .unwrap_or(f64::NAN),
         }
@@ -272,20 +296,20 @@ pub fn estimate(
     }
     // Robust objective: the mean of the squared differences without the largest 2 %, so a
     // sensor spike or a stray pair cannot decide the lag.
-    // Each pair's two blocks of smoothed values (both points are paired, so both have one).
-    let blocks: Vec<(usize, usize)> = pairs
+    // Each pair's two slots (both points are paired, so both have one).
+    let slots: Vec<(usize, usize)> = pairs
         .iter()
-        .map(|&(i, j)| (slot[i] as usize * n_samples, slot[j] as usize * n_samples))
+        .map(|&(i, j)| (slot[i] as usize, slot[j] as usize))
         .collect();
     let mut d: Vec<f64> = Vec::with_capacity(pairs.len());
-    let mut objective = |sm: &[f64], l: f64| -> f64 {
+    let mut objective = |sm: &[Vec<f64>], l: f64| -> f64 {
         let c = centre(l);
         d.clear();
-        if c < n_samples {
+        if let Some(col) = sm.get(c).filter(|col| !col.is_empty()) {
             d.extend(
-                blocks
+                slots
                     .iter()
-                    .map(|&(a, b)| (sm[a + c] - sm[b + c]).powi(2))
+                    .map(|&(a, b)| (col[a] - col[b]).powi(2))
                     .filter(|v| v.is_finite()),
             );
         }
@@ -311,7 +335,7 @@ pub fn estimate(
         .map(|&l| centre(l))
         .filter(|&c| c < n_samples)
         .collect();
-    fill(&centres, &mut raw, &mut sm);
+    fill(&centres, &mut sm);
     let fine: Vec<(f64, f64)> = fine_lags.iter().map(|&l| (l, objective(&sm, l))).collect();
     let f = (0..fine.len())
         .min_by(|&a, &b| fine[a].1.total_cmp(&fine[b].1))

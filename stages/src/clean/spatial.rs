@@ -76,29 +76,43 @@ impl Footprint {
 }
 
 /// Overlap fraction of each footprint (in the given time order) with the earlier ones.
+///
+/// The earlier footprints are found in one R-tree of every footprint's bounding box, built
+/// at once (bulk loading), keeping those before the footprint in time order: the same
+/// candidates as a tree grown footprint by footprint, and the sample test does not depend
+/// on their order.
 pub fn overlap_fractions(fp: &[Footprint], skip_s: f64) -> Vec<f64> {
-    let mut tree: RTree<GeomWithData<Rectangle<[f64; 2]>, usize>> = RTree::new();
-    let mut out = Vec::with_capacity(fp.len());
-    for (i, f) in fp.iter().enumerate() {
-        let env = f.envelope();
-        let candidates: Vec<usize> = tree
-            .locate_in_envelope_intersecting(&AABB::from_corners(env.lower(), env.upper()))
-            .map(|g| g.data)
-            .filter(|&j| !(fp[j].pass == f.pass && f.time_s - fp[j].time_s <= skip_s))
-            .collect();
-        let covered = if candidates.is_empty() {
-            0
-        } else {
-            f.samples()
-                .filter(|&(x, y)| candidates.iter().any(|&j| fp[j].contains(x, y)))
-                .count()
-        };
-        out.push(covered as f64 / 15.0);
-        if f.length > 0.0 && f.width > 0.0 {
-            tree.insert(GeomWithData::new(env, i));
-        }
-    }
-    out
+    let envelopes: Vec<Rectangle<[f64; 2]>> = fp.iter().map(|f| f.envelope()).collect();
+    let tree: RTree<GeomWithData<Rectangle<[f64; 2]>, usize>> = RTree::bulk_load(
+        fp.iter()
+            .enumerate()
+            .filter(|(_, f)| f.length > 0.0 && f.width > 0.0)
+            .map(|(i, _)| GeomWithData::new(envelopes[i], i))
+            .collect(),
+    );
+    let mut candidates: Vec<usize> = Vec::new();
+    fp.iter()
+        .enumerate()
+        .map(|(i, f)| {
+            let env = &envelopes[i];
+            candidates.clear();
+            candidates.extend(
+                tree.locate_in_envelope_intersecting(&AABB::from_corners(env.lower(), env.upper()))
+                    .map(|g| g.data)
+                    .filter(|&j| {
+                        j < i && !(fp[j].pass == f.pass && f.time_s - fp[j].time_s <= skip_s)
+                    }),
+            );
+            let covered = if candidates.is_empty() {
+                0
+            } else {
+                f.samples()
+                    .filter(|&(x, y)| candidates.iter().any(|&j| fp[j].contains(x, y)))
+                    .count()
+            };
+            covered as f64 / 15.0
+        })
+        .collect()
 }
 
 /// Local outlier test for each point: Some((deviation, limit)) when it fails. A point's
@@ -121,7 +135,7 @@ pub fn local_outliers(
         .map(|(i, p)| {
             nb.clear();
             nb.extend(
-                grid.within(xy, p.0, p.1, radius * radius)
+                grid.within(p.0, p.1, radius * radius)
                     .filter(|&g| g != i && group[g] == group[i])
                     .map(|g| y[g]),
             );

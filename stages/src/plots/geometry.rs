@@ -165,12 +165,10 @@ fn clip_local(subject: &[(f64, f64)], clip: &[(f64, f64)]) -> Vec<(f64, f64)> {
 }
 
 /// An oriented rectangle (a swath footprint): centre, unit heading, length along, width.
-pub fn oriented_rect(x: f64, y: f64, ux: f64, uy: f64, length: f64, width: f64) -> Vec<(f64, f64)> {
+pub fn oriented_rect(x: f64, y: f64, ux: f64, uy: f64, length: f64, width: f64) -> [(f64, f64); 4] {
     let (hl, hw) = (0.5 * length, 0.5 * width);
     [(-hl, -hw), (hl, -hw), (hl, hw), (-hl, hw)]
-        .iter()
-        .map(|&(a, c)| (x + a * ux - c * uy, y + a * uy + c * ux))
-        .collect()
+        .map(|(a, c)| (x + a * ux - c * uy, y + a * uy + c * ux))
 }
 
 /// Fraction of `area_of` covered by the union of convex `footprints`, on a raster of `cell`

@@ -264,7 +264,7 @@ pub fn run(
         .map(|(f, v)| (f, crate::util::median(&v)))
         .filter(|(_, m)| m.is_finite() && *m > 0.0)
         .collect();
-    let mut footprint: Vec<Vec<(f64, f64)>> = vec![Vec::new(); points.len()];
+    let mut footprint: Vec<[(f64, f64); 4]> = vec![[(0.0, 0.0); 4]; points.len()];
     for (k, &i) in order.iter().enumerate() {
         let same = |j: usize| {
             points[j].base.file == points[i].base.file && points[j].pass == points[i].pass
@@ -301,83 +301,96 @@ pub fn run(
         };
         footprint[i] = oriented_rect(p.x_m, p.y_m, ux, uy, travel.max(0.1), p.width_m);
     }
+    // Each point's plot, or the rule it breaks (points in parallel, taken in order).
+    enum Joined {
+        Plot(usize),
+        Rejected(Rejection),
+    }
+    let joined: Vec<Joined> = points
+        .par_iter()
+        .enumerate()
+        .map(|(i, p)| {
+            let (x, y) = (p.base.x_m, p.base.y_m);
+            let reject = |rule: &str, column: &str, value: String, limit: String| {
+                Joined::Rejected(point_rejection(p, files, rule, column, value, limit))
+            };
+            let Some(k) = locate(&tree, &polys, x, y) else {
+                let near = tree
+                    .nearest_neighbor(&[x, y])
+                    .map(|g| g.geom().distance_2(&[x, y]).sqrt())
+                    .unwrap_or(f64::INFINITY);
+                let (rule, limit) = if near > s.far_m {
+                    ("far_from_trial", format!("within {} m of a plot", s.far_m))
+                } else {
+                    ("outside_plots", "inside a plot polygon".to_string())
+                };
+                return reject(
+                    rule,
+                    "distance_to_nearest_plot_m",
+                    format!("{near:.1}"),
+                    limit,
+                );
+            };
+            let Some(net) = &net_geo[k] else {
+                return reject(
+                    "border_trim",
+                    "x_m,y_m",
+                    format!("{x:.2},{y:.2}"),
+                    "plot too small for its trims".into(),
+                );
+            };
+            if !net.contains(&geo::Point::new(x, y)) {
+                return reject(
+                    "border_trim",
+                    "x_m,y_m",
+                    format!("{x:.2},{y:.2}"),
+                    format!(
+                        "inside the net plot (end trim {} m, side trim {} m)",
+                        s.end_trim_m, s.side_trim_m
+                    ),
+                );
+            }
+            let fp = &footprint[i];
+            let fp_area = geometry::signed_area(fp).abs();
+            // The net plot (any simple polygon) clipped by the convex footprint.
+            let inside = if fp_area > 0.0 {
+                clip_area(nets[k].as_ref().expect("net exists"), fp) / fp_area
+            } else {
+                1.0
+            };
+            if inside < s.min_swath_inside {
+                return reject(
+                    "swath_straddle",
+                    "footprint_inside_fraction",
+                    format!("{inside:.3}"),
+                    format!(">= {}", s.min_swath_inside),
+                );
+            }
+            Joined::Plot(k)
+        })
+        .collect();
     let mut assignment = Vec::new();
     let mut rejections = Vec::new();
     let mut members: Vec<Vec<usize>> = vec![Vec::new(); polys.len()];
+    // Points per (export, plot), gathered into exports and fields below.
+    let mut per_export_plot: HashMap<(u32, usize), u64> = HashMap::new();
+    for (i, j) in joined.into_iter().enumerate() {
+        match j {
+            Joined::Rejected(r) => rejections.push(r),
+            Joined::Plot(k) => {
+                assignment.push((i, k));
+                members[k].push(i);
+                *per_export_plot.entry((points[i].base.file, k)).or_default() += 1;
+            }
+        }
+    }
     let mut export_fields: BTreeMap<String, BTreeMap<String, u64>> = BTreeMap::new();
-    for (i, p) in points.iter().enumerate() {
-        let (x, y) = (p.base.x_m, p.base.y_m);
-        let Some(k) = locate(&tree, &polys, x, y) else {
-            let near = tree
-                .nearest_neighbor(&[x, y])
-                .map(|g| g.geom().distance_2(&[x, y]).sqrt())
-                .unwrap_or(f64::INFINITY);
-            let (rule, limit) = if near > s.far_m {
-                ("far_from_trial", format!("within {} m of a plot", s.far_m))
-            } else {
-                ("outside_plots", "inside a plot polygon".to_string())
-            };
-            rejections.push(point_rejection(
-                p,
-                files,
-                rule,
-                "distance_to_nearest_plot_m",
-                format!("{near:.1}"),
-                limit,
-            ));
-            continue;
-        };
-        let Some(net) = &net_geo[k] else {
-            rejections.push(point_rejection(
-                p,
-                files,
-                "border_trim",
-                "x_m,y_m",
-                format!("{x:.2},{y:.2}"),
-                "plot too small for its trims".into(),
-            ));
-            continue;
-        };
-        if !net.contains(&geo::Point::new(x, y)) {
-            rejections.push(point_rejection(
-                p,
-                files,
-                "border_trim",
-                "x_m,y_m",
-                format!("{x:.2},{y:.2}"),
-                format!(
-                    "inside the net plot (end trim {} m, side trim {} m)",
-                    s.end_trim_m, s.side_trim_m
-                ),
-            ));
-            continue;
-        }
-        let fp = &footprint[i];
-        let fp_area = geometry::signed_area(fp).abs();
-        // The net plot (any simple polygon) clipped by the convex footprint.
-        let inside = if fp_area > 0.0 {
-            clip_area(nets[k].as_ref().expect("net exists"), fp) / fp_area
-        } else {
-            1.0
-        };
-        if inside < s.min_swath_inside {
-            rejections.push(point_rejection(
-                p,
-                files,
-                "swath_straddle",
-                "footprint_inside_fraction",
-                format!("{inside:.3}"),
-                format!(">= {}", s.min_swath_inside),
-            ));
-            continue;
-        }
-        assignment.push((i, k));
-        members[k].push(i);
+    for ((f, k), n) in per_export_plot {
         *export_fields
-            .entry(files[p.base.file as usize].clone())
+            .entry(files[f as usize].clone())
             .or_default()
             .entry(ordered[k].0.field.clone())
-            .or_default() += 1;
+            .or_default() += n;
     }
     let mut summary =
         StageSummary::from_rejections("plots", "points", points.len() as u64, &rejections);
@@ -444,19 +457,27 @@ pub fn run(
             }
         })
         .collect();
+    // Each plot's yield and moisture statistics, plots in parallel.
+    let stats: Vec<[f64; 5]> = members
+        .par_iter()
+        .map(|m| {
+            let ys: Vec<f64> = m.iter().map(|&i| points[i].yield_std_kg_ha).collect();
+            let ms: Vec<f64> = m.iter().map(|&i| points[i].moisture_shifted_pct).collect();
+            [
+                mean(&ys),
+                median(&ys),
+                trimmed_mean(&ys, s.trim_fraction),
+                sd(&ys),
+                mean(&ms),
+            ]
+        })
+        .collect();
     for (k, (d, _)) in ordered.iter().enumerate() {
-        let ys: Vec<f64> = members[k]
-            .iter()
-            .map(|&i| points[i].yield_std_kg_ha)
-            .collect();
-        let ms: Vec<f64> = members[k]
-            .iter()
-            .map(|&i| points[i].moisture_shifted_pct)
-            .collect();
+        let [y_mean, y_median, y_trimmed, y_sd, m_mean] = stats[k];
         let net_ring = nets[k].clone().unwrap_or_default();
         let net_area = geometry::signed_area(&net_ring).abs();
         let cov = coverages[k];
-        let n = ys.len() as u64;
+        let n = members[k].len() as u64;
         // Records in one-second terms: a record of an export logging every 3 s counts 3.
         let seconds: f64 = members[k]
             .iter()
@@ -518,11 +539,11 @@ pub fn run(
             .into(),
             reason: reason.map(|r| r.0.to_string()).unwrap_or_default(),
             points: n,
-            yield_mean: mean(&ys),
-            yield_median: median(&ys),
-            yield_trimmed_mean: trimmed_mean(&ys, s.trim_fraction),
-            yield_sd: sd(&ys),
-            moisture_mean_pct: mean(&ms),
+            yield_mean: y_mean,
+            yield_median: y_median,
+            yield_trimmed_mean: y_trimmed,
+            yield_sd: y_sd,
+            moisture_mean_pct: m_mean,
             centroid_x_m: centroids[k].0,
             centroid_y_m: centroids[k].1,
             area_m2: polys[k].unsigned_area(),
