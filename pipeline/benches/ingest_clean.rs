@@ -34,6 +34,12 @@ fn peak_rss_mib() -> f64 {
         .unwrap_or(f64::NAN)
 }
 
+/// Reset the peak (VmHWM) to the current resident size, so the next reading is one step's
+/// peak (Linux `clear_refs` value 5); false where the kernel refuses.
+fn reset_peak() -> bool {
+    std::fs::write("/proc/self/clear_refs", "5").is_ok()
+}
+
 fn measure(dir: &Path) {
     let text = std::fs::read_to_string(dir.join("trial.toml")).expect("trial.toml");
     // Extra settings, e.g. PLOTSIEVE_BENCH_SET="clean.delay.mode=fixed;clean.disabled_rules=[]".
@@ -65,15 +71,21 @@ fn measure(dir: &Path) {
         rows += df.height();
     }
     let t_polars = t.elapsed().as_secs_f64();
+    let peak_polars = peak_rss_mib();
+    let steps_measured = reset_peak();
     let none = Progress::none();
     let t0 = Instant::now();
     let ing = ingest::run(&cfg, dir).expect("ingest");
     let t_ingest = t0.elapsed().as_secs_f64();
+    let peak_ingest = peak_rss_mib();
+    reset_peak();
     let n = ing.points.points.len();
     let t1 = Instant::now();
     let zones = Zones::new(&ing.polygons, &ing.design);
     let cl = clean::run_with(&ing.points, &cfg.clean, &crop, Some(&zones), &none);
     let t_clean = t1.elapsed().as_secs_f64();
+    let peak_clean = peak_rss_mib();
+    reset_peak();
     let t2 = Instant::now();
     let pl = plots::run(
         &cl.points,
@@ -84,6 +96,7 @@ fn measure(dir: &Path) {
         &cfg.plots,
     );
     let t_plots = t2.elapsed().as_secs_f64();
+    let peak_plots = peak_rss_mib();
     let front = t_ingest + t_clean + t_plots;
     let rate = |t: f64| format!("{t:.2} s  ({:.0} points/s)", n as f64 / t);
     println!("points                {n} ({rows} CSV rows read by polars)");
@@ -99,7 +112,16 @@ fn measure(dir: &Path) {
         cl.points.len(),
         100.0 * cl.points.len() as f64 / n as f64
     );
-    println!("peak memory (VmHWM)   {:.0} MiB", peak_rss_mib());
+    // The process's peak is the largest step's (polars' data frames are dropped before
+    // ingest starts, but its peak counts where the kernel cannot reset it).
+    if steps_measured {
+        println!(
+            "peak memory (VmHWM)   {:.0} MiB (polars read {peak_polars:.0}, ingest {peak_ingest:.0}, clean {peak_clean:.0}, plots {peak_plots:.0})",
+            peak_ingest.max(peak_clean).max(peak_plots)
+        );
+    } else {
+        println!("peak memory (VmHWM)   {:.0} MiB", peak_rss_mib());
+    }
 }
 
 fn main() {
@@ -138,6 +160,44 @@ fn main() {
         .args(["--measure", dir.to_str().unwrap()])
         .status()
         .expect("child runs");
-    let _ = std::fs::remove_dir_all(&dir);
     assert!(status.success());
+    stage_processes(&dir);
+    let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// Run a command to its end; (wall seconds, peak resident MiB) from wait4's usage record.
+fn timed(cmd: &mut std::process::Command) -> (f64, f64) {
+    let t = Instant::now();
+    let child = cmd.spawn().expect("plotsieve runs");
+    let mut status = 0;
+    // SAFETY: rusage is plain data that wait4 fills in; the pid is our own child's.
+    let mut usage: libc::rusage = unsafe { std::mem::zeroed() };
+    let pid = unsafe { libc::wait4(child.id() as libc::pid_t, &mut status, 0, &mut usage) };
+    assert!(pid > 0 && status == 0, "plotsieve failed (status {status})");
+    (t.elapsed().as_secs_f64(), usage.ru_maxrss as f64 / 1024.0)
+}
+
+/// The front half as `plotsieve run` does it: each stage reads the previous stage's tables
+/// from the run folder and writes its own (Parquet points, CSV rejection logs, GeoJSON
+/// plots), one process per stage here so that each stage's peak memory is its own.
+fn stage_processes(dir: &Path) {
+    let exe = env!("CARGO_BIN_EXE_plotsieve");
+    let trial = dir.join("trial.toml");
+    let out = dir.join("run");
+    let mut total = 0.0;
+    println!("as `plotsieve run` runs them (reading and writing the run folder):");
+    for stage in ["ingest", "clean", "plots"] {
+        let (t, mib) = timed(
+            std::process::Command::new(exe)
+                .args(["stage", stage])
+                .arg(&trial)
+                .arg("--out")
+                .arg(&out)
+                .arg("--quiet")
+                .stderr(std::process::Stdio::null()),
+        );
+        total += t;
+        println!("  stage {stage:<7} {t:6.2} s   peak {mib:5.0} MiB");
+    }
+    println!("  ingest + clean + plots {total:.2} s");
 }

@@ -2,6 +2,7 @@
 
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
+use std::sync::Arc;
 
 /// One monitor record after ingest: SI units, projected coordinates.
 #[derive(Clone, Debug, PartialEq)]
@@ -61,18 +62,37 @@ pub struct CleanPoint {
 
 /// A row of a stage's rejection table: what was removed, by which rule, with the value found
 /// and the limit it broke.
-#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+///
+/// The texts that repeat from row to row (file, rule, column, limit) are shared
+/// (`Arc<str>`): a stage may reject a million records, and each row then costs a few
+/// pointers instead of four more strings.
+#[derive(Clone, Debug, Default, PartialEq)]
 pub struct Rejection {
-    pub source_file: String,
+    pub source_file: Arc<str>,
     /// Line number in the source file (header = 1); for plots, the design table's line.
     pub source_row: u64,
     /// Point id (sequence number) or plot id.
     pub id: String,
-    pub rule: String,
+    pub rule: Arc<str>,
     /// The quantity or input column the rule looked at.
-    pub column: String,
+    pub column: Arc<str>,
     pub value: String,
-    pub limit: String,
+    pub limit: Arc<str>,
+}
+
+/// One shared copy of each repeated text (see [`Rejection`]).
+#[derive(Default)]
+pub struct Texts(std::collections::HashMap<String, Arc<str>>);
+
+impl Texts {
+    pub fn get(&mut self, s: &str) -> Arc<str> {
+        if let Some(a) = self.0.get(s) {
+            return a.clone();
+        }
+        let a: Arc<str> = Arc::from(s);
+        self.0.insert(s.to_string(), a.clone());
+        a
+    }
 }
 
 /// Counts of a stage for its `summary.json` and the manifest.
@@ -134,13 +154,18 @@ impl StageSummary {
             kept: count_in - rejections.len() as u64,
             ..Default::default()
         };
+        // Counted on the shared texts, then named.
+        let mut by: BTreeMap<(&str, &str), u64> = BTreeMap::new();
         for r in rejections {
-            *s.by_rule.entry(r.rule.clone()).or_default() += 1;
+            *by.entry((&*r.source_file, &*r.rule)).or_default() += 1;
+        }
+        for ((file, rule), n) in by {
+            *s.by_rule.entry(rule.to_string()).or_default() += n;
             *s.by_file
-                .entry(r.source_file.clone())
+                .entry(file.to_string())
                 .or_default()
-                .entry(r.rule.clone())
-                .or_default() += 1;
+                .entry(rule.to_string())
+                .or_default() += n;
         }
         s
     }

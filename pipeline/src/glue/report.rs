@@ -55,14 +55,14 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     } else {
         io::read_points(&ing.join("points.parquet"), c.epsg()?)?
     };
-    let mut removed: BTreeMap<String, String> = BTreeMap::new();
+    let mut removed: BTreeMap<String, std::sync::Arc<str>> = BTreeMap::new();
     for st in [Stage::Clean, Stage::Plots] {
         for r in io::read_table::<Rejection>(
             &out.join(st.dir()).join("rejected.csv"),
             &shown,
             "rerun its stage",
         )? {
-            if !r.id.is_empty() && r.source_file != cfg.design_name() {
+            if !r.id.is_empty() && *r.source_file != *cfg.design_name() {
                 removed.entry(r.id).or_insert(r.rule);
             }
         }
@@ -74,7 +74,10 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             x: p.x_m,
             y: p.y_m,
             yield_unit: unit.to_unit(clean::record_yield_kg_ha(p, crop)),
-            rule: removed.get(&p.id.to_string()).cloned().unwrap_or_default(),
+            rule: removed
+                .get(&p.id.to_string())
+                .map(|r| r.to_string())
+                .unwrap_or_default(),
         })
         .collect();
     let polygons = if c.table_entry() {

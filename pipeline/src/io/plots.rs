@@ -8,7 +8,56 @@ use anyhow::Result;
 use plotsieve_stages::crop::YieldUnit;
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::table::PlotPolygon;
+use serde::ser::{Error as _, SerializeMap, SerializeSeq};
+use std::cell::RefCell;
 use std::path::Path;
+
+/// A GeoJSON FeatureCollection whose features are made one at a time while it is written
+/// (a whole layer as one JSON tree took several times the file's size in memory). Keys come
+/// in the sorted order a JSON tree of the same content writes them in, so the bytes are
+/// the same.
+struct Collection<I> {
+    crs: Option<serde_json::Value>,
+    features: RefCell<Option<I>>,
+}
+
+struct Features<'a, I>(&'a RefCell<Option<I>>);
+
+impl<I: Iterator<Item = Result<serde_json::Value>>> serde::Serialize for Features<'_, I> {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        let mut seq = s.serialize_seq(None)?;
+        for f in self.0.borrow_mut().take().into_iter().flatten() {
+            seq.serialize_element(&f.map_err(|e| S::Error::custom(format!("{e:#}")))?)?;
+        }
+        seq.end()
+    }
+}
+
+impl<I: Iterator<Item = Result<serde_json::Value>>> serde::Serialize for Collection<I> {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        let mut m = s.serialize_map(None)?;
+        if let Some(crs) = &self.crs {
+            m.serialize_entry("crs", crs)?;
+        }
+        m.serialize_entry("features", &Features(&self.features))?;
+        m.serialize_entry("type", "FeatureCollection")?;
+        m.end()
+    }
+}
+
+fn write_collection(
+    path: &Path,
+    crs: Option<serde_json::Value>,
+    features: impl Iterator<Item = Result<serde_json::Value>>,
+) -> Result<()> {
+    write_json(
+        path,
+        &Collection {
+            crs,
+            features: RefCell::new(Some(features)),
+        },
+    )
+}
 
 /// Projected plot polygons as GeoJSON with the EPSG code as a named CRS (the 2008 GeoJSON
 /// form; RFC 7946 readers that want lon/lat should use the input file instead).
@@ -18,21 +67,16 @@ pub fn write_projected_plots(path: &Path, polys: &[PlotPolygon], epsg: u32) -> R
             .map(|(x, y)| serde_json::json!([(x * 1e4).round() / 1e4, (y * 1e4).round() / 1e4]))
             .collect()
     };
-    let features: Vec<serde_json::Value> = polys
-        .iter()
-        .map(|p| {
-            let mut rings = vec![r(&p.exterior)];
-            rings.extend(p.holes.iter().map(|h| r(h)));
+    let features = polys.iter().map(|p| {
+        let mut rings = vec![r(&p.exterior)];
+        rings.extend(p.holes.iter().map(|h| r(h)));
+        Ok(
             serde_json::json!({"type": "Feature", "properties": {"plot_id": p.plot_id},
-                "geometry": {"type": "Polygon", "coordinates": rings}})
-        })
-        .collect();
-    let v = serde_json::json!({
-        "type": "FeatureCollection",
-        "crs": {"type": "name", "properties": {"name": format!("urn:ogc:def:crs:EPSG::{epsg}")}},
-        "features": features,
+                "geometry": {"type": "Polygon", "coordinates": rings}}),
+        )
     });
-    write_json(path, &v)
+    let crs = serde_json::json!({"type": "name", "properties": {"name": format!("urn:ogc:def:crs:EPSG::{epsg}")}});
+    write_collection(path, Some(crs), features)
 }
 
 /// The plot's statistics as GeoJSON properties (same names as `plots.csv`).
@@ -67,8 +111,7 @@ pub fn write_plots_wgs84<'a>(
         ),
     >,
 ) -> Result<()> {
-    let mut features = Vec::new();
-    for (id, ring, mut props) in items {
+    let features = items.map(|(id, ring, mut props)| {
         let mut ll: Vec<(f64, f64)> = ring
             .iter()
             .map(|&(x, y)| utm.inverse(x, y))
@@ -88,11 +131,8 @@ pub fn write_plots_wgs84<'a>(
             .iter()
             .map(|(x, y)| serde_json::json!([(x * 1e8).round() / 1e8, (y * 1e8).round() / 1e8]))
             .collect();
-        features.push(serde_json::json!({"type": "Feature", "properties": props,
-            "geometry": {"type": "Polygon", "coordinates": [coords]}}));
-    }
-    write_json(
-        path,
-        &serde_json::json!({"type": "FeatureCollection", "features": features}),
-    )
+        Ok(serde_json::json!({"type": "Feature", "properties": props,
+            "geometry": {"type": "Polygon", "coordinates": [coords]}}))
+    });
+    write_collection(path, None, features)
 }

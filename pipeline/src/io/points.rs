@@ -110,101 +110,126 @@ fn read_df(path: &Path, upstream: &str) -> Result<DataFrame> {
         .with_context(|| format!("reading {}", path.display()))
 }
 
-fn col_f64(df: &DataFrame, name: &str, path: &Path) -> Result<Vec<f64>> {
-    let c = df
-        .column(name)
-        .with_context(|| format!("{}: no column {name}", path.display()))?;
+/// Take a column out of the frame (its memory goes as soon as it has been copied).
+fn take(df: &mut DataFrame, name: &str, path: &Path) -> Result<Column> {
+    df.drop_in_place(name)
+        .with_context(|| format!("{}: no column {name}", path.display()))
+}
+
+/// Copy an f64 column into the rows (missing values as NaN), then drop it.
+fn fill_f64<T>(
+    df: &mut DataFrame,
+    name: &str,
+    path: &Path,
+    rows: &mut [T],
+    set: impl Fn(&mut T, f64),
+) -> Result<()> {
+    let c = take(df, name, path)?;
     let ca = c
         .f64()
         .with_context(|| format!("{}: column {name} is not f64", path.display()))?;
-    Ok(ca.iter().map(|v| v.unwrap_or(f64::NAN)).collect())
+    for (r, v) in rows.iter_mut().zip(ca.iter()) {
+        set(r, v.unwrap_or(f64::NAN));
+    }
+    Ok(())
 }
 
-fn col_u64(df: &DataFrame, name: &str, path: &Path) -> Result<Vec<u64>> {
-    let c = df
-        .column(name)
-        .with_context(|| format!("{}: no column {name}", path.display()))?;
+fn col_u64(df: &mut DataFrame, name: &str, path: &Path) -> Result<Vec<u64>> {
+    let c = take(df, name, path)?;
     let ca = c
         .u64()
         .with_context(|| format!("{}: column {name} is not u64", path.display()))?;
     Ok(ca.iter().map(|v| v.unwrap_or(0)).collect())
 }
 
-fn col_u32(df: &DataFrame, name: &str, path: &Path) -> Result<Vec<u32>> {
-    let c = df
-        .column(name)
-        .with_context(|| format!("{}: no column {name}", path.display()))?;
+fn col_u32(df: &mut DataFrame, name: &str, path: &Path) -> Result<Vec<u32>> {
+    let c = take(df, name, path)?;
     let ca = c
         .u32()
         .with_context(|| format!("{}: column {name} is not u32", path.display()))?;
     Ok(ca.iter().map(|v| v.unwrap_or(0)).collect())
 }
 
-fn col_str(df: &DataFrame, name: &str, path: &Path) -> Result<Vec<String>> {
-    let c = df
-        .column(name)
-        .with_context(|| format!("{}: no column {name}", path.display()))?;
-    let ca = c
-        .str()
-        .with_context(|| format!("{}: column {name} is not text", path.display()))?;
-    Ok(ca.iter().map(|v| v.unwrap_or("").to_string()).collect())
-}
-
-fn read_base(df: &DataFrame, path: &Path, epsg: u32) -> Result<PointSet> {
-    let names = col_str(df, "source_file", path)?;
+/// The point columns of the frame into `rows` (one per frame row, made by `new`), each
+/// column dropped from the frame once copied; returns the file names by index.
+fn read_base<T>(
+    df: &mut DataFrame,
+    path: &Path,
+    new: impl Fn(Point) -> T,
+    base: fn(&mut T) -> &mut Point,
+) -> Result<(Vec<String>, Vec<T>)> {
     let idx = col_u32(df, "file_index", path)?;
     let mut files: Vec<String> = Vec::new();
-    for (i, n) in idx.iter().zip(&names) {
-        let i = *i as usize;
-        if files.len() <= i {
-            files.resize(i + 1, String::new());
+    {
+        let c = take(df, "source_file", path)?;
+        let names = c
+            .str()
+            .with_context(|| format!("{}: column source_file is not text", path.display()))?;
+        for (i, n) in idx.iter().zip(names.iter()) {
+            let i = *i as usize;
+            if files.len() <= i {
+                files.resize(i + 1, String::new());
+            }
+            if files[i] != n.unwrap_or("") {
+                files[i] = n.unwrap_or("").to_string();
+            }
         }
-        files[i] = n.clone();
     }
     let id = col_u64(df, "point_id", path)?;
     let row = col_u64(df, "source_row", path)?;
-    let cols: Vec<Vec<f64>> = [
-        "time_s",
-        "lon_deg",
-        "lat_deg",
-        "x_m",
-        "y_m",
-        "flow_kg_s",
-        "speed_m_s",
-        "width_m",
-        "moisture_pct",
-        "work_state",
-        "hdop",
-        "fix_quality",
-    ]
-    .iter()
-    .map(|c| col_f64(df, c, path))
-    .collect::<Result<_>>()?;
-    let given = if df.column("yield_given_kg_ha").is_ok() {
-        col_f64(df, "yield_given_kg_ha", path)?
-    } else {
-        vec![f64::NAN; df.height()]
-    };
-    let points = (0..df.height())
-        .map(|i| Point {
-            id: id[i],
-            file: idx[i],
-            row: row[i],
-            time_s: cols[0][i],
-            lon: cols[1][i],
-            lat: cols[2][i],
-            x_m: cols[3][i],
-            y_m: cols[4][i],
-            flow_kg_s: cols[5][i],
-            speed_m_s: cols[6][i],
-            width_m: cols[7][i],
-            moisture_pct: cols[8][i],
-            work_state: cols[9][i],
-            hdop: cols[10][i],
-            fix_quality: cols[11][i],
-            yield_kg_ha: given[i],
+    let mut rows: Vec<T> = (0..idx.len())
+        .map(|i| {
+            new(Point {
+                id: id[i],
+                file: idx[i],
+                row: row[i],
+                time_s: f64::NAN,
+                lon: f64::NAN,
+                lat: f64::NAN,
+                x_m: f64::NAN,
+                y_m: f64::NAN,
+                flow_kg_s: f64::NAN,
+                speed_m_s: f64::NAN,
+                width_m: f64::NAN,
+                moisture_pct: f64::NAN,
+                work_state: f64::NAN,
+                hdop: f64::NAN,
+                fix_quality: f64::NAN,
+                yield_kg_ha: f64::NAN,
+            })
         })
         .collect();
+    drop((id, row, idx));
+    let fields: [(&str, fn(&mut Point, f64)); 12] = [
+        ("time_s", |p, v| p.time_s = v),
+        ("lon_deg", |p, v| p.lon = v),
+        ("lat_deg", |p, v| p.lat = v),
+        ("x_m", |p, v| p.x_m = v),
+        ("y_m", |p, v| p.y_m = v),
+        ("flow_kg_s", |p, v| p.flow_kg_s = v),
+        ("speed_m_s", |p, v| p.speed_m_s = v),
+        ("width_m", |p, v| p.width_m = v),
+        ("moisture_pct", |p, v| p.moisture_pct = v),
+        ("work_state", |p, v| p.work_state = v),
+        ("hdop", |p, v| p.hdop = v),
+        ("fix_quality", |p, v| p.fix_quality = v),
+    ];
+    for (name, set) in fields {
+        fill_f64(df, name, path, &mut rows, |r, v| set(base(r), v))?;
+    }
+    // Yields given by a yield-point export (the column only where there are some).
+    if df.column("yield_given_kg_ha").is_ok() {
+        fill_f64(df, "yield_given_kg_ha", path, &mut rows, |r, v| {
+            base(r).yield_kg_ha = v
+        })?;
+    }
+    Ok((files, rows))
+}
+
+/// Read ingest's points back.
+pub fn read_points(path: &Path, epsg: u32) -> Result<PointSet> {
+    let mut df = read_df(path, "ingest")?;
+    let (files, points) = read_base(&mut df, path, |p| p, |p| p)?;
     Ok(PointSet {
         files,
         points,
@@ -212,38 +237,34 @@ fn read_base(df: &DataFrame, path: &Path, epsg: u32) -> Result<PointSet> {
     })
 }
 
-/// Read ingest's points back.
-pub fn read_points(path: &Path, epsg: u32) -> Result<PointSet> {
-    let df = read_df(path, "ingest")?;
-    read_base(&df, path, epsg)
-}
-
 /// Read clean's points back.
 pub fn read_clean_points(path: &Path) -> Result<(Vec<String>, Vec<CleanPoint>)> {
-    let df = read_df(path, "clean")?;
-    let set = read_base(&df, path, 0)?;
-    let pass = col_u32(&df, "pass", path)?;
-    let v: Vec<Vec<f64>> = [
-        "flow_shifted_kg_s",
-        "moisture_shifted_pct",
-        "yield_wet_kg_ha",
-        "yield_std_kg_ha",
-    ]
-    .iter()
-    .map(|c| col_f64(&df, c, path))
-    .collect::<Result<_>>()?;
-    let pts = set
-        .points
-        .into_iter()
-        .enumerate()
-        .map(|(i, base)| CleanPoint {
+    let mut df = read_df(path, "clean")?;
+    let (files, mut pts) = read_base(
+        &mut df,
+        path,
+        |base| CleanPoint {
             base,
-            pass: pass[i],
-            flow_shifted_kg_s: v[0][i],
-            moisture_shifted_pct: v[1][i],
-            yield_wet_kg_ha: v[2][i],
-            yield_std_kg_ha: v[3][i],
-        })
-        .collect();
-    Ok((set.files, pts))
+            pass: 0,
+            flow_shifted_kg_s: f64::NAN,
+            moisture_shifted_pct: f64::NAN,
+            yield_wet_kg_ha: f64::NAN,
+            yield_std_kg_ha: f64::NAN,
+        },
+        |p| &mut p.base,
+    )?;
+    let pass = col_u32(&mut df, "pass", path)?;
+    for (p, v) in pts.iter_mut().zip(pass) {
+        p.pass = v;
+    }
+    let fields: [(&str, fn(&mut CleanPoint, f64)); 4] = [
+        ("flow_shifted_kg_s", |p, v| p.flow_shifted_kg_s = v),
+        ("moisture_shifted_pct", |p, v| p.moisture_shifted_pct = v),
+        ("yield_wet_kg_ha", |p, v| p.yield_wet_kg_ha = v),
+        ("yield_std_kg_ha", |p, v| p.yield_std_kg_ha = v),
+    ];
+    for (name, set) in fields {
+        fill_f64(&mut df, name, path, &mut pts, set)?;
+    }
+    Ok((files, pts))
 }

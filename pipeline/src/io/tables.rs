@@ -13,9 +13,9 @@ macro_rules! text {
     ($name:expr, $field:ident) => {
         col(
             $name,
-            |r: &Self| r.$field.clone(),
+            |r: &Self| r.$field.to_string(),
             |r: &mut Self, v: &str| {
-                r.$field = v.to_string();
+                r.$field = v.into();
                 Ok(())
             },
         )

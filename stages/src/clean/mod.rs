@@ -295,22 +295,29 @@ pub fn run_with(
             (*f, w, d)
         })
         .collect();
-    let mut kept: Vec<CleanPoint> = Vec::new();
-    let mut rejections: Vec<Rejection> = Vec::new();
+    // Sized once: the kept points are the largest table of the stage.
+    let n_kept: usize = results
+        .iter()
+        .map(|r| r.1.iter().filter(|w| w.alive()).count())
+        .sum();
+    let mut kept: Vec<CleanPoint> = Vec::with_capacity(n_kept);
+    let mut rejections: Vec<Rejection> = Vec::with_capacity(points.points.len() - n_kept);
+    let mut texts = crate::table::Texts::default();
     let mut details = BTreeMap::new();
     for (file, w, d) in results {
         let fname = &points.files[file as usize];
+        let source_file = texts.get(fname);
         details.insert(fname.clone(), d);
         for wi in w {
             match wi.rejected {
                 Some((rule, column, value, limit)) => rejections.push(Rejection {
-                    source_file: fname.clone(),
+                    source_file: source_file.clone(),
                     source_row: wi.p.row,
                     id: wi.p.id.to_string(),
-                    rule: rule.to_string(),
-                    column: column.to_string(),
+                    rule: texts.get(rule),
+                    column: texts.get(column),
                     value: format!("{value:.3}"),
-                    limit,
+                    limit: texts.get(&limit),
                 }),
                 None => kept.push(CleanPoint {
                     base: wi.p.clone(),
@@ -324,9 +331,8 @@ pub fn run_with(
         }
     }
     kept.sort_by_key(|p| p.base.id);
-    rejections.sort_by(|a, b| {
-        (a.source_file.as_str(), a.source_row).cmp(&(b.source_file.as_str(), b.source_row))
-    });
+    rejections
+        .sort_by(|a, b| (&*a.source_file, a.source_row).cmp(&(&*b.source_file, b.source_row)));
     let mut summary =
         StageSummary::from_rejections("clean", "points", points.points.len() as u64, &rejections);
     summary.details.insert(

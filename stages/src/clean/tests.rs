@@ -45,7 +45,7 @@ fn rule_of(out: &CleanOutput, id: u64) -> Option<String> {
     out.rejections
         .iter()
         .find(|r| r.id == id.to_string())
-        .map(|r| r.rule.clone())
+        .map(|r| r.rule.to_string())
 }
 
 fn line(n: usize, speed: f64, heading_east: bool, t0: f64, x0: f64) -> Vec<Point> {
@@ -190,7 +190,7 @@ fn more_rules_by_hand() {
         p.moisture_pct = 16.0;
     }
     let out = run(&set(pts2), &off, &crop);
-    assert!(out.rejections.iter().all(|r| r.rule != "moisture_stuck"));
+    assert!(out.rejections.iter().all(|r| &*r.rule != "moisture_stuck"));
 }
 
 #[test]

@@ -211,8 +211,8 @@ fn unread_exports(
     let mut out = Vec::new();
     for (_, name) in names.iter().enumerate().filter(|(i, _)| read[*i] == 0) {
         let mut by: std::collections::BTreeMap<&str, u64> = Default::default();
-        for r in rejections.iter().filter(|r| &r.source_file == name) {
-            *by.entry(r.rule.as_str()).or_default() += 1;
+        for r in rejections.iter().filter(|r| *r.source_file == **name) {
+            *by.entry(&*r.rule).or_default() += 1;
         }
         let n: u64 = by.values().sum();
         let why: Vec<String> = by.iter().map(|(r, k)| format!("{r}: {k}")).collect();

@@ -523,7 +523,7 @@ mod tests {
         let rules: Vec<(&str, u64, &str)> = t
             .rejections
             .iter()
-            .map(|r| (r.rule.as_str(), r.source_row, r.column.as_str()))
+            .map(|r| (&*r.rule, r.source_row, &*r.column))
             .collect();
         assert_eq!(
             rules,

@@ -187,23 +187,12 @@ fn ranks(values: &[f64], gap: f64) -> Vec<u32> {
     out
 }
 
-fn point_rejection(
-    p: &CleanPoint,
-    files: &[String],
-    rule: &str,
-    column: &str,
+/// Why a point was removed, before its texts are shared ([`crate::table::Texts`]).
+struct PointVerdict {
+    rule: &'static str,
+    column: &'static str,
     value: String,
     limit: String,
-) -> Rejection {
-    Rejection {
-        source_file: files[p.base.file as usize].clone(),
-        source_row: p.base.row,
-        id: p.base.id.to_string(),
-        rule: rule.into(),
-        column: column.into(),
-        value,
-        limit,
-    }
 }
 
 /// Run the plots stage.
@@ -301,19 +290,26 @@ pub fn run(
         };
         footprint[i] = oriented_rect(p.x_m, p.y_m, ux, uy, travel.max(0.1), p.width_m);
     }
-    // Each point's plot, or the rule it breaks (points in parallel, taken in order).
+    // Each point's plot, or the rule it breaks (points in parallel, taken in order; a
+    // rejection boxed, so that the list stays small when most points join a plot).
     enum Joined {
         Plot(usize),
-        Rejected(Rejection),
+        Rejected(Box<PointVerdict>),
     }
     let joined: Vec<Joined> = points
         .par_iter()
         .enumerate()
         .map(|(i, p)| {
             let (x, y) = (p.base.x_m, p.base.y_m);
-            let reject = |rule: &str, column: &str, value: String, limit: String| {
-                Joined::Rejected(point_rejection(p, files, rule, column, value, limit))
-            };
+            let reject =
+                |rule: &'static str, column: &'static str, value: String, limit: String| {
+                    Joined::Rejected(Box::new(PointVerdict {
+                        rule,
+                        column,
+                        value,
+                        limit,
+                    }))
+                };
             let Some(k) = locate(&tree, &polys, x, y) else {
                 let near = tree
                     .nearest_neighbor(&[x, y])
@@ -374,9 +370,22 @@ pub fn run(
     let mut members: Vec<Vec<usize>> = vec![Vec::new(); polys.len()];
     // Points per (export, plot), gathered into exports and fields below.
     let mut per_export_plot: HashMap<(u32, usize), u64> = HashMap::new();
+    let mut texts = crate::table::Texts::default();
+    let file_texts: Vec<_> = files.iter().map(|f| texts.get(f)).collect();
     for (i, j) in joined.into_iter().enumerate() {
         match j {
-            Joined::Rejected(r) => rejections.push(r),
+            Joined::Rejected(v) => {
+                let p = &points[i].base;
+                rejections.push(Rejection {
+                    source_file: file_texts[p.file as usize].clone(),
+                    source_row: p.row,
+                    id: p.id.to_string(),
+                    rule: texts.get(v.rule),
+                    column: texts.get(v.column),
+                    value: v.value,
+                    limit: texts.get(&v.limit),
+                });
+            }
             Joined::Plot(k) => {
                 assignment.push((i, k));
                 members[k].push(i);
@@ -515,13 +524,13 @@ pub fn run(
                 plot_counts.set_aside += 1;
                 *plot_counts.by_rule.entry(rule.to_string()).or_default() += 1;
                 rejections.push(Rejection {
-                    source_file: design_file.to_string(),
+                    source_file: texts.get(design_file),
                     source_row: d.row,
                     id: d.plot_id.clone(),
-                    rule: rule.to_string(),
-                    column: column.to_string(),
+                    rule: texts.get(rule),
+                    column: texts.get(column),
                     value: value.clone(),
-                    limit: limit.clone(),
+                    limit: texts.get(limit),
                 });
             }
             None => plot_counts.kept += 1,

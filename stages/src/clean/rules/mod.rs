@@ -336,7 +336,7 @@ pub(crate) mod testing {
                     super::RULES
                         .iter()
                         .map(|x| x.name())
-                        .find(|x| *x == r.rule)
+                        .find(|x| **x == *r.rule)
                         .expect("a known rule")
                 })
             })

@@ -155,13 +155,13 @@ pub(crate) fn reject(
     limit: &str,
 ) -> Rejection {
     Rejection {
-        source_file: file.to_string(),
+        source_file: file.into(),
         source_row: row,
         id: format!("line {row}"),
-        rule: rule.to_string(),
-        column: column.to_string(),
+        rule: rule.into(),
+        column: column.into(),
         value: value.to_string(),
-        limit: limit.to_string(),
+        limit: limit.into(),
     }
 }
 
