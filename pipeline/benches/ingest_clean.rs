@@ -127,6 +127,12 @@ fn measure(dir: &Path) {
 fn main() {
     let args: Vec<String> = std::env::args().collect();
     if let Some(i) = args.iter().position(|a| a == "--measure") {
+        // The allocator setting plotsieve's main makes (see pipeline/src/main.rs).
+        #[cfg(all(target_os = "linux", target_env = "gnu"))]
+        // SAFETY: an allocator setting, made before any thread is started.
+        unsafe {
+            libc::mallopt(libc::M_MMAP_THRESHOLD, 1 << 20);
+        }
         measure(Path::new(&args[i + 1]));
         return;
     }

@@ -144,6 +144,16 @@ fn main() -> ExitCode {
     unsafe {
         libc::signal(libc::SIGPIPE, libc::SIG_DFL);
     }
+    // glibc's allocator raises its threshold for giving blocks their own mapping as large
+    // blocks are freed, so the per-export work tables of the parallel stages end up in the
+    // threads' heaps and stay resident after they are freed (measured: about 400 MB of the
+    // clean stage's 1.1 GB on a 2 M-point harvest). A fixed threshold of 1 MiB returns such
+    // blocks to the system when they are freed; results do not depend on it.
+    #[cfg(all(target_os = "linux", target_env = "gnu"))]
+    // SAFETY: an allocator setting, made before any thread is started.
+    unsafe {
+        libc::mallopt(libc::M_MMAP_THRESHOLD, 1 << 20);
+    }
     let cli = Cli::parse();
     let result = match cli.command {
         Command::Run { trial, out, set } => run::run_all(&trial, out, &set, cli.quiet),

@@ -41,6 +41,9 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let design = io::read_table(&ing.join("design.csv"), &unit, "run stage ingest first")?;
     let zones = clean::zones::Zones::new(&polygons, &design);
     let o = clean::run_with(&pts, &cfg.clean, crop, Some(&zones), progress);
+    // The kept points carry their records: the records read back are no longer needed.
+    let files = pts.files;
+    drop(pts.points);
     let y: Vec<f64> = o
         .points
         .iter()
@@ -49,7 +52,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let col = format!("yield_{}", unit.suffix());
     io::write_clean_points(
         &dir.join("points.parquet"),
-        &pts.files,
+        &files,
         &o.points,
         Some((&col, y)),
         None,

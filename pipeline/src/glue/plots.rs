@@ -43,6 +43,8 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         &cfg.plots,
     );
     let kept: Vec<_> = o.assignment.iter().map(|&(i, _)| pts[i].clone()).collect();
+    // The points kept in plots are copied out: the rest are no longer needed.
+    drop(pts);
     let ids: Vec<&str> = o
         .assignment
         .iter()

@@ -22,18 +22,38 @@ use std::path::Path;
 
 /// Write bytes atomically: temporary file in the same folder, flushed, then renamed.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
+    write_atomic_with(path, |f| {
+        f.write_all(bytes)?;
+        Ok(())
+    })
+}
+
+/// [`write_atomic`] for a writer that streams its output (nothing held whole in memory):
+/// `write` fills the temporary file; on an error the temporary file is removed.
+pub fn write_atomic_with(
+    path: &Path,
+    write: impl FnOnce(&mut std::io::BufWriter<std::fs::File>) -> Result<()>,
+) -> Result<()> {
     let dir = path
         .parent()
         .ok_or_else(|| anyhow!("{} has no parent folder", path.display()))?;
     std::fs::create_dir_all(dir).with_context(|| format!("creating {}", dir.display()))?;
     let name = path.file_name().and_then(|n| n.to_str()).unwrap_or("out");
     let tmp = dir.join(format!(".{name}.{}.tmp", std::process::id()));
-    {
-        let mut f =
+    let written = (|| -> Result<()> {
+        let f =
             std::fs::File::create(&tmp).with_context(|| format!("creating {}", tmp.display()))?;
-        f.write_all(bytes)
-            .with_context(|| format!("writing {}", tmp.display()))?;
+        let mut w = std::io::BufWriter::with_capacity(1 << 20, f);
+        write(&mut w).with_context(|| format!("writing {}", tmp.display()))?;
+        let f = w
+            .into_inner()
+            .map_err(|e| anyhow!("writing {}: {}", tmp.display(), e.error()))?;
         f.sync_all().ok();
+        Ok(())
+    })();
+    if let Err(e) = written {
+        let _ = std::fs::remove_file(&tmp);
+        return Err(e);
     }
     std::fs::rename(&tmp, path)
         .with_context(|| format!("renaming {} to {}", tmp.display(), path.display()))?;

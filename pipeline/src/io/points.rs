@@ -2,7 +2,7 @@
 //! `2-clean/` and `3-plots/points.parquet` (clean points with what clean derived, the yield in
 //! the output unit and, for plots, the plot id).
 
-use super::write_atomic;
+use super::write_atomic_with;
 use anyhow::{Context, Result};
 use plotsieve_stages::table::{CleanPoint, Point, PointSet};
 use polars::prelude::{
@@ -13,12 +13,13 @@ use std::path::Path;
 fn write_parquet(path: &Path, columns: Vec<Column>) -> Result<()> {
     let height = columns.first().map(|c| c.len()).unwrap_or(0);
     let mut df = DataFrame::new(height, columns)?;
-    let mut buf = Vec::new();
-    ParquetWriter::new(&mut buf)
-        .with_compression(ParquetCompression::Zstd(None))
-        .set_parallel(false)
-        .finish(&mut df)?;
-    write_atomic(path, &buf)
+    write_atomic_with(path, |w| {
+        ParquetWriter::new(w)
+            .with_compression(ParquetCompression::Zstd(None))
+            .set_parallel(false)
+            .finish(&mut df)?;
+        Ok(())
+    })
 }
 
 fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point> + Clone) -> Vec<Column> {

@@ -309,7 +309,7 @@ pub fn run_with(
         let source_file = texts.get(fname);
         details.insert(fname.clone(), d);
         for wi in w {
-            match wi.rejected {
+            match wi.rejected.map(|v| *v) {
                 Some((rule, column, value, limit)) => rejections.push(Rejection {
                     source_file: source_file.clone(),
                     source_row: wi.p.row,
@@ -330,7 +330,8 @@ pub fn run_with(
             }
         }
     }
-    kept.sort_by_key(|p| p.base.id);
+    // Point ids are unique: an in-place sort gives the same order as a stable one.
+    kept.sort_unstable_by_key(|p| p.base.id);
     rejections
         .sort_by(|a, b| (&*a.source_file, a.source_row).cmp(&(&*b.source_file, b.source_row)));
     let mut summary =

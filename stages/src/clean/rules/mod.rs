@@ -145,7 +145,8 @@ pub struct Work<'a> {
     pub no_shift_data_at: Option<f64>,
     pub wet: f64,
     pub std: f64,
-    pub rejected: Option<Verdict>,
+    /// Boxed: most points are kept, and the work table holds every record of an export.
+    pub rejected: Option<Box<Verdict>>,
     /// The treatment zone the record lies in ([`crate::clean::zones`]; all
     /// [`crate::clean::zones::OUTSIDE`] while the plots are not known).
     pub zone: u32,
@@ -225,7 +226,7 @@ impl Export<'_> {
     ) {
         let w = &mut self.w[i];
         if w.rejected.is_none() {
-            w.rejected = Some((rule, column, value, limit));
+            w.rejected = Some(Box::new((rule, column, value, limit)));
         }
     }
 
