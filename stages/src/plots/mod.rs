@@ -39,6 +39,7 @@ use rstar::primitives::{GeomWithData, Rectangle};
 use rstar::{PointDistance, RTree};
 pub use settings::PlotsSettings;
 use std::collections::{BTreeMap, HashMap};
+use std::sync::Arc;
 
 /// Statistics of one plot.
 #[derive(Clone, Debug, Default, PartialEq)]
@@ -187,12 +188,13 @@ fn ranks(values: &[f64], gap: f64) -> Vec<u32> {
     out
 }
 
-/// Why a point was removed, before its texts are shared ([`crate::table::Texts`]).
+/// Why a point was removed: the rule's texts are shared ([`crate::table::Texts`]), the
+/// value is the point's own.
 struct PointVerdict {
     rule: &'static str,
     column: &'static str,
     value: String,
-    limit: String,
+    limit: Arc<str>,
 }
 
 /// Run the plots stage.
@@ -296,18 +298,28 @@ pub fn run(
         Plot(usize),
         Rejected(Box<PointVerdict>),
     }
+    // The limits each rule names, made once and shared by every point it removes.
+    let mut texts = crate::table::Texts::default();
+    let far_limit = texts.get(&format!("within {} m of a plot", s.far_m));
+    let outside_limit = texts.get("inside a plot polygon");
+    let small_limit = texts.get("plot too small for its trims");
+    let trim_limit = texts.get(&format!(
+        "inside the net plot (end trim {} m, side trim {} m)",
+        s.end_trim_m, s.side_trim_m
+    ));
+    let straddle_limit = texts.get(&format!(">= {}", s.min_swath_inside));
     let joined: Vec<Joined> = points
         .par_iter()
         .enumerate()
         .map(|(i, p)| {
             let (x, y) = (p.base.x_m, p.base.y_m);
             let reject =
-                |rule: &'static str, column: &'static str, value: String, limit: String| {
+                |rule: &'static str, column: &'static str, value: String, limit: &Arc<str>| {
                     Joined::Rejected(Box::new(PointVerdict {
                         rule,
                         column,
                         value,
-                        limit,
+                        limit: limit.clone(),
                     }))
                 };
             let Some(k) = locate(&tree, &polys, x, y) else {
@@ -316,9 +328,9 @@ pub fn run(
                     .map(|g| g.geom().distance_2(&[x, y]).sqrt())
                     .unwrap_or(f64::INFINITY);
                 let (rule, limit) = if near > s.far_m {
-                    ("far_from_trial", format!("within {} m of a plot", s.far_m))
+                    ("far_from_trial", &far_limit)
                 } else {
-                    ("outside_plots", "inside a plot polygon".to_string())
+                    ("outside_plots", &outside_limit)
                 };
                 return reject(
                     rule,
@@ -332,7 +344,7 @@ pub fn run(
                     "border_trim",
                     "x_m,y_m",
                     format!("{x:.2},{y:.2}"),
-                    "plot too small for its trims".into(),
+                    &small_limit,
                 );
             };
             if !net.contains(&geo::Point::new(x, y)) {
@@ -340,10 +352,7 @@ pub fn run(
                     "border_trim",
                     "x_m,y_m",
                     format!("{x:.2},{y:.2}"),
-                    format!(
-                        "inside the net plot (end trim {} m, side trim {} m)",
-                        s.end_trim_m, s.side_trim_m
-                    ),
+                    &trim_limit,
                 );
             }
             let fp = &footprint[i];
@@ -359,7 +368,7 @@ pub fn run(
                     "swath_straddle",
                     "footprint_inside_fraction",
                     format!("{inside:.3}"),
-                    format!(">= {}", s.min_swath_inside),
+                    &straddle_limit,
                 );
             }
             Joined::Plot(k)
@@ -370,7 +379,6 @@ pub fn run(
     let mut members: Vec<Vec<usize>> = vec![Vec::new(); polys.len()];
     // Points per (export, plot), gathered into exports and fields below.
     let mut per_export_plot: HashMap<(u32, usize), u64> = HashMap::new();
-    let mut texts = crate::table::Texts::default();
     let file_texts: Vec<_> = files.iter().map(|f| texts.get(f)).collect();
     for (i, j) in joined.into_iter().enumerate() {
         match j {
@@ -383,7 +391,7 @@ pub fn run(
                     rule: texts.get(v.rule),
                     column: texts.get(v.column),
                     value: v.value,
-                    limit: texts.get(&v.limit),
+                    limit: v.limit,
                 });
             }
             Joined::Plot(k) => {
