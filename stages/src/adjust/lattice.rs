@@ -89,7 +89,20 @@ pub(crate) fn scan_own(m: &mut FieldModel, s: &FitSettings) -> Lattice {
             })
             .collect()
     };
-    lattice(dims, bounds, rho0, s.range_grid_points, &mut masses)
+    let lat = lattice(dims, bounds, rho0, s.range_grid_points, &mut masses);
+    release_unused(m, &lat.keys);
+    lat
+}
+
+/// Frees the spectral forms of the nodes the integration does not use (coarse nodes outside
+/// the refined box): every later step reads only `Lattice::keys`, and a form of an exact
+/// kernel holds an n x n matrix.
+fn release_unused(m: &mut FieldModel, keys: &[(i64, i64)]) {
+    for (k, node) in m.nodes.iter_mut() {
+        if !keys.contains(k) {
+            node.repr = None;
+        }
+    }
 }
 
 /// Scans all fields on one shared lattice of length scales.
@@ -131,7 +144,11 @@ pub(crate) fn scan_shared(models: &mut [FieldModel], s: &FitSettings) -> Lattice
             })
             .collect()
     };
-    lattice(dims, bounds, rho0, s.range_grid_points, &mut masses)
+    let lat = lattice(dims, bounds, rho0, s.range_grid_points, &mut masses);
+    for m in models.iter_mut() {
+        release_unused(m, &lat.keys);
+    }
+    lat
 }
 
 /// The refined length-scale lattice (`field::range_lattice`) as a [`Lattice`].

@@ -104,19 +104,82 @@ fn transposed(ux: &Mat<f64>, p: usize) -> Vec<f64> {
     (0..p * r).map(|k| ux[(k % r, k / r)]).collect()
 }
 
+/// Runs `f` on this thread's n x n scratch matrix (made once per thread and size: an exact
+/// kernel matrix is built for every length scale of every field).
+fn with_kernel_buffer<R>(n: usize, f: impl FnOnce(&mut Mat<f64>) -> R) -> R {
+    use std::cell::RefCell;
+    thread_local! {
+        static KERNEL: RefCell<Mat<f64>> = RefCell::new(Mat::new());
+    }
+    KERNEL.with(|cell| {
+        let mut m = cell.borrow_mut();
+        if m.nrows() != n {
+            *m = Mat::zeros(n, n);
+        }
+        f(&mut m)
+    })
+}
+
+/// The symmetric eigendecomposition of `a` from its lower triangle, as faer's
+/// `self_adjoint_eigen` computes it (same routine, parameters and parallelism), with its
+/// scratch memory kept per thread instead of allocated afresh for every length scale.
+/// Returns U and the eigenvalues clamped at zero.
+fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
+    use faer::dyn_stack::{MemBuffer, MemStack};
+    use faer::linalg::evd;
+    use std::cell::RefCell;
+    thread_local! {
+        static SCRATCH: RefCell<(usize, Option<MemBuffer>)> = const { RefCell::new((0, None)) };
+    }
+    let n = a.nrows();
+    let par = faer::get_global_parallelism();
+    let req = evd::self_adjoint_evd_scratch::<f64>(
+        n,
+        evd::ComputeEigenvectors::Yes,
+        par,
+        Default::default(),
+    );
+    let mut u = Mat::<f64>::zeros(n, n);
+    let mut s = faer::diag::Diag::<f64>::zeros(n);
+    SCRATCH.with(|cell| {
+        let mut cell = cell.borrow_mut();
+        let bytes = req.unaligned_bytes_required();
+        if cell.1.is_none() || cell.0 < bytes {
+            *cell = (bytes, Some(MemBuffer::new(req)));
+        }
+        let buf = cell.1.as_mut().expect("scratch was just made");
+        evd::self_adjoint_evd(
+            a,
+            s.as_mut(),
+            Some(u.as_mut()),
+            par,
+            MemStack::new(buf),
+            Default::default(),
+        )
+        .ok()
+    })?;
+    let sv = s.column_vector();
+    let w = (0..n).map(|i| sv[i].max(0.0)).collect();
+    Some((u, w))
+}
+
 impl Repr {
     /// The exact spectral form of the kernel at length scales `l`.
     pub fn exact(d: &Design, l: (f64, f64)) -> Option<Repr> {
         let n = d.n();
-        let k1 = Mat::from_fn(n, n, |i, j| {
-            let (a, b) = (d.coords[i], d.coords[j]);
-            let h = (((a.0 - b.0) / l.0).powi(2) + ((a.1 - b.1) / l.1).powi(2)).sqrt();
-            d.kernel.cov(h, 1.0, 1.0)
-        });
-        let e = k1.self_adjoint_eigen(Side::Lower).ok()?;
-        let s = e.S().column_vector();
-        let w: Vec<f64> = (0..n).map(|i| s[i].max(0.0)).collect();
-        let u = e.U().to_owned();
+        // The lower triangle only: the eigendecomposition reads no other (the upper one of
+        // the reused matrix keeps whatever an earlier length scale left there).
+        let (u, w) = with_kernel_buffer(n, |k1| {
+            for j in 0..n {
+                let b = d.coords[j];
+                for (i, v) in k1.col_mut(j).iter_mut().enumerate().skip(j) {
+                    let a = d.coords[i];
+                    let h = (((a.0 - b.0) / l.0).powi(2) + ((a.1 - b.1) / l.1).powi(2)).sqrt();
+                    *v = d.kernel.cov(h, 1.0, 1.0);
+                }
+            }
+            eigen_lower(k1.as_ref())
+        })?;
         let y = Mat::from_fn(n, 1, |i, _| d.y[i]);
         let uy_m = u.transpose() * &y;
         let ux_m = u.transpose() * d.x_mat();
@@ -441,20 +504,15 @@ impl Repr {
             p,
             mean,
             cond_var: {
-                // U row by row (U is stored by columns), summed in the same order.
-                let mut rows = vec![0.0; n * r];
-                for k in 0..r {
-                    for (i, v) in u.col(k).iter().enumerate() {
-                        rows[i * r + k] = *v;
+                // Column by column through U (stored by columns): plot i's sum takes its terms
+                // in the order k = 0, 1, ... as a row-wise sum would, from -0.0 as `Sum` does.
+                let mut acc = vec![-0.0f64; n];
+                for (k, gk) in g.iter().enumerate() {
+                    for (a, x) in acc.iter_mut().zip(u.col(k).iter()) {
+                        *a += x.powi(2) * gk * vn;
                     }
                 }
-                if r == 0 {
-                    (0..n).map(|_| std::iter::empty::<f64>().sum()).collect()
-                } else {
-                    rows.chunks_exact(r)
-                        .map(|row| row.iter().zip(&g).map(|(x, gk)| x.powi(2) * gk * vn).sum())
-                        .collect()
-                }
+                acc
             },
             rt,
         }
