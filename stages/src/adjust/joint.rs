@@ -376,6 +376,7 @@ impl Mixture {
             .map(|(w, m, v)| w * crate::util::normal_cdf((x - m) / v.sqrt()))
             .sum()
     }
+    #[cfg(test)]
     fn pdf(&self, x: f64) -> f64 {
         self.parts
             .iter()
@@ -386,9 +387,30 @@ impl Mixture {
             .sum()
     }
 
+    /// CDF and density at `x` in one pass, from each part's SD and density constant made
+    /// beforehand (`sds`: (sd, sd x sqrt(2 pi))); term by term and in order the same sums as
+    /// [`Mixture::cdf`] and [`Mixture::pdf`].
+    fn cdf_pdf(&self, x: f64, sds: &[(f64, f64)]) -> (f64, f64) {
+        let (mut c, mut d) = (-0.0, -0.0);
+        for ((w, m, _), (sd, norm)) in self.parts.iter().zip(sds) {
+            let z = (x - m) / sd;
+            c += w * crate::util::normal_cdf(z);
+            d += w * (-0.5 * z.powi(2)).exp() / norm;
+        }
+        (c, d)
+    }
+
     /// The q quantile: Newton steps from the normal approximation, kept inside a bracket
     /// that bisection narrows whenever a step leaves it.
     pub fn quantile(&self, q: f64) -> f64 {
+        let sds: Vec<(f64, f64)> = self
+            .parts
+            .iter()
+            .map(|(_, _, v)| {
+                let sd = v.sqrt();
+                (sd, sd * 2.506_628_274_631_000_5)
+            })
+            .collect();
         let mut lo = self
             .parts
             .iter()
@@ -402,13 +424,13 @@ impl Mixture {
         let z = crate::util::normal_quantile_approx(1.0 - q);
         let mut x = (self.mean() + z * self.var().sqrt()).clamp(lo, hi);
         for _ in 0..100 {
-            let f = self.cdf(x) - q;
+            let (cdf, d) = self.cdf_pdf(x, &sds);
+            let f = cdf - q;
             if f < 0.0 {
                 lo = x;
             } else {
                 hi = x;
             }
-            let d = self.pdf(x);
             let step = if d > 0.0 { x - f / d } else { f64::NAN };
             let next = if step > lo && step < hi {
                 step
@@ -427,6 +449,36 @@ impl Mixture {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn one_pass_cdf_and_density_equal_the_separate_sums_bit_for_bit() {
+        // 300 random mixtures of 1 to 2,000 parts, each at 20 points across its range.
+        let mut rng = crate::util::Rng::new(17);
+        for case in 0..300 {
+            let k = 1 + (rng.uniform() * 2000.0) as usize * usize::from(case % 3 != 0);
+            let parts: Vec<(f64, f64, f64)> = (0..k)
+                .map(|_| {
+                    (
+                        rng.uniform(),
+                        rng.normal() * 300.0,
+                        (rng.normal() * 3.0).exp() * 100.0,
+                    )
+                })
+                .collect();
+            let mix = Mixture::new(parts);
+            let sds: Vec<(f64, f64)> = mix
+                .parts
+                .iter()
+                .map(|(_, _, v)| (v.sqrt(), v.sqrt() * 2.506_628_274_631_000_5))
+                .collect();
+            for i in 0..20 {
+                let x = -2000.0 + 200.0 * i as f64 + rng.normal();
+                let (c, d) = mix.cdf_pdf(x, &sds);
+                assert_eq!(c.to_bits(), mix.cdf(x).to_bits(), "cdf, case {case}, x {x}");
+                assert_eq!(d.to_bits(), mix.pdf(x).to_bits(), "pdf, case {case}, x {x}");
+            }
+        }
+    }
 
     #[test]
     fn one_field_without_interaction_is_the_conjugate_normal_update() {

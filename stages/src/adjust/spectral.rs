@@ -401,14 +401,15 @@ impl Repr {
                 let row = &self.ux[i * p..(i + 1) * p];
                 let uyi = self.uy[i];
                 q += d * uyi * uyi;
-                for aa in 0..p {
+                for (aa, arow) in a.chunks_exact_mut(p).enumerate() {
                     let wa = d * row[aa];
                     if wa == 0.0 {
                         continue;
                     }
                     c[aa] += wa * uyi;
-                    for bb in 0..=aa {
-                        a[aa * p + bb] += wa * row[bb];
+                    // The lower triangle's row aa, as slices (no index checks: vectorised).
+                    for (x, r) in arow[..=aa].iter_mut().zip(&row[..=aa]) {
+                        *x += wa * r;
                     }
                 }
             }
