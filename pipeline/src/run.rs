@@ -13,6 +13,7 @@ use plotsieve_stages::config::TrialConfig;
 use plotsieve_stages::progress::{Event, Progress};
 use plotsieve_stages::table::StageSummary;
 use plotsieve_stages::{ingest, simulate};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 use std::collections::BTreeMap;
@@ -194,8 +195,9 @@ fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
         .filter(|p| p.is_file())
         .collect();
     paths.extend(sidecars);
-    paths
-        .iter()
+    // Files hashed in parallel (a harvest's exports are hundreds of MB), listed in order.
+    let hashed: Vec<Result<InputHash>> = paths
+        .par_iter()
         .map(|p| {
             let (bytes, sha256) = sha256_file(p)?;
             let shown = p
@@ -209,7 +211,8 @@ fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
                 sha256,
             })
         })
-        .collect()
+        .collect();
+    hashed.into_iter().collect()
 }
 
 pub(crate) fn read_manifest(out: &Path) -> Result<Option<Manifest>> {

@@ -50,13 +50,20 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .map(|p| unit.to_unit(p.yield_std_kg_ha))
         .collect();
     let col = format!("yield_{}", unit.suffix());
-    io::write_clean_points(
-        &dir.join("points.parquet"),
-        &files,
-        &o.points,
-        Some((&col, y)),
-        None,
-    )?;
-    write_stage_tables(&dir, &o.rejections, &o.summary)?;
+    // The point table and the rejection log are independent: written side by side.
+    let (points, tables) = rayon::join(
+        || {
+            io::write_clean_points(
+                &dir.join("points.parquet"),
+                &files,
+                &o.points,
+                Some((&col, y)),
+                None,
+            )
+        },
+        || write_stage_tables(dir, &o.rejections, &o.summary),
+    );
+    points?;
+    tables?;
     Ok(o.summary)
 }

@@ -17,22 +17,30 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         return plot_table(c);
     }
     let o = ingest::run_with(cfg, &t.base, progress)?;
-    io::write_points(&dir.join("points.parquet"), &o.points)?;
-    io::write_projected_plots(&dir.join("plots.geojson"), &o.polygons, o.points.epsg)?;
     let utm = plotsieve_stages::projection::Utm::from_epsg(o.points.epsg)?;
-    io::write_plots_wgs84(
-        &dir.join("plots_wgs84.geojson"),
-        &utm,
-        o.polygons.iter().map(|p| {
-            (
-                p.plot_id.as_str(),
-                p.exterior.as_slice(),
-                serde_json::Map::new(),
-            )
-        }),
-    )?;
-    io::write_table(&dir.join("design.csv"), &o.design, &c.unit)?;
-    write_stage_tables(&dir, &o.rejections, &o.summary)?;
+    // The stage's files are independent of each other: the point table is written beside
+    // the rest.
+    let (points, rest) = rayon::join(
+        || io::write_points(&dir.join("points.parquet"), &o.points),
+        || -> Result<()> {
+            io::write_projected_plots(&dir.join("plots.geojson"), &o.polygons, o.points.epsg)?;
+            io::write_plots_wgs84(
+                &dir.join("plots_wgs84.geojson"),
+                &utm,
+                o.polygons.iter().map(|p| {
+                    (
+                        p.plot_id.as_str(),
+                        p.exterior.as_slice(),
+                        serde_json::Map::new(),
+                    )
+                }),
+            )?;
+            io::write_table(&dir.join("design.csv"), &o.design, &c.unit)?;
+            write_stage_tables(dir, &o.rejections, &o.summary)
+        },
+    );
+    points?;
+    rest?;
     Ok(o.summary)
 }
 

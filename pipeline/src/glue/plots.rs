@@ -55,27 +55,43 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .map(|p| unit.to_unit(p.yield_std_kg_ha))
         .collect();
     let col = format!("yield_{}", unit.suffix());
-    io::write_clean_points(
-        &dir.join("points.parquet"),
-        &files,
-        &kept,
-        Some((&col, y)),
-        Some(ids),
-    )?;
-    io::write_table(&dir.join("plots.csv"), &o.plots, &unit)?;
     let epsg = c.epsg()?;
     let utm = plotsieve_stages::projection::Utm::from_epsg(epsg)?;
-    io::write_plots_wgs84(
-        &dir.join("plots.geojson"),
-        &utm,
-        o.plots.iter().filter(|p| !p.net_ring.is_empty()).map(|p| {
-            (
-                p.plot_id.as_str(),
-                p.net_ring.as_slice(),
-                io::plot_properties(p, &unit),
+    // The stage's files are independent of each other: written side by side.
+    let (points, (layer, tables)) = rayon::join(
+        || {
+            io::write_clean_points(
+                &dir.join("points.parquet"),
+                &files,
+                &kept,
+                Some((&col, y)),
+                Some(ids),
             )
-        }),
-    )?;
-    write_stage_tables(&dir, &o.rejections, &o.summary)?;
+        },
+        || {
+            rayon::join(
+                || {
+                    io::write_plots_wgs84(
+                        &dir.join("plots.geojson"),
+                        &utm,
+                        o.plots.iter().filter(|p| !p.net_ring.is_empty()).map(|p| {
+                            (
+                                p.plot_id.as_str(),
+                                p.net_ring.as_slice(),
+                                io::plot_properties(p, &unit),
+                            )
+                        }),
+                    )
+                },
+                || {
+                    io::write_table(&dir.join("plots.csv"), &o.plots, &unit)?;
+                    write_stage_tables(dir, &o.rejections, &o.summary)
+                },
+            )
+        },
+    );
+    points?;
+    layer?;
+    tables?;
     Ok(o.summary)
 }
