@@ -22,6 +22,24 @@ fn write_parquet(path: &Path, columns: Vec<Column>) -> Result<()> {
     })
 }
 
+/// One record's values appended to their columns.
+fn push_row<const N: usize>(cols: &mut [Vec<f64>; N], row: [f64; N]) {
+    for (v, x) in cols.iter_mut().zip(row) {
+        v.push(x);
+    }
+}
+
+/// Named f64 columns.
+fn f64_columns<const N: usize>(
+    names: [&str; N],
+    vals: [Vec<f64>; N],
+) -> impl Iterator<Item = Column> + '_ {
+    names
+        .into_iter()
+        .zip(vals)
+        .map(|(name, v)| Column::new(name.into(), v))
+}
+
 fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point> + Clone) -> Vec<Column> {
     // One pass over the records into every column (a record is 128 bytes: a pass per column
     // would stream the whole table once per column).
@@ -51,22 +69,23 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point> + Clo
         names.push(files[p.file as usize].as_str());
         file_index.push(p.file);
         rows.push(p.row);
-        for (v, x) in vals.iter_mut().zip([
-            p.time_s,
-            p.lon,
-            p.lat,
-            p.x_m,
-            p.y_m,
-            p.flow_kg_s,
-            p.speed_m_s,
-            p.width_m,
-            p.moisture_pct,
-            p.work_state,
-            p.hdop,
-            p.fix_quality,
-        ]) {
-            v.push(x);
-        }
+        push_row(
+            &mut vals,
+            [
+                p.time_s,
+                p.lon,
+                p.lat,
+                p.x_m,
+                p.y_m,
+                p.flow_kg_s,
+                p.speed_m_s,
+                p.width_m,
+                p.moisture_pct,
+                p.work_state,
+                p.hdop,
+                p.fix_quality,
+            ],
+        );
         given.push(p.yield_kg_ha);
     }
     let mut cols = vec![
@@ -75,11 +94,7 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point> + Clo
         Column::new("file_index".into(), file_index),
         Column::new("source_row".into(), rows),
     ];
-    cols.extend(
-        F64.iter()
-            .zip(vals)
-            .map(|(name, v)| Column::new((*name).into(), v)),
-    );
+    cols.extend(f64_columns(F64, vals));
     // Yields given by a yield-point export (the column only where there are some).
     if given.iter().any(|v| v.is_finite()) {
         cols.push(Column::new("yield_given_kg_ha".into(), given));
@@ -106,27 +121,26 @@ pub fn write_clean_points(
     let mut vals: [Vec<f64>; 4] = std::array::from_fn(|_| Vec::with_capacity(n));
     for p in pts {
         pass.push(p.pass);
-        for (v, x) in vals.iter_mut().zip([
-            p.flow_shifted_kg_s,
-            p.moisture_shifted_pct,
-            p.yield_wet_kg_ha,
-            p.yield_std_kg_ha,
-        ]) {
-            v.push(x);
-        }
+        push_row(
+            &mut vals,
+            [
+                p.flow_shifted_kg_s,
+                p.moisture_shifted_pct,
+                p.yield_wet_kg_ha,
+                p.yield_std_kg_ha,
+            ],
+        );
     }
     cols.push(Column::new("pass".into(), pass));
-    cols.extend(
+    cols.extend(f64_columns(
         [
             "flow_shifted_kg_s",
             "moisture_shifted_pct",
             "yield_wet_kg_ha",
             "yield_std_kg_ha",
-        ]
-        .iter()
-        .zip(vals)
-        .map(|(name, v)| Column::new((*name).into(), v)),
-    );
+        ],
+        vals,
+    ));
     if let Some((name, v)) = yield_out {
         cols.push(Column::new(name.into(), v));
     }
