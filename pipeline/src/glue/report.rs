@@ -8,7 +8,8 @@ use crate::stage::Stage;
 use anyhow::Result;
 use plotsieve_stages::table::{Rejection, StageSummary};
 use plotsieve_stages::{clean, ingest, report};
-use std::collections::BTreeMap;
+use std::collections::HashMap;
+use std::sync::Arc;
 
 /// Run the stage against the run folder.
 pub fn run(c: &Ctx) -> Result<StageSummary> {
@@ -50,23 +51,56 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     // The HTML report: maps of every record, of what each rule removed, of the plots (none
     // for plot-table entry: no records, no polygons).
     let ing = out.join(Stage::Ingest.dir());
-    let pts = if c.table_entry() {
-        plotsieve_stages::table::PointSet::default()
-    } else {
-        io::read_points(&ing.join("points.parquet"), c.epsg()?)?
-    };
-    let mut removed: BTreeMap<String, std::sync::Arc<str>> = BTreeMap::new();
-    for st in [Stage::Clean, Stage::Plots] {
-        for r in io::read_table::<Rejection>(
+    // The records, the two rejection logs and the plot layer are read side by side.
+    let read_rejections = |st: Stage| {
+        io::read_table::<Rejection>(
             &out.join(st.dir()).join("rejected.csv"),
             &shown,
             "rerun its stage",
-        )? {
-            if !r.id.is_empty() && *r.source_file != *cfg.design_name() {
-                removed.entry(r.id).or_insert(r.rule);
+        )
+    };
+    let ((pts, polygons), (clean_rej, plots_rej)) = rayon::join(
+        || {
+            rayon::join(
+                || -> Result<plotsieve_stages::table::PointSet> {
+                    if c.table_entry() {
+                        Ok(plotsieve_stages::table::PointSet::default())
+                    } else {
+                        io::read_points(&ing.join("points.parquet"), c.epsg()?)
+                    }
+                },
+                || -> Result<Vec<plotsieve_stages::table::PlotPolygon>> {
+                    if c.table_entry() {
+                        Ok(Vec::new())
+                    } else {
+                        Ok(ingest::read_geojson(
+                            &ing.join("plots.geojson"),
+                            "1-ingest/plots.geojson",
+                            "plot_id",
+                        )?)
+                    }
+                },
+            )
+        },
+        || {
+            rayon::join(
+                || read_rejections(Stage::Clean),
+                || read_rejections(Stage::Plots),
+            )
+        },
+    );
+    let (pts, polygons) = (pts?, polygons?);
+    // The first rule (clean before plots) that removed each record, by point id: a log's id
+    // names a record when it is the id's decimal text.
+    let mut removed: HashMap<u64, Arc<str>> = HashMap::new();
+    for r in clean_rej?.into_iter().chain(plots_rej?) {
+        if !r.id.is_empty() && *r.source_file != *cfg.design_name() {
+            if let Some(id) = r.id.parse::<u64>().ok().filter(|n| n.to_string() == r.id) {
+                removed.entry(id).or_insert(r.rule);
             }
         }
     }
+    let kept_rule: Arc<str> = Arc::from("");
     let map_points: Vec<report::html::MapPoint> = pts
         .points
         .iter()
@@ -74,21 +108,10 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             x: p.x_m,
             y: p.y_m,
             yield_unit: unit.to_unit(clean::record_yield_kg_ha(p, crop)),
-            rule: removed
-                .get(&p.id.to_string())
-                .map(|r| r.to_string())
-                .unwrap_or_default(),
+            rule: removed.get(&p.id).unwrap_or(&kept_rule).clone(),
         })
         .collect();
-    let polygons = if c.table_entry() {
-        Vec::new()
-    } else {
-        ingest::read_geojson(
-            &ing.join("plots.geojson"),
-            "1-ingest/plots.geojson",
-            "plot_id",
-        )?
-    };
+    drop(pts);
     let plots_tab = read_plots(out, &shown)?;
     let adjusted = io::read_table(&adj.join("adjusted_plots.csv"), &shown, ADJUST_FIRST)?;
     let comparisons = io::read_table(&adj.join("comparison.csv"), &shown, ADJUST_FIRST)?;

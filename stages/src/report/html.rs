@@ -21,7 +21,8 @@ pub struct MapPoint {
     pub x: f64,
     pub y: f64,
     pub yield_unit: f64,
-    pub rule: String,
+    /// The rule that removed the record (shared text), empty when kept.
+    pub rule: std::sync::Arc<str>,
 }
 
 /// Everything the HTML report shows.
@@ -432,7 +433,7 @@ pub fn render(r: &HtmlInput) -> String {
         r.adjusted.iter().map(|a| (a.plot_id.as_str(), a)).collect();
     let mut rule_names: BTreeMap<&str, usize> = BTreeMap::new();
     for p in r.points.iter().filter(|p| !p.rule.is_empty()) {
-        *rule_names.entry(&p.rule).or_default() += 1;
+        *rule_names.entry(&*p.rule).or_default() += 1;
     }
     let mut top_rules: Vec<(&str, usize)> = rule_names.into_iter().collect();
     top_rules.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(b.0)));
@@ -555,7 +556,7 @@ pub fn render(r: &HtmlInput) -> String {
         match &raster {
             None => {
                 for q in pts.iter().filter(|q| !q.rule.is_empty()) {
-                    let c = colour_of.get(q.rule.as_str()).copied().unwrap_or("#999999");
+                    let c = colour_of.get(&*q.rule).copied().unwrap_or("#999999");
                     let _ = write!(
                         s,
                         "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"1.6\" fill=\"{c}\"/>",
@@ -570,7 +571,7 @@ pub fn render(r: &HtmlInput) -> String {
                 let png = ras.png(&|idx| {
                     let mut n: BTreeMap<&str, usize> = BTreeMap::new();
                     for &i in idx.iter().filter(|&&i| !pts[i].rule.is_empty()) {
-                        *n.entry(pts[i].rule.as_str()).or_default() += 1;
+                        *n.entry(&*pts[i].rule).or_default() += 1;
                     }
                     let top = n.iter().max_by(|a, b| a.1.cmp(b.1).then(b.0.cmp(a.0)))?;
                     Some(raster::rgb(
