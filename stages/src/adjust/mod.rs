@@ -448,14 +448,13 @@ pub fn run_with(
             let mut counts: BTreeMap<String, u64> = BTreeMap::new();
             // Each product's row in the field that holds it (the last one seen).
             let mut field_row: BTreeMap<String, TreatmentRow> = BTreeMap::new();
-            // Each field's plot effects under its own posterior (fields in parallel).
-            let own_effects: Vec<Vec<AdjustedPlot>> = own
-                .par_iter()
-                .enumerate()
-                .map(|(i, fit)| own_plots(&preps[keep[i]], &fit.spatial_pts))
-                .collect();
-            for (i, (mut fit, plots)) in own.into_iter().zip(own_effects).enumerate() {
-                fit.plots = plots;
+            // Each field's rows and plot effects under its own posterior (fields in parallel).
+            own.par_iter_mut().enumerate().for_each(|(i, fit)| {
+                let prep = &preps[keep[i]];
+                (fit.rows, fit.uplifts) = own_rows(prep, &fit.comps, &global, &maps[keep[i]], s);
+                fit.plots = own_plots(prep, &fit.spatial_pts);
+            });
+            for (i, fit) in own.into_iter().enumerate() {
                 let prep = &preps[keep[i]];
                 for (t, c) in prep.model.treatments.iter().zip(&prep.counts) {
                     *counts.entry(t.clone()).or_default() += c;

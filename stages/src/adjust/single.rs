@@ -11,11 +11,14 @@ pub(crate) struct FieldFit {
     /// The points of the field's own posterior its plot effects are averaged over (the
     /// highest-weight points holding 99.9 % of the mass, at most 64).
     pub(crate) spatial_pts: Vec<Weighted>,
+    /// Empty from `fit_own` (see [`own_rows`]).
     pub(crate) rows: Vec<TreatmentRow>,
     pub(crate) comparison: Comparison,
     pub(crate) hyper: FieldHyper,
     /// (treatment, uplift mean, variance) for inverse-variance pooling.
     pub(crate) uplifts: Vec<(String, f64, f64)>,
+    /// The field's own posterior: weighted components (see [`own_rows`]).
+    pub(crate) comps: Vec<(f64, Component)>,
     pub(crate) stage_one: StageOne,
 }
 
@@ -115,6 +118,56 @@ pub(crate) fn own_plots(prep: &Prepared, spatial_pts: &[Weighted]) -> Vec<Adjust
     adjusted_plots(prep, &effects)
 }
 
+/// A field's treatment rows under its own posterior (the separate fit) and, per product,
+/// (treatment, uplift mean, variance) for inverse-variance pooling.
+pub(crate) fn own_rows(
+    prep: &Prepared,
+    comps: &[(f64, Component)],
+    global: &EffectPrior,
+    map: &FieldMap,
+    s: &FitSettings,
+) -> (Vec<TreatmentRow>, Vec<(String, f64, f64)>) {
+    let m = &prep.model;
+    let field = m.name.as_str();
+    let nt = m.treatments.len();
+    let mut rows = Vec::new();
+    let mut uplifts = Vec::new();
+    for t in 0..nt {
+        let est = Mixture::new(
+            comps
+                .iter()
+                .map(|(w, c)| (*w, c.est[0][t].0, c.est[0][t].1))
+                .collect(),
+        );
+        let up = (t > 0).then(|| {
+            Mixture::new(
+                comps
+                    .iter()
+                    .map(|(w, c)| (*w, c.delta[0][t - 1].0, c.delta[0][t - 1].1))
+                    .collect(),
+            )
+        });
+        let pr = (t > 0).then(|| {
+            let g = map.index[t - 1];
+            (global.mean[g], global.var[g].sqrt())
+        });
+        let row = treatment_row(
+            s,
+            field,
+            &m.treatments[t],
+            prep.counts[t],
+            Some(&est),
+            up.as_ref(),
+            pr,
+        );
+        if t > 0 {
+            uplifts.push((m.treatments[t].clone(), row.uplift, row.uplift_sd.powi(2)));
+        }
+        rows.push(row);
+    }
+    (rows, uplifts)
+}
+
 /// One field alone: its posterior over its lattice, spatial effects, treatment rows,
 /// hyperparameters and the comparison with the no-spatial-field model.
 pub(crate) fn fit_own(
@@ -168,42 +221,6 @@ pub(crate) fn fit_own(
         .iter()
         .filter_map(|(w, k, i)| by_point.remove(&(*k, *i)).map(|c| (*w, c)))
         .collect();
-    let nt = m.treatments.len();
-    let mut rows = Vec::new();
-    let mut uplifts = Vec::new();
-    for t in 0..nt {
-        let est = Mixture::new(
-            comps
-                .iter()
-                .map(|(w, c)| (*w, c.est[0][t].0, c.est[0][t].1))
-                .collect(),
-        );
-        let up = (t > 0).then(|| {
-            Mixture::new(
-                comps
-                    .iter()
-                    .map(|(w, c)| (*w, c.delta[0][t - 1].0, c.delta[0][t - 1].1))
-                    .collect(),
-            )
-        });
-        let pr = (t > 0).then(|| {
-            let g = map.index[t - 1];
-            (global.mean[g], global.var[g].sqrt())
-        });
-        let row = treatment_row(
-            s,
-            field,
-            &m.treatments[t],
-            prep.counts[t],
-            Some(&est),
-            up.as_ref(),
-            pr,
-        );
-        if t > 0 {
-            uplifts.push((m.treatments[t].clone(), row.uplift, row.uplift_sd.powi(2)));
-        }
-        rows.push(row);
-    }
     // Spatial effects: the highest-weight points holding 99.9 % of the mass, at most 64.
     let mut acc = 0.0;
     let spatial_pts: Vec<&Weighted> = comps_w
@@ -312,10 +329,11 @@ pub(crate) fn fit_own(
     Ok(FieldFit {
         plots: Vec::new(),
         spatial_pts,
-        rows,
+        rows: Vec::new(),
         comparison,
         hyper,
-        uplifts,
+        uplifts: Vec::new(),
+        comps,
         stage_one: stage_one(prep, lat),
     })
 }
