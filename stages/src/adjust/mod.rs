@@ -251,7 +251,7 @@ pub fn run_with(
         .zip(lats.par_iter())
         .zip(maps.par_iter())
         .map(|((p, lat), map)| {
-            let f = fit_own(p, lat, &global, map, s);
+            let f = fit_own(p, lat, &global, map, s, !joint);
             progress.step();
             f
         })
@@ -361,7 +361,7 @@ pub fn run_with(
                 (h.spatial_sd, h.spatial_sd_ci) = (sf.mean, sf);
                 (h.noise_sd, h.noise_sd_ci) = (sn.mean, sn);
                 (h.spatial_share, h.spatial_share_ci) = (share.mean, share);
-                fit.plots = joint_plots(prep, f, &jf);
+                fit.plots = Some(joint_plots(prep, f, &jf));
                 push_fit(&mut out, fit);
             }
             let inter =
@@ -452,7 +452,9 @@ pub fn run_with(
             own.par_iter_mut().enumerate().for_each(|(i, fit)| {
                 let prep = &preps[keep[i]];
                 (fit.rows, fit.uplifts) = own_rows(prep, &fit.comps, &global, &maps[keep[i]], s);
-                fit.plots = own_plots(prep, &fit.spatial_pts);
+                if fit.plots.is_none() {
+                    fit.plots = Some(own_plots(prep, &fit.spatial_pts, fit.mode_spatial.take()));
+                }
             });
             for (i, fit) in own.into_iter().enumerate() {
                 let prep = &preps[keep[i]];
@@ -516,7 +518,10 @@ pub fn run_with(
 
 pub(crate) fn push_fit(out: &mut AdjustOutput, f: FieldFit) {
     out.stage_one.push(f.stage_one);
-    out.plots.extend(f.plots);
+    out.plots.extend(
+        f.plots
+            .expect("a field's plot effects are made before its fit is written"),
+    );
     out.comparisons.push(f.comparison);
     out.treatments.extend(f.rows);
     if !f.hyper.warning.is_empty() {

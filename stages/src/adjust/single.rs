@@ -5,12 +5,14 @@ use super::*;
 
 /// Fit result of one field on its own.
 pub(crate) struct FieldFit {
-    /// Empty from `fit_own`: the field's own plot effects are made by [`own_plots`] only
-    /// where the joint fit's do not replace them.
-    pub(crate) plots: Vec<AdjustedPlot>,
+    /// None from `fit_own` when a joint fit is planned: its plot effects replace the
+    /// field's own, which [`own_plots`] makes only if the joint fit falls back.
+    pub(crate) plots: Option<Vec<AdjustedPlot>>,
     /// The points of the field's own posterior its plot effects are averaged over (the
     /// highest-weight points holding 99.9 % of the mass, at most 64).
     pub(crate) spatial_pts: Vec<Weighted>,
+    /// The first of them with a spectral form and its spatial effect (mean, variance).
+    pub(crate) mode_spatial: Option<(usize, (Vec<f64>, Vec<f64>))>,
     /// Empty from `fit_own` (see [`own_rows`]).
     pub(crate) rows: Vec<TreatmentRow>,
     pub(crate) comparison: Comparison,
@@ -100,13 +102,19 @@ pub(crate) fn random_sds(s: &FitSettings, pts: &[(f64, &[f64])]) -> [Summary; 3]
     })
 }
 
-/// A field's plot effects under its own posterior: the spatial effect at each of
-/// `spatial_pts` (see [`FieldFit::spatial_pts`]), weighted.
-pub(crate) fn own_plots(prep: &Prepared, spatial_pts: &[Weighted]) -> Vec<AdjustedPlot> {
-    let m = &prep.model;
-    let effects: Vec<(f64, Vec<f64>, Vec<f64>)> = spatial_pts
-        .par_iter()
-        .filter_map(|(w, k, i)| {
+/// The spatial effect (weight, mean, variance) at each of `pts` that has a spectral form,
+/// in parallel and in order; `skip` is left out.
+fn spatial_effects(
+    m: &FieldModel,
+    pts: &[Weighted],
+    skip: usize,
+) -> Vec<(f64, Vec<f64>, Vec<f64>)> {
+    pts.par_iter()
+        .enumerate()
+        .filter_map(|(j, (w, k, i))| {
+            if j == skip {
+                return None;
+            }
             let node: &Node = &m.nodes[k];
             let pt = &node.points[*i];
             let repr = node.repr.as_ref()?;
@@ -114,7 +122,27 @@ pub(crate) fn own_plots(prep: &Prepared, spatial_pts: &[Weighted]) -> Vec<Adjust
                 repr.spatial(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit);
             Some((*w, mean, var))
         })
-        .collect();
+        .collect()
+}
+
+/// A field's plot effects under its own posterior when `fit_own` left them to be made (a
+/// planned joint fit fell back to separate fits): the spatial effect at each of
+/// `spatial_pts`, weighted, with the one `fit_own` made for the comparison taken as it is.
+pub(crate) fn own_plots(
+    prep: &Prepared,
+    spatial_pts: &[Weighted],
+    mode_spatial: Option<(usize, (Vec<f64>, Vec<f64>))>,
+) -> Vec<AdjustedPlot> {
+    let m = &prep.model;
+    let skip = mode_spatial.as_ref().map_or(usize::MAX, |x| x.0);
+    let mut effects = spatial_effects(m, spatial_pts, skip);
+    if let Some((j, (mean, var))) = mode_spatial {
+        // Those before the mode's point had no spectral form: it goes first.
+        debug_assert!(spatial_pts[..j]
+            .iter()
+            .all(|(_, k, _)| m.nodes[k].repr.is_none()));
+        effects.insert(0, (spatial_pts[j].0, mean, var));
+    }
     adjusted_plots(prep, &effects)
 }
 
@@ -176,6 +204,7 @@ pub(crate) fn fit_own(
     global: &EffectPrior,
     map: &FieldMap,
     s: &FitSettings,
+    with_plots: bool,
 ) -> Result<FieldFit, String> {
     let m = &prep.model;
     let field = m.name.as_str();
@@ -233,19 +262,32 @@ pub(crate) fn fit_own(
         .take(64)
         .collect();
     let spatial_pts: Vec<Weighted> = spatial_pts.into_iter().cloned().collect();
-    // The spatial effect at the heaviest point with a spectral form, for the comparison.
-    let mode_effect = spatial_pts
-        .iter()
-        .find_map(|(_, k, i)| {
+    // Plot effects: under the field's own posterior only where no joint fit will replace
+    // them (`with_plots`); otherwise only the effect at the heaviest point with a spectral
+    // form, for the comparison, kept in case a planned joint fit falls back.
+    let (plots, mode_effect, mode_spatial) = if with_plots {
+        let effects = spatial_effects(m, &spatial_pts, usize::MAX);
+        let mode_effect = effects
+            .first()
+            .map(|e| e.1.clone())
+            .unwrap_or_else(|| vec![0.0; m.design.n()]);
+        (Some(adjusted_plots(prep, &effects)), mode_effect, None)
+    } else {
+        let mode_spatial = spatial_pts.iter().enumerate().find_map(|(j, (_, k, i))| {
             let node: &Node = &m.nodes[k];
             let pt = &node.points[*i];
             let repr = node.repr.as_ref()?;
-            Some(
-                repr.spatial(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit)
-                    .0,
-            )
-        })
-        .unwrap_or_else(|| vec![0.0; m.design.n()]);
+            Some((
+                j,
+                repr.spatial(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit),
+            ))
+        });
+        let mode_effect = mode_spatial
+            .as_ref()
+            .map(|(_, (mean, _))| mean.clone())
+            .unwrap_or_else(|| vec![0.0; m.design.n()]);
+        (None, mode_effect, mode_spatial)
+    };
     let n = m.design.n();
     // Hyperparameters over the components.
     let pts: Vec<(f64, [f64; 4])> = comps_w
@@ -327,8 +369,9 @@ pub(crate) fn fit_own(
         warning: warnings.join("; "),
     };
     Ok(FieldFit {
-        plots: Vec::new(),
+        plots,
         spatial_pts,
+        mode_spatial,
         rows: Vec::new(),
         comparison,
         hyper,

@@ -606,3 +606,50 @@ fn a_single_field_gives_one_answer_in_its_row_and_the_pooled_row() {
         );
     }
 }
+
+#[test]
+fn deferred_own_effects_and_rows_equal_those_made_in_the_fit_bit_for_bit() {
+    // fit_own with its plot effects made at once (separate fits) against fit_own leaving
+    // them to own_plots (a planned joint fit that falls back), and the rows from own_rows:
+    // the same plot effects, rows and comparison, bit for bit.
+    let plots = trend_field("F", 6, 8, 0.3, 23);
+    let s = settings();
+    let refs: Vec<&PlotStats> = plots.iter().collect();
+    let mut prep = prepare("F", refs, &s).unwrap();
+    let lat = scan_own(&mut prep.model, &s);
+    let (_, global, maps) = effect_priors(std::slice::from_ref(&prep), &s);
+    let now = fit_own(&prep, &lat, &global, &maps[0], &s, true).unwrap();
+    let mut later = fit_own(&prep, &lat, &global, &maps[0], &s, false).unwrap();
+    assert!(later.plots.is_none() && later.mode_spatial.is_some());
+    later.plots = Some(own_plots(
+        &prep,
+        &later.spatial_pts,
+        later.mode_spatial.take(),
+    ));
+    let bits = |v: &[AdjustedPlot]| -> Vec<[u64; 5]> {
+        v.iter()
+            .map(|p| {
+                [p.raw, p.spatial_mean, p.spatial_sd, p.adjusted, p.adjusted_sd].map(f64::to_bits)
+            })
+            .collect()
+    };
+    let (a, b) = (now.plots.unwrap(), later.plots.unwrap());
+    assert_eq!(a.len(), 48);
+    assert_eq!(bits(&a), bits(&b));
+    assert!(a.iter().any(|p| p.spatial_mean != 0.0));
+    assert_eq!(
+        format!("{:?}", now.comparison),
+        format!("{:?}", later.comparison)
+    );
+    let (rows_a, up_a) = own_rows(&prep, &now.comps, &global, &maps[0], &s);
+    let (rows_b, up_b) = own_rows(&prep, &later.comps, &global, &maps[0], &s);
+    assert_eq!(format!("{rows_a:?}"), format!("{rows_b:?}"));
+    assert_eq!(format!("{up_a:?}"), format!("{up_b:?}"));
+    assert_eq!(rows_a.len(), 3);
+    // The rows are those run() reports for the field alone.
+    let out = run(&plots, &s).unwrap();
+    for r in &rows_a {
+        let o = row(&out, "F", &r.treatment);
+        assert_eq!(o.uplift.to_bits(), r.uplift.to_bits(), "{}", r.treatment);
+    }
+}
