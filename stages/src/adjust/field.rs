@@ -273,13 +273,14 @@ pub fn log_sum_exp(v: impl Iterator<Item = f64>) -> f64 {
 
 /// The lattice of length-scale nodes: coarse over the bounds, then refined over the box that
 /// holds the mass. `dims` is 1 or 2; `masses` evaluates a batch of lattice nodes (integer
-/// coordinates on the fine lattice) and returns each one's log mass (prior + log Z). Returns
+/// coordinates on the fine lattice) and returns each one's log mass (prior + log Z); with the
+/// refined box's new nodes it is also given the coarse nodes that stay in it. Returns
 /// the fine nodes of the box, the fine spacing per axis and whether the box touches a bound.
 pub fn range_lattice(
     dims: usize,
     bounds: [(f64, f64); 2],
     coarse: usize,
-    masses: &mut dyn FnMut(&[(i64, i64)]) -> Vec<f64>,
+    masses: &mut dyn FnMut(&[(i64, i64)], Option<&[(i64, i64)]>) -> Vec<f64>,
 ) -> (Vec<(i64, i64)>, [f64; 2], [bool; 2]) {
     let refine: i64 = if dims == 1 { 3 } else { 2 };
     let nc = coarse.max(3) as i64;
@@ -290,7 +291,7 @@ pub fn range_lattice(
     let coarse_nodes: Vec<(i64, i64)> = (0..nc)
         .flat_map(|i| (0..span1).map(move |j| (i * refine, j * refine)))
         .collect();
-    let m = masses(&coarse_nodes);
+    let m = masses(&coarse_nodes, None);
     let top = m.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
     let sig: Vec<(i64, i64)> = coarse_nodes
         .iter()
@@ -317,7 +318,14 @@ pub fn range_lattice(
         .filter(|n| !coarse_nodes.contains(n))
         .cloned()
         .collect();
-    masses(&new);
+    // The coarse nodes that stay in the lattice, so that the others can free their forms
+    // before the new nodes are evaluated.
+    let kept: Vec<(i64, i64)> = coarse_nodes
+        .iter()
+        .filter(|n| fine.contains(n))
+        .cloned()
+        .collect();
+    masses(&new, Some(&kept));
     // The box touches a bound where mass is not negligible there.
     let at_bound = [
         sig.iter().any(|n| n.0 == 0 || n.0 == maxc),

@@ -80,7 +80,10 @@ pub(crate) fn scan_own(m: &mut FieldModel, s: &FitSettings) -> Lattice {
     let bounds = m.bounds;
     let h = lattice_h(dims, bounds, s.range_grid_points);
     let rho0 = m.rho0;
-    let mut masses = |keys: &[(i64, i64)]| -> Vec<f64> {
+    let mut masses = |keys: &[(i64, i64)], kept: Option<&[(i64, i64)]>| -> Vec<f64> {
+        if let Some(kept) = kept {
+            release_unused(m, kept);
+        }
         eval_nodes(m, keys, bounds, h);
         keys.iter()
             .map(|k| {
@@ -94,9 +97,9 @@ pub(crate) fn scan_own(m: &mut FieldModel, s: &FitSettings) -> Lattice {
     lat
 }
 
-/// Frees the spectral forms of the nodes the integration does not use (coarse nodes outside
-/// the refined box): every later step reads only `Lattice::keys`, and a form of an exact
-/// kernel holds an n x n matrix.
+/// Frees the spectral forms of the nodes other than `keys` (coarse nodes outside the refined
+/// box, freed before the box's new nodes are evaluated): every later step reads only
+/// `Lattice::keys`, and a form of an exact kernel holds an n x n matrix.
 fn release_unused(m: &mut FieldModel, keys: &[(i64, i64)]) {
     for (k, node) in m.nodes.iter_mut() {
         if !keys.contains(k) {
@@ -132,10 +135,13 @@ pub(crate) fn scan_shared(models: &mut [FieldModel], s: &FitSettings) -> Lattice
             .fold(f64::INFINITY, f64::min),
     );
     let h = lattice_h(dims, bounds, s.range_grid_points);
-    let mut masses = |keys: &[(i64, i64)]| -> Vec<f64> {
-        models
-            .par_iter_mut()
-            .for_each(|m| eval_nodes(m, keys, bounds, h));
+    let mut masses = |keys: &[(i64, i64)], kept: Option<&[(i64, i64)]>| -> Vec<f64> {
+        models.par_iter_mut().for_each(|m| {
+            if let Some(kept) = kept {
+                release_unused(m, kept);
+            }
+            eval_nodes(m, keys, bounds, h)
+        });
         keys.iter()
             .map(|k| {
                 let l = models[0].nodes[k].l;
@@ -157,7 +163,7 @@ pub(crate) fn lattice(
     bounds: [(f64, f64); 2],
     rho0: (f64, f64),
     coarse: usize,
-    masses: &mut dyn FnMut(&[(i64, i64)]) -> Vec<f64>,
+    masses: &mut dyn FnMut(&[(i64, i64)], Option<&[(i64, i64)]>) -> Vec<f64>,
 ) -> Lattice {
     let (keys, h, at_bound) = range_lattice(dims, bounds, coarse, masses);
     Lattice {

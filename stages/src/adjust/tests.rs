@@ -629,7 +629,14 @@ fn deferred_own_effects_and_rows_equal_those_made_in_the_fit_bit_for_bit() {
     let bits = |v: &[AdjustedPlot]| -> Vec<[u64; 5]> {
         v.iter()
             .map(|p| {
-                [p.raw, p.spatial_mean, p.spatial_sd, p.adjusted, p.adjusted_sd].map(f64::to_bits)
+                [
+                    p.raw,
+                    p.spatial_mean,
+                    p.spatial_sd,
+                    p.adjusted,
+                    p.adjusted_sd,
+                ]
+                .map(f64::to_bits)
             })
             .collect()
     };
