@@ -40,7 +40,7 @@ fn f64_columns<const N: usize>(
         .map(|(name, v)| Column::new(name.into(), v))
 }
 
-fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point> + Clone) -> Vec<Column> {
+fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point>) -> Vec<Column> {
     // One pass over the records into every column (a record is 128 bytes: a pass per column
     // would stream the whole table once per column).
     let n = pts.size_hint().0;

@@ -92,14 +92,13 @@ pub(crate) fn scan_own(m: &mut FieldModel, s: &FitSettings) -> Lattice {
             })
             .collect()
     };
-    let lat = lattice(dims, bounds, rho0, s.range_grid_points, &mut masses);
-    release_unused(m, &lat.keys);
-    lat
+    lattice(dims, bounds, rho0, s.range_grid_points, &mut masses)
 }
 
-/// Frees the spectral forms of the nodes other than `keys` (coarse nodes outside the refined
-/// box, freed before the box's new nodes are evaluated): every later step reads only
-/// `Lattice::keys`, and a form of an exact kernel holds an n x n matrix.
+/// Frees the spectral forms of the nodes other than `keys`: called with the coarse nodes that
+/// stay in the refined box before the box's new nodes are evaluated, so that afterwards only
+/// `Lattice::keys` hold forms (every later step reads only those, and a form of an exact
+/// kernel holds an n x n matrix).
 fn release_unused(m: &mut FieldModel, keys: &[(i64, i64)]) {
     for (k, node) in m.nodes.iter_mut() {
         if !keys.contains(k) {
@@ -150,11 +149,7 @@ pub(crate) fn scan_shared(models: &mut [FieldModel], s: &FitSettings) -> Lattice
             })
             .collect()
     };
-    let lat = lattice(dims, bounds, rho0, s.range_grid_points, &mut masses);
-    for m in models.iter_mut() {
-        release_unused(m, &lat.keys);
-    }
-    lat
+    lattice(dims, bounds, rho0, s.range_grid_points, &mut masses)
 }
 
 /// The refined length-scale lattice (`field::range_lattice`) as a [`Lattice`].

@@ -102,26 +102,26 @@ pub(crate) fn random_sds(s: &FitSettings, pts: &[(f64, &[f64])]) -> [Summary; 3]
     })
 }
 
+/// The spatial effect (mean, variance) at point `i` of node `k`, if the node has a spectral
+/// form.
+fn effect_at(m: &FieldModel, k: &(i64, i64), i: usize) -> Option<(Vec<f64>, Vec<f64>)> {
+    let node: &Node = &m.nodes[k];
+    let pt = &node.points[i];
+    let repr = node.repr.as_ref()?;
+    Some(repr.spatial(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit))
+}
+
 /// The spatial effect (weight, mean, variance) at each of `pts` that has a spectral form,
-/// in parallel and in order; `skip` is left out.
+/// in parallel and in order, leaving out the one at index `skip`.
 fn spatial_effects(
     m: &FieldModel,
     pts: &[Weighted],
-    skip: usize,
+    skip: Option<usize>,
 ) -> Vec<(f64, Vec<f64>, Vec<f64>)> {
     pts.par_iter()
         .enumerate()
-        .filter_map(|(j, (w, k, i))| {
-            if j == skip {
-                return None;
-            }
-            let node: &Node = &m.nodes[k];
-            let pt = &node.points[*i];
-            let repr = node.repr.as_ref()?;
-            let (mean, var) =
-                repr.spatial(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit);
-            Some((*w, mean, var))
-        })
+        .filter(|(j, _)| Some(*j) != skip)
+        .filter_map(|(_, (w, k, i))| effect_at(m, k, *i).map(|(mean, var)| (*w, mean, var)))
         .collect()
 }
 
@@ -134,8 +134,7 @@ pub(crate) fn own_plots(
     mode_spatial: Option<(usize, (Vec<f64>, Vec<f64>))>,
 ) -> Vec<AdjustedPlot> {
     let m = &prep.model;
-    let skip = mode_spatial.as_ref().map_or(usize::MAX, |x| x.0);
-    let mut effects = spatial_effects(m, spatial_pts, skip);
+    let mut effects = spatial_effects(m, spatial_pts, mode_spatial.as_ref().map(|x| x.0));
     if let Some((j, (mean, var))) = mode_spatial {
         // Those before the mode's point had no spectral form: it goes first.
         debug_assert!(spatial_pts[..j]
@@ -252,8 +251,9 @@ pub(crate) fn fit_own(
         .collect();
     // Spatial effects: the highest-weight points holding 99.9 % of the mass, at most 64.
     let mut acc = 0.0;
-    let spatial_pts: Vec<&Weighted> = comps_w
+    let spatial_pts: Vec<Weighted> = comps_w
         .iter()
+        .copied()
         .take_while(|x| {
             let go = acc < 0.999;
             acc += x.0;
@@ -261,27 +261,21 @@ pub(crate) fn fit_own(
         })
         .take(64)
         .collect();
-    let spatial_pts: Vec<Weighted> = spatial_pts.into_iter().cloned().collect();
     // Plot effects: under the field's own posterior only where no joint fit will replace
     // them (`with_plots`); otherwise only the effect at the heaviest point with a spectral
     // form, for the comparison, kept in case a planned joint fit falls back.
     let (plots, mode_effect, mode_spatial) = if with_plots {
-        let effects = spatial_effects(m, &spatial_pts, usize::MAX);
+        let effects = spatial_effects(m, &spatial_pts, None);
         let mode_effect = effects
             .first()
             .map(|e| e.1.clone())
             .unwrap_or_else(|| vec![0.0; m.design.n()]);
         (Some(adjusted_plots(prep, &effects)), mode_effect, None)
     } else {
-        let mode_spatial = spatial_pts.iter().enumerate().find_map(|(j, (_, k, i))| {
-            let node: &Node = &m.nodes[k];
-            let pt = &node.points[*i];
-            let repr = node.repr.as_ref()?;
-            Some((
-                j,
-                repr.spatial(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit),
-            ))
-        });
+        let mode_spatial = spatial_pts
+            .iter()
+            .enumerate()
+            .find_map(|(j, (_, k, i))| effect_at(m, k, *i).map(|e| (j, e)));
         let mode_effect = mode_spatial
             .as_ref()
             .map(|(_, (mean, _))| mean.clone())

@@ -129,7 +129,7 @@ fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
     use faer::linalg::evd;
     use std::cell::RefCell;
     thread_local! {
-        static SCRATCH: RefCell<(usize, Option<MemBuffer>)> = const { RefCell::new((0, None)) };
+        static SCRATCH: RefCell<Option<MemBuffer>> = const { RefCell::new(None) };
     }
     let n = a.nrows();
     let par = faer::get_global_parallelism();
@@ -143,11 +143,14 @@ fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
     let mut s = faer::diag::Diag::<f64>::zeros(n);
     SCRATCH.with(|cell| {
         let mut cell = cell.borrow_mut();
-        let bytes = req.unaligned_bytes_required();
-        if cell.1.is_none() || cell.0 < bytes {
-            *cell = (bytes, Some(MemBuffer::new(req)));
+        // A buffer serves when it is large and aligned enough for this request.
+        let fits = |b: &MemBuffer| {
+            b.len() >= req.size_bytes() && (b.as_ptr() as usize) % req.align_bytes() == 0
+        };
+        if !cell.as_ref().is_some_and(fits) {
+            *cell = Some(MemBuffer::new(req));
         }
-        let buf = cell.1.as_mut().expect("scratch was just made");
+        let buf = cell.as_mut().expect("scratch was just made");
         evd::self_adjoint_evd(
             a,
             s.as_mut(),
