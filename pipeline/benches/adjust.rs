@@ -12,8 +12,15 @@
 //!   plots);
 //! - variety: a 224-plot trial of 56 entries in 4 blocks, and six treatments in 30 and 46
 //!   blocks with and without block effects;
-//! - season: 20 fields x 250 plots fitted jointly (shared range, interaction SD).
+//! - season: 20 fields x 250 plots fitted jointly (shared range, interaction SD), with the
+//!   work it took (see `harvest`);
+//! - harvest: a season shaped like the front-half benchmark's harvest, 92 fields x 360 plots
+//!   fitted jointly, with the number of exact spectral forms (kernel matrix and its
+//!   eigendecomposition) and likelihood evaluations the integration made, what one of each
+//!   costs alone on this machine, and so the least time any code making that same work
+//!   needs on this machine's threads.
 
+use plotsieve_stages::adjust::spectral::{self, Design, Repr};
 use plotsieve_stages::adjust::{run, AdjustOutput, FitSettings, Pooling};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::util::Rng;
@@ -46,6 +53,112 @@ fn timed(plots: &[PlotStats], s: &FitSettings) -> (f64, AdjustOutput) {
     let t = Instant::now();
     let out = run(plots, s).expect("fit");
     (t.elapsed().as_secs_f64(), out)
+}
+
+/// Times `plots` fitted with `s` and prints the work the integration made (see the module
+/// notes): eigendecompositions and likelihood evaluations counted, one of each timed alone
+/// on the first field, and the least time that work needs on this machine's threads.
+fn work(label: &str, plots: &[PlotStats], s: &FitSettings) -> (f64, AdjustOutput) {
+    let before = spectral::work_counts();
+    let (t, out) = timed(plots, s);
+    let after = spectral::work_counts();
+    let forms = after.eigendecompositions - before.eigendecompositions;
+    let evals = after.evaluations - before.evaluations;
+    let searches = after.searches - before.searches;
+    // One field's exact form and likelihood, as the stage builds them: an intercept, one
+    // column per treatment but the check, with blocks one per block but the first (the
+    // field's own coordinates and yields).
+    let f: Vec<&PlotStats> = plots.iter().filter(|p| p.field == plots[0].field).collect();
+    let level = |p: &PlotStats, block: bool| -> String {
+        if block {
+            p.block.clone()
+        } else {
+            p.treatment.clone()
+        }
+    };
+    let levels = |block: bool| {
+        let mut v: Vec<String> = f.iter().map(|p| level(p, block)).collect();
+        v.sort_unstable();
+        v.dedup();
+        v
+    };
+    let mut cols: Vec<(bool, String)> = levels(false)
+        .into_iter()
+        .filter(|t| *t != s.check)
+        .map(|t| (false, t))
+        .collect();
+    if s.blocks {
+        cols.extend(levels(true).into_iter().skip(1).map(|b| (true, b)));
+    }
+    let y: Vec<f64> = f.iter().map(|p| p.yield_mean).collect();
+    let sy = plotsieve_stages::util::sd(&y);
+    let design = Design {
+        x: f.iter()
+            .flat_map(|p| {
+                std::iter::once(1.0).chain(cols.iter().map(|(b, v)| f64::from(level(p, *b) == *v)))
+            })
+            .collect(),
+        p: cols.len() + 1,
+        y,
+        coords: f.iter().map(|p| (p.centroid_x_m, p.centroid_y_m)).collect(),
+        kernel: s.kernel,
+        groups: Vec::new(),
+    };
+    let n = f.len();
+    let reps = 20;
+    let t0 = Instant::now();
+    let mut repr = None;
+    for _ in 0..reps {
+        repr = Some(std::hint::black_box(
+            Repr::exact(&design, (150.0, 150.0)).expect("form"),
+        ));
+    }
+    let t_form = t0.elapsed().as_secs_f64() / reps as f64;
+    let repr = repr.expect("form");
+    // Evaluations for 0.3 s each (at least 100): without the covariance (searches), with it.
+    let per_eval = |cov: bool| {
+        let t0 = Instant::now();
+        let mut k = 0;
+        while k < 100 || t0.elapsed().as_secs_f64() < 0.3 {
+            let sf = sy * (0.3 + 0.5 * (k % 1000) as f64 / 1000.0);
+            if cov {
+                std::hint::black_box(repr.evaluate(sf, 0.4 * sy));
+            } else {
+                std::hint::black_box(repr.reml_groups(sf, 0.4 * sy, &[]));
+            }
+            k += 1;
+        }
+        t0.elapsed().as_secs_f64() / k as f64
+    };
+    let (t_search, t_full) = (per_eval(false), per_eval(true));
+    let threads = rayon::current_num_threads();
+    let fields = {
+        let mut f: Vec<&str> = plots.iter().map(|p| p.field.as_str()).collect();
+        f.sort_unstable();
+        f.dedup();
+        f.len()
+    };
+    let floor =
+        (forms as f64 * t_form + searches as f64 * t_search + (evals - searches) as f64 * t_full)
+            / threads as f64;
+    println!(
+        "{label}: {t:.2} s; {forms} exact spectral forms of about {n} plots ({:.1} ms each alone), {evals} likelihood evaluations, {searches} of them in mode searches ({:.1} us each alone, {:.1} us with the covariance): that work alone needs {floor:.2} s on {threads} threads; a field's searches, one after another, {:.2} s",
+        1e3 * t_form,
+        1e6 * t_search,
+        1e6 * t_full,
+        searches as f64 / fields as f64 * t_search
+    );
+    (t, out)
+}
+
+/// The joint fit's method and shared range, from its hyperparameter row.
+fn joint_row(out: &AdjustOutput) -> String {
+    let all = out
+        .hyper
+        .iter()
+        .find(|h| h.field == "all")
+        .expect("joint row");
+    format!("{}; shared range {:.0} m", all.method, all.range_m)
 }
 
 fn uplift(out: &AdjustOutput, field: &str, t: &str) -> (f64, f64) {
@@ -121,9 +234,9 @@ fn main() {
         }
         let mut s = FitSettings::new("chk");
         s.blocks = true;
-        let (t, out) = timed(&plots, &s);
+        let (_, out) = work("224 plots, 56 entries, 4 blocks", &plots, &s);
         let (u, sd) = uplift(&out, "V", "e01");
-        println!("224 plots, 56 entries, 4 blocks: {t:.2} s (uplift of e01 {u:.0} +- {sd:.0} kg/ha, true 300)");
+        println!("  (uplift of e01 {u:.0} +- {sd:.0} kg/ha, true 300)");
         for nb in [30, 46] {
             let n = nb * 6;
             let mut plots = field("U", n, 11);
@@ -168,16 +281,19 @@ fn main() {
         let (t, _) = timed(&plots, &s);
         println!("20 fields x 250 plots, joint with a range per field: {t:.2} s");
         s.shared_range = true;
-        let (t, out) = timed(&plots, &s);
-        let all = out
-            .hyper
-            .iter()
-            .find(|h| h.field == "all")
-            .expect("joint row");
+        let (_, out) = work("20 fields x 250 plots, joint", &plots, &s);
         let (u, sd) = uplift(&out, "all", "a");
         println!(
-            "20 fields x 250 plots, joint: {t:.2} s ({}; shared range {:.0} m; pooled uplift of a {u:.3} +- {sd:.3}, true 0.3)",
-            all.method, all.range_m
+            "  ({}; pooled uplift of a {u:.3} +- {sd:.3}, true 0.3)",
+            joint_row(&out)
         );
+    }
+    if want("harvest") {
+        let plots: Vec<PlotStats> = (0..92)
+            .flat_map(|f| field(&format!("H{f:02}"), 360, 500 + f))
+            .collect();
+        let s = FitSettings::new("chk");
+        let (_, out) = work("92 fields x 360 plots, joint", &plots, &s);
+        println!("  ({})", joint_row(&out));
     }
 }

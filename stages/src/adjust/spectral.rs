@@ -104,6 +104,34 @@ fn transposed(ux: &Mat<f64>, p: usize) -> Vec<f64> {
     (0..p * r).map(|k| ux[(k % r, k / r)]).collect()
 }
 
+/// How many eigendecompositions, likelihood evaluations and of those evaluations without the
+/// covariance (the mode searches) this process has made (for the benchmarks: the work an
+/// integration needs, whatever each step costs).
+static WORK: [std::sync::atomic::AtomicU64; 3] = [
+    std::sync::atomic::AtomicU64::new(0),
+    std::sync::atomic::AtomicU64::new(0),
+    std::sync::atomic::AtomicU64::new(0),
+];
+
+/// Work made so far by this process (see [`WORK`]).
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct WorkCounts {
+    pub eigendecompositions: u64,
+    pub evaluations: u64,
+    /// Evaluations without the covariance: the mode searches (Nelder-Mead and its curvature).
+    pub searches: u64,
+}
+
+/// The work this process has made so far.
+pub fn work_counts() -> WorkCounts {
+    use std::sync::atomic::Ordering::Relaxed;
+    WorkCounts {
+        eigendecompositions: WORK[0].load(Relaxed),
+        evaluations: WORK[1].load(Relaxed),
+        searches: WORK[2].load(Relaxed),
+    }
+}
+
 /// Runs `f` on this thread's n x n scratch matrix (made once per thread and size: an exact
 /// kernel matrix is built for every length scale of every field).
 fn with_kernel_buffer<R>(n: usize, f: impl FnOnce(&mut Mat<f64>) -> R) -> R {
@@ -128,6 +156,7 @@ fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
     use faer::dyn_stack::{MemBuffer, MemStack};
     use faer::linalg::evd;
     use std::cell::RefCell;
+    WORK[0].fetch_add(1, std::sync::atomic::Ordering::Relaxed);
     thread_local! {
         static SCRATCH: RefCell<Option<MemBuffer>> = const { RefCell::new(None) };
     }
@@ -358,6 +387,10 @@ impl Repr {
     }
 
     fn evaluate_with(&self, sf: f64, sn: f64, sg: &[f64], want_cov: bool) -> Option<Inner> {
+        WORK[1].fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+        if !want_cov {
+            WORK[2].fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+        }
         let (n, p, r) = (self.n, self.p, self.w.len());
         let (vf, vn) = (sf * sf, sn * sn);
         if !(vn > 0.0) {
@@ -582,6 +615,31 @@ impl SpatialParts {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_work_counters_count_forms_evaluations_and_searches() {
+        // Other tests run in this process at the same time: the counts can only have grown
+        // by at least this test's own work.
+        let d = Design {
+            y: (0..30).map(|i| (i as f64 * 0.37).sin()).collect(),
+            x: vec![1.0; 30],
+            p: 1,
+            coords: (0..30)
+                .map(|i| (10.0 * (i % 6) as f64, 40.0 * (i / 6) as f64))
+                .collect(),
+            kernel: Kernel::Matern52,
+            groups: Vec::new(),
+        };
+        let a = work_counts();
+        let r = Repr::exact(&d, (30.0, 30.0)).unwrap();
+        let b = work_counts();
+        assert!(b.eigendecompositions > a.eigendecompositions);
+        r.evaluate(0.5, 0.3).unwrap();
+        r.reml_groups(0.5, 0.3, &[]).unwrap();
+        let c = work_counts();
+        assert!(c.evaluations >= b.evaluations + 2);
+        assert!(c.searches > b.searches);
+    }
 
     #[test]
     fn reduced_rank_kernel_matches_the_exact_kernel_where_the_basis_rule_is_met() {
