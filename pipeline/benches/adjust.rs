@@ -20,8 +20,8 @@
 //!   costs alone on this machine, and so the least time any code making that same work
 //!   needs on this machine's threads.
 
-use plotsieve_stages::adjust::spectral::{self, Design, Repr};
-use plotsieve_stages::adjust::{run, AdjustOutput, FitSettings, Pooling};
+use plotsieve_stages::adjust::spectral::{self, Repr};
+use plotsieve_stages::adjust::{prepare, run, AdjustOutput, FitSettings, Pooling};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::util::Rng;
 use std::time::Instant;
@@ -65,52 +65,22 @@ fn work(label: &str, plots: &[PlotStats], s: &FitSettings) -> (f64, AdjustOutput
     let forms = after.eigendecompositions - before.eigendecompositions;
     let evals = after.evaluations - before.evaluations;
     let searches = after.searches - before.searches;
-    // One field's exact form and likelihood, as the stage builds them: an intercept, one
-    // column per treatment but the check, with blocks one per block but the first (the
-    // field's own coordinates and yields).
-    let f: Vec<&PlotStats> = plots.iter().filter(|p| p.field == plots[0].field).collect();
-    let level = |p: &PlotStats, block: bool| -> String {
-        if block {
-            p.block.clone()
-        } else {
-            p.treatment.clone()
-        }
-    };
-    let levels = |block: bool| {
-        let mut v: Vec<String> = f.iter().map(|p| level(p, block)).collect();
-        v.sort_unstable();
-        v.dedup();
-        v
-    };
-    let mut cols: Vec<(bool, String)> = levels(false)
-        .into_iter()
-        .filter(|t| *t != s.check)
-        .map(|t| (false, t))
-        .collect();
-    if s.blocks {
-        cols.extend(levels(true).into_iter().skip(1).map(|b| (true, b)));
-    }
-    let y: Vec<f64> = f.iter().map(|p| p.yield_mean).collect();
-    let sy = plotsieve_stages::util::sd(&y);
-    let design = Design {
-        x: f.iter()
-            .flat_map(|p| {
-                std::iter::once(1.0).chain(cols.iter().map(|(b, v)| f64::from(level(p, *b) == *v)))
-            })
-            .collect(),
-        p: cols.len() + 1,
-        y,
-        coords: f.iter().map(|p| (p.centroid_x_m, p.centroid_y_m)).collect(),
-        kernel: s.kernel,
-        groups: Vec::new(),
-    };
-    let n = f.len();
+    // The first field's exact form and likelihood, from the design the stage prepares.
+    let first = plots[0].field.as_str();
+    let prep = prepare(
+        first,
+        plots.iter().filter(|p| p.field == first).collect(),
+        s,
+    )
+    .expect("a field to fit");
+    let (design, sy) = (&prep.model.design, prep.model.sy);
+    let n = design.n();
     let reps = 20;
     let t0 = Instant::now();
     let mut repr = None;
     for _ in 0..reps {
         repr = Some(std::hint::black_box(
-            Repr::exact(&design, (150.0, 150.0)).expect("form"),
+            Repr::exact(design, (150.0, 150.0)).expect("form"),
         ));
     }
     let t_form = t0.elapsed().as_secs_f64() / reps as f64;

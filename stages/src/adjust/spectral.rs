@@ -113,7 +113,8 @@ static WORK: [std::sync::atomic::AtomicU64; 3] = [
     std::sync::atomic::AtomicU64::new(0),
 ];
 
-/// Work made so far by this process (see [`WORK`]).
+/// Work made so far by this process: exact spectral forms, likelihood evaluations and the
+/// evaluations of those in mode searches.
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct WorkCounts {
     pub eigendecompositions: u64,
