@@ -25,6 +25,7 @@ pub fn front_half(cfg: &TrialConfig, base: &Path) -> Result<(Vec<String>, Vec<St
         &ing.design,
         &cfg.design_name(),
         &cfg.plots,
+        crop.plot_bounds(),
     );
     let mut warnings: Vec<String> = Vec::new();
     for s in [&ing.summary, &cl.summary, &pl.summary] {
@@ -35,7 +36,9 @@ pub fn front_half(cfg: &TrialConfig, base: &Path) -> Result<(Vec<String>, Vec<St
         );
     }
     let unit = YieldUnit::new(cfg.trial.output_unit, &crop);
-    let s = cfg.adjust.checked(&cfg.trial.check, unit.kg_ha_per_unit());
+    let s = cfg
+        .adjust
+        .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb);
     let unfit = adjust::unfittable_fields(&pl.plots, &s);
     let mut problems = Vec::new();
     for u in unfit {

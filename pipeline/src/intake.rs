@@ -49,12 +49,23 @@ pub(crate) struct SeasonMeta {
     /// Output unit [default: the first trial's].
     #[serde(default)]
     pub(crate) output_unit: Option<plotsieve_stages::crop::OutputUnit>,
-    /// Grain price per tonne at standard moisture (0 = no economics).
+    /// Grain price at standard moisture per `grain_price_unit` (0 = no economics).
     #[serde(default)]
-    pub(crate) grain_price_per_t: f64,
-    /// Product cost per hectare, by product.
+    pub(crate) grain_price: f64,
+    /// "t", "q", "kg" or "bu" [default: "t"].
     #[serde(default)]
-    pub(crate) product_cost_per_ha: BTreeMap<String, f64>,
+    pub(crate) grain_price_unit: Option<plotsieve_stages::crop::PriceUnit>,
+    /// Product cost per `product_cost_unit`, by product.
+    #[serde(default)]
+    pub(crate) product_cost: BTreeMap<String, f64>,
+    /// "ha" or "ac" [default: "ha"].
+    #[serde(default)]
+    pub(crate) product_cost_unit: Option<plotsieve_stages::crop::AreaUnit>,
+    /// Renamed keys, read only to refuse them with the new spelling.
+    #[serde(default)]
+    pub(crate) grain_price_per_t: Option<toml::Value>,
+    #[serde(default)]
+    pub(crate) product_cost_per_ha: Option<toml::Value>,
     /// P(product x field SD > this) = 0.05, in the output unit; 0 = the mean SD of the
     /// fields' plot yields (as in a trial's joint fit).
     #[serde(default)]
@@ -225,6 +236,7 @@ pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
         .map(|t| trial_info(&season_dir, t))
         .collect::<Result<_>>()?;
     let manifest_path = season_dir.join("intake-manifest.json");
+    let _lock = crate::lock::FolderLock::acquire(&manifest_path, "season intake")?;
     let mut manifest: IntakeManifest = match std::fs::read_to_string(&manifest_path) {
         Ok(t) => serde_json::from_str(&t)
             .with_context(|| format!("{}: not an intake manifest", manifest_path.display()))?,

@@ -8,6 +8,7 @@ mod dry_run;
 mod glue;
 mod intake;
 mod io;
+mod lock;
 mod run;
 mod season;
 mod stage;

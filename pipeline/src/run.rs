@@ -382,6 +382,7 @@ fn new_manifest_without_inputs(t: &Trial) -> Result<Manifest> {
 pub fn run_all(trial: &Path, out: Option<PathBuf>, set: &[String], quiet: bool) -> Result<()> {
     let t = load(trial, set)?;
     let out = out.unwrap_or_else(|| default_out(trial));
+    let _lock = crate::lock::FolderLock::acquire(&out, "run folder")?;
     std::fs::create_dir_all(&out)
         .with_context(|| format!("creating run folder {}", out.display()))?;
     let manifest = new_manifest(&t)?;
@@ -402,6 +403,7 @@ pub fn run_one(
 ) -> Result<()> {
     let t = load(trial, set)?;
     let out = out.unwrap_or_else(|| default_out(trial));
+    let _lock = crate::lock::FolderLock::acquire(&out, "run folder")?;
     let table_entry = stage == Stage::Adjust && !t.cfg.adjust.plot_table.is_empty();
     let mut manifest = match (read_manifest(&out)?, stage) {
         (Some(m), _) => m,
@@ -576,8 +578,16 @@ fn check_plot_table(trial: &Path, t: &Trial) -> Result<()> {
                     table.word, r.source_row, r.column, r.rule, r.value, r.limit
                 );
             }
+            if let Some(w) = table.bounds_warning(name, &crop) {
+                println!("warning: {w}");
+            }
+            for w in ingest::layout_checks::repeated_orders_of_plots(&table.plots) {
+                println!("warning: {w}");
+            }
             let unit = plotsieve_stages::crop::YieldUnit::new(cfg.trial.output_unit, &crop);
-            let s = cfg.adjust.checked(&cfg.trial.check, unit.kg_ha_per_unit());
+            let s = cfg
+                .adjust
+                .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb);
             for u in plotsieve_stages::adjust::unfittable_fields(&table.plots, &s) {
                 if cfg.adjust.allow_missing_fields {
                     println!("warning: adjust: missing from the result: {u}");

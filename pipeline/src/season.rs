@@ -19,7 +19,7 @@ use crate::io;
 use crate::run;
 use anyhow::{anyhow, bail, Context, Result};
 use plotsieve_stages::adjust::{FitSettings, TreatmentRow};
-use plotsieve_stages::crop::YieldUnit;
+use plotsieve_stages::crop::{AreaUnit, PriceUnit, YieldUnit};
 use plotsieve_stages::report::season as report;
 use plotsieve_stages::season::{self, ContrastsFile, Location, LocationRow, TauNode};
 use std::collections::BTreeMap;
@@ -152,6 +152,7 @@ pub fn season(season_file: &Path, quiet: bool) -> Result<()> {
             .clone()
             .unwrap_or_else(|| PathBuf::from("season-run")),
     );
+    let _lock = crate::lock::FolderLock::acquire(&out, "season folder")?;
     match fit_and_write(season_file, &season, &season_dir, &out, quiet) {
         Ok(()) => Ok(()),
         Err(e) if is_season_folder(&out) => {
@@ -203,8 +204,19 @@ fn fit_and_write(
     let unit = YieldUnit::new(meta.output_unit.unwrap_or(first.unit), &first.crop);
     let k = unit.kg_ha_per_unit();
     let mut warnings: Vec<String> = Vec::new();
+    for (old, there) in [
+        ("grain_price_per_t", meta.grain_price_per_t.is_some()),
+        ("product_cost_per_ha", meta.product_cost_per_ha.is_some()),
+    ] {
+        if there {
+            let hint = plotsieve_stages::config::renamed(&format!("adjust.{old}"))
+                .unwrap_or_default()
+                .replace("adjust.", "season.");
+            bail!("{}: {hint}", season_file.display());
+        }
+    }
     for p in [
-        ("grain_price_per_t", meta.grain_price_per_t),
+        ("grain_price", meta.grain_price),
         ("interaction_sd_u", meta.interaction_sd_u),
     ] {
         if !(p.1 >= 0.0 && p.1.is_finite()) {
@@ -216,10 +228,10 @@ fn fit_and_write(
             );
         }
     }
-    for (name, c) in &meta.product_cost_per_ha {
+    for (name, c) in &meta.product_cost {
         if !(*c >= 0.0 && c.is_finite()) {
             bail!(
-                "{}: season.product_cost_per_ha.{name} must be a finite number >= 0 (got {c})",
+                "{}: season.product_cost.{name} must be a finite number >= 0 (got {c})",
                 season_file.display()
             );
         }
@@ -227,8 +239,19 @@ fn fit_and_write(
     let mut s = FitSettings::new(check);
     s.kg_ha_per_unit = k;
     s.interaction_sd_u = meta.interaction_sd_u * k;
-    s.grain_price_per_t = meta.grain_price_per_t;
-    s.product_cost_per_ha = meta.product_cost_per_ha.clone();
+    let money = plotsieve_stages::adjust::settings::Money {
+        grain_price: meta.grain_price,
+        grain_price_unit: meta.grain_price_unit.unwrap_or(PriceUnit::Tonne),
+        product_cost_unit: meta.product_cost_unit.unwrap_or(AreaUnit::Hectare),
+    };
+    s.grain_price_per_t =
+        money.grain_price * 1000.0 / money.grain_price_unit.kg(first.crop.bushel_lb);
+    s.product_cost_per_ha = meta
+        .product_cost
+        .iter()
+        .map(|(p, c)| (p.clone(), c / money.product_cost_unit.ha()))
+        .collect();
+    s.money = money;
     let mut locs = Vec::new();
     let mut small = Vec::new();
     for t in &trials {
@@ -254,11 +277,11 @@ fn fit_and_write(
         ));
     }
     let fit = season::fit(&locs, &s).map_err(|e| anyhow!("{}: {e}", season_file.display()))?;
-    let known: Vec<&String> = meta.product_cost_per_ha.keys().collect();
+    let known: Vec<&String> = meta.product_cost.keys().collect();
     for p in known {
         if !fit.products.iter().any(|r| &r.treatment == p) {
             warnings.push(format!(
-                "season.product_cost_per_ha names {p}, which no trial's fields hold"
+                "season.product_cost names {p}, which no trial's fields hold"
             ));
         }
     }
@@ -334,6 +357,7 @@ fn fit_and_write(
             interaction_sd,
             trials: &listed,
             warnings: &warnings,
+            money: Some(&s.money),
         };
         io::write_atomic(&tmp.join("report.html"), report::render(&input).as_bytes())?;
         io::write_atomic(&tmp.join("report.md"), report::markdown(&input).as_bytes())?;
@@ -357,8 +381,10 @@ fn fit_and_write(
                 "hi95": round(interaction_sd.hi95),
             },
             "settings": {
-                "grain_price_per_t": meta.grain_price_per_t,
-                "product_cost_per_ha": meta.product_cost_per_ha,
+                "grain_price": meta.grain_price,
+                "grain_price_unit": meta.grain_price_unit.unwrap_or(PriceUnit::Tonne),
+                "product_cost": meta.product_cost,
+                "product_cost_unit": meta.product_cost_unit.unwrap_or(AreaUnit::Hectare),
                 "interaction_sd_u": meta.interaction_sd_u,
             },
             "warnings": warnings,

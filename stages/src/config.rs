@@ -21,13 +21,35 @@ use serde::{Deserialize, Serialize};
 use toml::Value;
 
 /// Sections whose every key must appear in the defaults.
-const SETTINGS_SECTIONS: &[&str] = &["inputs", "ingest", "clean", "plots", "adjust", "report"];
+const SETTINGS_SECTIONS: &[&str] = &[
+    "inputs", "crop", "ingest", "clean", "plots", "adjust", "report",
+];
 /// Settings tables whose keys are names chosen by the user.
 const FREE_TABLES: &[&str] = &[
-    "adjust.product_cost_per_ha",
+    "adjust.product_cost",
     "adjust.product_prior_mean",
     "adjust.product_prior_sd",
 ];
+/// Keys that were renamed, with what to write instead: never read under the old meaning.
+pub const RENAMED_KEYS: &[(&str, &str)] = &[
+    (
+        "adjust.grain_price_per_t",
+        "write adjust.grain_price with adjust.grain_price_unit = \"t\" (or \"q\", \"kg\", \"bu\")",
+    ),
+    (
+        "adjust.product_cost_per_ha",
+        "write adjust.product_cost with adjust.product_cost_unit = \"ha\" (or \"ac\")",
+    ),
+];
+
+/// The refusal of a renamed key, or None.
+pub fn renamed(key: &str) -> Option<String> {
+    RENAMED_KEYS
+        .iter()
+        .find(|(k, _)| key == *k || key.starts_with(&format!("{k}.")))
+        .map(|(k, new)| format!("{k} is no longer read (its unit was fixed): {new}"))
+}
+
 /// Keys of `inputs` that the trial file must give (they have no default).
 const TRIAL_INPUT_KEYS: &[&str] = &["monitor", "design"];
 
@@ -56,9 +78,13 @@ pub enum ConfigError {
     /// Values that are individually fine but not together, or out of range.
     #[error("invalid settings:\n  {}", .0.join("\n  "))]
     Invalid(Vec<String>),
-    /// Crop not in the crop table.
-    #[error("trial.crop = {crop:?} is not in config/crops.toml (known: {known})")]
-    UnknownCrop { crop: String, known: String },
+    /// Crop not in the crop table and not defined in `[crop]`.
+    #[error("trial.crop = {crop:?} is not in config/crops.toml (known: {known}); define it in the trial file's [crop] section with standard_moisture_pct, bushel_lb, yield_min_kg_ha and yield_max_kg_ha{missing}")]
+    UnknownCrop {
+        crop: String,
+        known: String,
+        missing: String,
+    },
 }
 
 /// `[trial]`: what the trial is.
@@ -79,6 +105,9 @@ pub struct TrialSection {
 pub struct TrialConfig {
     pub trial: TrialSection,
     pub inputs: InputsSection,
+    /// `[crop]`: this trial's crop values over the crop table's.
+    #[serde(rename = "crop")]
+    pub crop_values: crate::crop::CropSettings,
     /// The monitor exports' mapping (absent for plot-table entry).
     #[serde(default)]
     pub columns: ColumnsSection,
@@ -125,6 +154,9 @@ fn merge(base: &mut Value, over: Value, path: &str, strict: bool) -> Result<(), 
                 match bt.get_mut(&k) {
                     Some(bv) => merge(bv, ov, &key, child_strict)?,
                     None => {
+                        if let Some(hint) = renamed(&key) {
+                            return Err(ConfigError::UnknownKey { key, hint });
+                        }
                         if child_strict {
                             return Err(ConfigError::UnknownKey {
                                 key,
@@ -192,7 +224,9 @@ fn apply_override(tree: &mut Value, spec: &str) -> Result<(), ConfigError> {
         node = match node {
             Value::Table(t) => t.get_mut(*part).ok_or_else(|| ConfigError::UnknownKey {
                 key: key.to_string(),
-                hint: "no such key in the configuration (see config/defaults.toml)".into(),
+                hint: renamed(key).unwrap_or_else(|| {
+                    "no such key in the configuration (see config/defaults.toml)".into()
+                }),
             })?,
             _ => {
                 return Err(ConfigError::UnknownKey {
@@ -265,16 +299,23 @@ impl TrialConfig {
         }
     }
 
-    /// The crop of this trial from the crop table.
+    /// The crop of this trial: the crop table's entry for `trial.crop` with the trial's
+    /// `[crop]` values over it, or a crop the `[crop]` section defines whole.
     pub fn crop(&self) -> Result<Crop, ConfigError> {
         let table = crop_table();
-        table
-            .get(&self.trial.crop)
-            .cloned()
-            .ok_or_else(|| ConfigError::UnknownCrop {
+        let v = &self.crop_values;
+        match table.get(&self.trial.crop) {
+            Some(c) => Ok(v.over(c)),
+            None => v.whole().map_err(|missing| ConfigError::UnknownCrop {
                 crop: self.trial.crop.clone(),
                 known: table.keys().cloned().collect::<Vec<_>>().join(", "),
-            })
+                missing: if missing.len() == 4 {
+                    String::new()
+                } else {
+                    format!(" (missing: {})", missing.join(", "))
+                },
+            }),
+        }
     }
 
     /// Check ranges and orderings; every problem names its key. Each section checks itself
@@ -284,6 +325,21 @@ impl TrialConfig {
         let table = !self.inputs.plot_table.is_empty();
         if !table {
             self.columns.problems(&mut p);
+        }
+        self.crop_values.problems(&mut p);
+        if let Ok(c) = self.crop() {
+            if self.trial.output_unit == OutputUnit::BuAc && !(c.bushel_lb > 0.0) {
+                p.push(format!(
+                    "trial.output_unit = \"bu_ac\" needs a bushel weight, and {} has none (a forage crop reported as dry matter): use \"t_ha\", or give crop.bushel_lb",
+                    self.trial.crop
+                ));
+            }
+            if !(c.yield_min_kg_ha < c.yield_max_kg_ha) {
+                p.push(format!(
+                    "crop.yield_min_kg_ha must be below crop.yield_max_kg_ha (got {} and {} for {})",
+                    c.yield_min_kg_ha, c.yield_max_kg_ha, self.trial.crop
+                ));
+            }
         }
         self.ingest.problems(&mut p);
         self.clean.problems(&mut p);
@@ -380,6 +436,73 @@ mod tests {
         assert_eq!(crops["soybean"].standard_moisture_pct, 13.0);
         assert_eq!(crops["corn"].bushel_lb, 56.0);
         assert_eq!(crops["oats"].bushel_lb, 32.0);
+    }
+
+    #[test]
+    fn crop_values_come_from_the_trial_file_and_a_new_crop_can_be_defined_there() {
+        let cfg =
+            TrialConfig::from_toml(TEST_TRIAL, "t.toml", &["crop.yield_min_kg_ha=100".into()])
+                .unwrap();
+        let c = cfg.crop().unwrap();
+        assert_eq!((c.yield_min_kg_ha, c.standard_moisture_pct), (100.0, 15.5));
+        let quinoa = TEST_TRIAL.replace("crop = \"corn\"", "crop = \"quinoa\"");
+        let cfg = TrialConfig::from_toml(&quinoa, "t.toml", &["crop.bushel_lb=60".into()]).unwrap();
+        let e = cfg.crop().unwrap_err().to_string();
+        assert!(
+            e.contains("define it in the trial file's [crop] section")
+                && e.contains("(missing: crop.standard_moisture_pct, crop.yield_min_kg_ha, crop.yield_max_kg_ha)"),
+            "{e}"
+        );
+        let all = [
+            "crop.standard_moisture_pct=12".to_string(),
+            "crop.bushel_lb=60".into(),
+            "crop.yield_min_kg_ha=200".into(),
+            "crop.yield_max_kg_ha=6000".into(),
+        ];
+        let c = TrialConfig::from_toml(&quinoa, "t.toml", &all)
+            .unwrap()
+            .crop()
+            .unwrap();
+        assert_eq!(
+            (c.standard_moisture_pct, c.bushel_lb, c.yield_max_kg_ha),
+            (12.0, 60.0, 6000.0)
+        );
+        // Plot bounds must be a range.
+        let e = TrialConfig::from_toml(
+            TEST_TRIAL,
+            "t.toml",
+            &["crop.plot_yield_min_kg_ha=500".into()],
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(
+            e.contains("crop.plot_yield_min_kg_ha must be below crop.plot_yield_max_kg_ha"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn forage_crops_report_dry_matter_and_bring_their_own_moisture_bounds() {
+        let crops = crop_table();
+        let s = &crops["silage_maize"];
+        assert!(s.dry_matter() && !crops["corn"].dry_matter());
+        // 60 t/ha wet at 65 % moisture is 21 t DM/ha: DM = wet x (100 - M) / 100
+        // (../shared/CHECKS.md, forage crops; common practice).
+        let dm = crate::clean::to_standard_moisture(60_000.0, 65.0, s.standard_moisture_pct);
+        assert!((dm - 21_000.0).abs() < 1e-9, "{dm}");
+        assert_eq!(s.moisture_bounds(8.0, 40.0), (45.0, 85.0));
+        assert_eq!(crops["corn"].moisture_bounds(8.0, 40.0), (8.0, 40.0));
+        // No bushel: bu/ac output is refused, naming the fix.
+        let t = TEST_TRIAL
+            .replace("crop = \"corn\"", "crop = \"silage_maize\"")
+            .replace("output_unit = \"t_ha\"", "output_unit = \"bu_ac\"");
+        let e = TrialConfig::from_toml(&t, "t.toml", &[])
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("needs a bushel weight, and silage_maize has none"),
+            "{e}"
+        );
     }
 
     #[test]

@@ -99,15 +99,175 @@ impl YieldUnit {
 
 /// 1 lb/ac in kg/ha: 0.45359237 kg / 0.40468564224 ha (definitions of pound and acre).
 pub const LB_AC_IN_KG_HA: f64 = 0.45359237 / 0.40468564224;
+/// 1 lb in kg and 1 ac in ha (definitions of the international pound and acre).
+pub const LB_KG: f64 = 0.45359237;
+pub const AC_HA: f64 = 0.40468564224;
+
+crate::choice! {
+    /// The quantity of grain a price is given for (at standard moisture).
+    pub enum PriceUnit {
+        /// A tonne (1,000 kg).
+        Tonne = "t",
+        /// A quintal (100 kg).
+        Quintal = "q",
+        /// A kilogram.
+        Kilogram = "kg",
+        /// A bushel of the trial's crop (its bushel weight in lb, `crop.bushel_lb`).
+        Bushel = "bu",
+    }
+}
+
+impl PriceUnit {
+    /// kg of grain in one unit (a bushel needs the crop's bushel weight, lb).
+    pub fn kg(self, bushel_lb: f64) -> f64 {
+        match self {
+            PriceUnit::Tonne => 1000.0,
+            PriceUnit::Quintal => 100.0,
+            PriceUnit::Kilogram => 1.0,
+            PriceUnit::Bushel => bushel_lb * LB_KG,
+        }
+    }
+}
+
+crate::choice! {
+    /// The area a cost (or a net return) is given for.
+    pub enum AreaUnit {
+        /// A hectare.
+        Hectare = "ha",
+        /// An acre (0.40468564224 ha).
+        Acre = "ac",
+    }
+}
+
+impl AreaUnit {
+    /// Hectares in one unit.
+    pub fn ha(self) -> f64 {
+        match self {
+            AreaUnit::Hectare => 1.0,
+            AreaUnit::Acre => AC_HA,
+        }
+    }
+}
 
 /// One crop of the crop table.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Default, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct Crop {
     pub standard_moisture_pct: f64,
     pub bushel_lb: f64,
+    /// Bounds of a single record's yield, kg/ha at standard moisture.
     pub yield_min_kg_ha: f64,
     pub yield_max_kg_ha: f64,
+    /// Bounds of a plot's yield (0 = none: a plot outside the record bounds is flagged,
+    /// not set aside); set per trial in `[crop]`.
+    #[serde(default)]
+    pub plot_yield_min_kg_ha: f64,
+    #[serde(default)]
+    pub plot_yield_max_kg_ha: f64,
+    /// Plausible moisture at harvest of a crop harvested wet (forage), %; 0 = the grain
+    /// bounds `clean.moisture.min_pct` and `max_pct`.
+    #[serde(default)]
+    pub moisture_min_pct: f64,
+    #[serde(default)]
+    pub moisture_max_pct: f64,
+}
+
+impl Crop {
+    /// The moisture bounds the cleaning rules apply: the crop's own (forage crops), else
+    /// the `[clean.moisture]` settings.
+    pub fn moisture_bounds(&self, clean_min: f64, clean_max: f64) -> (f64, f64) {
+        if self.moisture_max_pct > 0.0 {
+            (self.moisture_min_pct, self.moisture_max_pct)
+        } else {
+            (clean_min, clean_max)
+        }
+    }
+    /// Whether yields are reported as dry matter (standard moisture 0 %, forage crops).
+    pub fn dry_matter(&self) -> bool {
+        self.standard_moisture_pct == 0.0
+    }
+    /// Whether the trial bounds plot yields (`crop.plot_yield_*`).
+    pub fn plot_bounds(&self) -> Option<(f64, f64)> {
+        (self.plot_yield_max_kg_ha > 0.0)
+            .then_some((self.plot_yield_min_kg_ha, self.plot_yield_max_kg_ha))
+    }
+}
+
+/// `[crop]` of a trial file: values over the crop table's entry (0 = the table's value),
+/// and bounds on a plot's yield (0 = none).
+#[derive(Clone, Debug, Default, Serialize, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct CropSettings {
+    pub standard_moisture_pct: f64,
+    pub bushel_lb: f64,
+    pub yield_min_kg_ha: f64,
+    pub yield_max_kg_ha: f64,
+    pub plot_yield_min_kg_ha: f64,
+    pub plot_yield_max_kg_ha: f64,
+}
+
+impl CropSettings {
+    /// The table's crop with this section's values (those above 0) over it.
+    pub fn over(&self, c: &Crop) -> Crop {
+        let pick = |own: f64, table: f64| if own > 0.0 { own } else { table };
+        Crop {
+            standard_moisture_pct: pick(self.standard_moisture_pct, c.standard_moisture_pct),
+            bushel_lb: pick(self.bushel_lb, c.bushel_lb),
+            yield_min_kg_ha: pick(self.yield_min_kg_ha, c.yield_min_kg_ha),
+            yield_max_kg_ha: pick(self.yield_max_kg_ha, c.yield_max_kg_ha),
+            plot_yield_min_kg_ha: self.plot_yield_min_kg_ha,
+            plot_yield_max_kg_ha: self.plot_yield_max_kg_ha,
+            moisture_min_pct: c.moisture_min_pct,
+            moisture_max_pct: c.moisture_max_pct,
+        }
+    }
+
+    /// A crop defined by this section alone, or the keys it lacks (`crop.` + name).
+    pub fn whole(&self) -> Result<Crop, Vec<String>> {
+        let missing: Vec<String> = [
+            ("standard_moisture_pct", self.standard_moisture_pct),
+            ("bushel_lb", self.bushel_lb),
+            ("yield_min_kg_ha", self.yield_min_kg_ha),
+            ("yield_max_kg_ha", self.yield_max_kg_ha),
+        ]
+        .into_iter()
+        .filter(|(_, v)| !(*v > 0.0))
+        .map(|(k, _)| format!("crop.{k}"))
+        .collect();
+        if missing.is_empty() {
+            Ok(self.over(&Crop::default()))
+        } else {
+            Err(missing)
+        }
+    }
+
+    /// Range problems, each naming its key.
+    pub fn problems(&self, p: &mut Vec<String>) {
+        for (k, v) in [
+            ("standard_moisture_pct", self.standard_moisture_pct),
+            ("bushel_lb", self.bushel_lb),
+            ("yield_min_kg_ha", self.yield_min_kg_ha),
+            ("yield_max_kg_ha", self.yield_max_kg_ha),
+            ("plot_yield_min_kg_ha", self.plot_yield_min_kg_ha),
+            ("plot_yield_max_kg_ha", self.plot_yield_max_kg_ha),
+        ] {
+            if !(v >= 0.0 && v.is_finite()) {
+                p.push(format!("crop.{k} must be 0 (not set) or above (got {v})"));
+            }
+        }
+        if self.standard_moisture_pct >= 100.0 {
+            p.push(format!(
+                "crop.standard_moisture_pct must be below 100 (got {})",
+                self.standard_moisture_pct
+            ));
+        }
+        let (lo, hi) = (self.plot_yield_min_kg_ha, self.plot_yield_max_kg_ha);
+        if (lo > 0.0 || hi > 0.0) && !(hi > lo) {
+            p.push(format!(
+                "crop.plot_yield_min_kg_ha must be below crop.plot_yield_max_kg_ha (got {lo} and {hi}); set the upper bound too"
+            ));
+        }
+    }
 }
 
 /// The crop table of `config/crops.toml`.

@@ -491,6 +491,13 @@ fn the_delay_scan_widens_past_its_edge_and_takes_negative_lags() {
             "{name}: the scan went below 0"
         );
     }
+    // The report says what a delay of about zero means, in plain words.
+    let md = read(&w.path("corrected/5-report/report.md"));
+    assert!(
+        md.contains("The flow delay estimate is about zero")
+            || md.contains("The flow delay estimate is negative"),
+        "{md}"
+    );
     // Negative lags may be asked for directly, within -20 to 40 s.
     ok(&plotsieve(
         &w.0,

@@ -315,3 +315,30 @@ pub fn copy_dir(from: &Path, to: &Path) {
         }
     }
 }
+
+/// Zip the files of `set` (a task-data folder) into `zip` under `TASKDATA/`, in name order;
+/// `member` may replace a file's bytes by writing its own into the archive (return true).
+pub fn zip_task_data(
+    set: &Path,
+    zip: &Path,
+    method: ::zip::CompressionMethod,
+    member: impl Fn(&str, &mut ::zip::ZipWriter<std::fs::File>) -> bool,
+) {
+    let f = std::fs::File::create(zip).unwrap();
+    let mut z = ::zip::ZipWriter::new(f);
+    let opts = ::zip::write::SimpleFileOptions::default()
+        .compression_method(method)
+        .large_file(true);
+    let mut names: Vec<String> = std::fs::read_dir(set)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+        .collect();
+    names.sort();
+    for n in names {
+        z.start_file(format!("TASKDATA/{n}"), opts).unwrap();
+        if !member(&n, &mut z) {
+            std::io::Write::write_all(&mut z, &std::fs::read(set.join(&n)).unwrap()).unwrap();
+        }
+    }
+    z.finish().unwrap();
+}

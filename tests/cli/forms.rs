@@ -507,7 +507,7 @@ fn a_yield_point_export_goes_in_and_skips_the_rules_it_cannot_feed() {
     let o = plotsieve(&w.0, &["check", pts.to_str().unwrap()]);
     ok(&o);
     assert!(String::from_utf8_lossy(&o.stdout).contains(
-        "yield dry_yield_t_ha (t_ha, dry basis, at standard moisture); no speed or distance; no swath width"
+        "yield dry_yield_t_ha (t_ha, dry basis, at standard moisture); speed not logged: from positions and times"
     ));
     run(&w, &text, "r-text");
     run(&w, &pts, "r-points");
@@ -520,7 +520,6 @@ fn a_yield_point_export_goes_in_and_skips_the_rules_it_cannot_feed() {
     let ex = &s["details"]["exports"]["monitor/field-A.csv"];
     for (rule, why) in [
         ("moisture_stuck", "not a sensor reading"),
-        ("speed_min", "no speed or distance"),
         ("swath_fraction", "no swath width"),
         ("flow_delay_no_data", "no mass flow"),
     ] {
@@ -690,4 +689,48 @@ fn monitor_points_from_shapefiles_and_geopackages_read_as_the_text_exports() {
             .zip(&rb)
             .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
     }
+}
+
+#[test]
+fn a_task_data_zip_that_inflates_to_a_gigabyte_of_zeros_is_refused_before_it_is_read() {
+    // Before: a 1 MB archive whose time log inflates to 1 GB of zero bytes made `check` grow
+    // to 24 GB until the kernel killed it. Now the member's declared size and inflation are
+    // checked before anything is inflated, and the error names the member. The archive is
+    // built here (about 1 MB), not committed.
+    let w = Workdir::new("forms-zip-bomb");
+    let t = simulate(&w, "td", &["--seed", "2", "--form", "taskdata", "--quiet"]);
+    let set = w.path("td/monitor/TASKDATA");
+    zip_task_data(
+        &set,
+        &w.path("td/monitor/harvest.zip"),
+        ::zip::CompressionMethod::Deflated,
+        |n, z| {
+            if n != "TLG00001.BIN" {
+                return false;
+            }
+            let zeros = vec![0u8; 1 << 20];
+            for _ in 0..1024 {
+                std::io::Write::write_all(z, &zeros).unwrap();
+            }
+            true
+        },
+    );
+    std::fs::remove_dir_all(&set).unwrap();
+    let zip_len = std::fs::metadata(w.path("td/monitor/harvest.zip"))
+        .unwrap()
+        .len();
+    assert!(zip_len < 4 << 20, "{zip_len}");
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(1));
+    let out = format!(
+        "{}{}",
+        String::from_utf8_lossy(&o.stdout),
+        String::from_utf8_lossy(&o.stderr)
+    );
+    assert!(
+        out.contains("harvest.zip")
+            && out.contains("TASKDATA/TLG00001.BIN: declares 1073741824 bytes")
+            && out.contains("not read"),
+        "{out}"
+    );
 }

@@ -306,3 +306,53 @@ fn broken_plot_polygons_are_refused_by_check_and_run_naming_the_plot() {
         "failed"
     );
 }
+
+#[test]
+fn end_trims_longer_than_a_plot_keep_its_middle_and_side_trims_that_leave_nothing_are_named() {
+    // Before: a plot shorter than twice plots.end_trim_m lost every point, in silence
+    // (research plots of 6-12 m are common). Now each end trim is at most
+    // plots.end_trim_max_fraction (0.3) of the plot's length: on the demo's 59.7 m plots a
+    // 40 m trim is cut back to 17.9 m, so every plot keeps its middle 40 % (the net area is
+    // 0.4 x the plot's length by its width less the two 0.5 m side trims).
+    let w = Workdir::new("short-plots");
+    let t = repo().join("sample-input/trial.toml");
+    let t = t.to_str().unwrap();
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            t,
+            "--out",
+            "b",
+            "--quiet",
+            "--set",
+            "plots.end_trim_m=40",
+        ],
+    ));
+    let b = csv_rows(&w.path("b/3-plots/plots.csv"));
+    assert_eq!(b.len(), 48);
+    // Every plot keeps points (a few fall under plots.min_points with 40 % of their
+    // length: set aside by that rule, as they should be).
+    let kept = b.iter().filter(|p| p["status"] == "kept").count();
+    assert!(kept >= 40, "{kept}");
+    for p in &b {
+        assert!(p["points"].parse::<u64>().unwrap() > 0, "{p:?}");
+        let (area, net): (f64, f64) = (
+            p["area_m2"].parse().unwrap(),
+            p["net_area_m2"].parse().unwrap(),
+        );
+        // 18.3 m wide: (18.3 - 1) / 18.3 of the width.
+        let want = 0.4 * (18.3 - 1.0) / 18.3;
+        assert!((net / area - want).abs() < 0.005, "{p:?}: {}", net / area);
+    }
+    // Side trims of half the plots' width (about 18 m) or more leave nothing: said, with
+    // the fix.
+    let o = plotsieve(&w.0, &["check", t, "--set", "plots.side_trim_m=12"]);
+    assert_eq!(o.status.code(), Some(1));
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("48 plot(s) are too small for their trims")
+            && out.contains("set it below half the plot's width"),
+        "{out}"
+    );
+}

@@ -186,22 +186,12 @@ fn a_zipped_task_data_set_in_the_inbox_goes_to_its_trial() {
     let inbox = w.path("inbox");
     std::fs::create_dir_all(&inbox).unwrap();
     let set = w.path("north/monitor/TASKDATA");
-    {
-        let f = std::fs::File::create(inbox.join("north-harvest.zip")).unwrap();
-        let mut z = ::zip::ZipWriter::new(f);
-        let opts = ::zip::write::SimpleFileOptions::default()
-            .compression_method(::zip::CompressionMethod::Stored);
-        let mut names: Vec<String> = std::fs::read_dir(&set)
-            .unwrap()
-            .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
-            .collect();
-        names.sort();
-        for n in names {
-            z.start_file(format!("TASKDATA/{n}"), opts).unwrap();
-            std::io::Write::write_all(&mut z, &std::fs::read(set.join(&n)).unwrap()).unwrap();
-        }
-        z.finish().unwrap();
-    }
+    zip_task_data(
+        &set,
+        &inbox.join("north-harvest.zip"),
+        ::zip::CompressionMethod::Stored,
+        |_, _| false,
+    );
     std::fs::copy(set.join("TASKDATA.XML"), inbox.join("TASKDATA.XML")).unwrap();
     std::fs::remove_dir_all(&set).unwrap();
     std::fs::write(

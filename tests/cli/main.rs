@@ -13,6 +13,7 @@ mod forms;
 mod geometry;
 mod inputs;
 mod intake;
+mod open_data;
 mod plot_layers;
 mod priors;
 mod report;

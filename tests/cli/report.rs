@@ -188,7 +188,7 @@ fn economics_columns_appear_only_with_a_price() {
             "priced",
             "--quiet",
             "--set",
-            "adjust.grain_price_per_t=180",
+            "adjust.grain_price=180",
         ],
     ));
     let html = read(&w.path("priced/5-report/report.html"));

@@ -359,3 +359,67 @@ fn the_report_summary_counts_the_plots_it_reports() {
     );
     assert_eq!(report["details"]["warnings_shown"], 0);
 }
+
+#[cfg(unix)]
+#[test]
+fn one_process_at_a_time_per_run_folder_and_a_killed_holder_is_taken_over() {
+    // Before: two processes in one run folder at once raced (a rename error; one trial's
+    // adjust fitting the other's plots; both exiting 0 with one trial's results). The
+    // first process here waits, holding the folder, on a design table that is a named pipe
+    // nothing writes to yet.
+    let w = Workdir::new("lock");
+    let t = simulate(&w, "trial", &["--seed", "2", "--quiet"]);
+    let t = t.to_str().unwrap();
+    let design = w.path("trial/design.csv");
+    let text = std::fs::read(&design).unwrap();
+    std::fs::remove_file(&design).unwrap();
+    ok(&Command::new("mkfifo").arg(&design).output().unwrap());
+    let mut first = Command::new(BIN)
+        .args(["run", t, "--out", "run", "--quiet"])
+        .current_dir(&w.0)
+        .spawn()
+        .unwrap();
+    let lock = w.path(".run.lock");
+    let holder = format!("pid {}", first.id());
+    let start = std::time::Instant::now();
+    while !std::fs::read_to_string(&lock).is_ok_and(|s| s.starts_with(&holder)) {
+        assert!(
+            start.elapsed().as_secs() < 30,
+            "the first run never took the lock"
+        );
+        std::thread::sleep(std::time::Duration::from_millis(20));
+    }
+    for args in [
+        vec!["run", t, "--out", "run", "--quiet"],
+        vec!["stage", "report", t, "--out", "run", "--quiet"],
+    ] {
+        let o = plotsieve(&w.0, &args);
+        assert_eq!(o.status.code(), Some(1), "{args:?}");
+        let e = String::from_utf8_lossy(&o.stderr);
+        assert!(
+            e.contains("run folder run is in use by another plotsieve process")
+                && e.contains(&format!("{holder}, command "))
+                && e.contains("started "),
+            "{e}"
+        );
+    }
+    // Killed while holding it: the next run takes the folder over and says so.
+    first.kill().unwrap();
+    first.wait().unwrap();
+    assert!(lock.exists());
+    std::fs::remove_file(&design).unwrap();
+    std::fs::write(&design, &text).unwrap();
+    let o = plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]);
+    ok(&o);
+    assert!(
+        String::from_utf8_lossy(&o.stderr).contains("took over the lock of run folder run"),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    // Released when done: no lock file is left beside the folder.
+    assert!(!lock.exists());
+    assert_eq!(
+        json(&w.path("run/manifest.json"))["stages"]["report"]["status"],
+        "done"
+    );
+}

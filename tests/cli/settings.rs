@@ -207,3 +207,119 @@ fn check_finds_what_cleaning_and_the_plots_would_lose() {
     assert_ne!(o.status.code(), Some(0));
     assert!(!w.path("runs").exists(), "check writes nothing");
 }
+
+#[test]
+fn prices_in_bushels_and_acres_give_the_decisions_of_tonnes_and_hectares() {
+    // Before: grain_price_per_t and product_cost_per_ha were per tonne and per hectare even
+    // in a bu_ac trial, so a bushel price and an acre cost gave break-even wrong by about
+    // 39x for corn and nothing could notice. Now each price carries its unit. Corn: 1 bu =
+    // 56 lb = 25.40117272 kg; 1 ac = 0.40468564224 ha (definitions; ../shared/CHECKS.md).
+    let w = Workdir::new("money-units");
+    let t = repo().join("sample-input/trial.toml");
+    let t = t.to_str().unwrap();
+    let per_bu = 180.0 * 56.0 * 0.45359237 / 1000.0;
+    let per_ac = 30.0 * 0.40468564224;
+    let metric = [
+        "adjust.grain_price=180".to_string(),
+        "adjust.grain_price_unit=t".into(),
+        "adjust.product_cost.prod-a=30".into(),
+        "adjust.product_cost.prod-b=30".into(),
+    ];
+    let bushel_prices = [
+        format!("adjust.grain_price={per_bu}"),
+        "adjust.grain_price_unit=bu".into(),
+        format!("adjust.product_cost.prod-a={per_ac}"),
+        format!("adjust.product_cost.prod-b={per_ac}"),
+        "adjust.product_cost_unit=ac".into(),
+    ];
+    let mut imperial = bushel_prices.to_vec();
+    imperial.push("trial.output_unit=bu_ac".into());
+    for (out, sets) in [
+        ("metric", &metric[..]),
+        ("mixed", &bushel_prices[..]),
+        ("imperial", &imperial[..]),
+    ] {
+        let mut args = vec!["run", t, "--out", out, "--quiet"];
+        for s in sets.iter() {
+            args.extend(["--set", s.as_str()]);
+        }
+        ok(&plotsieve(&w.0, &args));
+    }
+    let rows = |run: &str| csv_rows(&w.path(&format!("{run}/4-adjust/treatments.csv")));
+    let f = |r: &BTreeMap<String, String>, k: &str| r[k].parse::<f64>().unwrap_or(f64::NAN);
+    let (a, m, b) = (rows("metric"), rows("mixed"), rows("imperial"));
+    assert_eq!((a.len(), m.len()), (b.len(), b.len()));
+    // The same trial priced in $/bu and $/ac: the same break-even, odds and net returns.
+    let mut priced = 0;
+    for (x, y) in a.iter().zip(&m) {
+        for k in [
+            "break_even_t_ha",
+            "p_uplift_gt_break_even",
+            "expected_net_return_per_ha",
+        ] {
+            let (u, v) = (f(x, k), f(y, k));
+            assert!(
+                u.is_nan() && v.is_nan() || (u - v).abs() <= 1e-6 * u.abs().max(1.0),
+                "{k}: {u} {v}"
+            );
+        }
+        priced += usize::from(f(x, "p_uplift_gt_break_even").is_finite());
+    }
+    assert!(priced >= 2, "{priced}");
+    // Reported in bu/ac: break-even is the same yield in bu/ac, and the odds the same within
+    // 0.005 (the fit itself, priced or not, moves P(uplift > 0) by up to 0.002 between
+    // output units: measured on this trial, a property of the fit, not of the prices).
+    let bu_ac_per_t_ha = 1000.0 / (0.45359237 / 0.40468564224 * 56.0);
+    for (x, y) in a.iter().zip(&b) {
+        assert_eq!(
+            (&x["field"], &x["treatment"]),
+            (&y["field"], &y["treatment"])
+        );
+        let (pa, pb) = (
+            f(x, "p_uplift_gt_break_even"),
+            f(y, "p_uplift_gt_break_even"),
+        );
+        if pa.is_nan() {
+            assert!(pb.is_nan(), "{x:?} {y:?}");
+            continue;
+        }
+        assert!((pa - pb).abs() < 0.005, "{pa} {pb}");
+        let (ba, bb) = (f(x, "break_even_t_ha"), f(y, "break_even_bu_ac"));
+        // (to the six decimals the tables print; a product without a cost breaks even at 0)
+        assert!(
+            ba == 0.0 && bb == 0.0 || (ba * bu_ac_per_t_ha / bb - 1.0).abs() < 1e-5,
+            "{ba} t/ha, {bb} bu/ac"
+        );
+    }
+    // The report says the units and shows net returns per acre.
+    let md = read(&w.path("imperial/5-report/report.md"));
+    assert!(
+        md.contains("per bu at standard moisture; product costs and net returns per ac")
+            && md.contains("expected net return per ac"),
+        "{md}"
+    );
+    // The old keys are refused with the new spelling, never read in another unit.
+    let o = plotsieve(&w.0, &["check", t, "--set", "adjust.grain_price_per_t=180"]);
+    assert_eq!(o.status.code(), Some(1));
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("adjust.grain_price_per_t is no longer read")
+            && e.contains("adjust.grain_price with adjust.grain_price_unit"),
+        "{e}"
+    );
+    let old = format!(
+        "{}\n[adjust]\nproduct_cost_per_ha = {{ \"prod-a\" = 30.0 }}\n",
+        read(&repo().join("sample-input/trial.toml"))
+    );
+    std::fs::create_dir_all(w.path("old")).unwrap();
+    copy_dir(&repo().join("sample-input"), &w.path("old"));
+    std::fs::write(w.path("old/trial.toml"), old).unwrap();
+    let o = plotsieve(&w.0, &["check", "old/trial.toml"]);
+    assert_eq!(o.status.code(), Some(1));
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("adjust.product_cost_per_ha is no longer read")
+            && e.contains("adjust.product_cost with adjust.product_cost_unit"),
+        "{e}"
+    );
+}

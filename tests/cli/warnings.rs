@@ -109,6 +109,45 @@ fn a_rule_that_takes_much_of_an_export_is_a_warning() {
 }
 
 #[test]
+fn a_rule_that_takes_far_more_of_one_export_than_of_the_others_is_a_warning() {
+    // Three exports; one's moisture sensor reads 45 % for the first 30 % of its records (a
+    // sensor fault): moisture_max takes about that share of the export (under the 0.5
+    // share) and none of the others', which is unusual and said, with the median share.
+    let w = Workdir::new("share-unusual");
+    let trial = simulate(&w, "t", &["--seed", "9", "--fields", "3", "--quiet"]);
+    let f = w.path("t/monitor/field-B.csv");
+    let text = read(&f);
+    let lines: Vec<&str> = text.lines().collect();
+    let header = lines[0].to_string();
+    let k = header.split(',').position(|c| c == "moisture_pct").unwrap();
+    let n = lines.len() - 1;
+    let mut out = vec![header];
+    for (i, l) in lines[1..].iter().enumerate() {
+        let mut v: Vec<String> = l.split(',').map(String::from).collect();
+        if i < n * 3 / 10 {
+            v[k] = "45.0".into();
+        }
+        out.push(v.join(","));
+    }
+    std::fs::write(&f, out.join("\n") + "\n").unwrap();
+    let o = plotsieve(
+        &w.0,
+        &["run", trial.to_str().unwrap(), "--out", "run", "--quiet"],
+    );
+    ok(&o);
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("warning: stage clean: export monitor/field-B.csv: rule moisture_max removed")
+            && e.contains("against a median of 0 % over the trial's 3 exports"),
+        "{e}"
+    );
+    assert!(
+        !e.contains("export monitor/field-A.csv: rule moisture_max"),
+        "{e}"
+    );
+}
+
+#[test]
 fn degenerate_data_gives_no_confident_answer() {
     let w = Workdir::new("degenerate");
     let trial = simulate(&w, "t", &["--seed", "11"]);

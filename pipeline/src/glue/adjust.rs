@@ -41,7 +41,9 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         }
         table.plots
     };
-    let mut s = cfg.adjust.checked(&cfg.trial.check, unit.kg_ha_per_unit());
+    let mut s = cfg
+        .adjust
+        .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb);
     let mut carried = None;
     if !cfg.adjust.priors_from.is_empty() {
         let name = &cfg.adjust.priors_from;

@@ -41,6 +41,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         &design,
         &cfg.design_name(),
         &cfg.plots,
+        c.crop.plot_bounds(),
     );
     let kept: Vec<_> = o.assignment.iter().map(|&(i, _)| pts[i].clone()).collect();
     // The points kept in plots are copied out: the rest are no longer needed.

@@ -37,6 +37,10 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
                 .map(move |w| format!("{stage}: {w}"))
         })
         .collect();
+    let money = cfg
+        .adjust
+        .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb)
+        .money;
     let md = report::markdown(&report::ReportInput {
         trial_name: &cfg.trial.name,
         unit_label: unit.label(),
@@ -46,6 +50,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         treatments: &treatments,
         hyper: &hyper,
         warnings: &warnings,
+        money: Some(&money),
     });
     io::write_atomic(&dir.join("report.md"), md.as_bytes())?;
     // The HTML report: maps of every record, of what each rule removed, of the plots (none
@@ -134,6 +139,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         hyper: &hyper,
         comparisons: &comparisons,
         warnings: &warnings,
+        money: Some(&money),
     });
     io::write_atomic(&dir.join("report.html"), html.as_bytes())?;
     // The report removes nothing: its counts are the plots it reports on (those the adjust

@@ -2,6 +2,7 @@
 //! the checked form the fit takes (`FitSettings`).
 
 use super::Kernel;
+use crate::crop::{AreaUnit, PriceUnit};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
@@ -60,19 +61,42 @@ pub struct FitSettings {
     /// Importance draws of a joint fit.
     pub joint_draws: usize,
     pub seed: u64,
-    /// Grain price per tonne at standard moisture (0 = no economics).
+    /// Grain price per tonne at standard moisture (0 = no economics), converted from the
+    /// trial's `grain_price` in its `grain_price_unit`.
     pub grain_price_per_t: f64,
-    /// Product cost per hectare, by treatment.
+    /// Product cost per hectare, by treatment (from `product_cost` per
+    /// `product_cost_unit`).
     pub product_cost_per_ha: BTreeMap<String, f64>,
+    /// The units the trial gave its prices in, for the reports.
+    pub money: Money,
     /// kg/ha in one output unit. Yields are fitted in kg/ha; the log marginal likelihoods
     /// are stated for the yields in the output unit (a density changes with the unit).
     pub kg_ha_per_unit: f64,
 }
 
+/// Prices as the trial gave them: the grain price and its unit, the cost area unit.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Money {
+    pub grain_price: f64,
+    pub grain_price_unit: PriceUnit,
+    pub product_cost_unit: AreaUnit,
+}
+
+impl Money {
+    /// The prices in words for the reports, e.g. "grain 4.5 per bu at standard moisture;
+    /// product costs per ac".
+    pub fn words(&self) -> String {
+        format!(
+            "grain {} per {} at standard moisture; product costs and net returns per {}",
+            self.grain_price, self.grain_price_unit, self.product_cost_unit
+        )
+    }
+}
+
 impl FitSettings {
     /// The defaults of `config/defaults.toml`, for tests and benchmarks.
     pub fn new(check: &str) -> FitSettings {
-        crate::defaults::section::<AdjustSettings>("adjust").checked(check, 1.0)
+        crate::defaults::section::<AdjustSettings>("adjust").checked(check, 1.0, f64::NAN)
     }
 }
 /// `[adjust]` settings.
@@ -102,8 +126,12 @@ pub struct AdjustSettings {
     pub hsgp_boundary_factor: f64,
     pub joint_draws: i64,
     pub seed: i64,
-    pub grain_price_per_t: f64,
-    pub product_cost_per_ha: BTreeMap<String, f64>,
+    /// Grain price at standard moisture per `grain_price_unit` (0 = no economics).
+    pub grain_price: f64,
+    pub grain_price_unit: PriceUnit,
+    /// Each product's cost per `product_cost_unit`.
+    pub product_cost: BTreeMap<String, f64>,
+    pub product_cost_unit: AreaUnit,
     pub plot_table: String,
     /// Accept a result from which a field is missing (its plots all set aside, or it cannot
     /// be fitted); otherwise that is an error.
@@ -113,9 +141,10 @@ pub struct AdjustSettings {
 }
 
 impl AdjustSettings {
-    /// The fit's settings in kg/ha: the trial's check treatment, and kg/ha in one output unit
-    /// (the trial file gives priors in the output unit).
-    pub fn checked(&self, check: &str, kg_ha_per_unit: f64) -> FitSettings {
+    /// The fit's settings in kg/ha: the trial's check treatment, kg/ha in one output unit
+    /// (the trial file gives priors in the output unit) and the crop's bushel weight in lb
+    /// (for a price per bushel).
+    pub fn checked(&self, check: &str, kg_ha_per_unit: f64, bushel_lb: f64) -> FitSettings {
         let a = self;
         let k = kg_ha_per_unit;
         FitSettings {
@@ -151,8 +180,17 @@ impl AdjustSettings {
             hsgp_boundary: a.hsgp_boundary_factor,
             joint_draws: a.joint_draws as usize,
             seed: a.seed as u64,
-            grain_price_per_t: a.grain_price_per_t,
-            product_cost_per_ha: a.product_cost_per_ha.clone(),
+            grain_price_per_t: a.grain_price * 1000.0 / a.grain_price_unit.kg(bushel_lb),
+            product_cost_per_ha: a
+                .product_cost
+                .iter()
+                .map(|(t, c)| (t.clone(), c / a.product_cost_unit.ha()))
+                .collect(),
+            money: Money {
+                grain_price: a.grain_price,
+                grain_price_unit: a.grain_price_unit,
+                product_cost_unit: a.product_cost_unit,
+            },
             kg_ha_per_unit,
         }
     }
@@ -175,9 +213,9 @@ impl AdjustSettings {
         };
         nonneg("adjust.min_range_m", self.min_range_m);
         nonneg("adjust.max_range_m", self.max_range_m);
-        nonneg("adjust.grain_price_per_t", self.grain_price_per_t);
-        for (k, v) in &self.product_cost_per_ha {
-            nonneg(&format!("adjust.product_cost_per_ha.{k}"), *v);
+        nonneg("adjust.grain_price", self.grain_price);
+        for (k, v) in &self.product_cost {
+            nonneg(&format!("adjust.product_cost.{k}"), *v);
         }
         if self.max_range_m > 0.0 && self.min_range_m >= self.max_range_m {
             p.push(format!(

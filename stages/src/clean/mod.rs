@@ -215,11 +215,13 @@ fn clean_export<'a>(
     );
     let moisture = any(|p| p.moisture_pct);
     let given = any(|p| p.yield_kg_ha);
+    let timed = any(|p| p.time_s);
     let has = |q: rules::Quantity| match q {
         rules::Quantity::Flow => flow,
         rules::Quantity::Speed => speed,
         rules::Quantity::Width => width,
         rules::Quantity::Moisture => moisture,
+        rules::Quantity::Time => timed,
         rules::Quantity::MoistureSensor => moisture && !given,
     };
     for rule in RULES {
@@ -370,6 +372,15 @@ pub fn run_with(
     }
 }
 
+/// An export's share of points removed by one rule is unusual, and a warning, when the trial
+/// has at least this many exports, the share exceeds [`UNUSUAL_MIN_SHARE`] and it is more
+/// than [`UNUSUAL_FACTOR`] times the median share of that rule over the exports. Common
+/// practice, no source: a rule that takes a fifth of one export's records and a twentieth
+/// of the others' points at that export's sensors or mapping.
+const UNUSUAL_MIN_EXPORTS: usize = 3;
+const UNUSUAL_MIN_SHARE: f64 = 0.2;
+const UNUSUAL_FACTOR: f64 = 4.0;
+
 /// An estimated delay at the edge of its (possibly widened) scan (the true delay may lie
 /// beyond it, or the export was already delay-corrected), a flat objective (the lag barely
 /// matters to the pairs' agreement: a weak estimate), or a fixed fallback where an estimate
@@ -448,7 +459,8 @@ fn delay_warnings(export: &str, d: &ExportDetails, s: &CleanSettings) -> Vec<Str
 /// the minimum).
 const FLAT_OBJECTIVE: f64 = 0.1;
 
-/// Exports that lost every point, or more than `share` of them to one rule.
+/// Exports that lost every point, more than `share` of them to one rule, or an unusual share
+/// to one rule compared with the other exports (see [`UNUSUAL_FACTOR`]).
 fn export_warnings(points: &PointSet, summary: &StageSummary, share: f64) -> Vec<String> {
     let mut n_per_file: BTreeMap<&str, u64> = BTreeMap::new();
     for p in &points.points {
@@ -456,8 +468,25 @@ fn export_warnings(points: &PointSet, summary: &StageSummary, share: f64) -> Vec
             .entry(points.files[p.file as usize].as_str())
             .or_default() += 1;
     }
+    // Each rule's share of each export's points, for comparing an export with the others.
+    let share_of = |f: &str, rule: &str, n: u64| {
+        summary
+            .by_file
+            .get(f)
+            .and_then(|b| b.get(rule))
+            .map_or(0.0, |k| *k as f64 / n.max(1) as f64)
+    };
+    let rules: std::collections::BTreeSet<&String> =
+        summary.by_file.values().flat_map(|b| b.keys()).collect();
+    let median_share: BTreeMap<&str, f64> = rules
+        .iter()
+        .map(|r| {
+            let v: Vec<f64> = n_per_file.iter().map(|(f, n)| share_of(f, r, *n)).collect();
+            (r.as_str(), crate::util::median(&v))
+        })
+        .collect();
     let mut out = Vec::new();
-    for (f, n) in n_per_file {
+    for (&f, &n) in &n_per_file {
         let Some(by) = summary.by_file.get(f) else {
             continue;
         };
@@ -476,10 +505,22 @@ fn export_warnings(points: &PointSet, summary: &StageSummary, share: f64) -> Vec
             continue;
         }
         for (rule, k) in by {
+            let own = *k as f64 / n as f64;
+            let typical = median_share.get(rule.as_str()).copied().unwrap_or(0.0);
             if *k as f64 > share * n as f64 {
                 out.push(format!(
                     "export {f}: rule {rule} removed {k} of its {n} points ({:.0} %, above clean.warn_rule_share = {share})",
-                    100.0 * *k as f64 / n as f64
+                    100.0 * own
+                ));
+            } else if n_per_file.len() >= UNUSUAL_MIN_EXPORTS
+                && own > UNUSUAL_MIN_SHARE
+                && own > UNUSUAL_FACTOR * typical
+            {
+                out.push(format!(
+                    "export {f}: rule {rule} removed {k} of its {n} points ({:.0} %), against a median of {:.0} % over the trial's {} exports: check this export's sensors or mapping",
+                    100.0 * own,
+                    100.0 * typical,
+                    n_per_file.len()
                 ));
             }
         }

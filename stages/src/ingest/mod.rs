@@ -19,6 +19,7 @@ pub mod formats;
 pub mod geojson;
 pub mod geopackage;
 pub mod layers;
+pub mod layout_checks;
 pub mod plot_checks;
 pub mod plot_table;
 #[cfg(test)]
@@ -243,6 +244,8 @@ pub fn run_with(
     // Treatment, strip and replicate labels of the records, over all exports (0: none).
     let mut tags: Vec<[String; 3]> = vec![Default::default()];
     let mut count_in = 0;
+    // Exports whose moisture read 0 (no reading) in some records.
+    let mut zero_moisture: Vec<String> = Vec::new();
     // How each export was read (format and mapping), for the summary and the report.
     let mut how: std::collections::BTreeMap<String, String> = Default::default();
     // Exports are read in parallel (each on its own), then taken in order.
@@ -273,6 +276,7 @@ pub fn run_with(
             p
         }));
         rejections.extend(read.rejections);
+        zero_moisture.extend(read.zero_moisture.iter().filter_map(|z| z.warning()));
     }
     let labelled = cfg.plots_from_labels();
     let prescription = if cfg.inputs.prescription.is_empty() {
@@ -398,6 +402,8 @@ pub fn run_with(
     let (polygons, design, mut warnings) = reconcile(cfg, &plots_name, polygons, design)?;
     warnings.extend(strip_warnings);
     warnings.extend(unread_exports(&names, &raw, &rejections));
+    warnings.extend(design_layout_warnings(&polygons, &design));
+    warnings.extend(zero_moisture);
     if let Some(d) = &strip_details {
         // How the plots were made, beside how each export was read (the report shows both).
         let fields: Vec<String> = d["fields"]
@@ -663,4 +669,35 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
         }
     }
     problems
+}
+
+/// Warnings about how the design lies on the plots ([`layout_checks`]): blocks that repeat
+/// one treatment order.
+fn design_layout_warnings(polygons: &[PlotPolygon], design: &[DesignRow]) -> Vec<String> {
+    let centre: std::collections::HashMap<&str, (f64, f64)> = polygons
+        .iter()
+        .map(|p| {
+            let ring = &p.exterior[..p.exterior.len().saturating_sub(1).max(1)];
+            let n = ring.len() as f64;
+            let (x, y) = ring
+                .iter()
+                .fold((0.0, 0.0), |(a, b), (x, y)| (a + x, b + y));
+            (p.plot_id.as_str(), (x / n, y / n))
+        })
+        .collect();
+    let placed: Vec<layout_checks::Placed> = design
+        .iter()
+        .filter_map(|d| {
+            centre
+                .get(d.plot_id.as_str())
+                .map(|&(x, y)| layout_checks::Placed {
+                    field: &d.field,
+                    block: &d.block,
+                    treatment: &d.treatment,
+                    x,
+                    y,
+                })
+        })
+        .collect();
+    layout_checks::repeated_orders(&placed)
 }

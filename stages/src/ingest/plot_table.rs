@@ -13,9 +13,12 @@
 //!   centroids, projected to UTM (the layer's CRS from `inputs.crs`, else its own).
 //!
 //! A row or feature that cannot be used is a rejection naming its line (a layer: its feature
-//! or record number) and column (`missing_value`, `unparseable`, `yield_bounds` for a yield
-//! outside the crop's biological bounds, `bad_geometry` for a feature that is not one
-//! polygon); a duplicate plot id, a missing column or a table with no row is an error, and
+//! or record number) and column (`missing_value`, `unparseable`, `negative_value`,
+//! `plot_yield_bounds` for a yield outside the trial's plot bounds `crop.plot_yield_*_kg_ha`
+//! when it sets them, `bad_geometry` for a feature that is not one polygon). A yield outside
+//! the crop's bounds for single monitor records is kept and listed in
+//! [`PlotTable::outside_record_bounds`] (a warning): real plots of a poor strip or a
+//! hailed block yield less than any healthy record; a duplicate plot id, a missing column or a table with no row is an error, and
 //! [`PlotTable::usable`] makes one with no usable row an error.
 
 use super::layers::{self, Geometry};
@@ -38,6 +41,41 @@ pub struct PlotTable {
     pub read_as: String,
     /// What a row is called in messages: "line" (CSV), "feature" or "record" (layers).
     pub word: &'static str,
+    /// Plots kept whose yield lies outside the crop's bounds for single records (the trial
+    /// sets no plot bounds): (plot id, yield kg/ha).
+    pub outside_record_bounds: Vec<(String, f64)>,
+}
+
+impl PlotTable {
+    /// The warning for [`PlotTable::outside_record_bounds`], naming up to ten plots.
+    pub fn bounds_warning(&self, name: &str, crop: &Crop) -> Option<String> {
+        outside_bounds_warning(name, &self.outside_record_bounds, crop)
+    }
+}
+
+/// A warning naming plots kept although their yield lies outside the crop's bounds for single
+/// records (up to ten by id, then how many more).
+pub fn outside_bounds_warning(name: &str, plots: &[(String, f64)], crop: &Crop) -> Option<String> {
+    if plots.is_empty() {
+        return None;
+    }
+    let shown: Vec<String> = plots
+        .iter()
+        .take(10)
+        .map(|(id, kg)| format!("{id} ({kg:.0} kg/ha)"))
+        .collect();
+    let more = if plots.len() > 10 {
+        format!(" and {} more", plots.len() - 10)
+    } else {
+        String::new()
+    };
+    Some(format!(
+        "{name}: {} plot(s) yield outside {}-{} kg/ha, the crop's bounds for single monitor records, and are kept: {}{more}; check them, or set crop.plot_yield_min_kg_ha and crop.plot_yield_max_kg_ha to set such plots aside",
+        plots.len(),
+        crop.yield_min_kg_ha,
+        crop.yield_max_kg_ha,
+        shown.join(", ")
+    ))
 }
 
 const PLOT_ID: &[&str] = &["plot_id", "plot"];
@@ -364,9 +402,11 @@ fn validate(src: Source, name: &str, crop: &Crop, n: &Names) -> Result<PlotTable
             i_field.map(names).unwrap_or_else(|| "(none: all plots in field 1)".into())
         ),
         word,
+        outside_record_bounds: Vec::new(),
     };
     let mut seen: BTreeMap<String, u64> = BTreeMap::new();
     let (lo, hi) = (crop.yield_min_kg_ha, crop.yield_max_kg_ha);
+    let plot_bounds = crop.plot_bounds();
     for (k, (line, cells)) in src.rows.iter().enumerate() {
         let line = *line;
         let cell = |i: usize| cells.get(i).cloned().unwrap_or_default();
@@ -401,14 +441,31 @@ fn validate(src: Source, name: &str, crop: &Crop, n: &Names) -> Result<PlotTable
             continue;
         };
         let kg = y * per_unit;
-        if !(lo..=hi).contains(&kg) {
+        if kg < 0.0 {
             out.rejections.push(rej(
-                "yield_bounds",
+                "negative_value",
                 &names(i_yield),
                 &cell(i_yield),
-                &format!("{lo}-{hi} kg/ha (the crop's bounds)"),
+                ">= 0",
             ));
             continue;
+        }
+        match plot_bounds {
+            Some((plo, phi)) if !(plo..=phi).contains(&kg) => {
+                out.rejections.push(rej(
+                    "plot_yield_bounds",
+                    &names(i_yield),
+                    &cell(i_yield),
+                    &format!(
+                        "{plo}-{phi} kg/ha (crop.plot_yield_min_kg_ha and plot_yield_max_kg_ha)"
+                    ),
+                ));
+                continue;
+            }
+            None if !(lo..=hi).contains(&kg) => {
+                out.outside_record_bounds.push((id.clone(), kg));
+            }
+            _ => {}
         }
         let at = match (&columns, &src.given) {
             (Some((i_x, i_y, sx, sy, _)), _) => match (num(*i_x), num(*i_y)) {
@@ -484,10 +541,16 @@ mod tests {
     use super::*;
     use crate::crop::crop_table;
 
+    /// A wheat plot table from `text`, read with 1.5 m rows and 6 m ranges.
     fn table(text: &str) -> Result<PlotTable, IngestError> {
+        table_of(text, &crop_table()["wheat"])
+    }
+
+    /// [`table`] for any crop values.
+    fn table_of(text: &str, crop: &Crop) -> Result<PlotTable, IngestError> {
         let dir = std::env::temp_dir().join(format!("plotsieve-pt-{}", std::process::id()));
         std::fs::create_dir_all(&dir).unwrap();
-        let p = dir.join(format!("t{}.csv", text.len()));
+        let p = dir.join(format!("t{}-{}.csv", text.len(), crop.plot_yield_max_kg_ha));
         std::fs::write(&p, text).unwrap();
         let names = Names {
             row_spacing: 1.5,
@@ -496,7 +559,7 @@ mod tests {
             yield_property: "",
             yield_unit: "",
         };
-        let r = read(&p, "t.csv", &crop_table()["wheat"], &names);
+        let r = read(&p, "t.csv", crop, &names);
         std::fs::remove_file(&p).unwrap();
         r
     }
@@ -513,7 +576,15 @@ mod tests {
         )
         .unwrap();
         assert_eq!(t.rows, 5);
-        assert_eq!(t.plots.len(), 2);
+        // Plot 4's 95 t/ha lies outside wheat's bounds for single records (300-15,000
+        // kg/ha): kept, and listed for the warning.
+        assert_eq!(t.plots.len(), 3);
+        assert_eq!(t.outside_record_bounds, vec![("4".to_string(), 95_000.0)]);
+        let w = t.bounds_warning("t.csv", &crop_table()["wheat"]).unwrap();
+        assert!(
+            w.contains("1 plot(s) yield outside 300-15000 kg/ha") && w.contains("4 (95000 kg/ha)"),
+            "{w}"
+        );
         assert_eq!(t.plots[1].yield_mean, 7250.0);
         assert_eq!(
             (t.plots[1].centroid_x_m, t.plots[1].centroid_y_m),
@@ -529,11 +600,34 @@ mod tests {
             rules,
             vec![
                 ("unparseable", 4, "yield_t_ha"),
-                ("yield_bounds", 5, "yield_t_ha"),
                 ("missing_value", 6, "variety")
             ]
         );
         assert!(t.read_as.contains("treatment variety, block rep"));
+    }
+
+    #[test]
+    fn plot_bounds_set_by_the_trial_set_plots_aside_and_negative_yields_never_pass() {
+        let text = "plot,variety,rep,yield_t_ha,row,range\n\
+                    1,Alpha,1,0.2,1,1\n\
+                    2,Beta,1,7.25,2,1\n\
+                    3,Alpha,2,-1,1,2\n";
+        let mut wheat = crop_table()["wheat"].clone();
+        // Without plot bounds the 0.2 t/ha plot is kept and flagged.
+        let t = table_of(text, &wheat).unwrap();
+        assert_eq!(t.plots.len(), 2);
+        assert_eq!(t.outside_record_bounds, vec![("1".to_string(), 200.0)]);
+        wheat.plot_yield_min_kg_ha = 500.0;
+        wheat.plot_yield_max_kg_ha = 12_000.0;
+        let t = table_of(text, &wheat).unwrap();
+        assert_eq!(t.plots.len(), 1);
+        assert!(t.outside_record_bounds.is_empty());
+        let rules: Vec<(&str, u64)> = t
+            .rejections
+            .iter()
+            .map(|r| (&*r.rule, r.source_row))
+            .collect();
+        assert_eq!(rules, vec![("plot_yield_bounds", 2), ("negative_value", 4)]);
     }
 
     #[test]

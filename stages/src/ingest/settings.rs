@@ -86,6 +86,10 @@ pub enum TimeFormat {
     UnixS,
     /// `10:22:05` or `10:22:05.5` (UTC), with the date in the column `time.date`.
     TimeOfDay,
+    /// No time column (a yield-point export whose records were averaged or resampled by
+    /// other software): records are taken in file order, speed is unknown, and the rules
+    /// timed in seconds are skipped and listed.
+    None,
 }
 
 /// Order of day, month and year in a date column (`18/09/2026`, `09/18/2026`, `2026-09-18`).
@@ -226,6 +230,7 @@ pub struct ColumnsSection {
 #[derive(Clone, Debug, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct TimeColumn {
+    #[serde(default)]
     pub name: String,
     pub format: TimeFormat,
     /// With `format = "time_of_day"`: the date column and its order.
@@ -386,7 +391,21 @@ impl ColumnsSection {
                     p.push("columns.time with format = \"time_of_day\" needs date (the date column) and date_order (\"dmy\", \"mdy\" or \"ymd\")".into());
                 }
             }
+            TimeFormat::None => {
+                if !t.name.is_empty() || !t.date.is_empty() || t.date_order.is_some() {
+                    p.push(format!(
+                        "columns.time with format = \"none\" takes no column (got name {:?}); leave name, date and date_order out",
+                        t.name
+                    ));
+                }
+                if self.yield_col.is_none() {
+                    p.push("columns.time.format = \"none\" is for yield-point exports (columns.yield): mass flow needs each record's time for the delays and the speed".into());
+                }
+            }
             _ => {
+                if t.name.is_empty() {
+                    p.push("columns.time needs name (the time column), or format = \"none\" for a yield-point export without times".into());
+                }
                 if !t.date.is_empty() || t.date_order.is_some() {
                     p.push(
                         "columns.time.date and date_order go with format = \"time_of_day\"".into(),

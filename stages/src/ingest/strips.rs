@@ -258,6 +258,39 @@ pub fn build(
     Ok(out)
 }
 
+/// The swath of a field whose exports log none: passes lie side by side one swath apart, so
+/// the spacing across travel between each run of records (of at least 5) and the nearest
+/// other run beside it, where the two overlap along travel, is the swath. The median over
+/// runs, or None when no two runs lie side by side (closer than 0.5 m across is one lane).
+fn spacing_of_passes(runs: &[Vec<usize>], uv: &dyn Fn(usize) -> (f64, f64)) -> Option<f64> {
+    // Per run: its extent along travel and its median position across.
+    let lanes: Vec<(f64, f64, f64)> = runs
+        .iter()
+        .filter(|r| r.len() >= 5)
+        .map(|r| {
+            let u: Vec<f64> = r.iter().map(|&i| uv(i).0).collect();
+            let v: Vec<f64> = r.iter().map(|&i| uv(i).1).collect();
+            (
+                u.iter().cloned().fold(f64::MAX, f64::min),
+                u.iter().cloned().fold(f64::MIN, f64::max),
+                median(&v),
+            )
+        })
+        .collect();
+    let gaps: Vec<f64> = lanes
+        .iter()
+        .filter_map(|a| {
+            lanes
+                .iter()
+                .filter(|b| a.0.max(b.0) < a.1.min(b.1))
+                .map(|b| (a.2 - b.2).abs())
+                .filter(|d| *d > 0.5)
+                .min_by(f64::total_cmp)
+        })
+        .collect();
+    (!gaps.is_empty()).then(|| median(&gaps))
+}
+
 struct FieldBuilt {
     polygons: Vec<PlotPolygon>,
     design: Vec<DesignRow>,
@@ -279,13 +312,14 @@ fn field(
         .map(|&i| points[i].width_m)
         .filter(|w| w.is_finite() && *w > 0.0)
         .collect();
-    let w = if widths.is_empty() {
-        s.fallback_width_m.ok_or_else(|| {
-            format!("field {fname}: its exports log no swath width to build strips from: map columns.width or give columns.width.value")
-        })?
+    // The swath as logged (or columns.width.value); without either it is estimated below
+    // from the spacing of neighbouring passes, once the runs are known.
+    let logged_w = if widths.is_empty() {
+        s.fallback_width_m
     } else {
-        median(&widths)
+        Some(median(&widths))
     };
+    let step_cap = 3.0 * logged_w.unwrap_or(f64::INFINITY);
     // 2. Direction of travel; consecutive records of one label.
     let (mut c2, mut s2) = (0.0, 0.0);
     let mut dts = Vec::new();
@@ -303,7 +337,7 @@ fn field(
         }
         let (dx, dy) = (points[j].x_m - points[i].x_m, points[j].y_m - points[i].y_m);
         let l = dx.hypot(dy);
-        if l > 0.2 && l < 3.0 * w {
+        if l > 0.2 && l < step_cap {
             let a = 2.0 * dy.atan2(dx);
             c2 += l * a.cos();
             s2 += l * a.sin();
@@ -359,6 +393,15 @@ fn field(
             _ => runs.push(vec![i]),
         }
     }
+    let (w, w_source) = match logged_w {
+        Some(w) => (w, "logged (or columns.width.value)"),
+        None => (
+            spacing_of_passes(&runs, &uv).ok_or_else(|| {
+                format!("field {fname}: its exports log no swath width to build strips from, and its passes are not side by side to estimate one: map columns.width or give columns.width.value")
+            })?,
+            "estimated: the median spacing across travel of neighbouring passes (no width logged)",
+        ),
+    };
     // Pieces: runs of one treatment (and strip name) joined where they lie within 1.25
     // swaths across and overlap or come within 2.5 steps along.
     let info: Vec<(f64, f64, f64)> = runs
@@ -596,6 +639,7 @@ fn field(
         "swath_m".into(),
         serde_json::json!((w * 1000.0).round() / 1000.0),
     );
+    details.insert("swath_source".into(), serde_json::json!(w_source));
     details.insert("labelled_records".into(), serde_json::json!(idx.len()));
     details.insert("records_in_short_runs".into(), serde_json::json!(stray));
     details.insert("isolated_records".into(), serde_json::json!(isolated));

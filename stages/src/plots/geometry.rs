@@ -82,11 +82,17 @@ pub fn frame_of(poly: &Polygon<f64>) -> Option<(Frame, f64, f64)> {
     Some((Frame { ox, oy, ax, ay }, len, wid))
 }
 
-/// The net plot: the plot's rectangle shrunk by `end_trim` at each end (along) and
-/// `side_trim` at each side (across), clipped to the plot polygon itself. `None` when the
-/// trims leave nothing.
-pub fn net_polygon(poly: &Polygon<f64>, end_trim: f64, side_trim: f64) -> Option<Vec<(f64, f64)>> {
+/// The net plot: the plot's rectangle shrunk by `end_trim` at each end (along), but by no
+/// more than `end_trim_max_fraction` of the plot's length, and `side_trim` at each side
+/// (across), clipped to the plot polygon itself. `None` when the trims leave nothing.
+pub fn net_polygon(
+    poly: &Polygon<f64>,
+    end_trim: f64,
+    end_trim_max_fraction: f64,
+    side_trim: f64,
+) -> Option<Vec<(f64, f64)>> {
     let (f, len, wid) = frame_of(poly)?;
+    let end_trim = end_trim.min(end_trim_max_fraction * len);
     let (hu, hv) = (0.5 * len - end_trim, 0.5 * wid - side_trim);
     if hu <= 0.0 || hv <= 0.0 {
         return None;
@@ -374,12 +380,31 @@ mod tests {
         .map(|&(u, v)| f.world(u, v))
         .collect();
         let poly = Polygon::new(LineString::from(ring), vec![]);
-        let net = net_polygon(&poly, 15.0, 1.0).unwrap();
+        let net = net_polygon(&poly, 15.0, 0.5, 1.0).unwrap();
         assert!((signed_area(&net).abs() - 30.0 * 16.0).abs() < 1e-6);
         let (g, len, wid) = frame_of(&poly).unwrap();
         assert!((len - 60.0).abs() < 1e-9 && (wid - 18.0).abs() < 1e-9);
         assert!((g.ax - f.ax).abs() < 1e-9 && (g.ay - f.ay).abs() < 1e-9);
-        assert!(net_polygon(&poly, 31.0, 1.0).is_none());
+        assert!(net_polygon(&poly, 31.0, 0.5, 1.0).is_none());
+        // Capped at a quarter of the length, a 31 m trim leaves the middle half: 30 x 16 m.
+        let net = net_polygon(&poly, 31.0, 0.25, 1.0).unwrap();
+        assert!((signed_area(&net).abs() - 30.0 * 16.0).abs() < 1e-6);
+        // A 10 m research plot keeps its middle 5 m with trims of 15 m capped at a quarter
+        // of its length (4 m with the default 0.3), where before it kept nothing.
+        let short: Vec<(f64, f64)> = [
+            (-5.0, -0.75),
+            (5.0, -0.75),
+            (5.0, 0.75),
+            (-5.0, 0.75),
+            (-5.0, -0.75),
+        ]
+        .iter()
+        .map(|&(v, u)| f.world(u, v))
+        .collect();
+        let short = Polygon::new(LineString::from(short), vec![]);
+        assert!(net_polygon(&short, 15.0, 0.5, 0.25).is_none());
+        let net = net_polygon(&short, 15.0, 0.25, 0.25).unwrap();
+        assert!((signed_area(&net).abs() - 5.0 * 1.0).abs() < 1e-6);
     }
 
     #[test]

@@ -206,6 +206,7 @@ pub fn run(
     design: &[DesignRow],
     design_file: &str,
     s: &PlotsSettings,
+    plot_bounds: Option<(f64, f64)>,
 ) -> PlotsOutput {
     // Plots in design order, so that overlaps and ties resolve the same way every run.
     let by_id: HashMap<&str, &PlotPolygon> =
@@ -217,7 +218,15 @@ pub fn run(
     let polys: Vec<Polygon<f64>> = ordered.iter().map(|(_, p)| to_geo(p)).collect();
     let nets: Vec<Option<Vec<(f64, f64)>>> = polys
         .iter()
-        .map(|p| net_polygon(p, s.end_trim_m, s.side_trim_m))
+        .map(|p| net_polygon(p, s.end_trim_m, s.end_trim_max_fraction, s.side_trim_m))
+        .collect();
+    // Plots the trims leave nothing of (with the end trims capped by the plot's length,
+    // only a side trim of half the plot's width or more, or a degenerate polygon).
+    let untrimmable: Vec<&str> = ordered
+        .iter()
+        .zip(&nets)
+        .filter(|(_, n)| n.is_none())
+        .map(|((d, _), _)| d.plot_id.as_str())
         .collect();
     let net_geo: Vec<Option<Polygon<f64>>> = nets
         .iter()
@@ -304,8 +313,8 @@ pub fn run(
     let outside_limit = texts.get("inside a plot polygon");
     let small_limit = texts.get("plot too small for its trims");
     let trim_limit = texts.get(&format!(
-        "inside the net plot (end trim {} m, side trim {} m)",
-        s.end_trim_m, s.side_trim_m
+        "inside the net plot (end trim {} m but at most {} of the plot's length, side trim {} m)",
+        s.end_trim_m, s.end_trim_max_fraction, s.side_trim_m
     ));
     let straddle_limit = texts.get(&format!(">= {}", s.min_swath_inside));
     let joined: Vec<Joined> = points
@@ -524,6 +533,14 @@ pub fn run(
                 format!("{cov:.3}"),
                 format!(">= {}", s.min_coverage),
             ))
+        } else if let Some((lo, hi)) = plot_bounds.filter(|(lo, hi)| !(*lo..=*hi).contains(&y_mean))
+        {
+            Some((
+                "plot_yield_bounds",
+                "yield_mean",
+                format!("{y_mean:.0} kg/ha"),
+                format!("{lo}-{hi} kg/ha (crop.plot_yield_min_kg_ha and plot_yield_max_kg_ha)"),
+            ))
         } else {
             None
         };
@@ -585,7 +602,19 @@ pub fn run(
         "points_per_export_and_field".into(),
         serde_json::json!(export_fields),
     );
-    let warnings = dropped_out(&plots, points, files, &export_fields, &summary);
+    let mut warnings = dropped_out(&plots, points, files, &export_fields, &summary);
+    if !untrimmable.is_empty() {
+        let shown: Vec<&str> = untrimmable.iter().take(10).copied().collect();
+        warnings.push(format!(
+            "{} plot(s) are too small for their trims, so none of their points can count: {}{}; each side loses plots.side_trim_m = {} m (set it below half the plot's width) and each end plots.end_trim_m = {} m, at most plots.end_trim_max_fraction = {} of the plot's length",
+            untrimmable.len(),
+            shown.join(", "),
+            if untrimmable.len() > 10 { format!(" and {} more", untrimmable.len() - 10) } else { String::new() },
+            s.side_trim_m,
+            s.end_trim_m,
+            s.end_trim_max_fraction
+        ));
+    }
     summary.set_warnings(&warnings);
     summary.plots = Some(plot_counts);
     PlotsOutput {

@@ -20,6 +20,8 @@ pub struct PlotsSettings {
     pub min_points: i64,
     pub min_coverage: f64,
     pub end_trim_m: f64,
+    /// Each end trim is at most this fraction of the plot's length.
+    pub end_trim_max_fraction: f64,
     pub side_trim_m: f64,
     pub min_swath_inside: f64,
     pub trim_fraction: f64,
@@ -47,6 +49,12 @@ impl PlotsSettings {
             p.push(format!(
                 "plots.min_coverage and plots.min_swath_inside must be at most 1 (got {} and {})",
                 pl.min_coverage, pl.min_swath_inside
+            ));
+        }
+        if !(pl.end_trim_max_fraction > 0.0 && pl.end_trim_max_fraction < 0.5) {
+            p.push(format!(
+                "plots.end_trim_max_fraction must be above 0 and below 0.5, so that a plot keeps part of its length (got {})",
+                pl.end_trim_max_fraction
             ));
         }
         if pl.trim_fraction >= 0.5 {

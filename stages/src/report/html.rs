@@ -42,6 +42,8 @@ pub struct HtmlInput<'a> {
     pub hyper: &'a [FieldHyper],
     pub comparisons: &'a [Comparison],
     pub warnings: &'a [String],
+    /// The prices as the trial gave them (None: no economics).
+    pub money: Option<&'a crate::adjust::settings::Money>,
 }
 
 /// Fields with more records than this draw them as a raster (see `raster`).
@@ -312,8 +314,17 @@ fn decision(s: &mut String, r: &HtmlInput) {
         return;
     }
     let _ = write!(s, "<p class=\"note\">{}</p>", esc(super::DECISION_WORDS));
-    let (head, cells) = super::decision_cells(&rows, r.decimals, r.unit_label, Vec::new());
+    let (head, cells) = super::decision_cells(
+        &rows,
+        r.decimals,
+        r.unit_label,
+        super::area_of(r.money),
+        Vec::new(),
+    );
     table(s, &head, &cells, 1);
+    if let Some(p) = super::prices_line(r.money) {
+        let _ = write!(s, "<p class=\"note\">{}</p>", esc(&p));
+    }
     let all: Vec<&TreatmentRow> = r.treatments.iter().filter(|t| !t.uplift.is_nan()).collect();
     forest(
         s,
@@ -408,6 +419,17 @@ pub fn render(r: &HtmlInput) -> String {
             let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td class=\"n\">{}</td><td>{}</td></tr>", esc(&d.export), esc(&d.flow_s), esc(&d.flow_source), esc(&d.moisture_s), esc(&d.moisture_source));
         }
         let _ = write!(s, "</tbody></table>");
+        let notes: Vec<String> = delays
+            .iter()
+            .flat_map(|d| {
+                d.notes
+                    .iter()
+                    .map(move |n| format!("<li>{}: {}</li>", esc(&d.export), esc(n)))
+            })
+            .collect();
+        if !notes.is_empty() {
+            let _ = write!(s, "<ul class=\"note\">{}</ul>", notes.concat());
+        }
     }
     let _ = write!(
         s,
@@ -677,7 +699,11 @@ pub fn render(r: &HtmlInput) -> String {
     let economics = r.treatments.iter().any(|t| t.break_even.is_finite());
     let _ = write!(s, "<table><thead><tr><th>field</th><th>treatment</th><th>plots</th><th>estimate ({u})</th><th>uplift ({u})</th><th>95 % interval</th><th>prior (mean &plusmn; SD)</th><th>P(uplift &gt; 0)</th>");
     if economics {
-        let _ = write!(s, "<th>break-even ({u})</th><th>P(uplift &gt; break-even)</th><th>expected net return per ha</th>");
+        let _ = write!(
+            s,
+            "<th>break-even ({u})</th><th>P(uplift &gt; break-even)</th><th>expected net return per {}</th>",
+            super::area_of(r.money)
+        );
     }
     let _ = write!(s, "</tr></thead><tbody>");
     for t in r.treatments {
@@ -713,7 +739,10 @@ pub fn render(r: &HtmlInput) -> String {
                 "<td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td>",
                 fmt(t.break_even, d),
                 pbe,
-                fmt(t.expected_net_return_per_ha, 0)
+                fmt(
+                    t.expected_net_return_per_ha * super::area_of(r.money).ha(),
+                    0
+                )
             );
         }
         let _ = write!(s, "</tr>");

@@ -1,7 +1,9 @@
 //! Report: a Markdown summary of a run: counts per stage and rule, the fitted spatial
 //! hyperparameters and the treatment table, with the cautions that go with them.
 
+use crate::adjust::settings::Money;
 use crate::adjust::{FieldHyper, TreatmentRow};
+use crate::crop::AreaUnit;
 use crate::table::StageSummary;
 use crate::util::fmt;
 use std::fmt::Write as _;
@@ -35,6 +37,20 @@ pub struct ReportInput<'a> {
     pub treatments: &'a [TreatmentRow],
     pub hyper: &'a [FieldHyper],
     pub warnings: &'a [String],
+    /// The prices as the trial gave them (None: no economics).
+    pub money: Option<&'a Money>,
+}
+
+/// The area net returns are shown per: the trial's cost unit (hectares without prices).
+pub(crate) fn area_of(money: Option<&Money>) -> AreaUnit {
+    money.map_or(AreaUnit::Hectare, |m| m.product_cost_unit)
+}
+
+/// The prices line under a decision table, or None without a grain price.
+pub(crate) fn prices_line(money: Option<&Money>) -> Option<String> {
+    money
+        .filter(|m| m.grain_price > 0.0)
+        .map(|m| format!("Prices: {}.", m.words()))
 }
 
 /// The cautions printed with every report.
@@ -110,6 +126,13 @@ pub fn markdown(r: &ReportInput) -> String {
                 "| {} | {} | {} | {} | {} |",
                 d.export, d.flow_s, d.flow_source, d.moisture_s, d.moisture_source
             );
+        }
+        let notes: Vec<String> = delays
+            .iter()
+            .flat_map(|d| d.notes.iter().map(move |n| format!("- {}: {n}", d.export)))
+            .collect();
+        if !notes.is_empty() {
+            let _ = writeln!(s, "\n{}", notes.join("\n"));
         }
     }
     let _ = writeln!(s, "\n## Spatial model per field\n");
@@ -259,6 +282,7 @@ pub(crate) fn decision_columns(
     rows: &[&TreatmentRow],
     d: usize,
     u: &str,
+    area: AreaUnit,
 ) -> Vec<(String, Box<dyn Fn(&TreatmentRow) -> String>)> {
     let mut cols: Vec<(String, Box<dyn Fn(&TreatmentRow) -> String>)> = vec![
         (
@@ -303,9 +327,10 @@ pub(crate) fn decision_columns(
         ));
     }
     if any(|t| t.expected_net_return_per_ha) {
+        let per = area.ha();
         cols.push((
-            "expected net return per ha".into(),
-            Box::new(|t: &TreatmentRow| fmt(t.expected_net_return_per_ha, 0)),
+            format!("expected net return per {area}"),
+            Box::new(move |t: &TreatmentRow| fmt(t.expected_net_return_per_ha * per, 0)),
         ));
     }
     cols
@@ -320,9 +345,10 @@ pub(crate) fn decision_cells(
     rows: &[&TreatmentRow],
     d: usize,
     u: &str,
+    area: AreaUnit,
     extra: Vec<ExtraColumn>,
 ) -> (Vec<String>, Vec<Vec<String>>) {
-    let cols = decision_columns(rows, d, u);
+    let cols = decision_columns(rows, d, u, area);
     let head = std::iter::once("product".to_string())
         .chain(extra.iter().map(|c| c.0.clone()))
         .chain(cols.iter().map(|c| c.0.clone()))
@@ -364,9 +390,18 @@ fn decision_markdown(s: &mut String, r: &ReportInput) {
         return;
     }
     let _ = writeln!(s, "{DECISION_WORDS}\n");
-    let (head, cells) = decision_cells(&rows, r.decimals, r.unit_label, Vec::new());
+    let (head, cells) = decision_cells(
+        &rows,
+        r.decimals,
+        r.unit_label,
+        area_of(r.money),
+        Vec::new(),
+    );
     markdown_table(s, &head, &cells, 1);
     let _ = writeln!(s);
+    if let Some(p) = prices_line(r.money) {
+        let _ = writeln!(s, "{p}\n");
+    }
 }
 
 /// What the new-field rows mean, in plain words (both reports).
@@ -380,6 +415,9 @@ pub(crate) fn new_field_rows(rows: &[TreatmentRow]) -> Vec<&TreatmentRow> {
 }
 /// The flow and moisture delays clean applied to one export, and how each was chosen.
 pub(crate) struct DelayApplied {
+    /// What an unusual estimate suggests and how to act on it, in plain words (empty when
+    /// there is nothing to say).
+    pub notes: Vec<String>,
     pub export: String,
     pub flow_s: String,
     pub flow_source: String,
@@ -421,6 +459,10 @@ pub(crate) fn delays_applied(summaries: &[StageSummary]) -> Vec<DelayApplied> {
     exports
         .iter()
         .map(|(export, v)| DelayApplied {
+            notes: ["flow", "moisture"]
+                .iter()
+                .filter_map(|what| delay_note(what, &v[format!("{what}_delay_estimate")]))
+                .collect(),
             export: export.clone(),
             flow_s: text(v, "flow_delay_s"),
             flow_source: text(v, "flow_delay_source"),
@@ -428,6 +470,41 @@ pub(crate) fn delays_applied(summaries: &[StageSummary]) -> Vec<DelayApplied> {
             moisture_source: text(v, "moisture_delay_source"),
         })
         .collect()
+}
+
+/// A plain-words note on an estimated delay that is negative, about zero, or at an edge of
+/// the lags scanned; None for an ordinary estimate (or none).
+fn delay_note(what: &str, est: &serde_json::Value) -> Option<String> {
+    let lag = est["lag_s"].as_f64()?;
+    let lags: Vec<f64> = est["curve"]
+        .as_array()?
+        .iter()
+        .filter_map(|p| p[0].as_f64())
+        .collect();
+    let (lo, hi) = (
+        lags.iter().cloned().fold(f64::INFINITY, f64::min),
+        lags.iter().cloned().fold(f64::NEG_INFINITY, f64::max),
+    );
+    let fixed = if what == "flow" {
+        "clean.flow_delay_s"
+    } else {
+        "clean.moisture_delay_s"
+    };
+    if lag <= lo || lag >= hi {
+        Some(format!(
+            "The {what} delay estimate ({lag} s) lies at the edge of the lags scanned ({lo} to {hi} s): the best lag may lie beyond it, or the export's passes do not pair well. It was applied as found; check the export, or set clean.delay.mode = \"fixed\" with {fixed} to the delay you know."
+        ))
+    } else if lag < -0.5 {
+        Some(format!(
+            "The {what} delay estimate is negative ({lag} s): the readings already lead the positions, which happens when the software that wrote the export corrected the delay itself, by more than the true delay. plotsieve applied {lag} s, which moves the readings back by that much; if the export is known to be corrected, set clean.delay.mode = \"fixed\" with {fixed} = 0 to apply none."
+        ))
+    } else if lag.abs() <= 0.5 {
+        Some(format!(
+            "The {what} delay estimate is about zero ({lag} s): the export looks delay-corrected already (a raw monitor log lags by several seconds), so next to nothing was shifted."
+        ))
+    } else {
+        None
+    }
 }
 
 /// "mean (lo to hi)" with `k` decimals, empty for NaN.
@@ -461,4 +538,28 @@ pub(crate) fn random_factors(
             .map(|(n, x)| (h.field.clone(), n, x))
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::delay_note;
+
+    #[test]
+    fn unusual_delay_estimates_are_explained() {
+        let est = |lag: f64| serde_json::json!({"lag_s": lag, "pairs": 500, "curve": [[-20.0, 1.0], [0.0, 0.5], [20.0, 1.0]]});
+        let neg = delay_note("flow", &est(-3.3)).unwrap();
+        assert!(
+            neg.starts_with("The flow delay estimate is negative (-3.3 s)")
+                && neg.contains("set clean.delay.mode = \"fixed\" with clean.flow_delay_s = 0"),
+            "{neg}"
+        );
+        assert!(delay_note("moisture", &est(0.2))
+            .unwrap()
+            .contains("looks delay-corrected already"));
+        assert!(delay_note("flow", &est(20.0))
+            .unwrap()
+            .contains("lies at the edge of the lags scanned (-20 to 20 s)"));
+        assert_eq!(delay_note("flow", &est(11.0)), None);
+        assert_eq!(delay_note("flow", &serde_json::Value::Null), None);
+    }
 }

@@ -4,7 +4,9 @@
 //! self-contained HTML file (inline CSS and SVG) and a Markdown twin.
 
 use super::html::{esc, forest, forest_labelled, nice_step, table, CSS};
-use super::{decision_cells, decision_rows, markdown_table, ExtraColumn, CAUTION};
+use super::{
+    area_of, decision_cells, decision_rows, markdown_table, prices_line, ExtraColumn, CAUTION,
+};
 use crate::adjust::{Summary, TreatmentRow};
 use crate::season::LocationRow;
 use crate::util::fmt;
@@ -33,6 +35,8 @@ pub struct SeasonInput<'a> {
     pub interaction_sd: Summary,
     pub trials: &'a [SeasonTrial],
     pub warnings: &'a [String],
+    /// The prices as the season file gave them (None: no economics).
+    pub money: Option<&'a crate::adjust::settings::Money>,
 }
 
 /// What the season's decision table says, in plain words (both reports).
@@ -259,8 +263,11 @@ pub fn render(r: &SeasonInput) -> String {
         esc(r.check),
         esc(SEASON_WORDS)
     );
-    let (head, cells) = decision_cells(&rows, d, u, fields_column(r));
+    let (head, cells) = decision_cells(&rows, d, u, area_of(r.money), fields_column(r));
     table(&mut s, &head, &cells, 1);
+    if let Some(p) = prices_line(r.money) {
+        let _ = write!(s, "<p class=\"note\">{}</p>", esc(&p));
+    }
     let all: Vec<&TreatmentRow> = rows.clone();
     forest(
         &mut s,
@@ -344,8 +351,11 @@ pub fn markdown(r: &SeasonInput) -> String {
         "## Decision: products against the check ({}) across the season\n\n{SEASON_WORDS}\n",
         r.check
     );
-    let (head, cells) = decision_cells(&rows, d, u, fields_column(r));
+    let (head, cells) = decision_cells(&rows, d, u, area_of(r.money), fields_column(r));
     markdown_table(&mut s, &head, &cells, 1);
+    if let Some(p) = prices_line(r.money) {
+        let _ = writeln!(s, "\n{p}");
+    }
     let _ = writeln!(s, "\n## Per field: stage one and shrunk\n");
     let (head, cells) = per_field(r);
     markdown_table(&mut s, &head, &cells, 3);

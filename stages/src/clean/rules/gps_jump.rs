@@ -1,6 +1,13 @@
 //! `gps_jump`: a point farther from both its live neighbours than `clean.gps.jump_factor` x
 //! the distance the logged speed allows in the time between them, plus
 //! `clean.gps.jump_tolerance_m`.
+//!
+//! Where a pair of neighbours has no speed or no times (a yield-point export without them,
+//! whose records were averaged by other software), the distance allowed is
+//! `jump_factor` x the export's median step between consecutive live records, plus the
+//! tolerance: the records' own spacing stands for the distance a speed would allow. It is
+//! never a stand-in speed of zero, which would leave every point too far from its
+//! neighbours.
 
 use super::{Export, Needs, Rule};
 use crate::table::Point;
@@ -20,6 +27,19 @@ impl Rule for GpsJump {
         let alive = e.alive();
         let dist =
             |a: &Point, b: &Point| ((a.x_m - b.x_m).powi(2) + (a.y_m - b.y_m).powi(2)).sqrt();
+        // The export's typical step between consecutive live records, for pairs without a
+        // speed or times.
+        let mut steps: Vec<f64> = alive
+            .windows(2)
+            .map(|w| dist(e.w[w[0]].p, e.w[w[1]].p))
+            .filter(|d| d.is_finite())
+            .collect();
+        let typical = if steps.is_empty() {
+            0.0
+        } else {
+            steps.sort_by(f64::total_cmp);
+            steps[steps.len() / 2]
+        };
         let mut flags = Vec::new();
         for (k, &i) in alive.iter().enumerate() {
             let p = e.w[i].p;
@@ -31,7 +51,12 @@ impl Rule for GpsJump {
                 any = true;
                 let q = e.w[j].p;
                 let dt = (p.time_s - q.time_s).abs().max(1e-9);
-                let allowed = factor * 0.5 * (p.speed_m_s + q.speed_m_s).max(0.1) * dt + tolerance;
+                let v = 0.5 * (p.speed_m_s + q.speed_m_s);
+                let allowed = if v.is_finite() && dt.is_finite() {
+                    factor * v.max(0.1) * dt + tolerance
+                } else {
+                    factor * typical + tolerance
+                };
                 let d = dist(p, q);
                 if d - allowed < nearest_excess {
                     nearest_excess = d - allowed;
@@ -68,5 +93,26 @@ mod tests {
         pts[3].y_m += 20.0;
         let v = verdicts(&GpsJump, pts, |_| {});
         assert_eq!(v, vec![None, None, None, Some("gps_jump"), None, None]);
+    }
+
+    #[test]
+    fn without_speed_or_times_the_records_own_spacing_sets_the_limit() {
+        // Averaged yield points 6.7 m apart with neither speed nor times: allowed
+        // 3 x 6.7 + 3 = 23.1 m. Before, the missing speed counted as 0.1 m/s and every
+        // point went. A point moved 20 m sideways is 20.1 m from each neighbour (kept);
+        // moved 30 m it goes.
+        let mut pts = line(20, 6.7);
+        for p in &mut pts {
+            p.speed_m_s = f64::NAN;
+            p.time_s = f64::NAN;
+            // A yield-point export (only those may come without times).
+            p.flow_kg_s = f64::NAN;
+            p.yield_kg_ha = 8000.0;
+        }
+        pts[5].y_m += 20.0;
+        pts[12].y_m += 30.0;
+        let v = verdicts(&GpsJump, pts, |_| {});
+        let gone: Vec<usize> = (0..20).filter(|&i| v[i].is_some()).collect();
+        assert_eq!(gone, vec![12]);
     }
 }

@@ -96,6 +96,8 @@ pub enum Quantity {
     Speed,
     Width,
     Moisture,
+    /// Each record's time (a yield-point export may have none): rules timed in seconds.
+    Time,
     /// Moisture as the sensor logged it: not the column of an export whose yields were
     /// computed by other software (often the standard moisture filled in).
     MoistureSensor,
@@ -109,6 +111,7 @@ impl Quantity {
             Quantity::Speed => "the export has no speed or distance",
             Quantity::Width => "the export has no swath width",
             Quantity::Moisture => "the export has no moisture",
+            Quantity::Time => "the export has no times (columns.time.format = \"none\")",
             Quantity::MoistureSensor => {
                 "the export's yields are given by other software, so its moisture column is not a sensor reading"
             }

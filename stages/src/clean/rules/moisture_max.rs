@@ -1,4 +1,5 @@
-//! `moisture_max`: delay-shifted grain moisture above `clean.moisture.max_pct`.
+//! `moisture_max`: delay-shifted grain moisture above `clean.moisture.max_pct` (a forage
+//! crop: its own `moisture_max_pct` from the crop table).
 
 use super::{Export, Needs, Rule};
 
@@ -15,7 +16,9 @@ impl Rule for MoistureMax {
         &[super::Quantity::Moisture]
     }
     fn apply(&self, e: &mut Export) {
-        let max = e.s.moisture.max_pct;
+        let (_, max) = e
+            .crop
+            .moisture_bounds(e.s.moisture.min_pct, e.s.moisture.max_pct);
         for i in e.alive() {
             let m = e.w[i].moisture;
             if m > max {

@@ -30,7 +30,7 @@ impl Rule for MoistureStuck {
         Needs::Shifted
     }
     fn requires(&self) -> &'static [super::Quantity] {
-        &[super::Quantity::MoistureSensor]
+        &[super::Quantity::MoistureSensor, super::Quantity::Time]
     }
     fn apply(&self, e: &mut Export) {
         let min_s = e.s.moisture.stuck_s;

@@ -13,6 +13,9 @@ impl Rule for PassEnd {
     fn needs(&self) -> Needs {
         Needs::PassStats
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Time]
+    }
     fn apply(&self, e: &mut Export) {
         let (trim, fraction) = (e.s.pass.end_trim_s, e.s.pass.fill_fraction);
         for i in e.alive() {

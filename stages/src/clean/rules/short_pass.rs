@@ -12,6 +12,9 @@ impl Rule for ShortPass {
     fn needs(&self) -> Needs {
         Needs::PassStats
     }
+    fn requires(&self) -> &'static [super::Quantity] {
+        &[super::Quantity::Time]
+    }
     fn apply(&self, e: &mut Export) {
         let min = e.s.pass.min_pass_s;
         for i in e.alive() {

@@ -15,7 +15,7 @@ impl Rule for SpeedChange {
         Needs::Records
     }
     fn requires(&self) -> &'static [super::Quantity] {
-        &[super::Quantity::Speed]
+        &[super::Quantity::Speed, super::Quantity::Time]
     }
     fn apply(&self, e: &mut Export) {
         let (max, settle) = (e.s.speed.max_change_fraction, e.s.speed.settle_s);

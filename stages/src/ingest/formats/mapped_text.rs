@@ -17,7 +17,8 @@ pub struct MappedText;
 
 /// Positions of the mapped columns in one export's header.
 struct ColumnIndex {
-    time: usize,
+    /// None: `columns.time.format = "none"` (a yield-point export without times).
+    time: Option<usize>,
     /// The date column of a time-of-day stamp.
     date: Option<usize>,
     lon: usize,
@@ -88,7 +89,11 @@ fn column_index(
     };
     // Looked up in the order of the mapping, so a header that fits nothing names the time.
     let (time, date) = (
-        find(&c.time.name, "time.name")?,
+        if c.time.format == TimeFormat::None {
+            None
+        } else {
+            Some(find(&c.time.name, "time.name")?)
+        },
         opt(&c.time.date, "time.date")?,
     );
     let (lon, lat) = (
@@ -275,6 +280,12 @@ pub(super) fn read_records<R: std::io::Read>(
     // Per point kept: the distance travelled (m) and interval (s, NaN: from the times).
     let mut travel: Vec<(f64, f64)> = Vec::new();
     let mut n = 0u64;
+    // Moisture read 0 is no reading: the last reading before it stands (counted).
+    let mut zeros = super::ZeroMoisture {
+        source: name.to_string(),
+        ..Default::default()
+    };
+    let mut last_moisture = f64::NAN;
     let mut record = csv::StringRecord::new();
     let mut vals = vec![0.0f64; cols.len()];
     loop {
@@ -302,8 +313,9 @@ pub(super) fn read_records<R: std::io::Read>(
             ));
             continue;
         }
-        let t = &record[idx.time];
+        let t = idx.time.map_or("", |i| &record[i]);
         let time_s = match c.time.format {
+            TimeFormat::None => Some(f64::NAN),
             TimeFormat::Iso8601 => parse_iso8601(t),
             TimeFormat::UnixS => number(t, comma),
             TimeFormat::TimeOfDay => match (idx.date, c.time.date_order) {
@@ -313,6 +325,7 @@ pub(super) fn read_records<R: std::io::Read>(
         };
         let Some(time_s) = time_s else {
             let want = match c.time.format {
+                TimeFormat::None => "",
                 TimeFormat::Iso8601 => "an ISO 8601 date-time",
                 TimeFormat::UnixS => "seconds since 1970",
                 TimeFormat::TimeOfDay => "a date and an hh:mm:ss time of day",
@@ -368,7 +381,7 @@ pub(super) fn read_records<R: std::io::Read>(
             vals[k - 1]
         };
         let moisture = if idx.moisture.is_some() {
-            next()
+            zeros.take(next(), &mut last_moisture)
         } else {
             f64::NAN
         };
@@ -555,11 +568,17 @@ pub(super) fn read_records<R: std::io::Read>(
         out.retain(|_| k.next().unwrap_or(false));
         rej.sort_by_key(|r| r.source_row);
     }
+    // A yield-point export without speed or distance: speed from positions and times
+    // (smoothed, see [`super::speed_from_positions`]); without times it stays unknown.
+    if matches!(idx.motion, Motion::Unknown) && idx.time.is_some() {
+        super::speed_from_positions(&mut out);
+    }
     Ok(ExportRead {
         rows: n,
         points: out,
         rejections: rej,
         labels,
+        zero_moisture: vec![zeros],
     })
 }
 

@@ -22,6 +22,9 @@ pub(crate) fn describe(cfg: &TrialConfig) -> String {
     parts.push(match c.time.format {
         TimeFormat::Iso8601 => format!("time {} (ISO 8601)", c.time.name),
         TimeFormat::UnixS => format!("time {} (Unix seconds)", c.time.name),
+        TimeFormat::None => {
+            "no time column: records in file order, the rules timed in seconds skipped".into()
+        }
         TimeFormat::TimeOfDay => format!(
             "date {} ({}) and time {}",
             c.time.date,
@@ -70,7 +73,13 @@ pub(crate) fn describe(cfg: &TrialConfig) -> String {
             };
             parts.push(format!("speed = distance {dist} / {interval}"));
         }
-        (None, None) => parts.push("no speed or distance".into()),
+        (None, None) if c.time.format == TimeFormat::None => {
+            parts.push("no speed or distance (and no times to derive it from)".into())
+        }
+        (None, None) => parts.push(
+            "speed not logged: from positions and times (median of 4-step chord speeds over 5 records)"
+                .into(),
+        ),
     }
     parts.push(if c.width.name.is_empty() && c.width.value.is_none() {
         "no swath width".to_string()

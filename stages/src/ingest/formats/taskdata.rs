@@ -24,6 +24,15 @@
 //!
 //! A rejection's row is the record's place in its time log (from 1) and its file is
 //! `<export>#TLGnnnnn`.
+//!
+//! Memory is bounded before anything is inflated: a zip member that would inflate to more
+//! than [`MAX_MEMBER_BYTES`] (declared or while reading), that inflates more than
+//! [`MAX_INFLATION`] times its compressed size, or members that together exceed
+//! [`MAX_TOTAL_BYTES`] make the archive unusable, with an error naming the member (an archive
+//! built to exhaust memory, or a log that is not one); a file of a task-data folder larger
+//! than [`MAX_MEMBER_BYTES`] likewise. Real binary time logs deflate 2-10 times (position and
+//! value fields change from record to record; measured on the simulator's logs and the
+//! forage-harvester logs of the real-data tests, not a published figure).
 
 use super::{reject, ExportRead, MonitorFormat, RawPoint};
 use crate::config::TrialConfig;
@@ -71,6 +80,15 @@ const WORK_STATE: u16 = 0x008D;
 /// inside the archive).
 struct Files(BTreeMap<String, Vec<u8>>);
 
+/// The largest file of a task-data set read (512 MiB: a time log of 20 million records of
+/// 24 bytes, weeks of logging every second).
+pub const MAX_MEMBER_BYTES: u64 = 512 << 20;
+/// The largest inflation of a zip member (uncompressed / compressed size) taken as a real
+/// file; a file of zero bytes deflates about 1,000 times.
+pub const MAX_INFLATION: u64 = 100;
+/// The most a task-data set may hold in all (2 GiB).
+pub const MAX_TOTAL_BYTES: u64 = 2 << 30;
+
 impl Files {
     fn open(path: &Path) -> Result<Files, String> {
         let is_zip = path
@@ -94,6 +112,12 @@ impl Files {
                 };
                 let up = base.to_ascii_uppercase();
                 if p.is_file() && (up == "TASKDATA.XML" || up.starts_with("TLG")) {
+                    let size = p.metadata().map(|m| m.len()).unwrap_or(0);
+                    if size > MAX_MEMBER_BYTES {
+                        return Err(format!(
+                            "{base}: {size} bytes, more than a task-data file can be ({MAX_MEMBER_BYTES} bytes); not read"
+                        ));
+                    }
                     files.insert(up, std::fs::read(&p).map_err(|e| format!("{base}: {e}"))?);
                 }
             }
@@ -121,6 +145,7 @@ impl Files {
             .ok_or("the archive holds no TASKDATA.XML")?
             .clone();
         let dir = &main[..main.len() - "TASKDATA.XML".len()];
+        let mut total = 0u64;
         for n in &names {
             let Some(base) = n.strip_prefix(dir) else {
                 continue;
@@ -128,9 +153,38 @@ impl Files {
             if base.is_empty() || base.contains('/') {
                 continue;
             }
-            let mut e = z.by_name(n).map_err(|e| format!("{n}: {e}"))?;
-            let mut bytes = Vec::new();
-            e.read_to_end(&mut bytes).map_err(|e| format!("{n}: {e}"))?;
+            let e = z.by_name(n).map_err(|e| format!("{n}: {e}"))?;
+            let (size, packed) = (e.size(), e.compressed_size().max(1));
+            let refuse = |what: String| {
+                Err(format!(
+                    "{n}: {what}; not read (an archive made to exhaust memory, or not task data)"
+                ))
+            };
+            if size > MAX_MEMBER_BYTES {
+                return refuse(format!(
+                    "declares {size} bytes, more than a task-data file can be ({MAX_MEMBER_BYTES})"
+                ));
+            }
+            if size / packed > MAX_INFLATION {
+                return refuse(format!(
+                    "inflates from {packed} to {size} bytes ({}x; a real time log deflates far less than {MAX_INFLATION}x)",
+                    size / packed
+                ));
+            }
+            total += size;
+            if total > MAX_TOTAL_BYTES {
+                return refuse(format!(
+                    "the archive's files add up to more than {MAX_TOTAL_BYTES} bytes"
+                ));
+            }
+            // The declared size may lie: read at most one byte past it.
+            let mut bytes = Vec::with_capacity(size as usize);
+            e.take(size + 1)
+                .read_to_end(&mut bytes)
+                .map_err(|e| format!("{n}: {e}"))?;
+            if bytes.len() as u64 > size {
+                return refuse(format!("inflates past the {size} bytes it declares"));
+            }
             files.insert(base.to_ascii_uppercase(), bytes);
         }
         Ok(Files(files))
@@ -301,6 +355,12 @@ fn read_log(
     let first_point = out.points.len();
     let amount = picks.amount(source)?;
     let mut last: Vec<Option<i32>> = vec![None; h.dlv.len()];
+    // Moisture logged as 0 is no reading: the last reading before it stands (counted).
+    let mut zeros = super::ZeroMoisture {
+        source: source.to_string(),
+        ..Default::default()
+    };
+    let mut last_moisture = f64::NAN;
     let mut at = 0usize;
     let mut row = 0u64;
     let take = |at: &mut usize, n: usize| -> Option<&[u8]> {
@@ -414,7 +474,10 @@ fn read_log(
             ));
             continue;
         };
-        let moisture = value(picks.moisture).map_or(f64::NAN, |v| v * 1e-4);
+        let moisture = match value(picks.moisture) {
+            Some(v) => zeros.take(v * 1e-4, &mut last_moisture),
+            None => f64::NAN,
+        };
         let (flow, given) = if Some(amount) == picks.flow {
             (raw * 1e-6, f64::NAN)
         } else if Some(amount) == picks.wet {
@@ -452,38 +515,10 @@ fn read_log(
         });
     }
     if picks.speed.is_none() {
-        speed_from_positions(&mut out.points[first_point..]);
+        super::speed_from_positions(&mut out.points[first_point..]);
     }
+    out.zero_moisture.push(zeros);
     Ok(())
-}
-
-/// Speeds from positions and times where the log has no speed: the distance to the
-/// previous point over the time between them (the first point: to the next), on a local
-/// sphere of radius 6,371,008.8 m (the mean Earth radius); NaN where the time does not move
-/// forward.
-fn speed_from_positions(pts: &mut [RawPoint]) {
-    const R: f64 = 6_371_008.8;
-    let step = |a: &RawPoint, b: &RawPoint| {
-        let lat = (0.5 * (a.lat + b.lat)).to_radians();
-        let dx = R * lat.cos() * (b.lon - a.lon).to_radians();
-        let dy = R * (b.lat - a.lat).to_radians();
-        let dt = b.time_s - a.time_s;
-        if dt > 0.0 {
-            (dx * dx + dy * dy).sqrt() / dt
-        } else {
-            f64::NAN
-        }
-    };
-    let speeds: Vec<f64> = (0..pts.len())
-        .map(|i| match i {
-            0 if pts.len() > 1 => step(&pts[0], &pts[1]),
-            0 => f64::NAN,
-            _ => step(&pts[i - 1], &pts[i]),
-        })
-        .collect();
-    for (p, v) in pts.iter_mut().zip(speeds) {
-        p.speed_m_s = v;
-    }
 }
 
 /// The swath a log without a working width falls back to: `columns.width.value` (in
