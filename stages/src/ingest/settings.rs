@@ -325,9 +325,10 @@ impl ColumnsSection {
             p.push("columns.moisture needs a column name".into());
         }
         match (&self.speed, &self.distance) {
-            (None, None) if points => {}
+            // Neither: speed from positions and times (a flow export needs times for it).
+            (None, None) if points || self.time.format != TimeFormat::None => {}
             (None, None) => p.push(
-                "[columns] needs speed (a speed column) or distance (distance travelled per record)"
+                "[columns] needs speed (a speed column) or distance (distance travelled per record), or times to derive speed from"
                     .into(),
             ),
             (Some(_), Some(_)) => p.push(

@@ -50,7 +50,8 @@ enum Motion {
         factor: f64,
         interval: Option<usize>,
     },
-    /// Not read (a yield-point export without speed or distance).
+    /// Not logged: derived from positions and times where the export has times (see
+    /// [`super::speed_from_positions`]), else unknown (a yield-point export without times).
     Unknown,
 }
 
@@ -123,13 +124,9 @@ fn column_index(
             factor: width_factor(d.unit),
             interval: opt(&c.interval, "interval")?,
         },
-        (None, None) if c.yield_col.is_some() => Motion::Unknown,
-        (None, None) => {
-            return Err(IngestError::Unusable {
-                file: file.to_string(),
-                message: "[columns] maps neither speed nor distance".into(),
-            })
-        }
+        // Without speed or distance: speed from positions and times (a flow export needs
+        // it for its yields; validation refuses a flow export without times).
+        (None, None) => Motion::Unknown,
     };
     Ok(ColumnIndex {
         time,
@@ -568,8 +565,8 @@ pub(super) fn read_records<R: std::io::Read>(
         out.retain(|_| k.next().unwrap_or(false));
         rej.sort_by_key(|r| r.source_row);
     }
-    // A yield-point export without speed or distance: speed from positions and times
-    // (smoothed, see [`super::speed_from_positions`]); without times it stays unknown.
+    // An export without speed or distance: speed from positions and times (smoothed, see
+    // [`super::speed_from_positions`]); without times it stays unknown.
     if matches!(idx.motion, Motion::Unknown) && idx.time.is_some() {
         super::speed_from_positions(&mut out);
     }
