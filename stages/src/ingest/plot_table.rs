@@ -78,6 +78,10 @@ pub fn outside_bounds_warning(name: &str, plots: &[(String, f64)], crop: &Crop) 
     ))
 }
 
+/// The flag (`reason` of a kept plot) of a plot whose yield lies outside the crop's bounds
+/// for single records.
+pub const OUTSIDE_RECORD_BOUNDS: &str = "outside_record_bounds";
+
 const PLOT_ID: &[&str] = &["plot_id", "plot"];
 const TREATMENT: &[&str] = &["treatment", "variety", "entry", "product", "genotype"];
 const BLOCK: &[&str] = &["block", "rep", "replicate"];
@@ -488,15 +492,17 @@ fn validate(src: Source, name: &str, crop: &Crop, n: &Names) -> Result<PlotTable
             (None, None) => unreachable!("a table has columns or given positions"),
         };
         let field = i_field.map(cell).unwrap_or_else(|| "1".into());
-        out.plots.push(PlotStats::from_yield(
-            &id,
-            &field,
-            &cell(i_trt),
-            &cell(i_blk),
-            kg,
-            at.0,
-            at.1,
-        ));
+        let mut plot =
+            PlotStats::from_yield(&id, &field, &cell(i_trt), &cell(i_blk), kg, at.0, at.1);
+        if out
+            .outside_record_bounds
+            .last()
+            .is_some_and(|(last, _)| *last == id)
+        {
+            // Kept, and flagged in the plot tables as well as in the warning.
+            plot.reason = OUTSIDE_RECORD_BOUNDS.into();
+        }
+        out.plots.push(plot);
     }
     out.rejections.sort_by_key(|r| r.source_row);
     if out.rows == 0 {
@@ -580,6 +586,19 @@ mod tests {
         // kg/ha): kept, and listed for the warning.
         assert_eq!(t.plots.len(), 3);
         assert_eq!(t.outside_record_bounds, vec![("4".to_string(), 95_000.0)]);
+        let flags: Vec<(&str, &str, &str)> = t
+            .plots
+            .iter()
+            .map(|p| (p.plot_id.as_str(), p.status.as_str(), p.reason.as_str()))
+            .collect();
+        assert_eq!(
+            flags,
+            vec![
+                ("1", "kept", ""),
+                ("2", "kept", ""),
+                ("4", "kept", "outside_record_bounds")
+            ]
+        );
         let w = t.bounds_warning("t.csv", &crop_table()["wheat"]).unwrap();
         assert!(
             w.contains("1 plot(s) yield outside 300-15000 kg/ha") && w.contains("4 (95000 kg/ha)"),

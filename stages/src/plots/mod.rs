@@ -48,7 +48,9 @@ pub struct PlotStats {
     pub field: String,
     pub treatment: String,
     pub block: String,
-    /// `kept`, or `set_aside` with the rule in `reason`.
+    /// `kept`, or `set_aside` with the rule in `reason`; a kept plot's `reason` may carry a
+    /// flag (`outside_record_bounds`: a plot-table yield outside the crop's bounds for single
+    /// records, kept because the trial sets no plot bounds).
     pub status: String,
     pub reason: String,
     pub points: u64,
