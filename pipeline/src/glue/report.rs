@@ -37,10 +37,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
                 .map(move |w| format!("{stage}: {w}"))
         })
         .collect();
-    let money = cfg
-        .adjust
-        .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb)
-        .money;
+    let money = cfg.adjust.money();
     let md = report::markdown(&report::ReportInput {
         trial_name: &cfg.trial.name,
         unit_label: unit.label(),

@@ -141,6 +141,15 @@ pub struct AdjustSettings {
 }
 
 impl AdjustSettings {
+    /// The prices as the trial gives them, for the reports.
+    pub fn money(&self) -> Money {
+        Money {
+            grain_price: self.grain_price,
+            grain_price_unit: self.grain_price_unit,
+            product_cost_unit: self.product_cost_unit,
+        }
+    }
+
     /// The fit's settings in kg/ha: the trial's check treatment, kg/ha in one output unit
     /// (the trial file gives priors in the output unit) and the crop's bushel weight in lb
     /// (for a price per bushel).
@@ -186,11 +195,7 @@ impl AdjustSettings {
                 .iter()
                 .map(|(t, c)| (t.clone(), c / a.product_cost_unit.ha()))
                 .collect(),
-            money: Money {
-                grain_price: a.grain_price,
-                grain_price_unit: a.grain_price_unit,
-                product_cost_unit: a.product_cost_unit,
-            },
+            money: a.money(),
             kg_ha_per_unit,
         }
     }
