@@ -72,6 +72,8 @@ enum Command {
     Simulate {
         /// Folder to write to (created; existing files of the same names are replaced).
         dir: PathBuf,
+        /// Seed of the random draws: the same seed and options give the same files, byte
+        /// for byte.
         #[arg(long, default_value_t = 1)]
         seed: u64,
         /// Number of fields.
@@ -80,7 +82,11 @@ enum Command {
         /// Blocks (replicates) per field.
         #[arg(long, default_value_t = 4)]
         blocks: usize,
-        /// Scale of the true product effects (0 = none).
+        /// Plot length along the direction of travel, metres (research plots: 6-12).
+        #[arg(long, default_value_t = 60.0)]
+        plot_length: f64,
+        /// Multiplies every product's true effect on yield (truth.json lists them; 1 = as
+        /// listed, 0 = no product has any effect).
         #[arg(long, default_value_t = 1.0)]
         effect_scale: f64,
         /// SD of the spatial trend in kg/ha.
@@ -104,8 +110,9 @@ enum Command {
         point_noise: f64,
         /// Layout of the monitor exports: text (comma-delimited, speed column),
         /// distance_text (semicolons, decimal commas, date and time columns, distance per
-        /// record and interval instead of speed), yield_points (yields already computed) or
-        /// geopackage (the text form's records as a GeoPackage point layer).
+        /// record and interval instead of speed), yield_points (yields already computed),
+        /// geopackage (the text form's records as a GeoPackage point layer), taskdata
+        /// (ISO 11783-10 task data, one task per field) or shapefile (point Shapefiles).
         #[arg(long, default_value = "text")]
         form: String,
         /// Seconds between logged records (1-5).
@@ -123,7 +130,8 @@ enum Command {
     /// Take a harvest's exports from an inbox: match each to the trials its points fall in,
     /// copy it there, and rerun only the trials that got something new.
     Intake {
-        /// Folder of monitor exports (*.csv); nothing in it is modified, moved or deleted.
+        /// Folder of monitor exports (any monitor format plotsieve reads: delimited text,
+        /// zipped ISO 11783-10 task data, ...); nothing in it is modified, moved or deleted.
         inbox: PathBuf,
         /// Season file listing the trials ([[trial]] file = ..., out = ...).
         season: PathBuf,
@@ -172,6 +180,7 @@ fn main() -> ExitCode {
             seed,
             fields,
             blocks,
+            plot_length,
             effect_scale,
             trend_sd,
             flow_delay,
@@ -188,6 +197,9 @@ fn main() -> ExitCode {
                 "--form {}",
                 plotsieve_stages::choice::refusal(simulate::SimForm::NAMES, &form)
             )),
+            Some(_) if !(5.0..=1000.0).contains(&plot_length) => Err(anyhow::anyhow!(
+                "--plot-length {plot_length}: expected 5-1000 metres"
+            )),
             Some(simulate::SimForm::TaskData) if labels => Err(anyhow::anyhow!(
                 "--labels goes with the text, distance_text, yield_points, geopackage and shapefile forms (task data carries no label column)"
             )),
@@ -197,6 +209,7 @@ fn main() -> ExitCode {
                     seed,
                     fields,
                     blocks,
+                    plot_length_m: plot_length,
                     effect_scale,
                     trend_sd_kg_ha: trend_sd,
                     flow_delay_s: flow_delay,

@@ -342,3 +342,33 @@ pub fn zip_task_data(
     }
     z.finish().unwrap();
 }
+
+/// Asserts that every uplift in a run's `4-adjust/treatments.csv` (t/ha) lies within `k_sd`
+/// posterior SDs of the simulator's true effect; only the pooled rows (`field` = `all`) when
+/// `pooled_only`. Returns how many uplifts were checked.
+pub fn uplifts_within_truth(
+    run: &Path,
+    truth: &serde_json::Value,
+    k_sd: f64,
+    pooled_only: bool,
+) -> usize {
+    let mut checked = 0;
+    for r in csv_rows(&run.join("4-adjust/treatments.csv")) {
+        if r["treatment"] == "check" || (pooled_only && r["field"] != "all") {
+            continue;
+        }
+        let (u, sd): (f64, f64) = (
+            r["uplift_t_ha"].parse().unwrap(),
+            r["uplift_sd_t_ha"].parse().unwrap(),
+        );
+        let want = truth["effects_t_ha"][&r["treatment"]].as_f64().unwrap();
+        assert!(
+            (u - want).abs() < k_sd * sd,
+            "{} {}: {u} +- {sd}, truth {want}",
+            r["field"],
+            r["treatment"]
+        );
+        checked += 1;
+    }
+    checked
+}

@@ -63,6 +63,13 @@ impl Frame {
 /// increasing y when the side runs north-south, so the result does not depend on vertex
 /// order), and the rectangle's length and width.
 pub fn frame_of(poly: &Polygon<f64>) -> Option<(Frame, f64, f64)> {
+    frame_along(poly, None)
+}
+
+/// [`frame_of`], but along the rectangle's side closer in direction to `travel` (a unit
+/// vector; either sense) where it is given: a plot wider than it is long (a short research
+/// plot cut across its longer side) is trimmed at the ends the machine entered and left.
+pub fn frame_along(poly: &Polygon<f64>, travel: Option<(f64, f64)>) -> Option<(Frame, f64, f64)> {
     let r = poly.minimum_rotated_rect()?;
     let c: Vec<(f64, f64)> = r.exterior().points().map(|p| (p.x(), p.y())).collect();
     if c.len() < 4 {
@@ -71,7 +78,13 @@ pub fn frame_of(poly: &Polygon<f64>) -> Option<(Frame, f64, f64)> {
     let e1 = (c[1].0 - c[0].0, c[1].1 - c[0].1);
     let e2 = (c[2].0 - c[1].0, c[2].1 - c[1].1);
     let (l1, l2) = (e1.0.hypot(e1.1), e2.0.hypot(e2.1));
-    let (long, len, wid) = if l1 >= l2 { (e1, l1, l2) } else { (e2, l2, l1) };
+    let first = match travel {
+        Some((tx, ty)) if l1 > 0.0 && l2 > 0.0 => {
+            (e1.0 * tx + e1.1 * ty).abs() / l1 >= (e2.0 * tx + e2.1 * ty).abs() / l2
+        }
+        _ => l1 >= l2,
+    };
+    let (long, len, wid) = if first { (e1, l1, l2) } else { (e2, l2, l1) };
     let (mut ax, mut ay) = (long.0 / len, long.1 / len);
     if ax < -1e-9 || (ax.abs() <= 1e-9 && ay < 0.0) {
         ax = -ax;
@@ -82,16 +95,18 @@ pub fn frame_of(poly: &Polygon<f64>) -> Option<(Frame, f64, f64)> {
     Some((Frame { ox, oy, ax, ay }, len, wid))
 }
 
-/// The net plot: the plot's rectangle shrunk by `end_trim` at each end (along), but by no
-/// more than `end_trim_max_fraction` of the plot's length, and `side_trim` at each side
-/// (across), clipped to the plot polygon itself. `None` when the trims leave nothing.
+/// The net plot: the plot's rectangle shrunk by `end_trim` at each end (along the direction
+/// of `travel` where given, else along the rectangle's longer side), but by no more than
+/// `end_trim_max_fraction` of the plot's length, and `side_trim` at each side (across),
+/// clipped to the plot polygon itself. `None` when the trims leave nothing.
 pub fn net_polygon(
     poly: &Polygon<f64>,
+    travel: Option<(f64, f64)>,
     end_trim: f64,
     end_trim_max_fraction: f64,
     side_trim: f64,
 ) -> Option<Vec<(f64, f64)>> {
-    let (f, len, wid) = frame_of(poly)?;
+    let (f, len, wid) = frame_along(poly, travel)?;
     let end_trim = end_trim.min(end_trim_max_fraction * len);
     let (hu, hv) = (0.5 * len - end_trim, 0.5 * wid - side_trim);
     if hu <= 0.0 || hv <= 0.0 {
@@ -380,14 +395,14 @@ mod tests {
         .map(|&(u, v)| f.world(u, v))
         .collect();
         let poly = Polygon::new(LineString::from(ring), vec![]);
-        let net = net_polygon(&poly, 15.0, 0.5, 1.0).unwrap();
+        let net = net_polygon(&poly, None, 15.0, 0.5, 1.0).unwrap();
         assert!((signed_area(&net).abs() - 30.0 * 16.0).abs() < 1e-6);
         let (g, len, wid) = frame_of(&poly).unwrap();
         assert!((len - 60.0).abs() < 1e-9 && (wid - 18.0).abs() < 1e-9);
         assert!((g.ax - f.ax).abs() < 1e-9 && (g.ay - f.ay).abs() < 1e-9);
-        assert!(net_polygon(&poly, 31.0, 0.5, 1.0).is_none());
+        assert!(net_polygon(&poly, None, 31.0, 0.5, 1.0).is_none());
         // Capped at a quarter of the length, a 31 m trim leaves the middle half: 30 x 16 m.
-        let net = net_polygon(&poly, 31.0, 0.25, 1.0).unwrap();
+        let net = net_polygon(&poly, None, 31.0, 0.25, 1.0).unwrap();
         assert!((signed_area(&net).abs() - 30.0 * 16.0).abs() < 1e-6);
         // A 10 m research plot keeps its middle 5 m with trims of 15 m capped at a quarter
         // of its length (4 m with the default 0.3), where before it kept nothing.
@@ -402,9 +417,28 @@ mod tests {
         .map(|&(v, u)| f.world(u, v))
         .collect();
         let short = Polygon::new(LineString::from(short), vec![]);
-        assert!(net_polygon(&short, 15.0, 0.5, 0.25).is_none());
-        let net = net_polygon(&short, 15.0, 0.25, 0.25).unwrap();
+        assert!(net_polygon(&short, None, 15.0, 0.5, 0.25).is_none());
+        let net = net_polygon(&short, None, 15.0, 0.25, 0.25).unwrap();
         assert!((signed_area(&net).abs() - 5.0 * 1.0).abs() < 1e-6);
+    }
+
+    #[test]
+    fn a_plot_wider_than_long_is_trimmed_along_the_direction_of_travel() {
+        // A research plot 8 m along travel (x) and 18 m across, cut along x.
+        let ring = vec![(0.0, 0.0), (8.0, 0.0), (8.0, 18.0), (0.0, 18.0), (0.0, 0.0)];
+        let poly = Polygon::new(LineString::from(ring), vec![]);
+        // By its longer side, the "ends" would be across travel: 18 - 2 x 5.4 by 8 - 2 x 0.5.
+        let by_side = net_polygon(&poly, None, 15.0, 0.3, 0.5).unwrap();
+        assert!((signed_area(&by_side).abs() - 7.2 * 7.0).abs() < 1e-6);
+        // Along travel (either sense): 8 - 2 x 2.4 = 3.2 m by 18 - 2 x 0.5 = 17 m, x in 2.4-5.6.
+        for t in [(1.0, 0.0), (-1.0, 0.0), (0.96, 0.28)] {
+            let net = net_polygon(&poly, Some(t), 15.0, 0.3, 0.5).unwrap();
+            assert!((signed_area(&net).abs() - 3.2 * 17.0).abs() < 1e-6, "{t:?}");
+            assert!(net.iter().all(|p| (2.4 - 1e-9..=5.6 + 1e-9).contains(&p.0)));
+        }
+        // Travel along the longer side gives the same net plot as no travel at all.
+        let along_y = net_polygon(&poly, Some((0.0, 1.0)), 15.0, 0.3, 0.5).unwrap();
+        assert_eq!(along_y, by_side);
     }
 
     #[test]

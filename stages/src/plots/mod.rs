@@ -21,8 +21,10 @@
 //!    mean (`trim_fraction` off each tail) and SD of yield at standard moisture, mean
 //!    moisture, centroid, and grid coordinates (range along travel, row across, and metres
 //!    along and across from the field's first plot). Plots with fewer than `min_points`
-//!    points (one-second records: a record of an export logging every 3 s counts 3) or a coverage below `min_coverage` are set aside (`min_points`,
-//!    `min_coverage`) and stay in the table, flagged.
+//!    points (one-second records: a record of an export logging every 3 s counts 3; a short
+//!    plot needs at most `min_points_max_fraction` of the records a complete harvest of its
+//!    net plot gives, and at least 3) or a coverage below `min_coverage` are set aside
+//!    (`min_points`, `min_coverage`) and stay in the table, flagged.
 //!
 //! Complexity: O(n log m) for n points and m plots, plus the footprint raster per plot.
 
@@ -218,28 +220,6 @@ pub fn run(
         .filter_map(|d| by_id.get(d.plot_id.as_str()).map(|p| (d, *p)))
         .collect();
     let polys: Vec<Polygon<f64>> = ordered.iter().map(|(_, p)| to_geo(p)).collect();
-    let nets: Vec<Option<Vec<(f64, f64)>>> = polys
-        .iter()
-        .map(|p| net_polygon(p, s.end_trim_m, s.end_trim_max_fraction, s.side_trim_m))
-        .collect();
-    // Plots the trims leave nothing of (with the end trims capped by the plot's length,
-    // only a side trim of half the plot's width or more, or a degenerate polygon).
-    let untrimmable: Vec<&str> = ordered
-        .iter()
-        .zip(&nets)
-        .filter(|(_, n)| n.is_none())
-        .map(|((d, _), _)| d.plot_id.as_str())
-        .collect();
-    let net_geo: Vec<Option<Polygon<f64>>> = nets
-        .iter()
-        .map(|n| {
-            n.as_ref().map(|r| {
-                let mut ring = r.clone();
-                ring.push(r[0]);
-                Polygon::new(LineString::from(ring), vec![])
-            })
-        })
-        .collect();
     let tree = index(&polys);
     // Headings and footprints from consecutive points of the same export and pass.
     let mut order: Vec<usize> = (0..points.len()).collect();
@@ -267,6 +247,8 @@ pub fn run(
         .filter(|(_, m)| m.is_finite() && *m > 0.0)
         .collect();
     let mut footprint: Vec<[(f64, f64); 4]> = vec![[(0.0, 0.0); 4]; points.len()];
+    // Each point's heading as a unit vector, NaN where the pass gives none.
+    let mut heading: Vec<(f64, f64)> = vec![(f64::NAN, f64::NAN); points.len()];
     for (k, &i) in order.iter().enumerate() {
         let same = |j: usize| {
             points[j].base.file == points[i].base.file && points[j].pass == points[i].pass
@@ -281,6 +263,7 @@ pub fn run(
         );
         let d = dx.hypot(dy);
         let (ux, uy) = if d > 1e-9 {
+            heading[i] = (dx / d, dy / d);
             (dx / d, dy / d)
         } else {
             (0.0, 1.0)
@@ -303,6 +286,57 @@ pub fn run(
         };
         footprint[i] = oriented_rect(p.x_m, p.y_m, ux, uy, travel.max(0.1), p.width_m);
     }
+    // Each point's plot polygon (the gross plot), points in parallel.
+    let gross: Vec<Option<usize>> = points
+        .par_iter()
+        .map(|p| locate(&tree, &polys, p.base.x_m, p.base.y_m))
+        .collect();
+    // Each plot's direction of travel: the axial mean of its points' headings (doubled
+    // angles, so that passes in either sense agree), where they agree (mean resultant
+    // length of the doubled angles at least 0.5); else the plot's longer side is taken.
+    let mut axial = vec![(0.0f64, 0.0f64, 0u32); polys.len()];
+    for (i, g) in gross.iter().enumerate() {
+        let (hx, hy) = heading[i];
+        if let (Some(k), true) = (g, hx.is_finite()) {
+            let a = &mut axial[*k];
+            a.0 += hx * hx - hy * hy;
+            a.1 += 2.0 * hx * hy;
+            a.2 += 1;
+        }
+    }
+    let travel: Vec<Option<(f64, f64)>> = axial
+        .iter()
+        .map(|&(c, sn, n)| {
+            (n >= 3 && c.hypot(sn) >= 0.5 * n as f64).then(|| {
+                let t = 0.5 * sn.atan2(c);
+                (t.cos(), t.sin())
+            })
+        })
+        .collect();
+    let nets: Vec<Option<Vec<(f64, f64)>>> = polys
+        .iter()
+        .zip(&travel)
+        .map(|(p, t)| net_polygon(p, *t, s.end_trim_m, s.end_trim_max_fraction, s.side_trim_m))
+        .collect();
+    // Plots the trims leave nothing of (with the end trims capped by the plot's length,
+    // only a side trim of half the plot's width or more, or a degenerate polygon).
+    let untrimmable: Vec<&str> = ordered
+        .iter()
+        .zip(&nets)
+        .filter(|(_, n)| n.is_none())
+        .map(|((d, _), _)| d.plot_id.as_str())
+        .collect();
+    let net_geo: Vec<Option<Polygon<f64>>> = nets
+        .iter()
+        .map(|n| {
+            n.as_ref().map(|r| {
+                let mut ring = r.clone();
+                ring.push(r[0]);
+                Polygon::new(LineString::from(ring), vec![])
+            })
+        })
+        .collect();
+
     // Each point's plot, or the rule it breaks (points in parallel, taken in order; a
     // rejection boxed, so that the list stays small when most points join a plot).
     enum Joined {
@@ -333,7 +367,7 @@ pub fn run(
                         limit: limit.clone(),
                     }))
                 };
-            let Some(k) = locate(&tree, &polys, x, y) else {
+            let Some(k) = gross[i] else {
                 let near = tree
                     .nearest_neighbor(&[x, y])
                     .map(|g| g.geom().distance_2(&[x, y]).sqrt())
@@ -517,7 +551,23 @@ pub fn run(
                     .max(1.0)
             })
             .sum();
-        let reason = if seconds < s.min_points as f64 {
+        // The records a complete harvest of the net plot gives at the plot's median speed
+        // and swath, in one-second terms; NaN where either is unknown.
+        let expected_s = {
+            let speeds: Vec<f64> = members[k]
+                .iter()
+                .map(|&i| points[i].base.speed_m_s)
+                .filter(|v| v.is_finite() && *v > 0.0)
+                .collect();
+            let widths: Vec<f64> = members[k]
+                .iter()
+                .map(|&i| points[i].base.width_m)
+                .filter(|v| v.is_finite() && *v > 0.0)
+                .collect();
+            net_area / (median(&speeds) * median(&widths))
+        };
+        let need = s.min_points_for(expected_s);
+        let reason = if seconds < need {
             Some((
                 "min_points",
                 "points",
@@ -526,7 +576,14 @@ pub fn run(
                 } else {
                     format!("{n} records of {seconds:.0} s")
                 },
-                format!(">= {}", s.min_points),
+                if need < s.min_points as f64 {
+                    format!(
+                        ">= {need} (plots.min_points = {}, at most {} of the {expected_s:.1} s a complete harvest of the net plot gives)",
+                        s.min_points, s.min_points_max_fraction
+                    )
+                } else {
+                    format!(">= {}", s.min_points)
+                },
             ))
         } else if cov < s.min_coverage {
             Some((

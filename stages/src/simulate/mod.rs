@@ -35,7 +35,8 @@ pub struct SimOptions {
     pub fields: usize,
     /// Blocks (replicates) per field; each block is one range of plots.
     pub blocks: usize,
-    /// Plot length along the direction of travel, metres.
+    /// Plot length along the direction of travel, metres. Plots shorter than 30 m are
+    /// research plots: 3 m alleys instead of 6 m, cut at 1.0-1.3 m/s instead of 2.0-2.4 m/s.
     pub plot_length_m: f64,
     /// SD of the spatial trend, kg/ha.
     pub trend_sd_kg_ha: f64,
@@ -221,7 +222,9 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         (2.0 * HEADER_M, TREATMENTS.len())
     };
     let passes_per_plot = (width_plot / HEADER_M).round() as usize;
-    let alley = 6.0;
+    // Research plots (shorter than 30 m) have narrower alleys (from memory).
+    let research = o.plot_length_m < 30.0;
+    let alley = if research { 3.0 } else { 6.0 };
     let headland = 20.0;
     let length_u =
         2.0 * headland + o.blocks as f64 * o.plot_length_m + (o.blocks - 1) as f64 * alley;
@@ -337,7 +340,12 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         for k in 0..npass {
             let v = (k as f64 + 0.5) * HEADER_M;
             let forward = k % 2 == 0;
-            let speed0 = rng.range(2.0, 2.4);
+            // Research plots (shorter than 30 m) are cut at a slower pace (from memory).
+            let speed0 = if research {
+                rng.range(1.0, 1.3)
+            } else {
+                rng.range(2.0, 2.4)
+            };
             let width = if k == partial_pass {
                 HEADER_M * rng.range(0.5, 0.75)
             } else {
