@@ -511,3 +511,80 @@ fn the_delay_scan_widens_past_its_edge_and_takes_negative_lags() {
         "{e}"
     );
 }
+
+#[test]
+fn a_work_state_that_flickers_off_while_cutting_keeps_its_records() {
+    // A header-height switch that flicks off for two records now and then in mid-pass (as
+    // real forage-harvester logs do, hundreds of times a day). Before: every such record was
+    // removed as work_state_off. Now a spell of "off" records between working records at most
+    // clean.work_state_bridge_s (4 s) apart is kept and counted: the plot table is the same
+    // byte for byte as the harvest without flicker; with the bridge at 0 they go again.
+    let w = Workdir::new("clean-flicker");
+    let sim = simulate(&w, "sim", &["--seed", "2", "--quiet"]);
+    ok(&plotsieve(
+        &w.0,
+        &["run", sim.to_str().unwrap(), "--out", "r-base", "--quiet"],
+    ));
+    let p = w.path("sim/monitor/field-A.csv");
+    let text = read(&p);
+    let mut lines: Vec<String> = text.lines().map(String::from).collect();
+    let k = lines[0]
+        .split(',')
+        .position(|c| c == "header_state")
+        .unwrap();
+    let on = |l: &str| l.split(',').nth(k) == Some("1");
+    let mut flipped = 0;
+    let mut i = 100;
+    while i + 3 < lines.len() {
+        // Two "off" records with a working record on each side.
+        if (i - 1..=i + 2).all(|j| on(&lines[j])) {
+            for line in lines.iter_mut().skip(i).take(2) {
+                let mut v: Vec<&str> = line.split(',').collect();
+                v[k] = "0";
+                *line = v.join(",");
+            }
+            flipped += 2;
+        }
+        i += 61;
+    }
+    assert!(flipped >= 40, "{flipped}");
+    std::fs::write(&p, lines.join("\n") + "\n").unwrap();
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            sim.to_str().unwrap(),
+            "--out",
+            "r-flicker",
+            "--quiet",
+        ],
+    ));
+    assert_eq!(
+        read(&w.path("r-base/3-plots/plots.csv")),
+        read(&w.path("r-flicker/3-plots/plots.csv"))
+    );
+    let (base, flick) = (
+        json(&w.path("r-base/2-clean/summary.json")),
+        json(&w.path("r-flicker/2-clean/summary.json")),
+    );
+    assert_eq!(base["by_rule"], flick["by_rule"]);
+    let bridged = &flick["details"]["exports"]["monitor/field-A.csv"]["work_state_bridged"];
+    assert_eq!(bridged.as_u64(), Some(flipped as u64));
+    ok(&plotsieve(
+        &w.0,
+        &[
+            "run",
+            sim.to_str().unwrap(),
+            "--out",
+            "r-nobridge",
+            "--quiet",
+            "--set",
+            "clean.work_state_bridge_s=0",
+        ],
+    ));
+    let nob = json(&w.path("r-nobridge/2-clean/summary.json"));
+    assert_eq!(
+        nob["by_rule"]["work_state_off"].as_u64().unwrap(),
+        base["by_rule"]["work_state_off"].as_u64().unwrap() + flipped as u64
+    );
+}

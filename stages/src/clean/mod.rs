@@ -9,7 +9,8 @@
 //! derived quantities (passes: [`passes`], the delay shift: [`delay`], yields: below) are
 //! computed where the first rule that needs them stands in the list.
 //!
-//! 1. `work_state_off`: the export's work-state column (when mapped) says not harvesting.
+//! 1. `work_state_off`: the export's work-state column (when mapped) says not harvesting
+//!    (a flicker between working records at most `work_state_bridge_s` apart is kept).
 //! 2. `gps_duplicate`: a second record with the same time stamp (the first is kept).
 //! 3. `gps_quality`: HDOP above `gps.max_hdop` or fix quality below `gps.min_fix_quality`
 //!    (when those columns are mapped).
@@ -201,6 +202,7 @@ fn clean_export<'a>(
             flow_delay_estimate: None,
             moisture_delay_estimate: None,
             time_steps_back: 0,
+            work_state_bridged: 0,
             skipped_rules: BTreeMap::new(),
         },
         derived: Needs::Records,

@@ -112,6 +112,9 @@ pub struct CleanSettings {
     pub flow_delay_s: f64,
     pub moisture_delay_s: f64,
     pub disabled_rules: Vec<String>,
+    /// A run of "off" work-state records between working records at most this far apart (s)
+    /// is a flicker and kept.
+    pub work_state_bridge_s: f64,
     /// Warn when one rule removes more than this share of an export's points.
     pub warn_rule_share: f64,
     pub delay: DelaySettings,
@@ -147,6 +150,7 @@ impl CleanSettings {
                 ("clean.header_width_m", c.header_width_m),
                 ("clean.flow_delay_s", c.flow_delay_s),
                 ("clean.moisture_delay_s", c.moisture_delay_s),
+                ("clean.work_state_bridge_s", c.work_state_bridge_s),
                 ("clean.pass.max_gap_s", c.pass.max_gap_s),
                 (
                     "clean.pass.max_heading_change_deg",

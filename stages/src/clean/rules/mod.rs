@@ -192,6 +192,10 @@ pub struct ExportDetails {
     /// Backward steps of the GPS time repaired ([`crate::clean::timeline`]).
     #[serde(default, skip_serializing_if = "is_zero")]
     pub time_steps_back: usize,
+    /// "Off" work-state records kept as a flicker between working records
+    /// (`clean.work_state_bridge_s`).
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub work_state_bridged: usize,
 }
 
 fn is_zero(n: &usize) -> bool {
