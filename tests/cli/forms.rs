@@ -736,6 +736,59 @@ fn a_task_data_zip_that_inflates_to_a_gigabyte_of_zeros_is_refused_before_it_is_
 }
 
 #[test]
+fn an_export_too_large_for_this_machine_is_refused_before_it_is_read() {
+    // Before: a delimited export was read whole, however large; a harvest too large for the
+    // machine was killed by the kernel part-way. Now each export's records are bounded from
+    // its size and first lines, and a trial that would need more than
+    // ingest.max_memory_share (0.7) of the machine's memory is refused at once, by check and
+    // by run, naming the export. The export here is a real one whose file is extended to a
+    // quarter of the machine's memory with a hole (sparse: no disk space, nothing written);
+    // at about 100 bytes a record it bounds some 2.9 times the machine's memory.
+    let w = Workdir::new("forms-too-large");
+    let t = simulate(&w, "sim", &["--seed", "2", "--quiet"]);
+    let meminfo = read(Path::new("/proc/meminfo"));
+    let total_kb: u64 = meminfo
+        .lines()
+        .find_map(|l| l.strip_prefix("MemTotal:"))
+        .unwrap()
+        .trim()
+        .trim_end_matches("kB")
+        .trim()
+        .parse()
+        .unwrap();
+    let p = w.path("sim/monitor/field-B.csv");
+    std::fs::OpenOptions::new()
+        .write(true)
+        .open(&p)
+        .unwrap()
+        .set_len(total_kb * 1024 / 4)
+        .unwrap();
+    for cmd in ["check", "run"] {
+        let started = std::time::Instant::now();
+        let o = plotsieve(&w.0, &[cmd, t.to_str().unwrap(), "--quiet"]);
+        assert_eq!(o.status.code(), Some(1), "{cmd}");
+        let err =
+            String::from_utf8_lossy(&o.stderr).to_string() + &String::from_utf8_lossy(&o.stdout);
+        assert!(
+            err.contains("monitor/field-B.csv: the trial's 2 export(s) hold up to")
+                && err.contains("ingest.max_memory_share = 0.7")
+                && err.contains("not read"),
+            "{cmd}: {err}"
+        );
+        // Refused before reading: far quicker than reading gigabytes would be.
+        assert!(started.elapsed().as_secs() < 20, "{cmd}");
+    }
+    // A file with no line end in its first 64 KiB (here: all zeros) is no delimited export.
+    std::fs::write(&p, vec![0u8; 100_000]).unwrap();
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    let out = String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr);
+    assert!(
+        out.contains("monitor/field-B.csv: no line end in its first 64 KiB"),
+        "{out}"
+    );
+}
+
+#[test]
 fn a_wild_export_without_speed_and_already_delay_corrected_comes_out_within_its_truth() {
     // The real-data failings at once on a simulated harvest of known truth: mass flow
     // logged without any speed or distance column (before: refused, "maps neither speed

@@ -20,6 +20,7 @@ pub mod geojson;
 pub mod geopackage;
 pub mod layers;
 pub mod layout_checks;
+pub mod memory;
 pub mod plot_checks;
 pub mod plot_table;
 #[cfg(test)]
@@ -237,8 +238,14 @@ pub fn run_with(
     progress: &crate::progress::Progress,
 ) -> Result<IngestOutput, IngestError> {
     let files = monitor_files(cfg, base)?;
-    progress.start(files.len() as u64, "exports read");
     let names: Vec<String> = files.iter().map(|p| display(base, p)).collect();
+    memory::check(
+        &files,
+        &names,
+        cfg.ingest.max_memory_share,
+        memory::machine_bytes(),
+    )?;
+    progress.start(files.len() as u64, "exports read");
     let mut raw: Vec<formats::RawPoint> = Vec::new();
     let mut rejections = Vec::new();
     // Treatment, strip and replicate labels of the records, over all exports (0: none).
@@ -572,6 +579,25 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
     match monitor_files(cfg, base) {
         Err(e) => problems.push(e.to_string()),
         Ok(files) => {
+            let names: Vec<String> = files.iter().map(|p| display(base, p)).collect();
+            let machine = memory::machine_bytes();
+            match memory::check(&files, &names, cfg.ingest.max_memory_share, machine) {
+                // Nothing is read when the exports would not fit.
+                Err(e) => return vec![e.to_string()],
+                Ok(need) => problems.push(match machine {
+                    Some(m) => format!(
+                        "read: memory: the exports need about {} MiB in a run, of the {} MiB allowed (ingest.max_memory_share = {} of {} MiB)",
+                        need >> 20,
+                        (cfg.ingest.max_memory_share * m as f64) as u64 >> 20,
+                        cfg.ingest.max_memory_share,
+                        m >> 20
+                    ),
+                    None => format!(
+                        "read: memory: the exports need about {} MiB in a run; this machine's memory cannot be read, so it is not checked",
+                        need >> 20
+                    ),
+                }),
+            }
             for (i, p) in files.iter().enumerate() {
                 let name = display(base, p);
                 let format = formats::for_file(p);

@@ -260,6 +260,9 @@ pub struct IngestSettings {
     /// Plots built from treatment labels: a strip piece with fewer labelled records than
     /// this is not a plot (a stray label), with a warning.
     pub strip_min_records: u64,
+    /// Refuse a trial whose exports would need more than this share of the machine's memory
+    /// ([`crate::ingest::memory`]).
+    pub max_memory_share: f64,
 }
 
 impl IngestSettings {
@@ -275,6 +278,12 @@ impl IngestSettings {
         if !(l == 0.0 || (l >= 5.0 && l.is_finite())) {
             p.push(format!(
                 "ingest.strip_plot_length_m must be 0 (whole strips) or at least 5 m (got {l})"
+            ));
+        }
+        if !(self.max_memory_share > 0.0 && self.max_memory_share <= 1.0) {
+            p.push(format!(
+                "ingest.max_memory_share must be above 0 and at most 1 (got {})",
+                self.max_memory_share
             ));
         }
         if self.strip_min_records < 3 {

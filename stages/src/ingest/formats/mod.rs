@@ -66,6 +66,14 @@ pub trait MonitorFormat: Sync {
         name: &str,
         file: u32,
     ) -> Result<ExportRead, IngestError>;
+    /// An estimate from above of the records the export holds, from its size and first bytes
+    /// alone (nothing inflated or parsed), for the memory check before any export is read
+    /// ([`crate::ingest::memory`]); `Err` when the file cannot be an export of this format at
+    /// all (the reason). By default: delimited text, its size over the mean length of the
+    /// lines in its first 64 KiB, plus a quarter.
+    fn records_bound(&self, path: &Path) -> Result<u64, String> {
+        text_records_bound(path)
+    }
     /// WGS84 (lon, lat) of every record that has one, from the export's bytes, for matching
     /// exports to trials. `Ok(None)`: the trial's mapping does not fit this export; `Err`:
     /// the export is cut short or unreadable (the reason).
@@ -178,6 +186,34 @@ pub fn for_bytes(path: &Path, head: &[u8]) -> &'static dyn MonitorFormat {
 /// Whether some format claims this file (by its extension, or its name).
 pub fn is_export(path: &Path) -> bool {
     FORMATS.iter().any(|f| f.claims(path))
+}
+
+/// [`MonitorFormat::records_bound`] of a delimited text export: its size over the mean
+/// length of the lines in its first 64 KiB, plus a quarter. A file without a line end in its
+/// first 64 KiB is no delimited export (a header line is never that long): an error, so that
+/// such a file is never read whole in search of a line end.
+pub fn text_records_bound(path: &Path) -> Result<u64, String> {
+    const SAMPLE: usize = 64 << 10;
+    let size = std::fs::metadata(path).map_err(|e| e.to_string())?.len();
+    let mut head = Vec::with_capacity(SAMPLE);
+    std::fs::File::open(path)
+        .map_err(|e| e.to_string())?
+        .take(SAMPLE as u64)
+        .read_to_end(&mut head)
+        .map_err(|e| e.to_string())?;
+    let lines = head.iter().filter(|&&b| b == b'\n').count() as u64;
+    if lines == 0 {
+        return if (head.len() as u64) < size || head.len() == SAMPLE {
+            Err(format!(
+                "no line end in its first {} KiB ({size} bytes in all): not a delimited export; not read",
+                SAMPLE >> 10
+            ))
+        } else {
+            Ok(1)
+        };
+    }
+    let per_line = (head.len() as u64 / lines).max(1);
+    Ok(size / per_line + size / per_line / 4 + 1)
 }
 
 /// Half-width, in records, of the window over which [`speed_from_positions`] measures speed.

@@ -90,6 +90,13 @@ macro_rules! point_layer_format {
                 &[$ext]
             }
 
+            fn records_bound(&self, path: &Path) -> Result<u64, String> {
+                // A point record takes at least 28 bytes (a Shapefile's record header and
+                // point; a GeoPackage row is larger).
+                let size = std::fs::metadata(path).map_err(|e| e.to_string())?.len();
+                Ok(size / 28 + 1)
+            }
+
             fn sniff(&self, path: &Path, head: &[u8]) -> bool {
                 path.extension()
                     .is_some_and(|e| e.eq_ignore_ascii_case($ext))

@@ -89,6 +89,68 @@ pub const MAX_INFLATION: u64 = 100;
 /// The most a task-data set may hold in all (2 GiB).
 pub const MAX_TOTAL_BYTES: u64 = 2 << 30;
 
+/// A zip member's declared size and inflation against [`MAX_MEMBER_BYTES`] and
+/// [`MAX_INFLATION`], before anything is inflated; `Err` names the member.
+fn member_limits(n: &str, size: u64, packed: u64) -> Result<(), String> {
+    let packed = packed.max(1);
+    let what = if size > MAX_MEMBER_BYTES {
+        format!("declares {size} bytes, more than a task-data file can be ({MAX_MEMBER_BYTES})")
+    } else if size / packed > MAX_INFLATION {
+        format!(
+            "inflates from {packed} to {size} bytes ({}x; a real time log deflates far less than {MAX_INFLATION}x)",
+            size / packed
+        )
+    } else {
+        return Ok(());
+    };
+    Err(format!(
+        "{n}: {what}; not read (an archive made to exhaust memory, or not task data)"
+    ))
+}
+
+/// A time log whose first this many records are all without a time or a position is refused
+/// there (an hour of records at one a second; a real log gets its first fix in minutes).
+const MAX_LEADING_UNUSABLE: u64 = 3600;
+
+/// The fewest bytes a time-log record takes: time (6), latitude and longitude (8), the
+/// value count (1) and one value (5).
+const MIN_RECORD_BYTES: u64 = 20;
+
+/// The size of time log `log` (`TLG00001`) of a task-data set, as a zip archive declares it
+/// (nothing inflated) or as its folder holds it; 0 when the set has no such file.
+fn log_size(file: &Path, log: &str) -> Result<u64, String> {
+    let want = format!("{}.BIN", log.to_ascii_uppercase());
+    let is_zip = file
+        .extension()
+        .is_some_and(|x| x.eq_ignore_ascii_case("zip"));
+    if is_zip {
+        let f = std::fs::File::open(file).map_err(|e| e.to_string())?;
+        let mut z = zip::ZipArchive::new(f).map_err(|e| format!("not a zip archive ({e})"))?;
+        let mut size = 0;
+        for i in 0..z.len() {
+            let e = z.by_index_raw(i).map_err(|e| format!("entry {i}: {e}"))?;
+            let name = e.name().map_err(|e| format!("entry {i}: {e}"))?;
+            let base = name.rsplit('/').next().unwrap_or("").to_ascii_uppercase();
+            if base == want {
+                member_limits(&name, e.size(), e.compressed_size())?;
+                size = size.max(e.size());
+            }
+        }
+        Ok(size)
+    } else {
+        let dir = file.parent().unwrap_or(Path::new("."));
+        let found = std::fs::read_dir(if dir.as_os_str().is_empty() {
+            Path::new(".")
+        } else {
+            dir
+        })
+        .map_err(|e| e.to_string())?
+        .filter_map(|e| e.ok())
+        .find(|e| e.file_name().to_string_lossy().to_ascii_uppercase() == want);
+        Ok(found.and_then(|e| e.metadata().ok()).map_or(0, |m| m.len()))
+    }
+}
+
 impl Files {
     fn open(path: &Path) -> Result<Files, String> {
         let is_zip = path
@@ -154,23 +216,13 @@ impl Files {
                 continue;
             }
             let e = z.by_name(n).map_err(|e| format!("{n}: {e}"))?;
-            let (size, packed) = (e.size(), e.compressed_size().max(1));
+            let size = e.size();
+            member_limits(n, size, e.compressed_size())?;
             let refuse = |what: String| {
                 Err(format!(
                     "{n}: {what}; not read (an archive made to exhaust memory, or not task data)"
                 ))
             };
-            if size > MAX_MEMBER_BYTES {
-                return refuse(format!(
-                    "declares {size} bytes, more than a task-data file can be ({MAX_MEMBER_BYTES})"
-                ));
-            }
-            if size / packed > MAX_INFLATION {
-                return refuse(format!(
-                    "inflates from {packed} to {size} bytes ({}x; a real time log deflates far less than {MAX_INFLATION}x)",
-                    size / packed
-                ));
-            }
             total += size;
             if total > MAX_TOTAL_BYTES {
                 return refuse(format!(
@@ -369,6 +421,11 @@ fn read_log(
         Some(s)
     };
     while at < bin.len() {
+        if row >= MAX_LEADING_UNUSABLE && out.points.len() == first_point {
+            return Err(format!(
+                "{source}: none of its first {row} records has both a time and a position (all at 1980-01-01 00:00 or at 0,0 / without a fix: a log of zeros, or not a time log); not read further"
+            ));
+        }
         row += 1;
         let left = bin.len() - at;
         let cut = |row: u64| {
@@ -451,6 +508,17 @@ fn read_log(
         };
         let (lat, lon) = (deg(0), deg(1));
         let status = pos[3];
+        if ms == 0 && days == 0 {
+            out.rejections.push(reject(
+                source,
+                row,
+                "no_time",
+                "TIM",
+                "1980-01-01T00:00:00Z",
+                "a time after the time log's zero",
+            ));
+            continue;
+        }
         if !(lat.is_finite() && lon.is_finite()) || (lat == 0.0 && lon == 0.0) || status == 0.0 {
             out.rejections.push(reject(
                 source,
@@ -657,6 +725,16 @@ impl MonitorFormat for TaskData {
             ),
             Err(_) => self.describe(cfg),
         }
+    }
+    fn records_bound(&self, path: &Path) -> Result<u64, String> {
+        // A time-log record takes at least MIN_RECORD_BYTES; the log's size as the archive
+        // declares it (nothing inflated) or as the folder holds it.
+        let (file, log) = split(path);
+        let size = match log {
+            None => std::fs::metadata(&file).map_err(|e| e.to_string())?.len(),
+            Some(log) => log_size(&file, &log)?,
+        };
+        Ok(size / MIN_RECORD_BYTES + 1)
     }
     fn check(&self, cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String> {
         mapping(cfg, path)

@@ -16,6 +16,18 @@ fn golden() -> serde_json::Value {
         .unwrap()
 }
 
+/// A fresh temporary folder holding these files of the fixture set.
+fn fixture_copy(tag: &str, files: &[&str]) -> PathBuf {
+    let dir = std::env::temp_dir().join(format!("plotsieve-{tag}-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&dir);
+    std::fs::create_dir_all(&dir).unwrap();
+    let src = fixtures().join("TASKDATA");
+    for f in files {
+        std::fs::copy(src.join(f), dir.join(f)).unwrap();
+    }
+    dir
+}
+
 fn cfg() -> TrialConfig {
     TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[]).unwrap()
 }
@@ -110,18 +122,16 @@ fn the_format_claims_task_data_and_says_what_it_maps() {
 
 #[test]
 fn a_cut_or_incomplete_task_data_set_is_a_located_error_or_rejection() {
-    let dir = std::env::temp_dir().join(format!("plotsieve-taskdata-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&dir);
-    std::fs::create_dir_all(&dir).unwrap();
+    let dir = fixture_copy(
+        "taskdata",
+        &[
+            "TASKDATA.XML",
+            "TLG00001.XML",
+            "TLG00001.BIN",
+            "TLG00002.XML",
+        ],
+    );
     let src = fixtures().join("TASKDATA");
-    for f in [
-        "TASKDATA.XML",
-        "TLG00001.XML",
-        "TLG00001.BIN",
-        "TLG00002.XML",
-    ] {
-        std::fs::copy(src.join(f), dir.join(f)).unwrap();
-    }
     // The second log's records are missing: an error naming the file.
     let e = TaskData
         .check(&cfg(), &dir.join("TASKDATA.XML"), "TASKDATA.XML")
@@ -187,5 +197,42 @@ fn a_log_without_speed_or_width_takes_speed_from_positions_and_the_stated_width(
         "{}",
         m[0]
     );
+    std::fs::remove_dir_all(&dir).unwrap();
+}
+
+#[test]
+fn a_time_log_of_zeros_is_refused_after_an_hour_of_records_and_a_zero_time_is_no_time() {
+    // A time log of zero bytes (each record at 1980-01-01 00:00 and at 0,0): before, every
+    // record was read and rejected, however long the log; now the log is refused once its
+    // first 3600 records have given nothing, naming it.
+    let dir = fixture_copy(
+        "td-zeros",
+        &[
+            "TASKDATA.XML",
+            "TLG00001.XML",
+            "TLG00002.XML",
+            "TLG00002.BIN",
+        ],
+    );
+    std::fs::write(dir.join("TLG00001.BIN"), vec![0u8; 400_000]).unwrap();
+    let e = TaskData
+        .read(&cfg(), &dir.join("TASKDATA.XML"), "T", 0)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("T#TLG00001: none of its first 3600 records has both a time and a position"),
+        "{e}"
+    );
+    // A short run of zeros is read and rejected, record by record: no_time first.
+    std::fs::write(dir.join("TLG00001.BIN"), vec![0u8; 3000]).unwrap();
+    let out = TaskData
+        .read(&cfg(), &dir.join("TASKDATA.XML"), "T", 0)
+        .unwrap();
+    let first = &out.rejections[0];
+    assert_eq!(
+        (&*first.source_file, &*first.rule),
+        ("T#TLG00001", "no_time")
+    );
+    assert_eq!(out.rows, (out.points.len() + out.rejections.len()) as u64);
     std::fs::remove_dir_all(&dir).unwrap();
 }
