@@ -581,7 +581,7 @@ fn check_plot_table(trial: &Path, t: &Trial) -> Result<()> {
             if let Some(w) = table.bounds_warning(name, &crop) {
                 println!("warning: {w}");
             }
-            for w in ingest::layout_checks::repeated_orders_of_plots(&table.plots) {
+            for w in ingest::layout_checks::design_warnings_of_plots(&table.plots) {
                 println!("warning: {w}");
             }
             let unit = plotsieve_stages::crop::YieldUnit::new(cfg.trial.output_unit, &crop);

@@ -199,3 +199,50 @@ fn degenerate_data_gives_no_confident_answer() {
     let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
     assert!(md.contains("prod-aa has a single kept plot"));
 }
+
+#[test]
+fn a_check_put_at_one_end_of_every_block_is_a_design_warning() {
+    // The treatments randomised within each block except the check, put in the first column
+    // of every block (a shortcut that ties the check to one side of the field). Before: no
+    // word. Now check and the ingest summary say the check lies toward one side of its blocks.
+    let w = Workdir::new("design-confounded");
+    let t = simulate(&w, "t", &["--seed", "2", "--blocks", "6", "--quiet"]);
+    let p = w.path("t/design.csv");
+    let text = read(&p);
+    let mut rows: Vec<Vec<String>> = text
+        .lines()
+        .skip(1)
+        .map(|l| l.split(',').map(String::from).collect())
+        .collect();
+    // Within each (field, block): swap labels so that the check is in column 01.
+    let keys: std::collections::BTreeSet<(String, String)> =
+        rows.iter().map(|r| (r[3].clone(), r[2].clone())).collect();
+    for (field, block) in keys {
+        let idx: Vec<usize> = (0..rows.len())
+            .filter(|&i| rows[i][3] == field && rows[i][2] == block)
+            .collect();
+        let first = *idx.iter().find(|&&i| rows[i][0].ends_with("01")).unwrap();
+        let check = *idx.iter().find(|&&i| rows[i][1] == "check").unwrap();
+        let (a, b) = (rows[first][1].clone(), rows[check][1].clone());
+        rows[first][1] = b;
+        rows[check][1] = a;
+    }
+    let out: Vec<String> = std::iter::once("plot_id,treatment,block,field".to_string())
+        .chain(rows.iter().map(|r| r.join(",")))
+        .collect();
+    std::fs::write(&p, out.join("\n") + "\n").unwrap();
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    let s = String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr);
+    for field in ["A", "B"] {
+        assert!(
+            s.contains(&format!(
+                "field {field}: treatment check lies toward one side of its blocks"
+            )),
+            "{s}"
+        );
+    }
+    // The untouched design: no such warning.
+    let u = simulate(&w, "u", &["--seed", "2", "--blocks", "6", "--quiet"]);
+    let o = plotsieve(&w.0, &["check", u.to_str().unwrap()]);
+    assert!(!String::from_utf8_lossy(&o.stdout).contains("toward one side"));
+}

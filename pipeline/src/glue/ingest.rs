@@ -65,7 +65,7 @@ fn plot_table(c: &Ctx) -> Result<StageSummary> {
         ));
     }
     warnings.extend(t.bounds_warning(name, &c.crop));
-    warnings.extend(ingest::layout_checks::repeated_orders_of_plots(&t.plots));
+    warnings.extend(ingest::layout_checks::design_warnings_of_plots(&t.plots));
     summary.set_warnings(&warnings);
     write_stage_tables(&c.dir, &t.rejections, &summary)?;
     Ok(summary)

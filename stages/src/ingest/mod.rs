@@ -725,5 +725,5 @@ fn design_layout_warnings(polygons: &[PlotPolygon], design: &[DesignRow]) -> Vec
                 })
         })
         .collect();
-    layout_checks::repeated_orders(&placed)
+    layout_checks::design_warnings(&placed)
 }
