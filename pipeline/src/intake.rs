@@ -256,6 +256,16 @@ pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
             .file_name()
             .map(|n| n.to_string_lossy().to_string())
             .unwrap_or_default();
+        // An export too large for this machine (or no export at all) is not read whole.
+        if let Err(e) = ingest::memory::check(
+            std::slice::from_ref(path),
+            std::slice::from_ref(&name),
+            ingest::settings::IngestSettings::default_share(),
+            ingest::memory::machine_bytes(),
+        ) {
+            lines.push(format!("left in the inbox: {e}"));
+            continue;
+        }
         let bytes = std::fs::read(path).with_context(|| format!("reading {}", path.display()))?;
         let sha = sha256(&bytes);
         if let Some(prev) = manifest.exports.get(&sha) {

@@ -266,6 +266,12 @@ pub struct IngestSettings {
 }
 
 impl IngestSettings {
+    /// `ingest.max_memory_share` of `config/defaults.toml` (for intake, which reads exports
+    /// before it knows their trial).
+    pub fn default_share() -> f64 {
+        crate::defaults::section::<IngestSettings>("ingest").max_memory_share
+    }
+
     /// Range problems, each naming its key.
     pub fn problems(&self, p: &mut Vec<String>) {
         if !(0..=60).contains(&self.utm_zone) {
