@@ -26,9 +26,11 @@ fn plot_rows(run: &std::path::Path) -> Vec<Row> {
 }
 
 /// Each label-built plot matched to the drawn plot with the nearest centroid: asserts one
-/// match per drawn plot, within `near_m`, with the same treatment and status; returns the
-/// relative yield differences of plots kept in both, sorted.
-fn matched(drawn: &[Row], built: &[Row], near_m: f64) -> Vec<f64> {
+/// match per drawn plot, within `near_m`, with the same treatment, and the same status but
+/// for at most `status_slack` plots; returns the relative yield differences of plots kept
+/// in both, sorted.
+fn matched(drawn: &[Row], built: &[Row], near_m: f64, status_slack: usize) -> Vec<f64> {
+    let mut differ = Vec::new();
     assert_eq!(drawn.len(), built.len(), "plot counts");
     let mut used = BTreeMap::new();
     let mut d = Vec::new();
@@ -50,11 +52,14 @@ fn matched(drawn: &[Row], built: &[Row], near_m: f64) -> Vec<f64> {
             a.0
         );
         assert_eq!(a.1, b.1, "treatment of {} ({})", b.0, a.0);
-        assert_eq!(a.2, b.2, "status of {} ({})", b.0, a.0);
-        if a.2 == "kept" {
+        if a.2 != b.2 {
+            differ.push(format!("{} ({}): {} against {}", b.0, a.0, b.2, a.2));
+        }
+        if a.2 == "kept" && b.2 == "kept" {
             d.push(((b.3 - a.3) / a.3).abs());
         }
     }
+    assert!(differ.len() <= status_slack, "statuses differ: {differ:?}");
     d.sort_by(f64::total_cmp);
     d
 }
@@ -110,6 +115,7 @@ fn plots_built_from_treatment_labels_match_the_drawn_plots_of_the_same_harvest()
         &plot_rows(&w.path("r-drawn")),
         &plot_rows(&w.path("r-labelled")),
         2.0,
+        0,
     );
     eprintln!(
         "RCBD from labels: {} kept plots, largest yield difference {:.5}",
@@ -150,6 +156,9 @@ fn plots_built_from_treatment_labels_match_the_drawn_plots_of_the_same_harvest()
         &plot_rows(&w.path("rs-drawn")),
         &plot_rows(&w.path("rs-labelled")),
         2.0,
+        // A plot one record from its minimum may fall either side of it: the net plot of a
+        // strip built from labels is placed from the records (plots.min_points_max_fraction).
+        1,
     );
     let within = d.iter().filter(|x| **x < 0.005).count();
     eprintln!(
@@ -285,6 +294,7 @@ fn plots_built_from_prescription_polygons_match_the_drawn_plots() {
         &plot_rows(&w.path("r-drawn")),
         &plot_rows(&w.path("r-rx")),
         2.0,
+        0,
     );
     eprintln!(
         "RCBD from prescription polygons: {} kept plots, largest yield difference {:.5}",
