@@ -248,6 +248,27 @@ mod tests {
     use super::*;
 
     #[test]
+    fn the_reference_lists_every_rule_in_its_order() {
+        // docs/reference.md's clean stage names the rules; they must be RULES, in order.
+        let doc = include_str!("../../../../docs/reference.md");
+        let start = doc
+            .find("- **clean**:")
+            .expect("docs/reference.md has the clean stage");
+        let rest = &doc[start + 2..];
+        let para = &rest[..rest.find("\n- **").unwrap_or(rest.len())];
+        let mut at = 0;
+        for name in names() {
+            let quoted = format!("`{name}`");
+            let found = para[at..].find(&quoted).unwrap_or_else(|| {
+                panic!(
+                    "{quoted} missing from the clean stage in docs/reference.md, or out of order"
+                )
+            });
+            at += found + quoted.len();
+        }
+    }
+
+    #[test]
     fn rule_names_are_unique() {
         let mut n = names();
         let len = n.len();
