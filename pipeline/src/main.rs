@@ -234,3 +234,28 @@ fn main() -> ExitCode {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::Cli;
+    use clap::CommandFactory;
+
+    #[test]
+    fn every_argument_of_every_subcommand_is_described() {
+        let cli = Cli::command();
+        let mut missing = Vec::new();
+        for sub in cli.get_subcommands() {
+            assert!(
+                sub.get_about().is_some(),
+                "{} has no description",
+                sub.get_name()
+            );
+            for a in sub.get_arguments() {
+                if a.get_id() != "help" && a.get_help().is_none() && a.get_long_help().is_none() {
+                    missing.push(format!("{} {}", sub.get_name(), a.get_id()));
+                }
+            }
+        }
+        assert!(missing.is_empty(), "arguments without help: {missing:?}");
+    }
+}

@@ -388,7 +388,13 @@ pub fn run_all(trial: &Path, out: Option<PathBuf>, set: &[String], quiet: bool) 
     let manifest = new_manifest(&t)?;
     run_stages(&Stage::ALL, &t, &out, manifest, quiet)?;
     if !quiet {
-        eprintln!("done: {}", out.display());
+        let report = out.join(Stage::Report.dir());
+        eprintln!(
+            "done: {}; the reports are {} and {}",
+            out.display(),
+            report.join("report.html").display(),
+            report.join("report.md").display()
+        );
     }
     Ok(())
 }
@@ -454,6 +460,14 @@ pub fn run_one(
     run_stages(&[stage], &t, &out, manifest, quiet)?;
     if !quiet {
         eprintln!("done: stage {} in {}", stage.name(), out.display());
+        if stage == Stage::Report {
+            let report = out.join(Stage::Report.dir());
+            eprintln!(
+                "the reports are {} and {}",
+                report.join("report.html").display(),
+                report.join("report.md").display()
+            );
+        }
     }
     Ok(())
 }

@@ -108,9 +108,14 @@ pub struct TrialConfig {
     /// `[crop]`: this trial's crop values over the crop table's.
     #[serde(rename = "crop")]
     pub crop_values: crate::crop::CropSettings,
-    /// The monitor exports' mapping (absent for plot-table entry).
+    /// The monitor exports' mapping (absent for plot-table entry, and for a trial whose
+    /// exports are all of formats that do not read it: task data).
     #[serde(default)]
     pub columns: ColumnsSection,
+    /// Whether the trial file (or an override) has a `[columns]` section: without one its
+    /// problems are ingest's to raise, for the exports that read it.
+    #[serde(skip)]
+    pub columns_given: bool,
     pub ingest: IngestSettings,
     pub clean: CleanSettings,
     pub plots: PlotsSettings,
@@ -267,7 +272,8 @@ impl TrialConfig {
         for o in overrides {
             apply_override(&mut tree, o)?;
         }
-        let cfg: TrialConfig = serde_path_to_error::deserialize(tree).map_err(|e| {
+        let columns_given = matches!(&tree, Value::Table(t) if t.contains_key("columns"));
+        let mut cfg: TrialConfig = serde_path_to_error::deserialize(tree).map_err(|e| {
             let (path, message) = (e.path().to_string(), e.inner().to_string());
             let message = message.trim_end().to_string();
             if message.starts_with("must be ") {
@@ -279,6 +285,7 @@ impl TrialConfig {
                 ConfigError::Shape { path, message }
             }
         })?;
+        cfg.columns_given = columns_given;
         cfg.validate()?;
         Ok(cfg)
     }
@@ -323,7 +330,7 @@ impl TrialConfig {
     pub fn validate(&self) -> Result<(), ConfigError> {
         let mut p = Vec::new();
         let table = !self.inputs.plot_table.is_empty();
-        if !table {
+        if !table && self.columns_given {
             self.columns.problems(&mut p);
         }
         self.crop_values.problems(&mut p);

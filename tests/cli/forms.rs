@@ -223,6 +223,9 @@ fn a_simulated_harvest_as_iso_11783_task_data_reads_as_the_text_form() {
     let td = simulate(&w, "td", &["--seed", "2", "--form", "taskdata", "--quiet"]);
     assert!(w.path("td/monitor/TASKDATA/TASKDATA.XML").is_file());
     assert!(w.path("td/monitor/TASKDATA/TLG00002.BIN").is_file());
+    // Task data names its quantities by DDI: the trial file has no [columns] (before: check
+    // refused it without one).
+    assert!(!read(&td).contains("[columns]"));
     let o = plotsieve(&w.0, &["check", td.to_str().unwrap()]);
     ok(&o);
     let out = String::from_utf8_lossy(&o.stdout);
@@ -245,6 +248,21 @@ fn a_simulated_harvest_as_iso_11783_task_data_reads_as_the_text_form() {
     for f in ["TASKDATA.XML", "TLG00001.BIN", "TLG00002.XML"] {
         assert!(m.contains(&format!("monitor/TASKDATA/{f}")), "{f}");
     }
+    // A text export beside the task data needs the [columns] the trial file lacks: refused,
+    // naming the export and what is missing.
+    std::fs::copy(
+        w.path("text/monitor/field-A.csv"),
+        w.path("td/monitor/field-A.csv"),
+    )
+    .unwrap();
+    let o = plotsieve(&w.0, &["check", td.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(1));
+    let out = String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr);
+    assert!(
+        out.contains("monitor/field-A.csv: a mapped_text export is read through [columns], and the trial file has none: ")
+            && out.contains("[columns] needs flow"),
+        "{out}"
+    );
     // The simulator writes the same bytes again.
     simulate(&w, "td2", &["--seed", "2", "--form", "taskdata", "--quiet"]);
     for f in ["TASKDATA.XML", "TLG00001.BIN", "TLG00002.BIN"] {

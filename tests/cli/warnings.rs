@@ -54,7 +54,7 @@ fn a_field_that_drops_out_is_loud_and_stops_the_pooled_result() {
     let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
     let warn = md.find("## Warnings").expect("a warnings section");
     assert!(
-        warn < md.find("## Points and plots per stage").unwrap(),
+        warn < md.find("## Points and plots through the stages").unwrap(),
         "warnings first"
     );
     assert!(

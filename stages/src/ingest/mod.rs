@@ -239,6 +239,7 @@ pub fn run_with(
 ) -> Result<IngestOutput, IngestError> {
     let files = monitor_files(cfg, base)?;
     let names: Vec<String> = files.iter().map(|p| display(base, p)).collect();
+    formats::columns_needed(cfg, &files, &names)?;
     memory::check(
         &files,
         &names,
@@ -580,6 +581,9 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
         Err(e) => problems.push(e.to_string()),
         Ok(files) => {
             let names: Vec<String> = files.iter().map(|p| display(base, p)).collect();
+            if let Err(e) = formats::columns_needed(cfg, &files, &names) {
+                return vec![e.to_string()];
+            }
             let machine = memory::machine_bytes();
             match memory::check(&files, &names, cfg.ingest.max_memory_share, machine) {
                 // Nothing is read when the exports would not fit.

@@ -1,4 +1,4 @@
-//! The QC report as one self-contained HTML file: inline CSS and SVG, no scripts, no
+//! The report as one self-contained HTML file: inline CSS and SVG, no scripts, no
 //! external resources, so it opens in any browser without a network.
 //!
 //! Colour scales: sequential values use viridis (van der Walt & Smith, matplotlib 2015),
@@ -303,8 +303,8 @@ fn decision(s: &mut String, r: &HtmlInput) {
     let rows = super::decision_rows(r.treatments);
     let _ = write!(
         s,
-        "<section class=\"decision\"><h2>Decision: products against the check ({})</h2>",
-        esc(r.check)
+        "<section class=\"decision\"><h2>{}</h2>",
+        esc(&super::decision_heading(r.check))
     );
     if rows.is_empty() {
         let _ = write!(
@@ -319,18 +319,18 @@ fn decision(s: &mut String, r: &HtmlInput) {
         r.decimals,
         r.unit_label,
         super::area_of(r.money),
-        Vec::new(),
+        super::fields_summary(r.treatments, r.decimals),
     );
     table(s, &head, &cells, 1);
     if let Some(p) = super::prices_line(r.money) {
         let _ = write!(s, "<p class=\"note\">{}</p>", esc(&p));
     }
-    let all: Vec<&TreatmentRow> = r.treatments.iter().filter(|t| !t.uplift.is_nan()).collect();
-    forest(
+    forest_labelled(
         s,
-        &all,
+        &rows,
         r.unit_label,
-        "Uplift over the check with 95 % intervals (pooled rows, field all, in blue); the dashed line is zero",
+        "Each product pooled over the fields: uplift over the check with its 95 % interval; the line is zero (each field's own estimates are in the per-field section below)",
+        |t| t.treatment.clone(),
     );
     let _ = write!(s, "</section>");
 }
@@ -340,10 +340,10 @@ pub fn render(r: &HtmlInput) -> String {
     let d = r.decimals;
     let u = r.unit_label;
     let mut s = String::new();
-    let _ = write!(s, "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; style-src 'unsafe-inline'; img-src data:\"><title>plotsieve QC report: {}</title><style>{CSS}</style></head><body>", esc(r.trial_name));
+    let _ = write!(s, "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; style-src 'unsafe-inline'; img-src data:\"><title>plotsieve report: {}</title><style>{CSS}</style></head><body>", esc(r.trial_name));
     let _ = write!(
         s,
-        "<header><h1>{}</h1><p class=\"sub\">plotsieve quality-control report</p></header>",
+        "<header><h1>{}</h1><p class=\"sub\">plotsieve report: the decision first, then its quality control</p></header>",
         esc(r.trial_name)
     );
     let _ = write!(
@@ -352,7 +352,11 @@ pub fn render(r: &HtmlInput) -> String {
         esc(super::CAUTION)
     );
     if !r.warnings.is_empty() {
-        let _ = write!(s, "<section class=\"warnings\"><h2>Warnings</h2><ul>");
+        let _ = write!(
+            s,
+            "<section class=\"warnings\"><h2>{}</h2><ul>",
+            super::heading::WARNINGS
+        );
         for w in r.warnings {
             let _ = write!(s, "<li><strong>{}</strong></li>", esc(w));
         }
@@ -360,7 +364,7 @@ pub fn render(r: &HtmlInput) -> String {
     }
     decision(&mut s, r);
     // Counts per stage.
-    let _ = write!(s, "<section><h2>Points and plots through the stages</h2><table><thead><tr><th>stage</th><th>counted</th><th>in</th><th>kept</th><th>rejected</th></tr></thead><tbody>");
+    let _ = write!(s, "<section><h2>{}</h2><table><thead><tr><th>stage</th><th>counted</th><th>in</th><th>kept</th><th>rejected</th></tr></thead><tbody>", super::heading::COUNTS);
     for x in r.summaries {
         let _ = write!(s, "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", x.stage, x.unit, x.count_in, x.kept, x.rejected);
         if let Some(p) = &x.plots {
@@ -369,7 +373,7 @@ pub fn render(r: &HtmlInput) -> String {
     }
     let _ = write!(s, "</tbody></table>");
     // By rule and by source file.
-    let _ = write!(s, "<h3>Removed, by rule and source file</h3><table><thead><tr><th>stage</th><th>source file</th><th>rule</th><th>removed</th></tr></thead><tbody>");
+    let _ = write!(s, "<h3>{}</h3><table><thead><tr><th>stage</th><th>source file</th><th>rule</th><th>removed</th></tr></thead><tbody>", super::heading::REMOVED);
     for x in r.summaries {
         for (file, rules) in &x.by_file {
             for (rule, n) in rules {
@@ -406,7 +410,7 @@ pub fn render(r: &HtmlInput) -> String {
     }
     let read_as = super::exports_read_as(r.summaries);
     if !read_as.is_empty() {
-        let _ = write!(s, "<h3>How each export was read</h3><table><thead><tr><th>export</th><th>format and mapping</th></tr></thead><tbody>");
+        let _ = write!(s, "<h3>{}</h3><table><thead><tr><th>export</th><th>format and mapping</th></tr></thead><tbody>", super::heading::READ_AS);
         for (e, how) in &read_as {
             let _ = write!(s, "<tr><td>{}</td><td>{}</td></tr>", esc(e), esc(how));
         }
@@ -414,7 +418,7 @@ pub fn render(r: &HtmlInput) -> String {
     }
     let delays = super::delays_applied(r.summaries);
     if !delays.is_empty() {
-        let _ = write!(s, "<h3>Delays applied per export</h3><table><thead><tr><th>export</th><th>flow delay (s)</th><th>how</th><th>moisture delay (s)</th><th>how</th></tr></thead><tbody>");
+        let _ = write!(s, "<h3>{}</h3><table><thead><tr><th>export</th><th>flow delay (s)</th><th>how</th><th>moisture delay (s)</th><th>how</th></tr></thead><tbody>", super::heading::DELAYS);
         for d in &delays {
             let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td class=\"n\">{}</td><td>{}</td></tr>", esc(&d.export), esc(&d.flow_s), esc(&d.flow_source), esc(&d.moisture_s), esc(&d.moisture_source));
         }
@@ -433,15 +437,19 @@ pub fn render(r: &HtmlInput) -> String {
     }
     let _ = write!(
         s,
-        "<h3>Thresholds used (the delays above are the ones applied)</h3>"
+        "<h3>{}</h3><p class=\"note\">Every setting each stage ran with (config/defaults.toml says what each means and where its default comes from); the delays above are the ones applied.</p>",
+        super::heading::SETTINGS
     );
-    for (stage, v) in r.settings {
-        let _ = write!(
-            s,
-            "<details><summary>{}</summary><pre>{}</pre></details>",
-            esc(stage),
-            esc(&serde_json::to_string_pretty(v).unwrap_or_default())
+    for (stage, rows) in super::settings_by_stage(r.settings) {
+        let cells: Vec<Vec<String>> = rows.into_iter().map(|(k, v)| vec![k, v]).collect();
+        let _ = write!(s, "<details><summary>{}</summary>", esc(stage));
+        table(
+            &mut s,
+            &["setting".to_string(), "value".to_string()],
+            &cells,
+            2,
         );
+        let _ = write!(s, "</details>");
     }
     let _ = write!(s, "</section>");
     // Maps per field.
@@ -692,8 +700,8 @@ pub fn render(r: &HtmlInput) -> String {
     // Treatment table and forest plot.
     let _ = write!(
         s,
-        "<section><h2>Products against the check, per field ({})</h2>",
-        esc(r.check)
+        "<section><h2>{}</h2>",
+        esc(&super::per_field_heading(r.check))
     );
     // Economics columns only when a price was given (otherwise they would all be blank).
     let economics = r.treatments.iter().any(|t| t.break_even.is_finite());
@@ -720,12 +728,12 @@ pub fn render(r: &HtmlInput) -> String {
         let p0 = if t.uplift.is_nan() {
             String::new()
         } else {
-            format!("{:.3}", t.p_uplift_gt0)
+            super::prob3(t.p_uplift_gt0)
         };
         let pbe = if t.p_uplift_gt_break_even.is_nan() {
             String::new()
         } else {
-            format!("{:.3}", t.p_uplift_gt_break_even)
+            super::prob3(t.p_uplift_gt_break_even)
         };
         let prior = if t.prior_sd.is_nan() {
             String::new()
@@ -748,14 +756,49 @@ pub fn render(r: &HtmlInput) -> String {
         let _ = write!(s, "</tr>");
     }
     let _ = write!(s, "</tbody></table>");
+    // The forest of every field, product by product: the pooled row (blue) leads each
+    // product's fields (grey).
+    let pooled = super::decision_rows(r.treatments);
+    if r.treatments
+        .iter()
+        .any(|t| t.field != "all" && t.uplift.is_finite())
+    {
+        let mut grouped: Vec<&TreatmentRow> = Vec::new();
+        for p in &pooled {
+            grouped.push(p);
+            grouped.extend(r.treatments.iter().filter(|t| {
+                t.field != "all" && t.treatment == p.treatment && t.uplift.is_finite()
+            }));
+        }
+        if pooled.is_empty() {
+            grouped.extend(r.treatments.iter().filter(|t| t.uplift.is_finite()));
+        }
+        forest_labelled(
+            &mut s,
+            &grouped,
+            u,
+            "Each product pooled over the fields (blue, first) and in each field (grey): uplift over the check with its 95 % interval",
+            |t| {
+                if t.field == "all" {
+                    format!("{}: pooled", t.treatment)
+                } else {
+                    format!("{} / field {}", t.treatment, t.field)
+                }
+            },
+        );
+    }
     let nf = super::new_field_rows(r.treatments);
     if !nf.is_empty() {
         let economics = nf.iter().any(|t| t.p_new_field_gt_break_even.is_finite());
-        let _ = write!(s, "<h3>In a field that was not in the trial</h3><p class=\"note\">{}</p><table><thead><tr><th>treatment</th><th>average field: uplift ({u})</th><th>95 % interval</th><th>new field: uplift ({u})</th><th>90 % interval</th><th>95 % interval</th><th>P(uplift &gt; 0)</th>{}</tr></thead><tbody>", esc(super::NEW_FIELD_WORDS), if economics { "<th>P(uplift &gt; break-even)</th>" } else { "" });
+        let _ = write!(s, "<h3>{}</h3><p class=\"note\">{}</p><table><thead><tr><th>treatment</th><th>average field: uplift ({u})</th><th>95 % interval</th><th>new field: uplift ({u})</th><th>90 % interval</th><th>95 % interval</th><th>P(uplift &gt; 0)</th>{}</tr></thead><tbody>", super::heading::NEW_FIELD, esc(super::NEW_FIELD_WORDS), if economics { "<th>P(uplift &gt; break-even)</th>" } else { "" });
         for t in nf {
-            let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{} to {}</td><td class=\"n\">{}</td><td>{} to {}</td><td>{} to {}</td><td class=\"n\">{:.3}</td>", esc(&t.treatment), fmt(t.uplift, d), fmt(t.uplift_lo95, d), fmt(t.uplift_hi95, d), fmt(t.new_field_uplift, d), fmt(t.new_field_lo90, d), fmt(t.new_field_hi90, d), fmt(t.new_field_lo95, d), fmt(t.new_field_hi95, d), t.p_new_field_gt0);
+            let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{} to {}</td><td class=\"n\">{}</td><td>{} to {}</td><td>{} to {}</td><td class=\"n\">{}</td>", esc(&t.treatment), fmt(t.uplift, d), fmt(t.uplift_lo95, d), fmt(t.uplift_hi95, d), fmt(t.new_field_uplift, d), fmt(t.new_field_lo90, d), fmt(t.new_field_hi90, d), fmt(t.new_field_lo95, d), fmt(t.new_field_hi95, d), super::prob3(t.p_new_field_gt0));
             if economics {
-                let _ = write!(s, "<td class=\"n\">{:.3}</td>", t.p_new_field_gt_break_even);
+                let _ = write!(
+                    s,
+                    "<td class=\"n\">{}</td>",
+                    super::prob3(t.p_new_field_gt_break_even)
+                );
             }
             let _ = write!(s, "</tr>");
         }
@@ -763,7 +806,7 @@ pub fn render(r: &HtmlInput) -> String {
     }
     let _ = write!(s, "</section>");
     // Spatial model.
-    let _ = write!(s, "<section><h2>Spatial model</h2><p class=\"note\">Posterior means with 95 % intervals. Row <code>all</code> of a joint fit holds the shared range and the SD of the treatment &times; field interaction.</p><table><thead><tr><th>field</th><th>plots</th><th>range (m)</th><th>spatial SD ({u})</th><th>noise SD ({u})</th><th>spatial share</th><th>interaction SD ({u})</th><th>method</th><th>note</th></tr></thead><tbody>");
+    let _ = write!(s, "<section><h2>{}</h2><p class=\"note\">Posterior means with 95 % intervals. Row <code>all</code> of a joint fit holds the shared range and the SD of the treatment &times; field interaction.</p><table><thead><tr><th>field</th><th>plots</th><th>range (m)</th><th>spatial SD ({u})</th><th>noise SD ({u})</th><th>spatial share</th><th>interaction SD ({u})</th><th>method</th><th>note</th></tr></thead><tbody>", super::heading::SPATIAL);
     let ci = mean_interval;
     for h in r.hyper {
         let range = if h.range_across.mean.is_nan() {
@@ -786,7 +829,7 @@ pub fn render(r: &HtmlInput) -> String {
             h.spatial_share_ci,
             h.interaction_sd,
         );
-        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>", esc(&h.field), h.plots, range, ci(a.mean, a.lo95, a.hi95, d + 1), ci(b.mean, b.lo95, b.hi95, d + 1), ci(c.mean, c.lo95, c.hi95, 2), ci(e.mean, e.lo95, e.hi95, d + 1), esc(&h.method), esc(&h.warning));
+        let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>", esc(&h.field), h.plots, range, ci(a.mean, a.lo95, a.hi95, d + 1), ci(b.mean, b.lo95, b.hi95, d + 1), ci(c.mean, c.lo95, c.hi95, 2), ci(e.mean, e.lo95, e.hi95, d + 1), esc(&super::method_words(&h.method)), esc(&h.warning));
     }
     let _ = write!(s, "</tbody></table>");
     let factors = super::random_factors(r.hyper);

@@ -66,14 +66,14 @@ pub fn markdown(r: &ReportInput) -> String {
     let _ = writeln!(s, "# plotsieve report: {}\n", r.trial_name);
     let _ = writeln!(s, "> **Caution.** {CAUTION}\n");
     if !r.warnings.is_empty() {
-        let _ = writeln!(s, "## Warnings\n");
+        let _ = writeln!(s, "## {}\n", heading::WARNINGS);
         for w in r.warnings {
             let _ = writeln!(s, "- **{w}**");
         }
         let _ = writeln!(s);
     }
     decision_markdown(&mut s, r);
-    let _ = writeln!(s, "## Points and plots per stage\n");
+    let _ = writeln!(s, "## {}\n", heading::COUNTS);
     let _ = writeln!(s, "| stage | counted | in | kept | rejected |");
     let _ = writeln!(s, "|---|---|---:|---:|---:|");
     for x in r.summaries {
@@ -90,7 +90,7 @@ pub fn markdown(r: &ReportInput) -> String {
             );
         }
     }
-    let _ = writeln!(s, "\n## Removals by rule\n");
+    let _ = writeln!(s, "\n## {}\n", heading::REMOVED);
     let _ = writeln!(s, "| stage | rule | removed |");
     let _ = writeln!(s, "|---|---|---:|");
     for x in r.summaries {
@@ -105,7 +105,7 @@ pub fn markdown(r: &ReportInput) -> String {
     }
     let read_as = exports_read_as(r.summaries);
     if !read_as.is_empty() {
-        let _ = writeln!(s, "\n## How each export was read\n");
+        let _ = writeln!(s, "\n## {}\n", heading::READ_AS);
         let _ = writeln!(s, "| export | format and mapping |");
         let _ = writeln!(s, "|---|---|");
         for (e, how) in &read_as {
@@ -114,7 +114,7 @@ pub fn markdown(r: &ReportInput) -> String {
     }
     let delays = delays_applied(r.summaries);
     if !delays.is_empty() {
-        let _ = writeln!(s, "\n## Delays applied per export\n");
+        let _ = writeln!(s, "\n## {}\n", heading::DELAYS);
         let _ = writeln!(
             s,
             "| export | flow delay (s) | how | moisture delay (s) | how |"
@@ -135,7 +135,7 @@ pub fn markdown(r: &ReportInput) -> String {
             let _ = writeln!(s, "\n{}", notes.join("\n"));
         }
     }
-    let _ = writeln!(s, "\n## Spatial model per field\n");
+    let _ = writeln!(s, "\n## {}\n", heading::SPATIAL);
     let _ = writeln!(s, "Posterior means with 95 % intervals; row `all` of a joint fit holds the shared range and the SD of the treatment x field interaction.\n");
     let _ = writeln!(
         s,
@@ -166,7 +166,7 @@ pub fn markdown(r: &ReportInput) -> String {
             ci(b.mean, b.lo95, b.hi95, d + 1),
             ci(c.mean, c.lo95, c.hi95, 2),
             ci(e.mean, e.lo95, e.hi95, d + 1),
-            h.method,
+            method_words(&h.method),
             h.warning
         );
     }
@@ -183,11 +183,7 @@ pub fn markdown(r: &ReportInput) -> String {
             );
         }
     }
-    let _ = writeln!(
-        s,
-        "\n## Products against the check, per field ({})\n",
-        r.check
-    );
+    let _ = writeln!(s, "\n## {}\n", per_field_heading(r.check));
     let _ = writeln!(s, "Yields in {u} at standard moisture; uplift = treatment minus check; 95 % intervals. Field `all` is the effect shared by the fields in the joint model (the fields' own rows include the treatment x field interaction), or with `adjust.pooling = \"separate\"` the inverse-variance combination of the separate field fits.\n", u = r.unit_label);
     let _ = writeln!(s, "| field | treatment | plots | estimate | SD | uplift | uplift 95 % interval | prior (mean +- SD) | P(uplift > 0) |");
     let _ = writeln!(s, "|---|---|---:|---:|---:|---:|---|---|---:|");
@@ -198,7 +194,7 @@ pub fn markdown(r: &ReportInput) -> String {
             (
                 fmt(t.uplift, d),
                 format!("{} to {}", fmt(t.uplift_lo95, d), fmt(t.uplift_hi95, d)),
-                format!("{:.3}", t.p_uplift_gt0),
+                prob3(t.p_uplift_gt0),
             )
         };
         let prior = if t.prior_sd.is_nan() {
@@ -223,7 +219,7 @@ pub fn markdown(r: &ReportInput) -> String {
     let nf = new_field_rows(r.treatments);
     if !nf.is_empty() {
         let economics = nf.iter().any(|t| t.p_new_field_gt_break_even.is_finite());
-        let _ = writeln!(s, "\n### In a field that was not in the trial\n");
+        let _ = writeln!(s, "\n### {}\n", heading::NEW_FIELD);
         let _ = writeln!(s, "{NEW_FIELD_WORDS}\n");
         let _ = write!(s, "| treatment | average field: uplift (95 % interval) | new field: uplift | 90 % interval | 95 % interval | P(uplift > 0) |");
         let _ = writeln!(
@@ -243,7 +239,7 @@ pub fn markdown(r: &ReportInput) -> String {
         for t in nf {
             let _ = write!(
                 s,
-                "| {} | {} ({} to {}) | {} | {} to {} | {} to {} | {:.3} |",
+                "| {} | {} ({} to {}) | {} | {} to {} | {} to {} | {} |",
                 t.treatment,
                 fmt(t.uplift, d),
                 fmt(t.uplift_lo95, d),
@@ -253,13 +249,13 @@ pub fn markdown(r: &ReportInput) -> String {
                 fmt(t.new_field_hi90, d),
                 fmt(t.new_field_lo95, d),
                 fmt(t.new_field_hi95, d),
-                t.p_new_field_gt0
+                prob3(t.p_new_field_gt0)
             );
             let _ = writeln!(
                 s,
                 "{}",
                 if economics {
-                    format!(" {:.3} |", t.p_new_field_gt_break_even)
+                    format!(" {} |", prob3(t.p_new_field_gt_break_even))
                 } else {
                     String::new()
                 }
@@ -267,6 +263,147 @@ pub fn markdown(r: &ReportInput) -> String {
         }
     }
     s
+}
+
+/// The reports' section headings, one list for the Markdown and the HTML form.
+pub(crate) mod heading {
+    pub const WARNINGS: &str = "Warnings";
+    pub const COUNTS: &str = "Points and plots through the stages";
+    pub const REMOVED: &str = "Removed, by rule";
+    pub const READ_AS: &str = "How each export was read";
+    pub const DELAYS: &str = "Delays applied per export";
+    pub const SETTINGS: &str = "Settings each stage ran with";
+    pub const SPATIAL: &str = "Spatial model per field";
+    pub const NEW_FIELD: &str = "In a field that was not in the trial";
+}
+
+/// "the check", with its name in brackets when it is not simply `check`.
+pub(crate) fn the_check(check: &str) -> String {
+    if check == "check" {
+        "the check".into()
+    } else {
+        format!("the check ({check})")
+    }
+}
+
+/// The decision section's heading.
+pub(crate) fn decision_heading(check: &str) -> String {
+    format!("Decision: products against {}", the_check(check))
+}
+
+/// The per-field section's heading.
+pub(crate) fn per_field_heading(check: &str) -> String {
+    format!("Products against {}, per field", the_check(check))
+}
+
+/// A probability to three decimals; a value that rounds to zero prints as 0.000, never
+/// -0.000.
+pub(crate) fn prob3(p: f64) -> String {
+    if p.is_nan() {
+        String::new()
+    } else {
+        format!("{:.3}", if p.abs() < 5e-4 { 0.0 } else { p })
+    }
+}
+
+/// The adjust stage's `method` (as `hyperparameters.csv` has it) in words.
+pub(crate) fn method_words(method: &str) -> String {
+    if method == "exact" {
+        return "exact kernel".into();
+    }
+    if let Some(basis) = method.strip_prefix("hsgp ") {
+        return format!(
+            "reduced-rank kernel, {} basis functions",
+            basis.replace('x', " x ")
+        );
+    }
+    if let Some(rest) = method.strip_prefix("joint, ") {
+        // "joint, N draws, ESS E, K kept"
+        let nums: Vec<&str> = rest
+            .split(", ")
+            .filter_map(|part| part.split(' ').find(|w| w.parse::<f64>().is_ok()))
+            .collect();
+        if let [draws, ess, kept] = nums[..] {
+            return format!(
+                "all fields fitted together; the model settings averaged over {draws} weighted draws (worth about {ess} equally weighted ones; the {kept} with any weight kept)"
+            );
+        }
+    }
+    method.to_string()
+}
+
+/// A stage's settings as `key = value` rows (nested keys joined with dots; unset values and
+/// empty lists left out), in key order.
+pub(crate) fn settings_rows(v: &serde_json::Value) -> Vec<(String, String)> {
+    fn walk(prefix: &str, v: &serde_json::Value, out: &mut Vec<(String, String)>) {
+        match v {
+            serde_json::Value::Object(m) => {
+                for (k, x) in m {
+                    let key = if prefix.is_empty() {
+                        k.clone()
+                    } else {
+                        format!("{prefix}.{k}")
+                    };
+                    walk(&key, x, out);
+                }
+            }
+            serde_json::Value::Null => {}
+            serde_json::Value::Array(a) if a.is_empty() => {}
+            serde_json::Value::String(t) => out.push((prefix.to_string(), t.clone())),
+            other => out.push((prefix.to_string(), other.to_string())),
+        }
+    }
+    let mut out = Vec::new();
+    walk("", v, &mut out);
+    out
+}
+
+/// The stages' settings that have any, as (stage, rows).
+pub(crate) fn settings_by_stage(
+    settings: &[(String, serde_json::Value)],
+) -> Vec<(&str, Vec<(String, String)>)> {
+    settings
+        .iter()
+        .map(|(stage, v)| (stage.as_str(), settings_rows(v)))
+        .filter(|(_, rows)| !rows.is_empty())
+        .collect()
+}
+
+/// The decision table's extra column for a trial of several fields: how the product's
+/// per-field uplifts spread (their median, lowest and highest, and in how many fields the
+/// product was surely ahead, P(uplift > 0) >= 0.95).
+pub(crate) fn fields_summary<'a>(all: &'a [TreatmentRow], d: usize) -> Vec<ExtraColumn<'a>> {
+    let fields = |t: &str| -> Vec<&'a TreatmentRow> {
+        all.iter()
+            .filter(|r| r.field != "all" && r.treatment == t && r.uplift.is_finite())
+            .collect()
+    };
+    if !all
+        .iter()
+        .filter(|t| t.field == "all")
+        .any(|t| fields(&t.treatment).len() >= 2)
+    {
+        return Vec::new();
+    }
+    vec![(
+        "fields: median uplift (lowest to highest); surely ahead".into(),
+        Box::new(move |t: &TreatmentRow| {
+            let f = fields(&t.treatment);
+            if f.is_empty() {
+                return String::new();
+            }
+            let mut u: Vec<f64> = f.iter().map(|r| r.uplift).collect();
+            u.sort_by(f64::total_cmp);
+            let ahead = f.iter().filter(|r| r.p_uplift_gt0 >= 0.95).count();
+            format!(
+                "{} ({} to {}); {ahead} of {}",
+                fmt(crate::util::median(&u), d),
+                fmt(u[0], d),
+                fmt(u[u.len() - 1], d),
+                f.len()
+            )
+        }),
+    )]
 }
 
 /// The decision table's rows: each product's pooled ("all") row.
@@ -297,17 +434,11 @@ pub(crate) fn decision_columns(
         ),
         (
             "P(uplift > 0)".into(),
-            Box::new(|t: &TreatmentRow| format!("{:.3}", t.p_uplift_gt0)),
+            Box::new(|t: &TreatmentRow| prob3(t.p_uplift_gt0)),
         ),
     ];
     let any = |f: fn(&TreatmentRow) -> f64| rows.iter().any(|t| f(t).is_finite());
-    let prob = |x: f64| {
-        if x.is_finite() {
-            format!("{x:.3}")
-        } else {
-            String::new()
-        }
-    };
+    let prob = prob3;
     if any(|t| t.p_uplift_gt_break_even) {
         cols.push((
             "P(uplift > break-even)".into(),
@@ -384,7 +515,7 @@ pub(crate) const DECISION_WORDS: &str = "Each product against the check over the
 
 fn decision_markdown(s: &mut String, r: &ReportInput) {
     let rows = decision_rows(r.treatments);
-    let _ = writeln!(s, "## Decision: products against the check ({})\n", r.check);
+    let _ = writeln!(s, "## {}\n", decision_heading(r.check));
     if rows.is_empty() {
         let _ = writeln!(s, "No product could be compared with the check.\n");
         return;
@@ -395,7 +526,7 @@ fn decision_markdown(s: &mut String, r: &ReportInput) {
         r.decimals,
         r.unit_label,
         area_of(r.money),
-        Vec::new(),
+        fields_summary(r.treatments, r.decimals),
     );
     markdown_table(s, &head, &cells, 1);
     let _ = writeln!(s);

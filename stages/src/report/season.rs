@@ -86,7 +86,7 @@ fn per_field(r: &SeasonInput) -> (Vec<String>, Vec<Vec<String>>) {
                 fmt(l.stage_one_sd, d),
                 fmt(l.uplift, d),
                 format!("{} to {}", fmt(l.uplift_lo95, d), fmt(l.uplift_hi95, d)),
-                format!("{:.3}", l.p_uplift_gt0),
+                super::prob3(l.p_uplift_gt0),
             ]
         })
         .collect();
@@ -259,8 +259,8 @@ pub fn render(r: &SeasonInput) -> String {
     let rows = decision_rows(r.products);
     let _ = write!(
         s,
-        "<section class=\"decision\"><h2>Decision: products against the check ({}) across the season</h2><p class=\"note\">{}</p>",
-        esc(r.check),
+        "<section class=\"decision\"><h2>{} across the season</h2><p class=\"note\">{}</p>",
+        esc(&super::decision_heading(r.check)),
         esc(SEASON_WORDS)
     );
     let (head, cells) = decision_cells(&rows, d, u, area_of(r.money), fields_column(r));
@@ -348,8 +348,8 @@ pub fn markdown(r: &SeasonInput) -> String {
     let rows = decision_rows(r.products);
     let _ = writeln!(
         s,
-        "## Decision: products against the check ({}) across the season\n\n{SEASON_WORDS}\n",
-        r.check
+        "## {} across the season\n\n{SEASON_WORDS}\n",
+        super::decision_heading(r.check)
     );
     let (head, cells) = decision_cells(&rows, d, u, area_of(r.money), fields_column(r));
     markdown_table(&mut s, &head, &cells, 1);

@@ -84,12 +84,17 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
     };
     let columns = match o.form {
         SimForm::Text | SimForm::GeoPackage => TEXT_COLUMNS,
-        // Task data names its quantities by DDI; [columns] is not read for it.
-        SimForm::TaskData => TEXT_COLUMNS,
+        // Task data names its quantities by DDI: no [columns] section.
+        SimForm::TaskData => "",
         // dBase names: at most 10 characters.
         SimForm::Shapefile => SHAPE_COLUMNS,
         SimForm::DistanceText => DISTANCE_COLUMNS,
         SimForm::YieldPoints => YIELD_COLUMNS,
+    };
+    let columns = if columns.is_empty() {
+        String::new()
+    } else {
+        format!("\n# How this combine's monitor names and scales its columns.\n[columns]\n{columns}{label}")
     };
     format!(
         r#"# An invented trial made by `plotsieve simulate --seed {seed}{how}` (Brackenmoor trial station,
@@ -103,10 +108,7 @@ check = "check"
 
 [inputs]
 monitor = ["monitor"]
-{plots}
-# How this combine's monitor names and scales its columns.
-[columns]
-{columns}{label}
+{plots}{columns}
 [clean]
 # Flow and moisture delays are estimated per export (clean.delay.mode = "auto"); these are
 # the fallbacks when an export has too few opposite passes.

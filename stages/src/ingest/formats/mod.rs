@@ -43,6 +43,11 @@ pub trait MonitorFormat: Sync {
             self.extensions().contains(&x.as_str())
         })
     }
+    /// Whether this format's exports are read through `[columns]` (task data says not: its
+    /// quantities come by DDI); a trial with such an export and no `[columns]` is refused.
+    fn reads_columns(&self) -> bool {
+        true
+    }
     /// Whether this format reads the file, from its path and first bytes.
     fn sniff(&self, path: &Path, head: &[u8]) -> bool;
     /// How this format reads an export under the trial's settings (the mapping, units and
@@ -186,6 +191,31 @@ pub fn for_bytes(path: &Path, head: &[u8]) -> &'static dyn MonitorFormat {
 /// Whether some format claims this file (by its extension, or its name).
 pub fn is_export(path: &Path) -> bool {
     FORMATS.iter().any(|f| f.claims(path))
+}
+
+/// Without a `[columns]` section, the problems of the empty mapping when some export is read
+/// through it (named by the first such export), else none.
+pub fn columns_needed(
+    cfg: &TrialConfig,
+    files: &[std::path::PathBuf],
+    names: &[String],
+) -> Result<(), IngestError> {
+    if cfg.columns_given {
+        return Ok(());
+    }
+    let Some(k) = files.iter().position(|p| for_file(p).reads_columns()) else {
+        return Ok(());
+    };
+    let mut p = Vec::new();
+    cfg.columns.problems(&mut p);
+    Err(IngestError::Unusable {
+        file: names[k].clone(),
+        message: format!(
+            "a {} export is read through [columns], and the trial file has none: {}",
+            for_file(&files[k]).name(),
+            p.join("; ")
+        ),
+    })
 }
 
 /// [`MonitorFormat::records_bound`] of a delimited text export: its size over the mean

@@ -726,6 +726,9 @@ impl MonitorFormat for TaskData {
             Err(_) => self.describe(cfg),
         }
     }
+    fn reads_columns(&self) -> bool {
+        false
+    }
     fn records_bound(&self, path: &Path) -> Result<u64, String> {
         // A time-log record takes at least MIN_RECORD_BYTES; the log's size as the archive
         // declares it (nothing inflated) or as the folder holds it.
