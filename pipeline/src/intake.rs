@@ -135,7 +135,7 @@ fn sha256(bytes: &[u8]) -> String {
 
 fn trial_info(season_dir: &Path, t: &SeasonTrial) -> Result<TrialInfo> {
     let file = season_dir.join(&t.file);
-    let loaded = run::load(&file, &[])?;
+    let loaded = crate::trial::load(&file, &[])?;
     let cfg = loaded.cfg;
     let base = loaded.base;
     let mon = cfg.inputs.monitor.first().cloned().unwrap_or_default();

@@ -4,6 +4,7 @@
 //! stage; the message names the file, row and column or the key); 2 a usage error (unknown
 //! command or flag, from clap).
 
+mod check;
 mod dry_run;
 mod glue;
 mod intake;
@@ -11,7 +12,9 @@ mod io;
 mod lock;
 mod run;
 mod season;
+mod simulate_files;
 mod stage;
+mod trial;
 
 use clap::{Parser, Subcommand};
 use plotsieve_stages::simulate;
@@ -172,7 +175,7 @@ fn main() -> ExitCode {
             out,
             set,
         } => run::run_one(name, &trial, out, &set, cli.quiet),
-        Command::Check { trial, set } => run::check(&trial, &set),
+        Command::Check { trial, set } => check::check(&trial, &set),
         Command::Intake { inbox, season } => intake::intake(&inbox, &season, cli.quiet),
         Command::Season { season } => season::season(&season, cli.quiet),
         Command::Simulate {
@@ -203,7 +206,7 @@ fn main() -> ExitCode {
             Some(simulate::SimForm::TaskData) if labels => Err(anyhow::anyhow!(
                 "--labels goes with the text, distance_text, yield_points, geopackage and shapefile forms (task data carries no label column)"
             )),
-            Some(form) => run::simulate(
+            Some(form) => simulate_files::simulate(
                 &dir,
                 &simulate::SimOptions {
                     seed,

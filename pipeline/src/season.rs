@@ -16,7 +16,6 @@
 
 use crate::intake::read_season;
 use crate::io;
-use crate::run;
 use anyhow::{anyhow, bail, Context, Result};
 use plotsieve_stages::adjust::{FitSettings, TreatmentRow};
 use plotsieve_stages::crop::{AreaUnit, PriceUnit, YieldUnit};
@@ -49,10 +48,10 @@ struct TrialRead {
 fn read_trial(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Result<TrialRead> {
     let file = season_dir.join(&t.file);
     let key = t.file.to_string_lossy().replace('\\', "/");
-    let loaded = run::load(&file, &[])?;
+    let loaded = crate::trial::load(&file, &[])?;
     let out = season_dir.join(&t.out);
     let run_folder = t.out.to_string_lossy().replace('\\', "/");
-    let manifest = run::read_manifest(&out)?.ok_or_else(|| {
+    let manifest = crate::trial::read_manifest(&out)?.ok_or_else(|| {
         anyhow!(
             "trial {key}: run folder {} has no manifest.json; run `plotsieve run {} --out {}` first",
             out.display(),
@@ -81,8 +80,8 @@ fn read_trial(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Result<Trial
     if contrasts.fields.is_empty() {
         bail!("trial {key}: {} holds no fitted field", path.display());
     }
-    let (_, sha256) = run::sha256_file(&path)?;
-    let summary = run::read_summary(&out, crate::stage::Stage::Adjust)?;
+    let (_, sha256) = crate::trial::sha256_file(&path)?;
+    let summary = crate::trial::read_summary(&out, crate::stage::Stage::Adjust)?;
     let missing = summary
         .warnings()
         .into_iter()

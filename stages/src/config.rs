@@ -495,7 +495,7 @@ mod tests {
         assert!(s.dry_matter() && !crops["corn"].dry_matter());
         // 60 t/ha wet at 65 % moisture is 21 t DM/ha: DM = wet x (100 - M) / 100
         // (../shared/CHECKS.md, forage crops; common practice).
-        let dm = crate::clean::to_standard_moisture(60_000.0, 65.0, s.standard_moisture_pct);
+        let dm = crate::crop::to_standard_moisture(60_000.0, 65.0, s.standard_moisture_pct);
         assert!((dm - 21_000.0).abs() < 1e-9, "{dm}");
         assert_eq!(s.moisture_bounds(8.0, 40.0), (45.0, 85.0));
         assert_eq!(crops["corn"].moisture_bounds(8.0, 40.0), (8.0, 40.0));

@@ -4,6 +4,17 @@
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
+/// Wet yield in kg/ha from mass flow (kg/s), speed (m/s) and swath width (m).
+pub fn wet_yield_kg_ha(flow_kg_s: f64, speed_m_s: f64, width_m: f64) -> f64 {
+    flow_kg_s * 10_000.0 / (speed_m_s * width_m)
+}
+
+/// Yield at standard moisture from wet yield and moisture (%), dry-matter basis
+/// (UF/IFAS EDIS AG442, Mulvaney & Devkota).
+pub fn to_standard_moisture(wet: f64, moisture_pct: f64, standard_pct: f64) -> f64 {
+    wet * (100.0 - moisture_pct) / (100.0 - standard_pct)
+}
+
 /// Unit of the output yields.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]

@@ -191,3 +191,77 @@ pub struct DesignRow {
     /// Line in the design file (header = 1).
     pub row: u64,
 }
+
+/// Statistics of one plot.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct PlotStats {
+    pub plot_id: String,
+    pub field: String,
+    pub treatment: String,
+    pub block: String,
+    /// `kept`, or `set_aside` with the rule in `reason`; a kept plot's `reason` may carry a
+    /// flag (`outside_record_bounds`: a plot-table yield outside the crop's bounds for single
+    /// records, kept because the trial sets no plot bounds).
+    pub status: String,
+    pub reason: String,
+    pub points: u64,
+    /// Yields at standard moisture, kg/ha (tables show them in the output unit).
+    pub yield_mean: f64,
+    pub yield_median: f64,
+    pub yield_trimmed_mean: f64,
+    pub yield_sd: f64,
+    pub moisture_mean_pct: f64,
+    pub centroid_x_m: f64,
+    pub centroid_y_m: f64,
+    pub area_m2: f64,
+    pub net_area_m2: f64,
+    pub harvested_m2: f64,
+    pub coverage: f64,
+    /// Grid position: range (along travel) and row (across), from 1, and metres.
+    pub grid_range: u32,
+    pub grid_row: u32,
+    pub along_m: f64,
+    pub across_m: f64,
+    /// The net plot ring (projected metres), empty when the trims leave nothing.
+    pub net_ring: Vec<(f64, f64)>,
+}
+
+impl PlotStats {
+    /// A kept plot known only by its yield and centre (plot-table entry, tests, benchmarks);
+    /// every monitor-derived statistic is NaN.
+    pub fn from_yield(
+        plot_id: &str,
+        field: &str,
+        treatment: &str,
+        block: &str,
+        yield_mean: f64,
+        x: f64,
+        y: f64,
+    ) -> Self {
+        PlotStats {
+            plot_id: plot_id.into(),
+            field: field.into(),
+            treatment: treatment.into(),
+            block: block.into(),
+            status: "kept".into(),
+            reason: String::new(),
+            points: 0,
+            yield_mean,
+            yield_median: f64::NAN,
+            yield_trimmed_mean: f64::NAN,
+            yield_sd: f64::NAN,
+            moisture_mean_pct: f64::NAN,
+            centroid_x_m: x,
+            centroid_y_m: y,
+            area_m2: f64::NAN,
+            net_area_m2: f64::NAN,
+            harvested_m2: f64::NAN,
+            coverage: f64::NAN,
+            grid_range: 0,
+            grid_row: 0,
+            along_m: f64::NAN,
+            across_m: f64::NAN,
+            net_ring: Vec::new(),
+        }
+    }
+}

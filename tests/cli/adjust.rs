@@ -9,10 +9,7 @@ fn simulated_trials_recover_true_effects_and_trend() {
     for seed in [11u64, 12, 13] {
         let w = Workdir::new("truth");
         let trial = simulate(&w, "trial", &["--seed", &seed.to_string()]);
-        ok(&plotsieve(
-            &w.0,
-            &["run", trial.to_str().unwrap(), "--out", "run", "--quiet"],
-        ));
+        run_trial(&w, &trial, "run", &[]);
         let truth = json(&w.path("trial/truth.json"));
         let effects = truth["effects_t_ha"].as_object().unwrap();
         for r in csv_rows(&w.path("run/4-adjust/treatments.csv"))
@@ -117,10 +114,7 @@ fn joint_adjust_writes_priors_intervals_and_the_interaction_row() {
 fn plot_table_entry_fits_an_analysts_own_table() {
     let w = Workdir::new("table");
     let trial = simulate(&w, "trial", &["--seed", "91"]);
-    ok(&plotsieve(
-        &w.0,
-        &["run", trial.to_str().unwrap(), "--out", "run", "--quiet"],
-    ));
+    run_trial(&w, &trial, "run", &[]);
     // The analyst's table: the kept plots of that run, in the plot-table format.
     let mut table = String::from("plot_id,field,treatment,block,yield_t_ha,x_m,y_m\n");
     for r in csv_rows(&w.path("run/3-plots/plots.csv"))
@@ -143,17 +137,7 @@ fn plot_table_entry_fits_an_analysts_own_table() {
         std::fs::read_to_string(&trial).unwrap() + "\n[adjust]\nplot_table = \"table.csv\"\n";
     let t2 = w.path("trial/table-trial.toml");
     std::fs::write(&t2, text).unwrap();
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "stage",
-            "adjust",
-            t2.to_str().unwrap(),
-            "--out",
-            "fresh",
-            "--quiet",
-        ],
-    ));
+    run_stages(&w, &t2, "fresh", &["adjust"]);
     assert_eq!(
         std::fs::read(w.path("run/4-adjust/treatments.csv")).unwrap(),
         std::fs::read(w.path("fresh/4-adjust/treatments.csv")).unwrap(),
@@ -195,10 +179,7 @@ fn plot_table_entry_fits_an_analysts_own_table() {
 fn comparison_columns_say_which_model_they_describe() {
     let w = Workdir::new("comparison");
     let trial = simulate(&w, "t", &["--seed", "15"]);
-    ok(&plotsieve(
-        &w.0,
-        &["run", trial.to_str().unwrap(), "--out", "run", "--quiet"],
-    ));
+    run_trial(&w, &trial, "run", &[]);
     let text = std::fs::read_to_string(w.path("run/4-adjust/comparison.csv")).unwrap();
     assert_eq!(
         text.lines().next().unwrap(),
@@ -356,18 +337,7 @@ fn a_row_column_variety_trial_is_analysed_as_designed() {
     let html = read(&w.path("rc/5-report/report.html"));
     assert!(html.contains("<h3>Random design factors</h3>"));
     // Without the random factors the fit is worse by its marginal likelihood.
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "run",
-            t,
-            "--out",
-            "plain",
-            "--quiet",
-            "--set",
-            "adjust.random_effects=[]",
-        ],
-    ));
+    run_trial(&w, Path::new(t), "plain", &["adjust.random_effects=[]"]);
     let ml = |run: &str| -> f64 {
         csv_rows(&w.path(&format!("{run}/4-adjust/hyperparameters.csv")))[0]
             ["log_marginal_likelihood"]

@@ -8,28 +8,7 @@ fn worked_yield_and_moisture_examples_through_the_binary() {
     // 12,151.26 kg/ha wet; at 15.5 % moisture that is also the corn standard-moisture yield.
     let w = Workdir::new("worked1");
     let t = tiny_trial(&w, 20.0, 1.8, 30.0, 15.5, "t_ha", "", &[]);
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "stage",
-            "ingest",
-            t.to_str().unwrap(),
-            "--out",
-            "run",
-            "--quiet",
-        ],
-    ));
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "stage",
-            "clean",
-            t.to_str().unwrap(),
-            "--out",
-            "run",
-            "--quiet",
-        ],
-    ));
+    run_stages(&w, &t, "run", &["ingest", "clean"]);
     let df = parquet(&w.path("run/2-clean/points.parquet"));
     assert!(df.height() >= 90, "kept {}", df.height());
     for (wet, std, t_ha) in f64s(&df, "yield_wet_kg_ha")
@@ -50,28 +29,7 @@ fn worked_yield_and_moisture_examples_through_the_binary() {
     let lb_ac = 0.45359237 / 0.40468564224;
     let flow = 10_000.0 * lb_ac * 1.8 * 9.144 / 10_000.0;
     let t = tiny_trial(&w, flow, 1.8, 30.0, 20.0, "bu_ac", "", &[]);
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "stage",
-            "ingest",
-            t.to_str().unwrap(),
-            "--out",
-            "run",
-            "--quiet",
-        ],
-    ));
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "stage",
-            "clean",
-            t.to_str().unwrap(),
-            "--out",
-            "run",
-            "--quiet",
-        ],
-    ));
+    run_stages(&w, &t, "run", &["ingest", "clean"]);
     let df = parquet(&w.path("run/2-clean/points.parquet"));
     for (std, bu) in f64s(&df, "yield_std_kg_ha")
         .iter()
@@ -230,21 +188,12 @@ fn a_delay_at_the_edge_of_its_scan_is_a_warning_and_the_applied_delay_is_reporte
     let t = trial.to_str().unwrap();
     // A scan that stops at 5 s, not widened, cannot reach the true 12 s: the estimate sits
     // at its edge.
-    let o = plotsieve(
-        &w.0,
-        &[
-            "run",
-            t,
-            "--out",
-            "run",
-            "--quiet",
-            "--set",
-            "clean.delay.max_s=5",
-            "--set",
-            "clean.delay.widen=false",
-        ],
+    let o = run_trial(
+        &w,
+        &trial,
+        "run",
+        &["clean.delay.max_s=5", "clean.delay.widen=false"],
     );
-    ok(&o);
     let e = String::from_utf8_lossy(&o.stderr);
     assert!(
         e.contains("warning: stage clean: export monitor/field-A.csv: the flow delay estimate 4.61 s sits at the edge of the scan (0-5 s)")
@@ -312,10 +261,7 @@ fn a_strip_trial_keeps_its_uplift_and_its_uncertainty_with_the_local_outlier_rul
         !design.contains(",prod-a,"),
         "a strip trial has two treatments"
     );
-    ok(&plotsieve(
-        &w.0,
-        &["run", t.to_str().unwrap(), "--out", "on", "--quiet"],
-    ));
+    run_trial(&w, &t, "on", &[]);
     ok(&plotsieve(
         &w.0,
         &[
@@ -362,24 +308,15 @@ fn gps_time_stepping_back_keeps_the_records_in_logged_order() {
     // order with repaired stamps, the plots come out as from the clean export.
     let w = Workdir::new("timeback");
     let t = simulate(&w, "sim", &["--seed", "5", "--quiet"]);
-    ok(&plotsieve(
-        &w.0,
-        &["run", t.to_str().unwrap(), "--out", "clean", "--quiet"],
-    ));
+    run_trial(&w, &t, "clean", &[]);
     let fix = |p: &std::path::Path, f: &dyn Fn(usize, &str) -> String| {
-        let text = read(p);
-        let out: Vec<String> = text
-            .lines()
-            .enumerate()
-            .map(|(i, l)| {
-                if i == 0 {
-                    return l.to_string();
-                }
-                let (time, rest) = l.split_once(',').unwrap();
-                format!("{},{rest}", f(i, time))
-            })
-            .collect();
-        std::fs::write(p, out.join("\n") + "\n").unwrap();
+        map_lines(p, |i, l| {
+            if i == 0 {
+                return l.to_string();
+            }
+            let (time, rest) = l.split_once(',').unwrap();
+            format!("{},{rest}", f(i, time))
+        });
     };
     // 2026-09-18T09:MM:SSZ stamps: shift by seconds.
     fn shifted(stamp: &str, by: i64) -> String {
@@ -412,10 +349,7 @@ fn gps_time_stepping_back_keeps_the_records_in_logged_order() {
             time.to_string()
         }
     });
-    ok(&plotsieve(
-        &w.0,
-        &["run", t.to_str().unwrap(), "--out", "stepped", "--quiet"],
-    ));
+    run_trial(&w, &t, "stepped", &[]);
     let clean = csv_rows(&w.path("clean/3-plots/plots.csv"));
     let stepped = csv_rows(&w.path("stepped/3-plots/plots.csv"));
     assert_eq!(clean.len(), stepped.len());
@@ -447,20 +381,7 @@ fn the_delay_scan_widens_past_its_edge_and_takes_negative_lags() {
     // finds the true 12 s, and there is no edge warning.
     let w = Workdir::new("delaywiden");
     let trial = simulate(&w, "t", &["--seed", "12", "--flow-delay", "12"]);
-    let t = trial.to_str().unwrap();
-    let o = plotsieve(
-        &w.0,
-        &[
-            "run",
-            t,
-            "--out",
-            "run",
-            "--quiet",
-            "--set",
-            "clean.delay.max_s=5",
-        ],
-    );
-    ok(&o);
+    let o = run_trial(&w, &trial, "run", &["clean.delay.max_s=5"]);
     assert!(!String::from_utf8_lossy(&o.stderr).contains("edge of the scan"));
     let s = json(&w.path("run/2-clean/summary.json"));
     for (name, d) in s["details"]["exports"].as_object().unwrap() {
@@ -505,7 +426,7 @@ fn the_delay_scan_widens_past_its_edge_and_takes_negative_lags() {
     ));
     let o = plotsieve(&w.0, &["check", t, "--set", "clean.delay.min_s=-50"]);
     assert_eq!(o.status.code(), Some(1));
-    let e = String::from_utf8_lossy(&o.stderr).to_string() + &String::from_utf8_lossy(&o.stdout);
+    let e = printed(&o);
     assert!(
         e.contains("clean.delay.min_s must be between -20 and 40 s (got -50)"),
         "{e}"
@@ -521,10 +442,7 @@ fn a_work_state_that_flickers_off_while_cutting_keeps_its_records() {
     // byte for byte as the harvest without flicker; with the bridge at 0 they go again.
     let w = Workdir::new("clean-flicker");
     let sim = simulate(&w, "sim", &["--seed", "2", "--quiet"]);
-    ok(&plotsieve(
-        &w.0,
-        &["run", sim.to_str().unwrap(), "--out", "r-base", "--quiet"],
-    ));
+    run_trial(&w, &sim, "r-base", &[]);
     let p = w.path("sim/monitor/field-A.csv");
     let text = read(&p);
     let mut lines: Vec<String> = text.lines().map(String::from).collect();
@@ -549,16 +467,7 @@ fn a_work_state_that_flickers_off_while_cutting_keeps_its_records() {
     }
     assert!(flipped >= 40, "{flipped}");
     std::fs::write(&p, lines.join("\n") + "\n").unwrap();
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "run",
-            sim.to_str().unwrap(),
-            "--out",
-            "r-flicker",
-            "--quiet",
-        ],
-    ));
+    run_trial(&w, &sim, "r-flicker", &[]);
     assert_eq!(
         read(&w.path("r-base/3-plots/plots.csv")),
         read(&w.path("r-flicker/3-plots/plots.csv"))

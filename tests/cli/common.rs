@@ -372,3 +372,78 @@ pub fn uplifts_within_truth(
     }
     checked
 }
+
+/// `plotsieve run TRIAL --out OUT --quiet`, with `--set` for each of `sets`; asserts that it
+/// succeeded and returns what it printed.
+pub fn run_trial(w: &Workdir, trial: &Path, out: &str, sets: &[&str]) -> Output {
+    let mut args = vec!["run", trial.to_str().unwrap(), "--out", out, "--quiet"];
+    for s in sets {
+        args.extend(["--set", s]);
+    }
+    let o = plotsieve(&w.0, &args);
+    ok(&o);
+    o
+}
+
+/// `plotsieve stage NAME TRIAL --out OUT --quiet` for each of `stages` in turn, each asserted
+/// to succeed.
+pub fn run_stages(w: &Workdir, trial: &Path, out: &str, stages: &[&str]) {
+    for s in stages {
+        ok(&plotsieve(
+            &w.0,
+            &["stage", s, trial.to_str().unwrap(), "--out", out, "--quiet"],
+        ));
+    }
+}
+
+/// Everything a command printed: standard output, then standard error.
+pub fn printed(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr)
+}
+
+/// Rewrite every line of a text file through `f(line number from 0, line)`.
+pub fn map_lines(p: &Path, mut f: impl FnMut(usize, &str) -> String) {
+    let out: Vec<String> = read(p).lines().enumerate().map(|(i, l)| f(i, l)).collect();
+    std::fs::write(p, out.join("\n") + "\n").unwrap();
+}
+
+/// Remove CSV column `col` (by its header name) from a comma-delimited file.
+pub fn drop_column(p: &Path, col: &str) {
+    let k = read(p)
+        .lines()
+        .next()
+        .unwrap()
+        .split(',')
+        .position(|c| c == col)
+        .unwrap_or_else(|| panic!("no column {col} in {}", p.display()));
+    map_lines(p, |_, l| {
+        let mut v: Vec<&str> = l.split(',').collect();
+        v.remove(k);
+        v.join(",")
+    });
+}
+
+/// A Parquet table's unsigned integer column as a set (point ids, say).
+pub fn u64_set(df: &DataFrame, col: &str) -> std::collections::BTreeSet<u64> {
+    df.column(col)
+        .unwrap()
+        .u64()
+        .unwrap()
+        .into_no_null_iter()
+        .collect()
+}
+
+/// Every file of a folder (not its subfolders) by name, with its SHA-256.
+pub fn folder_hashes(dir: &Path) -> BTreeMap<String, String> {
+    std::fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .filter(|p| p.is_file())
+        .map(|p| {
+            (
+                p.file_name().unwrap().to_string_lossy().to_string(),
+                sha(&p),
+            )
+        })
+        .collect()
+}

@@ -42,10 +42,7 @@ fn mean_coverage(p: &BTreeMap<String, (String, f64, f64)>) -> f64 {
 }
 
 fn run(w: &Workdir, trial: &std::path::Path, out: &str) {
-    ok(&plotsieve(
-        &w.0,
-        &["run", trial.to_str().unwrap(), "--out", out, "--quiet"],
-    ));
+    run_trial(w, trial, out, &[]);
 }
 
 /// Runs two trials into `ra` and `rb`; the same plots kept or set aside in both. Returns
@@ -67,6 +64,26 @@ fn same_plots(
     let d = yield_differences(&pa, &pb);
     assert!(d.len() >= 40, "{} plots kept in both", d.len());
     d
+}
+
+/// The same harvest written in another form gives the text form's plots (yields within
+/// 1e-9) and the same cleaning rejections, row for row; runs into `r-text` and `run`.
+fn same_as_the_text_form(w: &Workdir, text: &Path, other: &Path, run: &str) {
+    let d = same_plots(w, text, other, "r-text", run);
+    assert!(
+        *d.last().unwrap() < 1e-9,
+        "largest difference {:?}",
+        d.last()
+    );
+    let (ra, rb) = (
+        csv_rows(&w.path("r-text/2-clean/rejected.csv")),
+        csv_rows(&w.path(&format!("{run}/2-clean/rejected.csv"))),
+    );
+    assert_eq!(ra.len(), rb.len());
+    assert!(ra
+        .iter()
+        .zip(&rb)
+        .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
 }
 
 #[test]
@@ -131,21 +148,7 @@ fn a_simulated_harvest_as_geopackage_points_reads_as_the_text_form() {
         out.contains("read: monitor/field-A.gpkg: geopackage_points: point geometry"),
         "{out}"
     );
-    let d = same_plots(&w, &text, &gpkg, "r-text", "r-gpkg");
-    assert!(
-        *d.last().unwrap() < 1e-9,
-        "largest difference {:?}",
-        d.last()
-    );
-    let (ra, rb) = (
-        csv_rows(&w.path("r-text/2-clean/rejected.csv")),
-        csv_rows(&w.path("r-gpkg/2-clean/rejected.csv")),
-    );
-    assert_eq!(ra.len(), rb.len());
-    assert!(ra
-        .iter()
-        .zip(&rb)
-        .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
+    same_as_the_text_form(&w, &text, &gpkg, "r-gpkg");
     // The simulator writes the same bytes again.
     let again = simulate(
         &w,
@@ -183,21 +186,7 @@ fn a_simulated_harvest_as_point_shapefiles_reads_as_the_text_form() {
         out.contains("read: monitor/field-A.shp: shapefile_points: point geometry"),
         "{out}"
     );
-    let d = same_plots(&w, &text, &shp, "r-text", "r-shp");
-    assert!(
-        *d.last().unwrap() < 1e-9,
-        "largest difference {:?}",
-        d.last()
-    );
-    let (ra, rb) = (
-        csv_rows(&w.path("r-text/2-clean/rejected.csv")),
-        csv_rows(&w.path("r-shp/2-clean/rejected.csv")),
-    );
-    assert_eq!(ra.len(), rb.len());
-    assert!(ra
-        .iter()
-        .zip(&rb)
-        .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
+    same_as_the_text_form(&w, &text, &shp, "r-shp");
     // The same bytes again (the dBase header's date is fixed).
     simulate(
         &w,
@@ -257,7 +246,7 @@ fn a_simulated_harvest_as_iso_11783_task_data_reads_as_the_text_form() {
     .unwrap();
     let o = plotsieve(&w.0, &["check", td.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(1));
-    let out = String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr);
+    let out = printed(&o);
     assert!(
         out.contains("monitor/field-A.csv: a mapped_text export is read through [columns], and the trial file has none: ")
             && out.contains("[columns] needs flow"),
@@ -313,17 +302,7 @@ fn an_export_without_a_swath_column_takes_the_stated_width_and_says_so() {
     run(&w, &t, "with");
     // Drop the swath column from both exports and state the header width instead.
     for f in ["field-A.csv", "field-B.csv"] {
-        let p = w.path(&format!("t/monitor/{f}"));
-        let text = read(&p);
-        let out: Vec<String> = text
-            .lines()
-            .map(|l| {
-                let mut v: Vec<&str> = l.split(',').collect();
-                v.remove(5);
-                v.join(",")
-            })
-            .collect();
-        std::fs::write(&p, out.join("\n") + "\n").unwrap();
+        drop_column(&w.path(&format!("t/monitor/{f}")), "swath_ft");
     }
     replace(
         &t,
@@ -397,8 +376,7 @@ fn mappings_that_cannot_work_are_refused_naming_the_key() {
         std::fs::write(&t, original.replacen(from, to, 1)).unwrap();
         let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
         assert_eq!(o.status.code(), Some(1), "{to}");
-        let e =
-            String::from_utf8_lossy(&o.stderr).to_string() + &String::from_utf8_lossy(&o.stdout);
+        let e = printed(&o);
         assert!(e.contains(says), "{to}: expected {says:?} in {e}");
     }
 }
@@ -740,11 +718,7 @@ fn a_task_data_zip_that_inflates_to_a_gigabyte_of_zeros_is_refused_before_it_is_
     assert!(zip_len < 4 << 20, "{zip_len}");
     let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(1));
-    let out = format!(
-        "{}{}",
-        String::from_utf8_lossy(&o.stdout),
-        String::from_utf8_lossy(&o.stderr)
-    );
+    let out = printed(&o);
     assert!(
         out.contains("harvest.zip")
             && out.contains("TASKDATA/TLG00001.BIN: declares 1073741824 bytes")
@@ -785,8 +759,7 @@ fn an_export_too_large_for_this_machine_is_refused_before_it_is_read() {
         let started = std::time::Instant::now();
         let o = plotsieve(&w.0, &[cmd, t.to_str().unwrap(), "--quiet"]);
         assert_eq!(o.status.code(), Some(1), "{cmd}");
-        let err =
-            String::from_utf8_lossy(&o.stderr).to_string() + &String::from_utf8_lossy(&o.stdout);
+        let err = printed(&o);
         assert!(
             err.contains("monitor/field-B.csv: the trial's 2 export(s) hold up to")
                 && err.contains("ingest.max_memory_share = 0.7")
@@ -799,7 +772,7 @@ fn an_export_too_large_for_this_machine_is_refused_before_it_is_read() {
     // A file with no line end in its first 64 KiB (here: all zeros) is no delimited export.
     std::fs::write(&p, vec![0u8; 100_000]).unwrap();
     let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
-    let out = String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr);
+    let out = printed(&o);
     assert!(
         out.contains("monitor/field-B.csv: no line end in its first 64 KiB"),
         "{out}"
@@ -825,24 +798,7 @@ fn a_wild_export_without_speed_and_already_delay_corrected_comes_out_within_its_
         1,
     );
     for f in ["field-A.csv", "field-B.csv"] {
-        let p = w.path("wild/monitor").join(f);
-        let text = read(&p);
-        let k = text
-            .lines()
-            .next()
-            .unwrap()
-            .split(',')
-            .position(|c| c == "speed_mph")
-            .unwrap();
-        let out: Vec<String> = text
-            .lines()
-            .map(|l| {
-                let mut v: Vec<&str> = l.split(',').collect();
-                v.remove(k);
-                v.join(",")
-            })
-            .collect();
-        std::fs::write(&p, out.join("\n") + "\n").unwrap();
+        drop_column(&w.path("wild/monitor").join(f), "speed_mph");
     }
     let o = plotsieve(&w.0, &["check", wild.to_str().unwrap()]);
     ok(&o);
@@ -850,10 +806,7 @@ fn a_wild_export_without_speed_and_already_delay_corrected_comes_out_within_its_
         String::from_utf8_lossy(&o.stdout).contains("speed not logged: from positions and times")
     );
     for (t, out) in [(&tame, "r-tame"), (&wild, "r-wild")] {
-        ok(&plotsieve(
-            &w.0,
-            &["run", t.to_str().unwrap(), "--out", out, "--quiet"],
-        ));
+        run_trial(&w, &t, out, &[]);
     }
     let truth = json(&w.path("wild/truth.json"));
     let (rt, nt) = plot_rmse(&w.path("r-tame/3-plots/plots.csv"), &truth);
@@ -895,10 +848,7 @@ fn a_research_plot_trial_of_10_m_plots_goes_through_the_defaults() {
             "--quiet",
         ],
     );
-    ok(&plotsieve(
-        &w.0,
-        &["run", t.to_str().unwrap(), "--out", "r", "--quiet"],
-    ));
+    run_trial(&w, &t, "r", &[]);
     let plots = csv_rows(&w.path("r/3-plots/plots.csv"));
     let kept = plots.iter().filter(|r| r["status"] == "kept").count();
     assert_eq!(plots.len(), 72);

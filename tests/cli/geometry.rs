@@ -82,35 +82,17 @@ fn border_trimming_brings_plot_means_closer_to_the_truth() {
     for seed in [61u64, 62, 63, 64] {
         let w = Workdir::new("trim");
         let trial = simulate(&w, "trial", &["--seed", &seed.to_string()]);
-        let t = trial.to_str().unwrap();
-        ok(&plotsieve(
-            &w.0,
+        run_trial(&w, &trial, "trimmed", &["plots.end_trim_m=8"]);
+        run_trial(
+            &w,
+            &trial,
+            "untrimmed",
             &[
-                "run",
-                t,
-                "--out",
-                "trimmed",
-                "--quiet",
-                "--set",
-                "plots.end_trim_m=8",
-            ],
-        ));
-        ok(&plotsieve(
-            &w.0,
-            &[
-                "run",
-                t,
-                "--out",
-                "untrimmed",
-                "--quiet",
-                "--set",
                 "plots.end_trim_m=0",
-                "--set",
                 "plots.side_trim_m=0",
-                "--set",
                 "plots.min_swath_inside=0",
             ],
-        ));
+        );
         let truth = json(&w.path("trial/truth.json"));
         let (a, na) = plot_rmse(&w.path("trimmed/3-plots/plots.csv"), &truth);
         let (b, nb) = plot_rmse(&w.path("untrimmed/3-plots/plots.csv"), &truth);
@@ -119,13 +101,7 @@ fn border_trimming_brings_plot_means_closer_to_the_truth() {
         without += b;
         // Every clean point is in exactly one plot or in rejected.csv.
         let pp = parquet(&w.path("trimmed/3-plots/points.parquet"));
-        let ids: std::collections::BTreeSet<u64> = pp
-            .column("point_id")
-            .unwrap()
-            .u64()
-            .unwrap()
-            .into_no_null_iter()
-            .collect();
+        let ids = u64_set(&pp, "point_id");
         assert_eq!(ids.len(), pp.height(), "no point in two plots");
         let rejected: std::collections::BTreeSet<u64> =
             csv_rows(&w.path("trimmed/3-plots/rejected.csv"))
@@ -134,13 +110,7 @@ fn border_trimming_brings_plot_means_closer_to_the_truth() {
                 .collect();
         assert!(ids.is_disjoint(&rejected));
         let clean = parquet(&w.path("trimmed/2-clean/points.parquet"));
-        let all: std::collections::BTreeSet<u64> = clean
-            .column("point_id")
-            .unwrap()
-            .u64()
-            .unwrap()
-            .into_no_null_iter()
-            .collect();
+        let all = u64_set(&clean, "point_id");
         let union: std::collections::BTreeSet<u64> = ids.union(&rejected).copied().collect();
         assert_eq!(union, all, "clean points = plot points + rejected");
     }
@@ -197,17 +167,7 @@ fn grid_layout_replaces_a_boundary_file_and_stray_exports_are_far_from_trial() {
         + "\n[[layout]]\nfield = \"G\"\norigin_lon = -97.8\norigin_lat = 40.6\nbearing_deg = 0.0\nplot_width_m = 18.288\nplot_length_m = 60.0\nalley_m = 6.0\ncolumns = 2\nranges = 2\nnumbering = \"serpentine\"\nid_prefix = \"G-\"\n";
     std::fs::write(dir.join("grid.toml"), toml).unwrap();
     let g = dir.join("grid.toml");
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "stage",
-            "ingest",
-            g.to_str().unwrap(),
-            "--out",
-            "grid",
-            "--quiet",
-        ],
-    ));
+    run_stages(&w, &g, "grid", &["ingest"]);
     let gj = json(&w.path("grid/1-ingest/plots_wgs84.geojson"));
     let feats = gj["features"].as_array().unwrap();
     let ids: Vec<&str> = feats
@@ -317,18 +277,7 @@ fn end_trims_longer_than_a_plot_keep_its_middle_and_side_trims_that_leave_nothin
     let w = Workdir::new("short-plots");
     let t = repo().join("sample-input/trial.toml");
     let t = t.to_str().unwrap();
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "run",
-            t,
-            "--out",
-            "b",
-            "--quiet",
-            "--set",
-            "plots.end_trim_m=40",
-        ],
-    ));
+    run_trial(&w, Path::new(t), "b", &["plots.end_trim_m=40"]);
     let b = csv_rows(&w.path("b/3-plots/plots.csv"));
     assert_eq!(b.len(), 48);
     // Every plot keeps points (a few fall under plots.min_points with 40 % of their

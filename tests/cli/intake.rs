@@ -57,16 +57,7 @@ fn intake_matches_exports_to_trials_and_reruns_only_what_changed() {
     // One export dropped a second time under another name.
     write("north-A-copy.csv", &na);
     std::fs::write(w.path("season.toml"), "[season]\nname = \"2026 harvest\"\n[[trial]]\nfile = \"north/trial.toml\"\nout = \"runs/north\"\n[[trial]]\nfile = \"south/trial.toml\"\nout = \"runs/south\"\n").unwrap();
-    let before: BTreeMap<String, String> = std::fs::read_dir(&inbox)
-        .unwrap()
-        .map(|e| e.unwrap().path())
-        .map(|p| {
-            (
-                p.file_name().unwrap().to_string_lossy().to_string(),
-                sha(&p),
-            )
-        })
-        .collect();
+    let before = folder_hashes(&inbox);
     let o = plotsieve(&w.0, &["intake", "inbox", "season.toml"]);
     ok(&o);
     let said = String::from_utf8_lossy(&o.stdout).to_string();
@@ -86,16 +77,7 @@ fn intake_matches_exports_to_trials_and_reruns_only_what_changed() {
     );
     assert!(said.contains("reran north/trial.toml") && said.contains("reran south/trial.toml"));
     // Nothing in the inbox changed or went missing.
-    let after: BTreeMap<String, String> = std::fs::read_dir(&inbox)
-        .unwrap()
-        .map(|e| e.unwrap().path())
-        .map(|p| {
-            (
-                p.file_name().unwrap().to_string_lossy().to_string(),
-                sha(&p),
-            )
-        })
-        .collect();
+    let after = folder_hashes(&inbox);
     assert_eq!(before, after);
     // Each trial got exactly its exports, counted once.
     let names = |d: &str| -> Vec<String> {

@@ -119,10 +119,7 @@ fn a_plot_table_as_a_polygon_layer_reads_as_the_csv() {
     ok(&o);
     assert!(String::from_utf8_lossy(&o.stdout)
         .contains("from +proj=tmerc +lat_0=0 +lon_0=-99 +k_0=0.9996"));
-    ok(&plotsieve(
-        &w.0,
-        &["run", t.to_str().unwrap(), "--out", "nad83", "--quiet"],
-    ));
+    run_trial(&w, &t, "nad83", &[]);
     let got = table(&w.path("nad83"));
     for (id, b) in &base {
         let g = &got[id];

@@ -61,12 +61,7 @@ fn a_prior_from_an_earlier_trial_narrows_the_next_as_conjugate_arithmetic_says()
     std::fs::create_dir_all(w.path("t")).unwrap();
     std::fs::write(w.path("t/a.csv"), table(1)).unwrap();
     std::fs::write(w.path("t/b.csv"), table(2)).unwrap();
-    let go = |t: &std::path::Path, out: &str| {
-        ok(&plotsieve(
-            &w.0,
-            &["run", t.to_str().unwrap(), "--out", out, "--quiet"],
-        ))
-    };
+    let go = |t: &std::path::Path, out: &str| run_trial(&w, &t, out, &[]);
     go(&trial(&w, "earlier", "a.csv", ""), "t/ra");
     go(&trial(&w, "alone", "b.csv", ""), "rb");
     let (ma, sa, _) = uplift(&w, "t/ra");

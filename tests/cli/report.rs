@@ -180,18 +180,7 @@ fn economics_columns_appear_only_with_a_price() {
         !html.contains("<th>break-even"),
         "no price: no blank economics columns"
     );
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "run",
-            t,
-            "--out",
-            "priced",
-            "--quiet",
-            "--set",
-            "adjust.grain_price=180",
-        ],
-    ));
+    run_trial(&w, Path::new(t), "priced", &["adjust.grain_price=180"]);
     let html = read(&w.path("priced/5-report/report.html"));
     assert!(
         html.contains("<th>break-even (t/ha)</th>")

@@ -343,10 +343,7 @@ fn a_run_folder_never_shows_outputs_that_no_longer_hold() {
 fn the_report_summary_counts_the_plots_it_reports() {
     let w = Workdir::new("reportsummary");
     let trial = simulate(&w, "t", &["--seed", "16"]);
-    ok(&plotsieve(
-        &w.0,
-        &["run", trial.to_str().unwrap(), "--out", "run", "--quiet"],
-    ));
+    run_trial(&w, &trial, "run", &[]);
     let adjust = json(&w.path("run/4-adjust/summary.json"));
     let report = json(&w.path("run/5-report/summary.json"));
     assert!(adjust["kept"].as_u64().unwrap() > 0);

@@ -106,10 +106,7 @@ fn plots_built_from_treatment_labels_match_the_drawn_plots_of_the_same_harvest()
         "{out}"
     );
     for (t, r) in [(&drawn, "r-drawn"), (&labelled, "r-labelled")] {
-        ok(&plotsieve(
-            &w.0,
-            &["run", t.to_str().unwrap(), "--out", r, "--quiet"],
-        ));
+        run_trial(&w, &t, r, &[]);
     }
     let d = matched(
         &plot_rows(&w.path("r-drawn")),
@@ -147,10 +144,7 @@ fn plots_built_from_treatment_labels_match_the_drawn_plots_of_the_same_harvest()
         &["--seed", "5", "--strips", "--labels", "--quiet"],
     );
     for (t, r) in [(&drawn, "rs-drawn"), (&labelled, "rs-labelled")] {
-        ok(&plotsieve(
-            &w.0,
-            &["run", t.to_str().unwrap(), "--out", r, "--quiet"],
-        ));
+        run_trial(&w, &t, r, &[]);
     }
     let d = matched(
         &plot_rows(&w.path("rs-drawn")),
@@ -191,16 +185,7 @@ fn plots_built_from_treatment_labels_match_the_drawn_plots_of_the_same_harvest()
     assert!((a - b).abs() < 0.02, "{a} {b}");
     assert!((b - 0.6).abs() < 0.1, "{b}");
     // A rerun gives the same bytes.
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "run",
-            labelled.to_str().unwrap(),
-            "--out",
-            "rs-again",
-            "--quiet",
-        ],
-    ));
+    run_trial(&w, &labelled, "rs-again", &[]);
     for f in [
         "1-ingest/design.csv",
         "1-ingest/plots.geojson",
@@ -285,10 +270,7 @@ fn plots_built_from_prescription_polygons_match_the_drawn_plots() {
         "{out}"
     );
     for (t, r) in [(&drawn, "r-drawn"), (&rx, "r-rx")] {
-        ok(&plotsieve(
-            &w.0,
-            &["run", t.to_str().unwrap(), "--out", r, "--quiet"],
-        ));
+        run_trial(&w, &t, r, &[]);
     }
     let d = matched(
         &plot_rows(&w.path("r-drawn")),

@@ -39,18 +39,7 @@ fn a_field_that_drops_out_is_loud_and_stops_the_pooled_result() {
         .starts_with("export monitor/field-B.csv: all"));
     // Accepted in the trial's settings: the result comes without field B, and says so at the
     // top of both reports.
-    ok(&plotsieve(
-        &w.0,
-        &[
-            "run",
-            t,
-            "--out",
-            "run",
-            "--quiet",
-            "--set",
-            "adjust.allow_missing_fields=true",
-        ],
-    ));
+    run_trial(&w, &trial, "run", &["adjust.allow_missing_fields=true"]);
     let md = std::fs::read_to_string(w.path("run/5-report/report.md")).unwrap();
     let warn = md.find("## Warnings").expect("a warnings section");
     assert!(
@@ -84,20 +73,7 @@ fn a_field_that_drops_out_is_loud_and_stops_the_pooled_result() {
 fn a_rule_that_takes_much_of_an_export_is_a_warning() {
     let w = Workdir::new("share");
     let trial = simulate(&w, "t", &["--seed", "9"]);
-    let t = trial.to_str().unwrap();
-    let o = plotsieve(
-        &w.0,
-        &[
-            "run",
-            t,
-            "--out",
-            "run",
-            "--quiet",
-            "--set",
-            "clean.speed.min_m_s=2.2",
-        ],
-    );
-    ok(&o);
+    let o = run_trial(&w, &trial, "run", &["clean.speed.min_m_s=2.2"]);
     let e = String::from_utf8_lossy(&o.stderr);
     assert!(
         e.contains("warning: stage clean: export monitor/field-A.csv: rule speed_min removed")
@@ -232,7 +208,7 @@ fn a_check_put_at_one_end_of_every_block_is_a_design_warning() {
         .collect();
     std::fs::write(&p, out.join("\n") + "\n").unwrap();
     let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
-    let s = String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr);
+    let s = printed(&o);
     for field in ["A", "B"] {
         assert!(
             s.contains(&format!(

@@ -62,7 +62,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             )
             .map_err(anyhow::Error::msg)?;
         s.product_prior = priors;
-        let (_, sha256) = crate::run::sha256_file(&path)?;
+        let (_, sha256) = crate::trial::sha256_file(&path)?;
         carried = Some(serde_json::json!({
             "file": name, "sha256": sha256, "widen": cfg.adjust.priors_widen,
             "sd": cfg.adjust.priors_sd.as_str(), "taken": said,

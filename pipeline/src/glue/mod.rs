@@ -12,8 +12,8 @@ mod plots;
 mod report;
 
 use crate::io;
-use crate::run::{read_summary, Trial};
 use crate::stage::Stage;
+use crate::trial::{read_summary, Trial};
 use anyhow::{anyhow, bail, Result};
 use plotsieve_stages::crop::{Crop, YieldUnit};
 use plotsieve_stages::plots::PlotStats;

@@ -2,9 +2,8 @@
 
 use super::{read_plots, Ctx, ADJUST_FIRST};
 use crate::io;
-use crate::run::read_manifest;
-use crate::run::read_summary;
 use crate::stage::Stage;
+use crate::trial::{read_manifest, read_summary};
 use anyhow::Result;
 use plotsieve_stages::table::{Rejection, StageSummary};
 use plotsieve_stages::{clean, ingest, report};

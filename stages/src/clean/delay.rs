@@ -18,8 +18,9 @@
 //! Complexity: O(n) to pair on a grid of cells the pairing distance wide, then O(n x lags).
 
 use super::passes;
-use super::rules::Export;
 use super::settings::DelayMode;
+pub use super::work::DelayEstimate;
+use super::work::Export;
 use crate::util::median;
 use std::collections::BTreeMap;
 
@@ -34,15 +35,6 @@ pub struct PairPoint {
     pub pass: u32,
     /// Divides the interpolated series value (speed x width for yield, 1 for moisture).
     pub divisor: f64,
-}
-
-/// A delay estimate.
-#[derive(Clone, Debug, PartialEq, serde::Serialize)]
-pub struct DelayEstimate {
-    pub lag_s: f64,
-    pub pairs: usize,
-    /// (lag, objective) for each candidate lag.
-    pub curve: Vec<(f64, f64)>,
 }
 
 pub(crate) fn angle_diff(a: f64, b: f64) -> f64 {

@@ -53,6 +53,7 @@ pub mod rules;
 pub mod settings;
 pub mod spatial;
 pub mod timeline;
+pub mod work;
 pub mod zones;
 
 pub use delay::interpolate_at;
@@ -62,8 +63,9 @@ pub use settings::CleanSettings;
 use crate::crop::Crop;
 use crate::table::{CleanPoint, Point, PointSet, Rejection, StageSummary};
 use rayon::prelude::*;
-use rules::{Export, ExportDetails, Needs, Work, RULES};
+use rules::RULES;
 use std::collections::BTreeMap;
+use work::{Export, ExportDetails, Needs, Work};
 
 /// What clean hands on.
 #[derive(Clone, Debug)]
@@ -73,16 +75,7 @@ pub struct CleanOutput {
     pub summary: StageSummary,
 }
 
-/// Wet yield in kg/ha from mass flow (kg/s), speed (m/s) and swath width (m).
-pub fn wet_yield_kg_ha(flow_kg_s: f64, speed_m_s: f64, width_m: f64) -> f64 {
-    flow_kg_s * 10_000.0 / (speed_m_s * width_m)
-}
-
-/// Yield at standard moisture from wet yield and moisture (%), dry-matter basis
-/// (UF/IFAS EDIS AG442, Mulvaney & Devkota).
-pub fn to_standard_moisture(wet: f64, moisture_pct: f64, standard_pct: f64) -> f64 {
-    wet * (100.0 - moisture_pct) / (100.0 - standard_pct)
-}
+pub use crate::crop::{to_standard_moisture, wet_yield_kg_ha};
 
 /// A record's yield at standard moisture as logged, before any cleaning (no delay shift;
 /// moisture capped at 99 % so that a broken sensor gives a number): what the report's map of

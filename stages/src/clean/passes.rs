@@ -5,8 +5,8 @@
 //! more than `clean.pass.max_heading_change_deg` from the pass heading (which follows gentle
 //! curves, moving a tenth of the way towards each new heading; own choice, no source).
 
-use super::rules::{Export, PassStats, Work};
 use super::settings::{CleanSettings, FillMode};
+use super::work::{Export, PassStats, Work};
 use crate::util::median;
 use std::collections::BTreeMap;
 

@@ -124,7 +124,7 @@ pub fn reconcile(
             ));
         }
     }
-    let warn = cfg.plots.design_mismatch == crate::plots::settings::DesignMismatch::Warn;
+    let warn = cfg.plots.design_mismatch == super::settings::DesignMismatch::Warn;
     if !fatal.is_empty() || (!problems.is_empty() && !warn) {
         problems.extend(fatal);
         return Err(IngestError::Mismatch(problems));

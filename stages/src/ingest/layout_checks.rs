@@ -216,7 +216,7 @@ fn covariance_axis(ps: &[&Placed]) -> (f64, f64) {
 }
 
 /// [`design_warnings`] of a plot table's plots (their centres as given).
-pub fn design_warnings_of_plots(plots: &[crate::plots::PlotStats]) -> Vec<String> {
+pub fn design_warnings_of_plots(plots: &[crate::table::PlotStats]) -> Vec<String> {
     let placed: Vec<Placed> = plots
         .iter()
         .map(|p| Placed {

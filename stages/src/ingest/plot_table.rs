@@ -25,7 +25,7 @@ use super::layers::{self, Geometry};
 use super::IngestError;
 use crate::config::TrialConfig;
 use crate::crop::{Crop, LB_AC_IN_KG_HA};
-use crate::plots::PlotStats;
+use crate::table::PlotStats;
 use crate::table::Rejection;
 use geo::{Centroid, LineString, Polygon};
 use std::collections::BTreeMap;

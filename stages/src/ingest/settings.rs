@@ -431,3 +431,14 @@ impl ColumnsSection {
         }
     }
 }
+
+crate::choice! {
+    /// `plots.design_mismatch`: what to do when design and geometry disagree (ingest matches
+    /// them; the key sits with the plots settings).
+    pub enum DesignMismatch {
+        /// Stop, listing every id.
+        Error = "error",
+        /// Drop the unmatched plots with a warning.
+        Warn = "warn",
+    }
+}

@@ -3,15 +3,7 @@
 use crate::clean::settings::non_negative;
 use serde::{Deserialize, Serialize};
 
-crate::choice! {
-    /// `plots.design_mismatch`: what to do when design and geometry disagree.
-    pub enum DesignMismatch {
-        /// Stop, listing every id.
-        Error = "error",
-        /// Drop the unmatched plots with a warning.
-        Warn = "warn",
-    }
-}
+pub use crate::ingest::settings::DesignMismatch;
 
 /// The fewest one-second records a plot yield rests on, however short the plot; common
 /// practice, no source.

@@ -407,7 +407,7 @@ pub(super) fn read_records<R: std::io::Read>(
             Amount::Yield { per_unit, wet } => {
                 let kg = amount * per_unit;
                 let std = if wet {
-                    crate::clean::to_standard_moisture(kg, moisture.min(99.0), standard)
+                    crate::crop::to_standard_moisture(kg, moisture.min(99.0), standard)
                 } else {
                     kg
                 };

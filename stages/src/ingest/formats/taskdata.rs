@@ -553,12 +553,12 @@ fn read_log(
             let kg = raw * 0.01;
             (
                 f64::NAN,
-                crate::clean::to_standard_moisture(kg, moisture.min(99.0), standard),
+                crate::crop::to_standard_moisture(kg, moisture.min(99.0), standard),
             )
         } else {
             (
                 f64::NAN,
-                crate::clean::to_standard_moisture(raw * 0.01, 0.0, standard),
+                crate::crop::to_standard_moisture(raw * 0.01, 0.0, standard),
             )
         };
         let hdop = pos[5] / 10.0;
