@@ -13,6 +13,7 @@ mod forms;
 mod geometry;
 mod inputs;
 mod intake;
+mod limits;
 mod open_data;
 mod plot_layers;
 mod priors;

@@ -61,7 +61,6 @@ Product claims must follow local regulations and licensed agronomic advice.";
 
 /// Render the Markdown report.
 pub fn markdown(r: &ReportInput) -> String {
-    let d = r.decimals;
     let mut s = String::new();
     let _ = writeln!(s, "# plotsieve report: {}\n", r.trial_name);
     let _ = writeln!(s, "> **Caution.** {CAUTION}\n");
@@ -73,6 +72,17 @@ pub fn markdown(r: &ReportInput) -> String {
         let _ = writeln!(s);
     }
     decision_markdown(&mut s, r);
+    md_counts(&mut s, r);
+    md_removed(&mut s, r);
+    md_exports(&mut s, r);
+    md_spatial(&mut s, r);
+    md_per_field(&mut s, r);
+    md_new_field(&mut s, r);
+    s
+}
+
+/// The points and plots in, kept and rejected, per stage.
+fn md_counts(s: &mut String, r: &ReportInput) {
     let _ = writeln!(s, "## {}\n", heading::COUNTS);
     let _ = writeln!(s, "| stage | counted | in | kept | rejected |");
     let _ = writeln!(s, "|---|---|---:|---:|---:|");
@@ -90,6 +100,10 @@ pub fn markdown(r: &ReportInput) -> String {
             );
         }
     }
+}
+
+/// What each rule removed, per stage.
+fn md_removed(s: &mut String, r: &ReportInput) {
     let _ = writeln!(s, "\n## {}\n", heading::REMOVED);
     let _ = writeln!(s, "| stage | rule | removed |");
     let _ = writeln!(s, "|---|---|---:|");
@@ -103,6 +117,10 @@ pub fn markdown(r: &ReportInput) -> String {
             }
         }
     }
+}
+
+/// How each export was read, and the delays applied to it.
+fn md_exports(s: &mut String, r: &ReportInput) {
     let read_as = exports_read_as(r.summaries);
     if !read_as.is_empty() {
         let _ = writeln!(s, "\n## {}\n", heading::READ_AS);
@@ -135,6 +153,11 @@ pub fn markdown(r: &ReportInput) -> String {
             let _ = writeln!(s, "\n{}", notes.join("\n"));
         }
     }
+}
+
+/// The spatial model per field, and any random design factors.
+fn md_spatial(s: &mut String, r: &ReportInput) {
+    let d = r.decimals;
     let _ = writeln!(s, "\n## {}\n", heading::SPATIAL);
     let _ = writeln!(s, "Posterior means with 95 % intervals; row `all` of a joint fit holds the shared range and the SD of the treatment x field interaction.\n");
     let _ = writeln!(
@@ -183,6 +206,11 @@ pub fn markdown(r: &ReportInput) -> String {
             );
         }
     }
+}
+
+/// Each product against the check, per field and pooled.
+fn md_per_field(s: &mut String, r: &ReportInput) {
+    let d = r.decimals;
     let _ = writeln!(s, "\n## {}\n", per_field_heading(r.check));
     let _ = writeln!(s, "Yields in {u} at standard moisture; uplift = treatment minus check; 95 % intervals. Field `all` is the effect shared by the fields in the joint model (the fields' own rows include the treatment x field interaction), or with `adjust.pooling = \"separate\"` the inverse-variance combination of the separate field fits.\n", u = r.unit_label);
     let _ = writeln!(s, "| field | treatment | plots | estimate | SD | uplift | uplift 95 % interval | prior (mean +- SD) | P(uplift > 0) |");
@@ -216,6 +244,11 @@ pub fn markdown(r: &ReportInput) -> String {
             p
         );
     }
+}
+
+/// The uplift in a field that was not in the trial.
+fn md_new_field(s: &mut String, r: &ReportInput) {
+    let d = r.decimals;
     let nf = new_field_rows(r.treatments);
     if !nf.is_empty() {
         let economics = nf.iter().any(|t| t.p_new_field_gt_break_even.is_finite());
@@ -262,7 +295,6 @@ pub fn markdown(r: &ReportInput) -> String {
             );
         }
     }
-    s
 }
 
 /// The reports' section headings, one list for the Markdown and the HTML form.
@@ -650,6 +682,7 @@ pub(crate) fn mean_interval(m: f64, lo: f64, hi: f64, k: usize) -> String {
 pub mod html;
 pub mod raster;
 pub mod season;
+pub mod svg;
 
 /// (field, factor, SD summary) for each random design factor fitted (rows, columns,
 /// incomplete blocks), for the reports.

@@ -17,16 +17,17 @@
 //! (`turn`), speed dips (`speed_dip`), a partial-width pass (`partial_swath`), GPS jumps
 //! (`gps_jump`) and flow-sensor spikes (`spike`); moisture varies between 14 and 24 %.
 
+mod geometry;
 mod trial_file;
 use crate::util::Rng;
+pub use geometry::iso;
+use geometry::{Frame, Trend};
 use serde_json::json;
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
 
 /// Header width of the simulated combine, metres (30 ft).
 pub const HEADER_M: f64 = 9.144;
-/// Metres per degree of latitude on the local tangent plane (mean Earth radius 6 371 km).
-const M_PER_DEG: f64 = 6_371_000.0 * std::f64::consts::PI / 180.0;
 
 /// Size and seed of a simulated trial.
 #[derive(Clone, Debug)]
@@ -137,59 +138,6 @@ pub struct SimTrial {
     /// written as a point Shapefile by [`crate::ingest::layers::write_point_shapefile`].
     pub files: Vec<(String, String)>,
     pub points: usize,
-}
-
-/// A smooth random field: random Fourier features of a squared-exponential kernel.
-struct Trend {
-    w: Vec<(f64, f64, f64)>,
-    sd: f64,
-}
-
-impl Trend {
-    fn new(rng: &mut Rng, length_m: f64, sd: f64) -> Self {
-        let w = (0..300)
-            .map(|_| {
-                (
-                    rng.normal() / length_m,
-                    rng.normal() / length_m,
-                    rng.range(0.0, 2.0 * std::f64::consts::PI),
-                )
-            })
-            .collect();
-        Trend { w, sd }
-    }
-    fn at(&self, x: f64, y: f64) -> f64 {
-        let m = self.w.len() as f64;
-        self.sd
-            * (2.0 / m).sqrt()
-            * self
-                .w
-                .iter()
-                .map(|(a, b, c)| (a * x + b * y + c).cos())
-                .sum::<f64>()
-    }
-}
-
-/// One field's geometry: origin, bearing and the local frame (u along travel, v across).
-struct Frame {
-    lon0: f64,
-    lat0: f64,
-    sin: f64,
-    cos: f64,
-}
-
-impl Frame {
-    /// East and north metres of local (u, v).
-    fn en(&self, u: f64, v: f64) -> (f64, f64) {
-        (u * self.sin + v * self.cos, u * self.cos - v * self.sin)
-    }
-    fn lonlat(&self, u: f64, v: f64) -> (f64, f64) {
-        let (e, n) = self.en(u, v);
-        (
-            self.lon0 + e / (M_PER_DEG * self.lat0.to_radians().cos()),
-            self.lat0 + n / M_PER_DEG,
-        )
-    }
 }
 
 /// Generate a trial.
@@ -704,52 +652,5 @@ struct Rec {
     working: bool,
 }
 
-/// ISO 8601 UTC from seconds since the epoch (Hinnant's `civil_from_days`).
-pub fn iso(t: f64) -> String {
-    let secs = t.floor() as i64;
-    let days = secs.div_euclid(86_400);
-    let rem = secs.rem_euclid(86_400);
-    let z = days + 719_468;
-    let era = z.div_euclid(146_097);
-    let doe = z - era * 146_097;
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let d = doy - (153 * mp + 2) / 5 + 1;
-    let m = if mp < 10 { mp + 3 } else { mp - 9 };
-    let y = yoe + era * 400 + if m <= 2 { 1 } else { 0 };
-    format!(
-        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
-        rem / 3600,
-        rem / 60 % 60,
-        rem % 60
-    )
-}
-
 #[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn iso_round_trip() {
-        assert_eq!(iso(946_684_800.0), "2000-01-01T00:00:00Z");
-        assert_eq!(iso(1_789_722_000.0), "2026-09-18T09:00:00Z");
-        assert_eq!(
-            crate::ingest::parse_iso8601(&iso(1_789_722_061.0)),
-            Some(1_789_722_061.0)
-        );
-    }
-
-    #[test]
-    fn same_seed_same_trial() {
-        let a = generate(&SimOptions::default());
-        let b = generate(&SimOptions::default());
-        assert_eq!(a.files, b.files);
-        let c = generate(&SimOptions {
-            seed: 2,
-            ..Default::default()
-        });
-        assert_ne!(a.files[0].1, c.files[0].1);
-        assert!(a.points > 3000, "{}", a.points);
-    }
-}
+mod tests;

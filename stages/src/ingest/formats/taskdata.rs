@@ -34,11 +34,16 @@
 //! value fields change from record to record; measured on the simulator's logs and the
 //! forage-harvester logs of the real-data tests, not a published figure).
 
+mod files;
+mod write;
+use files::{log_size, Files, MIN_RECORD_BYTES};
+pub use files::{MAX_INFLATION, MAX_MEMBER_BYTES, MAX_TOTAL_BYTES};
+pub use write::write_set;
+
 use super::{reject, ExportRead, MonitorFormat, RawPoint};
 use crate::config::TrialConfig;
 use crate::ingest::IngestError;
 use std::collections::BTreeMap;
-use std::io::Read;
 use std::path::Path;
 
 /// The task-data reader.
@@ -76,179 +81,9 @@ const WIDTH: u16 = 0x0043;
 const SPEED: u16 = 0x018D;
 const WORK_STATE: u16 = 0x008D;
 
-/// The task data's files by upper-case name (the folder of `TASKDATA.XML`, or its folder
-/// inside the archive).
-struct Files(BTreeMap<String, Vec<u8>>);
-
-/// The largest file of a task-data set read (512 MiB: a time log of 20 million records of
-/// 24 bytes, weeks of logging every second).
-pub const MAX_MEMBER_BYTES: u64 = 512 << 20;
-/// The largest inflation of a zip member (uncompressed / compressed size) taken as a real
-/// file; a file of zero bytes deflates about 1,000 times.
-pub const MAX_INFLATION: u64 = 100;
-/// The most a task-data set may hold in all (2 GiB).
-pub const MAX_TOTAL_BYTES: u64 = 2 << 30;
-
-/// A zip member's declared size and inflation against [`MAX_MEMBER_BYTES`] and
-/// [`MAX_INFLATION`], before anything is inflated; `Err` names the member.
-fn member_limits(n: &str, size: u64, packed: u64) -> Result<(), String> {
-    let packed = packed.max(1);
-    let what = if size > MAX_MEMBER_BYTES {
-        format!("declares {size} bytes, more than a task-data file can be ({MAX_MEMBER_BYTES})")
-    } else if size / packed > MAX_INFLATION {
-        format!(
-            "inflates from {packed} to {size} bytes ({}x; a real time log deflates far less than {MAX_INFLATION}x)",
-            size / packed
-        )
-    } else {
-        return Ok(());
-    };
-    Err(format!(
-        "{n}: {what}; not read (an archive made to exhaust memory, or not task data)"
-    ))
-}
-
 /// A time log whose first this many records are all without a time or a position is refused
 /// there (an hour of records at one a second; a real log gets its first fix in minutes).
 const MAX_LEADING_UNUSABLE: u64 = 3600;
-
-/// The fewest bytes a time-log record takes: time (6), latitude and longitude (8), the
-/// value count (1) and one value (5).
-const MIN_RECORD_BYTES: u64 = 20;
-
-/// The size of time log `log` (`TLG00001`) of a task-data set, as a zip archive declares it
-/// (nothing inflated) or as its folder holds it; 0 when the set has no such file.
-fn log_size(file: &Path, log: &str) -> Result<u64, String> {
-    let want = format!("{}.BIN", log.to_ascii_uppercase());
-    let is_zip = file
-        .extension()
-        .is_some_and(|x| x.eq_ignore_ascii_case("zip"));
-    if is_zip {
-        let f = std::fs::File::open(file).map_err(|e| e.to_string())?;
-        let mut z = zip::ZipArchive::new(f).map_err(|e| format!("not a zip archive ({e})"))?;
-        let mut size = 0;
-        for i in 0..z.len() {
-            let e = z.by_index_raw(i).map_err(|e| format!("entry {i}: {e}"))?;
-            let name = e.name().map_err(|e| format!("entry {i}: {e}"))?;
-            let base = name.rsplit('/').next().unwrap_or("").to_ascii_uppercase();
-            if base == want {
-                member_limits(&name, e.size(), e.compressed_size())?;
-                size = size.max(e.size());
-            }
-        }
-        Ok(size)
-    } else {
-        let dir = file.parent().unwrap_or(Path::new("."));
-        let found = std::fs::read_dir(if dir.as_os_str().is_empty() {
-            Path::new(".")
-        } else {
-            dir
-        })
-        .map_err(|e| e.to_string())?
-        .filter_map(|e| e.ok())
-        .find(|e| e.file_name().to_string_lossy().to_ascii_uppercase() == want);
-        Ok(found.and_then(|e| e.metadata().ok()).map_or(0, |m| m.len()))
-    }
-}
-
-impl Files {
-    fn open(path: &Path) -> Result<Files, String> {
-        let is_zip = path
-            .extension()
-            .is_some_and(|x| x.eq_ignore_ascii_case("zip"));
-        let mut files = BTreeMap::new();
-        if is_zip {
-            let f = std::fs::File::open(path).map_err(|e| e.to_string())?;
-            return Files::from_zip(f);
-        } else {
-            let dir = path.parent().unwrap_or(Path::new("."));
-            let dir = if dir.as_os_str().is_empty() {
-                Path::new(".")
-            } else {
-                dir
-            };
-            for e in std::fs::read_dir(dir).map_err(|e| e.to_string())? {
-                let p = e.map_err(|e| e.to_string())?.path();
-                let Some(base) = p.file_name().and_then(|b| b.to_str()) else {
-                    continue;
-                };
-                let up = base.to_ascii_uppercase();
-                if p.is_file() && (up == "TASKDATA.XML" || up.starts_with("TLG")) {
-                    let size = p.metadata().map(|m| m.len()).unwrap_or(0);
-                    if size > MAX_MEMBER_BYTES {
-                        return Err(format!(
-                            "{base}: {size} bytes, more than a task-data file can be ({MAX_MEMBER_BYTES} bytes); not read"
-                        ));
-                    }
-                    files.insert(up, std::fs::read(&p).map_err(|e| format!("{base}: {e}"))?);
-                }
-            }
-        }
-        Ok(Files(files))
-    }
-
-    /// The files of the archive's folder that holds `TASKDATA.XML` (the shallowest).
-    fn from_zip<R: Read + std::io::Seek>(r: R) -> Result<Files, String> {
-        let mut files = BTreeMap::new();
-        let mut z = zip::ZipArchive::new(r).map_err(|e| format!("not a zip archive ({e})"))?;
-        let mut names: Vec<String> = Vec::with_capacity(z.len());
-        for i in 0..z.len() {
-            let e = z.by_index(i).map_err(|e| format!("entry {i}: {e}"))?;
-            names.push(e.name().map_err(|e| format!("entry {i}: {e}"))?.to_string());
-        }
-        let main = names
-            .iter()
-            .filter(|n| {
-                n.rsplit('/')
-                    .next()
-                    .is_some_and(|b| b.eq_ignore_ascii_case("TASKDATA.XML"))
-            })
-            .min_by_key(|n| n.len())
-            .ok_or("the archive holds no TASKDATA.XML")?
-            .clone();
-        let dir = &main[..main.len() - "TASKDATA.XML".len()];
-        let mut total = 0u64;
-        for n in &names {
-            let Some(base) = n.strip_prefix(dir) else {
-                continue;
-            };
-            if base.is_empty() || base.contains('/') {
-                continue;
-            }
-            let e = z.by_name(n).map_err(|e| format!("{n}: {e}"))?;
-            let size = e.size();
-            member_limits(n, size, e.compressed_size())?;
-            let refuse = |what: String| {
-                Err(format!(
-                    "{n}: {what}; not read (an archive made to exhaust memory, or not task data)"
-                ))
-            };
-            total += size;
-            if total > MAX_TOTAL_BYTES {
-                return refuse(format!(
-                    "the archive's files add up to more than {MAX_TOTAL_BYTES} bytes"
-                ));
-            }
-            // The declared size may lie: read at most one byte past it.
-            let mut bytes = Vec::with_capacity(size as usize);
-            e.take(size + 1)
-                .read_to_end(&mut bytes)
-                .map_err(|e| format!("{n}: {e}"))?;
-            if bytes.len() as u64 > size {
-                return refuse(format!("inflates past the {size} bytes it declares"));
-            }
-            files.insert(base.to_ascii_uppercase(), bytes);
-        }
-        Ok(Files(files))
-    }
-
-    fn get(&self, name: &str) -> Result<&[u8], String> {
-        self.0
-            .get(&name.to_ascii_uppercase())
-            .map(Vec::as_slice)
-            .ok_or_else(|| format!("{name} is missing"))
-    }
-}
 
 fn text(bytes: &[u8], what: &str) -> Result<String, String> {
     String::from_utf8(bytes.to_vec()).map_err(|_| format!("{what} is not UTF-8 text"))
@@ -779,110 +614,6 @@ impl MonitorFormat for TaskData {
         }
         Ok(Some(out.points.iter().map(|p| (p.lon, p.lat)).collect()))
     }
-}
-
-/// Writes a task-data set into the folder `dir` (created; it must not exist): one task per
-/// `(designator, csv)`, each with one time log made from a point table in the simulator's
-/// text form (`time_utc`, `lon_deg`, `lat_deg`, `mass_flow_lb_s`, `hdop`, and where present
-/// `speed_mph`, `swath_ft`, `moisture_pct`, `header_state`): mass flow as DDI 0057 (mg/s), moisture 0063
-/// (ppm), speed 018D (mm/s), working width 0043 (mm), work state 008D, positions in 1e-7
-/// degrees with status 2 (DGNSS) and the HDOP, each value logged when it changes. For
-/// `plotsieve simulate --form taskdata`; the bytes depend only on the tables.
-pub fn write_set(dir: &Path, logs: &[(String, String)]) -> Result<(), String> {
-    if dir.exists() {
-        return Err(format!("{} exists", dir.display()));
-    }
-    std::fs::create_dir_all(dir).map_err(|e| e.to_string())?;
-    let mut tasks = String::new();
-    // (DDI, column, factor to the DDI's unit): a column the table lacks (speed, swath) is
-    // not logged.
-    const QUANTITIES: [(&str, &str, f64); 5] = [
-        ("0057", "mass_flow_lb_s", 0.453_592_37 * 1e6),
-        ("0063", "moisture_pct", 1e4),
-        ("018D", "speed_mph", 447.04),
-        ("0043", "swath_ft", 304.8),
-        ("008D", "header_state", 1.0),
-    ];
-    for (k, (task, csv_text)) in logs.iter().enumerate() {
-        let tlg = format!("TLG{:05}", k + 1);
-        tasks += &format!(
-            "<TSK A=\"TSK{}\" B=\"{}\" G=\"4\">\n<TLG A=\"{tlg}\" C=\"1\"/>\n</TSK>\n",
-            k + 1,
-            task.replace('&', "&amp;")
-                .replace('"', "&quot;")
-                .replace('<', "&lt;")
-        );
-        let crate::ingest::layers::PointTable {
-            mut rdr, header, ..
-        } = crate::ingest::layers::point_table(csv_text)?;
-        let col = |n: &str| {
-            header
-                .iter()
-                .position(|h| h == n)
-                .ok_or_else(|| format!("the point table has no {n} column"))
-        };
-        let idx = [
-            col("time_utc")?,
-            col("lon_deg")?,
-            col("lat_deg")?,
-            col("hdop")?,
-        ];
-        let logged: Vec<(&str, usize, f64)> = QUANTITIES
-            .iter()
-            .filter_map(|(d, c, f)| col(c).ok().map(|i| (*d, i, *f)))
-            .collect();
-        if !logged.iter().any(|q| q.0 == "0057") {
-            return Err("the point table has no mass_flow_lb_s column".into());
-        }
-        let mut bin = Vec::new();
-        let mut last: Vec<Option<i32>> = vec![None; logged.len()];
-        for (r, rec) in rdr.records().enumerate() {
-            let rec = rec.map_err(|e| e.to_string())?;
-            let num = |i: usize| -> Result<f64, String> {
-                rec.get(i)
-                    .and_then(|v| v.parse::<f64>().ok())
-                    .ok_or_else(|| format!("record {}: {} is not a number", r + 1, header[i]))
-            };
-            let t = crate::ingest::time::parse_iso8601(rec.get(idx[0]).unwrap_or(""))
-                .ok_or_else(|| format!("record {}: time is not ISO 8601", r + 1))?;
-            let since = t - EPOCH_1980_S;
-            let days = (since / 86_400.0).floor();
-            let ms = ((since - days * 86_400.0) * 1000.0).round();
-            bin.extend((ms as u32).to_le_bytes());
-            bin.extend((days as u16).to_le_bytes());
-            let deg = |v: f64| (v * 1e7).round() as i32;
-            bin.extend(deg(num(idx[2])?).to_le_bytes());
-            bin.extend(deg(num(idx[1])?).to_le_bytes());
-            bin.push(2);
-            bin.extend(((num(idx[3])? * 10.0).round() as u16).to_le_bytes());
-            let now = logged
-                .iter()
-                .map(|(_, i, f)| num(*i).map(|v| (v * f).round() as i32))
-                .collect::<Result<Vec<i32>, String>>()?;
-            let changed: Vec<usize> = (0..now.len())
-                .filter(|&i| last[i] != Some(now[i]))
-                .collect();
-            bin.push(changed.len() as u8);
-            for i in changed {
-                bin.push(i as u8);
-                bin.extend(now[i].to_le_bytes());
-                last[i] = Some(now[i]);
-            }
-        }
-        let dlvs: String = logged
-            .iter()
-            .map(|(d, ..)| format!("<DLV A=\"{d}\" B=\"\" C=\"DET-1\"/>\n"))
-            .collect();
-        let head = format!(
-            "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n<TIM A=\"\" D=\"4\">\n<PTN A=\"\" B=\"\" D=\"\" F=\"\"/>\n{dlvs}</TIM>\n"
-        );
-        std::fs::write(dir.join(format!("{tlg}.XML")), head).map_err(|e| e.to_string())?;
-        std::fs::write(dir.join(format!("{tlg}.BIN")), bin).map_err(|e| e.to_string())?;
-    }
-    let main = format!(
-        "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n<ISO11783_TaskData VersionMajor=\"4\" VersionMinor=\"3\" ManagementSoftwareManufacturer=\"plotsieve simulate\" ManagementSoftwareVersion=\"1\" DataTransferOrigin=\"2\">\n<DVC A=\"DVC-1\" B=\"Combine\" D=\"A000860025A00001\" F=\"FF000000006C6A\" G=\"FF000000006C6A\">\n<DET A=\"DET-1\" B=\"1\" C=\"1\" D=\"Combine\" E=\"0\" F=\"0\"/>\n</DVC>\n{tasks}</ISO11783_TaskData>\n"
-    );
-    std::fs::write(dir.join("TASKDATA.XML"), main).map_err(|e| e.to_string())
 }
 
 /// The mapping `check` prints for a task-data export.
