@@ -69,6 +69,7 @@ fn decision(s: &mut String, r: &HtmlInput) {
         r.decimals,
         r.unit_label,
         super::area_of(r.money),
+        Vec::new(),
         super::fields_summary(r.treatments, r.decimals),
     );
     table(s, &head, &cells, 1);

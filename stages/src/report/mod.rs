@@ -502,19 +502,21 @@ pub(crate) fn decision_columns(
 /// An extra decision-table column: heading and cell.
 pub(crate) type ExtraColumn<'a> = (String, Box<dyn Fn(&TreatmentRow) -> String + 'a>);
 
-/// The decision table as headings and cells: the product, the `extra` columns, then
-/// [`decision_columns`].
+/// The decision table as headings and cells: the product, the `extra` columns,
+/// [`decision_columns`], then the `after` columns.
 pub(crate) fn decision_cells(
     rows: &[&TreatmentRow],
     d: usize,
     u: &str,
     area: AreaUnit,
     extra: Vec<ExtraColumn>,
+    after: Vec<ExtraColumn>,
 ) -> (Vec<String>, Vec<Vec<String>>) {
     let cols = decision_columns(rows, d, u, area);
     let head = std::iter::once("product".to_string())
         .chain(extra.iter().map(|c| c.0.clone()))
         .chain(cols.iter().map(|c| c.0.clone()))
+        .chain(after.iter().map(|c| c.0.clone()))
         .collect();
     let cells = rows
         .iter()
@@ -522,6 +524,7 @@ pub(crate) fn decision_cells(
             std::iter::once(t.treatment.clone())
                 .chain(extra.iter().map(|c| c.1(t)))
                 .chain(cols.iter().map(|c| c.1(t)))
+                .chain(after.iter().map(|c| c.1(t)))
                 .collect()
         })
         .collect();
@@ -558,6 +561,7 @@ fn decision_markdown(s: &mut String, r: &ReportInput) {
         r.decimals,
         r.unit_label,
         area_of(r.money),
+        Vec::new(),
         fields_summary(r.treatments, r.decimals),
     );
     markdown_table(s, &head, &cells, 1);
@@ -706,7 +710,55 @@ pub(crate) fn random_factors(
 
 #[cfg(test)]
 mod tests {
-    use super::delay_note;
+    use super::{delay_note, fields_summary, method_words, prob3, settings_rows};
+    use crate::adjust::TreatmentRow;
+
+    #[test]
+    fn plain_words_for_the_method_probabilities_and_settings() {
+        assert_eq!(prob3(-0.0001), "0.000");
+        assert_eq!(prob3(0.9996), "1.000");
+        assert_eq!(prob3(f64::NAN), "");
+        assert_eq!(method_words("exact"), "exact kernel");
+        assert_eq!(
+            method_words("hsgp 20x16"),
+            "reduced-rank kernel, 20 x 16 basis functions"
+        );
+        assert_eq!(
+            method_words("joint, 5804 draws, ESS 2703, 2556 kept"),
+            "all fields fitted together; the model settings averaged over 5804 weighted draws (worth about 2703 equally weighted ones; the 2556 with any weight kept)"
+        );
+        let v = serde_json::json!({"a": {"b": 1, "c": null, "d": []}, "e": "x", "f": [1, 2]});
+        assert_eq!(
+            settings_rows(&v),
+            vec![
+                ("a.b".to_string(), "1".to_string()),
+                ("e".to_string(), "x".to_string()),
+                ("f".to_string(), "[1,2]".to_string())
+            ]
+        );
+    }
+
+    #[test]
+    fn the_field_summary_gives_median_range_and_fields_surely_ahead() {
+        let row = |field: &str, uplift: f64, p: f64| TreatmentRow {
+            field: field.into(),
+            treatment: "prod-a".into(),
+            uplift,
+            p_uplift_gt0: p,
+            ..Default::default()
+        };
+        let rows = vec![
+            row("A", 0.30, 0.97),
+            row("B", 0.10, 0.80),
+            row("C", 0.50, 0.99),
+            row("all", 0.31, 0.99),
+        ];
+        let cols = fields_summary(&rows, 2);
+        assert_eq!(cols.len(), 1);
+        assert_eq!(cols[0].1(&rows[3]), "0.30 (0.10 to 0.50); 2 of 3");
+        // One field only: no column.
+        assert!(fields_summary(&rows[2..], 2).is_empty());
+    }
 
     #[test]
     fn unusual_delay_estimates_are_explained() {

@@ -263,7 +263,7 @@ pub fn render(r: &SeasonInput) -> String {
         esc(&super::decision_heading(r.check)),
         esc(SEASON_WORDS)
     );
-    let (head, cells) = decision_cells(&rows, d, u, area_of(r.money), fields_column(r));
+    let (head, cells) = decision_cells(&rows, d, u, area_of(r.money), fields_column(r), Vec::new());
     table(&mut s, &head, &cells, 1);
     if let Some(p) = prices_line(r.money) {
         let _ = write!(s, "<p class=\"note\">{}</p>", esc(&p));
@@ -351,7 +351,7 @@ pub fn markdown(r: &SeasonInput) -> String {
         "## {} across the season\n\n{SEASON_WORDS}\n",
         super::decision_heading(r.check)
     );
-    let (head, cells) = decision_cells(&rows, d, u, area_of(r.money), fields_column(r));
+    let (head, cells) = decision_cells(&rows, d, u, area_of(r.money), fields_column(r), Vec::new());
     markdown_table(&mut s, &head, &cells, 1);
     if let Some(p) = prices_line(r.money) {
         let _ = writeln!(s, "\n{p}");
