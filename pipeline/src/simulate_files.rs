@@ -62,9 +62,10 @@ pub fn simulate(dir: &Path, o: &simulate::SimOptions) -> Result<()> {
             // The .shp, .shx, .dbf and .prj are written together, then the stale ones of an
             // earlier run are gone.
             std::fs::create_dir_all(path.parent().unwrap_or(dir))?;
-            for ext in ["shp", "shx", "dbf", "prj"] {
-                let _ = std::fs::remove_file(path.with_extension(ext));
+            for stale in ingest::layers::companions(&path) {
+                let _ = std::fs::remove_file(stale);
             }
+            let _ = std::fs::remove_file(&path);
             ingest::layers::write_point_shapefile(&path, text)
                 .map_err(|e| anyhow::anyhow!("writing {}: {e}", path.display()))?;
         } else if rel.ends_with(".gpkg") {

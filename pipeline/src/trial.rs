@@ -138,12 +138,10 @@ pub(crate) fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
     if !t.cfg.adjust.priors_from.is_empty() {
         paths.push(t.base.join(&t.cfg.adjust.priors_from));
     }
-    // A Shapefile is its .shp with the files beside it.
+    // A layer file with the files that belong to it (a Shapefile's .shx, .dbf and .prj).
     let sidecars: Vec<PathBuf> = paths
         .iter()
-        .filter(|p| p.extension().is_some_and(|e| e.eq_ignore_ascii_case("shp")))
-        .flat_map(|p| ["shx", "dbf", "prj"].map(|e| p.with_extension(e)))
-        .filter(|p| p.is_file())
+        .flat_map(|p| ingest::layers::companions(p))
         .collect();
     paths.extend(sidecars);
     // Files hashed in parallel (a harvest's exports are hundreds of MB), listed in order.

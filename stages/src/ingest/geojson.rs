@@ -50,9 +50,9 @@ pub fn read_polygon_layer(
         file: name.to_string(),
         message,
     };
-    let ext = super::layers::extension(path);
+    let trial_crs_wins = super::layers::layer_format(path).is_some_and(|f| f.trial_crs_wins());
     let layer = super::layers::read(path, name, layer)?;
-    let named = if ext == "shp" || ext == "gpkg" {
+    let named = if trial_crs_wins {
         // The trial's crs wins over a Shapefile's .prj or a GeoPackage's reference.
         layer.crs_with(crs).map_err(unusable)?
     } else {

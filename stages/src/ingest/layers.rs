@@ -95,35 +95,123 @@ pub fn extension(path: &Path) -> String {
         .unwrap_or_default()
 }
 
-/// Whether a path names a layer file this module reads (by extension).
-pub fn is_layer(path: &Path) -> bool {
-    matches!(
-        extension(path).as_str(),
-        "geojson" | "json" | "shp" | "gpkg"
-    )
+/// A vector layer file format: points or polygons with attributes. Every format is in
+/// [`LAYERS`]; nothing outside this registry tests a layer file's extension.
+pub trait LayerFormat: Sync {
+    /// The format's name, as messages print it.
+    fn name(&self) -> &'static str;
+    /// File-name extensions (lower case, no dot).
+    fn extensions(&self) -> &'static [&'static str];
+    /// The files that come with `path` and belong to it (a Shapefile's .shx, .dbf and .prj):
+    /// hashed with it in the manifest, replaced with it when written.
+    fn companions(&self, path: &Path) -> Vec<std::path::PathBuf> {
+        let _ = path;
+        Vec::new()
+    }
+    /// Whether the trial's `inputs.crs` overrides the CRS the file states (true for a
+    /// Shapefile's .prj or a GeoPackage's reference); false where the file's own CRS wins
+    /// (a GeoJSON file's crs member).
+    fn trial_crs_wins(&self) -> bool {
+        true
+    }
+    /// Read the layer (`layer`: which one of a file holding several, or empty).
+    fn read(&self, path: &Path, name: &str, layer: &str) -> Result<Layer, IngestError>;
 }
 
-/// Read a layer by its extension: `.shp`, `.gpkg` (the one named `layer` when it has several
-/// feature layers), else GeoJSON.
-pub fn read(path: &Path, name: &str, layer: &str) -> Result<Layer, IngestError> {
-    let unusable = |message: String| IngestError::Unusable {
-        file: name.to_string(),
-        message,
-    };
-    let ext = extension(path);
-    match ext.as_str() {
-        "shp" => read_shapefile(path, name),
-        "gpkg" => {
-            if !path.is_file() {
-                return Err(IngestError::Read {
-                    file: name.to_string(),
-                    message: "no such file".into(),
-                });
-            }
-            super::geopackage::read(path, layer).map_err(unusable)
-        }
-        _ => read_geojson(path, name),
+/// GeoJSON (RFC 7946, and the older crs member).
+pub struct GeoJsonLayer;
+/// An ESRI Shapefile: the .shp with its .shx, .dbf and .prj.
+pub struct ShapefileLayer;
+/// A GeoPackage feature layer.
+pub struct GeoPackageLayer;
+
+/// Every vector layer format; the first, GeoJSON, reads any other file named as a layer.
+pub static LAYERS: &[&dyn LayerFormat] = &[&GeoJsonLayer, &ShapefileLayer, &GeoPackageLayer];
+
+impl LayerFormat for GeoJsonLayer {
+    fn name(&self) -> &'static str {
+        "GeoJSON"
     }
+    fn extensions(&self) -> &'static [&'static str] {
+        &["geojson", "json"]
+    }
+    fn trial_crs_wins(&self) -> bool {
+        false
+    }
+    fn read(&self, path: &Path, name: &str, _layer: &str) -> Result<Layer, IngestError> {
+        read_geojson(path, name)
+    }
+}
+
+impl LayerFormat for ShapefileLayer {
+    fn name(&self) -> &'static str {
+        "Shapefile"
+    }
+    fn extensions(&self) -> &'static [&'static str] {
+        &["shp"]
+    }
+    fn companions(&self, path: &Path) -> Vec<std::path::PathBuf> {
+        ["shx", "dbf", "prj"]
+            .iter()
+            .map(|e| path.with_extension(e))
+            .collect()
+    }
+    fn read(&self, path: &Path, name: &str, _layer: &str) -> Result<Layer, IngestError> {
+        read_shapefile(path, name)
+    }
+}
+
+impl LayerFormat for GeoPackageLayer {
+    fn name(&self) -> &'static str {
+        "GeoPackage"
+    }
+    fn extensions(&self) -> &'static [&'static str] {
+        &["gpkg"]
+    }
+    fn read(&self, path: &Path, name: &str, layer: &str) -> Result<Layer, IngestError> {
+        if !path.is_file() {
+            return Err(IngestError::Read {
+                file: name.to_string(),
+                message: "no such file".into(),
+            });
+        }
+        super::geopackage::read(path, layer).map_err(|message| IngestError::Unusable {
+            file: name.to_string(),
+            message,
+        })
+    }
+}
+
+/// The layer format of a path, by its extension; None when no format claims it.
+pub fn layer_format(path: &Path) -> Option<&'static dyn LayerFormat> {
+    let ext = extension(path);
+    LAYERS
+        .iter()
+        .copied()
+        .find(|f| f.extensions().contains(&ext.as_str()))
+}
+
+/// Whether a path names a layer file this module reads (by extension).
+pub fn is_layer(path: &Path) -> bool {
+    layer_format(path).is_some()
+}
+
+/// The files that belong with `path` (its layer format's companions) that exist.
+pub fn companions(path: &Path) -> Vec<std::path::PathBuf> {
+    layer_format(path)
+        .map(|f| f.companions(path))
+        .unwrap_or_default()
+        .into_iter()
+        .filter(|p| p.is_file())
+        .collect()
+}
+
+/// Read a layer through its format ([`layer_format`]); a file no format claims is read as
+/// GeoJSON.
+pub fn read(path: &Path, name: &str, layer: &str) -> Result<Layer, IngestError> {
+    layer_format(path)
+        .unwrap_or(&GeoJsonLayer)
+        .read(path, name, layer)
 }
 
 fn read_geojson(path: &Path, name: &str) -> Result<Layer, IngestError> {
@@ -461,4 +549,28 @@ pub fn write_point_shapefile(path: &Path, csv_text: &str) -> Result<(), String> 
         "GEOGCS[\"GCS_WGS_1984\",DATUM[\"D_WGS_1984\",SPHEROID[\"WGS_1984\",6378137.0,298.257223563]],PRIMEM[\"Greenwich\",0.0],UNIT[\"Degree\",0.0174532925199433]]",
     )
     .map_err(|e| e.to_string())
+}
+
+#[cfg(test)]
+mod registry_tests {
+    use super::*;
+
+    #[test]
+    fn each_layer_extension_belongs_to_one_format() {
+        let mut seen = std::collections::BTreeSet::new();
+        for f in LAYERS {
+            for e in f.extensions() {
+                assert!(seen.insert(*e), "{e} claimed twice");
+                let p = Path::new("plots").with_extension(e.to_uppercase());
+                assert_eq!(layer_format(&p).map(|g| g.name()), Some(f.name()));
+            }
+        }
+        assert!(layer_format(Path::new("plots.csv")).is_none());
+        assert_eq!(
+            ShapefileLayer.companions(Path::new("a/p.shp"))[1],
+            Path::new("a/p.dbf")
+        );
+        assert!(GeoJsonLayer.companions(Path::new("a/p.geojson")).is_empty());
+        assert!(!GeoJsonLayer.trial_crs_wins() && GeoPackageLayer.trial_crs_wins());
+    }
 }

@@ -10,7 +10,7 @@
 
 use super::{mapped_text, ExportRead, MonitorFormat};
 use crate::config::TrialConfig;
-use crate::ingest::layers::{self, Geometry};
+use crate::ingest::layers::{self, Geometry, LayerFormat};
 use crate::ingest::IngestError;
 use std::path::Path;
 
@@ -80,14 +80,14 @@ fn as_table(
 
 /// The behaviour both point-layer formats share.
 macro_rules! point_layer_format {
-    ($t:ty, $name:literal, $ext:literal, $magic:expr) => {
+    ($t:ty, $name:literal, $layer:expr, $magic:expr) => {
         impl MonitorFormat for $t {
             fn name(&self) -> &'static str {
                 $name
             }
 
             fn extensions(&self) -> &'static [&'static str] {
-                &[$ext]
+                $layer.extensions()
             }
 
             fn records_bound(&self, path: &Path) -> Result<u64, String> {
@@ -98,8 +98,7 @@ macro_rules! point_layer_format {
             }
 
             fn sniff(&self, path: &Path, head: &[u8]) -> bool {
-                path.extension()
-                    .is_some_and(|e| e.eq_ignore_ascii_case($ext))
+                layers::layer_format(path).is_some_and(|f| f.name() == $layer.name())
                     || head.starts_with($magic)
             }
 
@@ -145,14 +144,14 @@ macro_rules! point_layer_format {
 point_layer_format!(
     ShapefilePoints,
     "shapefile_points",
-    "shp",
+    layers::ShapefileLayer,
     &[0x00, 0x00, 0x27, 0x0a]
 );
 // A GeoPackage is an SQLite 3 file.
 point_layer_format!(
     GeoPackagePoints,
     "geopackage_points",
-    "gpkg",
+    layers::GeoPackageLayer,
     b"SQLite format 3\0"
 );
 
