@@ -4,7 +4,7 @@
 //! (points, polygons and multipolygons, with Z and M values dropped), and its CRS from
 //! `gpkg_spatial_ref_sys`.
 
-use super::layers::{Feature, Geometry, Layer};
+use super::layer::{Feature, Geometry, Layer};
 use rusqlite::types::ValueRef;
 use rusqlite::{Connection, OpenFlags};
 use std::path::Path;
@@ -289,12 +289,12 @@ impl Wkb<'_> {
 /// layer `points` in WGS84 lon/lat, for the simulator. The file is new (an existing one is
 /// an error) and its bytes depend only on the table (a fixed `last_change`).
 pub fn write_points(path: &Path, csv_text: &str) -> Result<(), String> {
-    let crate::ingest::layers::PointTable {
+    let crate::ingest::layer::PointTable {
         mut rdr,
         header,
         lonlat: (ilon, ilat),
         attrs,
-    } = crate::ingest::layers::point_table(csv_text)?;
+    } = crate::ingest::layer::point_table(csv_text)?;
     if path.exists() {
         return Err(format!("{} exists", path.display()));
     }

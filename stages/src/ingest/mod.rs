@@ -19,6 +19,7 @@ pub mod design;
 pub mod formats;
 pub mod geojson;
 pub mod geopackage;
+pub mod layer;
 pub mod layers;
 pub mod layout_checks;
 pub mod memory;
