@@ -251,6 +251,7 @@ pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
     let mut touched: Vec<usize> = Vec::new();
     let mut lines = Vec::new();
     let mut new_count = 0;
+    let share = ingest::settings::IngestSettings::default_share();
     for path in &files {
         let name = path
             .file_name()
@@ -260,7 +261,7 @@ pub fn intake(inbox: &Path, season_file: &Path, quiet: bool) -> Result<()> {
         if let Err(e) = ingest::memory::check(
             std::slice::from_ref(path),
             std::slice::from_ref(&name),
-            ingest::settings::IngestSettings::default_share(),
+            share,
             ingest::memory::machine_bytes(),
         ) {
             lines.push(format!("left in the inbox: {e}"));

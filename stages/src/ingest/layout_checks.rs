@@ -35,6 +35,14 @@ pub struct Placed<'a> {
 /// first block's), so the same order read from the other end counts as another order.
 /// Blocks of fewer than three plots are not compared.
 pub fn repeated_orders(plots: &[Placed]) -> Vec<String> {
+    repeated_by_field(plots)
+        .into_iter()
+        .map(|(_, w)| w)
+        .collect()
+}
+
+/// [`repeated_orders`] with the field each warning is about.
+fn repeated_by_field<'a>(plots: &[Placed<'a>]) -> Vec<(&'a str, String)> {
     let mut fields: BTreeMap<&str, BTreeMap<&str, Vec<&Placed>>> = BTreeMap::new();
     for p in plots {
         fields
@@ -93,11 +101,11 @@ pub fn repeated_orders(plots: &[Placed]) -> Vec<String> {
             continue;
         };
         if same.len() >= 2 && 2 * same.len() >= compared {
-            out.push(format!(
+            out.push((field, format!(
                 "field {field}: blocks {} lay out their treatments in one order ({} across the block), so each treatment sits at the same place in every block and a gradient along the blocks is confounded with the treatments; the spatial model separates only part of it. Randomise each block anew",
                 same.join(", "),
                 order.join(", ")
-            ));
+            )));
         }
     }
     out
@@ -105,16 +113,12 @@ pub fn repeated_orders(plots: &[Placed]) -> Vec<String> {
 
 /// Every design warning: [`repeated_orders`], then [`confounded`] for the fields without one.
 pub fn design_warnings(plots: &[Placed]) -> Vec<String> {
-    let mut out = repeated_orders(plots);
-    let flagged: Vec<String> = out
-        .iter()
-        .filter_map(|w| w.strip_prefix("field ").and_then(|r| r.split(':').next()))
-        .map(String::from)
-        .collect();
+    let repeated = repeated_by_field(plots);
     let rest: Vec<&Placed> = plots
         .iter()
-        .filter(|p| !flagged.iter().any(|f| f == p.field))
+        .filter(|p| !repeated.iter().any(|(f, _)| *f == p.field))
         .collect();
+    let mut out: Vec<String> = repeated.into_iter().map(|(_, w)| w).collect();
     out.extend(confounded(&rest));
     out
 }
