@@ -11,7 +11,7 @@ pub fn check(trial: &Path, set: &[String]) -> Result<()> {
     if !t.cfg.inputs.plot_table.is_empty() {
         return check_plot_table(trial, &t);
     }
-    let found = ingest::check(&t.cfg, &t.base);
+    let found = ingest::check(&t.cfg.for_ingest(), &t.base);
     let (read_as, found): (Vec<String>, Vec<String>) =
         found.into_iter().partition(|p| p.starts_with("read: "));
     for r in &read_as {
@@ -56,7 +56,9 @@ fn check_plot_table(trial: &Path, t: &Trial) -> Result<()> {
     let name = &cfg.inputs.plot_table;
     let crop = cfg.crop()?;
     let mut problems = Vec::new();
-    match ingest::plot_table::read_input(cfg, &t.base, name, &crop).and_then(|t| t.usable(name)) {
+    match ingest::plot_table::read_input(&cfg.for_ingest(), &t.base, name, &crop)
+        .and_then(|t| t.usable(name))
+    {
         Err(e) => problems.push(e.to_string()),
         Ok(table) => {
             println!("read: {name}: {}", table.read_as);

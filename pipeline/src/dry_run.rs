@@ -15,7 +15,7 @@ use std::path::Path;
 pub fn front_half(cfg: &TrialConfig, base: &Path) -> Result<(Vec<String>, Vec<String>)> {
     let none = Progress::none();
     let crop = cfg.crop()?;
-    let ing = ingest::run_with(cfg, base, &none)?;
+    let ing = ingest::run_with(&cfg.for_ingest(), base, &none)?;
     let zones = Zones::new(&ing.polygons, &ing.design);
     let cl = clean::run_with(&ing.points, &cfg.clean, &crop, Some(&zones), &none);
     let pl = plots::run(

@@ -209,7 +209,7 @@ fn match_export(path: &Path, bytes: &[u8], trials: &[TrialInfo]) -> Result<Vec<u
     let mut counts = vec![0usize; trials.len()];
     let mut any_mapping = false;
     for (k, t) in trials.iter().enumerate() {
-        let Some(positions) = format.positions(&t.cfg, bytes)? else {
+        let Some(positions) = format.positions(&t.cfg.for_ingest(), bytes)? else {
             continue;
         };
         any_mapping = true;

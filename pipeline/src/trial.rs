@@ -109,7 +109,7 @@ pub(crate) fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
     if !t.cfg.inputs.plot_table.is_empty() {
         paths.push(t.base.join(&t.cfg.inputs.plot_table));
     } else {
-        for p in ingest::monitor_files(&t.cfg, &t.base)? {
+        for p in ingest::monitor_files(&t.cfg.for_ingest(), &t.base)? {
             // A task-data time log: the set's file, and in a folder the log's header and
             // records beside it.
             let (file, log) = ingest::formats::taskdata::split(&p);

@@ -14,7 +14,7 @@ pub use crate::adjust::settings::AdjustSettings;
 pub use crate::clean::settings::CleanSettings;
 use crate::crop::{crop_table, Crop, OutputUnit};
 use crate::defaults::DEFAULTS_TOML;
-pub use crate::ingest::settings::{ColumnsSection, IngestSettings, InputsSection};
+pub use crate::ingest::settings::{ColumnsSection, IngestConfig, IngestSettings, InputsSection};
 pub use crate::plots::settings::PlotsSettings;
 pub use crate::report::ReportSettings;
 use serde::{Deserialize, Serialize};
@@ -123,7 +123,7 @@ pub struct TrialConfig {
     pub report: ReportSettings,
     /// Plot grids, one per field, for trials without a boundary file.
     #[serde(default)]
-    pub layout: Vec<crate::plots::layout::GridLayout>,
+    pub layout: Vec<crate::ingest::grid::GridLayout>,
 }
 
 fn type_name(v: &Value) -> &'static str {
@@ -296,6 +296,23 @@ impl TrialConfig {
         !self.columns.treatment.is_empty() || !self.inputs.prescription.is_empty()
     }
 
+    /// Ingest's settings: its own sections and what it checks its inputs against.
+    pub fn for_ingest(&self) -> IngestConfig {
+        IngestConfig {
+            inputs: self.inputs.clone(),
+            columns: self.columns.clone(),
+            columns_given: self.columns_given,
+            ingest: self.ingest.clone(),
+            layout: self.layout.clone(),
+            check: self.trial.check.clone(),
+            design_mismatch: self.plots.design_mismatch,
+            far_m: self.plots.far_m,
+            row_spacing_m: self.adjust.row_spacing_m,
+            range_spacing_m: self.adjust.range_spacing_m,
+            crop: self.crop().map_err(|e| e.to_string()),
+        }
+    }
+
     /// The design table's name in rejection rows: `inputs.design`, or for plots built from
     /// treatment labels the table ingest writes.
     pub fn design_name(&self) -> String {
@@ -350,6 +367,7 @@ impl TrialConfig {
         }
         self.ingest.problems(&mut p);
         self.clean.problems(&mut p);
+        crate::clean::rules::unknown_disabled(&self.clean.disabled_rules, &mut p);
         self.plots.problems(&mut p);
         self.adjust.problems(&mut p);
         self.report.problems(&mut p);

@@ -73,7 +73,6 @@ fn an_export_too_large_for_this_machine_is_refused_before_it_is_read() {
         .set_len(total_kb * 1024 / 4)
         .unwrap();
     for cmd in ["check", "run"] {
-        let started = std::time::Instant::now();
         let o = plotsieve(&w.0, &[cmd, t.to_str().unwrap(), "--quiet"]);
         assert_eq!(o.status.code(), Some(1), "{cmd}");
         let err = printed(&o);
@@ -83,8 +82,9 @@ fn an_export_too_large_for_this_machine_is_refused_before_it_is_read() {
                 && err.contains("not read"),
             "{cmd}: {err}"
         );
-        // Refused before reading: far quicker than reading gigabytes would be.
-        assert!(started.elapsed().as_secs() < 20, "{cmd}");
+        // Refused before reading: the refusal is the memory check's, not a reader's (the
+        // zeros after the real rows would be refused row by row).
+        assert!(!err.contains("row "), "{cmd}: {err}");
     }
     // A file with no line end in its first 64 KiB (here: all zeros) is no delimited export.
     std::fs::write(&p, vec![0u8; 100_000]).unwrap();

@@ -22,7 +22,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     } else {
         // The analyst's own table fitted directly: every row must be usable.
         let table = plotsieve_stages::ingest::plot_table::read_input(
-            cfg,
+            &cfg.for_ingest(),
             &t.base,
             &cfg.adjust.plot_table,
             crop,

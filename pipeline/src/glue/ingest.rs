@@ -16,7 +16,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     if c.table_entry() {
         return plot_table(c);
     }
-    let o = ingest::run_with(cfg, &t.base, progress)?;
+    let o = ingest::run_with(&cfg.for_ingest(), &t.base, progress)?;
     let utm = plotsieve_stages::projection::Utm::from_epsg(o.points.epsg)?;
     // The stage's files are independent of each other: the point table is written beside
     // the rest.
@@ -49,7 +49,8 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
 fn plot_table(c: &Ctx) -> Result<StageSummary> {
     let cfg = &c.t.cfg;
     let name = &cfg.inputs.plot_table;
-    let t = ingest::plot_table::read_input(cfg, &c.t.base, name, &c.crop)?.usable(name)?;
+    let t = ingest::plot_table::read_input(&cfg.for_ingest(), &c.t.base, name, &c.crop)?
+        .usable(name)?;
     io::write_table(&c.dir.join("plot_table.csv"), &t.plots, &c.unit)?;
     let mut summary = StageSummary::from_rejections("ingest", "plots", t.rows, &t.rejections);
     summary.details.insert(

@@ -83,10 +83,7 @@ pub fn opposite_pairs(pts: &[PairPoint], dist: f64) -> Vec<(usize, usize)> {
     pairs
 }
 
-/// The widest scan, seconds: settings stay within it and widening stops at it (wider than
-/// any delay reported by Beal & Tian 2001 on the positive side; negative lags for exports
-/// already corrected). Common practice, no source.
-pub const WIDEST: (f64, f64) = (-20.0, 40.0);
+pub use super::settings::WIDEST;
 
 /// The lag with the most pairs' agreement (`scan(lo, hi)`: [`estimate`] over `lo..=hi`
 /// by `step`); with `widen`, while

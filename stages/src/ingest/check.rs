@@ -5,9 +5,9 @@
 use super::*;
 
 /// Everything `plotsieve check` can find without writing: returns every problem.
-pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
+pub fn check(cfg: &IngestConfig, base: &Path) -> Vec<String> {
     let mut problems = Vec::new();
-    if let Err(e) = cfg.crop() {
+    if let Err(e) = &cfg.crop {
         problems.push(e.to_string());
     }
     // Every export is read in full, as run would: (name, rows, WGS84 positions read).
@@ -107,7 +107,7 @@ pub fn check(cfg: &TrialConfig, base: &Path) -> Vec<String> {
     if let Ok((p, name)) = &polys {
         if cfg.layout.is_empty() {
             problems.extend(plot_checks::problems(p, name));
-            problems.extend(far_exports(&exports, p, cfg.plots.far_m));
+            problems.extend(far_exports(&exports, p, cfg.far_m));
         }
     }
     if let Ok(d) = &design {

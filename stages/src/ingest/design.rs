@@ -2,7 +2,7 @@
 //! geometry.
 
 use super::IngestError;
-use crate::config::TrialConfig;
+use crate::ingest::settings::IngestConfig;
 use crate::table::{DesignRow, PlotPolygon};
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
@@ -75,7 +75,7 @@ pub fn read_design(path: &Path, name: &str) -> Result<Vec<DesignRow>, IngestErro
 /// one error; with "warn" unmatched plots and design rows are dropped and the problems come
 /// back as warnings (a field without the check stays an error: nothing could be compared).
 pub fn reconcile(
-    cfg: &TrialConfig,
+    cfg: &IngestConfig,
     plots_name: &str,
     polys: Vec<PlotPolygon>,
     design: Vec<DesignRow>,
@@ -117,14 +117,14 @@ pub fn reconcile(
         fields.entry(&d.field).or_default().insert(&d.treatment);
     }
     for (f, ts) in &fields {
-        if !ts.contains(cfg.trial.check.as_str()) {
+        if !ts.contains(cfg.check.as_str()) {
             fatal.push(format!(
                 "{}: field {f} has no plot of the check treatment {:?} (trial.check)",
-                cfg.inputs.design, cfg.trial.check
+                cfg.inputs.design, cfg.check
             ));
         }
     }
-    let warn = cfg.plots.design_mismatch == super::settings::DesignMismatch::Warn;
+    let warn = cfg.design_mismatch == super::settings::DesignMismatch::Warn;
     if !fatal.is_empty() || (!problems.is_empty() && !warn) {
         problems.extend(fatal);
         return Err(IngestError::Mismatch(problems));

@@ -19,6 +19,7 @@ pub mod design;
 pub mod formats;
 pub mod geojson;
 pub mod geopackage;
+pub mod grid;
 pub mod layer;
 pub mod layers;
 pub mod layout_checks;
@@ -37,7 +38,7 @@ pub use design::{read_design, reconcile};
 pub use geojson::read_geojson;
 pub use time::parse_iso8601;
 
-use crate::config::TrialConfig;
+use crate::ingest::settings::IngestConfig;
 use crate::projection::{zone_of, Utm};
 use crate::table::{DesignRow, PlotPolygon, Point, PointSet, Rejection, StageSummary};
 pub use check::check;
@@ -135,7 +136,7 @@ fn by_time_log(p: PathBuf) -> Vec<PathBuf> {
 
 /// The monitor export files named by `inputs.monitor` (folders give every file a format
 /// claims, and the TASKDATA.XML of a task-data folder inside them, sorted).
-pub fn monitor_files(cfg: &TrialConfig, base: &Path) -> Result<Vec<PathBuf>, IngestError> {
+pub fn monitor_files(cfg: &IngestConfig, base: &Path) -> Result<Vec<PathBuf>, IngestError> {
     let mut out = Vec::new();
     for entry in &cfg.inputs.monitor {
         let p = base.join(entry);
@@ -186,7 +187,7 @@ pub fn monitor_files(cfg: &TrialConfig, base: &Path) -> Result<Vec<PathBuf>, Ing
 
 /// The projection the settings ask for, or the zone of the median point.
 pub fn choose_projection(
-    cfg: &TrialConfig,
+    cfg: &IngestConfig,
     lons: &[f64],
     lats: &[f64],
 ) -> Result<Utm, IngestError> {
@@ -230,13 +231,13 @@ fn unread_exports(
 }
 
 /// Run ingest.
-pub fn run(cfg: &TrialConfig, base: &Path) -> Result<IngestOutput, IngestError> {
+pub fn run(cfg: &IngestConfig, base: &Path) -> Result<IngestOutput, IngestError> {
     run_with(cfg, base, &crate::progress::Progress::none())
 }
 
 /// [`run`], reporting each export read to `progress`.
 pub fn run_with(
-    cfg: &TrialConfig,
+    cfg: &IngestConfig,
     base: &Path,
     progress: &crate::progress::Progress,
 ) -> Result<IngestOutput, IngestError> {
@@ -472,7 +473,7 @@ pub fn run_with(
 }
 
 /// Where a trial's treatment labels come from, in words with the setting.
-fn label_source(cfg: &TrialConfig) -> String {
+fn label_source(cfg: &IngestConfig) -> String {
     if cfg.inputs.prescription.is_empty() {
         format!("column {:?}, columns.treatment", cfg.columns.treatment)
     } else {
@@ -485,7 +486,7 @@ fn label_source(cfg: &TrialConfig) -> String {
 
 /// The prescription polygons in WGS84 lon/lat, named by their treatment, checked as plots
 /// are.
-fn read_prescription(cfg: &TrialConfig, base: &Path) -> Result<Vec<PlotPolygon>, IngestError> {
+fn read_prescription(cfg: &IngestConfig, base: &Path) -> Result<Vec<PlotPolygon>, IngestError> {
     let name = &cfg.inputs.prescription;
     let polys = geojson::read_polygon_layer(
         &base.join(name),

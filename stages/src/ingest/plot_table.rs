@@ -23,8 +23,8 @@
 
 use super::layers::{self, Geometry};
 use super::IngestError;
-use crate::config::TrialConfig;
 use crate::crop::{Crop, LB_AC_IN_KG_HA};
+use crate::ingest::settings::IngestConfig;
 use crate::table::PlotStats;
 use crate::table::Rejection;
 use geo::{Centroid, LineString, Polygon};
@@ -97,10 +97,10 @@ pub struct Names<'a> {
 }
 
 impl<'a> Names<'a> {
-    pub fn of(cfg: &'a TrialConfig) -> Names<'a> {
+    pub fn of(cfg: &'a IngestConfig) -> Names<'a> {
         Names {
-            row_spacing: cfg.adjust.row_spacing_m,
-            range_spacing: cfg.adjust.range_spacing_m,
+            row_spacing: cfg.row_spacing_m,
+            range_spacing: cfg.range_spacing_m,
             id_property: &cfg.inputs.plot_id_property,
             yield_property: &cfg.inputs.yield_property,
             yield_unit: &cfg.inputs.yield_unit,
@@ -141,7 +141,7 @@ struct Source {
 /// Read and validate the trial's plot table (`inputs.plot_table`, or `adjust.plot_table` for
 /// `name`): a polygon layer by its extension, else a CSV.
 pub fn read_input(
-    cfg: &TrialConfig,
+    cfg: &IngestConfig,
     base: &Path,
     name: &str,
     crop: &Crop,
@@ -189,7 +189,7 @@ fn csv_source(path: &Path, name: &str) -> Result<Source, IngestError> {
 }
 
 /// A polygon layer's attributes as a table, with each feature's centroid in UTM metres.
-fn layer_source(cfg: &TrialConfig, path: &Path, name: &str) -> Result<Source, IngestError> {
+fn layer_source(cfg: &IngestConfig, path: &Path, name: &str) -> Result<Source, IngestError> {
     let unusable = |message: String| IngestError::Unusable {
         file: name.to_string(),
         message,

@@ -118,7 +118,9 @@ fn hammer(base: &[u8], path: &Path, seed: u64, read: impl Fn(&Path, &[u8])) {
 fn readers_survive_mutated_inputs() {
     let dir = std::env::temp_dir().join(format!("plotsieve-robust-{}", std::process::id()));
     std::fs::create_dir_all(&dir).unwrap();
-    let cfg = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[]).unwrap();
+    let cfg = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[])
+        .unwrap()
+        .for_ingest();
     let export = "t,lon,lat,f,s,w,m\n\
         1790000000,-97.50001,38.20002,10.5,2.1,9.1,17.2\n\
         1790000001,-97.50003,38.20004,10.7,2.2,9.1,17.1\n\

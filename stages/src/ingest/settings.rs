@@ -265,6 +265,54 @@ pub struct IngestSettings {
     pub max_memory_share: f64,
 }
 
+/// What ingest reads of a checked trial configuration: `[inputs]`, `[columns]`, `[ingest]`
+/// and the grid layouts, with the few values of other sections that ingest checks its inputs
+/// against. Built by `TrialConfig::for_ingest` after the whole configuration is validated,
+/// so ingest depends on nothing but its own settings.
+#[derive(Clone, Debug)]
+pub struct IngestConfig {
+    pub inputs: InputsSection,
+    pub columns: ColumnsSection,
+    /// Whether the trial gives a `[columns]` section (see `formats::columns_needed`).
+    pub columns_given: bool,
+    pub ingest: IngestSettings,
+    /// `[[layout]]`: plot grids, one per field, for trials without a boundary file.
+    pub layout: Vec<super::grid::GridLayout>,
+    /// `trial.check`: the check treatment the design must contain.
+    pub check: String,
+    /// `plots.design_mismatch`: how design and geometry that disagree are taken.
+    pub design_mismatch: DesignMismatch,
+    /// `plots.far_m`: `check` warns of exports this far from every plot.
+    pub far_m: f64,
+    /// `adjust.row_spacing_m` and `adjust.range_spacing_m`: a plot table's row and range
+    /// numbers to metres when it has no geometry.
+    pub row_spacing_m: f64,
+    pub range_spacing_m: f64,
+    /// The trial's crop, or why it is not known (`check` lists that problem).
+    pub crop: Result<crate::crop::Crop, String>,
+}
+
+impl IngestConfig {
+    /// Whether the plots and design are built from treatment labels on the records
+    /// (`columns.treatment`, or prescription polygons) rather than read.
+    pub fn plots_from_labels(&self) -> bool {
+        !self.columns.treatment.is_empty() || !self.inputs.prescription.is_empty()
+    }
+
+    /// The crop's bushel weight (lb), NaN when the crop is not known.
+    pub fn bushel_lb(&self) -> f64 {
+        self.crop.as_ref().map(|c| c.bushel_lb).unwrap_or(f64::NAN)
+    }
+
+    /// The crop's standard moisture (%), NaN when the crop is not known.
+    pub fn standard_moisture_pct(&self) -> f64 {
+        self.crop
+            .as_ref()
+            .map(|c| c.standard_moisture_pct)
+            .unwrap_or(f64::NAN)
+    }
+}
+
 impl IngestSettings {
     /// `ingest.max_memory_share` of `config/defaults.toml` (for intake, which reads exports
     /// before it knows their trial).

@@ -11,22 +11,7 @@
 
 use geo::{Contains, LineString, MinimumRotatedRect, Polygon};
 
-/// Signed area of a ring (counterclockwise positive), shoelace formula.
-pub fn signed_area(ring: &[(f64, f64)]) -> f64 {
-    let n = ring.len();
-    if n < 3 {
-        return 0.0;
-    }
-    // Relative to the first vertex: projected coordinates are ~1e6 m, and the plain formula
-    // would lose most of its digits to cancellation.
-    let o = ring[0];
-    let mut s = 0.0;
-    for i in 1..n - 1 {
-        let (a, b) = (ring[i], ring[i + 1]);
-        s += (a.0 - o.0) * (b.1 - o.1) - (b.0 - o.0) * (a.1 - o.1);
-    }
-    0.5 * s
-}
+pub use crate::table::signed_area;
 
 /// Area of `subject` (a simple ring, any orientation, closing point optional) inside the
 /// convex ring `clip`.

@@ -29,7 +29,6 @@
 //! Complexity: O(n log m) for n points and m plots, plus the footprint raster per plot.
 
 pub mod geometry;
-pub mod layout;
 pub mod settings;
 
 pub use crate::table::PlotStats;

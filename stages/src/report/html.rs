@@ -7,14 +7,11 @@
 //! of colour blindness. Every map has a legend and axes in metres.
 
 use super::mean_interval;
-use super::raster;
 pub(crate) use super::svg::{esc, forest, forest_labelled, nice_step, scale, table};
-use super::svg::{quantile, ring_path, Panel, MAX_CIRCLES, OKABE_ITO, PAD_L, PAD_T, PUOR, VIRIDIS};
 use crate::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
 use crate::plots::PlotStats;
 use crate::table::{PlotPolygon, StageSummary};
 use crate::util::fmt;
-use std::collections::BTreeMap;
 use std::fmt::Write as _;
 
 /// A point for the maps: position, yield and the rule that removed it (empty if kept).
@@ -88,8 +85,6 @@ fn decision(s: &mut String, r: &HtmlInput) {
 
 /// Render the report.
 pub fn render(r: &HtmlInput) -> String {
-    let d = r.decimals;
-    let u = r.unit_label;
     let mut s = String::new();
     let _ = write!(s, "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; style-src 'unsafe-inline'; img-src data:\"><title>plotsieve report: {}</title><style>{CSS}</style></head><body>", esc(r.trial_name));
     let _ = write!(
@@ -114,7 +109,21 @@ pub fn render(r: &HtmlInput) -> String {
         let _ = write!(s, "</ul></section>");
     }
     decision(&mut s, r);
-    // Counts per stage.
+    quality(&mut s, r);
+    super::maps::fields(&mut s, r);
+    treatments(&mut s, r);
+    model(&mut s, r);
+    let _ = write!(
+        s,
+        "<footer><p>{}</p></footer></body></html>\n",
+        esc(super::CAUTION)
+    );
+    s
+}
+
+/// Counts per stage, removals by rule and source file, points per export and field, how each
+/// export was read, the delays applied and the settings.
+fn quality(s: &mut String, r: &HtmlInput) {
     let _ = write!(s, "<section><h2>{}</h2><table><thead><tr><th>stage</th><th>counted</th><th>in</th><th>kept</th><th>rejected</th></tr></thead><tbody>", super::heading::COUNTS);
     for x in r.summaries {
         let _ = write!(s, "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", x.stage, x.unit, x.count_in, x.kept, x.rejected);
@@ -194,261 +203,15 @@ pub fn render(r: &HtmlInput) -> String {
     for (stage, rows) in super::settings_by_stage(r.settings) {
         let cells: Vec<Vec<String>> = rows.into_iter().map(|(k, v)| vec![k, v]).collect();
         let _ = write!(s, "<details><summary>{}</summary>", esc(stage));
-        table(
-            &mut s,
-            &["setting".to_string(), "value".to_string()],
-            &cells,
-            2,
-        );
+        table(s, &["setting".to_string(), "value".to_string()], &cells, 2);
         let _ = write!(s, "</details>");
     }
     let _ = write!(s, "</section>");
-    // Maps per field.
-    let mut fields: BTreeMap<&str, Vec<usize>> = BTreeMap::new();
-    let by_id: BTreeMap<&str, &PlotPolygon> =
-        r.polygons.iter().map(|p| (p.plot_id.as_str(), p)).collect();
-    for (i, p) in r.plots.iter().enumerate() {
-        fields.entry(&p.field).or_default().push(i);
-    }
-    let adjusted: BTreeMap<&str, &AdjustedPlot> =
-        r.adjusted.iter().map(|a| (a.plot_id.as_str(), a)).collect();
-    let mut rule_names: BTreeMap<&str, usize> = BTreeMap::new();
-    for p in r.points.iter().filter(|p| !p.rule.is_empty()) {
-        *rule_names.entry(&*p.rule).or_default() += 1;
-    }
-    let mut top_rules: Vec<(&str, usize)> = rule_names.into_iter().collect();
-    top_rules.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(b.0)));
-    let colour_of: BTreeMap<&str, &str> = top_rules
-        .iter()
-        .take(7)
-        .enumerate()
-        .map(|(i, (r, _))| (*r, OKABE_ITO[i]))
-        .collect();
-    // The colour range of the raw map from the records kept through the plots stage (the
-    // removed ones would stretch it), 2nd to 98th percentile.
-    let kept: Vec<f64> = r
-        .points
-        .iter()
-        .filter(|p| p.rule.is_empty())
-        .map(|p| p.yield_unit)
-        .collect();
-    let ys: Vec<f64> = if kept.is_empty() {
-        r.points.iter().map(|p| p.yield_unit).collect()
-    } else {
-        kept
-    };
-    let (ylo, yhi) = (quantile(&ys, 0.02), quantile(&ys, 0.98));
-    let mut by_x: Vec<usize> = (0..r.points.len())
-        .filter(|&i| r.points[i].x.is_finite())
-        .collect();
-    by_x.sort_by(|&a, &b| r.points[a].x.total_cmp(&r.points[b].x));
-    let p_of = |x0: f64, y0: f64, x1: f64, y1: f64| Panel::new(x0, y0, x1, y1, 440.0);
-    for (field, idx) in &fields {
-        let rings: Vec<&PlotPolygon> = idx
-            .iter()
-            .filter_map(|&i| by_id.get(r.plots[i].plot_id.as_str()).copied())
-            .collect();
-        let (mut x0, mut y0, mut x1, mut y1) = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
-        for p in &rings {
-            for &(x, y) in &p.exterior {
-                x0 = x0.min(x);
-                y0 = y0.min(y);
-                x1 = x1.max(x);
-                y1 = y1.max(y);
-            }
-        }
-        if x0 > x1 {
-            continue;
-        }
-        let m = 30.0;
-        let (x0, y0, x1, y1) = (x0 - m, y0 - m, x1 + m, y1 + m);
-        // The records in the field's box (from the points sorted by x), in record order.
-        let from = by_x.partition_point(|&i| r.points[i].x < x0);
-        let to = by_x.partition_point(|&i| r.points[i].x <= x1);
-        let mut inside: Vec<usize> = by_x[from..to]
-            .iter()
-            .copied()
-            .filter(|&i| r.points[i].y >= y0 && r.points[i].y <= y1)
-            .collect();
-        inside.sort_unstable();
-        let pts: Vec<&MapPoint> = inside.iter().map(|&i| &r.points[i]).collect();
-        // Up to MAX_CIRCLES records are drawn one by one; more as a raster of cell means.
-        let raster = (pts.len() > MAX_CIRCLES).then(|| {
-            let panel = p_of(x0, y0, x1, y1);
-            let pos: Vec<(f64, f64)> = pts
-                .iter()
-                .map(|q| (panel.px(q.x) - PAD_L, panel.py(q.y) - PAD_T))
-                .collect();
-            raster::Raster::new(panel.w, panel.h, &pos)
-        });
-        let _ = write!(
-            s,
-            "<section><h2>Field {}</h2><div class=\"maps\">",
-            esc(field)
-        );
-        // Raw points by yield.
-        let p = p_of(x0, y0, x1, y1);
-        // Every plot outline of the field as one path (one element, not one per plot).
-        let outlines: String = rings
-            .iter()
-            .map(|ring| ring_path(&p, &ring.exterior))
-            .collect();
-        match &raster {
-            None => {
-                p.open(
-                    &mut s,
-                    &format!("Field {field}: every record, raw yield ({u})"),
-                );
-                for q in &pts {
-                    let t = (q.yield_unit - ylo) / (yhi - ylo);
-                    let _ = write!(
-                        s,
-                        "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"1.3\" fill=\"{}\"/>",
-                        p.px(q.x),
-                        p.py(q.y),
-                        scale(&VIRIDIS, t)
-                    );
-                }
-            }
-            Some(ras) => {
-                p.open(
-                    &mut s,
-                    &format!(
-                        "Field {field}: every record, raw yield ({u}); {} records, each {:.0}-pixel cell their mean",
-                        pts.len(),
-                        raster::CELL_PX
-                    ),
-                );
-                let png = ras.png(&|idx| {
-                    let mean =
-                        idx.iter().map(|&i| pts[i].yield_unit).sum::<f64>() / idx.len() as f64;
-                    Some(raster::rgb(&scale(&VIRIDIS, (mean - ylo) / (yhi - ylo))))
-                });
-                raster::svg_image(&mut s, &png, PAD_L, PAD_T, p.w, p.h);
-            }
-        }
-        let _ = write!(s, "<path d=\"{outlines}\" class=\"outline\"/>");
-        p.axes(&mut s);
-        p.colourbar(&mut s, &VIRIDIS, ylo, yhi, u, d);
-        let _ = write!(s, "</svg></figure>");
-        // Removed points by rule.
-        p.open(&mut s, &format!("Field {field}: records removed, by rule"));
-        let _ = write!(s, "<path d=\"{outlines}\" class=\"outline\"/>");
-        match &raster {
-            None => {
-                for q in pts.iter().filter(|q| !q.rule.is_empty()) {
-                    let c = colour_of.get(&*q.rule).copied().unwrap_or("#999999");
-                    let _ = write!(
-                        s,
-                        "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"1.6\" fill=\"{c}\"/>",
-                        p.px(q.x),
-                        p.py(q.y)
-                    );
-                }
-            }
-            Some(ras) => {
-                // A cell with removed records takes the colour of its most frequent rule
-                // (ties: the rule first by name).
-                let png = ras.png(&|idx| {
-                    let mut n: BTreeMap<&str, usize> = BTreeMap::new();
-                    for &i in idx.iter().filter(|&&i| !pts[i].rule.is_empty()) {
-                        *n.entry(&*pts[i].rule).or_default() += 1;
-                    }
-                    let top = n.iter().max_by(|a, b| a.1.cmp(b.1).then(b.0.cmp(a.0)))?;
-                    Some(raster::rgb(
-                        colour_of.get(top.0).copied().unwrap_or("#999999"),
-                    ))
-                });
-                raster::svg_image(&mut s, &png, PAD_L, PAD_T, p.w, p.h);
-            }
-        }
-        p.axes(&mut s);
-        let lx = PAD_L + p.w + 12.0;
-        let mut ly = PAD_T + 10.0;
-        for (rule, _) in top_rules.iter().take(7) {
-            let _ = write!(s, "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"4\" fill=\"{}\"/><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\">{}</text>", lx + 4.0, ly - 3.0, colour_of[rule], lx + 12.0, ly, esc(rule));
-            ly += 14.0;
-        }
-        if top_rules.len() > 7 {
-            let _ = write!(s, "<circle cx=\"{:.1}\" cy=\"{:.1}\" r=\"4\" fill=\"#999999\"/><text x=\"{:.1}\" y=\"{:.1}\" class=\"tl\">other rules</text>", lx + 4.0, ly - 3.0, lx + 12.0, ly);
-        }
-        let _ = write!(s, "</svg></figure>");
-        // Plot maps: raw means, spatial trend, adjusted means.
-        let vals = |f: &dyn Fn(&PlotStats) -> Option<f64>| -> Vec<(usize, f64)> {
-            idx.iter()
-                .filter_map(|&i| f(&r.plots[i]).filter(|v| v.is_finite()).map(|v| (i, v)))
-                .collect()
-        };
-        let raw = vals(&|pl| (pl.status == "kept").then_some(pl.yield_mean));
-        let trend = vals(&|pl| adjusted.get(pl.plot_id.as_str()).map(|a| a.spatial_mean));
-        let adj = vals(&|pl| adjusted.get(pl.plot_id.as_str()).map(|a| a.adjusted));
-        let both: Vec<f64> = raw.iter().chain(adj.iter()).map(|v| v.1).collect();
-        let (plo, phi) = (quantile(&both, 0.0), quantile(&both, 1.0));
-        let tmax = trend
-            .iter()
-            .map(|v| v.1.abs())
-            .fold(0.0, f64::max)
-            .max(1e-9);
-        for (title, values, anchors, lo, hi, label) in [
-            (
-                format!("Field {field}: plot raw means ({u})"),
-                &raw,
-                &VIRIDIS[..],
-                plo,
-                phi,
-                u.to_string(),
-            ),
-            (
-                format!("Field {field}: estimated spatial trend ({u})"),
-                &trend,
-                &PUOR[..],
-                -tmax,
-                tmax,
-                format!("{u}, +/-"),
-            ),
-            (
-                format!("Field {field}: spatially adjusted plot means ({u})"),
-                &adj,
-                &VIRIDIS[..],
-                plo,
-                phi,
-                u.to_string(),
-            ),
-        ] {
-            p.open(&mut s, &title);
-            for &(i, v) in values.iter() {
-                if let Some(ring) = by_id.get(r.plots[i].plot_id.as_str()) {
-                    let t = (v - lo) / (hi - lo);
-                    let _ = write!(
-                        s,
-                        "<path d=\"{}\" fill=\"{}\" class=\"plot\"><title>{} {}: {}</title></path>",
-                        ring_path(&p, &ring.exterior),
-                        scale(anchors, t),
-                        esc(&r.plots[i].plot_id),
-                        esc(&r.plots[i].treatment),
-                        fmt(v, d)
-                    );
-                }
-            }
-            for &i in idx {
-                if !values.iter().any(|v| v.0 == i) {
-                    if let Some(ring) = by_id.get(r.plots[i].plot_id.as_str()) {
-                        let _ = write!(
-                            s,
-                            "<path d=\"{}\" class=\"missing\"><title>{}: set aside</title></path>",
-                            ring_path(&p, &ring.exterior),
-                            esc(&r.plots[i].plot_id)
-                        );
-                    }
-                }
-            }
-            p.axes(&mut s);
-            p.colourbar(&mut s, anchors, lo, hi, &label, d);
-            let _ = write!(s, "</svg></figure>");
-        }
-        let _ = write!(s, "</div><p class=\"note\">Grey dashed plots were set aside or not adjusted. Maps are in the projected CRS, metres from the map's lower-left corner.</p></section>");
-    }
-    // Treatment table and forest plot.
+}
+
+/// The treatment table per field, the forest of every field and the new-field predictions.
+fn treatments(s: &mut String, r: &HtmlInput) {
+    let (d, u) = (r.decimals, r.unit_label);
     let _ = write!(
         s,
         "<section><h2>{}</h2>",
@@ -525,7 +288,7 @@ pub fn render(r: &HtmlInput) -> String {
             grouped.extend(r.treatments.iter().filter(|t| t.uplift.is_finite()));
         }
         forest_labelled(
-            &mut s,
+            s,
             &grouped,
             u,
             "Each product pooled over the fields (blue, first) and in each field (grey): uplift over the check with its 95 % interval",
@@ -556,7 +319,12 @@ pub fn render(r: &HtmlInput) -> String {
         let _ = write!(s, "</tbody></table>");
     }
     let _ = write!(s, "</section>");
-    // Spatial model.
+}
+
+/// The spatial model per field, random design factors and the comparison without the
+/// spatial field.
+fn model(s: &mut String, r: &HtmlInput) {
+    let (d, u) = (r.decimals, r.unit_label);
     let _ = write!(s, "<section><h2>{}</h2><p class=\"note\">Posterior means with 95 % intervals. Row <code>all</code> of a joint fit holds the shared range and the SD of the treatment &times; field interaction.</p><table><thead><tr><th>field</th><th>plots</th><th>range (m)</th><th>spatial SD ({u})</th><th>noise SD ({u})</th><th>spatial share</th><th>interaction SD ({u})</th><th>method</th><th>note</th></tr></thead><tbody>", super::heading::SPATIAL);
     let ci = mean_interval;
     for h in r.hyper {
@@ -601,12 +369,6 @@ pub fn render(r: &HtmlInput) -> String {
         let _ = write!(s, "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>", esc(&c.field), fmt(c.log_ml_spatial, 2), fmt(c.log_ml_without_spatial, 2), fmt(c.efficiency, 2), fmt(c.moran_without_spatial, 3), fmt(c.moran_spatial, 3), fmt(c.rank_correlation, 2), fmt(c.top_overlap, 2));
     }
     let _ = write!(s, "</tbody></table></section>");
-    let _ = write!(
-        s,
-        "<footer><p>{}</p></footer></body></html>\n",
-        esc(super::CAUTION)
-    );
-    s
 }
 
 pub(crate) const CSS: &str = "body{font:14px/1.45 system-ui,sans-serif;margin:0 auto;max-width:1500px;padding:0 24px 40px;color:#1d2528;background:#fbfaf6}\
@@ -621,6 +383,7 @@ svg text{font:11px system-ui,sans-serif;fill:#1d2528}.al{font-size:11px;fill:#3d
 
 #[cfg(test)]
 mod tests {
+    use super::super::svg::{PUOR, VIRIDIS};
     use super::*;
 
     #[test]

@@ -684,6 +684,7 @@ pub(crate) fn mean_interval(m: f64, lo: f64, hi: f64, k: usize) -> String {
 }
 
 pub mod html;
+mod maps;
 pub mod raster;
 pub mod season;
 pub mod svg;

@@ -68,6 +68,20 @@ pub fn names() -> Vec<&'static str> {
     RULES.iter().map(|r| r.name()).collect()
 }
 
+/// `clean.disabled_rules` entries that name no rule, each a problem listing the rules (checked
+/// here, not with the other settings, which know no rule).
+pub fn unknown_disabled(disabled: &[String], p: &mut Vec<String>) {
+    let names = names();
+    for r in disabled {
+        if !names.contains(&r.as_str()) {
+            p.push(format!(
+                "clean.disabled_rules: unknown rule {r:?} (rules: {})",
+                names.join(", ")
+            ));
+        }
+    }
+}
+
 /// A cleaning rule.
 pub trait Rule: Sync {
     /// The name used in `rejected.csv`, the summaries and `clean.disabled_rules`.

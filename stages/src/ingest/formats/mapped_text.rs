@@ -6,7 +6,7 @@
 //! `negative_value`.
 
 use super::{reject, unreadable_row, ExportRead, MonitorFormat, RawPoint};
-use crate::config::TrialConfig;
+use crate::ingest::settings::IngestConfig;
 use crate::ingest::settings::{FlowUnit, SpeedUnit, TimeFormat, WidthUnit, YieldBasis};
 use crate::ingest::time::parse_date_time;
 use crate::ingest::{parse_iso8601, IngestError};
@@ -65,7 +65,7 @@ enum Amount {
 }
 
 fn column_index(
-    cfg: &TrialConfig,
+    cfg: &IngestConfig,
     header: &csv::StringRecord,
     file: &str,
 ) -> Result<ColumnIndex, IngestError> {
@@ -105,9 +105,7 @@ fn column_index(
         Some(y) => (
             find(&y.name, "yield.name")?,
             Amount::Yield {
-                per_unit: y
-                    .unit
-                    .kg_ha_per_unit(cfg.crop().map(|c| c.bushel_lb).unwrap_or(f64::NAN)),
+                per_unit: y.unit.kg_ha_per_unit(cfg.bushel_lb()),
                 wet: y.basis == YieldBasis::Wet,
             },
         ),
@@ -179,7 +177,7 @@ pub(crate) fn width_factor(u: WidthUnit) -> f64 {
 }
 
 /// The CRS of the coordinate columns (None: WGS84 lon/lat).
-fn input_crs(cfg: &TrialConfig) -> Result<Option<crate::projection::Crs>, String> {
+fn input_crs(cfg: &IngestConfig) -> Result<Option<crate::projection::Crs>, String> {
     if cfg.inputs.crs.is_empty() {
         return Ok(None);
     }
@@ -201,7 +199,7 @@ fn number(text: &str, comma: bool) -> Option<f64> {
 
 /// Read one export: good rows to points, unreadable ones to rejections.
 fn read_export(
-    cfg: &TrialConfig,
+    cfg: &IngestConfig,
     path: &Path,
     name: &str,
     file_idx: u32,
@@ -214,7 +212,7 @@ fn read_export(
 /// Read the records of a delimited table already opened (for formats that hand their records
 /// to this reader as a table: the mapping, units and checks are this format's).
 pub(super) fn read_records<R: std::io::Read>(
-    cfg: &TrialConfig,
+    cfg: &IngestConfig,
     mut rdr: csv::Reader<R>,
     header: csv::StringRecord,
     name: &str,
@@ -236,10 +234,7 @@ pub(super) fn read_records<R: std::io::Read>(
         message,
     })?;
     let wf = width_factor(c.width.unit);
-    let standard = cfg
-        .crop()
-        .map(|c| c.standard_moisture_pct)
-        .unwrap_or(f64::NAN);
+    let standard = cfg.standard_moisture_pct();
     let amount_name = match &c.yield_col {
         Some(y) => y.name.as_str(),
         None => c.flow.name.as_str(),
@@ -593,11 +588,11 @@ impl MonitorFormat for MappedText {
         true
     }
 
-    fn describe(&self, cfg: &TrialConfig) -> String {
+    fn describe(&self, cfg: &IngestConfig) -> String {
         super::mapping_words::describe(cfg)
     }
 
-    fn check(&self, cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String> {
+    fn check(&self, cfg: &IngestConfig, path: &Path, name: &str) -> Result<(), String> {
         let rdr = csv::ReaderBuilder::new()
             .delimiter(cfg.columns.delimiter.as_bytes()[0])
             .flexible(true)
@@ -615,7 +610,7 @@ impl MonitorFormat for MappedText {
 
     fn read(
         &self,
-        cfg: &TrialConfig,
+        cfg: &IngestConfig,
         path: &Path,
         name: &str,
         file: u32,
@@ -625,7 +620,7 @@ impl MonitorFormat for MappedText {
 
     fn positions(
         &self,
-        cfg: &TrialConfig,
+        cfg: &IngestConfig,
         bytes: &[u8],
     ) -> Result<Option<Vec<(f64, f64)>>, String> {
         let c = &cfg.columns;

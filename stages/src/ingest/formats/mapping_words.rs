@@ -1,7 +1,7 @@
 //! The trial's `[columns]` mapping in words, as `check`, the ingest summary and the reports
 //! show how an export was read.
 
-use crate::config::TrialConfig;
+use crate::ingest::settings::IngestConfig;
 use crate::ingest::settings::{TimeFormat, YieldBasis};
 
 /// A unit or order as the trial file spells it (`lb_s`, `mph`, `dmy`).
@@ -13,7 +13,7 @@ fn spelled<U: serde::Serialize>(u: &U) -> String {
 }
 
 /// How the mapping reads an export, in words (for `check` and the ingest summary).
-pub(crate) fn describe(cfg: &TrialConfig) -> String {
+pub(crate) fn describe(cfg: &IngestConfig) -> String {
     let c = &cfg.columns;
     let mut parts = vec![format!(
         "delimiter {:?}, decimal {:?}",

@@ -15,7 +15,7 @@ mod point_layers;
 pub mod taskdata;
 
 use super::IngestError;
-use crate::config::TrialConfig;
+use crate::ingest::settings::IngestConfig;
 use crate::table::Rejection;
 use std::io::Read;
 use std::path::Path;
@@ -52,21 +52,21 @@ pub trait MonitorFormat: Sync {
     fn sniff(&self, path: &Path, head: &[u8]) -> bool;
     /// How this format reads an export under the trial's settings (the mapping, units and
     /// any fixed values standing in for missing columns), in words.
-    fn describe(&self, cfg: &TrialConfig) -> String;
+    fn describe(&self, cfg: &IngestConfig) -> String;
     /// How this format reads the export at `path` (by default [`MonitorFormat::describe`];
     /// a format whose mapping comes from the file itself says what it found there).
-    fn describe_file(&self, cfg: &TrialConfig, path: &Path) -> String {
+    fn describe_file(&self, cfg: &IngestConfig, path: &Path) -> String {
         let _ = path;
         self.describe(cfg)
     }
     /// What can be checked without reading every record (readable, header, mapped columns);
     /// `Err` is the problem, naming the file.
-    fn check(&self, cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String>;
+    fn check(&self, cfg: &IngestConfig, path: &Path, name: &str) -> Result<(), String>;
     /// Read every record. `name` is the file as the trial names it (for rejection rows and
     /// errors), `file` its index among the trial's exports.
     fn read(
         &self,
-        cfg: &TrialConfig,
+        cfg: &IngestConfig,
         path: &Path,
         name: &str,
         file: u32,
@@ -82,8 +82,11 @@ pub trait MonitorFormat: Sync {
     /// WGS84 (lon, lat) of every record that has one, from the export's bytes, for matching
     /// exports to trials. `Ok(None)`: the trial's mapping does not fit this export; `Err`:
     /// the export is cut short or unreadable (the reason).
-    fn positions(&self, cfg: &TrialConfig, bytes: &[u8])
-        -> Result<Option<Vec<(f64, f64)>>, String>;
+    fn positions(
+        &self,
+        cfg: &IngestConfig,
+        bytes: &[u8],
+    ) -> Result<Option<Vec<(f64, f64)>>, String>;
 }
 
 /// A record read to SI units, before projection.
@@ -196,7 +199,7 @@ pub fn is_export(path: &Path) -> bool {
 /// Without a `[columns]` section, the problems of the empty mapping when some export is read
 /// through it (named by the first such export), else none.
 pub fn columns_needed(
-    cfg: &TrialConfig,
+    cfg: &IngestConfig,
     files: &[std::path::PathBuf],
     names: &[String],
 ) -> Result<(), IngestError> {
@@ -471,7 +474,9 @@ mod tests {
 
     #[test]
     fn text_exports_go_to_the_mapped_reader_and_positions_follow_the_mapping() {
-        let cfg = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[]).unwrap();
+        let cfg = TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[])
+            .unwrap()
+            .for_ingest();
         let bytes = b"t,lon,lat,f,s,w,m\n1,-97.5,38.2,1,2,9,15\n2,-97.6,38.3,1,2,9,15\n";
         let f = for_bytes(Path::new("a.csv"), bytes);
         assert_eq!(f.name(), "mapped_text");

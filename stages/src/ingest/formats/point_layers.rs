@@ -9,8 +9,8 @@
 //! records were the lines of a table under a header.
 
 use super::{mapped_text, ExportRead, MonitorFormat};
-use crate::config::TrialConfig;
 use crate::ingest::layers::{self, Geometry, LayerFormat};
+use crate::ingest::settings::IngestConfig;
 use crate::ingest::IngestError;
 use std::path::Path;
 
@@ -28,10 +28,10 @@ const Y: &str = "__shape_y";
 /// trial settings that read it: positions from the geometry, in the file's CRS when the
 /// trial names none.
 fn as_table(
-    cfg: &TrialConfig,
+    cfg: &IngestConfig,
     path: &Path,
     name: &str,
-) -> Result<(Vec<u8>, TrialConfig), IngestError> {
+) -> Result<(Vec<u8>, IngestConfig), IngestError> {
     let unusable = |message: String| IngestError::Unusable {
         file: name.to_string(),
         message,
@@ -102,7 +102,7 @@ macro_rules! point_layer_format {
                     || head.starts_with($magic)
             }
 
-            fn describe(&self, cfg: &TrialConfig) -> String {
+            fn describe(&self, cfg: &IngestConfig) -> String {
                 let mut c = cfg.clone();
                 c.columns.longitude = "(the geometry's x".into();
                 c.columns.latitude = "y)".into();
@@ -112,7 +112,7 @@ macro_rules! point_layer_format {
                 )
             }
 
-            fn check(&self, cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String> {
+            fn check(&self, cfg: &IngestConfig, path: &Path, name: &str) -> Result<(), String> {
                 as_table(cfg, path, name)
                     .map(|_| ())
                     .map_err(|e| e.to_string())
@@ -120,7 +120,7 @@ macro_rules! point_layer_format {
 
             fn read(
                 &self,
-                cfg: &TrialConfig,
+                cfg: &IngestConfig,
                 path: &Path,
                 name: &str,
                 file: u32,
@@ -130,7 +130,7 @@ macro_rules! point_layer_format {
 
             fn positions(
                 &self,
-                _cfg: &TrialConfig,
+                _cfg: &IngestConfig,
                 _bytes: &[u8],
             ) -> Result<Option<Vec<(f64, f64)>>, String> {
                 // Intake matches delimited exports only.
@@ -155,7 +155,7 @@ point_layer_format!(
     b"SQLite format 3\0"
 );
 
-fn read(cfg: &TrialConfig, path: &Path, name: &str, file: u32) -> Result<ExportRead, IngestError> {
+fn read(cfg: &IngestConfig, path: &Path, name: &str, file: u32) -> Result<ExportRead, IngestError> {
     let (bytes, c) = as_table(cfg, path, name)?;
     let mut rdr = csv::ReaderBuilder::new()
         .flexible(true)

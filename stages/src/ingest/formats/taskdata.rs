@@ -41,7 +41,7 @@ pub use files::{MAX_INFLATION, MAX_MEMBER_BYTES, MAX_TOTAL_BYTES};
 pub use write::write_set;
 
 use super::{reject, ExportRead, MonitorFormat, RawPoint};
-use crate::config::TrialConfig;
+use crate::ingest::settings::IngestConfig;
 use crate::ingest::IngestError;
 use std::collections::BTreeMap;
 use std::path::Path;
@@ -426,13 +426,13 @@ fn read_log(
 
 /// The swath a log without a working width falls back to: `columns.width.value` (in
 /// `columns.width.unit`), else NaN (and the rules that need a width are skipped).
-fn fixed_width_m(cfg: &TrialConfig) -> f64 {
+fn fixed_width_m(cfg: &IngestConfig) -> f64 {
     let w = &cfg.columns.width;
     w.value.unwrap_or(f64::NAN) * super::mapped_text::width_factor(w.unit)
 }
 
 /// The whole task data read (records = points + rejections), or why it cannot be.
-fn read_all(cfg: &TrialConfig, path: &Path, name: &str, file: u32) -> Result<ExportRead, String> {
+fn read_all(cfg: &IngestConfig, path: &Path, name: &str, file: u32) -> Result<ExportRead, String> {
     let (path, only) = split(path);
     let files = Files::open(&path)?;
     let (mut logs, _) = tasks(&text(files.get("TASKDATA.XML")?, "TASKDATA.XML")?)?;
@@ -445,10 +445,7 @@ fn read_all(cfg: &TrialConfig, path: &Path, name: &str, file: u32) -> Result<Exp
     if logs.is_empty() {
         return Err("TASKDATA.XML: no task has a time log (TLG)".into());
     }
-    let standard = cfg
-        .crop()
-        .map(|c| c.standard_moisture_pct)
-        .unwrap_or(f64::NAN);
+    let standard = cfg.standard_moisture_pct();
     let fixed_width = fixed_width_m(cfg);
     let mut out = ExportRead::default();
     for l in &logs {
@@ -471,7 +468,7 @@ fn read_all(cfg: &TrialConfig, path: &Path, name: &str, file: u32) -> Result<Exp
 }
 
 /// What each time log maps, in words.
-fn mapping(cfg: &TrialConfig, path: &Path) -> Result<Vec<String>, String> {
+fn mapping(cfg: &IngestConfig, path: &Path) -> Result<Vec<String>, String> {
     let (path, only) = split(path);
     let files = Files::open(&path)?;
     let (logs, dets) = tasks(&text(files.get("TASKDATA.XML")?, "TASKDATA.XML")?)?;
@@ -549,10 +546,10 @@ impl MonitorFormat for TaskData {
             && (head.starts_with(b"PK\x03\x04")
                 || String::from_utf8_lossy(head).contains("ISO11783_TaskData"))
     }
-    fn describe(&self, _cfg: &TrialConfig) -> String {
+    fn describe(&self, _cfg: &IngestConfig) -> String {
         "ISO 11783-10 task data: every task's binary time logs; mass flow from DDI 0057 (mg/s), else yield from 0054 (wet, mg/m2) or 00B5 (dry, mg/m2); moisture 0063 (ppm), width 0043 (mm), speed 018D (mm/s), work state 008D; positions WGS 84; [columns] is not used".into()
     }
-    fn describe_file(&self, cfg: &TrialConfig, path: &Path) -> String {
+    fn describe_file(&self, cfg: &IngestConfig, path: &Path) -> String {
         match mapping(cfg, path) {
             Ok(m) => format!(
                 "ISO 11783-10 task data, {}; positions WGS 84; [columns] is not used",
@@ -574,14 +571,14 @@ impl MonitorFormat for TaskData {
         };
         Ok(size / MIN_RECORD_BYTES + 1)
     }
-    fn check(&self, cfg: &TrialConfig, path: &Path, name: &str) -> Result<(), String> {
+    fn check(&self, cfg: &IngestConfig, path: &Path, name: &str) -> Result<(), String> {
         mapping(cfg, path)
             .map(|_| ())
             .map_err(|e| format!("{name}: {e}"))
     }
     fn read(
         &self,
-        cfg: &TrialConfig,
+        cfg: &IngestConfig,
         path: &Path,
         name: &str,
         file: u32,
@@ -593,7 +590,7 @@ impl MonitorFormat for TaskData {
     }
     fn positions(
         &self,
-        _cfg: &TrialConfig,
+        _cfg: &IngestConfig,
         bytes: &[u8],
     ) -> Result<Option<Vec<(f64, f64)>>, String> {
         // Intake takes a zipped set (its time logs travel with it).
@@ -617,7 +614,7 @@ impl MonitorFormat for TaskData {
 }
 
 /// The mapping `check` prints for a task-data export.
-pub fn describe_file(cfg: &TrialConfig, path: &Path) -> Result<Vec<String>, String> {
+pub fn describe_file(cfg: &IngestConfig, path: &Path) -> Result<Vec<String>, String> {
     mapping(cfg, path)
 }
 

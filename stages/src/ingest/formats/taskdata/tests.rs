@@ -28,8 +28,10 @@ fn fixture_copy(tag: &str, files: &[&str]) -> PathBuf {
     dir
 }
 
-fn cfg() -> TrialConfig {
-    TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[]).unwrap()
+fn cfg() -> crate::ingest::settings::IngestConfig {
+    TrialConfig::from_toml(TEST_TRIAL, "t.toml", &[])
+        .unwrap()
+        .for_ingest()
 }
 
 /// Checks our reading of `path` against the golden records: every record, in order, with

@@ -87,7 +87,7 @@ impl GridLayout {
                     .iter()
                     .map(|&(u, v)| at(u, v))
                     .collect();
-                if super::geometry::signed_area(&ring) < 0.0 {
+                if crate::table::signed_area(&ring) < 0.0 {
                     ring.reverse();
                 }
                 let number = if self.numbering == Numbering::Serpentine && r % 2 == 1 {
@@ -150,7 +150,7 @@ mod tests {
         assert_eq!(bbox(3), [1012.0, 1022.0, 4994.0, 4997.0]);
         assert!(
             p.iter()
-                .all(|q| super::super::geometry::signed_area(&q.exterior) > 0.0),
+                .all(|q| crate::table::signed_area(&q.exterior) > 0.0),
             "counterclockwise"
         );
     }
