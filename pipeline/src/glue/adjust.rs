@@ -6,7 +6,7 @@ use crate::io;
 use anyhow::{bail, Result};
 use plotsieve_stages::adjust;
 use plotsieve_stages::adjust::priors::PriorsFile;
-use plotsieve_stages::table::{Rejection, StageSummary};
+use plotsieve_stages::table::{PlotStats, Rejection, StageSummary};
 
 /// Run the stage against the run folder.
 pub fn run(c: &Ctx) -> Result<StageSummary> {
@@ -44,30 +44,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let mut s = cfg
         .adjust
         .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb);
-    let mut carried = None;
-    if !cfg.adjust.priors_from.is_empty() {
-        let name = &cfg.adjust.priors_from;
-        let path = t.base.join(name);
-        let text = std::fs::read_to_string(&path)
-            .map_err(|e| anyhow::anyhow!("{name} (adjust.priors_from): {e}"))?;
-        let file = PriorsFile::parse(&text, name).map_err(anyhow::Error::msg)?;
-        let (priors, said) = file
-            .priors_for(
-                name,
-                &cfg.trial.crop,
-                &cfg.trial.check,
-                cfg.adjust.priors_widen,
-                cfg.adjust.priors_sd,
-                &s.product_prior,
-            )
-            .map_err(anyhow::Error::msg)?;
-        s.product_prior = priors;
-        let (_, sha256) = crate::trial::sha256_file(&path)?;
-        carried = Some(serde_json::json!({
-            "file": name, "sha256": sha256, "widen": cfg.adjust.priors_widen,
-            "sd": cfg.adjust.priors_sd.as_str(), "taken": said,
-        }));
-    }
+    let carried = carry_priors(t, &mut s)?;
     let mut o = adjust::run_with(&plots, &s, progress)?;
     if !o.missing_fields.is_empty() {
         if !cfg.adjust.allow_missing_fields {
@@ -98,8 +75,76 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             &o.hyper,
         ),
     )?;
-    // Stage one of a season fit: each field's contrasts, with the field's centre in WGS 84
-    // where the run knows its projection.
+    write_contrasts(c, &o, &plots)?;
+    // Kept plots of fields that could not be fitted are this stage's rejections.
+    let fitted: std::collections::BTreeSet<&str> =
+        o.hyper.iter().map(|h| h.field.as_str()).collect();
+    let rejections: Vec<Rejection> = plots
+        .iter()
+        .filter(|p| p.status == "kept" && !fitted.contains(p.field.as_str()))
+        .map(|p| Rejection {
+            source_file: "3-plots/plots.csv".into(),
+            source_row: 0,
+            id: p.plot_id.clone(),
+            rule: "field_not_fitted".into(),
+            column: "field".into(),
+            value: p.field.clone(),
+            limit: "a field with a check, two or more treatments and varying yields".into(),
+        })
+        .collect();
+    let kept_in = plots.iter().filter(|p| p.status == "kept").count() as u64;
+    let mut summary = StageSummary::from_rejections("adjust", "plots", kept_in, &rejections);
+    summary.set_warnings(&o.warnings);
+    if let Some(c) = carried {
+        summary.details.insert("priors_from".into(), c);
+    }
+    if o.joint_ess.is_finite() {
+        summary.details.insert(
+            "joint_effective_draws".into(),
+            serde_json::json!((o.joint_ess * 10.0).round() / 10.0),
+        );
+    }
+    write_stage_tables(&dir, &rejections, &summary)?;
+    Ok(summary)
+}
+
+/// `adjust.priors_from`: the earlier trial's priors taken into `s`, and what was taken (for
+/// the summary); None without the setting.
+fn carry_priors(
+    t: &crate::trial::Trial,
+    s: &mut adjust::FitSettings,
+) -> Result<Option<serde_json::Value>> {
+    let cfg = &t.cfg;
+    if cfg.adjust.priors_from.is_empty() {
+        return Ok(None);
+    }
+    let name = &cfg.adjust.priors_from;
+    let path = t.base.join(name);
+    let text = std::fs::read_to_string(&path)
+        .map_err(|e| anyhow::anyhow!("{name} (adjust.priors_from): {e}"))?;
+    let file = PriorsFile::parse(&text, name).map_err(anyhow::Error::msg)?;
+    let (priors, said) = file
+        .priors_for(
+            name,
+            &cfg.trial.crop,
+            &cfg.trial.check,
+            cfg.adjust.priors_widen,
+            cfg.adjust.priors_sd,
+            &s.product_prior,
+        )
+        .map_err(anyhow::Error::msg)?;
+    s.product_prior = priors;
+    let (_, sha256) = crate::trial::sha256_file(&path)?;
+    Ok(Some(serde_json::json!({
+        "file": name, "sha256": sha256, "widen": cfg.adjust.priors_widen,
+        "sd": cfg.adjust.priors_sd.as_str(), "taken": said,
+    })))
+}
+
+/// Stage one of a season fit: each field's contrasts, with the field's centre in WGS 84
+/// where the run knows its projection.
+fn write_contrasts(c: &Ctx, o: &adjust::AdjustOutput, plots: &[PlotStats]) -> Result<()> {
+    let (cfg, dir) = (&c.t.cfg, &c.dir);
     let utm = c
         .epsg()
         .ok()
@@ -134,34 +179,5 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             fields,
         },
     )?;
-    // Kept plots of fields that could not be fitted are this stage's rejections.
-    let fitted: std::collections::BTreeSet<&str> =
-        o.hyper.iter().map(|h| h.field.as_str()).collect();
-    let rejections: Vec<Rejection> = plots
-        .iter()
-        .filter(|p| p.status == "kept" && !fitted.contains(p.field.as_str()))
-        .map(|p| Rejection {
-            source_file: "3-plots/plots.csv".into(),
-            source_row: 0,
-            id: p.plot_id.clone(),
-            rule: "field_not_fitted".into(),
-            column: "field".into(),
-            value: p.field.clone(),
-            limit: "a field with a check, two or more treatments and varying yields".into(),
-        })
-        .collect();
-    let kept_in = plots.iter().filter(|p| p.status == "kept").count() as u64;
-    let mut summary = StageSummary::from_rejections("adjust", "plots", kept_in, &rejections);
-    summary.set_warnings(&o.warnings);
-    if let Some(c) = carried {
-        summary.details.insert("priors_from".into(), c);
-    }
-    if o.joint_ess.is_finite() {
-        summary.details.insert(
-            "joint_effective_draws".into(),
-            serde_json::json!((o.joint_ess * 10.0).round() / 10.0),
-        );
-    }
-    write_stage_tables(&dir, &rejections, &summary)?;
-    Ok(summary)
+    Ok(())
 }

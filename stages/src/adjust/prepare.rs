@@ -70,30 +70,7 @@ pub fn prepare<'a>(
         ));
     }
     // Columns: intercept (the check), one contrast per product, sum-to-zero blocks.
-    let mut x = vec![0.0; n * p];
-    for (i, pl) in plots.iter().enumerate() {
-        let row = &mut x[i * p..(i + 1) * p];
-        row[0] = 1.0;
-        let t = treatments
-            .iter()
-            .position(|t| *t == pl.treatment)
-            .unwrap_or(0);
-        if t > 0 {
-            row[t] = 1.0;
-        }
-        if blocks.len() > 1 {
-            let b = blocks.iter().position(|b| *b == pl.block).unwrap_or(0);
-            for j in 1..blocks.len() {
-                row[nt + j - 1] = if b == j {
-                    1.0
-                } else if b == 0 {
-                    -1.0
-                } else {
-                    0.0
-                };
-            }
-        }
-    }
+    let x = fixed_columns(&plots, &treatments, &blocks, p);
     // Kernel axes: the plot grid's own (along, across) when they matter and are known
     // (anisotropy; the reduced-rank basis's box), else projected x/y (distances are equal).
     let grid = (s.anisotropic || n > s.exact_max_plots)
@@ -110,34 +87,7 @@ pub fn prepare<'a>(
             }
         })
         .collect();
-    let mut dmin = f64::INFINITY;
-    let mut dmax: f64 = 0.0;
-    let mut amin = [f64::INFINITY; 2];
-    for i in 0..n {
-        for j in i + 1..n {
-            let (a, b) = (coords[i], coords[j]);
-            let d = ((a.0 - b.0).powi(2) + (a.1 - b.1).powi(2)).sqrt();
-            if d > 0.0 {
-                dmin = dmin.min(d);
-            }
-            dmax = dmax.max(d);
-        }
-    }
-    for i in 0..n {
-        for j in i + 1..n {
-            for (k, dk) in [
-                (coords[i].0 - coords[j].0).abs(),
-                (coords[i].1 - coords[j].1).abs(),
-            ]
-            .into_iter()
-            .enumerate()
-            {
-                if dk > 0.25 * dmin {
-                    amin[k] = amin[k].min(dk);
-                }
-            }
-        }
-    }
+    let (dmin, dmax, amin) = spacing(&coords);
     if !dmin.is_finite() {
         return Err(format!("field {field}: all plots share one position"));
     }
@@ -202,6 +152,77 @@ pub fn prepare<'a>(
         plots,
         counts,
     })
+}
+
+/// The fixed-effect columns, row by row: intercept (the check), one contrast per product,
+/// sum-to-zero blocks.
+fn fixed_columns(
+    plots: &[&PlotStats],
+    treatments: &[String],
+    blocks: &[String],
+    p: usize,
+) -> Vec<f64> {
+    let (n, nt) = (plots.len(), treatments.len());
+    let mut x = vec![0.0; n * p];
+    for (i, pl) in plots.iter().enumerate() {
+        let row = &mut x[i * p..(i + 1) * p];
+        row[0] = 1.0;
+        let t = treatments
+            .iter()
+            .position(|t| *t == pl.treatment)
+            .unwrap_or(0);
+        if t > 0 {
+            row[t] = 1.0;
+        }
+        if blocks.len() > 1 {
+            let b = blocks.iter().position(|b| *b == pl.block).unwrap_or(0);
+            for j in 1..blocks.len() {
+                row[nt + j - 1] = if b == j {
+                    1.0
+                } else if b == 0 {
+                    -1.0
+                } else {
+                    0.0
+                };
+            }
+        }
+    }
+    x
+}
+
+/// The plots' spacing: the smallest and largest distance between two positions, and along
+/// each axis the smallest separation above a quarter of the smallest distance.
+fn spacing(coords: &[(f64, f64)]) -> (f64, f64, [f64; 2]) {
+    let n = coords.len();
+    let mut dmin = f64::INFINITY;
+    let mut dmax: f64 = 0.0;
+    let mut amin = [f64::INFINITY; 2];
+    for i in 0..n {
+        for j in i + 1..n {
+            let (a, b) = (coords[i], coords[j]);
+            let d = ((a.0 - b.0).powi(2) + (a.1 - b.1).powi(2)).sqrt();
+            if d > 0.0 {
+                dmin = dmin.min(d);
+            }
+            dmax = dmax.max(d);
+        }
+    }
+    for i in 0..n {
+        for j in i + 1..n {
+            for (k, dk) in [
+                (coords[i].0 - coords[j].0).abs(),
+                (coords[i].1 - coords[j].1).abs(),
+            ]
+            .into_iter()
+            .enumerate()
+            {
+                if dk > 0.25 * dmin {
+                    amin[k] = amin[k].min(dk);
+                }
+            }
+        }
+    }
+    (dmin, dmax, amin)
 }
 
 /// The level of each plot in a design factor: its block, or its row or column of the plot

@@ -294,39 +294,7 @@ pub(crate) fn fit_own(
         .map(|(w, k, i)| (*w, point(k, *i).groups.as_slice()))
         .collect();
     let [row_sd, column_sd, block_sd] = random_sds(s, &group_pts);
-    let mut warnings = Vec::new();
-    // Mass near a bound of the length-scale search.
-    for d in 0..if m.anisotropic { 2 } else { 1 } {
-        let maxk = ((lat.bounds[d].1 - lat.bounds[d].0) / lat.h[d]).round() as i64;
-        let edge: f64 = comps_w
-            .iter()
-            .filter(|(_, k, _)| {
-                let kd = if d == 0 { k.0 } else { k.1 };
-                kd <= 1 || kd >= maxk - 1
-            })
-            .map(|x| x.0)
-            .sum();
-        if lat.at_bound[d] && edge > 0.10 {
-            warnings.push(format!(
-                "{:.0} % of the range posterior lies at a bound of its search ({:.1}..{:.1} m); the field may be too small to tell the range",
-                100.0 * edge,
-                lat.bounds[d].0.exp(),
-                lat.bounds[d].1.exp()
-            ));
-        }
-    }
-    let capped: f64 = comps_w
-        .iter()
-        .filter(|(_, k, _)| m.nodes[k].basis.is_some_and(|b| b.2))
-        .map(|x| x.0)
-        .sum();
-    if capped > 0.05 {
-        warnings.push(format!(
-            "{:.0} % of the posterior is at length scales the reduced-rank basis ({} functions) resolves only in part; raise adjust.hsgp_max_basis or adjust.exact_max_plots",
-            100.0 * capped,
-            s.hsgp_max_basis
-        ));
-    }
+    let warnings = posterior_warnings(m, lat, &comps_w, s);
     // The comparison at the posterior mode.
     let (_, mk, mi) = comps_w[0];
     let mode = point(&mk, mi);
@@ -373,4 +341,48 @@ pub(crate) fn fit_own(
         comps,
         stage_one: stage_one(prep, lat),
     })
+}
+
+/// Warnings on a field's posterior: mass near a bound of the length-scale search, and mass
+/// at length scales the reduced-rank basis resolves only in part.
+fn posterior_warnings(
+    m: &FieldModel,
+    lat: &Lattice,
+    comps_w: &[Weighted],
+    s: &FitSettings,
+) -> Vec<String> {
+    let mut warnings = Vec::new();
+    // Mass near a bound of the length-scale search.
+    for d in 0..if m.anisotropic { 2 } else { 1 } {
+        let maxk = ((lat.bounds[d].1 - lat.bounds[d].0) / lat.h[d]).round() as i64;
+        let edge: f64 = comps_w
+            .iter()
+            .filter(|(_, k, _)| {
+                let kd = if d == 0 { k.0 } else { k.1 };
+                kd <= 1 || kd >= maxk - 1
+            })
+            .map(|x| x.0)
+            .sum();
+        if lat.at_bound[d] && edge > 0.10 {
+            warnings.push(format!(
+                "{:.0} % of the range posterior lies at a bound of its search ({:.1}..{:.1} m); the field may be too small to tell the range",
+                100.0 * edge,
+                lat.bounds[d].0.exp(),
+                lat.bounds[d].1.exp()
+            ));
+        }
+    }
+    let capped: f64 = comps_w
+        .iter()
+        .filter(|(_, k, _)| m.nodes[k].basis.is_some_and(|b| b.2))
+        .map(|x| x.0)
+        .sum();
+    if capped > 0.05 {
+        warnings.push(format!(
+            "{:.0} % of the posterior is at length scales the reduced-rank basis ({} functions) resolves only in part; raise adjust.hsgp_max_basis or adjust.exact_max_plots",
+            100.0 * capped,
+            s.hsgp_max_basis
+        ));
+    }
+    warnings
 }

@@ -154,48 +154,7 @@ pub fn estimate(
     let fine_step = step / 4.0;
     let base = lo - 2.0;
     let n_samples = ((hi + 2.0 - base) / fine_step).round() as usize + 1;
-    // The series at sample k of point p (time + base + k x fine_step), walking the time
-    // line forward from `j` (the record index reached for an earlier sample of p): the
-    // index found for a sample depends only on where the walk started, so a point's
-    // samples can be taken in any increasing subset.
-    let sample = |p: &PairPoint, k: usize, j: &mut usize| -> f64 {
-        let t = p.time_s + base + k as f64 * fine_step;
-        while *j < times.len() && times[*j] < t {
-            *j += 1;
-        }
-        let j = *j;
-        let v = if t < times[0] || j >= times.len() {
-            if times.last() == Some(&t) {
-                series[times.len() - 1]
-            } else {
-                f64::NAN
-            }
-        } else if times[j] == t {
-            series[j]
-        } else {
-            let dt = times[j] - times[j - 1];
-            if dt > max_gap {
-                f64::NAN
-            } else {
-                let w = (t - times[j - 1]) / dt;
-                series[j - 1] * (1.0 - w) + series[j] * w
-            }
-        };
-        v / p.divisor
-    };
-    let walk_start = |p: &PairPoint| times.partition_point(|&x| x < p.time_s + base).max(1);
-    // The value at a point for a lag: the mean of five samples one second apart around
-    // time + lag (damping point noise).
-    let offsets: Vec<isize> = (-2..=2)
-        .map(|k| (k as f64 / fine_step).round() as isize)
-        .collect();
-    let centre = |lag: f64| ((lag - base) / fine_step).round() as usize;
-    // Each paired point's slot (its place in `order`). The smoothed values are kept lag by
-    // lag: `sm[c]` holds every paired point's value at sample centre c, by slot, so that the
-    // objective reads one short column per lag instead of one long block per point. Only the
-    // samples the lags read are taken: first those of the coarse lags and the scan's ends,
-    // later those of the fine lags (a sample's value does not depend on which others were
-    // taken, see `sample`).
+    // Each paired point's slot (its place in `order`).
     let mut slot = vec![u32::MAX; pts.len()];
     let mut order: Vec<usize> = Vec::new();
     for &(i, j) in candidate {
@@ -206,69 +165,31 @@ pub fn estimate(
             }
         }
     }
-    let mut sm: Vec<Vec<f64>> = vec![Vec::new(); n_samples];
-    // One point's samples, reused from point to point: every index read was written for
-    // this point in the same call.
-    let mut raw = vec![f64::NAN; n_samples];
-    let mut fill = |centres: &[usize], sm: &mut [Vec<f64>]| {
-        let mut todo: Vec<usize> = centres
-            .iter()
-            .copied()
-            .filter(|&c| c < n_samples && sm[c].is_empty())
-            .collect();
-        todo.sort_unstable();
-        todo.dedup();
-        if todo.is_empty() {
-            return;
-        }
-        let mut need: Vec<usize> = todo
-            .iter()
-            .flat_map(|&c| offsets.iter().map(move |o| c as isize + o))
-            .filter(|&m| m >= 0 && (m as usize) < n_samples)
-            .map(|m| m as usize)
-            .collect();
-        need.sort_unstable();
-        need.dedup();
-        let mut cols: Vec<Vec<f64>> = todo.iter().map(|_| vec![f64::NAN; order.len()]).collect();
-        for (b, &k) in order.iter().enumerate() {
-            let p = &pts[k];
-            let mut j = walk_start(p);
-            for &m in &need {
-                raw[m] = sample(p, m, &mut j);
-            }
-            for (col, &c) in cols.iter_mut().zip(&todo) {
-                col[b] = offsets
-                    .iter()
-                    .map(|o| {
-                        raw.get((c as isize + o) as usize)
-                            .copied()
-                            .unwrap_or(f64::NAN)
-                    })
-                    .sum::<f64>()
-                    / 5.0;
-            }
-        }
-        for (col, c) in cols.into_iter().zip(todo) {
-            sm[c] = col;
-        }
+    let mut sa = Sampler {
+        pts,
+        times,
+        series,
+        max_gap,
+        base,
+        fine_step,
+        n_samples,
+        offsets: (-2..=2)
+            .map(|k| (k as f64 / fine_step).round() as isize)
+            .collect(),
+        slot,
+        order,
+        sm: vec![Vec::new(); n_samples],
+        raw: vec![f64::NAN; n_samples],
     };
+    // Only the samples the lags read are taken: first those of the coarse lags and the
+    // scan's ends, later those of the fine lags.
     let coarse: Vec<usize> = lags
         .iter()
         .chain([lo, hi].iter())
-        .map(|&l| centre(l))
+        .map(|&l| sa.centre(l))
         .filter(|&c| c < n_samples)
         .collect();
-    fill(&coarse, &mut sm);
-    let at = |sm: &[Vec<f64>], k: usize, lag: f64| -> f64 {
-        match slot[k] {
-            u32::MAX => f64::NAN,
-            b => sm
-                .get(centre(lag))
-                .and_then(|col| col.get(b as usize))
-                .copied()
-                .unwrap_or(f64::NAN),
-        }
-    };
+    sa.fill(&coarse);
     // Keep pairs whose values exist at both ends of the lag range, so that each lag is
     // judged on (nearly) the same pairs.
     let pairs: Vec<(usize, usize)> = candidate
@@ -277,41 +198,22 @@ pub fn estimate(
         .filter(|&(i, j)| {
             [lo, hi]
                 .iter()
-                .all(|&l| at(&sm, i, l).is_finite() && at(&sm, j, l).is_finite())
+                .all(|&l| sa.at(i, l).is_finite() && sa.at(j, l).is_finite())
         })
         .collect();
     if pairs.len() < min_pairs {
         return None;
     }
-    // Robust objective: the mean of the squared differences without the largest 2 %, so a
-    // sensor spike or a stray pair cannot decide the lag.
     // Each pair's two slots (both points are paired, so both have one).
     let slots: Vec<(usize, usize)> = pairs
         .iter()
-        .map(|&(i, j)| (slot[i] as usize, slot[j] as usize))
+        .map(|&(i, j)| (sa.slot[i] as usize, sa.slot[j] as usize))
         .collect();
     let mut d: Vec<f64> = Vec::with_capacity(pairs.len());
-    let mut objective = |sm: &[Vec<f64>], l: f64| -> f64 {
-        let c = centre(l);
-        d.clear();
-        if let Some(col) = sm.get(c).filter(|col| !col.is_empty()) {
-            d.extend(
-                slots
-                    .iter()
-                    .map(|&(a, b)| (col[a] - col[b]).powi(2))
-                    .filter(|v| v.is_finite()),
-            );
-        }
-        let keep = ((d.len() as f64 * 0.98).ceil() as usize).min(d.len());
-        if keep == 0 {
-            return f64::INFINITY;
-        }
-        if keep < d.len() {
-            d.select_nth_unstable_by(keep - 1, |a, b| a.total_cmp(b));
-        }
-        d[..keep].iter().sum::<f64>() / keep as f64
-    };
-    let curve: Vec<(f64, f64)> = lags.iter().map(|&l| (l, objective(&sm, l))).collect();
+    let curve: Vec<(f64, f64)> = lags
+        .iter()
+        .map(|&l| (l, objective(&sa.sm, sa.centre(l), &slots, &mut d)))
+        .collect();
     let k = coarse_best(&curve);
     // Refine on a quarter-step grid around the best lag, then a parabola through the best
     // fine lag and its neighbours.
@@ -321,11 +223,14 @@ pub fn estimate(
         .collect();
     let centres: Vec<usize> = fine_lags
         .iter()
-        .map(|&l| centre(l))
+        .map(|&l| sa.centre(l))
         .filter(|&c| c < n_samples)
         .collect();
-    fill(&centres, &mut sm);
-    let fine: Vec<(f64, f64)> = fine_lags.iter().map(|&l| (l, objective(&sm, l))).collect();
+    sa.fill(&centres);
+    let fine: Vec<(f64, f64)> = fine_lags
+        .iter()
+        .map(|&l| (l, objective(&sa.sm, sa.centre(l), &slots, &mut d)))
+        .collect();
     let f = (0..fine.len())
         .min_by(|&a, &b| fine[a].1.total_cmp(&fine[b].1))
         .unwrap_or(0);
@@ -342,6 +247,165 @@ pub fn estimate(
         pairs: pairs.len(),
         curve,
     })
+}
+
+/// Robust objective at sample centre `c`: the mean of the pairs' squared differences without
+/// the largest 2 %, so a sensor spike or a stray pair cannot decide the lag (`d`: a buffer).
+fn objective(sm: &[Vec<f64>], c: usize, slots: &[(usize, usize)], d: &mut Vec<f64>) -> f64 {
+    d.clear();
+    if let Some(col) = sm.get(c).filter(|col| !col.is_empty()) {
+        d.extend(
+            slots
+                .iter()
+                .map(|&(a, b)| (col[a] - col[b]).powi(2))
+                .filter(|v| v.is_finite()),
+        );
+    }
+    let keep = ((d.len() as f64 * 0.98).ceil() as usize).min(d.len());
+    if keep == 0 {
+        return f64::INFINITY;
+    }
+    if keep < d.len() {
+        d.select_nth_unstable_by(keep - 1, |a, b| a.total_cmp(b));
+    }
+    d[..keep].iter().sum::<f64>() / keep as f64
+}
+
+/// The paired points' series, sampled on a fine grid of offsets from each point's time and
+/// smoothed, kept lag by lag: `sm[c]` holds every paired point's value at sample centre c,
+/// by slot, so that the objective reads one short column per lag instead of one long block
+/// per point. A sample's value does not depend on which others were taken (see `sample`),
+/// so they are taken as the scan needs them.
+struct Sampler<'a> {
+    pts: &'a [PairPoint],
+    times: &'a [f64],
+    series: &'a [f64],
+    max_gap: f64,
+    /// The first offset (s) and the grid's step.
+    base: f64,
+    fine_step: f64,
+    n_samples: usize,
+    /// The five samples one second apart around a centre, in samples.
+    offsets: Vec<isize>,
+    /// Each point's slot, u32::MAX for a point in no pair, and the points by slot.
+    slot: Vec<u32>,
+    order: Vec<usize>,
+    /// By sample centre, every paired point's smoothed value (empty: not taken yet).
+    sm: Vec<Vec<f64>>,
+    /// One point's samples, reused from point to point: every index read was written for
+    /// that point in the same call.
+    raw: Vec<f64>,
+}
+
+impl Sampler<'_> {
+    /// The series at sample k of point p (time + base + k x fine_step), walking the time
+    /// line forward from `j` (the record index reached for an earlier sample of p): the
+    /// index found for a sample depends only on where the walk started, so a point's
+    /// samples can be taken in any increasing subset.
+    fn sample(&self, p: &PairPoint, k: usize, j: &mut usize) -> f64 {
+        let (times, series) = (self.times, self.series);
+        let t = p.time_s + self.base + k as f64 * self.fine_step;
+        while *j < times.len() && times[*j] < t {
+            *j += 1;
+        }
+        let j = *j;
+        let v = if t < times[0] || j >= times.len() {
+            if times.last() == Some(&t) {
+                series[times.len() - 1]
+            } else {
+                f64::NAN
+            }
+        } else if times[j] == t {
+            series[j]
+        } else {
+            let dt = times[j] - times[j - 1];
+            if dt > self.max_gap {
+                f64::NAN
+            } else {
+                let w = (t - times[j - 1]) / dt;
+                series[j - 1] * (1.0 - w) + series[j] * w
+            }
+        };
+        v / p.divisor
+    }
+
+    /// Where a point's walk along the time line starts.
+    fn walk_start(&self, p: &PairPoint) -> usize {
+        self.times
+            .partition_point(|&x| x < p.time_s + self.base)
+            .max(1)
+    }
+
+    /// The sample centre of a lag.
+    fn centre(&self, lag: f64) -> usize {
+        ((lag - self.base) / self.fine_step).round() as usize
+    }
+
+    /// Take the smoothed values at these centres (the mean of five samples one second apart
+    /// around time + lag, damping point noise), for every paired point.
+    fn fill(&mut self, centres: &[usize]) {
+        let n_samples = self.n_samples;
+        let mut todo: Vec<usize> = centres
+            .iter()
+            .copied()
+            .filter(|&c| c < n_samples && self.sm[c].is_empty())
+            .collect();
+        todo.sort_unstable();
+        todo.dedup();
+        if todo.is_empty() {
+            return;
+        }
+        let offsets = &self.offsets;
+        let mut need: Vec<usize> = todo
+            .iter()
+            .flat_map(|&c| offsets.iter().map(move |o| c as isize + o))
+            .filter(|&m| m >= 0 && (m as usize) < n_samples)
+            .map(|m| m as usize)
+            .collect();
+        need.sort_unstable();
+        need.dedup();
+        let mut cols: Vec<Vec<f64>> = todo
+            .iter()
+            .map(|_| vec![f64::NAN; self.order.len()])
+            .collect();
+        let mut raw = std::mem::take(&mut self.raw);
+        for (b, &k) in self.order.iter().enumerate() {
+            let p = &self.pts[k];
+            let mut j = self.walk_start(p);
+            for &m in &need {
+                raw[m] = self.sample(p, m, &mut j);
+            }
+            for (col, &c) in cols.iter_mut().zip(&todo) {
+                col[b] = self
+                    .offsets
+                    .iter()
+                    .map(|o| {
+                        raw.get((c as isize + o) as usize)
+                            .copied()
+                            .unwrap_or(f64::NAN)
+                    })
+                    .sum::<f64>()
+                    / 5.0;
+            }
+        }
+        self.raw = raw;
+        for (col, c) in cols.into_iter().zip(todo) {
+            self.sm[c] = col;
+        }
+    }
+
+    /// Point k's smoothed value at a lag (NaN for a point in no pair or a value not taken).
+    fn at(&self, k: usize, lag: f64) -> f64 {
+        match self.slot[k] {
+            u32::MAX => f64::NAN,
+            b => self
+                .sm
+                .get(self.centre(lag))
+                .and_then(|col| col.get(b as usize))
+                .copied()
+                .unwrap_or(f64::NAN),
+        }
+    }
 }
 
 /// Value of a time series at time `t` by linear interpolation; `None` past either end or

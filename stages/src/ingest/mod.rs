@@ -250,46 +250,14 @@ pub fn run_with(
         cfg.ingest.max_memory_share,
         memory::machine_bytes(),
     )?;
-    progress.start(files.len() as u64, "exports read");
-    let mut raw: Vec<formats::RawPoint> = Vec::new();
-    let mut rejections = Vec::new();
-    // Treatment, strip and replicate labels of the records, over all exports (0: none).
-    let mut tags: Vec<[String; 3]> = vec![Default::default()];
-    let mut count_in = 0;
-    // Exports whose moisture read 0 (no reading) in some records.
-    let mut zero_moisture: Vec<String> = Vec::new();
-    // How each export was read (format and mapping), for the summary and the report.
-    let mut how: std::collections::BTreeMap<String, String> = Default::default();
-    // Exports are read in parallel (each on its own), then taken in order.
-    let reads: Vec<Result<(String, formats::ExportRead), IngestError>> = files
-        .par_iter()
-        .zip(&names)
-        .enumerate()
-        .map(|(i, (p, name))| {
-            let format = formats::for_file(p);
-            let described = format!("{}: {}", format.name(), format.describe_file(cfg, p));
-            let read = format.read(cfg, p, name, i as u32)?;
-            progress.step();
-            Ok((described, read))
-        })
-        .collect();
-    for (read, name) in reads.into_iter().zip(&names) {
-        let (described, read) = read?;
-        how.insert(name.clone(), described);
-        count_in += read.rows;
-        // The export's label indices to the trial's (its entry 0, no label, stays 0).
-        let global: Vec<u32> = read
-            .labels
-            .iter()
-            .map(|l| strips::intern(&mut tags, l))
-            .collect();
-        raw.extend(read.points.into_iter().map(|mut p| {
-            p.label = global.get(p.label as usize).copied().unwrap_or(0);
-            p
-        }));
-        rejections.extend(read.rejections);
-        zero_moisture.extend(read.zero_moisture.iter().filter_map(|z| z.warning()));
-    }
+    let Exports {
+        raw,
+        rejections,
+        tags,
+        count_in,
+        zero_moisture,
+        mut how,
+    } = read_exports(cfg, &files, &names, progress)?;
     let labelled = cfg.plots_from_labels();
     let prescription = if cfg.inputs.prescription.is_empty() {
         Vec::new()
@@ -316,53 +284,8 @@ pub fn run_with(
     if !bad.is_empty() {
         return Err(IngestError::BadPlots(bad));
     }
-    let lons: Vec<f64> = raw.iter().map(|r| r.lon).collect();
-    let lats: Vec<f64> = raw.iter().map(|r| r.lat).collect();
-    let (lons, lats) = if !lons.is_empty() {
-        (lons, lats)
-    } else if !cfg.layout.is_empty() {
-        (
-            cfg.layout.iter().map(|l| l.origin_lon).collect(),
-            cfg.layout.iter().map(|l| l.origin_lat).collect(),
-        )
-    } else {
-        // No readable point at all: take the zone from the plots.
-        let pts: Vec<(f64, f64)> = polygons_ll
-            .iter()
-            .flat_map(|p| p.exterior.clone())
-            .collect();
-        (
-            pts.iter().map(|p| p.0).collect(),
-            pts.iter().map(|p| p.1).collect(),
-        )
-    };
-    let utm = choose_projection(cfg, &lons, &lats)?;
-    let projected: Result<Vec<(f64, f64)>, _> =
-        raw.par_iter().map(|r| utm.forward(r.lon, r.lat)).collect();
-    let projected = projected?;
-    let points: Vec<Point> = raw
-        .iter()
-        .zip(projected)
-        .enumerate()
-        .map(|(i, (r, (x, y)))| Point {
-            id: i as u64,
-            file: r.file,
-            row: r.row,
-            time_s: r.time_s,
-            lon: r.lon,
-            lat: r.lat,
-            x_m: x,
-            y_m: y,
-            flow_kg_s: r.flow_kg_s,
-            speed_m_s: r.speed_m_s,
-            width_m: r.width_m,
-            moisture_pct: r.moisture_pct,
-            work_state: r.optional[0],
-            hdop: r.optional[1],
-            fix_quality: r.optional[2],
-            yield_kg_ha: r.yield_kg_ha,
-        })
-        .collect();
+    let utm = projection_for(cfg, &raw, &polygons_ll)?;
+    let points = project_points(&raw, &utm)?;
     let mut strip_details = None;
     let mut strip_warnings = Vec::new();
     let (polygons, design) = if labelled {
@@ -417,48 +340,21 @@ pub fn run_with(
     warnings.extend(design_layout_warnings(&polygons, &design));
     warnings.extend(zero_moisture);
     if let Some(d) = &strip_details {
-        // How the plots were made, beside how each export was read (the report shows both).
-        let fields: Vec<String> = d["fields"]
-            .as_object()
-            .map(|m| {
-                m.iter()
-                    .map(|(f, x)| {
-                        format!(
-                            "{f}: {} plots in {} strips (travel {} degrees, swath {} m)",
-                            x["plots"], x["strips"], x["bearing_deg"], x["swath_m"]
-                        )
-                    })
-                    .collect()
-            })
-            .unwrap_or_default();
-        how.insert(
-            "(plots)".into(),
-            format!(
-                "built from the treatment labels ({}): {}",
-                label_source(cfg),
-                fields.join("; ")
-            ),
-        );
+        how.insert("(plots)".into(), strips_words(cfg, d));
     }
     let mut summary = StageSummary::from_rejections("ingest", "points", count_in, &rejections);
-    summary
-        .details
-        .insert("epsg".into(), serde_json::json!(utm.epsg()));
-    summary
-        .details
-        .insert("files".into(), serde_json::json!(names.len()));
-    summary
-        .details
-        .insert("read_as".into(), serde_json::json!(how));
-    summary
-        .details
-        .insert("plots".into(), serde_json::json!(polygons.len()));
+    for (key, value) in [
+        ("epsg", serde_json::json!(utm.epsg())),
+        ("files", serde_json::json!(names.len())),
+        ("read_as", serde_json::json!(how)),
+        ("plots", serde_json::json!(polygons.len())),
+        ("warnings", serde_json::json!(warnings)),
+    ] {
+        summary.details.insert(key.into(), value);
+    }
     if let Some(d) = strip_details {
         summary.details.insert("plots_from_labels".into(), d);
     }
-    summary
-        .details
-        .insert("warnings".into(), serde_json::json!(warnings));
     Ok(IngestOutput {
         points: PointSet {
             files: names,
@@ -470,6 +366,159 @@ pub fn run_with(
         rejections,
         summary,
     })
+}
+
+/// The records as points, projected (in parallel).
+fn project_points(raw: &[formats::RawPoint], utm: &Utm) -> Result<Vec<Point>, IngestError> {
+    let projected: Result<Vec<(f64, f64)>, _> =
+        raw.par_iter().map(|r| utm.forward(r.lon, r.lat)).collect();
+    let projected = projected?;
+    Ok(raw
+        .iter()
+        .zip(projected)
+        .enumerate()
+        .map(|(i, (r, (x, y)))| Point {
+            id: i as u64,
+            file: r.file,
+            row: r.row,
+            time_s: r.time_s,
+            lon: r.lon,
+            lat: r.lat,
+            x_m: x,
+            y_m: y,
+            flow_kg_s: r.flow_kg_s,
+            speed_m_s: r.speed_m_s,
+            width_m: r.width_m,
+            moisture_pct: r.moisture_pct,
+            work_state: r.optional[0],
+            hdop: r.optional[1],
+            fix_quality: r.optional[2],
+            yield_kg_ha: r.yield_kg_ha,
+        })
+        .collect())
+}
+
+/// Every export as read, in the trial's order, with the labels of all of them.
+struct Exports {
+    raw: Vec<formats::RawPoint>,
+    rejections: Vec<Rejection>,
+    /// Treatment, strip and replicate labels of the records, over all exports (0: none).
+    tags: Vec<[String; 3]>,
+    count_in: u64,
+    /// Exports whose moisture read 0 (no reading) in some records.
+    zero_moisture: Vec<String>,
+    /// How each export was read (format and mapping), for the summary and the report.
+    how: std::collections::BTreeMap<String, String>,
+}
+
+/// Read every export (in parallel, each on its own), then take them in order.
+fn read_exports(
+    cfg: &IngestConfig,
+    files: &[PathBuf],
+    names: &[String],
+    progress: &crate::progress::Progress,
+) -> Result<Exports, IngestError> {
+    progress.start(files.len() as u64, "exports read");
+    let mut raw: Vec<formats::RawPoint> = Vec::new();
+    let mut rejections = Vec::new();
+    // Treatment, strip and replicate labels of the records, over all exports (0: none).
+    let mut tags: Vec<[String; 3]> = vec![Default::default()];
+    let mut count_in = 0;
+    // Exports whose moisture read 0 (no reading) in some records.
+    let mut zero_moisture: Vec<String> = Vec::new();
+    // How each export was read (format and mapping), for the summary and the report.
+    let mut how: std::collections::BTreeMap<String, String> = Default::default();
+    // Exports are read in parallel (each on its own), then taken in order.
+    let reads: Vec<Result<(String, formats::ExportRead), IngestError>> = files
+        .par_iter()
+        .zip(names)
+        .enumerate()
+        .map(|(i, (p, name))| {
+            let format = formats::for_file(p);
+            let described = format!("{}: {}", format.name(), format.describe_file(cfg, p));
+            let read = format.read(cfg, p, name, i as u32)?;
+            progress.step();
+            Ok((described, read))
+        })
+        .collect();
+    for (read, name) in reads.into_iter().zip(names) {
+        let (described, read) = read?;
+        how.insert(name.clone(), described);
+        count_in += read.rows;
+        // The export's label indices to the trial's (its entry 0, no label, stays 0).
+        let global: Vec<u32> = read
+            .labels
+            .iter()
+            .map(|l| strips::intern(&mut tags, l))
+            .collect();
+        raw.extend(read.points.into_iter().map(|mut p| {
+            p.label = global.get(p.label as usize).copied().unwrap_or(0);
+            p
+        }));
+        rejections.extend(read.rejections);
+        zero_moisture.extend(read.zero_moisture.iter().filter_map(|z| z.warning()));
+    }
+    Ok(Exports {
+        raw,
+        rejections,
+        tags,
+        count_in,
+        zero_moisture,
+        how,
+    })
+}
+
+/// The trial's projection, from the records' positions, else the grid layouts' origins,
+/// else (no readable record at all) the plots'.
+fn projection_for(
+    cfg: &IngestConfig,
+    raw: &[formats::RawPoint],
+    polygons_ll: &[PlotPolygon],
+) -> Result<Utm, IngestError> {
+    let lons: Vec<f64> = raw.iter().map(|r| r.lon).collect();
+    let lats: Vec<f64> = raw.iter().map(|r| r.lat).collect();
+    let (lons, lats) = if !lons.is_empty() {
+        (lons, lats)
+    } else if !cfg.layout.is_empty() {
+        (
+            cfg.layout.iter().map(|l| l.origin_lon).collect(),
+            cfg.layout.iter().map(|l| l.origin_lat).collect(),
+        )
+    } else {
+        // No readable point at all: take the zone from the plots.
+        let pts: Vec<(f64, f64)> = polygons_ll
+            .iter()
+            .flat_map(|p| p.exterior.clone())
+            .collect();
+        (
+            pts.iter().map(|p| p.0).collect(),
+            pts.iter().map(|p| p.1).collect(),
+        )
+    };
+    choose_projection(cfg, &lons, &lats)
+}
+
+/// How the plots were made from the treatment labels, per field, in words (beside how each
+/// export was read: the report shows both).
+fn strips_words(cfg: &IngestConfig, d: &serde_json::Value) -> String {
+    let fields: Vec<String> = d["fields"]
+        .as_object()
+        .map(|m| {
+            m.iter()
+                .map(|(f, x)| {
+                    format!(
+                        "{f}: {} plots in {} strips (travel {} degrees, swath {} m)",
+                        x["plots"], x["strips"], x["bearing_deg"], x["swath_m"]
+                    )
+                })
+                .collect()
+        })
+        .unwrap_or_default();
+    format!(
+        "built from the treatment labels ({}): {}",
+        label_source(cfg),
+        fields.join("; ")
+    )
 }
 
 /// Where a trial's treatment labels come from, in words with the setting.

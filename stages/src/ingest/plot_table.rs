@@ -276,7 +276,25 @@ fn layer_source(cfg: &IngestConfig, path: &Path, name: &str) -> Result<Source, I
 }
 
 /// Validate the rows of a table; yields come out in kg/ha.
-fn validate(src: Source, name: &str, crop: &Crop, n: &Names) -> Result<PlotTable, IngestError> {
+/// Which columns of a plot table hold what, found from its header.
+struct Columns {
+    id: usize,
+    treatment: usize,
+    block: usize,
+    field: Option<usize>,
+    yield_col: usize,
+    /// kg/ha per unit of the yield column.
+    per_unit: f64,
+    /// The yield column as the read-as line names it.
+    yield_words: String,
+    /// Positions from two columns: (x, y, x spacing, y spacing, words); None for a layer.
+    xy: Option<(usize, usize, f64, f64, String)>,
+    /// Where positions come from, in words.
+    position_words: String,
+}
+
+/// Find the columns of a plot table from its header (or a layer's attributes).
+fn columns_of(src: &Source, name: &str, crop: &Crop, n: &Names) -> Result<Columns, IngestError> {
     let unusable = |message: String| IngestError::Unusable {
         file: name.to_string(),
         message,
@@ -392,6 +410,30 @@ fn validate(src: Source, name: &str, crop: &Crop, n: &Names) -> Result<PlotTable
         (None, Some((_, how))) => how.clone(),
         (None, None) => unreachable!("a table has columns or given positions"),
     };
+    Ok(Columns {
+        id: i_id,
+        treatment: i_trt,
+        block: i_blk,
+        field: i_field,
+        yield_col: i_yield,
+        per_unit,
+        yield_words: ycol,
+        xy: columns,
+        position_words: pos,
+    })
+}
+
+fn validate(src: Source, name: &str, crop: &Crop, n: &Names) -> Result<PlotTable, IngestError> {
+    let unusable = |message: String| IngestError::Unusable {
+        file: name.to_string(),
+        message,
+    };
+    let c = columns_of(&src, name, crop, n)?;
+    let (i_id, i_trt, i_blk, i_field, i_yield, per_unit) =
+        (c.id, c.treatment, c.block, c.field, c.yield_col, c.per_unit);
+    let (ycol, columns, pos) = (&c.yield_words, &c.xy, &c.position_words);
+    let header = &src.header;
+    let names = |i: usize| header.get(i).cloned().unwrap_or_default();
     let word = src.word;
     let mut out = PlotTable {
         rows: (src.rows.len() + src.unreadable.len()) as u64,

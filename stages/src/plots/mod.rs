@@ -29,19 +29,22 @@
 //! Complexity: O(n log m) for n points and m plots, plus the footprint raster per plot.
 
 pub mod geometry;
+mod join;
+mod motion;
 pub mod settings;
 
 pub use crate::table::PlotStats;
-use crate::table::{CleanPoint, DesignRow, PlotCounts, PlotPolygon, Rejection, StageSummary};
+use crate::table::{
+    CleanPoint, DesignRow, PlotCounts, PlotPolygon, Rejection, StageSummary, Texts,
+};
 use crate::util::{mean, median, sd};
 use geo::{Area, Centroid, Contains, LineString, Polygon};
-use geometry::{clip_area, net_polygon, oriented_rect, Frame};
+use geometry::{net_polygon, Frame};
 use rayon::prelude::*;
 use rstar::primitives::{GeomWithData, Rectangle};
-use rstar::{PointDistance, RTree};
+use rstar::RTree;
 pub use settings::PlotsSettings;
 use std::collections::{BTreeMap, HashMap};
-use std::sync::Arc;
 
 /// What the plots stage hands on.
 #[derive(Clone, Debug)]
@@ -118,15 +121,6 @@ fn ranks(values: &[f64], gap: f64) -> Vec<u32> {
     out
 }
 
-/// Why a point was removed: the rule's texts are shared ([`crate::table::Texts`]), the
-/// value is the point's own.
-struct PointVerdict {
-    rule: &'static str,
-    column: &'static str,
-    value: String,
-    limit: Arc<str>,
-}
-
 /// Run the plots stage.
 #[allow(clippy::too_many_arguments)]
 pub fn run(
@@ -147,388 +141,64 @@ pub fn run(
         .collect();
     let polys: Vec<Polygon<f64>> = ordered.iter().map(|(_, p)| to_geo(p)).collect();
     let tree = index(&polys);
-    // Headings and footprints from consecutive points of the same export and pass.
-    let mut order: Vec<usize> = (0..points.len()).collect();
-    order.sort_by(|&a, &b| {
-        let (p, q) = (&points[a].base, &points[b].base);
-        (p.file, points[a].pass)
-            .cmp(&(q.file, points[b].pass))
-            .then(p.time_s.total_cmp(&q.time_s))
-    });
-    // Each export's logging interval: the median time step between consecutive kept points
-    // of a pass (1 s for a monitor logging every second, 3 s for one logging every 3 s).
-    let mut steps: HashMap<u32, Vec<f64>> = HashMap::new();
-    for w in order.windows(2) {
-        let (p, q) = (&points[w[0]], &points[w[1]]);
-        if p.base.file == q.base.file && p.pass == q.pass {
-            let dt = q.base.time_s - p.base.time_s;
-            if dt > 0.0 {
-                steps.entry(p.base.file).or_default().push(dt);
-            }
-        }
-    }
-    let interval: HashMap<u32, f64> = steps
-        .into_iter()
-        .map(|(f, v)| (f, crate::util::median(&v)))
-        .filter(|(_, m)| m.is_finite() && *m > 0.0)
-        .collect();
-    let mut footprint: Vec<[(f64, f64); 4]> = vec![[(0.0, 0.0); 4]; points.len()];
-    // Each point's heading as a unit vector, NaN where the pass gives none.
-    let mut heading: Vec<(f64, f64)> = vec![(f64::NAN, f64::NAN); points.len()];
-    for (k, &i) in order.iter().enumerate() {
-        let same = |j: usize| {
-            points[j].base.file == points[i].base.file && points[j].pass == points[i].pass
-        };
-        let prev = (k > 0).then(|| order[k - 1]).filter(|&j| same(j));
-        let next = order.get(k + 1).copied().filter(|&j| same(j));
-        let (a, b) = (prev.unwrap_or(i), next.unwrap_or(i));
-        let p = &points[i].base;
-        let (dx, dy) = (
-            points[b].base.x_m - points[a].base.x_m,
-            points[b].base.y_m - points[a].base.y_m,
-        );
-        let d = dx.hypot(dy);
-        let (ux, uy) = if d > 1e-9 {
-            heading[i] = (dx / d, dy / d);
-            (dx / d, dy / d)
-        } else {
-            (0.0, 1.0)
-        };
-        // Distance travelled since the previous record: at most two logging intervals (a
-        // removed record between two kept ones), one interval for the first of a pass.
-        let step = interval.get(&p.file).copied().unwrap_or(1.0);
-        let dt = prev
-            .map(|j| (p.time_s - points[j].base.time_s).clamp(0.0, 2.0 * step))
-            .unwrap_or(step);
-        // Without a logged speed (a yield-point export), the ground between the positions.
-        let travel = if p.speed_m_s.is_finite() {
-            p.speed_m_s * dt
-        } else {
-            prev.map(|j| {
-                let q = &points[j].base;
-                (p.x_m - q.x_m).hypot(p.y_m - q.y_m).min(dt * 10.0)
-            })
-            .unwrap_or(d * 0.5)
-        };
-        footprint[i] = oriented_rect(p.x_m, p.y_m, ux, uy, travel.max(0.1), p.width_m);
-    }
+    let motion::Motion {
+        interval,
+        footprint,
+        heading,
+    } = motion::of(points);
     // Each point's plot polygon (the gross plot), points in parallel.
     let gross: Vec<Option<usize>> = points
         .par_iter()
         .map(|p| locate(&tree, &polys, p.base.x_m, p.base.y_m))
         .collect();
-    // Each plot's direction of travel: the axial mean of its points' headings (doubled
-    // angles, so that passes in either sense agree), where they agree (mean resultant
-    // length of the doubled angles at least 0.5); else the plot's longer side is taken.
-    let mut axial = vec![(0.0f64, 0.0f64, 0u32); polys.len()];
-    for (i, g) in gross.iter().enumerate() {
-        let (hx, hy) = heading[i];
-        if let (Some(k), true) = (g, hx.is_finite()) {
-            let a = &mut axial[*k];
-            a.0 += hx * hx - hy * hy;
-            a.1 += 2.0 * hx * hy;
-            a.2 += 1;
-        }
-    }
-    let travel: Vec<Option<(f64, f64)>> = axial
-        .iter()
-        .map(|&(c, sn, n)| {
-            (n >= 3 && c.hypot(sn) >= 0.5 * n as f64).then(|| {
-                let t = 0.5 * sn.atan2(c);
-                (t.cos(), t.sin())
-            })
-        })
-        .collect();
+    let travel = motion::plot_directions(&gross, &heading, polys.len());
     let nets: Vec<Option<Vec<(f64, f64)>>> = polys
         .iter()
         .zip(&travel)
         .map(|(p, t)| net_polygon(p, *t, s.end_trim_m, s.end_trim_max_fraction, s.side_trim_m))
         .collect();
-    // Plots the trims leave nothing of (with the end trims capped by the plot's length,
-    // only a side trim of half the plot's width or more, or a degenerate polygon).
-    let untrimmable: Vec<&str> = ordered
-        .iter()
-        .zip(&nets)
-        .filter(|(_, n)| n.is_none())
-        .map(|((d, _), _)| d.plot_id.as_str())
-        .collect();
-    let net_geo: Vec<Option<Polygon<f64>>> = nets
-        .iter()
-        .map(|n| {
-            n.as_ref().map(|r| {
-                let mut ring = r.clone();
-                ring.push(r[0]);
-                Polygon::new(LineString::from(ring), vec![])
-            })
-        })
-        .collect();
+    let net_geo = net_polygons(&nets);
 
-    // Each point's plot, or the rule it breaks (points in parallel, taken in order; a
-    // rejection boxed, so that the list stays small when most points join a plot).
-    enum Joined {
-        Plot(usize),
-        Rejected(Box<PointVerdict>),
-    }
-    // The limits each rule names, made once and shared by every point it removes.
-    let mut texts = crate::table::Texts::default();
-    let far_limit = texts.get(&format!("within {} m of a plot", s.far_m));
-    let outside_limit = texts.get("inside a plot polygon");
-    let small_limit = texts.get("plot too small for its trims");
-    let trim_limit = texts.get(&format!(
-        "inside the net plot (end trim {} m but at most {} of the plot's length, side trim {} m)",
-        s.end_trim_m, s.end_trim_max_fraction, s.side_trim_m
-    ));
-    let straddle_limit = texts.get(&format!(">= {}", s.min_swath_inside));
-    let joined: Vec<Joined> = points
-        .par_iter()
-        .enumerate()
-        .map(|(i, p)| {
-            let (x, y) = (p.base.x_m, p.base.y_m);
-            let reject =
-                |rule: &'static str, column: &'static str, value: String, limit: &Arc<str>| {
-                    Joined::Rejected(Box::new(PointVerdict {
-                        rule,
-                        column,
-                        value,
-                        limit: limit.clone(),
-                    }))
-                };
-            let Some(k) = gross[i] else {
-                let near = tree
-                    .nearest_neighbor(&[x, y])
-                    .map(|g| g.geom().distance_2(&[x, y]).sqrt())
-                    .unwrap_or(f64::INFINITY);
-                let (rule, limit) = if near > s.far_m {
-                    ("far_from_trial", &far_limit)
-                } else {
-                    ("outside_plots", &outside_limit)
-                };
-                return reject(
-                    rule,
-                    "distance_to_nearest_plot_m",
-                    format!("{near:.1}"),
-                    limit,
-                );
-            };
-            let Some(net) = &net_geo[k] else {
-                return reject(
-                    "border_trim",
-                    "x_m,y_m",
-                    format!("{x:.2},{y:.2}"),
-                    &small_limit,
-                );
-            };
-            if !net.contains(&geo::Point::new(x, y)) {
-                return reject(
-                    "border_trim",
-                    "x_m,y_m",
-                    format!("{x:.2},{y:.2}"),
-                    &trim_limit,
-                );
-            }
-            let fp = &footprint[i];
-            let fp_area = geometry::signed_area(fp).abs();
-            // The net plot (any simple polygon) clipped by the convex footprint.
-            let inside = if fp_area > 0.0 {
-                clip_area(nets[k].as_ref().expect("net exists"), fp) / fp_area
-            } else {
-                1.0
-            };
-            if inside < s.min_swath_inside {
-                return reject(
-                    "swath_straddle",
-                    "footprint_inside_fraction",
-                    format!("{inside:.3}"),
-                    &straddle_limit,
-                );
-            }
-            Joined::Plot(k)
-        })
-        .collect();
-    let mut assignment = Vec::new();
-    let mut rejections = Vec::new();
-    let mut members: Vec<Vec<usize>> = vec![Vec::new(); polys.len()];
-    // Points per (export, plot), gathered into exports and fields below.
-    let mut per_export_plot: HashMap<(u32, usize), u64> = HashMap::new();
-    let file_texts: Vec<_> = files.iter().map(|f| texts.get(f)).collect();
-    for (i, j) in joined.into_iter().enumerate() {
-        match j {
-            Joined::Rejected(v) => {
-                let p = &points[i].base;
-                rejections.push(Rejection {
-                    source_file: file_texts[p.file as usize].clone(),
-                    source_row: p.row,
-                    id: p.id.to_string(),
-                    rule: texts.get(v.rule),
-                    column: texts.get(v.column),
-                    value: v.value,
-                    limit: v.limit,
-                });
-            }
-            Joined::Plot(k) => {
-                assignment.push((i, k));
-                members[k].push(i);
-                *per_export_plot.entry((points[i].base.file, k)).or_default() += 1;
-            }
-        }
-    }
-    let mut export_fields: BTreeMap<String, BTreeMap<String, u64>> = BTreeMap::new();
-    for ((f, k), n) in per_export_plot {
-        *export_fields
-            .entry(files[f as usize].clone())
-            .or_default()
-            .entry(ordered[k].0.field.clone())
-            .or_default() += n;
-    }
+    let mut texts = Texts::default();
+    let layout = join::Layout {
+        tree: &tree,
+        gross: &gross,
+        nets: &nets,
+        net_geo: &net_geo,
+        footprint: &footprint,
+    };
+    let Assigned {
+        assignment,
+        mut rejections,
+        members,
+        export_fields,
+    } = assign(points, files, &ordered, &layout, s, &mut texts);
     let mut summary =
         StageSummary::from_rejections("plots", "points", points.len() as u64, &rejections);
-    // Grid coordinates per field, in the axes of the field's first plot.
-    let mut field_frames: BTreeMap<&str, (Frame, f64, f64)> = BTreeMap::new();
-    for (k, (d, _)) in ordered.iter().enumerate() {
-        if let Some(f) = geometry::frame_of(&polys[k]) {
-            field_frames.entry(d.field.as_str()).or_insert(f);
-        }
-    }
-    let centroids: Vec<(f64, f64)> = polys
-        .iter()
-        .map(|p| {
-            p.centroid()
-                .map(|c| (c.x(), c.y()))
-                .unwrap_or((f64::NAN, f64::NAN))
-        })
-        .collect();
-    let mut local = vec![(f64::NAN, f64::NAN); polys.len()];
-    let mut grid = vec![(0u32, 0u32); polys.len()];
-    for (field, (frame, len, wid)) in &field_frames {
-        let ks: Vec<usize> = (0..polys.len())
-            .filter(|&k| ordered[k].0.field == *field)
-            .collect();
-        let uv: Vec<(f64, f64)> = ks
-            .iter()
-            .map(|&k| frame.local(centroids[k].0, centroids[k].1))
-            .collect();
-        let (u0, v0) = uv.iter().fold((f64::INFINITY, f64::INFINITY), |a, b| {
-            (a.0.min(b.0), a.1.min(b.1))
-        });
-        let r_along = ranks(&uv.iter().map(|c| c.0).collect::<Vec<_>>(), 0.5 * len);
-        let r_across = ranks(&uv.iter().map(|c| c.1).collect::<Vec<_>>(), 0.5 * wid);
-        for (n, &k) in ks.iter().enumerate() {
-            local[k] = (uv[n].0 - u0, uv[n].1 - v0);
-            grid[k] = (r_along[n], r_across[n]);
-        }
-    }
+    let PlotGrid {
+        centroids,
+        local,
+        grid,
+    } = plot_grid(&ordered, &polys);
     let mut plots = Vec::new();
     let mut plot_counts = PlotCounts {
         count_in: ordered.len() as u64,
         ..Default::default()
     };
-    // Each plot's coverage (the raster of its footprints), plots in parallel.
-    let coverages: Vec<f64> = (0..ordered.len())
-        .into_par_iter()
-        .map(|k| {
-            let net_ring = nets[k].as_deref().unwrap_or_default();
-            // Without a swath width (a yield-point export without one) the harvested area
-            // is unknown: coverage is NaN and min_coverage does not apply.
-            let widths_known = members[k]
-                .iter()
-                .any(|&i| points[i].base.width_m.is_finite());
-            if net_ring.is_empty() {
-                0.0
-            } else if !widths_known {
-                f64::NAN
-            } else {
-                let fps: Vec<&[(f64, f64)]> = members[k]
-                    .iter()
-                    .map(|&i| footprint[i].as_slice())
-                    .collect();
-                geometry::coverage(net_ring, &fps, s.coverage_cell_m)
-            }
-        })
-        .collect();
-    // Each plot's yield and moisture statistics, plots in parallel.
-    let stats: Vec<[f64; 5]> = members
-        .par_iter()
-        .map(|m| {
-            let ys: Vec<f64> = m.iter().map(|&i| points[i].yield_std_kg_ha).collect();
-            let ms: Vec<f64> = m.iter().map(|&i| points[i].moisture_shifted_pct).collect();
-            [
-                mean(&ys),
-                median(&ys),
-                trimmed_mean(&ys, s.trim_fraction),
-                sd(&ys),
-                mean(&ms),
-            ]
-        })
-        .collect();
+    let coverages = coverages(&members, points, &nets, &footprint, s);
+    let stats = statistics(&members, points, s);
     for (k, (d, _)) in ordered.iter().enumerate() {
         let [y_mean, y_median, y_trimmed, y_sd, m_mean] = stats[k];
         let net_ring = nets[k].clone().unwrap_or_default();
         let net_area = geometry::signed_area(&net_ring).abs();
         let cov = coverages[k];
         let n = members[k].len() as u64;
-        // Records in one-second terms: a record of an export logging every 3 s counts 3.
-        let seconds: f64 = members[k]
-            .iter()
-            .map(|&i| {
-                interval
-                    .get(&points[i].base.file)
-                    .copied()
-                    .unwrap_or(1.0)
-                    .max(1.0)
-            })
-            .sum();
-        // The records a complete harvest of the net plot gives at the plot's median speed
-        // and swath, in one-second terms; NaN where either is unknown.
-        let expected_s = {
-            let speeds: Vec<f64> = members[k]
-                .iter()
-                .map(|&i| points[i].base.speed_m_s)
-                .filter(|v| v.is_finite() && *v > 0.0)
-                .collect();
-            let widths: Vec<f64> = members[k]
-                .iter()
-                .map(|&i| points[i].base.width_m)
-                .filter(|v| v.is_finite() && *v > 0.0)
-                .collect();
-            net_area / (median(&speeds) * median(&widths))
+        let figures = PlotFigures {
+            net_area,
+            coverage: cov,
+            yield_mean: y_mean,
         };
-        let need = s.min_points_for(expected_s);
-        let reason = if seconds < need {
-            Some((
-                "min_points",
-                "points",
-                if seconds == n as f64 {
-                    n.to_string()
-                } else {
-                    format!("{n} records of {seconds:.0} s")
-                },
-                if need < s.min_points as f64 {
-                    format!(
-                        ">= {need} (plots.min_points = {}, at most {} of the {expected_s:.1} s a complete harvest of the net plot gives)",
-                        s.min_points, s.min_points_max_fraction
-                    )
-                } else {
-                    format!(">= {}", s.min_points)
-                },
-            ))
-        } else if cov < s.min_coverage {
-            Some((
-                "min_coverage",
-                "coverage",
-                format!("{cov:.3}"),
-                format!(">= {}", s.min_coverage),
-            ))
-        } else if let Some((lo, hi)) = plot_bounds.filter(|(lo, hi)| !(*lo..=*hi).contains(&y_mean))
-        {
-            Some((
-                "plot_yield_bounds",
-                "yield_mean",
-                format!("{y_mean:.0} kg/ha"),
-                format!("{lo}-{hi} kg/ha (crop.plot_yield_min_kg_ha and plot_yield_max_kg_ha)"),
-            ))
-        } else {
-            None
-        };
+        let reason = set_aside_reason(&members[k], points, &interval, &figures, s, plot_bounds);
         match &reason {
             Some((rule, column, value, limit)) => {
                 plot_counts.set_aside += 1;
@@ -588,18 +258,7 @@ pub fn run(
         serde_json::json!(export_fields),
     );
     let mut warnings = dropped_out(&plots, points, files, &export_fields, &summary);
-    if !untrimmable.is_empty() {
-        let shown: Vec<&str> = untrimmable.iter().take(10).copied().collect();
-        warnings.push(format!(
-            "{} plot(s) are too small for their trims, so none of their points can count: {}{}; each side loses plots.side_trim_m = {} m (set it below half the plot's width) and each end plots.end_trim_m = {} m, at most plots.end_trim_max_fraction = {} of the plot's length",
-            untrimmable.len(),
-            shown.join(", "),
-            if untrimmable.len() > 10 { format!(" and {} more", untrimmable.len() - 10) } else { String::new() },
-            s.side_trim_m,
-            s.end_trim_m,
-            s.end_trim_max_fraction
-        ));
-    }
+    warnings.extend(too_small_warning(&ordered, &nets, s));
     summary.set_warnings(&warnings);
     summary.plots = Some(plot_counts);
     PlotsOutput {
@@ -607,6 +266,295 @@ pub fn run(
         plots,
         rejections,
         summary,
+    }
+}
+
+/// Each plot's centroid, its position in metres from its field's corner and its grid
+/// (range, row) numbers, in the axes of the field's first plot.
+struct PlotGrid {
+    centroids: Vec<(f64, f64)>,
+    local: Vec<(f64, f64)>,
+    grid: Vec<(u32, u32)>,
+}
+
+/// Grid coordinates per field, in the axes of the field's first plot.
+fn plot_grid(ordered: &[(&DesignRow, &PlotPolygon)], polys: &[Polygon<f64>]) -> PlotGrid {
+    let mut field_frames: BTreeMap<&str, (Frame, f64, f64)> = BTreeMap::new();
+    for (k, (d, _)) in ordered.iter().enumerate() {
+        if let Some(f) = geometry::frame_of(&polys[k]) {
+            field_frames.entry(d.field.as_str()).or_insert(f);
+        }
+    }
+    let centroids: Vec<(f64, f64)> = polys
+        .iter()
+        .map(|p| {
+            p.centroid()
+                .map(|c| (c.x(), c.y()))
+                .unwrap_or((f64::NAN, f64::NAN))
+        })
+        .collect();
+    let mut local = vec![(f64::NAN, f64::NAN); polys.len()];
+    let mut grid = vec![(0u32, 0u32); polys.len()];
+    for (field, (frame, len, wid)) in &field_frames {
+        let ks: Vec<usize> = (0..polys.len())
+            .filter(|&k| ordered[k].0.field == *field)
+            .collect();
+        let uv: Vec<(f64, f64)> = ks
+            .iter()
+            .map(|&k| frame.local(centroids[k].0, centroids[k].1))
+            .collect();
+        let (u0, v0) = uv.iter().fold((f64::INFINITY, f64::INFINITY), |a, b| {
+            (a.0.min(b.0), a.1.min(b.1))
+        });
+        let r_along = ranks(&uv.iter().map(|c| c.0).collect::<Vec<_>>(), 0.5 * len);
+        let r_across = ranks(&uv.iter().map(|c| c.1).collect::<Vec<_>>(), 0.5 * wid);
+        for (n, &k) in ks.iter().enumerate() {
+            local[k] = (uv[n].0 - u0, uv[n].1 - v0);
+            grid[k] = (r_along[n], r_across[n]);
+        }
+    }
+    PlotGrid {
+        centroids,
+        local,
+        grid,
+    }
+}
+
+/// A rule a plot breaks, as (rule, column, value, limit): too few records for its net plot,
+/// too little of it harvested, or a mean outside the crop's plot bounds.
+fn set_aside_reason(
+    members: &[usize],
+    points: &[CleanPoint],
+    interval: &HashMap<u32, f64>,
+    f: &PlotFigures,
+    s: &PlotsSettings,
+    plot_bounds: Option<(f64, f64)>,
+) -> Option<(&'static str, &'static str, String, String)> {
+    let (n, net_area, cov, y_mean) = (members.len() as u64, f.net_area, f.coverage, f.yield_mean);
+    // Records in one-second terms: a record of an export logging every 3 s counts 3.
+    let seconds: f64 = members
+        .iter()
+        .map(|&i| {
+            interval
+                .get(&points[i].base.file)
+                .copied()
+                .unwrap_or(1.0)
+                .max(1.0)
+        })
+        .sum();
+    // The records a complete harvest of the net plot gives at the plot's median speed
+    // and swath, in one-second terms; NaN where either is unknown.
+    let expected_s = {
+        let speeds: Vec<f64> = members
+            .iter()
+            .map(|&i| points[i].base.speed_m_s)
+            .filter(|v| v.is_finite() && *v > 0.0)
+            .collect();
+        let widths: Vec<f64> = members
+            .iter()
+            .map(|&i| points[i].base.width_m)
+            .filter(|v| v.is_finite() && *v > 0.0)
+            .collect();
+        net_area / (median(&speeds) * median(&widths))
+    };
+    let need = s.min_points_for(expected_s);
+    if seconds < need {
+        Some((
+            "min_points",
+            "points",
+            if seconds == n as f64 {
+                n.to_string()
+            } else {
+                format!("{n} records of {seconds:.0} s")
+            },
+            if need < s.min_points as f64 {
+                format!(
+                    ">= {need} (plots.min_points = {}, at most {} of the {expected_s:.1} s a complete harvest of the net plot gives)",
+                    s.min_points, s.min_points_max_fraction
+                )
+            } else {
+                format!(">= {}", s.min_points)
+            },
+        ))
+    } else if cov < s.min_coverage {
+        Some((
+            "min_coverage",
+            "coverage",
+            format!("{cov:.3}"),
+            format!(">= {}", s.min_coverage),
+        ))
+    } else if let Some((lo, hi)) = plot_bounds.filter(|(lo, hi)| !(*lo..=*hi).contains(&y_mean)) {
+        Some((
+            "plot_yield_bounds",
+            "yield_mean",
+            format!("{y_mean:.0} kg/ha"),
+            format!("{lo}-{hi} kg/ha (crop.plot_yield_min_kg_ha and plot_yield_max_kg_ha)"),
+        ))
+    } else {
+        None
+    }
+}
+
+/// What the set-aside rules read of a plot besides its records.
+struct PlotFigures {
+    net_area: f64,
+    coverage: f64,
+    yield_mean: f64,
+}
+
+/// Each plot's coverage (the raster of its footprints), plots in parallel.
+fn coverages(
+    members: &[Vec<usize>],
+    points: &[CleanPoint],
+    nets: &[Option<Vec<(f64, f64)>>],
+    footprint: &[[(f64, f64); 4]],
+    s: &PlotsSettings,
+) -> Vec<f64> {
+    (0..members.len())
+        .into_par_iter()
+        .map(|k| {
+            let net_ring = nets[k].as_deref().unwrap_or_default();
+            // Without a swath width (a yield-point export without one) the harvested area
+            // is unknown: coverage is NaN and min_coverage does not apply.
+            let widths_known = members[k]
+                .iter()
+                .any(|&i| points[i].base.width_m.is_finite());
+            if net_ring.is_empty() {
+                0.0
+            } else if !widths_known {
+                f64::NAN
+            } else {
+                let fps: Vec<&[(f64, f64)]> = members[k]
+                    .iter()
+                    .map(|&i| footprint[i].as_slice())
+                    .collect();
+                geometry::coverage(net_ring, &fps, s.coverage_cell_m)
+            }
+        })
+        .collect()
+}
+
+/// Each plot's yield mean, median, trimmed mean and SD and its mean moisture, plots in
+/// parallel.
+fn statistics(members: &[Vec<usize>], points: &[CleanPoint], s: &PlotsSettings) -> Vec<[f64; 5]> {
+    members
+        .par_iter()
+        .map(|m| {
+            let ys: Vec<f64> = m.iter().map(|&i| points[i].yield_std_kg_ha).collect();
+            let ms: Vec<f64> = m.iter().map(|&i| points[i].moisture_shifted_pct).collect();
+            [
+                mean(&ys),
+                median(&ys),
+                trimmed_mean(&ys, s.trim_fraction),
+                sd(&ys),
+                mean(&ms),
+            ]
+        })
+        .collect()
+}
+
+/// Each net ring closed as a polygon.
+fn net_polygons(nets: &[Option<Vec<(f64, f64)>>]) -> Vec<Option<Polygon<f64>>> {
+    nets.iter()
+        .map(|n| {
+            n.as_ref().map(|r| {
+                let mut ring = r.clone();
+                ring.push(r[0]);
+                Polygon::new(LineString::from(ring), vec![])
+            })
+        })
+        .collect()
+}
+
+/// The warning for plots the trims leave nothing of (with the end trims capped by the plot's
+/// length, only a side trim of half the plot's width or more, or a degenerate polygon),
+/// naming up to ten.
+fn too_small_warning(
+    ordered: &[(&DesignRow, &PlotPolygon)],
+    nets: &[Option<Vec<(f64, f64)>>],
+    s: &PlotsSettings,
+) -> Option<String> {
+    let untrimmable: Vec<&str> = ordered
+        .iter()
+        .zip(nets)
+        .filter(|(_, n)| n.is_none())
+        .map(|((d, _), _)| d.plot_id.as_str())
+        .collect();
+    if untrimmable.is_empty() {
+        return None;
+    }
+    let shown: Vec<&str> = untrimmable.iter().take(10).copied().collect();
+    Some(format!(
+        "{} plot(s) are too small for their trims, so none of their points can count: {}{}; each side loses plots.side_trim_m = {} m (set it below half the plot's width) and each end plots.end_trim_m = {} m, at most plots.end_trim_max_fraction = {} of the plot's length",
+        untrimmable.len(),
+        shown.join(", "),
+        if untrimmable.len() > 10 { format!(" and {} more", untrimmable.len() - 10) } else { String::new() },
+        s.side_trim_m,
+        s.end_trim_m,
+        s.end_trim_max_fraction
+    ))
+}
+
+/// The join's outcome: each record's plot or rejection row, each plot's records, and the
+/// records per export and field.
+struct Assigned {
+    /// (record, plot) for every record that joined a plot.
+    assignment: Vec<(usize, usize)>,
+    rejections: Vec<Rejection>,
+    members: Vec<Vec<usize>>,
+    export_fields: BTreeMap<String, BTreeMap<String, u64>>,
+}
+
+/// Join every record to its plot (or a rejection row) and gather each plot's records.
+fn assign(
+    points: &[CleanPoint],
+    files: &[String],
+    ordered: &[(&DesignRow, &PlotPolygon)],
+    layout: &join::Layout,
+    s: &PlotsSettings,
+    texts: &mut Texts,
+) -> Assigned {
+    let joined = join::join(points, layout, s, texts);
+    let mut assignment = Vec::new();
+    let mut rejections = Vec::new();
+    let mut members: Vec<Vec<usize>> = vec![Vec::new(); ordered.len()];
+    // Points per (export, plot), gathered into exports and fields below.
+    let mut per_export_plot: HashMap<(u32, usize), u64> = HashMap::new();
+    let file_texts: Vec<_> = files.iter().map(|f| texts.get(f)).collect();
+    for (i, j) in joined.into_iter().enumerate() {
+        match j {
+            join::Joined::Rejected(v) => {
+                let p = &points[i].base;
+                rejections.push(Rejection {
+                    source_file: file_texts[p.file as usize].clone(),
+                    source_row: p.row,
+                    id: p.id.to_string(),
+                    rule: texts.get(v.rule),
+                    column: texts.get(v.column),
+                    value: v.value,
+                    limit: v.limit,
+                });
+            }
+            join::Joined::Plot(k) => {
+                assignment.push((i, k));
+                members[k].push(i);
+                *per_export_plot.entry((points[i].base.file, k)).or_default() += 1;
+            }
+        }
+    }
+    let mut export_fields: BTreeMap<String, BTreeMap<String, u64>> = BTreeMap::new();
+    for ((f, k), n) in per_export_plot {
+        *export_fields
+            .entry(files[f as usize].clone())
+            .or_default()
+            .entry(ordered[k].0.field.clone())
+            .or_default() += n;
+    }
+    Assigned {
+        assignment,
+        rejections,
+        members,
+        export_fields,
     }
 }
 

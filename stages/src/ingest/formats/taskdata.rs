@@ -250,11 +250,6 @@ fn read_log(
     let mut last_moisture = f64::NAN;
     let mut at = 0usize;
     let mut row = 0u64;
-    let take = |at: &mut usize, n: usize| -> Option<&[u8]> {
-        let s = bin.get(*at..*at + n)?;
-        *at += n;
-        Some(s)
-    };
     while at < bin.len() {
         if row >= MAX_LEADING_UNUSABLE && out.points.len() == first_point {
             return Err(format!(
@@ -273,69 +268,30 @@ fn read_log(
                 "a whole time-log record (the file ends inside one)",
             )
         };
-        let Some(t) = take(&mut at, 6) else {
-            out.rejections.push(cut(row));
-            out.rows += 1;
-            break;
-        };
-        let ms = u32::from_le_bytes([t[0], t[1], t[2], t[3]]);
-        let days = u16::from_le_bytes([t[4], t[5]]);
-        let mut pos = [f64::NAN; 9];
-        let mut whole = true;
-        for k in 0..9 {
-            pos[k] = match h.ptn[k] {
-                Field::Absent => f64::NAN,
-                Field::Fixed(v) => v,
-                Field::InRecord => match take(&mut at, PTN_BYTES[k]) {
-                    None => {
-                        whole = false;
-                        break;
-                    }
-                    Some(b) => match PTN_BYTES[k] {
-                        4 if k < 3 => i32::from_le_bytes([b[0], b[1], b[2], b[3]]) as f64,
-                        4 => u32::from_le_bytes([b[0], b[1], b[2], b[3]]) as f64,
-                        2 => u16::from_le_bytes([b[0], b[1]]) as f64,
-                        _ => b[0] as f64,
-                    },
-                },
-            };
-        }
-        let count = if whole { take(&mut at, 1) } else { None };
-        let Some(count) = count else {
-            out.rejections.push(cut(row));
-            out.rows += 1;
-            break;
-        };
-        let mut bad_index = None;
-        for _ in 0..count[0] {
-            let Some(v) = take(&mut at, 5) else {
-                whole = false;
+        let (ms, days, pos) = match next_record(h, bin, &mut at, &mut last) {
+            Record::Cut => {
+                out.rejections.push(cut(row));
+                out.rows += 1;
                 break;
-            };
-            let idx = v[0] as usize;
-            let value = i32::from_le_bytes([v[1], v[2], v[3], v[4]]);
-            match last.get_mut(idx) {
-                Some(slot) => *slot = Some(value),
-                None => bad_index = Some(idx),
             }
-        }
-        out.rows += 1;
-        if !whole {
-            out.rejections.push(cut(row));
-            break;
-        }
-        if let Some(idx) = bad_index {
-            // The rest of the log cannot be trusted to line up either.
-            out.rejections.push(reject(
-                source,
-                row,
-                "unreadable_row",
-                "DLV",
-                &idx.to_string(),
-                &format!("a data log value index below {}", h.dlv.len()),
-            ));
-            break;
-        }
+            Record::BadIndex(idx) => {
+                out.rows += 1;
+                // The rest of the log cannot be trusted to line up either.
+                out.rejections.push(reject(
+                    source,
+                    row,
+                    "unreadable_row",
+                    "DLV",
+                    &idx.to_string(),
+                    &format!("a data log value index below {}", h.dlv.len()),
+                ));
+                break;
+            }
+            Record::Whole { ms, days, pos } => {
+                out.rows += 1;
+                (ms, days, pos)
+            }
+        };
         // Positions: the header's fixed values are in degrees, the records' in 1e-7.
         let deg = |k: usize| match h.ptn[k] {
             Field::InRecord => pos[k] * 1e-7,
@@ -422,6 +378,65 @@ fn read_log(
     }
     out.zero_moisture.push(zeros);
     Ok(())
+}
+
+/// One time-log record as read.
+enum Record {
+    /// The file ends inside the record.
+    Cut,
+    /// A data log value index the header does not have.
+    BadIndex(usize),
+    /// Time (milliseconds of the day, days since 1980-01-01) and the nine position fields.
+    Whole { ms: u32, days: u16, pos: [f64; 9] },
+}
+
+/// Read the record at `at` (moved past it); the data log values it carries update `last`.
+fn next_record(h: &Header, bin: &[u8], at: &mut usize, last: &mut [Option<i32>]) -> Record {
+    let take = |at: &mut usize, n: usize| -> Option<&[u8]> {
+        let s = bin.get(*at..*at + n)?;
+        *at += n;
+        Some(s)
+    };
+    let Some(t) = take(at, 6) else {
+        return Record::Cut;
+    };
+    let ms = u32::from_le_bytes([t[0], t[1], t[2], t[3]]);
+    let days = u16::from_le_bytes([t[4], t[5]]);
+    let mut pos = [f64::NAN; 9];
+    for k in 0..9 {
+        pos[k] = match h.ptn[k] {
+            Field::Absent => f64::NAN,
+            Field::Fixed(v) => v,
+            Field::InRecord => match take(at, PTN_BYTES[k]) {
+                None => return Record::Cut,
+                Some(b) => match PTN_BYTES[k] {
+                    4 if k < 3 => i32::from_le_bytes([b[0], b[1], b[2], b[3]]) as f64,
+                    4 => u32::from_le_bytes([b[0], b[1], b[2], b[3]]) as f64,
+                    2 => u16::from_le_bytes([b[0], b[1]]) as f64,
+                    _ => b[0] as f64,
+                },
+            },
+        };
+    }
+    let Some(count) = take(at, 1) else {
+        return Record::Cut;
+    };
+    let mut bad_index = None;
+    for _ in 0..count[0] {
+        let Some(v) = take(at, 5) else {
+            return Record::Cut;
+        };
+        let idx = v[0] as usize;
+        let value = i32::from_le_bytes([v[1], v[2], v[3], v[4]]);
+        match last.get_mut(idx) {
+            Some(slot) => *slot = Some(value),
+            None => bad_index = Some(idx),
+        }
+    }
+    match bad_index {
+        Some(idx) => Record::BadIndex(idx),
+        None => Record::Whole { ms, days, pos },
+    }
 }
 
 /// The swath a log without a working width falls back to: `columns.width.value` (in
