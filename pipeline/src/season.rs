@@ -184,119 +184,14 @@ fn fit_and_write(
         .collect::<Result<_>>()?;
     let first = &trials[0];
     let (crop, check) = (&first.contrasts.crop, &first.contrasts.check);
-    let mut names: BTreeMap<&str, &str> = BTreeMap::new();
-    for t in &trials {
-        if &t.contrasts.crop != crop || &t.contrasts.check != check {
-            bail!(
-                "trial {}: crop {:?} and check {:?}, but trial {} has crop {crop:?} and check {check:?}; a season compares products against one check in one crop",
-                t.file, t.contrasts.crop, t.contrasts.check, first.file
-            );
-        }
-        if let Some(other) = names.insert(&t.name, &t.file) {
-            bail!(
-                "trials {other} and {} are both named {:?}; give each trial its own trial.name",
-                t.file,
-                t.name
-            );
-        }
-    }
+    check_trials(&trials)?;
     let unit = YieldUnit::new(meta.output_unit.unwrap_or(first.unit), &first.crop);
     let k = unit.kg_ha_per_unit();
     let mut warnings: Vec<String> = Vec::new();
-    for (old, there) in [
-        ("grain_price_per_t", meta.grain_price_per_t.is_some()),
-        ("product_cost_per_ha", meta.product_cost_per_ha.is_some()),
-    ] {
-        if there {
-            let hint = plotsieve_stages::config::renamed(&format!("adjust.{old}"))
-                .unwrap_or_default()
-                .replace("adjust.", "season.");
-            bail!("{}: {hint}", season_file.display());
-        }
-    }
-    for p in [
-        ("grain_price", meta.grain_price),
-        ("interaction_sd_u", meta.interaction_sd_u),
-    ] {
-        if !(p.1 >= 0.0 && p.1.is_finite()) {
-            bail!(
-                "{}: season.{} must be a finite number >= 0 (got {})",
-                season_file.display(),
-                p.0,
-                p.1
-            );
-        }
-    }
-    for (name, c) in &meta.product_cost {
-        if !(*c >= 0.0 && c.is_finite()) {
-            bail!(
-                "{}: season.product_cost.{name} must be a finite number >= 0 (got {c})",
-                season_file.display()
-            );
-        }
-    }
-    let mut s = FitSettings::new(check);
-    s.kg_ha_per_unit = k;
-    s.interaction_sd_u = meta.interaction_sd_u * k;
-    let money = plotsieve_stages::adjust::settings::Money {
-        grain_price: meta.grain_price,
-        grain_price_unit: meta.grain_price_unit.unwrap_or(PriceUnit::Tonne),
-        product_cost_unit: meta.product_cost_unit.unwrap_or(AreaUnit::Hectare),
-    };
-    s.grain_price_per_t =
-        money.grain_price * 1000.0 / money.grain_price_unit.kg(first.crop.bushel_lb);
-    s.product_cost_per_ha = meta
-        .product_cost
-        .iter()
-        .map(|(p, c)| (p.clone(), c / money.product_cost_unit.ha()))
-        .collect();
-    s.money = money;
-    let mut locs = Vec::new();
-    let mut small = Vec::new();
-    for t in &trials {
-        for m in &t.missing {
-            warnings.push(format!("trial {}: {m}", t.name));
-        }
-        for f in &t.contrasts.fields {
-            if f.plots < SMALL_FIELD_PLOTS {
-                small.push(format!("{} · {} ({} plots)", t.name, f.field, f.plots));
-            }
-            locs.push(Location {
-                trial: t.name.clone(),
-                one: f.clone(),
-            });
-        }
-    }
-    if !small.is_empty() {
-        warnings.push(format!(
-            "{} of {} fields have fewer than {SMALL_FIELD_PLOTS} kept plots; a small field's stage-one summary is rougher, so the season estimates may differ from a joint fit of the same fields by up to about a quarter of a posterior SD and new-field intervals cover a little less than they say (README, season checks): {}",
-            small.len(),
-            locs.len(),
-            small.join(", ")
-        ));
-    }
+    let s = season_settings(season_file, meta, check, first, k)?;
+    let locs = locations(&trials, &mut warnings);
     let fit = season::fit(&locs, &s).map_err(|e| anyhow!("{}: {e}", season_file.display()))?;
-    let known: Vec<&String> = meta.product_cost.keys().collect();
-    for p in known {
-        if !fit.products.iter().any(|r| &r.treatment == p) {
-            warnings.push(format!(
-                "season.product_cost names {p}, which no trial's fields hold"
-            ));
-        }
-    }
-    for r in &fit.products {
-        let n = fit
-            .locations
-            .iter()
-            .filter(|l| l.product == r.treatment)
-            .count();
-        if n == 1 {
-            warnings.push(format!(
-                "product {} is in one field only; its season estimate is that field's, and its new-field odds rest on the other products' spread between fields",
-                r.treatment
-            ));
-        }
-    }
+    product_warnings(&fit, meta, &mut warnings);
     let parent = out
         .parent()
         .map(Path::to_path_buf)
@@ -414,4 +309,146 @@ fn fit_and_write(
         );
     }
     Ok(())
+}
+
+/// One crop and one check across the season's trials, and a name for each trial.
+fn check_trials(trials: &[TrialRead]) -> Result<()> {
+    let first = &trials[0];
+    let (crop, check) = (&first.contrasts.crop, &first.contrasts.check);
+    let mut names: BTreeMap<&str, &str> = BTreeMap::new();
+    for t in trials {
+        if &t.contrasts.crop != crop || &t.contrasts.check != check {
+            bail!(
+                "trial {}: crop {:?} and check {:?}, but trial {} has crop {crop:?} and check {check:?}; a season compares products against one check in one crop",
+                t.file, t.contrasts.crop, t.contrasts.check, first.file
+            );
+        }
+        if let Some(other) = names.insert(&t.name, &t.file) {
+            bail!(
+                "trials {other} and {} are both named {:?}; give each trial its own trial.name",
+                t.file,
+                t.name
+            );
+        }
+    }
+    Ok(())
+}
+
+/// The fit's settings from the season file's `[season]` (prices and the product x field
+/// prior), each value checked.
+fn season_settings(
+    season_file: &Path,
+    meta: &crate::intake::SeasonMeta,
+    check: &str,
+    first: &TrialRead,
+    k: f64,
+) -> Result<FitSettings> {
+    for (old, there) in [
+        ("grain_price_per_t", meta.grain_price_per_t.is_some()),
+        ("product_cost_per_ha", meta.product_cost_per_ha.is_some()),
+    ] {
+        if there {
+            let hint = plotsieve_stages::config::renamed(&format!("adjust.{old}"))
+                .unwrap_or_default()
+                .replace("adjust.", "season.");
+            bail!("{}: {hint}", season_file.display());
+        }
+    }
+    for p in [
+        ("grain_price", meta.grain_price),
+        ("interaction_sd_u", meta.interaction_sd_u),
+    ] {
+        if !(p.1 >= 0.0 && p.1.is_finite()) {
+            bail!(
+                "{}: season.{} must be a finite number >= 0 (got {})",
+                season_file.display(),
+                p.0,
+                p.1
+            );
+        }
+    }
+    for (name, c) in &meta.product_cost {
+        if !(*c >= 0.0 && c.is_finite()) {
+            bail!(
+                "{}: season.product_cost.{name} must be a finite number >= 0 (got {c})",
+                season_file.display()
+            );
+        }
+    }
+    let mut s = FitSettings::new(check);
+    s.kg_ha_per_unit = k;
+    s.interaction_sd_u = meta.interaction_sd_u * k;
+    let money = plotsieve_stages::adjust::settings::Money {
+        grain_price: meta.grain_price,
+        grain_price_unit: meta.grain_price_unit.unwrap_or(PriceUnit::Tonne),
+        product_cost_unit: meta.product_cost_unit.unwrap_or(AreaUnit::Hectare),
+    };
+    s.grain_price_per_t =
+        money.grain_price * 1000.0 / money.grain_price_unit.kg(first.crop.bushel_lb);
+    s.product_cost_per_ha = meta
+        .product_cost
+        .iter()
+        .map(|(p, c)| (p.clone(), c / money.product_cost_unit.ha()))
+        .collect();
+    s.money = money;
+    Ok(s)
+}
+
+/// Every field of every trial as a location, with warnings for missing fields and small
+/// ones.
+fn locations(trials: &[TrialRead], warnings: &mut Vec<String>) -> Vec<Location> {
+    let mut locs = Vec::new();
+    let mut small = Vec::new();
+    for t in trials {
+        for m in &t.missing {
+            warnings.push(format!("trial {}: {m}", t.name));
+        }
+        for f in &t.contrasts.fields {
+            if f.plots < SMALL_FIELD_PLOTS {
+                small.push(format!("{} · {} ({} plots)", t.name, f.field, f.plots));
+            }
+            locs.push(Location {
+                trial: t.name.clone(),
+                one: f.clone(),
+            });
+        }
+    }
+    if !small.is_empty() {
+        warnings.push(format!(
+            "{} of {} fields have fewer than {SMALL_FIELD_PLOTS} kept plots; a small field's stage-one summary is rougher, so the season estimates may differ from a joint fit of the same fields by up to about a quarter of a posterior SD and new-field intervals cover a little less than they say (README, season checks): {}",
+            small.len(),
+            locs.len(),
+            small.join(", ")
+        ));
+    }
+    locs
+}
+
+/// Warnings on the fit's products: priced products no trial holds, products in one field.
+fn product_warnings(
+    fit: &season::SeasonFit,
+    meta: &crate::intake::SeasonMeta,
+    warnings: &mut Vec<String>,
+) {
+    let known: Vec<&String> = meta.product_cost.keys().collect();
+    for p in known {
+        if !fit.products.iter().any(|r| &r.treatment == p) {
+            warnings.push(format!(
+                "season.product_cost names {p}, which no trial's fields hold"
+            ));
+        }
+    }
+    for r in &fit.products {
+        let n = fit
+            .locations
+            .iter()
+            .filter(|l| l.product == r.treatment)
+            .count();
+        if n == 1 {
+            warnings.push(format!(
+                "product {} is in one field only; its season estimate is that field's, and its new-field odds rest on the other products' spread between fields",
+                r.treatment
+            ));
+        }
+    }
 }

@@ -37,7 +37,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         })
         .collect();
     let money = cfg.adjust.money();
-    let md = report::markdown(&report::ReportInput {
+    let md = report::markdown::render(&report::ReportInput {
         trial_name: &cfg.trial.name,
         unit_label: unit.label(),
         check: &cfg.trial.check,

@@ -26,44 +26,7 @@ pub(crate) fn fit_joint(
     s: &FitSettings,
 ) -> Option<JointFit> {
     let nf = preps.len();
-    // Groups: (log weight, per field: candidate points with log weights).
-    let mut groups: Vec<(f64, Vec<Vec<(f64, (i64, i64), usize)>>)> = Vec::new();
-    if shared {
-        let lat = &lats[0];
-        for &k in &lat.keys {
-            let l = preps[0].model.nodes[&k].l;
-            let lg = preps[0].model.log_prior_range(l, lat.rho0) + lat.lvol;
-            let per: Vec<Vec<(f64, (i64, i64), usize)>> = preps
-                .iter()
-                .map(|p| {
-                    p.model.nodes[&k]
-                        .points
-                        .iter()
-                        .enumerate()
-                        .map(|(i, pt)| (pt.lw, k, i))
-                        .collect()
-                })
-                .collect();
-            groups.push((lg, per));
-        }
-    } else {
-        let per = preps
-            .iter()
-            .zip(lats)
-            .map(|(p, lat)| {
-                let mut v = Vec::new();
-                for &k in &lat.keys {
-                    let node = &p.model.nodes[&k];
-                    let lpr = p.model.log_prior_range(node.l, lat.rho0) + lat.lvol;
-                    for (i, pt) in node.points.iter().enumerate() {
-                        v.push((lpr + pt.lw, k, i));
-                    }
-                }
-                v
-            })
-            .collect();
-        groups.push((0.0, per));
-    }
+    let groups = groups_of(preps, lats, shared);
     let u = if s.interaction_sd_u > 0.0 {
         s.interaction_sd_u
     } else {
@@ -74,17 +37,7 @@ pub(crate) fn fit_joint(
     } else {
         vec![(0.0, 0.0)]
     };
-    let fit_of = |g: usize, f: usize, i: usize| -> &spectral::Inner {
-        let (_, k, idx) = groups[g].1[f][i];
-        &preps[f].model.nodes[&k].points[idx].fit
-    };
-    // Per cell (group, interaction SD) and field: the proposal (the field's own posterior
-    // over its points, tilted by `cavity_tilt`), its log normaliser and the log tilt of
-    // each point. Points below 1e-8 of a field's total are left out.
-    struct Prop {
-        cdf: Vec<f64>,
-        lnf: Vec<f64>,
-    }
+    let fit_of = |g: usize, f: usize, i: usize| fit_at(preps, &groups, g, f, i);
     // Cells whose mass, judged at each field's best point, is below e^-30 of the largest are
     // left out before the (costlier) tilt.
     let screen: Vec<((usize, usize), f64)> = (0..groups.len())
@@ -114,54 +67,7 @@ pub(crate) fn fit_joint(
         .filter(|x| x.1 > smax - 30.0)
         .map(|x| x.0)
         .collect();
-    let cell_props: Vec<(f64, Vec<Prop>)> = cells
-        .par_iter()
-        .map(|&(g, j)| {
-            let per = &groups[g].1;
-            let lzs: Vec<f64> = per
-                .iter()
-                .map(|c| log_sum_exp(c.iter().map(|x| x.0)))
-                .collect();
-            let cands: Vec<Vec<(&spectral::Inner, f64)>> = per
-                .iter()
-                .enumerate()
-                .map(|(f, c)| {
-                    c.iter()
-                        .enumerate()
-                        .map(|(i, x)| {
-                            let lp = x.0 - lzs[f];
-                            (
-                                fit_of(g, f, i),
-                                if lp > -18.4 { lp } else { f64::NEG_INFINITY },
-                            )
-                        })
-                        .collect()
-                })
-                .collect();
-            let lnf = joint::cavity_tilt(&cands, maps, global, snodes[j].0, 2);
-            let mut lpre = groups[g].0 + snodes[j].1;
-            let props = cands
-                .iter()
-                .zip(lnf)
-                .enumerate()
-                .map(|(f, (c, lnf))| {
-                    let lq: Vec<f64> = c.iter().zip(&lnf).map(|((_, lp), t)| lp + t).collect();
-                    let lt = log_sum_exp(lq.iter().cloned());
-                    lpre += lzs[f] + lt;
-                    let mut acc = 0.0;
-                    let cdf = lq
-                        .iter()
-                        .map(|v| {
-                            acc += (v - lt).exp();
-                            acc
-                        })
-                        .collect();
-                    Prop { cdf, lnf }
-                })
-                .collect();
-            (lpre, props)
-        })
-        .collect();
+    let cell_props = proposals(preps, &groups, &cells, &snodes, maps, global);
     let cells: Vec<(usize, usize, f64)> = cells
         .iter()
         .zip(&cell_props)
@@ -238,28 +144,7 @@ pub(crate) fn fit_joint(
     let z = log_sum_exp(weighted.iter().map(|x| x.0));
     let ws: Vec<f64> = weighted.iter().map(|x| (x.0 - z).exp()).collect();
     let ess = 1.0 / ws.iter().map(|w| w * w).sum::<f64>();
-    // Keep the draws above 1e-10 of the largest; beyond 3,000, resample systematically.
-    let mut idx: Vec<usize> = (0..weighted.len()).collect();
-    idx.sort_by(|&a, &b| ws[b].total_cmp(&ws[a]).then(a.cmp(&b)));
-    let wmax = ws[idx[0]];
-    idx.retain(|&i| ws[i] > 1e-10 * wmax);
-    let chosen: Vec<(f64, usize)> = if idx.len() > 3000 {
-        let total: f64 = idx.iter().map(|&i| ws[i]).sum();
-        let k = 3000;
-        let mut out: BTreeMap<usize, f64> = BTreeMap::new();
-        let mut acc = 0.0;
-        let mut next = 0.5 / k as f64;
-        for &i in &idx {
-            acc += ws[i] / total;
-            while next < acc {
-                *out.entry(i).or_default() += 1.0 / k as f64;
-                next += 1.0 / k as f64;
-            }
-        }
-        out.into_iter().map(|(i, w)| (w, i)).collect()
-    } else {
-        idx.iter().map(|&i| (ws[i], i)).collect()
-    };
+    let chosen = keep_draws(&ws);
     let comps = chosen
         .par_iter()
         .filter_map(|&(w, i)| {
@@ -281,6 +166,159 @@ pub(crate) fn fit_joint(
         ess,
         draws: weighted.len(),
     })
+}
+
+/// A group of the importance proposal: its log weight and, per field, the candidate points
+/// (log weight, node key, index).
+type Group = (f64, Vec<Vec<(f64, (i64, i64), usize)>>);
+
+/// Groups: one per shared length scale (each field's points at it), or one group (each
+/// field's points over its whole lattice).
+fn groups_of(preps: &[Prepared], lats: &[Lattice], shared: bool) -> Vec<Group> {
+    let mut groups: Vec<Group> = Vec::new();
+    if shared {
+        let lat = &lats[0];
+        for &k in &lat.keys {
+            let l = preps[0].model.nodes[&k].l;
+            let lg = preps[0].model.log_prior_range(l, lat.rho0) + lat.lvol;
+            let per: Vec<Vec<(f64, (i64, i64), usize)>> = preps
+                .iter()
+                .map(|p| {
+                    p.model.nodes[&k]
+                        .points
+                        .iter()
+                        .enumerate()
+                        .map(|(i, pt)| (pt.lw, k, i))
+                        .collect()
+                })
+                .collect();
+            groups.push((lg, per));
+        }
+    } else {
+        let per = preps
+            .iter()
+            .zip(lats)
+            .map(|(p, lat)| {
+                let mut v = Vec::new();
+                for &k in &lat.keys {
+                    let node = &p.model.nodes[&k];
+                    let lpr = p.model.log_prior_range(node.l, lat.rho0) + lat.lvol;
+                    for (i, pt) in node.points.iter().enumerate() {
+                        v.push((lpr + pt.lw, k, i));
+                    }
+                }
+                v
+            })
+            .collect();
+        groups.push((0.0, per));
+    }
+    groups
+}
+
+/// Point `i` of field `f` in group `g`: its inner fit.
+fn fit_at<'a>(
+    preps: &'a [Prepared],
+    groups: &[Group],
+    g: usize,
+    f: usize,
+    i: usize,
+) -> &'a spectral::Inner {
+    let (_, k, idx) = groups[g].1[f][i];
+    &preps[f].model.nodes[&k].points[idx].fit
+}
+
+/// Per cell (group, interaction SD) and field: the proposal (the field's own posterior over
+/// its points, tilted by `cavity_tilt`) as a cumulative distribution, and the log tilt of
+/// each point. Points below 1e-8 of a field's total are left out.
+struct Prop {
+    cdf: Vec<f64>,
+    lnf: Vec<f64>,
+}
+
+/// Each cell's log weight before the draws (group, interaction node and the proposals'
+/// normalisers) and its proposals, cells in parallel.
+fn proposals(
+    preps: &[Prepared],
+    groups: &[Group],
+    cells: &[(usize, usize)],
+    snodes: &[(f64, f64)],
+    maps: &[FieldMap],
+    global: &EffectPrior,
+) -> Vec<(f64, Vec<Prop>)> {
+    cells
+        .par_iter()
+        .map(|&(g, j)| {
+            let per = &groups[g].1;
+            let lzs: Vec<f64> = per
+                .iter()
+                .map(|c| log_sum_exp(c.iter().map(|x| x.0)))
+                .collect();
+            let cands: Vec<Vec<(&spectral::Inner, f64)>> = per
+                .iter()
+                .enumerate()
+                .map(|(f, c)| {
+                    c.iter()
+                        .enumerate()
+                        .map(|(i, x)| {
+                            let lp = x.0 - lzs[f];
+                            (
+                                fit_at(preps, groups, g, f, i),
+                                if lp > -18.4 { lp } else { f64::NEG_INFINITY },
+                            )
+                        })
+                        .collect()
+                })
+                .collect();
+            let lnf = joint::cavity_tilt(&cands, maps, global, snodes[j].0, 2);
+            let mut lpre = groups[g].0 + snodes[j].1;
+            let props = cands
+                .iter()
+                .zip(lnf)
+                .enumerate()
+                .map(|(f, (c, lnf))| {
+                    let lq: Vec<f64> = c.iter().zip(&lnf).map(|((_, lp), t)| lp + t).collect();
+                    let lt = log_sum_exp(lq.iter().cloned());
+                    lpre += lzs[f] + lt;
+                    let mut acc = 0.0;
+                    let cdf = lq
+                        .iter()
+                        .map(|v| {
+                            acc += (v - lt).exp();
+                            acc
+                        })
+                        .collect();
+                    Prop { cdf, lnf }
+                })
+                .collect();
+            (lpre, props)
+        })
+        .collect()
+}
+
+/// The draws kept, as (weight, index): those above 1e-10 of the largest weight; beyond
+/// 3,000, resampled systematically.
+fn keep_draws(ws: &[f64]) -> Vec<(f64, usize)> {
+    let mut idx: Vec<usize> = (0..ws.len()).collect();
+    idx.sort_by(|&a, &b| ws[b].total_cmp(&ws[a]).then(a.cmp(&b)));
+    let wmax = ws[idx[0]];
+    idx.retain(|&i| ws[i] > 1e-10 * wmax);
+    if idx.len() > 3000 {
+        let total: f64 = idx.iter().map(|&i| ws[i]).sum();
+        let k = 3000;
+        let mut out: BTreeMap<usize, f64> = BTreeMap::new();
+        let mut acc = 0.0;
+        let mut next = 0.5 / k as f64;
+        for &i in &idx {
+            acc += ws[i] / total;
+            while next < acc {
+                *out.entry(i).or_default() += 1.0 / k as f64;
+                next += 1.0 / k as f64;
+            }
+        }
+        out.into_iter().map(|(i, w)| (w, i)).collect()
+    } else {
+        idx.iter().map(|&i| (ws[i], i)).collect()
+    }
 }
 
 /// A field's per-plot spatial effects under the joint posterior: its hyperparameter points

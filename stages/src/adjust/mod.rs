@@ -56,6 +56,7 @@
 //! (brute-force quadrature, slice sampler) and `reference` (dense Cholesky evaluations),
 //! and `tests`.
 
+mod assemble;
 mod compare;
 pub mod field;
 pub mod joint;
@@ -292,225 +293,16 @@ pub fn run_with(
         }
         None
     };
+    let c = assemble::Fitted {
+        preps: &preps,
+        maps: &maps,
+        global: &global,
+        products: &products,
+        s,
+    };
     match jf {
-        Some(jf) => {
-            out.joint_ess = jf.ess;
-            if jf.ess < 100.0 {
-                out.warnings.push(format!(
-                    "the joint fit's importance draws have an effective sample size of {:.0}; raise adjust.joint_draws",
-                    jf.ess
-                ));
-            }
-            for (f, (prep, mut fit)) in preps.iter().zip(own).enumerate() {
-                let m = &prep.model;
-                let nt = m.treatments.len();
-                fit.rows = (0..nt)
-                    .map(|t| {
-                        let est = Mixture::new(
-                            jf.comps
-                                .iter()
-                                .map(|(w, c, _, _)| (*w, c.est[f][t].0, c.est[f][t].1))
-                                .collect(),
-                        );
-                        let up = (t > 0).then(|| {
-                            Mixture::new(
-                                jf.comps
-                                    .iter()
-                                    .map(|(w, c, _, _)| {
-                                        (*w, c.delta[f][t - 1].0, c.delta[f][t - 1].1)
-                                    })
-                                    .collect(),
-                            )
-                        });
-                        let pr = (t > 0).then(|| {
-                            let g = maps[f].index[t - 1];
-                            (global.mean[g], global.var[g].sqrt())
-                        });
-                        treatment_row(
-                            s,
-                            &m.name,
-                            &m.treatments[t],
-                            prep.counts[t],
-                            Some(&est),
-                            up.as_ref(),
-                            pr,
-                        )
-                    })
-                    .collect();
-                let pts: Vec<(f64, [f64; 4])> = jf
-                    .comps
-                    .iter()
-                    .map(|(w, _, _, pick)| {
-                        let (k, i) = pick[f];
-                        (*w, m.nodes[&k].points[i].theta)
-                    })
-                    .collect();
-                let (range, across, sf, sn, share) = hyper_summaries(m, &pts);
-                let group_pts: Vec<(f64, &[f64])> = jf
-                    .comps
-                    .iter()
-                    .map(|(w, _, _, pick)| {
-                        let (k, i) = pick[f];
-                        (*w, m.nodes[&k].points[i].groups.as_slice())
-                    })
-                    .collect();
-                let h = &mut fit.hyper;
-                [h.row_sd, h.column_sd, h.block_sd] = random_sds(s, &group_pts);
-                (h.range_m, h.range_lo95_m, h.range_hi95_m) = (range.mean, range.lo95, range.hi95);
-                h.range_across = across;
-                (h.spatial_sd, h.spatial_sd_ci) = (sf.mean, sf);
-                (h.noise_sd, h.noise_sd_ci) = (sn.mean, sn);
-                (h.spatial_share, h.spatial_share_ci) = (share.mean, share);
-                fit.plots = Some(joint_plots(prep, f, &jf));
-                push_fit(&mut out, fit);
-            }
-            let inter =
-                Summary::from_weighted(jf.comps.iter().map(|(w, _, sv, _)| (*sv, *w)).collect());
-            let (range, across) = if shared {
-                let pts: Vec<(f64, [f64; 4])> = jf
-                    .comps
-                    .iter()
-                    .map(|(w, _, _, pick)| {
-                        let (k, i) = pick[0];
-                        (*w, preps[0].model.nodes[&k].points[i].theta)
-                    })
-                    .collect();
-                let (r, a, ..) = hyper_summaries(&preps[0].model, &pts);
-                (r, a)
-            } else {
-                (Summary::NONE, Summary::NONE)
-            };
-            out.hyper.push(FieldHyper {
-                field: "all".into(),
-                plots: preps.iter().map(|p| p.model.design.n() as u64).sum(),
-                range_m: range.mean,
-                range_lo95_m: range.lo95,
-                range_hi95_m: range.hi95,
-                range_across: across,
-                spatial_sd: f64::NAN,
-                spatial_sd_ci: Summary::NONE,
-                noise_sd: f64::NAN,
-                noise_sd_ci: Summary::NONE,
-                spatial_share: f64::NAN,
-                spatial_share_ci: Summary::NONE,
-                interaction_sd: inter,
-                row_sd: Summary::NONE,
-                column_sd: Summary::NONE,
-                block_sd: Summary::NONE,
-                log_marginal_likelihood: f64::NAN,
-                // The ESS is of every weighted draw; the mixture keeps the draws above 1e-10
-                // of the largest weight (at most 3,000, resampled beyond).
-                method: format!(
-                    "joint, {} draws, ESS {:.0}, {} kept",
-                    jf.draws,
-                    jf.ess,
-                    jf.comps.len()
-                ),
-                warning: String::new(),
-            });
-            let mut pooled: Vec<TreatmentRow> = vec![treatment_row(
-                s,
-                "all",
-                &s.check,
-                preps.iter().map(|p| p.counts[0]).sum(),
-                None,
-                None,
-                None,
-            )];
-            for (g, name) in products.iter().enumerate() {
-                let count = preps
-                    .iter()
-                    .zip(&maps)
-                    .filter_map(|(p, m)| {
-                        m.index
-                            .iter()
-                            .position(|&k| k == g)
-                            .map(|t| p.counts[t + 1])
-                    })
-                    .sum();
-                let parts: Vec<(f64, f64, f64, f64)> = jf
-                    .comps
-                    .iter()
-                    .map(|(w, c, sv, _)| (*w, c.beta_mean[g], c.beta_var[g], *sv))
-                    .collect();
-                pooled.push(pooled_row(
-                    s,
-                    name,
-                    count,
-                    &parts,
-                    (global.mean[g], global.var[g].sqrt()),
-                ));
-            }
-            out.treatments.extend(pooled);
-        }
-        None => {
-            let mut pool: BTreeMap<String, Vec<(f64, f64)>> = BTreeMap::new();
-            let mut counts: BTreeMap<String, u64> = BTreeMap::new();
-            // Each product's row in the field that holds it (the last one seen).
-            let mut field_row: BTreeMap<String, TreatmentRow> = BTreeMap::new();
-            // Each field's rows and plot effects under its own posterior (fields in parallel).
-            own.par_iter_mut().enumerate().for_each(|(i, fit)| {
-                let prep = &preps[keep[i]];
-                (fit.rows, fit.uplifts) = own_rows(prep, &fit.comps, &global, &maps[keep[i]], s);
-                if fit.plots.is_none() {
-                    fit.plots = Some(own_plots(prep, &fit.spatial_pts, fit.mode_spatial.take()));
-                }
-            });
-            for (i, fit) in own.into_iter().enumerate() {
-                let prep = &preps[keep[i]];
-                for (t, c) in prep.model.treatments.iter().zip(&prep.counts) {
-                    *counts.entry(t.clone()).or_default() += c;
-                }
-                for (t, u, v) in &fit.uplifts {
-                    pool.entry(t.clone()).or_default().push((*u, *v));
-                }
-                for r in &fit.rows {
-                    field_row.insert(r.treatment.clone(), r.clone());
-                }
-                push_fit(&mut out, fit);
-            }
-            // Pooled rows: inverse-variance weighted over the fields holding the product (a
-            // fixed-effect combination of separate fits; each field's uplift already carries
-            // the product prior, so an informative prior counts once per field here).
-            out.treatments.push(treatment_row(
-                s,
-                "all",
-                &s.check,
-                counts[&s.check],
-                None,
-                None,
-                None,
-            ));
-            for (t, v) in pool {
-                // A product in one field: its pooled row is that field's (the same posterior
-                // mixture, so the same intervals and probabilities, not a normal
-                // approximation of it).
-                if let (1, Some(r)) = (v.len(), field_row.get(&t)) {
-                    out.treatments.push(TreatmentRow {
-                        field: "all".into(),
-                        estimate: f64::NAN,
-                        sd: f64::NAN,
-                        lo95: f64::NAN,
-                        hi95: f64::NAN,
-                        ..r.clone()
-                    });
-                    continue;
-                }
-                let w: f64 = v.iter().map(|x| 1.0 / x.1).sum();
-                let up = v.iter().map(|x| x.0 / x.1).sum::<f64>() / w;
-                let mix = Mixture::new(vec![(1.0, up, 1.0 / w)]);
-                let g = products.iter().position(|p| *p == t).unwrap_or(0);
-                out.treatments.push(treatment_row(
-                    s,
-                    "all",
-                    &t,
-                    counts[&t],
-                    None,
-                    Some(&mix),
-                    Some((global.mean[g], global.var[g].sqrt())),
-                ));
-            }
-        }
+        Some(jf) => assemble::joint_rows(&c, &mut out, own, &jf, shared),
+        None => assemble::separate_rows(&c, &mut out, own, &keep),
     }
     out.missing_fields = missing_fields(plots, &out);
     Ok(out)

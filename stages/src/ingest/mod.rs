@@ -306,7 +306,7 @@ pub fn run_with(
                     .columns
                     .width
                     .value
-                    .map(|v| v * formats::mapped_text::width_factor(cfg.columns.width.unit)),
+                    .map(|v| v * formats::column_map::width_factor(cfg.columns.width.unit)),
                 source: label_source(cfg),
             },
         )

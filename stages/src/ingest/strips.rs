@@ -321,34 +321,9 @@ fn field(
     };
     let step_cap = 3.0 * logged_w.unwrap_or(f64::INFINITY);
     // 2. Direction of travel; consecutive records of one label.
-    let (mut c2, mut s2) = (0.0, 0.0);
-    let mut dts = Vec::new();
-    for pair in idx.windows(2) {
-        let (i, j) = (pair[0], pair[1]);
-        if j != i + 1 || points[i].file != points[j].file {
-            continue;
-        }
-        let dt = points[j].time_s - points[i].time_s;
-        if dt > 0.0 {
-            dts.push(dt);
-        }
-        if labels[i] != labels[j] {
-            continue;
-        }
-        let (dx, dy) = (points[j].x_m - points[i].x_m, points[j].y_m - points[i].y_m);
-        let l = dx.hypot(dy);
-        if l > 0.2 && l < step_cap {
-            let a = 2.0 * dy.atan2(dx);
-            c2 += l * a.cos();
-            s2 += l * a.sin();
-        }
-    }
-    if c2 == 0.0 && s2 == 0.0 {
-        return Err(format!(
-            "field {fname}: its labelled records give no direction of travel (no two consecutive records of one treatment a step apart)"
-        ));
-    }
-    let theta = 0.5 * s2.atan2(c2);
+    let (theta, dts) = travel_axis(points, labels, idx, step_cap).ok_or_else(|| {
+        format!("field {fname}: its labelled records give no direction of travel (no two consecutive records of one treatment a step apart)")
+    })?;
     let (ax, ay) = (theta.cos(), theta.sin());
     let (cx, cy) = (-ay, ax);
     let (ox, oy) = (points[idx[0]].x_m, points[idx[0]].y_m);
@@ -364,35 +339,7 @@ fn field(
     };
     // 3-4. Runs: consecutive records of one export with one label, split where the combine
     // moves more across travel than along it (a turn) or jumps along it.
-    let steps: Vec<f64> = idx
-        .windows(2)
-        .filter(|p| p[1] == p[0] + 1 && labels[p[0]] == labels[p[1]])
-        .filter(|p| points[p[0]].file == points[p[1]].file)
-        .map(|p| (uv(p[1]).0 - uv(p[0]).0).abs())
-        .filter(|d| *d > 0.05)
-        .collect();
-    let step = if steps.is_empty() {
-        1.0
-    } else {
-        median(&steps)
-    };
-    let jump = 5.0 * step + 2.0;
-    let mut runs: Vec<Vec<usize>> = Vec::new();
-    for &i in idx {
-        let joins = |r: &Vec<usize>| {
-            let j = *r.last().unwrap();
-            if j + 1 != i || points[i].file != points[j].file || labels[i] != labels[j] {
-                return false;
-            }
-            let ((u0, v0), (u1, v1)) = (uv(j), uv(i));
-            let (du, dv) = ((u1 - u0).abs(), (v1 - v0).abs());
-            du <= jump && !(dv > du && dv.hypot(du) > 0.2)
-        };
-        match runs.last_mut() {
-            Some(r) if joins(r) => r.push(i),
-            _ => runs.push(vec![i]),
-        }
-    }
+    let (runs, step) = runs_of(points, labels, idx, &uv);
     let (w, w_source) = match logged_w {
         Some(w) => (w, "logged (or columns.width.value)"),
         None => (
@@ -402,54 +349,18 @@ fn field(
             "estimated: the median spacing across travel of neighbouring passes (no width logged)",
         ),
     };
-    // Pieces: runs of one treatment (and strip name) joined where they lie within 1.25
-    // swaths across and overlap or come within 2.5 steps along.
-    let info: Vec<(f64, f64, f64)> = runs
-        .iter()
-        .map(|r| {
-            let u: Vec<f64> = r.iter().map(|&i| uv(i).0).collect();
-            let mut v: Vec<f64> = r.iter().map(|&i| uv(i).1).collect();
-            v.sort_by(f64::total_cmp);
-            (
-                u.iter().cloned().fold(f64::MAX, f64::min),
-                u.iter().cloned().fold(f64::MIN, f64::max),
-                v[v.len() / 2],
-            )
-        })
-        .collect();
+    // Pieces: runs joined along and across.
+    let (info, comps) = joined_runs(&runs, table, labels, &uv, w, step);
     let key = |r: &Vec<usize>| {
         let t = &table[labels[r[0]] as usize];
         (t[0].as_str(), t[1].as_str())
     };
-    let mut parent: Vec<usize> = (0..runs.len()).collect();
-    let mut by_key: BTreeMap<(&str, &str), Vec<usize>> = BTreeMap::new();
-    for (k, r) in runs.iter().enumerate() {
-        by_key.entry(key(r)).or_default().push(k);
-    }
-    for ((_, strip_name), members) in &by_key {
-        for (x, &a) in members.iter().enumerate() {
-            for &b in &members[x + 1..] {
-                let (p, q) = (info[a], info[b]);
-                let near = !strip_name.is_empty()
-                    || ((p.2 - q.2).abs() <= 1.25 * w && p.0.max(q.0) - p.1.min(q.1) <= 2.5 * step);
-                if near {
-                    let (ra, rb) = (find(&mut parent, a), find(&mut parent, b));
-                    parent[ra.max(rb)] = ra.min(rb);
-                }
-            }
-        }
-    }
-    let mut comps: BTreeMap<usize, Vec<usize>> = BTreeMap::new();
-    for k in 0..runs.len() {
-        let r = find(&mut parent, k);
-        comps.entry(r).or_default().push(k);
-    }
     let mut pieces: Vec<Piece> = Vec::new();
     // Pieces too short to be plots, in words.
     let mut short: Vec<String> = Vec::new();
     let mut stray = 0u64;
     let mut isolated = 0u64;
-    for ks in comps.values() {
+    for ks in &comps {
         let mut m: Vec<usize> = ks.iter().flat_map(|&k| runs[k].iter().copied()).collect();
         m.sort_unstable();
         let treatment = key(&runs[ks[0]]).0.to_string();
@@ -494,166 +405,43 @@ fn field(
             short.join("; ")
         ));
     }
-    // Strips across travel: pieces whose centres lie within half a swath of the first of
-    // the strip, numbered from 1 across.
-    pieces.sort_by(|a, b| {
-        (a.v0 + a.v1)
-            .total_cmp(&(b.v0 + b.v1))
-            .then(a.u0.total_cmp(&b.u0))
-    });
-    let mut nstrips = 0;
-    let mut first = f64::NEG_INFINITY;
-    for p in pieces.iter_mut() {
-        let c = 0.5 * (p.v0 + p.v1);
-        if c - first > 0.5 * w {
-            nstrips += 1;
-            first = c;
-        }
-        p.strip = nstrips;
-    }
-    // Neighbouring pieces that overlap across travel meet in the middle of the overlap.
-    for a in 0..pieces.len() {
-        for b in a + 1..pieces.len() {
-            let (p, q) = (&pieces[a], &pieces[b]);
-            let along = p.u1.min(q.u1) - p.u0.max(q.u0);
-            let across = p.v1.min(q.v1) - p.v0.max(q.v0);
-            if along <= 0.0 || across <= 0.0 || p.strip == q.strip {
-                continue;
-            }
-            let mid = 0.5 * (p.v0.max(q.v0) + p.v1.min(q.v1));
-            let (lo, hi) = if p.v0 + p.v1 <= q.v0 + q.v1 {
-                (a, b)
-            } else {
-                (b, a)
-            };
-            pieces[lo].v1 = pieces[lo].v1.min(mid);
-            pieces[hi].v0 = pieces[hi].v0.max(mid);
-        }
-    }
+    let nstrips = pieces::number_strips(&mut pieces, w);
     // 6. Replicates.
-    let replicate_named = pieces.iter().any(|p| {
-        p.members
-            .iter()
-            .any(|&i| !table[labels[i] as usize][2].is_empty())
-    });
-    if replicate_named {
-        for p in pieces.iter_mut() {
-            let mut n: BTreeMap<&str, u64> = BTreeMap::new();
-            for &i in &p.members {
-                *n.entry(table[labels[i] as usize][2].as_str()).or_default() += 1;
-            }
-            let best = n
-                .iter()
-                .max_by_key(|(_, c)| **c)
-                .map(|(r, _)| r.to_string());
-            p.block = best.unwrap_or_default();
-        }
-    } else {
-        let mut order: Vec<usize> = (0..pieces.len()).collect();
-        order.sort_by(|&a, &b| pieces[a].u0.total_cmp(&pieces[b].u0));
-        let mut ranges: Vec<(f64, f64, Vec<usize>)> = Vec::new();
-        for &j in &order {
-            let p = &pieces[j];
-            let fits = ranges.iter().position(|r| {
-                let shorter = (r.1 - r.0).min(p.u1 - p.u0);
-                p.u1.min(r.1) - p.u0.max(r.0) > 0.5 * shorter
-            });
-            match fits {
-                Some(r) => ranges[r].2.push(j),
-                None => ranges.push((p.u0, p.u1, vec![j])),
-            }
-        }
-        let mut n = 0;
-        for (_, _, mut members) in ranges {
-            members.sort_by(|&a, &b| {
-                (pieces[a].v0 + pieces[a].v1).total_cmp(&(pieces[b].v0 + pieces[b].v1))
-            });
-            let mut seen: Vec<String> = Vec::new();
-            n += 1;
-            for j in members {
-                if seen.contains(&pieces[j].treatment) {
-                    seen.clear();
-                    n += 1;
-                }
-                seen.push(pieces[j].treatment.clone());
-                pieces[j].block = n.to_string();
-            }
-        }
-    }
+    let replicate_named = pieces::assign_replicates(&mut pieces, table, labels);
     // 5. Plots, in strip order across and along.
     pieces.sort_by(|a, b| a.strip.cmp(&b.strip).then(a.u0.total_cmp(&b.u0)));
-    let at = |u: f64, v: f64| (ox + u * ax + v * cx, oy + u * ay + v * cy);
-    let mut polygons = Vec::new();
-    let mut design = Vec::new();
-    let mut along_no: BTreeMap<usize, usize> = BTreeMap::new();
-    for p in &pieces {
-        let len = p.u1 - p.u0;
-        let n = if s.plot_length_m > 0.0 && len >= 1.5 * s.plot_length_m {
-            (len / s.plot_length_m).round() as usize
-        } else {
-            1
-        };
-        for c in 0..n {
-            let (a0, a1) = (
-                p.u0 + len * c as f64 / n as f64,
-                p.u0 + len * (c + 1) as f64 / n as f64,
-            );
-            let no = along_no.entry(p.strip).or_default();
-            *no += 1;
-            let id = format!("{fname}-S{:02}-P{:02}", p.strip, no);
-            let mut ring: Vec<(f64, f64)> = [(a0, p.v0), (a1, p.v0), (a1, p.v1), (a0, p.v1)]
-                .iter()
-                .map(|&(u, v)| at(u, v))
-                .collect();
-            let area2: f64 = (0..4)
-                .map(|k| {
-                    let (a, b) = (ring[k], ring[(k + 1) % 4]);
-                    a.0 * b.1 - b.0 * a.1
-                })
-                .sum();
-            if area2 < 0.0 {
-                ring.reverse();
-            }
-            ring.push(ring[0]);
-            polygons.push(PlotPolygon {
-                plot_id: id.clone(),
-                exterior: ring,
-                holes: Vec::new(),
-            });
-            design.push(DesignRow {
-                plot_id: id,
-                treatment: p.treatment.clone(),
-                block: p.block.clone(),
-                field: fname.to_string(),
-                row: 0,
-            });
-        }
-    }
+    let frame = pieces::Frame {
+        origin: (ox, oy),
+        along: (ax, ay),
+        across: (cx, cy),
+    };
+    let (polygons, design) = pieces::plots_of(&pieces, &frame, fname, s);
     let mut details = serde_json::Map::new();
     let bearing = ax.atan2(ay).to_degrees().rem_euclid(180.0);
-    details.insert(
-        "bearing_deg".into(),
-        serde_json::json!((bearing * 10.0).round() / 10.0),
-    );
-    details.insert(
-        "swath_m".into(),
-        serde_json::json!((w * 1000.0).round() / 1000.0),
-    );
-    details.insert("swath_source".into(), serde_json::json!(w_source));
-    details.insert("labelled_records".into(), serde_json::json!(idx.len()));
-    details.insert("records_in_short_runs".into(), serde_json::json!(stray));
-    details.insert("isolated_records".into(), serde_json::json!(isolated));
-    details.insert("strips".into(), serde_json::json!(nstrips));
-    details.insert("pieces".into(), serde_json::json!(pieces.len()));
-    details.insert("plots".into(), serde_json::json!(polygons.len()));
-    details.insert(
-        "replicates".into(),
-        serde_json::json!(if replicate_named {
-            "from columns.replicate"
-        } else {
-            "from neighbouring strips"
-        }),
-    );
+    for (key, value) in [
+        (
+            "bearing_deg",
+            serde_json::json!((bearing * 10.0).round() / 10.0),
+        ),
+        ("swath_m", serde_json::json!((w * 1000.0).round() / 1000.0)),
+        ("swath_source", serde_json::json!(w_source)),
+        ("labelled_records", serde_json::json!(idx.len())),
+        ("records_in_short_runs", serde_json::json!(stray)),
+        ("isolated_records", serde_json::json!(isolated)),
+        ("strips", serde_json::json!(nstrips)),
+        ("pieces", serde_json::json!(pieces.len())),
+        ("plots", serde_json::json!(polygons.len())),
+        (
+            "replicates",
+            serde_json::json!(if replicate_named {
+                "from columns.replicate"
+            } else {
+                "from neighbouring strips"
+            }),
+        ),
+    ] {
+        details.insert(key.into(), value);
+    }
     Ok(FieldBuilt {
         polygons,
         design,
@@ -661,5 +449,139 @@ fn field(
     })
 }
 
+/// Runs joined into pieces: runs of one treatment (and strip name) joined where they lie
+/// within 1.25 swaths (`w`) across and overlap or come within 2.5 steps along. Returns each
+/// run's extent along (min, max) and median position across, and the pieces as lists of
+/// runs.
+fn joined_runs(
+    runs: &[Vec<usize>],
+    table: &[[String; 3]],
+    labels: &[u32],
+    uv: &dyn Fn(usize) -> (f64, f64),
+    w: f64,
+    step: f64,
+) -> (Vec<(f64, f64, f64)>, Vec<Vec<usize>>) {
+    let info: Vec<(f64, f64, f64)> = runs
+        .iter()
+        .map(|r| {
+            let u: Vec<f64> = r.iter().map(|&i| uv(i).0).collect();
+            let mut v: Vec<f64> = r.iter().map(|&i| uv(i).1).collect();
+            v.sort_by(f64::total_cmp);
+            (
+                u.iter().cloned().fold(f64::MAX, f64::min),
+                u.iter().cloned().fold(f64::MIN, f64::max),
+                v[v.len() / 2],
+            )
+        })
+        .collect();
+    let key = |r: &Vec<usize>| {
+        let t = &table[labels[r[0]] as usize];
+        (t[0].as_str(), t[1].as_str())
+    };
+    let mut parent: Vec<usize> = (0..runs.len()).collect();
+    let mut by_key: BTreeMap<(&str, &str), Vec<usize>> = BTreeMap::new();
+    for (k, r) in runs.iter().enumerate() {
+        by_key.entry(key(r)).or_default().push(k);
+    }
+    for ((_, strip_name), members) in &by_key {
+        for (x, &a) in members.iter().enumerate() {
+            for &b in &members[x + 1..] {
+                let (p, q) = (info[a], info[b]);
+                let near = !strip_name.is_empty()
+                    || ((p.2 - q.2).abs() <= 1.25 * w && p.0.max(q.0) - p.1.min(q.1) <= 2.5 * step);
+                if near {
+                    let (ra, rb) = (find(&mut parent, a), find(&mut parent, b));
+                    parent[ra.max(rb)] = ra.min(rb);
+                }
+            }
+        }
+    }
+    let mut comps: BTreeMap<usize, Vec<usize>> = BTreeMap::new();
+    for k in 0..runs.len() {
+        let r = find(&mut parent, k);
+        comps.entry(r).or_default().push(k);
+    }
+    (info, comps.into_values().collect())
+}
+
+/// The direction of travel (radians, an axis: passes either way agree) from consecutive
+/// records of one label a step apart (under `step_cap`), and the median time step between
+/// consecutive records; None when no two such records exist.
+fn travel_axis(
+    points: &[Point],
+    labels: &[u32],
+    idx: &[usize],
+    step_cap: f64,
+) -> Option<(f64, Vec<f64>)> {
+    let (mut c2, mut s2) = (0.0, 0.0);
+    let mut dts = Vec::new();
+    for pair in idx.windows(2) {
+        let (i, j) = (pair[0], pair[1]);
+        if j != i + 1 || points[i].file != points[j].file {
+            continue;
+        }
+        let dt = points[j].time_s - points[i].time_s;
+        if dt > 0.0 {
+            dts.push(dt);
+        }
+        if labels[i] != labels[j] {
+            continue;
+        }
+        let (dx, dy) = (points[j].x_m - points[i].x_m, points[j].y_m - points[i].y_m);
+        let l = dx.hypot(dy);
+        if l > 0.2 && l < step_cap {
+            let a = 2.0 * dy.atan2(dx);
+            c2 += l * a.cos();
+            s2 += l * a.sin();
+        }
+    }
+    if c2 == 0.0 && s2 == 0.0 {
+        return None;
+    }
+    Some((0.5 * s2.atan2(c2), dts))
+}
+
+/// Runs: consecutive records of one export with one label, split where the combine moves
+/// more across travel than along it (a turn) or jumps along it (`uv`: a record's position
+/// along and across travel). Returns the runs and the median step along travel.
+fn runs_of(
+    points: &[Point],
+    labels: &[u32],
+    idx: &[usize],
+    uv: &dyn Fn(usize) -> (f64, f64),
+) -> (Vec<Vec<usize>>, f64) {
+    let steps: Vec<f64> = idx
+        .windows(2)
+        .filter(|p| p[1] == p[0] + 1 && labels[p[0]] == labels[p[1]])
+        .filter(|p| points[p[0]].file == points[p[1]].file)
+        .map(|p| (uv(p[1]).0 - uv(p[0]).0).abs())
+        .filter(|d| *d > 0.05)
+        .collect();
+    let step = if steps.is_empty() {
+        1.0
+    } else {
+        median(&steps)
+    };
+    let jump = 5.0 * step + 2.0;
+    let mut runs: Vec<Vec<usize>> = Vec::new();
+    for &i in idx {
+        let joins = |r: &Vec<usize>| {
+            let j = *r.last().unwrap();
+            if j + 1 != i || points[i].file != points[j].file || labels[i] != labels[j] {
+                return false;
+            }
+            let ((u0, v0), (u1, v1)) = (uv(j), uv(i));
+            let (du, dv) = ((u1 - u0).abs(), (v1 - v0).abs());
+            du <= jump && !(dv > du && dv.hypot(du) > 0.2)
+        };
+        match runs.last_mut() {
+            Some(r) if joins(r) => r.push(i),
+            _ => runs.push(vec![i]),
+        }
+    }
+    (runs, step)
+}
+
+mod pieces;
 #[cfg(test)]
 mod tests;

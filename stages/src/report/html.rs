@@ -7,43 +7,11 @@
 //! of colour blindness. Every map has a legend and axes in metres.
 
 use super::mean_interval;
-pub(crate) use super::svg::{esc, forest, forest_labelled, nice_step, scale, table};
-use crate::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
-use crate::plots::PlotStats;
-use crate::table::{PlotPolygon, StageSummary};
+pub(crate) use super::svg::{esc, forest, forest_labelled, nice_step, table};
+pub use super::{HtmlInput, MapPoint};
+use crate::adjust::TreatmentRow;
 use crate::util::fmt;
 use std::fmt::Write as _;
-
-/// A point for the maps: position, yield and the rule that removed it (empty if kept).
-#[derive(Clone, Debug)]
-pub struct MapPoint {
-    pub x: f64,
-    pub y: f64,
-    pub yield_unit: f64,
-    /// The rule that removed the record (shared text), empty when kept.
-    pub rule: std::sync::Arc<str>,
-}
-
-/// Everything the HTML report shows.
-pub struct HtmlInput<'a> {
-    pub trial_name: &'a str,
-    pub unit_label: &'a str,
-    pub check: &'a str,
-    pub decimals: usize,
-    pub summaries: &'a [StageSummary],
-    /// Settings each stage ran with (stage name, JSON).
-    pub settings: &'a [(String, serde_json::Value)],
-    pub points: &'a [MapPoint],
-    pub polygons: &'a [PlotPolygon],
-    pub plots: &'a [PlotStats],
-    pub adjusted: &'a [AdjustedPlot],
-    pub treatments: &'a [TreatmentRow],
-    pub hyper: &'a [FieldHyper],
-    pub comparisons: &'a [Comparison],
-    pub warnings: &'a [String],
-    /// The prices as the trial gave them (None: no economics).
-    pub money: Option<&'a crate::adjust::settings::Money>,
-}
 
 /// The decision table and forest plot: the first section after the caution and warnings.
 fn decision(s: &mut String, r: &HtmlInput) {
@@ -383,7 +351,7 @@ svg text{font:11px system-ui,sans-serif;fill:#1d2528}.al{font-size:11px;fill:#3d
 
 #[cfg(test)]
 mod tests {
-    use super::super::svg::{PUOR, VIRIDIS};
+    use super::super::svg::{scale, PUOR, VIRIDIS};
     use super::*;
 
     #[test]

@@ -1,9 +1,10 @@
 //! The per-field maps of the HTML report: every record by raw yield, the records removed by
 //! rule, and the plots' raw means, spatial trend and adjusted means.
 
-use super::html::{esc, scale, HtmlInput, MapPoint};
 use super::raster;
+use super::svg::{esc, scale};
 use super::svg::{quantile, ring_path, Panel, MAX_CIRCLES, OKABE_ITO, PAD_L, PAD_T, PUOR, VIRIDIS};
+use super::{HtmlInput, MapPoint};
 use crate::adjust::AdjustedPlot;
 use crate::table::{PlotPolygon, PlotStats};
 use crate::util::fmt;

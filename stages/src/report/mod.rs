@@ -2,9 +2,9 @@
 //! hyperparameters and the treatment table, with the cautions that go with them.
 
 use crate::adjust::settings::Money;
-use crate::adjust::{FieldHyper, TreatmentRow};
+use crate::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
 use crate::crop::AreaUnit;
-use crate::table::StageSummary;
+use crate::table::{PlotPolygon, PlotStats, StageSummary};
 use crate::util::fmt;
 use std::fmt::Write as _;
 
@@ -41,6 +41,37 @@ pub struct ReportInput<'a> {
     pub money: Option<&'a Money>,
 }
 
+/// A point for the maps: position, yield and the rule that removed it (empty if kept).
+#[derive(Clone, Debug)]
+pub struct MapPoint {
+    pub x: f64,
+    pub y: f64,
+    pub yield_unit: f64,
+    /// The rule that removed the record (shared text), empty when kept.
+    pub rule: std::sync::Arc<str>,
+}
+
+/// Everything the HTML report shows.
+pub struct HtmlInput<'a> {
+    pub trial_name: &'a str,
+    pub unit_label: &'a str,
+    pub check: &'a str,
+    pub decimals: usize,
+    pub summaries: &'a [StageSummary],
+    /// Settings each stage ran with (stage name, JSON).
+    pub settings: &'a [(String, serde_json::Value)],
+    pub points: &'a [MapPoint],
+    pub polygons: &'a [PlotPolygon],
+    pub plots: &'a [PlotStats],
+    pub adjusted: &'a [AdjustedPlot],
+    pub treatments: &'a [TreatmentRow],
+    pub hyper: &'a [FieldHyper],
+    pub comparisons: &'a [Comparison],
+    pub warnings: &'a [String],
+    /// The prices as the trial gave them (None: no economics).
+    pub money: Option<&'a crate::adjust::settings::Money>,
+}
+
 /// The area net returns are shown per: the trial's cost unit (hectares without prices).
 pub(crate) fn area_of(money: Option<&Money>) -> AreaUnit {
     money.map_or(AreaUnit::Hectare, |m| m.product_cost_unit)
@@ -58,244 +89,6 @@ pub const CAUTION: &str = "Results are statistical estimates under the model's a
 (a Gaussian-process spatial trend, independent plot noise, effects constant within a field, \
 hyperparameters given penalised-complexity priors). They are not proof of product performance. \
 Product claims must follow local regulations and licensed agronomic advice.";
-
-/// Render the Markdown report.
-pub fn markdown(r: &ReportInput) -> String {
-    let mut s = String::new();
-    let _ = writeln!(s, "# plotsieve report: {}\n", r.trial_name);
-    let _ = writeln!(s, "> **Caution.** {CAUTION}\n");
-    if !r.warnings.is_empty() {
-        let _ = writeln!(s, "## {}\n", heading::WARNINGS);
-        for w in r.warnings {
-            let _ = writeln!(s, "- **{w}**");
-        }
-        let _ = writeln!(s);
-    }
-    decision_markdown(&mut s, r);
-    md_counts(&mut s, r);
-    md_removed(&mut s, r);
-    md_exports(&mut s, r);
-    md_spatial(&mut s, r);
-    md_per_field(&mut s, r);
-    md_new_field(&mut s, r);
-    s
-}
-
-/// The points and plots in, kept and rejected, per stage.
-fn md_counts(s: &mut String, r: &ReportInput) {
-    let _ = writeln!(s, "## {}\n", heading::COUNTS);
-    let _ = writeln!(s, "| stage | counted | in | kept | rejected |");
-    let _ = writeln!(s, "|---|---|---:|---:|---:|");
-    for x in r.summaries {
-        let _ = writeln!(
-            s,
-            "| {} | {} | {} | {} | {} |",
-            x.stage, x.unit, x.count_in, x.kept, x.rejected
-        );
-        if let Some(p) = &x.plots {
-            let _ = writeln!(
-                s,
-                "| {} | plots | {} | {} | {} |",
-                x.stage, p.count_in, p.kept, p.set_aside
-            );
-        }
-    }
-}
-
-/// What each rule removed, per stage.
-fn md_removed(s: &mut String, r: &ReportInput) {
-    let _ = writeln!(s, "\n## {}\n", heading::REMOVED);
-    let _ = writeln!(s, "| stage | rule | removed |");
-    let _ = writeln!(s, "|---|---|---:|");
-    for x in r.summaries {
-        for (rule, n) in &x.by_rule {
-            let _ = writeln!(s, "| {} | {} | {} |", x.stage, rule, n);
-        }
-        if let Some(p) = &x.plots {
-            for (rule, n) in &p.by_rule {
-                let _ = writeln!(s, "| {} | {} (plots) | {} |", x.stage, rule, n);
-            }
-        }
-    }
-}
-
-/// How each export was read, and the delays applied to it.
-fn md_exports(s: &mut String, r: &ReportInput) {
-    let read_as = exports_read_as(r.summaries);
-    if !read_as.is_empty() {
-        let _ = writeln!(s, "\n## {}\n", heading::READ_AS);
-        let _ = writeln!(s, "| export | format and mapping |");
-        let _ = writeln!(s, "|---|---|");
-        for (e, how) in &read_as {
-            let _ = writeln!(s, "| {e} | {} |", how.replace('|', "/"));
-        }
-    }
-    let delays = delays_applied(r.summaries);
-    if !delays.is_empty() {
-        let _ = writeln!(s, "\n## {}\n", heading::DELAYS);
-        let _ = writeln!(
-            s,
-            "| export | flow delay (s) | how | moisture delay (s) | how |"
-        );
-        let _ = writeln!(s, "|---|---:|---|---:|---|");
-        for d in &delays {
-            let _ = writeln!(
-                s,
-                "| {} | {} | {} | {} | {} |",
-                d.export, d.flow_s, d.flow_source, d.moisture_s, d.moisture_source
-            );
-        }
-        let notes: Vec<String> = delays
-            .iter()
-            .flat_map(|d| d.notes.iter().map(move |n| format!("- {}: {n}", d.export)))
-            .collect();
-        if !notes.is_empty() {
-            let _ = writeln!(s, "\n{}", notes.join("\n"));
-        }
-    }
-}
-
-/// The spatial model per field, and any random design factors.
-fn md_spatial(s: &mut String, r: &ReportInput) {
-    let d = r.decimals;
-    let _ = writeln!(s, "\n## {}\n", heading::SPATIAL);
-    let _ = writeln!(s, "Posterior means with 95 % intervals; row `all` of a joint fit holds the shared range and the SD of the treatment x field interaction.\n");
-    let _ = writeln!(
-        s,
-        "| field | plots | range (m) | spatial SD ({u}) | noise SD ({u}) | spatial share | interaction SD ({u}) | method | note |",
-        u = r.unit_label
-    );
-    let _ = writeln!(s, "|---|---:|---|---|---|---|---|---|---|");
-    let ci = mean_interval;
-    for h in r.hyper {
-        let mut range = ci(h.range_m, h.range_lo95_m, h.range_hi95_m, 0);
-        if !h.range_across.mean.is_nan() {
-            let a = h.range_across;
-            range = format!("along {range}; across {}", ci(a.mean, a.lo95, a.hi95, 0));
-        }
-        let (a, b, c, e) = (
-            h.spatial_sd_ci,
-            h.noise_sd_ci,
-            h.spatial_share_ci,
-            h.interaction_sd,
-        );
-        let _ = writeln!(
-            s,
-            "| {} | {} | {} | {} | {} | {} | {} | {} | {} |",
-            h.field,
-            h.plots,
-            range,
-            ci(a.mean, a.lo95, a.hi95, d + 1),
-            ci(b.mean, b.lo95, b.hi95, d + 1),
-            ci(c.mean, c.lo95, c.hi95, 2),
-            ci(e.mean, e.lo95, e.hi95, d + 1),
-            method_words(&h.method),
-            h.warning
-        );
-    }
-    let factors = random_factors(r.hyper);
-    if !factors.is_empty() {
-        let _ = writeln!(s, "\nRandom design factors (`adjust.random_effects`), fitted beside the spatial field; posterior means with 95 % intervals:\n");
-        let _ = writeln!(s, "| field | factor | SD ({}) |", r.unit_label);
-        let _ = writeln!(s, "|---|---|---|");
-        for (field, name, x) in &factors {
-            let _ = writeln!(
-                s,
-                "| {field} | {name} | {} |",
-                ci(x.mean, x.lo95, x.hi95, d + 1)
-            );
-        }
-    }
-}
-
-/// Each product against the check, per field and pooled.
-fn md_per_field(s: &mut String, r: &ReportInput) {
-    let d = r.decimals;
-    let _ = writeln!(s, "\n## {}\n", per_field_heading(r.check));
-    let _ = writeln!(s, "Yields in {u} at standard moisture; uplift = treatment minus check; 95 % intervals. Field `all` is the effect shared by the fields in the joint model (the fields' own rows include the treatment x field interaction), or with `adjust.pooling = \"separate\"` the inverse-variance combination of the separate field fits.\n", u = r.unit_label);
-    let _ = writeln!(s, "| field | treatment | plots | estimate | SD | uplift | uplift 95 % interval | prior (mean +- SD) | P(uplift > 0) |");
-    let _ = writeln!(s, "|---|---|---:|---:|---:|---:|---|---|---:|");
-    for t in r.treatments {
-        let (up, ci, p) = if t.uplift.is_nan() {
-            ("(check)".to_string(), String::new(), String::new())
-        } else {
-            (
-                fmt(t.uplift, d),
-                format!("{} to {}", fmt(t.uplift_lo95, d), fmt(t.uplift_hi95, d)),
-                prob3(t.p_uplift_gt0),
-            )
-        };
-        let prior = if t.prior_sd.is_nan() {
-            String::new()
-        } else {
-            format!("{} +- {}", fmt(t.prior_mean, d), fmt(t.prior_sd, d))
-        };
-        let _ = writeln!(
-            s,
-            "| {} | {} | {} | {} | {} | {} | {} | {} | {} |",
-            t.field,
-            t.treatment,
-            t.plots,
-            fmt(t.estimate, d),
-            fmt(t.sd, d),
-            up,
-            ci,
-            prior,
-            p
-        );
-    }
-}
-
-/// The uplift in a field that was not in the trial.
-fn md_new_field(s: &mut String, r: &ReportInput) {
-    let d = r.decimals;
-    let nf = new_field_rows(r.treatments);
-    if !nf.is_empty() {
-        let economics = nf.iter().any(|t| t.p_new_field_gt_break_even.is_finite());
-        let _ = writeln!(s, "\n### {}\n", heading::NEW_FIELD);
-        let _ = writeln!(s, "{NEW_FIELD_WORDS}\n");
-        let _ = write!(s, "| treatment | average field: uplift (95 % interval) | new field: uplift | 90 % interval | 95 % interval | P(uplift > 0) |");
-        let _ = writeln!(
-            s,
-            "{}",
-            if economics {
-                " P(uplift > break-even) |"
-            } else {
-                ""
-            }
-        );
-        let _ = writeln!(
-            s,
-            "|---|---|---:|---|---|---:|{}",
-            if economics { "---:|" } else { "" }
-        );
-        for t in nf {
-            let _ = write!(
-                s,
-                "| {} | {} ({} to {}) | {} | {} to {} | {} to {} | {} |",
-                t.treatment,
-                fmt(t.uplift, d),
-                fmt(t.uplift_lo95, d),
-                fmt(t.uplift_hi95, d),
-                fmt(t.new_field_uplift, d),
-                fmt(t.new_field_lo90, d),
-                fmt(t.new_field_hi90, d),
-                fmt(t.new_field_lo95, d),
-                fmt(t.new_field_hi95, d),
-                prob3(t.p_new_field_gt0)
-            );
-            let _ = writeln!(
-                s,
-                "{}",
-                if economics {
-                    format!(" {} |", prob3(t.p_new_field_gt_break_even))
-                } else {
-                    String::new()
-                }
-            );
-        }
-    }
-}
 
 /// The reports' section headings, one list for the Markdown and the HTML form.
 pub(crate) mod heading {
@@ -548,29 +341,6 @@ pub(crate) fn markdown_table(s: &mut String, head: &[String], cells: &[Vec<Strin
 /// What the decision table says, in plain words (both reports).
 pub(crate) const DECISION_WORDS: &str = "Each product against the check over the trial's fields (the pooled estimate). P(uplift > 0) is the probability that the product gains yield on average over fields like these; P(uplift > break-even) that the gain pays for the product at the given price and cost; the new-field columns give the same for a field that was not in the trial, which varies more. Quality control (counts, rules, maps, the spatial model) follows below.";
 
-fn decision_markdown(s: &mut String, r: &ReportInput) {
-    let rows = decision_rows(r.treatments);
-    let _ = writeln!(s, "## {}\n", decision_heading(r.check));
-    if rows.is_empty() {
-        let _ = writeln!(s, "No product could be compared with the check.\n");
-        return;
-    }
-    let _ = writeln!(s, "{DECISION_WORDS}\n");
-    let (head, cells) = decision_cells(
-        &rows,
-        r.decimals,
-        r.unit_label,
-        area_of(r.money),
-        Vec::new(),
-        fields_summary(r.treatments, r.decimals),
-    );
-    markdown_table(s, &head, &cells, 1);
-    let _ = writeln!(s);
-    if let Some(p) = prices_line(r.money) {
-        let _ = writeln!(s, "{p}\n");
-    }
-}
-
 /// What the new-field rows mean, in plain words (both reports).
 pub(crate) const NEW_FIELD_WORDS: &str = "The average-field uplift is the effect the fields share: how good the product is on average over fields like these. A new field adds that field's own departure from the average (the treatment x field interaction, estimated from how much the fields differed), so its interval is wider: it is what a grower whose field was not in the trial can expect, and P(uplift > 0) is the chance the product gains yield there. Only a joint fit of two or more fields can say this.";
 
@@ -685,6 +455,7 @@ pub(crate) fn mean_interval(m: f64, lo: f64, hi: f64, k: usize) -> String {
 
 pub mod html;
 mod maps;
+pub mod markdown;
 pub mod raster;
 pub mod season;
 pub mod svg;
@@ -710,73 +481,4 @@ pub(crate) fn random_factors(
 }
 
 #[cfg(test)]
-mod tests {
-    use super::{delay_note, fields_summary, method_words, prob3, settings_rows};
-    use crate::adjust::TreatmentRow;
-
-    #[test]
-    fn plain_words_for_the_method_probabilities_and_settings() {
-        assert_eq!(prob3(-0.0001), "0.000");
-        assert_eq!(prob3(0.9996), "1.000");
-        assert_eq!(prob3(f64::NAN), "");
-        assert_eq!(method_words("exact"), "exact kernel");
-        assert_eq!(
-            method_words("hsgp 20x16"),
-            "reduced-rank kernel, 20 x 16 basis functions"
-        );
-        assert_eq!(
-            method_words("joint, 5804 draws, ESS 2703, 2556 kept"),
-            "all fields fitted together; the model settings averaged over 5804 weighted draws (worth about 2703 equally weighted ones; the 2556 with any weight kept)"
-        );
-        let v = serde_json::json!({"a": {"b": 1, "c": null, "d": []}, "e": "x", "f": [1, 2]});
-        assert_eq!(
-            settings_rows(&v),
-            vec![
-                ("a.b".to_string(), "1".to_string()),
-                ("e".to_string(), "x".to_string()),
-                ("f".to_string(), "[1,2]".to_string())
-            ]
-        );
-    }
-
-    #[test]
-    fn the_field_summary_gives_median_range_and_fields_surely_ahead() {
-        let row = |field: &str, uplift: f64, p: f64| TreatmentRow {
-            field: field.into(),
-            treatment: "prod-a".into(),
-            uplift,
-            p_uplift_gt0: p,
-            ..Default::default()
-        };
-        let rows = vec![
-            row("A", 0.30, 0.97),
-            row("B", 0.10, 0.80),
-            row("C", 0.50, 0.99),
-            row("all", 0.31, 0.99),
-        ];
-        let cols = fields_summary(&rows, 2);
-        assert_eq!(cols.len(), 1);
-        assert_eq!(cols[0].1(&rows[3]), "0.30 (0.10 to 0.50); 2 of 3");
-        // One field only: no column.
-        assert!(fields_summary(&rows[2..], 2).is_empty());
-    }
-
-    #[test]
-    fn unusual_delay_estimates_are_explained() {
-        let est = |lag: f64| serde_json::json!({"lag_s": lag, "pairs": 500, "curve": [[-20.0, 1.0], [0.0, 0.5], [20.0, 1.0]]});
-        let neg = delay_note("flow", &est(-3.3)).unwrap();
-        assert!(
-            neg.starts_with("The flow delay estimate is negative (-3.3 s)")
-                && neg.contains("set clean.delay.mode = \"fixed\" with clean.flow_delay_s = 0"),
-            "{neg}"
-        );
-        assert!(delay_note("moisture", &est(0.2))
-            .unwrap()
-            .contains("looks delay-corrected already"));
-        assert!(delay_note("flow", &est(20.0))
-            .unwrap()
-            .contains("lies at the edge of the lags scanned (-20 to 20 s)"));
-        assert_eq!(delay_note("flow", &est(11.0)), None);
-        assert_eq!(delay_note("flow", &serde_json::Value::Null), None);
-    }
-}
+mod tests;

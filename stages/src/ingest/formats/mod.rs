@@ -9,10 +9,12 @@
 //! [`MonitorFormat`] and its tests, then add one line to [`FORMATS`]. Formats are sniffed in
 //! list order, so a format that recognises its files by content goes before the fallback.
 
+pub(crate) mod column_map;
 pub(crate) mod mapped_text;
 mod mapping_words;
 mod point_layers;
 pub mod taskdata;
+mod text_records;
 
 use super::IngestError;
 use crate::ingest::settings::IngestConfig;

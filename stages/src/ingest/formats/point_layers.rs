@@ -8,7 +8,7 @@
 //! reference). A rejection's line is the feature's place in the file plus one, as if the
 //! records were the lines of a table under a header.
 
-use super::{mapped_text, ExportRead, MonitorFormat};
+use super::{ExportRead, MonitorFormat};
 use crate::ingest::layers::{self, Geometry, LayerFormat};
 use crate::ingest::settings::IngestConfig;
 use crate::ingest::IngestError;
@@ -167,5 +167,5 @@ fn read(cfg: &IngestConfig, path: &Path, name: &str, file: u32) -> Result<Export
             message: e.to_string(),
         })?
         .clone();
-    mapped_text::read_records(&c, rdr, header, name, file)
+    super::text_records::read_records(&c, rdr, header, name, file)
 }

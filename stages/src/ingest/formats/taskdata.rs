@@ -443,7 +443,7 @@ fn next_record(h: &Header, bin: &[u8], at: &mut usize, last: &mut [Option<i32>])
 /// `columns.width.unit`), else NaN (and the rules that need a width are skipped).
 fn fixed_width_m(cfg: &IngestConfig) -> f64 {
     let w = &cfg.columns.width;
-    w.value.unwrap_or(f64::NAN) * super::mapped_text::width_factor(w.unit)
+    w.value.unwrap_or(f64::NAN) * super::column_map::width_factor(w.unit)
 }
 
 /// The whole task data read (records = points + rejections), or why it cannot be.
