@@ -217,9 +217,7 @@ fn a_plot_table_alone_runs_end_to_end_and_passes_check() {
     .unwrap();
     let t = w.path("t/trial.toml");
     let t = t.to_str().unwrap();
-    let o = plotsieve(&w.0, &["check", t]);
-    ok(&o);
-    let out = String::from_utf8_lossy(&o.stdout);
+    let out = checked(&w, t);
     assert!(
         out.contains(
             "read: plots.csv: plot table (CSV): plot id plot, treatment variety, block block"

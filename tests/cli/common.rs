@@ -396,6 +396,13 @@ pub fn run_stages(w: &Workdir, trial: &Path, out: &str, stages: &[&str]) {
     }
 }
 
+/// `plotsieve check TRIAL` in `w`, which must pass: what it printed on standard output.
+pub fn checked(w: &Workdir, trial: &str) -> String {
+    let o = plotsieve(&w.0, &["check", trial]);
+    ok(&o);
+    String::from_utf8_lossy(&o.stdout).to_string()
+}
+
 /// Everything a command printed: standard output, then standard error.
 pub fn printed(o: &Output) -> String {
     String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr)

@@ -86,6 +86,14 @@ fn same_as_the_text_form(w: &Workdir, text: &Path, other: &Path, run: &str) {
         .all(|(x, y)| x["rule"] == y["rule"] && x["source_row"] == y["source_row"]));
 }
 
+/// A simulated harvest (seed 2) in the text form and in `form`, in folders `text` and
+/// `dir`: their trial files.
+fn text_and(w: &Workdir, dir: &str, form: &str) -> (PathBuf, PathBuf) {
+    let text = simulate(w, "text", &["--seed", "2", "--quiet"]);
+    let other = simulate(w, dir, &["--seed", "2", "--form", form, "--quiet"]);
+    (text, other)
+}
+
 /// `simulate --seed 2 --form FORM` again, into `DIR2`: these files are the same bytes as in
 /// `DIR`.
 fn simulates_the_same_bytes(w: &Workdir, dir: &str, form: &str, files: &[&str]) {
@@ -103,12 +111,7 @@ fn simulates_the_same_bytes(w: &Workdir, dir: &str, form: &str, files: &[&str]) 
 #[test]
 fn distance_per_record_with_decimal_commas_and_date_columns_reads_as_the_text_form() {
     let w = Workdir::new("forms-distance");
-    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
-    let dist = simulate(
-        &w,
-        "dist",
-        &["--seed", "2", "--form", "distance_text", "--quiet"],
-    );
+    let (text, dist) = text_and(&w, "dist", "distance_text");
     let head = read(&w.path("dist/monitor/field-A.csv"));
     assert!(head.starts_with("Date;Time;Longitude;Latitude;Flow_lb_s;Distance_in;Interval_s;"));
     assert!(head
@@ -117,9 +120,7 @@ fn distance_per_record_with_decimal_commas_and_date_columns_reads_as_the_text_fo
         .unwrap()
         .starts_with("18/09/2026;09:00:00;-97,7"));
     // check names the format and the mapping it will use for each export.
-    let o = plotsieve(&w.0, &["check", dist.to_str().unwrap()]);
-    ok(&o);
-    let out = String::from_utf8_lossy(&o.stdout);
+    let out = checked(&w, dist.to_str().unwrap());
     assert!(
         out.contains("read: monitor/field-A.csv: mapped_text: delimiter \";\", decimal \",\"; date Date (dmy) and time Time;")
             && out.contains("speed = distance Distance_in (in) / interval Interval_s (s)"),
@@ -147,17 +148,10 @@ fn a_simulated_harvest_as_geopackage_points_reads_as_the_text_form() {
     // `simulate --form geopackage`: the text form's records as GeoPackage point layers
     // (written through SQLite); the same plots, yields and rejections.
     let w = Workdir::new("forms-gpkg-sim");
-    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
-    let gpkg = simulate(
-        &w,
-        "gpkg",
-        &["--seed", "2", "--form", "geopackage", "--quiet"],
-    );
+    let (text, gpkg) = text_and(&w, "gpkg", "geopackage");
     assert!(w.path("gpkg/monitor/field-A.gpkg").is_file());
     assert!(!w.path("gpkg/monitor/field-A.csv").exists());
-    let o = plotsieve(&w.0, &["check", gpkg.to_str().unwrap()]);
-    ok(&o);
-    let out = String::from_utf8_lossy(&o.stdout);
+    let out = checked(&w, gpkg.to_str().unwrap());
     assert!(
         out.contains("read: monitor/field-A.gpkg: geopackage_points: point geometry"),
         "{out}"
@@ -172,21 +166,14 @@ fn a_simulated_harvest_as_point_shapefiles_reads_as_the_text_form() {
     // `simulate --form shapefile`: the text form's records as point Shapefiles (dBase names
     // of at most 10 characters, a WGS 84 .prj); the same plots, yields and rejections.
     let w = Workdir::new("forms-shp-sim");
-    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
-    let shp = simulate(
-        &w,
-        "shp",
-        &["--seed", "2", "--form", "shapefile", "--quiet"],
-    );
+    let (text, shp) = text_and(&w, "shp", "shapefile");
     for ext in ["shp", "shx", "dbf", "prj"] {
         assert!(
             w.path(&format!("shp/monitor/field-A.{ext}")).is_file(),
             "{ext}"
         );
     }
-    let o = plotsieve(&w.0, &["check", shp.to_str().unwrap()]);
-    ok(&o);
-    let out = String::from_utf8_lossy(&o.stdout);
+    let out = checked(&w, shp.to_str().unwrap());
     assert!(
         out.contains("read: monitor/field-A.shp: shapefile_points: point geometry"),
         "{out}"
@@ -208,16 +195,13 @@ fn a_simulated_harvest_as_iso_11783_task_data_reads_as_the_text_form() {
     // is an export of its own; the plots and yields are the text form's within 0.5 % (the
     // DDI units round flow to 1 mg/s, speed to 1 mm/s, position to 1e-7 degrees).
     let w = Workdir::new("forms-taskdata");
-    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
-    let td = simulate(&w, "td", &["--seed", "2", "--form", "taskdata", "--quiet"]);
+    let (text, td) = text_and(&w, "td", "taskdata");
     assert!(w.path("td/monitor/TASKDATA/TASKDATA.XML").is_file());
     assert!(w.path("td/monitor/TASKDATA/TLG00002.BIN").is_file());
     // Task data names its quantities by DDI: the trial file has no [columns] (before: check
     // refused it without one).
     assert!(!read(&td).contains("[columns]"));
-    let o = plotsieve(&w.0, &["check", td.to_str().unwrap()]);
-    ok(&o);
-    let out = String::from_utf8_lossy(&o.stdout);
+    let out = checked(&w, td.to_str().unwrap());
     assert!(
         out.contains("read: monitor/TASKDATA/TASKDATA.XML#TLG00001: iso11783_taskdata: ISO 11783-10 task data, task \"harvest field-A\", TLG00001: mass flow 0057 of DET-1 (Combine), moisture 0063"),
         "{out}"
@@ -313,9 +297,7 @@ fn an_export_without_a_swath_column_takes_the_stated_width_and_says_so() {
         "width = { value = 30.0, unit = \"ft\" }",
         1,
     );
-    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
-    ok(&o);
-    assert!(String::from_utf8_lossy(&o.stdout)
+    assert!(checked(&w, t.to_str().unwrap())
         .contains("swath a fixed 30 ft (columns.width.value: the export has no swath column)"));
     run(&w, &t, "without");
     let (a, b) = (plots(&w.path("with")), plots(&w.path("without")));
@@ -445,9 +427,7 @@ fn exports_and_plots_in_projected_coordinates_read_as_lon_lat() {
         "design = \"design.csv\"\ncrs = \"EPSG:32614\"",
         1,
     );
-    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
-    ok(&o);
-    assert!(String::from_utf8_lossy(&o.stdout)
+    assert!(checked(&w, t.to_str().unwrap())
         .contains("x/y easting_m/northing_m in EPSG:32614 (inputs.crs)"));
     run(&w, &t, "utm");
     let (a, b) = (plots(&w.path("lonlat")), plots(&w.path("utm")));
@@ -471,9 +451,7 @@ fn the_second_sample_trial_in_another_form_checks_and_runs() {
     let w = Workdir::new("forms-sample2");
     let t = repo().join("sample-input/distance-3s/trial.toml");
     let t = t.to_str().unwrap();
-    let o = plotsieve(&w.0, &["check", t]);
-    ok(&o);
-    assert!(String::from_utf8_lossy(&o.stdout).contains("speed = distance Distance_in (in)"));
+    assert!(checked(&w, t).contains("speed = distance Distance_in (in)"));
     ok(&plotsieve(&w.0, &["run", t, "--out", "run", "--quiet"]));
     let truth = json(&repo().join("sample-input/distance-3s/truth.json"));
     let rows = csv_rows(&w.path("run/4-adjust/treatments.csv"));
@@ -497,15 +475,8 @@ fn a_yield_point_export_goes_in_and_skips_the_rules_it_cannot_feed() {
     // skipped and listed, the delay is not applied twice, and the plots match the text
     // form's.
     let w = Workdir::new("forms-yield");
-    let text = simulate(&w, "text", &["--seed", "2", "--quiet"]);
-    let pts = simulate(
-        &w,
-        "points",
-        &["--seed", "2", "--form", "yield_points", "--quiet"],
-    );
-    let o = plotsieve(&w.0, &["check", pts.to_str().unwrap()]);
-    ok(&o);
-    assert!(String::from_utf8_lossy(&o.stdout).contains(
+    let (text, pts) = text_and(&w, "points", "yield_points");
+    assert!(checked(&w, pts.to_str().unwrap()).contains(
         "yield dry_yield_t_ha (t_ha, dry basis, at standard moisture); speed not logged: from positions and times"
     ));
     run(&w, &text, "r-text");
@@ -662,9 +633,7 @@ fn monitor_points_from_shapefiles_and_geopackages_read_as_the_text_exports() {
         if dir == "gpkg_monitor" {
             replace(&t, "shp_monitor", "gpkg_monitor", 1);
         }
-        let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
-        ok(&o);
-        let out = String::from_utf8_lossy(&o.stdout);
+        let out = checked(&w, t.to_str().unwrap());
         assert!(out.contains(&format!("read: {says}")), "{out}");
         run(&w, &t, dir);
         let (a, b) = (plots(&w.path("text")), plots(&w.path(dir)));

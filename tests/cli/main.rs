@@ -11,6 +11,7 @@ mod catalogue;
 mod cleaning;
 mod forms;
 mod geometry;
+mod house;
 mod inputs;
 mod intake;
 mod limits;

@@ -113,9 +113,7 @@ fn las_rosas_yield_points_through_the_defaults_agree_with_an_independent_rcbd_an
     let reference = reference();
     for year in ["1999", "2001"] {
         let t = points_trial(&w, year, "");
-        let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
-        ok(&o);
-        let said = String::from_utf8_lossy(&o.stdout);
+        let said = checked(&w, t.to_str().unwrap());
         assert!(
             said.contains("no time column: records in file order"),
             "{said}"

@@ -55,9 +55,7 @@ fn a_plot_table_as_a_polygon_layer_reads_as_the_csv() {
         ("plot_table.geojson", "GeoJSON"),
     ] {
         let t = trial(&w, file, "");
-        let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
-        ok(&o);
-        let out = String::from_utf8_lossy(&o.stdout);
+        let out = checked(&w, t.to_str().unwrap());
         assert!(
             out.contains(&format!("read: {file}: plot table ({says}): plot id plot_id, treatment variety, block block, field (none: all plots in field 1), yield yield_t_ha, position polygon centroids in UTM (EPSG:32614)")),
             "{out}"
@@ -115,9 +113,7 @@ fn a_plot_table_as_a_polygon_layer_reads_as_the_csv() {
     )
     .unwrap();
     let t = trial(&w, "nad83/plot_table.shp", "");
-    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
-    ok(&o);
-    assert!(String::from_utf8_lossy(&o.stdout)
+    assert!(checked(&w, t.to_str().unwrap())
         .contains("from +proj=tmerc +lat_0=0 +lon_0=-99 +k_0=0.9996"));
     run_trial(&w, &t, "nad83", &[]);
     let got = table(&w.path("nad83"));

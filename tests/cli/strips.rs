@@ -98,9 +98,7 @@ fn plots_built_from_treatment_labels_match_the_drawn_plots_of_the_same_harvest()
     let labelled = simulate(&w, "labelled", &["--seed", "2", "--labels", "--quiet"]);
     assert!(!w.path("labelled/plots.geojson").exists());
     assert!(!w.path("labelled/design.csv").exists());
-    let o = plotsieve(&w.0, &["check", labelled.to_str().unwrap()]);
-    ok(&o);
-    let out = String::from_utf8_lossy(&o.stdout);
+    let out = checked(&w, labelled.to_str().unwrap());
     assert!(
         out.contains("read: plots: 48 plots in 2 field(s) built from the treatment labels (column \"treatment\", columns.treatment)"),
         "{out}"
@@ -262,9 +260,7 @@ fn plots_built_from_prescription_polygons_match_the_drawn_plots() {
     let rx = simulate(&w, "rx", &["--seed", "2", "--prescription", "--quiet"]);
     assert!(w.path("rx/prescription.geojson").is_file());
     assert!(!w.path("rx/plots.geojson").exists());
-    let o = plotsieve(&w.0, &["check", rx.to_str().unwrap()]);
-    ok(&o);
-    let out = String::from_utf8_lossy(&o.stdout);
+    let out = checked(&w, rx.to_str().unwrap());
     assert!(
         out.contains("read: plots: 48 plots in 2 field(s) built from the treatment labels (the prescription polygons of prescription.geojson by their \"product\", inputs.prescription)"),
         "{out}"
