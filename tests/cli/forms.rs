@@ -66,15 +66,30 @@ fn same_plots(
     d
 }
 
+/// The sorted differences `d` have a median under `median` and a largest under `largest`.
+fn differences_within(d: &[f64], median: f64, largest: f64) {
+    assert!(
+        d[d.len() / 2] < median,
+        "median difference {}",
+        d[d.len() / 2]
+    );
+    largest_within(d, largest);
+}
+
+/// The largest of the sorted differences `d` is under `limit`.
+fn largest_within(d: &[f64], limit: f64) {
+    assert!(
+        *d.last().unwrap() < limit,
+        "largest difference {:?}",
+        d.last()
+    );
+}
+
 /// The same harvest written in another form gives the text form's plots (yields within
 /// 1e-9) and the same cleaning rejections, row for row; runs into `r-text` and `run`.
 fn same_as_the_text_form(w: &Workdir, text: &Path, other: &Path, run: &str) {
     let d = same_plots(w, text, other, "r-text", run);
-    assert!(
-        *d.last().unwrap() < 1e-9,
-        "largest difference {:?}",
-        d.last()
-    );
+    largest_within(&d, 1e-9);
     let (ra, rb) = (
         csv_rows(&w.path("r-text/2-clean/rejected.csv")),
         csv_rows(&w.path(&format!("{run}/2-clean/rejected.csv"))),
@@ -128,11 +143,7 @@ fn distance_per_record_with_decimal_commas_and_date_columns_reads_as_the_text_fo
     );
     let d = same_plots(&w, &text, &dist, "r-text", "r-dist");
     // The distance is written to 0.1 inch, so speeds agree to about 0.1 %.
-    assert!(
-        *d.last().unwrap() < 0.005,
-        "largest difference {:?}",
-        d.last()
-    );
+    largest_within(&d, 0.005);
     let s = json(&w.path("r-dist/1-ingest/summary.json"));
     assert!(
         s["details"]["read_as"]["monitor/field-B.csv"]
@@ -270,16 +281,7 @@ fn a_harvest_logged_every_3_s_keeps_its_plots_and_their_coverage() {
     assert!(cb > 0.85 * ca, "coverage {cb} at 3 s, {ca} at 1 s");
     // A third of the records: plot means move by sampling, about half a percent.
     let d = yield_differences(&a, &b);
-    assert!(
-        d[d.len() / 2] < 0.01,
-        "median difference {}",
-        d[d.len() / 2]
-    );
-    assert!(
-        *d.last().unwrap() < 0.04,
-        "largest difference {:?}",
-        d.last()
-    );
+    differences_within(&d, 0.01, 0.04);
 }
 
 #[test]
@@ -304,11 +306,7 @@ fn an_export_without_a_swath_column_takes_the_stated_width_and_says_so() {
     // Only the plots under the simulator's partial-swath pass differ much: without the
     // column their narrower swath is taken as full, so their yields come out low.
     let d = yield_differences(&a, &b);
-    assert!(
-        d[d.len() / 2] < 0.005,
-        "median difference {}",
-        d[d.len() / 2]
-    );
+    differences_within(&d, 0.005, f64::INFINITY);
     let far: Vec<(&String, f64, f64)> = a
         .iter()
         .filter(|(k, v)| v.0 == "kept" && b[*k].0 == "kept")
@@ -436,11 +434,7 @@ fn exports_and_plots_in_projected_coordinates_read_as_lon_lat() {
         b.values().map(|v| &v.0).collect::<Vec<_>>()
     );
     let d = yield_differences(&a, &b);
-    assert!(
-        *d.last().unwrap() < 0.001,
-        "largest difference {:?}",
-        d.last()
-    );
+    largest_within(&d, 0.001);
 }
 
 #[test]
@@ -509,16 +503,7 @@ fn a_yield_point_export_goes_in_and_skips_the_rules_it_cannot_feed() {
     let (a, b) = (plots(&w.path("r-text")), plots(&w.path("r-points")));
     assert_eq!(b.values().filter(|v| v.0 == "kept").count(), b.len());
     let d = yield_differences(&a, &b);
-    assert!(
-        d[d.len() / 2] < 0.01,
-        "median difference {}",
-        d[d.len() / 2]
-    );
-    assert!(
-        *d.last().unwrap() < 0.04,
-        "largest difference {:?}",
-        d.last()
-    );
+    differences_within(&d, 0.01, 0.04);
     // As close to the simulated truth as the text form.
     let truth = truth_by_plot(&json(&w.path("text/truth.json")), "true_yield_t_ha");
     let err = |p: &BTreeMap<String, (String, f64, f64)>| {
