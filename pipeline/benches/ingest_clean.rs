@@ -75,7 +75,7 @@ fn measure(dir: &Path) {
     let steps_measured = reset_peak();
     let none = Progress::none();
     let t0 = Instant::now();
-    let ing = ingest::run(&cfg, dir).expect("ingest");
+    let ing = ingest::run(&cfg.for_ingest(), dir).expect("ingest");
     let t_ingest = t0.elapsed().as_secs_f64();
     let peak_ingest = peak_rss_mib();
     reset_peak();
@@ -94,6 +94,7 @@ fn measure(dir: &Path) {
         &ing.design,
         &cfg.design_name(),
         &cfg.plots,
+        crop.plot_bounds(),
     );
     let t_plots = t2.elapsed().as_secs_f64();
     let peak_plots = peak_rss_mib();
