@@ -288,10 +288,15 @@ pub fn range_lattice(
         .map(|d| (bounds[d].1 - bounds[d].0) / ((nc - 1) * refine) as f64)
         .collect();
     let span1 = if dims == 2 { nc } else { 1 };
-    let coarse_nodes: Vec<(i64, i64)> = (0..nc)
-        .flat_map(|i| (0..span1).map(move |j| (i * refine, j * refine)))
-        .collect();
-    let m = masses(&coarse_nodes, None);
+    let (coarse_nodes, m) = if dims == 1 {
+        coarse_walk(nc, refine, masses)
+    } else {
+        let nodes: Vec<(i64, i64)> = (0..nc)
+            .flat_map(|i| (0..span1).map(move |j| (i * refine, j * refine)))
+            .collect();
+        let m = masses(&nodes, None);
+        (nodes, m)
+    };
     let top = m.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
     let sig: Vec<(i64, i64)> = coarse_nodes
         .iter()
@@ -332,4 +337,149 @@ pub fn range_lattice(
         dims == 2 && sig.iter().any(|n| n.1 == 0 || n.1 == maxc),
     ];
     (fine, [h[0], h[1]], at_bound)
+}
+
+/// The coarse nodes of one length-scale axis that decide the refined box, found by a walk
+/// instead of evaluating all `nc`: from the middle node and its two neighbours, uphill to the
+/// highest coarse node, then outwards on each side until a node's log mass falls more than
+/// 10 below the highest (or the bound is reached). Where the mass over the length scale has
+/// one mode, the box is the one the full coarse scan gives; the nodes far from the mass, whose
+/// only use was to show that it is not there, are not evaluated. Returns the nodes evaluated
+/// (in the order of the axis) and their log masses.
+fn coarse_walk(
+    nc: i64,
+    refine: i64,
+    masses: &mut dyn FnMut(&[(i64, i64)], Option<&[(i64, i64)]>) -> Vec<f64>,
+) -> (Vec<(i64, i64)>, Vec<f64>) {
+    let mut seen: BTreeMap<i64, f64> = BTreeMap::new();
+    let mut eval = |idx: &[i64], seen: &mut BTreeMap<i64, f64>| {
+        let todo: Vec<i64> = idx
+            .iter()
+            .copied()
+            .filter(|i| (0..nc).contains(i) && !seen.contains_key(i))
+            .collect();
+        if todo.is_empty() {
+            return;
+        }
+        let keys: Vec<(i64, i64)> = todo.iter().map(|&i| (i * refine, 0)).collect();
+        for (i, v) in todo.into_iter().zip(masses(&keys, None)) {
+            // A node that could not be evaluated counts as carrying no mass.
+            seen.insert(i, if v.is_nan() { f64::NEG_INFINITY } else { v });
+        }
+    };
+    let at = |seen: &BTreeMap<i64, f64>, i: i64| seen.get(&i).copied().unwrap_or(f64::NEG_INFINITY);
+    let mut best = (nc - 1) / 2;
+    eval(&[best - 1, best, best + 1], &mut seen);
+    // Uphill, one coarse node at a time.
+    loop {
+        let (l, r) = (at(&seen, best - 1), at(&seen, best + 1));
+        let here = at(&seen, best);
+        let next = if l > here && l >= r {
+            best - 1
+        } else if r > here {
+            best + 1
+        } else {
+            break;
+        };
+        best = next;
+        eval(&[best - 1, best + 1], &mut seen);
+    }
+    let top = at(&seen, best);
+    // Outwards until a node is more than 10 below the top, on each side (both sides in one
+    // batch, so that their nodes are evaluated side by side).
+    let (mut lo, mut hi) = (best, best);
+    loop {
+        let open = |seen: &BTreeMap<i64, f64>, i: i64, step: i64| {
+            (0..nc).contains(&(i + step)) && at(seen, i) > top - 10.0
+        };
+        let (go_lo, go_hi) = (open(&seen, lo, -1), open(&seen, hi, 1));
+        let next: Vec<i64> = [(go_lo, lo - 1), (go_hi, hi + 1)]
+            .into_iter()
+            .filter(|x| x.0)
+            .map(|x| x.1)
+            .collect();
+        if next.is_empty() {
+            break;
+        }
+        eval(&next, &mut seen);
+        lo -= i64::from(go_lo);
+        hi += i64::from(go_hi);
+    }
+    seen.into_iter().map(|(i, v)| ((i * refine, 0), v)).unzip()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::range_lattice;
+
+    /// The refined box (first and last fine node along the axis, whether it touches a bound)
+    /// of the full coarse scan: every coarse node evaluated, the box one coarse step beyond
+    /// the nodes within e^10 of the best.
+    fn full_scan_box(f: &dyn Fn(i64) -> f64, nc: i64, refine: i64) -> (i64, i64, bool) {
+        let m: Vec<f64> = (0..nc).map(|i| f(i * refine)).collect();
+        let top = m.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+        let sig: Vec<i64> = (0..nc).filter(|&i| m[i as usize] > top - 10.0).collect();
+        let maxc = (nc - 1) * refine;
+        let lo = (sig.iter().min().unwrap() * refine - refine).max(0);
+        let hi = (sig.iter().max().unwrap() * refine + refine).min(maxc);
+        let at_bound = sig.iter().any(|&i| i == 0 || i == nc - 1);
+        (lo, hi, at_bound)
+    }
+
+    #[test]
+    fn the_coarse_walk_finds_the_full_scans_box_with_fewer_nodes_for_one_mode() {
+        // Log masses with one mode anywhere on the axis (also at either bound), narrow and
+        // wide: the walk's refined box is the full scan's, and a narrow mode needs fewer
+        // coarse nodes than the 9 of the full scan.
+        let bounds = [(0.0, 1.0), (0.0, 0.0)];
+        let (nc, refine) = (9i64, 3i64);
+        let mut fewer = 0;
+        let mut cases = 0;
+        for mu in [-4.0, 0.0, 2.0, 5.5, 12.0, 17.0, 23.0, 24.0, 30.0] {
+            for sd in [0.7, 2.0, 5.0, 40.0] {
+                let f = |x: i64| -0.5 * ((x as f64 - mu) / sd).powi(2);
+                let mut coarse_seen = 0;
+                let mut masses = |keys: &[(i64, i64)], kept: Option<&[(i64, i64)]>| -> Vec<f64> {
+                    if kept.is_none() {
+                        coarse_seen += keys.len();
+                    }
+                    keys.iter().map(|k| f(k.0)).collect()
+                };
+                let (fine, _, at_bound) = range_lattice(1, bounds, nc as usize, &mut masses);
+                let (lo, hi, bound) = full_scan_box(&f, nc, refine);
+                let walked = (fine[0].0, fine[fine.len() - 1].0, at_bound[0]);
+                assert_eq!(walked, (lo, hi, bound), "mode at {mu}, SD {sd}");
+                assert_eq!(fine.len() as i64, hi - lo + 1);
+                assert!(coarse_seen <= 9, "{coarse_seen} coarse nodes");
+                fewer += usize::from(coarse_seen < 9);
+                cases += 1;
+            }
+        }
+        assert!(
+            fewer * 2 > cases,
+            "fewer coarse nodes in {fewer} of {cases} cases"
+        );
+    }
+
+    #[test]
+    fn a_failed_node_counts_as_no_mass() {
+        // A node whose evaluation fails (NaN) is taken as carrying no mass, not as a mode.
+        let bounds = [(0.0, 1.0), (0.0, 0.0)];
+        let mut masses = |keys: &[(i64, i64)], _: Option<&[(i64, i64)]>| -> Vec<f64> {
+            keys.iter()
+                .map(|k| {
+                    if k.0 == 12 {
+                        f64::NAN
+                    } else {
+                        -0.5 * ((k.0 as f64 - 3.0) / 0.5).powi(2)
+                    }
+                })
+                .collect()
+        };
+        let (fine, _, at_bound) = range_lattice(1, bounds, 9, &mut masses);
+        assert_eq!(
+            (fine[0].0, fine[fine.len() - 1].0, at_bound[0]),
+            (0, 6, false)
+        );
+    }
 }
