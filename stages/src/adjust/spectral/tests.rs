@@ -91,3 +91,31 @@ fn reduced_rank_kernel_matches_the_exact_kernel_where_the_basis_rule_is_met() {
         assert!((total - 1.0).abs() < 0.01, "{k:?}: {total}");
     }
 }
+
+#[test]
+fn log_sum_by_products_equals_the_sum_of_logarithms() {
+    // Eigenvalue-like numbers over many orders of magnitude, and extremes whose products
+    // leave f64's normal range (the chunk then takes one logarithm per number): the sum
+    // agrees with the plain sum of logarithms to rounding.
+    let mut rng = crate::util::Rng::new(7);
+    for n in [0usize, 1, 7, 8, 9, 360, 1001] {
+        let xs: Vec<f64> = (0..n).map(|_| 10f64.powf(rng.range(-6.0, 12.0))).collect();
+        let mut s = super::LogSum::default();
+        xs.iter().for_each(|&x| s.add(x));
+        let plain: f64 = xs.iter().map(|x| x.ln()).sum();
+        let got = s.total();
+        assert!(
+            (got - plain).abs() <= 1e-12 * plain.abs().max(1.0),
+            "{n}: {got} vs {plain}"
+        );
+    }
+    let extremes = [1e-300, 1e300, 1e-200, 5e-310, 1e308, 2.0, 1e-30, 1e30, 3.0];
+    let mut s = super::LogSum::default();
+    extremes.iter().for_each(|&x| s.add(x));
+    let plain: f64 = extremes.iter().map(|x| x.ln()).sum();
+    let got = s.total();
+    assert!(
+        (got - plain).abs() <= 1e-12 * plain.abs(),
+        "{got} vs {plain}"
+    );
+}
