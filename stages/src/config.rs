@@ -293,7 +293,7 @@ impl TrialConfig {
     /// Whether the plots and design are built from treatment labels on the records
     /// (`columns.treatment`, or prescription polygons) rather than read.
     pub fn plots_from_labels(&self) -> bool {
-        !self.columns.treatment.is_empty() || !self.inputs.prescription.is_empty()
+        crate::ingest::settings::plots_from_labels(&self.inputs, &self.columns)
     }
 
     /// Ingest's settings: its own sections and what it checks its inputs against.

@@ -86,14 +86,8 @@ pub fn check(cfg: &IngestConfig, base: &Path) -> Vec<String> {
     }
     let design = read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design);
     let polys = if cfg.layout.is_empty() {
-        geojson::read_plot_input(
-            &base.join(&cfg.inputs.plots),
-            &cfg.inputs.plots,
-            &cfg.inputs.plot_id_property,
-            &cfg.inputs.crs,
-            &cfg.inputs.layer,
-        )
-        .map(|p| (p, cfg.inputs.plots.clone()))
+        cfg.read_plot_input(base)
+            .map(|p| (p, cfg.inputs.plots.clone()))
     } else {
         // Ids do not depend on where the grid lies.
         Ok((

@@ -270,13 +270,7 @@ pub fn run_with(
         read_design(&base.join(&cfg.inputs.design), &cfg.inputs.design)?
     };
     let polygons_ll = if cfg.layout.is_empty() && !labelled {
-        geojson::read_plot_input(
-            &base.join(&cfg.inputs.plots),
-            &cfg.inputs.plots,
-            &cfg.inputs.plot_id_property,
-            &cfg.inputs.crs,
-            &cfg.inputs.layer,
-        )?
+        cfg.read_plot_input(base)?
     } else {
         Vec::new()
     };

@@ -292,11 +292,32 @@ pub struct IngestConfig {
     pub crop: Result<crate::crop::Crop, String>,
 }
 
+/// Whether the plots and design are built from treatment labels on the records
+/// (`columns.treatment`, or prescription polygons) rather than read.
+pub fn plots_from_labels(inputs: &InputsSection, columns: &ColumnsSection) -> bool {
+    !columns.treatment.is_empty() || !inputs.prescription.is_empty()
+}
+
 impl IngestConfig {
     /// Whether the plots and design are built from treatment labels on the records
     /// (`columns.treatment`, or prescription polygons) rather than read.
     pub fn plots_from_labels(&self) -> bool {
-        !self.columns.treatment.is_empty() || !self.inputs.prescription.is_empty()
+        plots_from_labels(&self.inputs, &self.columns)
+    }
+
+    /// `inputs.plots` read as plot polygons (in WGS 84), as the trial names them.
+    pub fn read_plot_input(
+        &self,
+        base: &std::path::Path,
+    ) -> Result<Vec<crate::table::PlotPolygon>, super::IngestError> {
+        let i = &self.inputs;
+        super::geojson::read_plot_input(
+            &base.join(&i.plots),
+            &i.plots,
+            &i.plot_id_property,
+            &i.crs,
+            &i.layer,
+        )
     }
 
     /// The crop's bushel weight (lb), NaN when the crop is not known.
