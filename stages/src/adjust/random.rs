@@ -181,7 +181,9 @@ fn principal_axes(lp: &dyn Fn(&[f64]) -> f64, mode: &[f64], lp0: f64) -> (Vec<Ve
     };
     if hess.iter().all(|v| v.is_finite()) {
         let m = Mat::from_fn(k, k, |a, b| -hess[a * k + b]);
-        if let Ok(e) = m.self_adjoint_eigen(Side::Lower) {
+        let e = m.self_adjoint_eigen(Side::Lower);
+        super::linalg::after_faer();
+        if let Ok(e) = e {
             let s = e.S().column_vector();
             if (0..k).all(|j| s[j] > 0.0) {
                 let u = e.U();

@@ -171,7 +171,7 @@ fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
     );
     let mut u = Mat::<f64>::zeros(n, n);
     let mut s = faer::diag::Diag::<f64>::zeros(n);
-    SCRATCH.with(|cell| {
+    let ev = SCRATCH.with(|cell| {
         let mut cell = cell.borrow_mut();
         // A buffer serves when it is large and aligned enough for this request.
         let fits = |b: &MemBuffer| {
@@ -190,7 +190,9 @@ fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
             Default::default(),
         )
         .ok()
-    })?;
+    });
+    linalg::after_faer();
+    ev?;
     let sv = s.column_vector();
     let w = (0..n).map(|i| sv[i].max(0.0)).collect();
     Some((u, w))
@@ -216,6 +218,7 @@ impl Repr {
         let y = Mat::from_fn(n, 1, |i, _| d.y[i]);
         let uy_m = u.transpose() * &y;
         let ux_m = u.transpose() * d.x_mat();
+        linalg::after_faer();
         Some(Repr {
             n,
             p: d.p,
@@ -338,6 +341,7 @@ impl Repr {
         let yy: f64 = d.y.iter().map(|v| v * v).sum();
         let xtx = x.transpose() * &x;
         let xty = x.transpose() * &y;
+        linalg::after_faer();
         let mut xx_c = vec![0.0; p * p];
         let mut xy_c = vec![0.0; p];
         for a in 0..p {
@@ -526,6 +530,7 @@ impl Repr {
         let mean_m = u * &gur;
         let gux = Mat::from_fn(r, p, |i, j| g[i] * self.ux[i * p + j]);
         let rt_m = u * &gux;
+        linalg::after_faer();
         // Random groups belong to the position too: the effect at plot i is g_i + z_i'u,
         // whose mean adds z_i'u_hat and whose dependence on the mean parameters is R_i - z_i.
         let p0 = d.p_fixed();
@@ -598,6 +603,7 @@ impl SpatialParts {
             1.0,
             faer::Par::Seq,
         );
+        linalg::after_faer();
         (0..n)
             .map(|i| {
                 let row = &self.rt[i * p..(i + 1) * p];
