@@ -118,6 +118,8 @@ fn run_stages(
         }
         Event::Step(n) => bar.inc(n),
     });
+    // Point tables handed from one stage to the next (each stage still writes its files).
+    let handoff = std::sync::Mutex::new(glue::Handoff::default());
     for &stage in stages {
         pb.set_message(stage.name());
         inner.set_message("");
@@ -139,7 +141,7 @@ fn run_stages(
             .insert(stage.name().into(), unfinished("running", String::new()));
         io::write_json(&out.join("manifest.json"), &manifest)?;
         let start = Instant::now();
-        let summary = match glue::execute(stage, t, out, &report) {
+        let summary = match glue::execute(stage, t, out, &report, &handoff) {
             Ok(s) => s,
             Err(e) => {
                 let e = e.context(format!("stage {}", stage.name()));

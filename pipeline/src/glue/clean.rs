@@ -28,9 +28,11 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let unit = c.unit;
     let crop = &c.crop;
     let progress = c.progress;
-    let epsg = c.epsg()?;
     let ing = out.join(Stage::Ingest.dir());
-    let pts = io::read_points(&ing.join("points.parquet"), epsg)?;
+    let pts = match c.take_ingested() {
+        Some(p) => p,
+        None => io::read_points(&ing.join("points.parquet"), c.epsg()?)?,
+    };
     // The plots by treatment, so that rules comparing a record with its neighbours never
     // compare across treatments.
     let polygons = ingest::read_geojson(
@@ -65,5 +67,6 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     );
     points?;
     tables?;
+    c.hand_cleaned(&files, o.points);
     Ok(o.summary)
 }

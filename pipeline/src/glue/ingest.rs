@@ -41,6 +41,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     );
     points?;
     rest?;
+    c.hand_ingested(o.points);
     Ok(o.summary)
 }
 

@@ -18,11 +18,48 @@ use anyhow::{anyhow, bail, Result};
 use plotsieve_stages::crop::{Crop, YieldUnit};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::progress::Progress;
-use plotsieve_stages::table::{Rejection, StageSummary};
+use plotsieve_stages::table::{CleanPoint, PointSet, Rejection, StageSummary};
 use std::path::{Path, PathBuf};
+use std::sync::Mutex;
 
 /// What a missing adjust table says to do.
 pub(crate) const ADJUST_FIRST: &str = "run stage adjust first";
+
+/// The point tables a stage hands to the next one inside one `run`, so that the next stage
+/// need not read back what was just written. The files are written all the same, and a stage
+/// rerun alone reads them: it sees the same values (the Parquet columns hold the f64 values as
+/// they are in memory, and [`io::as_read_back`] gives the file list and given yields as
+/// reading back rebuilds them; tested in `io`).
+#[derive(Default)]
+pub struct Handoff {
+    /// Ingest's records, as `1-ingest/points.parquet` holds them.
+    ingested: Option<PointSet>,
+    /// Clean's kept points and their source files, as `2-clean/points.parquet` holds them.
+    cleaned: Option<(Vec<String>, Vec<CleanPoint>)>,
+}
+
+impl Handoff {
+    /// What of the tables handed on the stage `next` may use: those of the stage before it.
+    fn for_stage(self, next: Stage) -> Handoff {
+        match next {
+            Stage::Clean => Handoff {
+                ingested: self.ingested,
+                cleaned: None,
+            },
+            Stage::Plots => Handoff {
+                ingested: None,
+                cleaned: self.cleaned,
+            },
+            _ => Handoff::default(),
+        }
+    }
+}
+
+/// The handed tables (a stage that panicked while holding them left nothing inconsistent:
+/// each is whole or absent).
+fn lock(h: &Mutex<Handoff>) -> std::sync::MutexGuard<'_, Handoff> {
+    h.lock().unwrap_or_else(|e| e.into_inner())
+}
 
 /// What every stage's glue reads once: the trial, the run folder, the stage's own folder,
 /// the output unit and the crop.
@@ -34,12 +71,36 @@ pub struct Ctx<'a> {
     pub unit: YieldUnit,
     pub crop: Crop,
     pub progress: &'a Progress,
+    /// Tables from the stage before, when it ran in this same process.
+    handoff: &'a Mutex<Handoff>,
 }
 
 impl<'a> Ctx<'a> {
     /// Plot-table entry: the trial's input is a table of plot yields (`inputs.plot_table`).
     pub fn table_entry(&self) -> bool {
         !self.t.cfg.inputs.plot_table.is_empty()
+    }
+
+    /// Ingest's records handed on in memory (see [`Handoff`]), if ingest ran just before.
+    pub fn take_ingested(&self) -> Option<PointSet> {
+        lock(self.handoff).ingested.take()
+    }
+
+    /// Clean's points handed on in memory, if clean ran just before.
+    pub fn take_cleaned(&self) -> Option<(Vec<String>, Vec<CleanPoint>)> {
+        lock(self.handoff).cleaned.take()
+    }
+
+    /// Hands ingest's records to the next stage, as reading them back would give them.
+    pub fn hand_ingested(&self, mut set: PointSet) {
+        set.files = io::as_read_back(&set.files, &mut set.points, |p| p);
+        lock(self.handoff).ingested = Some(set);
+    }
+
+    /// Hands clean's points to the next stage, as reading them back would give them.
+    pub fn hand_cleaned(&self, files: &[String], mut points: Vec<CleanPoint>) {
+        let files = io::as_read_back(files, &mut points, |c| &mut c.base);
+        lock(self.handoff).cleaned = Some((files, points));
     }
 
     /// The EPSG code of the projected coordinates, from ingest's summary.
@@ -53,8 +114,16 @@ impl<'a> Ctx<'a> {
     }
 }
 
-/// Run one stage against the run folder; returns its summary.
-pub fn execute(stage: Stage, t: &Trial, out: &Path, progress: &Progress) -> Result<StageSummary> {
+/// Run one stage against the run folder; returns its summary. `handoff` carries tables from
+/// one stage to the next in a `run` (see [`Handoff`]); a stage with nothing handed reads the
+/// run folder.
+pub fn execute(
+    stage: Stage,
+    t: &Trial,
+    out: &Path,
+    progress: &Progress,
+    handoff: &Mutex<Handoff>,
+) -> Result<StageSummary> {
     let crop = t.cfg.crop()?;
     let c = Ctx {
         t,
@@ -63,7 +132,11 @@ pub fn execute(stage: Stage, t: &Trial, out: &Path, progress: &Progress) -> Resu
         unit: YieldUnit::new(t.cfg.trial.output_unit, &crop),
         crop,
         progress,
+        handoff,
     };
+    // A table is handed to the stage right after the one that made it, or to none.
+    let handed = std::mem::take(&mut *lock(handoff));
+    *lock(handoff) = handed.for_stage(stage);
     match stage {
         Stage::Ingest => ingest::run(&c),
         Stage::Clean => clean::run(&c),

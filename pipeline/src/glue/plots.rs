@@ -26,7 +26,10 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let out = c.out;
     let dir = &c.dir;
     let unit = c.unit;
-    let (files, pts) = io::read_clean_points(&out.join(Stage::Clean.dir()).join("points.parquet"))?;
+    let (files, pts) = match c.take_cleaned() {
+        Some(handed) => handed,
+        None => io::read_clean_points(&out.join(Stage::Clean.dir()).join("points.parquet"))?,
+    };
     let ing = out.join(Stage::Ingest.dir());
     let polys = ingest::read_geojson(
         &ing.join("plots.geojson"),

@@ -13,7 +13,7 @@ pub mod table;
 mod tables;
 
 pub use plots::{plot_properties, write_plots_wgs84, write_projected_plots};
-pub use points::{read_clean_points, read_points, write_clean_points, write_points};
+pub use points::{as_read_back, read_clean_points, read_points, write_clean_points, write_points};
 pub use table::{read_table, write_table};
 
 use anyhow::{anyhow, Context, Result};

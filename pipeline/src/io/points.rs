@@ -306,6 +306,40 @@ pub fn read_points(path: &Path, epsg: u32) -> Result<PointSet> {
     })
 }
 
+/// What reading a point table back gives for `files` and for the records' given yields, made
+/// in memory: the file list up to the last file with a record, with the names of files
+/// without one left blank (as `read_base` rebuilds it from the columns), and no given yield
+/// where none is finite (the column is then not written). A stage handed its input in memory
+/// inside one `run` sees exactly what it would read back when rerun alone.
+pub fn as_read_back<T>(
+    files: &[String],
+    rows: &mut [T],
+    base: fn(&mut T) -> &mut Point,
+) -> Vec<String> {
+    let mut used = vec![false; files.len()];
+    let mut any_given = false;
+    for r in rows.iter_mut() {
+        let p = base(r);
+        used[p.file as usize] = true;
+        any_given |= p.yield_kg_ha.is_finite();
+    }
+    if !any_given {
+        for r in rows.iter_mut() {
+            base(r).yield_kg_ha = f64::NAN;
+        }
+    }
+    let last = used.iter().rposition(|u| *u).map_or(0, |i| i + 1);
+    (0..last)
+        .map(|i| {
+            if used[i] {
+                files[i].clone()
+            } else {
+                String::new()
+            }
+        })
+        .collect()
+}
+
 /// Read clean's points back.
 pub fn read_clean_points(path: &Path) -> Result<(Vec<String>, Vec<CleanPoint>)> {
     let mut df = read_df(path, "clean")?;
@@ -368,5 +402,85 @@ mod tests {
         assert!(rows[3].is_nan() && rows[5].is_nan() && rows[1].is_sign_negative());
         // The column is gone from the frame once copied.
         assert!(df.column("v").is_err());
+    }
+
+    fn point(id: u64, file: u32, given: f64) -> Point {
+        Point {
+            id,
+            file,
+            row: id + 2,
+            time_s: 1.0e9 + id as f64,
+            lon: -97.8 + 1e-7 * id as f64,
+            lat: 40.6,
+            x_m: 601_551.696_9 + 0.1 * id as f64,
+            y_m: 4_495_092.999_9,
+            flow_kg_s: if id == 1 { -0.0 } else { 1.0 / 3.0 },
+            speed_m_s: 2.0,
+            width_m: 9.144,
+            moisture_pct: f64::NAN,
+            work_state: 1.0,
+            hdop: f64::NAN,
+            fix_quality: 4.0,
+            yield_kg_ha: given,
+        }
+    }
+
+    #[test]
+    fn a_table_handed_on_in_memory_is_the_table_read_back() {
+        // Four exports: the first and third without records, the last without records; a
+        // given yield that is infinite (not finite: the column is not written).
+        let dir = std::env::temp_dir().join(format!("plotsieve-handoff-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("points.parquet");
+        let files: Vec<String> = ["a.csv", "b.csv", "c.csv", "d.csv", "e.csv"]
+            .map(String::from)
+            .to_vec();
+        let points: Vec<Point> = (0..5)
+            .map(|i| point(i, [1, 3, 1, 3, 1][i as usize], f64::INFINITY))
+            .collect();
+        let set = PointSet {
+            files: files.clone(),
+            points,
+            epsg: 32614,
+        };
+        write_points(&path, &set).unwrap();
+        let back = read_points(&path, 32614).unwrap();
+        let mut mem = set.points.clone();
+        let mem_files = as_read_back(&set.files, &mut mem, |p| p);
+        assert_eq!(mem_files, ["", "b.csv", "", "d.csv"]);
+        assert_eq!(back.files, mem_files);
+        // Debug text: NaN equals NaN there, and -0.0 differs from 0.0.
+        assert_eq!(format!("{:?}", back.points), format!("{:?}", mem));
+        assert!(mem.iter().all(|p| p.yield_kg_ha.is_nan()));
+        // Clean's table, with its derived columns, likewise.
+        let mut clean: Vec<CleanPoint> = mem
+            .iter()
+            .map(|p| CleanPoint {
+                base: Point {
+                    yield_kg_ha: 7.5,
+                    ..p.clone()
+                },
+                pass: p.id as u32 * 3,
+                flow_shifted_kg_s: 0.1,
+                moisture_shifted_pct: f64::NAN,
+                yield_wet_kg_ha: 1e4 / 3.0,
+                yield_std_kg_ha: -0.0,
+            })
+            .filter(|c| c.base.file != 3)
+            .collect();
+        write_clean_points(
+            &path,
+            &back.files,
+            &clean,
+            Some(("yield_t_ha", vec![1.0; 3])),
+            None,
+        )
+        .unwrap();
+        let (cf, cp) = read_clean_points(&path).unwrap();
+        let mem_files = as_read_back(&back.files, &mut clean, |c| &mut c.base);
+        assert_eq!(mem_files, ["", "b.csv"]);
+        assert_eq!(cf, mem_files);
+        assert_eq!(format!("{cp:?}"), format!("{clean:?}"));
+        std::fs::remove_dir_all(&dir).ok();
     }
 }
