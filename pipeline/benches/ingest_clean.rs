@@ -9,7 +9,12 @@
 //! child, polars first reads every export (`CsvReader`, all columns, its own threads) as the
 //! floor any reader of these files meets; then ingest, clean (with the plots as zones, as
 //! `plotsieve run` does) and plots run in memory, and the ratio of their time to the
-//! floor's is printed. `PLOTSIEVE_BENCH_SET` adds `--set` style overrides, separated by `;`.
+//! floor's is printed. Then `plotsieve run` runs the whole trial (each stage's seconds from
+//! its manifest, the run's wall time and peak memory), and the Python peer
+//! (`peer_front_half.py`, a subset of the front half with polars and shapely, in a venv the
+//! benchmark makes under the target folder) runs on the same exports; the ratio of the front
+//! half inside `run` to the peer's time is printed. `PLOTSIEVE_BENCH_SET` adds `--set` style
+//! overrides, separated by `;` (in-process part only).
 
 use plotsieve_stages::clean::zones::Zones;
 use plotsieve_stages::config::TrialConfig;
@@ -168,7 +173,18 @@ fn main() {
         .status()
         .expect("child runs");
     assert!(status.success());
-    stage_processes(&dir);
+    let in_run = whole_run(&dir);
+    if let Some(p) = peer(&dir) {
+        println!(
+            "front half in run / python peer  {:.2}x ({})",
+            in_run / p,
+            if in_run < p {
+                "plotsieve faster"
+            } else {
+                "plotsieve slower"
+            }
+        );
+    }
     let _ = std::fs::remove_dir_all(&dir);
 }
 
@@ -184,27 +200,94 @@ fn timed(cmd: &mut std::process::Command) -> (f64, f64) {
     (t.elapsed().as_secs_f64(), usage.ru_maxrss as f64 / 1024.0)
 }
 
-/// The front half as `plotsieve run` does it: each stage reads the previous stage's tables
-/// from the run folder and writes its own (Parquet points, CSV rejection logs, GeoJSON
-/// plots), one process per stage here so that each stage's peak memory is its own.
-fn stage_processes(dir: &Path) {
+/// The front half as `plotsieve run` does it: one `run` of the whole trial (the stages hand
+/// their point tables on in memory and write every file), with each stage's seconds from the
+/// manifest and the whole run's wall time and peak memory. Returns the front half's seconds.
+fn whole_run(dir: &Path) -> f64 {
     let exe = env!("CARGO_BIN_EXE_plotsieve");
     let trial = dir.join("trial.toml");
     let out = dir.join("run");
-    let mut total = 0.0;
-    println!("as `plotsieve run` runs them (reading and writing the run folder):");
-    for stage in ["ingest", "clean", "plots"] {
-        let (t, mib) = timed(
-            std::process::Command::new(exe)
-                .args(["stage", stage])
-                .arg(&trial)
-                .arg("--out")
-                .arg(&out)
-                .arg("--quiet")
-                .stderr(std::process::Stdio::null()),
-        );
-        total += t;
-        println!("  stage {stage:<7} {t:6.2} s   peak {mib:5.0} MiB");
+    let (t, mib) = timed(
+        std::process::Command::new(exe)
+            .arg("run")
+            .arg(&trial)
+            .arg("--out")
+            .arg(&out)
+            .arg("--quiet")
+            .stderr(std::process::Stdio::null()),
+    );
+    let manifest: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(out.join("manifest.json")).expect("the run's manifest"),
+    )
+    .expect("manifest JSON");
+    let secs = |s: &str| {
+        manifest["stages"][s]["seconds"]
+            .as_f64()
+            .unwrap_or(f64::NAN)
+    };
+    println!("as `plotsieve run` runs them (one process, writing the run folder):");
+    let mut front = 0.0;
+    for stage in ["ingest", "clean", "plots", "adjust", "report"] {
+        println!("  stage {stage:<7} {:6.2} s", secs(stage));
+        if ["ingest", "clean", "plots"].contains(&stage) {
+            front += secs(stage);
+        }
     }
-    println!("  ingest + clean + plots {total:.2} s");
+    println!("  ingest + clean + plots {front:.2} s");
+    println!("  whole run              {t:.2} s, peak {mib:.0} MiB");
+    front
+}
+
+/// The Python peer (`peer_front_half.py`): a short script doing a subset of the front half
+/// (see its notes) on the same exports, in a venv of the benchmark's own under the target
+/// folder (made with pinned polars, shapely and numpy from PyPI on first use). Returns its
+/// seconds, or None (said why) when Python or the packages cannot be had.
+fn peer(dir: &Path) -> Option<f64> {
+    let venv = Path::new(env!("CARGO_TARGET_TMPDIR")).join("peer-venv");
+    let python = venv.join("bin").join("python");
+    let run = |cmd: &mut std::process::Command| cmd.status().map(|s| s.success()).unwrap_or(false);
+    let ready = python.exists()
+        && run(std::process::Command::new(&python)
+            .args(["-c", "import polars, shapely, numpy"])
+            .stderr(std::process::Stdio::null()));
+    if !ready {
+        let made = run(std::process::Command::new("python3")
+            .arg("-m")
+            .arg("venv")
+            .arg(&venv))
+            && run(std::process::Command::new(&python).args([
+                "-m",
+                "pip",
+                "install",
+                "--quiet",
+                "polars==2.1.0",
+                "shapely==2.2.0",
+                "numpy==2.4.6",
+            ]));
+        if !made {
+            println!("python peer           not run: python3 -m venv or pip install failed");
+            return None;
+        }
+    }
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("benches/peer_front_half.py");
+    let out = std::process::Command::new(&python)
+        .arg(&script)
+        .arg(dir)
+        .output()
+        .ok()?;
+    let text = String::from_utf8_lossy(&out.stdout);
+    let secs: Option<f64> = text.split_whitespace().next().and_then(|v| v.parse().ok());
+    match secs {
+        Some(s) if out.status.success() => {
+            println!("python peer           {s:.2} s  ({})", text.trim());
+            Some(s)
+        }
+        _ => {
+            println!(
+                "python peer           failed: {}",
+                String::from_utf8_lossy(&out.stderr).trim()
+            );
+            None
+        }
+    }
 }
