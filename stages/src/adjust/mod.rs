@@ -334,6 +334,7 @@ pub(crate) fn placeholder() -> FieldModel {
             coords: Vec::new(),
             kernel: Kernel::Matern52,
             groups: Vec::new(),
+            basis_cache: Default::default(),
         },
         treatments: Vec::new(),
         sy: 1.0,

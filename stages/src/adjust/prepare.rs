@@ -139,6 +139,7 @@ pub fn prepare<'a>(
                 coords,
                 kernel: s.kernel,
                 groups,
+                basis_cache: Default::default(),
             },
             treatments,
             sy,

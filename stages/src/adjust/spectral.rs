@@ -19,7 +19,9 @@
 
 use super::linalg;
 use super::Kernel;
-use faer::{Mat, Side};
+pub use basis::BasisCache;
+use faer::Mat;
+use std::sync::Arc;
 
 /// How the kernel matrix is represented.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -46,6 +48,9 @@ pub struct Design {
     /// columns at the end of X, (first column, number of levels), with a Gaussian prior
     /// N(0, s_g^2) on its levels. The columns before them have flat priors.
     pub groups: Vec<(usize, usize)>,
+    /// The last reduced-rank basis's products that do not depend on the length scale (see
+    /// [`BasisCache`]); empty in a new design and in a clone.
+    pub basis_cache: BasisCache,
 }
 
 impl Design {
@@ -78,9 +83,12 @@ pub struct Repr {
     pub yy_c: f64,
     pub xx_c: Vec<f64>,
     pub xy_c: Vec<f64>,
-    /// Exact: U (n x r). Reduced rank: Phi (n x m) and S^1/2 Q diag(w)^-1/2 (m x r); U = Phi B.
+    /// Exact: U (n x r). Reduced rank: Phi (n x m) and S^1/2 Q diag(w)^-1/2 (m x r); U = Phi B,
+    /// made when first asked for (the spatial effects at every lattice point of this length
+    /// scale share it; an n m r product each time was most of a large field's fit).
     u: Option<Mat<f64>>,
-    phi_b: Option<(Mat<f64>, Mat<f64>)>,
+    phi_b: Option<(Arc<Mat<f64>>, Mat<f64>)>,
+    u_made: std::sync::OnceLock<Mat<f64>>,
     /// Reduced rank: basis functions per axis and whether the size cap bound.
     pub basis: Option<(usize, usize, bool)>,
 }
@@ -231,6 +239,7 @@ impl Repr {
             xx_c: vec![0.0; d.p * d.p],
             xy_c: vec![0.0; d.p],
             u: Some(u),
+            u_made: Default::default(),
             phi_b: None,
             basis: None,
         })
@@ -262,110 +271,10 @@ impl Repr {
             xx_c,
             xy_c,
             u: None,
+            u_made: Default::default(),
             phi_b: None,
             basis: None,
         }
-    }
-
-    /// The reduced-rank (Hilbert-space) form at length scales `l`, with the box and basis
-    /// size from the rules in the module notes, capped at `max_basis` functions.
-    pub fn hsgp(d: &Design, l: (f64, f64), max_basis: usize, min_boundary: f64) -> Option<Repr> {
-        let n = d.n();
-        let p = d.p;
-        let (k_rule, g_rule) = d.kernel.basis_rule();
-        let axis = |f: &dyn Fn(&(f64, f64)) -> f64| {
-            let lo = d.coords.iter().map(f).fold(f64::INFINITY, f64::min);
-            let hi = d.coords.iter().map(f).fold(f64::NEG_INFINITY, f64::max);
-            (0.5 * (lo + hi), (0.5 * (hi - lo)).max(1.0))
-        };
-        let (c0, s0) = axis(&|c| c.0);
-        let (c1, s1) = axis(&|c| c.1);
-        let bf0 = min_boundary.max(g_rule * l.0 / s0);
-        let bf1 = min_boundary.max(g_rule * l.1 / s1);
-        let mut m0 = ((k_rule * bf0 * s0 / l.0).ceil() as usize).max(2);
-        let mut m1 = ((k_rule * bf1 * s1 / l.1).ceil() as usize).max(2);
-        let mut capped = false;
-        if m0 * m1 > max_basis {
-            let f = (max_basis as f64 / (m0 * m1) as f64).sqrt();
-            m0 = ((m0 as f64 * f).floor() as usize).max(2);
-            m1 = ((m1 as f64 * f).floor() as usize).max(2);
-            capped = true;
-        }
-        let (big_l0, big_l1) = (bf0 * s0, bf1 * s1);
-        let m = m0 * m1;
-        let freq = |j: usize, big_l: f64| std::f64::consts::PI * j as f64 / (2.0 * big_l);
-        // Phi's entries are products of one sine per axis: tabled per plot and frequency
-        // (n (m0 + m1) sines instead of 2 n m0 m1), the same arithmetic otherwise.
-        let s0: Vec<f64> = (0..n * m0)
-            .map(|k| {
-                let (i, j0) = (k / m0, k % m0 + 1);
-                (freq(j0, big_l0) * ((d.coords[i].0 - c0) + big_l0)).sin() / big_l0.sqrt()
-            })
-            .collect();
-        let s1: Vec<f64> = (0..n * m1)
-            .map(|k| {
-                let (i, j1) = (k / m1, k % m1 + 1);
-                (freq(j1, big_l1) * ((d.coords[i].1 - c1) + big_l1)).sin()
-            })
-            .collect();
-        let sq_l1 = big_l1.sqrt();
-        let phi = Mat::from_fn(n, m, |i, k| {
-            let (j0, j1) = (k / m1, k % m1);
-            s0[i * m0 + j0] * s1[i * m1 + j1] / sq_l1
-        });
-        let sq: Vec<f64> = (0..m)
-            .map(|k| {
-                let (j0, j1) = (k / m1 + 1, k % m1 + 1);
-                d.kernel
-                    .spectral_density((freq(j0, big_l0), freq(j1, big_l1)), l)
-                    .sqrt()
-            })
-            .collect();
-        let ptp = phi.transpose() * &phi;
-        let wm = Mat::from_fn(m, m, |a, b| sq[a] * ptp[(a, b)] * sq[b]);
-        let e = wm.self_adjoint_eigen(Side::Lower).ok()?;
-        let s = e.S().column_vector();
-        let wmax = (0..m).map(|i| s[i]).fold(0.0, f64::max);
-        let keep: Vec<usize> = (0..m).filter(|&i| s[i] > 1e-12 * wmax).collect();
-        let r = keep.len();
-        let q = e.U();
-        let bmat = Mat::from_fn(m, r, |a, k| sq[a] * q[(a, keep[k])] / s[keep[k]].sqrt());
-        let y = Mat::from_fn(n, 1, |i, _| d.y[i]);
-        let x = d.x_mat();
-        let pty = phi.transpose() * &y;
-        let ptx = phi.transpose() * &x;
-        let uy_m = bmat.transpose() * &pty;
-        let ux_m = bmat.transpose() * &ptx;
-        let uy: Vec<f64> = (0..r).map(|i| uy_m[(i, 0)]).collect();
-        let ux: Vec<f64> = (0..r * p).map(|k| ux_m[(k / p, k % p)]).collect();
-        let yy: f64 = d.y.iter().map(|v| v * v).sum();
-        let xtx = x.transpose() * &x;
-        let xty = x.transpose() * &y;
-        linalg::after_faer();
-        let mut xx_c = vec![0.0; p * p];
-        let mut xy_c = vec![0.0; p];
-        for a in 0..p {
-            xy_c[a] = xty[(a, 0)] - (0..r).map(|i| ux[i * p + a] * uy[i]).sum::<f64>();
-            for b in 0..p {
-                xx_c[a * p + b] =
-                    xtx[(a, b)] - (0..r).map(|i| ux[i * p + a] * ux[i * p + b]).sum::<f64>();
-            }
-        }
-        Some(Repr {
-            n,
-            p,
-            groups: d.groups.clone(),
-            w: keep.iter().map(|&i| s[i]).collect(),
-            yy_c: (yy - uy.iter().map(|v| v * v).sum::<f64>()).max(0.0),
-            uy,
-            uxt: transposed(&ux_m, p),
-            ux,
-            xx_c,
-            xy_c,
-            u: None,
-            phi_b: Some((phi, bmat)),
-            basis: Some((m0, m1, capped)),
-        })
     }
 
     /// REML and the GLS fit at spatial SD `sf` and noise SD `sn` (see the module notes).
@@ -495,10 +404,14 @@ impl Repr {
         })
     }
 
-    fn u(&self) -> std::borrow::Cow<'_, Mat<f64>> {
+    fn u(&self) -> &Mat<f64> {
         match (&self.u, &self.phi_b) {
-            (Some(u), _) => std::borrow::Cow::Borrowed(u),
-            (None, Some((phi, b))) => std::borrow::Cow::Owned(phi * b),
+            (Some(u), _) => u,
+            (None, Some((phi, b))) => self.u_made.get_or_init(|| {
+                let u = &**phi * b;
+                linalg::after_faer();
+                u
+            }),
             _ => unreachable!("a representation holds U or its factors"),
         }
     }
@@ -518,8 +431,7 @@ impl Repr {
     /// (from a joint fit) give mean + R'(b_hat - E b) and cond + diag(R' Cov b R).
     pub fn spatial_parts(&self, d: &Design, sf: f64, sn: f64, fit: &Inner) -> SpatialParts {
         let (n, p, r) = (self.n, self.p, self.w.len());
-        let u_cow = self.u();
-        let u: &Mat<f64> = &u_cow;
+        let u = self.u();
         let (vf, vn) = (sf * sf, sn * sn);
         let g: Vec<f64> = self.w.iter().map(|w| vf * w / (vf * w + vn)).collect();
         let resid = Mat::from_fn(n, 1, |i, _| {
@@ -661,6 +573,8 @@ impl LogSum {
         self.sum
     }
 }
+
+mod basis;
 
 #[cfg(test)]
 mod tests;

@@ -13,6 +13,7 @@ fn the_work_counters_count_forms_evaluations_and_searches() {
             .collect(),
         kernel: Kernel::Matern52,
         groups: Vec::new(),
+        basis_cache: Default::default(),
     };
     let a = work_counts();
     let r = Repr::exact(&d, (30.0, 30.0)).unwrap();
@@ -42,6 +43,7 @@ fn reduced_rank_kernel_matches_the_exact_kernel_where_the_basis_rule_is_met() {
         coords: coords.clone(),
         kernel: Kernel::Matern52,
         groups: Vec::new(),
+        basis_cache: Default::default(),
     };
     let r = Repr::hsgp(&d, (10.0, 10.0), 2500, 2.0).unwrap();
     assert!(!r.basis.unwrap().2);
@@ -118,4 +120,57 @@ fn log_sum_by_products_equals_the_sum_of_logarithms() {
         (got - plain).abs() <= 1e-12 * plain.abs(),
         "{got} vs {plain}"
     );
+}
+
+#[test]
+fn length_scales_sharing_a_capped_basis_share_its_products_and_agree_with_a_fresh_design() {
+    // 400 plots on a 20 x 20 grid, basis capped at 64 functions: at 5 m and 7 m the rule
+    // asks for more, so both use the capped basis (same size and box). The second length
+    // scale reuses the first's Phi (the same allocation) and gives, bit for bit, what a
+    // design without the stored products gives; a length scale with another box does not
+    // reuse it.
+    let coords: Vec<(f64, f64)> = (0..400)
+        .map(|i| (6.0 * (i % 20) as f64, 9.0 * (i / 20) as f64))
+        .collect();
+    let d = Design {
+        y: (0..400).map(|i| (i as f64 * 0.11).sin()).collect(),
+        x: (0..800)
+            .map(|k| if k % 2 == 0 { 1.0 } else { (k / 2 % 3) as f64 })
+            .collect(),
+        p: 2,
+        coords,
+        kernel: Kernel::Matern52,
+        groups: Vec::new(),
+        basis_cache: Default::default(),
+    };
+    let phi = |r: &Repr| r.phi_b.as_ref().map(|(p, _)| p.clone()).unwrap();
+    let a = Repr::hsgp(&d, (5.0, 5.0), 64, 2.0).unwrap();
+    let b = Repr::hsgp(&d, (7.0, 7.0), 64, 2.0).unwrap();
+    assert!(a.basis.unwrap().2 && b.basis.unwrap().2, "both capped");
+    assert!(Arc::ptr_eq(&phi(&a), &phi(&b)), "the products were reused");
+    let fresh = Repr::hsgp(&d.clone(), (7.0, 7.0), 64, 2.0).unwrap();
+    assert!(
+        !Arc::ptr_eq(&phi(&b), &phi(&fresh)),
+        "a clone starts without them"
+    );
+    let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+    assert_eq!(bits(&b.w), bits(&fresh.w));
+    assert_eq!(bits(&b.uy), bits(&fresh.uy));
+    assert_eq!(bits(&b.ux), bits(&fresh.ux));
+    assert_eq!(bits(&b.xx_c), bits(&fresh.xx_c));
+    assert_eq!(
+        bits(b.u().as_ref().col(3).try_as_col_major().unwrap().as_slice()),
+        bits(
+            fresh
+                .u()
+                .as_ref()
+                .col(3)
+                .try_as_col_major()
+                .unwrap()
+                .as_slice()
+        )
+    );
+    // A long length scale: a larger box (boundary factor from the rule), another basis.
+    let c = Repr::hsgp(&d, (400.0, 400.0), 64, 2.0).unwrap();
+    assert!(!Arc::ptr_eq(&phi(&b), &phi(&c)));
 }
