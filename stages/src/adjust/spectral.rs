@@ -103,11 +103,8 @@ pub struct Inner {
     pub cov: Vec<f64>,
 }
 
-/// U'X column by column when the design has many mean parameters (empty otherwise).
+/// U'X column by column (p x r, row major).
 fn transposed(ux: &Mat<f64>, p: usize) -> Vec<f64> {
-    if p < linalg::LARGE {
-        return Vec::new();
-    }
     let r = ux.nrows();
     (0..p * r).map(|k| ux[(k % r, k / r)]).collect()
 }
@@ -316,18 +313,18 @@ impl Repr {
         let mut q = self.yy_c * e;
         let mut logdet_ky = (n - r) as f64 * vn.ln();
         let mut logs = LogSum::default();
+        let mut dv = vec![0.0; r];
+        for i in 0..r {
+            let lam = vf * self.w[i] + vn;
+            let d = 1.0 / lam;
+            logs.add(lam);
+            q += d * self.uy[i] * self.uy[i];
+            dv[i] = d;
+        }
+        let du: Vec<f64> = dv.iter().zip(&self.uy).map(|(d, u)| d * u).collect();
         if p >= linalg::LARGE && r > 0 {
             // Many mean parameters: X'K_y^-1 X = (U'X)' D (U'X) as one blocked product, from
             // D U'X built column by column.
-            let mut dv = vec![0.0; r];
-            for i in 0..r {
-                let lam = vf * self.w[i] + vn;
-                let d = 1.0 / lam;
-                logs.add(lam);
-                q += d * self.uy[i] * self.uy[i];
-                dv[i] = d;
-            }
-            let du: Vec<f64> = dv.iter().zip(&self.uy).map(|(d, u)| d * u).collect();
             let mut wx = Vec::with_capacity(r * p);
             for (aa, src) in self.uxt.chunks_exact(r).enumerate() {
                 wx.extend(src.iter().zip(&dv).map(|(x, d)| x * d));
@@ -344,24 +341,18 @@ impl Repr {
                     a[aa * p + bb] += am[(aa, bb)];
                 }
             }
-        } else {
-            for i in 0..r {
-                let lam = vf * self.w[i] + vn;
-                let d = 1.0 / lam;
-                logs.add(lam);
-                let row = &self.ux[i * p..(i + 1) * p];
-                let uyi = self.uy[i];
-                q += d * uyi * uyi;
-                for (aa, arow) in a.chunks_exact_mut(p).enumerate() {
-                    let wa = d * row[aa];
-                    if wa == 0.0 {
-                        continue;
-                    }
-                    c[aa] += wa * uyi;
-                    // The lower triangle's row aa, as slices (no index checks: vectorised).
-                    for (x, r) in arow[..=aa].iter_mut().zip(&row[..=aa]) {
-                        *x += wa * r;
-                    }
+        } else if r > 0 {
+            // Few mean parameters: the same sums column by column, each a dot product of
+            // length r (vectorised, four running sums; a row-by-row loop over p-long rows
+            // was most of an evaluation's time).
+            let mut wa = vec![0.0; r];
+            for (aa, xa) in self.uxt.chunks_exact(r).enumerate() {
+                c[aa] += linalg::dot(xa, &du);
+                for (w, (x, d)) in wa.iter_mut().zip(xa.iter().zip(&dv)) {
+                    *w = x * d;
+                }
+                for (bb, xb) in self.uxt.chunks_exact(r).take(aa + 1).enumerate() {
+                    a[aa * p + bb] += linalg::dot(&wa, xb);
                 }
             }
         }
