@@ -74,12 +74,10 @@ pub fn dot(x: &[f64], y: &[f64]) -> f64 {
 pub fn chol(a: &[f64], n: usize) -> Option<Vec<f64>> {
     let mut l = vec![0.0; n * n];
     if n >= LARGE {
-        let f = MatRef::from_row_major_slice(a, n, n)
-            .llt(faer::Side::Lower)
-            .ok();
+        let f = MatRef::from_row_major_slice(a, n, n).llt(faer::Side::Lower);
         after_faer();
-        let lf = f?;
-        let lf = lf.L();
+        let f = f.ok()?;
+        let lf = f.L();
         for i in 0..n {
             let d = lf[(i, i)];
             if !(d > 0.0) || !d.is_finite() {
