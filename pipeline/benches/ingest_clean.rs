@@ -13,7 +13,9 @@
 //! its manifest, the run's wall time and peak memory), and the Python peer
 //! (`peer_front_half.py`, a subset of the front half with polars and shapely, in a venv the
 //! benchmark makes under the target folder) runs on the same exports; the ratio of the front
-//! half inside `run` to the peer's time is printed. `PLOTSIEVE_BENCH_SET` adds `--set` style
+//! half inside `run` to the peer's time is printed, and last whether the speed targets are
+//! met (front half faster than the peer; adjust stage under 8 s; whole run under 15 s and
+//! 1 GiB). `PLOTSIEVE_BENCH_SET` adds `--set` style
 //! overrides, separated by `;` (in-process part only).
 
 use plotsieve_stages::clean::zones::Zones;
@@ -173,8 +175,9 @@ fn main() {
         .status()
         .expect("child runs");
     assert!(status.success());
-    let in_run = whole_run(&dir);
-    if let Some(p) = peer(&dir) {
+    let (in_run, adjust, total, mib) = whole_run(&dir);
+    let peer_secs = peer(&dir);
+    if let Some(p) = peer_secs {
         println!(
             "front half in run / python peer  {:.2}x ({})",
             in_run / p,
@@ -185,6 +188,23 @@ fn main() {
             }
         );
     }
+    // The speed targets this workload is held to (at 92 fields, the default size).
+    let met = |ok: bool| if ok { "met" } else { "not met" };
+    println!("targets ({fields} fields):");
+    if let Some(p) = peer_secs {
+        println!(
+            "  front half inside run faster than the peer: {} ({in_run:.2} s vs {p:.2} s; goal 2x faster)",
+            met(in_run < p)
+        );
+    }
+    println!(
+        "  adjust stage under 8 s: {} ({adjust:.2} s)",
+        met(adjust < 8.0)
+    );
+    println!(
+        "  whole run under 15 s and 1 GiB: {} ({total:.2} s, {mib:.0} MiB)",
+        met(total < 15.0 && mib < 1024.0)
+    );
     let _ = std::fs::remove_dir_all(&dir);
 }
 
@@ -202,8 +222,9 @@ fn timed(cmd: &mut std::process::Command) -> (f64, f64) {
 
 /// The front half as `plotsieve run` does it: one `run` of the whole trial (the stages hand
 /// their point tables on in memory and write every file), with each stage's seconds from the
-/// manifest and the whole run's wall time and peak memory. Returns the front half's seconds.
-fn whole_run(dir: &Path) -> f64 {
+/// manifest and the whole run's wall time and peak memory. Returns (front half seconds, adjust
+/// seconds, whole run seconds, peak MiB).
+fn whole_run(dir: &Path) -> (f64, f64, f64, f64) {
     let exe = env!("CARGO_BIN_EXE_plotsieve");
     let trial = dir.join("trial.toml");
     let out = dir.join("run");
@@ -235,7 +256,7 @@ fn whole_run(dir: &Path) -> f64 {
     }
     println!("  ingest + clean + plots {front:.2} s");
     println!("  whole run              {t:.2} s, peak {mib:.0} MiB");
-    front
+    (front, secs("adjust"), t, mib)
 }
 
 /// The Python peer (`peer_front_half.py`): a short script doing a subset of the front half
