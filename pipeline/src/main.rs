@@ -129,6 +129,10 @@ enum Command {
         /// with its treatment): plots are built from the records' treatments by position.
         #[arg(long, conflicts_with = "labels")]
         prescription: bool,
+        /// A nitrogen-rate trial: six N rates (0-200 kg N/ha) on a known quadratic-plateau
+        /// response with grain and N prices (truth.json gives the true optimum rate).
+        #[arg(long, conflicts_with = "strips")]
+        rates: bool,
     },
     /// Take a harvest's exports from an inbox: match each to the trials its points fall in,
     /// copy it there, and rerun only the trials that got something new.
@@ -195,6 +199,7 @@ fn main() -> ExitCode {
             interval_s,
             labels,
             prescription,
+            rates,
         } => match simulate::SimForm::from_name(&form) {
             None => Err(anyhow::anyhow!(
                 "--form {}",
@@ -224,6 +229,7 @@ fn main() -> ExitCode {
                     interval_s,
                     labels,
                     prescription,
+                    rates,
                     ..Default::default()
                 },
             ),

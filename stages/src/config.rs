@@ -29,6 +29,7 @@ const FREE_TABLES: &[&str] = &[
     "adjust.product_cost",
     "adjust.product_prior_mean",
     "adjust.product_prior_sd",
+    "adjust.rates",
 ];
 /// Keys that were renamed, with what to write instead: never read under the old meaning.
 pub const RENAMED_KEYS: &[(&str, &str)] = &[

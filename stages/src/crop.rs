@@ -160,6 +160,71 @@ impl AreaUnit {
     }
 }
 
+crate::choice! {
+    /// The unit of an input's rate in a rate trial: a quantity per area.
+    pub enum RateUnit {
+        /// Kilograms per hectare (nitrogen, seed by weight).
+        KgHa = "kg_ha",
+        /// Pounds per acre.
+        LbAc = "lb_ac",
+        /// Litres per hectare (a growth regulator, a liquid product).
+        LHa = "l_ha",
+        /// Seeds per hectare.
+        SeedsHa = "seeds_ha",
+        /// Seeds per acre.
+        SeedsAc = "seeds_ac",
+    }
+}
+
+crate::choice! {
+    /// The quantity an input's price is given for.
+    pub enum InputUnit {
+        /// A kilogram.
+        Kg = "kg",
+        /// A pound.
+        Lb = "lb",
+        /// A litre.
+        L = "l",
+        /// A thousand seeds.
+        ThousandSeeds = "1000_seeds",
+    }
+}
+
+/// What an input's quantity measures: mass (kg), volume (l) or a count of seeds.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Quantity {
+    Mass,
+    Volume,
+    Seeds,
+}
+
+impl RateUnit {
+    /// What the rate measures, how many base units (kg, l or seeds) one rate unit's
+    /// quantity is, and the area it is given per.
+    pub fn parts(self) -> (Quantity, f64, AreaUnit) {
+        match self {
+            RateUnit::KgHa => (Quantity::Mass, 1.0, AreaUnit::Hectare),
+            RateUnit::LbAc => (Quantity::Mass, LB_KG, AreaUnit::Acre),
+            RateUnit::LHa => (Quantity::Volume, 1.0, AreaUnit::Hectare),
+            RateUnit::SeedsHa => (Quantity::Seeds, 1.0, AreaUnit::Hectare),
+            RateUnit::SeedsAc => (Quantity::Seeds, 1.0, AreaUnit::Acre),
+        }
+    }
+
+    /// The cost per hectare of one rate unit at `price` per `unit`, or None when the price's
+    /// quantity does not measure what the rate does (a price per litre for a rate in kg).
+    pub fn cost_per_ha(self, price: f64, unit: InputUnit) -> Option<f64> {
+        let (q, base, area) = self.parts();
+        let (pq, pbase) = match unit {
+            InputUnit::Kg => (Quantity::Mass, 1.0),
+            InputUnit::Lb => (Quantity::Mass, LB_KG),
+            InputUnit::L => (Quantity::Volume, 1.0),
+            InputUnit::ThousandSeeds => (Quantity::Seeds, 1000.0),
+        };
+        (q == pq).then(|| price / pbase * base / area.ha())
+    }
+}
+
 /// One crop of the crop table.
 #[derive(Clone, Debug, Default, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields)]

@@ -64,6 +64,10 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     io::write_table(&dir.join("treatments.csv"), &o.treatments, &unit)?;
     io::write_table(&dir.join("hyperparameters.csv"), &o.hyper, &unit)?;
     io::write_table(&dir.join("comparison.csv"), &o.comparisons, &unit)?;
+    if !cfg.adjust.rates.is_empty() {
+        io::write_table(&dir.join("response.csv"), &o.response, &unit)?;
+        io::write_table(&dir.join("response_curve.csv"), &o.response_curve, &unit)?;
+    }
     // What this trial learned, for a later trial's adjust.priors_from.
     io::write_json(
         &dir.join("priors.json"),

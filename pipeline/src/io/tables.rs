@@ -3,7 +3,9 @@
 //! `hyperparameters.csv`, and the season's `locations.csv` and `product_x_field_sd.csv`. Each column is named, written and read in one place.
 
 use super::table::{col, count, number, yield_col, Col, Table};
-use plotsieve_stages::adjust::{AdjustedPlot, Comparison, FieldHyper, TreatmentRow};
+use plotsieve_stages::adjust::{
+    AdjustedPlot, Comparison, FieldHyper, ResponseCurveRow, ResponseRow, TreatmentRow,
+};
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::table::{DesignRow, Rejection};
 use plotsieve_stages::util::fmt;
@@ -197,6 +199,60 @@ impl Table for TreatmentRow {
             yld!(format!("new_field_hi95_{unit}"), new_field_hi95, 6),
             num!("p_new_field_gt0", p_new_field_gt0, 6),
             num!("p_new_field_gt_break_even", p_new_field_gt_break_even, 6),
+        ]
+    }
+}
+
+impl Table for ResponseRow {
+    fn columns(unit: &str) -> Vec<Col<Self>> {
+        vec![
+            text!("field", field),
+            text!("model", model),
+            num!("probability", probability, 6),
+            num!("log_bayes_factor_vs_unordered", log_bayes_factor, 4),
+            text!("rate_unit", rate_unit),
+            num!("optimum_rate", optimum_rate, 3),
+            num!("optimum_lo90", optimum_lo90, 3),
+            num!("optimum_hi90", optimum_hi90, 3),
+            num!("optimum_lo95", optimum_lo95, 3),
+            num!("optimum_hi95", optimum_hi95, 3),
+            num!("p_optimum_at_highest_rate", p_optimum_at_highest, 4),
+            yld!(format!("gain_at_optimum_{unit}"), gain_at_optimum, 6),
+            num!(
+                "net_return_at_optimum_per_ha",
+                net_return_at_optimum_per_ha,
+                2
+            ),
+            num!("p_optimum_beats_lowest", p_optimum_beats_lowest, 4),
+            num!("p_optimum_beats_current", p_optimum_beats_current, 4),
+            num!("flat_top_lo", flat_top_lo, 3),
+            num!("flat_top_hi", flat_top_hi, 3),
+            text!("note", note),
+        ]
+    }
+}
+
+impl Table for ResponseCurveRow {
+    fn columns(unit: &str) -> Vec<Col<Self>> {
+        vec![
+            text!("field", field),
+            num!("rate", rate, 3),
+            col(
+                "tested",
+                |r: &Self| r.tested.to_string(),
+                |r: &mut Self, v: &str| {
+                    r.tested = v == "true";
+                    Ok(())
+                },
+            ),
+            yld!(format!("gain_{unit}"), gain, 6),
+            yld!(format!("gain_lo95_{unit}"), gain_lo95, 6),
+            yld!(format!("gain_hi95_{unit}"), gain_hi95, 6),
+            num!("net_return_per_ha", net_return_per_ha, 2),
+            num!("net_return_lo95_per_ha", net_return_lo95_per_ha, 2),
+            num!("net_return_hi95_per_ha", net_return_hi95_per_ha, 2),
+            num!("p_beats_lowest", p_beats_lowest, 4),
+            num!("p_beats_current", p_beats_current, 4),
         ]
     }
 }

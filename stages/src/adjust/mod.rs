@@ -71,8 +71,10 @@ pub mod output;
 mod prepare;
 pub mod priors;
 mod random;
+mod rate_fit;
 #[cfg(test)]
 pub mod reference;
+pub mod response;
 pub mod settings;
 mod single;
 pub mod spectral;
@@ -84,9 +86,10 @@ pub use lattice::*;
 pub use optimise::*;
 pub use output::*;
 pub use prepare::*;
+pub use rate_fit::{ResponseCurveRow, ResponseRow};
 #[cfg(test)]
 pub use reference::*;
-pub use settings::{AdjustSettings, FitSettings, Pooling, RandomEffect};
+pub use settings::{AdjustSettings, FitSettings, Pooling, RandomEffect, RateSettings};
 use single::*;
 
 use crate::plots::PlotStats;
@@ -102,6 +105,9 @@ use std::collections::{BTreeMap, BTreeSet};
 pub enum AdjustError {
     #[error("no field could be adjusted:\n  {}", .0.join("\n  "))]
     NothingToFit(Vec<String>),
+    /// A rate trial whose rates do not match its treatments.
+    #[error("rate trial: {0}")]
+    Rates(String),
 }
 
 /// "field F: no kept plot (...)" for each field of `plots` that has none.
@@ -266,6 +272,8 @@ pub fn run_with(
         missing_fields: Vec::new(),
         joint_ess: f64::NAN,
         stage_one: Vec::new(),
+        response: Vec::new(),
+        response_curve: Vec::new(),
     };
     // Fields that failed their own fit leave the joint fit too.
     let mut keep = Vec::new();
@@ -300,6 +308,10 @@ pub fn run_with(
         products: &products,
         s,
     };
+    if let Some(r) = &s.rates {
+        rate_fit::response_rows(&c, &own, &keep, jf.as_ref(), r, &mut out)
+            .map_err(AdjustError::Rates)?;
+    }
     match jf {
         Some(jf) => assemble::joint_rows(&c, &mut out, own, &jf, shared),
         None => assemble::separate_rows(&c, &mut out, own, &keep),
@@ -349,6 +361,8 @@ pub(crate) fn placeholder() -> FieldModel {
 
 #[cfg(test)]
 mod random_tests;
+#[cfg(test)]
+mod response_tests;
 #[cfg(test)]
 pub(crate) mod season_tests;
 #[cfg(test)]

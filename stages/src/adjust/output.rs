@@ -166,6 +166,10 @@ pub struct AdjustOutput {
     pub joint_ess: f64,
     /// Each fitted field's contrasts from its own fit (the stage-one input of a season).
     pub stage_one: Vec<StageOne>,
+    /// A rate trial's response curves (empty otherwise): rows per field and pooled, and the
+    /// averaged curve on a grid of rates.
+    pub response: Vec<ResponseRow>,
+    pub response_curve: Vec<ResponseCurveRow>,
 }
 
 /// One field's product contrasts with the check from the field fitted alone, with flat

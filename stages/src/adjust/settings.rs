@@ -2,7 +2,7 @@
 //! the checked form the fit takes (`FitSettings`).
 
 use super::Kernel;
-use crate::crop::{AreaUnit, PriceUnit};
+use crate::crop::{AreaUnit, InputUnit, PriceUnit, RateUnit};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
@@ -72,6 +72,22 @@ pub struct FitSettings {
     /// kg/ha in one output unit. Yields are fitted in kg/ha; the log marginal likelihoods
     /// are stated for the yields in the output unit (a density changes with the unit).
     pub kg_ha_per_unit: f64,
+    /// A rate trial's rates and prices (None: unordered products).
+    pub rates: Option<RateSettings>,
+}
+
+/// A rate trial: each treatment's rate and the input's price, checked.
+#[derive(Clone, Debug, PartialEq)]
+pub struct RateSettings {
+    /// Rate per treatment, in `unit`.
+    pub by_treatment: BTreeMap<String, f64>,
+    pub unit: RateUnit,
+    /// Cost per hectare of one rate unit (0 = no input price).
+    pub cost_per_ha: f64,
+    /// The grower's current rate, in `unit`.
+    pub current: Option<f64>,
+    /// The flat top's width in money per hectare (0 = the price of 1 % of the mean yield).
+    pub flat_top_within_per_ha: f64,
 }
 
 /// Prices as the trial gave them: the grain price and its unit, the cost area unit.
@@ -138,6 +154,19 @@ pub struct AdjustSettings {
     pub allow_missing_fields: bool,
     pub row_spacing_m: f64,
     pub range_spacing_m: f64,
+    /// A rate trial: each treatment's rate of the input under test, in `rate_unit` (empty:
+    /// the treatments are unordered products).
+    pub rates: BTreeMap<String, f64>,
+    pub rate_unit: RateUnit,
+    /// The input's price per `input_price_unit` (0 = none: the curve's optimum is then the
+    /// rate of highest yield, or of highest return when only the grain has a price).
+    pub input_price: f64,
+    pub input_price_unit: InputUnit,
+    /// The grower's current rate, in `rate_unit` (negative = not given).
+    pub current_rate: f64,
+    /// The flat top: rates whose expected net return is within this much (per
+    /// `product_cost_unit`) of the best; 0 = the price of 1 % of the trial's mean yield.
+    pub flat_top_within: f64,
 }
 
 impl AdjustSettings {
@@ -197,11 +226,79 @@ impl AdjustSettings {
                 .collect(),
             money: a.money(),
             kg_ha_per_unit,
+            rates: (!a.rates.is_empty()).then(|| RateSettings {
+                by_treatment: a.rates.clone(),
+                unit: a.rate_unit,
+                cost_per_ha: a
+                    .rate_unit
+                    .cost_per_ha(a.input_price, a.input_price_unit)
+                    .unwrap_or(f64::NAN),
+                current: (a.current_rate >= 0.0).then_some(a.current_rate),
+                flat_top_within_per_ha: a.flat_top_within / a.product_cost_unit.ha(),
+            }),
+        }
+    }
+
+    /// Problems of the rate-trial settings, each naming its key.
+    fn rate_problems(&self, p: &mut Vec<String>) {
+        let a = self;
+        for (t, r) in &a.rates {
+            if !(*r >= 0.0) || !r.is_finite() {
+                p.push(format!(
+                    "adjust.rates.{t} must be a finite rate >= 0 in {} (got {r})",
+                    a.rate_unit
+                ));
+            }
+        }
+        if !a.rates.is_empty() {
+            let mut distinct: Vec<f64> = a.rates.values().copied().collect();
+            distinct.sort_by(f64::total_cmp);
+            distinct.dedup();
+            if distinct.len() < 3 {
+                p.push(format!(
+                    "adjust.rates gives {} distinct rate(s) ({}); a response curve needs at least three",
+                    distinct.len(),
+                    distinct.iter().map(|r| r.to_string()).collect::<Vec<_>>().join(", ")
+                ));
+            }
+        }
+        if !(a.input_price >= 0.0) || !a.input_price.is_finite() {
+            p.push(format!(
+                "adjust.input_price must be a finite number >= 0 (got {})",
+                a.input_price
+            ));
+        } else if a.input_price > 0.0 {
+            if a.rates.is_empty() {
+                p.push("adjust.input_price is set but adjust.rates is empty: an input price belongs to a rate trial (give each treatment's rate in adjust.rates)".into());
+            }
+            if a.rate_unit
+                .cost_per_ha(a.input_price, a.input_price_unit)
+                .is_none()
+            {
+                p.push(format!(
+                    "adjust.input_price_unit {:?} does not measure what adjust.rate_unit {:?} does (kg and lb go with kg_ha and lb_ac, l with l_ha, 1000_seeds with seeds_ha and seeds_ac)",
+                    a.input_price_unit.as_str(),
+                    a.rate_unit.as_str()
+                ));
+            }
+        }
+        if !a.current_rate.is_finite() {
+            p.push(format!(
+                "adjust.current_rate must be a finite number (negative = not given; got {})",
+                a.current_rate
+            ));
+        }
+        if !(a.flat_top_within >= 0.0) || !a.flat_top_within.is_finite() {
+            p.push(format!(
+                "adjust.flat_top_within must be a finite number >= 0 (got {})",
+                a.flat_top_within
+            ));
         }
     }
 
     /// Range problems, each naming its key.
     pub fn problems(&self, p: &mut Vec<String>) {
+        self.rate_problems(p);
         if !(self.priors_widen > 0.0 && self.priors_widen.is_finite()) {
             p.push(format!(
                 "adjust.priors_widen must be above 0 (got {})",

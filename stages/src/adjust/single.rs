@@ -21,6 +21,8 @@ pub(crate) struct FieldFit {
     pub(crate) uplifts: Vec<(String, f64, f64)>,
     /// The field's own posterior: weighted components (see [`own_rows`]).
     pub(crate) comps: Vec<(f64, Component)>,
+    /// Each component's lattice point (node key, index), in the order of `comps`.
+    pub(crate) comp_keys: Vec<((i64, i64), usize)>,
     pub(crate) stage_one: StageOne,
 }
 
@@ -339,6 +341,7 @@ pub(crate) fn fit_own(
         hyper,
         uplifts: Vec::new(),
         comps,
+        comp_keys: comps_w.iter().map(|(_, k, i)| (*k, *i)).collect(),
         stage_one: stage_one(prep, lat),
     })
 }

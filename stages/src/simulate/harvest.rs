@@ -3,7 +3,7 @@
 //! always took them, so a seed gives the same trial.
 
 use super::geometry::{iso, Frame, Trend};
-use super::{Rec, SimForm, SimOptions, HEADER_M, TREATMENTS};
+use super::{Rec, SimForm, SimOptions, HEADER_M};
 use crate::util::Rng;
 use serde_json::json;
 use std::collections::BTreeMap;
@@ -88,7 +88,10 @@ pub(super) fn layout(
 ) -> (Vec<Vec<usize>>, Vec<Vec<f64>>) {
     let mut layout = vec![vec![0usize; ncol]; o.blocks];
     let mut plot_noise = vec![vec![0.0; ncol]; o.blocks];
-    let prod_d = TREATMENTS.iter().position(|t| t.0 == "prod-d").unwrap_or(1);
+    let prod_d = super::treatments(o)
+        .iter()
+        .position(|t| t.0 == "prod-d")
+        .unwrap_or(1);
     for (b, row) in layout.iter_mut().enumerate() {
         if o.strips {
             *row = (0..ncol)
@@ -132,7 +135,7 @@ pub(super) fn plots(
     for b in 0..o.blocks {
         for c in 0..ncol {
             let id = format!("{fname}-{}{:02}", b + 1, c + 1);
-            let (t, eff) = TREATMENTS[layout[b][c]];
+            let (t, eff) = super::treatments(o)[layout[b][c]];
             let _ = writeln!(design, "{id},{t},{},{fname}", b + 1);
             let u0 = headland + b as f64 * (o.plot_length_m + alley);
             let (u1, v0, v1) = (
@@ -236,7 +239,9 @@ pub(super) fn passes(rng: &mut Rng, site: &Site, field: &Field, t0: f64) -> Vec<
                 + trend.at(e, n)
                 + field
                     .plot_at(site, pu, v)
-                    .map(|(b, c)| TREATMENTS[layout[b][c]].1 * o.effect_scale + plot_noise[b][c])
+                    .map(|(b, c)| {
+                        super::treatments(o)[layout[b][c]].1 * o.effect_scale + plot_noise[b][c]
+                    })
                     .unwrap_or(0.0)
                 + o.point_noise_kg_ha * rng.normal();
             let m = (18.0 + moist.at(e, n) + 0.2 * rng.normal()).clamp(14.0, 24.0);
@@ -263,7 +268,7 @@ pub(super) fn passes(rng: &mut Rng, site: &Site, field: &Field, t0: f64) -> Vec<
             }
             let label = field
                 .plot_at(site, pu, v)
-                .map(|(b, c)| TREATMENTS[layout[b][c]].0);
+                .map(|(b, c)| super::treatments(site.o)[layout[b][c]].0);
             rows.push(Rec {
                 label,
                 t,

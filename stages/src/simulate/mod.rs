@@ -68,6 +68,10 @@ pub struct SimOptions {
     /// each plot's rectangle with the treatment applied in it as its `product`
     /// (`inputs.prescription`).
     pub prescription: bool,
+    /// A nitrogen-rate trial instead of products: treatments N0-N200 (0-200 kg N/ha in
+    /// steps of 40) on the true quadratic-plateau curve [`true_rate_gain`], with grain and N
+    /// prices in the trial file (see [`RATE_TRUTH`]).
+    pub rates: bool,
 }
 
 crate::choice! {
@@ -114,6 +118,7 @@ impl Default for SimOptions {
             interval_s: 1,
             labels: false,
             prescription: false,
+            rates: false,
         }
     }
 }
@@ -127,6 +132,65 @@ pub const TREATMENTS: &[(&str, f64)] = &[
     ("prod-d", 600.0),
     ("prod-e", -200.0),
 ];
+
+/// A rate trial's treatments, their N rates (kg/ha) and true yield gains over N0 (kg/ha at
+/// standard moisture, before `effect_scale`): [`true_rate_gain`] at each rate (a test
+/// checks they agree).
+pub const RATE_TREATMENTS: &[(&str, f64)] = &[
+    ("N0", 0.0),
+    ("N40", 832.0),
+    ("N80", 1408.0),
+    ("N120", 1728.0),
+    ("N160", 1800.0),
+    ("N200", 1800.0),
+];
+pub const RATES_KG_HA: [f64; 6] = [0.0, 40.0, 80.0, 120.0, 160.0, 200.0];
+
+/// The invented truth of a rate trial: a quadratic-plateau response (rise to the plateau,
+/// kg/ha; the join, kg N/ha) and the prices (grain per tonne, N per kg).
+pub struct RateTruth {
+    pub rise_kg_ha: f64,
+    pub join_kg_ha: f64,
+    pub grain_price_per_t: f64,
+    pub n_price_per_kg: f64,
+}
+
+pub const RATE_TRUTH: RateTruth = RateTruth {
+    rise_kg_ha: 1800.0,
+    join_kg_ha: 150.0,
+    grain_price_per_t: 180.0,
+    n_price_per_kg: 1.1,
+};
+
+/// The true yield gain over no nitrogen at `rate` kg N/ha, kg/ha (`scale` x the rise).
+pub fn true_rate_gain(rate: f64, scale: f64) -> f64 {
+    let t = RATE_TRUTH;
+    let v = 1.0 - rate.min(t.join_kg_ha) / t.join_kg_ha;
+    scale * t.rise_kg_ha * (1.0 - v * v)
+}
+
+/// The true economic optimum N rate (kg/ha) for a rise of `scale` x the truth's: where the
+/// curve's slope, 2 rise (1 - r / join) / join, equals the price ratio (kg of grain per kg
+/// of N); 0 when even the first kilogram does not pay.
+pub fn true_rate_optimum(scale: f64) -> f64 {
+    let t = RATE_TRUTH;
+    let ratio = t.n_price_per_kg / (t.grain_price_per_t / 1000.0);
+    let rise = scale * t.rise_kg_ha;
+    if rise <= 0.0 {
+        return 0.0;
+    }
+    (t.join_kg_ha * (1.0 - ratio * t.join_kg_ha / (2.0 * rise))).clamp(0.0, t.join_kg_ha)
+}
+
+/// The treatments of a simulated trial with their true effects (kg/ha, before
+/// `effect_scale`).
+pub fn treatments(o: &SimOptions) -> &'static [(&'static str, f64)] {
+    if o.rates {
+        RATE_TREATMENTS
+    } else {
+        TREATMENTS
+    }
+}
 
 /// A simulated trial, as file contents.
 pub struct SimTrial {
@@ -165,9 +229,9 @@ pub fn generate(o: &SimOptions) -> SimTrial {
     let base = 11_000.0;
     // RCBD plots are two passes wide; strips one.
     let (width_plot, ncol) = if o.strips {
-        (HEADER_M, 2 * TREATMENTS.len())
+        (HEADER_M, 2 * treatments(o).len())
     } else {
-        (2.0 * HEADER_M, TREATMENTS.len())
+        (2.0 * HEADER_M, treatments(o).len())
     };
     let passes_per_plot = (width_plot / HEADER_M).round() as usize;
     // Research plots (shorter than 30 m) have narrower alleys (from memory).
@@ -246,11 +310,11 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         ));
         files.push(("design.csv".into(), design));
     }
-    let effects: BTreeMap<&str, f64> = TREATMENTS
+    let effects: BTreeMap<&str, f64> = treatments(o)
         .iter()
         .map(|(t, e)| (*t, e * o.effect_scale / 1000.0))
         .collect();
-    let truth = json!({
+    let mut truth = json!({
         "scenario": "Brackenmoor trial station (invented)",
         "seed": o.seed,
         "unit": "t_ha",
@@ -263,6 +327,18 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         "plots": truth_plots,
         "artifacts": artifacts,
     });
+    if o.rates {
+        let t = RATE_TRUTH;
+        truth["response"] = json!({
+            "curve": "quadratic_plateau",
+            "rates_kg_ha": RATES_KG_HA,
+            "rise_t_ha": t.rise_kg_ha * o.effect_scale / 1000.0,
+            "join_kg_ha": t.join_kg_ha,
+            "grain_price_per_t": t.grain_price_per_t,
+            "n_price_per_kg": t.n_price_per_kg,
+            "optimum_kg_ha": true_rate_optimum(o.effect_scale),
+        });
+    }
     files.push((
         "truth.json".into(),
         serde_json::to_string_pretty(&truth).unwrap() + "\n",

@@ -69,6 +69,9 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
     if o.prescription {
         how += " --prescription";
     }
+    if o.rates {
+        how += " --rates";
+    }
     // Plots as polygons with a design table, or built from the records' labels.
     let plots = if o.prescription {
         "prescription = \"prescription.geojson\"\nprescription_property = \"product\"\n"
@@ -96,15 +99,35 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
     } else {
         format!("\n# How this combine's monitor names and scales its columns.\n[columns]\n{columns}{label}")
     };
+    let (kind, check, adjust) = if o.rates {
+        let t = super::RATE_TRUTH;
+        let rates: Vec<String> = super::RATE_TREATMENTS
+            .iter()
+            .zip(super::RATES_KG_HA)
+            .map(|((n, _), r)| format!("\"{n}\" = {r}"))
+            .collect();
+        (
+            "nitrogen-rate",
+            "N0",
+            format!(
+                "\n[adjust]\n# A nitrogen-rate trial: each treatment's N rate, and the prices.\nrates = {{ {} }}\nrate_unit = \"kg_ha\"\ngrain_price = {}\ngrain_price_unit = \"t\"\ninput_price = {}\ninput_price_unit = \"kg\"\n",
+                rates.join(", "),
+                t.grain_price_per_t,
+                t.n_price_per_kg
+            ),
+        )
+    } else {
+        ("product", "check", String::new())
+    };
     format!(
         r#"# An invented trial made by `plotsieve simulate --seed {seed}{how}` (Brackenmoor trial station,
 # a made-up place). Paths are relative to this file.
 
 [trial]
-name = "Brackenmoor product trial, seed {seed}"
+name = "Brackenmoor {kind} trial, seed {seed}"
 crop = "corn"
 output_unit = "t_ha"
-check = "check"
+check = "{check}"
 
 [inputs]
 monitor = ["monitor"]
@@ -114,6 +137,6 @@ monitor = ["monitor"]
 # the fallbacks when an export has too few opposite passes.
 flow_delay_s = 11.0
 moisture_delay_s = 8.0
-"#
+{adjust}"#
     )
 }

@@ -1,0 +1,166 @@
+//! Rate trials: the curves by hand, the simulator's truth, settings refusals, and the
+//! optimum's interval against known truth over 100 simulated trials.
+
+use super::response::{Curve, RateDesign};
+use super::*;
+use crate::simulate::{
+    true_rate_gain, true_rate_optimum, RATES_KG_HA, RATE_TREATMENTS, RATE_TRUTH,
+};
+
+#[test]
+fn curves_by_hand() {
+    // Linear-plateau: a straight rise to the join, flat after.
+    assert_eq!(Curve::LinearPlateau.basis(0.25, 0.5), [0.5, 0.0]);
+    assert_eq!(Curve::LinearPlateau.basis(0.8, 0.5), [1.0, 0.0]);
+    // Quadratic-plateau: 1 - (1 - u/x)^2, joining the plateau with zero slope.
+    assert_eq!(Curve::QuadraticPlateau.basis(0.25, 0.5), [0.75, 0.0]);
+    let h = 1e-6;
+    let slope = (Curve::QuadraticPlateau.basis(0.5, 0.5)[0]
+        - Curve::QuadraticPlateau.basis(0.5 - h, 0.5)[0])
+        / h;
+    assert!(slope.abs() < 1e-5, "{slope}");
+    assert_eq!(Curve::Quadratic.basis(0.5, f64::NAN), [0.5, 0.25]);
+    let rd = RateDesign::new(&[40.0, 80.0, 200.0], 0.0);
+    assert_eq!(rd.u, vec![0.2, 0.4, 1.0]);
+    assert_eq!(rd.rate(0.5), 100.0);
+}
+
+#[test]
+fn the_simulator_truth_is_its_curve() {
+    for ((name, gain), r) in RATE_TREATMENTS.iter().zip(RATES_KG_HA) {
+        assert!((true_rate_gain(r, 1.0) - gain).abs() < 1e-9, "{name}");
+    }
+    // The optimum's slope equals the price ratio (kg grain per kg N), checked numerically.
+    let r = true_rate_optimum(1.0);
+    let ratio = RATE_TRUTH.n_price_per_kg / (RATE_TRUTH.grain_price_per_t / 1000.0);
+    let slope = (true_rate_gain(r + 1e-4, 1.0) - true_rate_gain(r - 1e-4, 1.0)) / 2e-4;
+    assert!((slope - ratio).abs() < 1e-6, "{slope} vs {ratio}");
+    assert!((r - 111.80555555555556).abs() < 1e-9, "{r}");
+}
+
+/// A 6-rate x 4-block trial at plot level on the simulator's true curve: plots 12 m x 40 m
+/// in blocks along y, a smooth trend of SD about `trend`, plot noise of SD `noise` (kg/ha).
+fn rate_plots(seed: u64, trend: f64, noise: f64) -> Vec<PlotStats> {
+    let mut rng = crate::util::Rng::new(seed);
+    let (p1, p2) = (rng.range(0.0, 6.3), rng.range(0.0, 6.3));
+    let mut out = Vec::new();
+    for b in 0..4 {
+        let mut order: Vec<usize> = (0..6).collect();
+        rng.shuffle(&mut order);
+        for (c, &k) in order.iter().enumerate() {
+            let (x, y) = (12.0 * c as f64, 40.0 * b as f64);
+            let t = trend * ((x / 30.0 + p1).sin() + (y / 70.0 + p2).cos()) / 2f64.sqrt();
+            let v = 9000.0 + t + true_rate_gain(RATES_KG_HA[k], 1.0) + noise * rng.normal();
+            out.push(PlotStats::from_yield(
+                &format!("p{b}{c}"),
+                "F",
+                RATE_TREATMENTS[k].0,
+                &b.to_string(),
+                v,
+                x,
+                y,
+            ));
+        }
+    }
+    out
+}
+
+fn rate_settings() -> FitSettings {
+    let mut s = FitSettings::new("N0");
+    s.blocks = true;
+    s.grain_price_per_t = RATE_TRUTH.grain_price_per_t;
+    s.rates = Some(RateSettings {
+        by_treatment: RATE_TREATMENTS
+            .iter()
+            .zip(RATES_KG_HA)
+            .map(|((n, _), r)| (n.to_string(), r))
+            .collect(),
+        unit: crate::crop::RateUnit::KgHa,
+        cost_per_ha: RATE_TRUTH.n_price_per_kg,
+        current: Some(160.0),
+        flat_top_within_per_ha: 0.0,
+    });
+    s
+}
+
+#[test]
+fn a_rate_trial_gives_each_curve_its_probability_and_an_optimum_near_the_truth() {
+    let out = run(&rate_plots(7, 500.0, 250.0), &rate_settings()).unwrap();
+    let rows: Vec<&ResponseRow> = out.response.iter().filter(|r| r.field == "F").collect();
+    assert_eq!(
+        rows.iter().map(|r| r.model.as_str()).collect::<Vec<_>>(),
+        [
+            "averaged",
+            "quadratic",
+            "quadratic_plateau",
+            "linear_plateau"
+        ]
+    );
+    let total: f64 = rows[1..].iter().map(|r| r.probability).sum();
+    assert!((total - 1.0).abs() < 1e-9, "{total}");
+    // Strong evidence for a curve over six unordered rates on a 1.8 t/ha response.
+    assert!(
+        rows[1..].iter().all(|r| r.log_bayes_factor > 2.0),
+        "{rows:?}"
+    );
+    let avg = rows[0];
+    let truth = true_rate_optimum(1.0);
+    assert!(
+        avg.optimum_lo95 <= truth && truth <= avg.optimum_hi95,
+        "{truth} outside {avg:?}"
+    );
+    assert!(avg.optimum_lo90 >= avg.optimum_lo95 && avg.optimum_hi90 <= avg.optimum_hi95);
+    assert!(avg.flat_top_lo <= avg.optimum_rate && avg.optimum_rate <= avg.flat_top_hi);
+    // The current rate (160) is past the optimum: the optimum beats it more often than not.
+    assert!(avg.p_optimum_beats_current > 0.5, "{avg:?}");
+    // The curve at the rates tested against the truth, within its 95 % band.
+    let curve: Vec<&ResponseCurveRow> = out
+        .response_curve
+        .iter()
+        .filter(|r| r.field == "F" && r.tested)
+        .collect();
+    assert_eq!(curve.len(), 6);
+    for c in &curve {
+        let t = true_rate_gain(c.rate, 1.0);
+        assert!(c.gain_lo95 <= t && t <= c.gain_hi95, "{c:?} truth {t}");
+    }
+    // A single field: the pooled rows are its rows.
+    let all: Vec<&ResponseRow> = out.response.iter().filter(|r| r.field == "all").collect();
+    assert_eq!(all.len(), 4);
+    assert_eq!(all[0].optimum_rate, avg.optimum_rate);
+}
+
+#[test]
+fn rates_that_do_not_match_the_treatments_are_refused_by_name() {
+    let mut s = rate_settings();
+    let r = s.rates.as_mut().unwrap();
+    r.by_treatment.remove("N80");
+    r.by_treatment.insert("N999".into(), 999.0);
+    let e = run(&rate_plots(1, 500.0, 250.0), &s)
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("N80 have no rate in adjust.rates"), "{e}");
+    assert!(e.contains("adjust.rates names N999"), "{e}");
+}
+
+#[test]
+fn the_optimum_interval_covers_the_true_optimum_about_as_often_as_it_says() {
+    // Known truth: 100 simulated trials on the simulator's curve and prices.
+    let truth = true_rate_optimum(1.0);
+    let s = rate_settings();
+    let (mut in90, mut in95) = (0, 0);
+    let n = 100;
+    for seed in 0..n {
+        let out = run(&rate_plots(1000 + seed, 500.0, 350.0), &s).unwrap();
+        let avg = &out.response[0];
+        assert_eq!(avg.model, "averaged");
+        in90 += usize::from(avg.optimum_lo90 <= truth && truth <= avg.optimum_hi90);
+        in95 += usize::from(avg.optimum_lo95 <= truth && truth <= avg.optimum_hi95);
+    }
+    eprintln!("optimum coverage over {n} trials: 90 % interval {in90}, 95 % interval {in95}");
+    assert!(
+        (85..=95).contains(&in90),
+        "90 % interval covered {in90} of {n}"
+    );
+    assert!(in95 >= 90, "95 % interval covered {in95} of {n}");
+}
