@@ -16,6 +16,7 @@ mod inputs;
 mod intake;
 mod limits;
 mod open_data;
+mod open_data_rates;
 mod plot_layers;
 mod priors;
 mod report;

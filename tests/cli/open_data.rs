@@ -11,7 +11,7 @@
 
 use crate::common::*;
 
-fn fixtures() -> PathBuf {
+pub(crate) fn fixtures() -> PathBuf {
     repo().join("tests/fixtures/lasrosas")
 }
 
@@ -33,7 +33,7 @@ fn year_export(year: &str) -> String {
 }
 
 /// A trial of one year's yield points with their N labels, nothing but the mapping set.
-fn points_trial(w: &Workdir, year: &str, extra: &str) -> PathBuf {
+pub(crate) fn points_trial(w: &Workdir, year: &str, extra: &str) -> PathBuf {
     let dir = w.path(&format!("points-{year}"));
     std::fs::create_dir_all(&dir).unwrap();
     std::fs::write(dir.join(format!("lasrosas_{year}.tsv")), year_export(year)).unwrap();
@@ -62,7 +62,7 @@ replicate = "rep"
 }
 
 /// A plot-table trial of one year's strip means (the fixture script's table).
-fn table_trial(w: &Workdir, year: &str) -> PathBuf {
+pub(crate) fn table_trial(w: &Workdir, year: &str) -> PathBuf {
     let dir = w.path(&format!("table-{year}"));
     std::fs::create_dir_all(&dir).unwrap();
     let name = format!("lasrosas_{year}_plots.csv");
@@ -91,7 +91,7 @@ fn uplifts(run: &Path) -> BTreeMap<String, (f64, f64)> {
         .collect()
 }
 
-fn counts_add_up(run: &Path) {
+pub(crate) fn counts_add_up(run: &Path) {
     for st in ["1-ingest", "2-clean", "3-plots", "4-adjust"] {
         let s = json(&run.join(st).join("summary.json"));
         let (i, k, r) = (

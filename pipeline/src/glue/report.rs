@@ -37,6 +37,31 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         })
         .collect();
     let money = cfg.adjust.money();
+    let adjusted: Vec<plotsieve_stages::adjust::AdjustedPlot> =
+        io::read_table(&adj.join("adjusted_plots.csv"), &shown, ADJUST_FIRST)?;
+    let (response, response_curve) = if cfg.adjust.rates.is_empty() {
+        (Vec::new(), Vec::new())
+    } else {
+        (
+            io::read_table(&adj.join("response.csv"), &shown, ADJUST_FIRST)?,
+            io::read_table(&adj.join("response_curve.csv"), &shown, ADJUST_FIRST)?,
+        )
+    };
+    let rate_report = (!cfg.adjust.rates.is_empty()).then(|| report::rates::RateReport {
+        rows: &response,
+        curve: &response_curve,
+        plots: rate_dots(&adjusted, &cfg.adjust.rates),
+        rate_unit: cfg.adjust.rate_unit.as_str(),
+        input_price: if cfg.adjust.input_price > 0.0 {
+            format!(
+                "Input: {} per {} (rates in {}).",
+                cfg.adjust.input_price, cfg.adjust.input_price_unit, cfg.adjust.rate_unit
+            )
+        } else {
+            "No input price: the optimum pays for the grain only.".into()
+        },
+        decimals: cfg.report.decimals as usize,
+    });
     let md = report::markdown::render(&report::ReportInput {
         trial_name: &cfg.trial.name,
         unit_label: unit.label(),
@@ -47,6 +72,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         hyper: &hyper,
         warnings: &warnings,
         money: Some(&money),
+        rates: rate_report.as_ref(),
     });
     io::write_atomic(&dir.join("report.md"), md.as_bytes())?;
     // The HTML report: maps of every record, of what each rule removed, of the plots (none
@@ -114,7 +140,6 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .collect();
     drop(pts);
     let plots_tab = read_plots(out, &shown)?;
-    let adjusted = io::read_table(&adj.join("adjusted_plots.csv"), &shown, ADJUST_FIRST)?;
     let comparisons = io::read_table(&adj.join("comparison.csv"), &shown, ADJUST_FIRST)?;
     let settings: Vec<(String, serde_json::Value)> = match read_manifest(out)? {
         Some(m) => m.stages.into_iter().map(|(k, v)| (k, v.settings)).collect(),
@@ -136,6 +161,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         comparisons: &comparisons,
         warnings: &warnings,
         money: Some(&money),
+        rates: rate_report.as_ref(),
     });
     io::write_atomic(&dir.join("report.html"), html.as_bytes())?;
     // The report removes nothing: its counts are the plots it reports on (those the adjust
@@ -157,4 +183,29 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .insert("warnings_shown".into(), serde_json::json!(warnings.len()));
     io::write_json(&dir.join("summary.json"), &summary)?;
     Ok(summary)
+}
+
+/// Each adjusted plot of a rate trial as (field, rate, adjusted yield less the mean adjusted
+/// yield of its field's lowest-rate plots), for the response chart.
+fn rate_dots(
+    adjusted: &[plotsieve_stages::adjust::AdjustedPlot],
+    rates: &std::collections::BTreeMap<String, f64>,
+) -> Vec<(String, f64, f64)> {
+    let lowest = rates.values().copied().fold(f64::INFINITY, f64::min);
+    let mut base: std::collections::BTreeMap<&str, (f64, f64)> = Default::default();
+    for a in adjusted {
+        if rates.get(&a.treatment) == Some(&lowest) && a.adjusted.is_finite() {
+            let e = base.entry(a.field.as_str()).or_default();
+            e.0 += a.adjusted;
+            e.1 += 1.0;
+        }
+    }
+    adjusted
+        .iter()
+        .filter_map(|a| {
+            let r = *rates.get(&a.treatment)?;
+            let (sum, n) = *base.get(a.field.as_str())?;
+            (a.adjusted.is_finite() && n > 0.0).then(|| (a.field.clone(), r, a.adjusted - sum / n))
+        })
+        .collect()
 }

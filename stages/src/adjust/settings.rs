@@ -219,11 +219,7 @@ impl AdjustSettings {
             joint_draws: a.joint_draws as usize,
             seed: a.seed as u64,
             grain_price_per_t: a.grain_price * 1000.0 / a.grain_price_unit.kg(bushel_lb),
-            product_cost_per_ha: a
-                .product_cost
-                .iter()
-                .map(|(t, c)| (t.clone(), c / a.product_cost_unit.ha()))
-                .collect(),
+            product_cost_per_ha: a.costs_per_ha(check),
             money: a.money(),
             kg_ha_per_unit,
             rates: (!a.rates.is_empty()).then(|| RateSettings {
@@ -237,6 +233,26 @@ impl AdjustSettings {
                 flat_top_within_per_ha: a.flat_top_within / a.product_cost_unit.ha(),
             }),
         }
+    }
+
+    /// Each product's cost per hectare: `product_cost`, and in a rate trial with an input
+    /// price the cost of each treatment's rate above the check's (for the products table's
+    /// break-even and net return; a cost given in `product_cost` wins).
+    fn costs_per_ha(&self, check: &str) -> BTreeMap<String, f64> {
+        let a = self;
+        let mut out: BTreeMap<String, f64> = BTreeMap::new();
+        let per = a.rate_unit.cost_per_ha(a.input_price, a.input_price_unit);
+        if let (Some(per), Some(rc)) = (per.filter(|p| *p > 0.0), a.rates.get(check)) {
+            for (t, r) in &a.rates {
+                if t != check {
+                    out.insert(t.clone(), (r - rc) * per);
+                }
+            }
+        }
+        for (t, c) in &a.product_cost {
+            out.insert(t.clone(), c / a.product_cost_unit.ha());
+        }
+        out
     }
 
     /// Problems of the rate-trial settings, each naming its key.

@@ -76,6 +76,9 @@ pub fn render(r: &HtmlInput) -> String {
         }
         let _ = write!(s, "</ul></section>");
     }
+    if let Some(rt) = r.rates {
+        super::rates::html(&mut s, rt, r.unit_label, super::prices_line(r.money));
+    }
     decision(&mut s, r);
     quality(&mut s, r);
     super::maps::fields(&mut s, r);

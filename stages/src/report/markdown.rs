@@ -14,6 +14,9 @@ pub fn render(r: &ReportInput) -> String {
         }
         let _ = writeln!(s);
     }
+    if let Some(rt) = r.rates {
+        super::rates::markdown(&mut s, rt, r.unit_label, prices_line(r.money));
+    }
     decision_markdown(&mut s, r);
     md_counts(&mut s, r);
     md_removed(&mut s, r);

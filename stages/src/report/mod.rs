@@ -39,6 +39,8 @@ pub struct ReportInput<'a> {
     pub warnings: &'a [String],
     /// The prices as the trial gave them (None: no economics).
     pub money: Option<&'a Money>,
+    /// A rate trial's curves (None: products).
+    pub rates: Option<&'a rates::RateReport<'a>>,
 }
 
 /// A point for the maps: position, yield and the rule that removed it (empty if kept).
@@ -70,6 +72,8 @@ pub struct HtmlInput<'a> {
     pub warnings: &'a [String],
     /// The prices as the trial gave them (None: no economics).
     pub money: Option<&'a crate::adjust::settings::Money>,
+    /// A rate trial's curves (None: products).
+    pub rates: Option<&'a rates::RateReport<'a>>,
 }
 
 /// The area net returns are shown per: the trial's cost unit (hectares without prices).
@@ -457,6 +461,7 @@ pub mod html;
 mod maps;
 pub mod markdown;
 pub mod raster;
+pub mod rates;
 pub mod season;
 pub mod svg;
 
