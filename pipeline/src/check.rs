@@ -78,6 +78,9 @@ fn check_plot_table(trial: &Path, t: &Trial) -> Result<()> {
             let s = cfg
                 .adjust
                 .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb);
+            if let Some(m) = plotsieve_stages::adjust::rate_problems(&table.plots, &s) {
+                problems.push(format!("adjust: {m}"));
+            }
             for u in plotsieve_stages::adjust::unfittable_fields(&table.plots, &s) {
                 if cfg.adjust.allow_missing_fields {
                     println!("warning: adjust: missing from the result: {u}");

@@ -40,7 +40,10 @@ pub fn front_half(cfg: &TrialConfig, base: &Path) -> Result<(Vec<String>, Vec<St
         .adjust
         .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb);
     let unfit = adjust::unfittable_fields(&pl.plots, &s);
-    let mut problems = Vec::new();
+    let mut problems: Vec<String> = adjust::rate_problems(&pl.plots, &s)
+        .map(|m| format!("adjust: {m}"))
+        .into_iter()
+        .collect();
     for u in unfit {
         if cfg.adjust.allow_missing_fields {
             warnings.push(format!(

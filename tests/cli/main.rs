@@ -19,6 +19,7 @@ mod open_data;
 mod open_data_rates;
 mod plot_layers;
 mod priors;
+mod rates;
 mod report;
 mod run_folder;
 mod season;

@@ -27,41 +27,11 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let treatments = io::read_table(&adj.join("treatments.csv"), &shown, ADJUST_FIRST)?;
     let hyper = io::read_table(&adj.join("hyperparameters.csv"), &shown, ADJUST_FIRST)?;
     // Every stage's warnings, at the top of both reports.
-    let warnings: Vec<String> = summaries
-        .iter()
-        .flat_map(|x| {
-            let stage = x.stage.clone();
-            x.warnings()
-                .into_iter()
-                .map(move |w| format!("{stage}: {w}"))
-        })
-        .collect();
+    let warnings = all_warnings(&summaries);
     let money = cfg.adjust.money();
     let adjusted: Vec<plotsieve_stages::adjust::AdjustedPlot> =
         io::read_table(&adj.join("adjusted_plots.csv"), &shown, ADJUST_FIRST)?;
-    let (response, response_curve) = if cfg.adjust.rates.is_empty() {
-        (Vec::new(), Vec::new())
-    } else {
-        (
-            io::read_table(&adj.join("response.csv"), &shown, ADJUST_FIRST)?,
-            io::read_table(&adj.join("response_curve.csv"), &shown, ADJUST_FIRST)?,
-        )
-    };
-    let rate_report = (!cfg.adjust.rates.is_empty()).then(|| report::rates::RateReport {
-        rows: &response,
-        curve: &response_curve,
-        plots: rate_dots(&adjusted, &cfg.adjust.rates),
-        rate_unit: cfg.adjust.rate_unit.as_str(),
-        input_price: if cfg.adjust.input_price > 0.0 {
-            format!(
-                "Input: {} per {} (rates in {}).",
-                cfg.adjust.input_price, cfg.adjust.input_price_unit, cfg.adjust.rate_unit
-            )
-        } else {
-            "No input price: the optimum pays for the grain only.".into()
-        },
-        decimals: cfg.report.decimals as usize,
-    });
+    let rate_report = rate_report(c, &adjusted)?;
     let md = report::markdown::render(&report::ReportInput {
         trial_name: &cfg.trial.name,
         unit_label: unit.label(),
@@ -183,6 +153,47 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .insert("warnings_shown".into(), serde_json::json!(warnings.len()));
     io::write_json(&dir.join("summary.json"), &summary)?;
     Ok(summary)
+}
+
+/// Every stage's warnings, each led by its stage.
+fn all_warnings(summaries: &[StageSummary]) -> Vec<String> {
+    summaries
+        .iter()
+        .flat_map(|x| {
+            let stage = x.stage.clone();
+            x.warnings()
+                .into_iter()
+                .map(move |w| format!("{stage}: {w}"))
+        })
+        .collect()
+}
+
+/// A rate trial's section of the reports (None for products).
+fn rate_report(
+    c: &Ctx,
+    adjusted: &[plotsieve_stages::adjust::AdjustedPlot],
+) -> Result<Option<report::rates::RateReport>> {
+    let a = &c.t.cfg.adjust;
+    if a.rates.is_empty() {
+        return Ok(None);
+    }
+    let shown = c.unit.as_written();
+    let adj = c.out.join(Stage::Adjust.dir());
+    Ok(Some(report::rates::RateReport {
+        rows: io::read_table(&adj.join("response.csv"), &shown, ADJUST_FIRST)?,
+        curve: io::read_table(&adj.join("response_curve.csv"), &shown, ADJUST_FIRST)?,
+        plots: rate_dots(adjusted, &a.rates),
+        rate_unit: a.rate_unit.as_str().to_string(),
+        input_price: if a.input_price > 0.0 {
+            format!(
+                "Input: {} per {} (rates in {}).",
+                a.input_price, a.input_price_unit, a.rate_unit
+            )
+        } else {
+            "No input price: the optimum pays for the grain only.".into()
+        },
+        decimals: c.t.cfg.report.decimals as usize,
+    }))
 }
 
 /// Each adjusted plot of a rate trial as (field, rate, adjusted yield less the mean adjusted

@@ -54,19 +54,10 @@ pub struct ResponseCurveRow {
     pub p_beats_current: f64,
 }
 
-/// Every fitted treatment has a rate, and every rate a treatment; the products' rates in
-/// global order and the check's.
-pub(crate) fn rates_of(
-    r: &RateSettings,
-    preps: &[Prepared],
-    products: &[String],
-    check: &str,
-) -> Result<(Vec<f64>, f64), String> {
+/// Every treatment of `fitted` has a rate, and every rate a treatment: what is wrong, if
+/// anything.
+pub fn rate_mismatch(r: &RateSettings, fitted: &BTreeSet<&str>) -> Option<String> {
     let mut problems = Vec::new();
-    let fitted: BTreeSet<&str> = preps
-        .iter()
-        .flat_map(|p| p.model.treatments.iter().map(|t| t.as_str()))
-        .collect();
     let missing: Vec<&str> = fitted
         .iter()
         .copied()
@@ -87,12 +78,37 @@ pub(crate) fn rates_of(
         .collect();
     if !unknown.is_empty() {
         problems.push(format!(
-            "adjust.rates names {} but no fitted plot has that treatment (a typo, or a treatment whose plots were all set aside?)",
+            "adjust.rates names {} but no kept plot has that treatment (a typo, or a treatment whose plots were all set aside?)",
             unknown.join(", ")
         ));
     }
-    if !problems.is_empty() {
-        return Err(problems.join("; "));
+    (!problems.is_empty()).then(|| problems.join("; "))
+}
+
+/// A rate trial's rates against the kept plots' treatments, before a fit (for `check`).
+pub fn rate_problems(plots: &[PlotStats], s: &FitSettings) -> Option<String> {
+    let r = s.rates.as_ref()?;
+    let kept: BTreeSet<&str> = plots
+        .iter()
+        .filter(|p| p.status == "kept" && p.yield_mean.is_finite())
+        .map(|p| p.treatment.as_str())
+        .collect();
+    rate_mismatch(r, &kept).map(|m| format!("rate trial: {m}"))
+}
+
+/// The products' rates in global order and the check's, or what does not match.
+pub(crate) fn rates_of(
+    r: &RateSettings,
+    preps: &[Prepared],
+    products: &[String],
+    check: &str,
+) -> Result<(Vec<f64>, f64), String> {
+    let fitted: BTreeSet<&str> = preps
+        .iter()
+        .flat_map(|p| p.model.treatments.iter().map(|t| t.as_str()))
+        .collect();
+    if let Some(m) = rate_mismatch(r, &fitted) {
+        return Err(m);
     }
     let rates: Vec<f64> = products.iter().map(|t| r.by_treatment[t]).collect();
     Ok((rates, r.by_treatment[check]))

@@ -40,7 +40,7 @@ pub struct ReportInput<'a> {
     /// The prices as the trial gave them (None: no economics).
     pub money: Option<&'a Money>,
     /// A rate trial's curves (None: products).
-    pub rates: Option<&'a rates::RateReport<'a>>,
+    pub rates: Option<&'a rates::RateReport>,
 }
 
 /// A point for the maps: position, yield and the rule that removed it (empty if kept).
@@ -73,7 +73,7 @@ pub struct HtmlInput<'a> {
     /// The prices as the trial gave them (None: no economics).
     pub money: Option<&'a crate::adjust::settings::Money>,
     /// A rate trial's curves (None: products).
-    pub rates: Option<&'a rates::RateReport<'a>>,
+    pub rates: Option<&'a rates::RateReport>,
 }
 
 /// The area net returns are shown per: the trial's cost unit (hectares without prices).

@@ -7,13 +7,13 @@ use crate::adjust::{ResponseCurveRow, ResponseRow};
 use std::fmt::Write as _;
 
 /// What the rate section shows; yields in the output unit.
-pub struct RateReport<'a> {
-    pub rows: &'a [ResponseRow],
-    pub curve: &'a [ResponseCurveRow],
+pub struct RateReport {
+    pub rows: Vec<ResponseRow>,
+    pub curve: Vec<ResponseCurveRow>,
     /// Each kept plot: field, rate, and its adjusted yield less the mean adjusted yield of
     /// the field's lowest-rate plots.
     pub plots: Vec<(String, f64, f64)>,
-    pub rate_unit: &'a str,
+    pub rate_unit: String,
     /// The input's price in words ("input 1.1 per kg"), empty without one.
     pub input_price: String,
     pub decimals: usize,
@@ -43,7 +43,7 @@ fn f(x: f64, d: usize) -> String {
 
 /// The decision table: one row per field and pooled, the averaged curve.
 fn decision_cells(r: &RateReport, unit_label: &str) -> (Vec<String>, Vec<Vec<String>>) {
-    let u = r.rate_unit;
+    let u = &r.rate_unit;
     let head = vec![
         "field".into(),
         format!("optimum rate ({u})"),

@@ -1,0 +1,113 @@
+//! Rate trials through the binary: `simulate --rates` run as a user would, its optimum
+//! against the simulator's truth, the reports' decision section, reruns of adjust, and the
+//! rate settings refused by name.
+
+use crate::common::*;
+
+#[test]
+fn a_simulated_nitrogen_rate_trial_finds_the_true_optimum_and_reports_it_first() {
+    let w = Workdir::new("rates-sim");
+    let t = simulate(&w, "sim", &["--rates", "--seed", "3"]);
+    let said = checked(&w, t.to_str().unwrap());
+    assert!(!said.contains("error"), "{said}");
+    run_trial(&w, &t, "run", &[]);
+    let truth = json(&w.path("sim/truth.json"));
+    let optimum = truth["response"]["optimum_kg_ha"].as_f64().unwrap();
+    assert!((optimum - 111.8056).abs() < 1e-3, "{optimum}");
+    let rows = csv_rows(&w.path("run/4-adjust/response.csv"));
+    // Two fields and the pooled curve, each averaged and by curve.
+    assert_eq!(rows.len(), 12, "{rows:?}");
+    let pooled = rows
+        .iter()
+        .find(|r| r["field"] == "all" && r["model"] == "averaged")
+        .unwrap();
+    let num =
+        |r: &std::collections::BTreeMap<String, String>, k: &str| -> f64 { r[k].parse().unwrap() };
+    // Measured: optimum 90 kg N/ha, 95 % interval 60-128, true 111.8.
+    assert!(
+        num(pooled, "optimum_lo95") <= optimum && optimum <= num(pooled, "optimum_hi95"),
+        "{pooled:?}"
+    );
+    assert!(num(pooled, "p_optimum_beats_lowest") > 0.95, "{pooled:?}");
+    assert_eq!(pooled["rate_unit"], "kg_ha");
+    // The averaged curve at each rate tested holds the true gain in its 95 % band.
+    let rises = truth["effects_t_ha"].as_object().unwrap();
+    for c in csv_rows(&w.path("run/4-adjust/response_curve.csv")) {
+        if c["field"] != "all" || c["tested"] != "true" {
+            continue;
+        }
+        let rate: f64 = num(&c, "rate");
+        let want = rises[&format!("N{}", rate as i64)].as_f64().unwrap();
+        assert!(
+            num(&c, "gain_lo95_t_ha") <= want && want <= num(&c, "gain_hi95_t_ha"),
+            "{c:?}: true {want}"
+        );
+    }
+    // The report opens with the optimum.
+    let md = read(&w.path("run/5-report/report.md"));
+    let first = md.find("## ").map(|i| &md[i..]).unwrap();
+    assert!(
+        first.starts_with("## Decision: the rate that pays best"),
+        "{}",
+        &first[..200]
+    );
+    assert!(md.contains("Input: 1.1 per kg (rates in kg_ha)."), "{md}");
+    assert!(md.contains("local rules and limits on nutrient rates come first"));
+    let html = read(&w.path("run/5-report/report.html"));
+    assert!(html.contains("The averaged response curve (pooled)"));
+    // A rerun of adjust and report gives the same bytes (the draws are seeded).
+    let before = folder_hashes(&w.path("run/4-adjust"));
+    run_stages(&w, &t, "run", &["adjust", "report"]);
+    assert_eq!(before, folder_hashes(&w.path("run/4-adjust")));
+}
+
+#[test]
+fn rate_settings_that_cannot_make_a_curve_are_refused_naming_the_key() {
+    let w = Workdir::new("rates-refused");
+    let t = simulate(&w, "sim", &["--rates", "--seed", "5", "--blocks", "2"]);
+    let cases: [(&[&str], &str); 3] = [
+        (
+            &[
+                "adjust.rates.N80 = 40",
+                "adjust.rates.N120 = 0",
+                "adjust.rates.N160 = 0",
+                "adjust.rates.N200 = 40",
+            ],
+            "adjust.rates gives 2 distinct rate(s) (0, 40); a response curve needs at least three",
+        ),
+        (
+            &["adjust.rates.N40 = -40"],
+            "adjust.rates.N40 must be a finite rate >= 0 in kg_ha",
+        ),
+        (
+            &["adjust.input_price_unit = \"l\""],
+            "adjust.input_price_unit \"l\" does not measure what adjust.rate_unit \"kg_ha\" does",
+        ),
+    ];
+    let refused = |trial: &std::path::Path, sets: &[&str], want: &str| {
+        let mut args = vec!["run", trial.to_str().unwrap(), "--out", "run", "--quiet"];
+        for s in sets {
+            args.extend(["--set", s]);
+        }
+        let o = plotsieve(&w.0, &args);
+        let said = printed(&o);
+        assert!(!o.status.success(), "{sets:?}: {said}");
+        assert!(said.contains(want), "{sets:?}: {said}");
+        assert!(!w.path("run/4-adjust/response.csv").exists(), "{sets:?}");
+    };
+    for (sets, want) in cases {
+        refused(&t, sets, want);
+    }
+    // A treatment without a rate: check says so before a run.
+    replace(&t, ", \"N200\" = 200", "", 1);
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    assert!(!o.status.success());
+    assert!(
+        printed(&o).contains(
+            "problem: adjust: rate trial: treatment(s) N200 have no rate in adjust.rates"
+        ),
+        "{}",
+        printed(&o)
+    );
+    refused(&t, &[], "treatment(s) N200 have no rate in adjust.rates");
+}
