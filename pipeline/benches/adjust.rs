@@ -15,6 +15,9 @@
 //!   blocks with and without block effects;
 //! - season: 20 fields x 250 plots fitted jointly (shared range, interaction SD), with the
 //!   work it took (see `harvest`);
+//! - rates: a 200-plot field whose six treatments are rates (0-200 kg/ha), fitted as a rate
+//!   trial (response curves) and as unordered treatments, alternating, and the 92-field
+//!   harvest below both ways (the targets: within 1.5x and 2x of the unordered fit);
 //! - harvest: a season shaped like the front-half benchmark's harvest, 92 fields x 360 plots
 //!   fitted jointly, with the number of exact spectral forms (kernel matrix and its
 //!   eigendecomposition) and likelihood evaluations the integration made, what one of each
@@ -22,7 +25,8 @@
 //!   needs on this machine's threads.
 
 use plotsieve_stages::adjust::spectral::{self, Repr};
-use plotsieve_stages::adjust::{prepare, run, AdjustOutput, FitSettings, Pooling};
+use plotsieve_stages::adjust::{prepare, run, AdjustOutput, FitSettings, Pooling, RateSettings};
+use plotsieve_stages::crop::RateUnit;
 use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::util::Rng;
 use std::time::Instant;
@@ -262,6 +266,52 @@ fn main() {
         println!(
             "  ({}; pooled uplift of a {u:.3} +- {sd:.3}, true 0.3)",
             joint_row(&out)
+        );
+    }
+    if want("rates") {
+        let as_rates = |s: &mut FitSettings| {
+            s.grain_price_per_t = 180.0;
+            s.rates = Some(RateSettings {
+                by_treatment: ["chk", "a", "b", "c", "d", "e"]
+                    .iter()
+                    .zip([0.0, 40.0, 80.0, 120.0, 160.0, 200.0])
+                    .map(|(t, r)| (t.to_string(), r))
+                    .collect(),
+                unit: RateUnit::KgHa,
+                cost_per_ha: 1.1,
+                current: None,
+                flat_top_within_per_ha: 0.0,
+            });
+        };
+        let plots = field("R", 200, 21);
+        let plain = FitSettings::new("chk");
+        let mut rated = FitSettings::new("chk");
+        as_rates(&mut rated);
+        let (mut tp, mut tr) = (Vec::new(), Vec::new());
+        for _ in 0..7 {
+            tp.push(timed(&plots, &plain).0);
+            tr.push(timed(&plots, &rated).0);
+        }
+        let med = |v: &mut Vec<f64>| {
+            v.sort_by(f64::total_cmp);
+            v[v.len() / 2]
+        };
+        let (a, b) = (med(&mut tp), med(&mut tr));
+        println!(
+            "200 plots, six rates: {b:.3} s as a rate trial, {a:.3} s unordered (median of 7, alternating): {:.2}x (target 1.5x: {})",
+            b / a,
+            if b / a <= 1.5 { "met" } else { "not met" }
+        );
+        let plots: Vec<PlotStats> = (0..92)
+            .flat_map(|f| field(&format!("H{f:02}"), 360, 500 + f))
+            .collect();
+        let (a, _) = timed(&plots, &plain);
+        let (b, out) = timed(&plots, &rated);
+        println!(
+            "92 fields x 360 plots: {b:.2} s as a rate trial ({} response rows), {a:.2} s unordered: {:.2}x (target 2x: {})",
+            out.response.len(),
+            b / a,
+            if b / a <= 2.0 { "met" } else { "not met" }
         );
     }
     if want("harvest") {

@@ -75,6 +75,7 @@ mod rate_fit;
 #[cfg(test)]
 pub mod reference;
 pub mod response;
+mod response_draws;
 pub mod settings;
 mod single;
 pub mod spectral;

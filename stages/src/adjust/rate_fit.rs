@@ -125,8 +125,21 @@ fn rows_for(
 ) -> (Vec<ResponseRow>, Vec<ResponseCurveRow>) {
     let lbf = response::log_bayes_factors(ps);
     let top = field::log_sum_exp(lbf.iter().copied());
+    use rayon::prelude::*;
+    // The average and each curve, in parallel.
+    let sums: Vec<Option<response::CurveSummary>> = (0..=Curve::ALL.len())
+        .into_par_iter()
+        .map(|k| {
+            if k == 0 {
+                return Some(response::summarise(ps, rd, e, seed, true));
+            }
+            let c = Curve::ALL[k - 1];
+            let own: Vec<Piece> = ps.iter().filter(|p| p.curve == c).cloned().collect();
+            (!own.is_empty()).then(|| response::summarise(&own, rd, e, seed ^ 0x5bd1_e995, false))
+        })
+        .collect();
     let mut rows = Vec::new();
-    let avg = response::summarise(ps, rd, e, seed, true);
+    let avg = sums[0].as_ref().expect("the average is always summarised");
     let tested: Vec<f64> =
         rd.u.iter()
             .chain(std::iter::once(&rd.uc))
@@ -151,14 +164,11 @@ fn rows_for(
             p_beats_current: g[8],
         })
         .collect();
-    rows.push(row(field, "averaged", 1.0, f64::NAN, &avg, e, unit));
-    for (c, l) in Curve::ALL.iter().zip(lbf) {
-        let own: Vec<Piece> = ps.iter().filter(|p| p.curve == *c).cloned().collect();
-        if own.is_empty() {
-            continue;
+    rows.push(row(field, "averaged", 1.0, f64::NAN, avg, e, unit));
+    for ((c, l), sm) in Curve::ALL.iter().zip(lbf).zip(&sums[1..]) {
+        if let Some(sm) = sm {
+            rows.push(row(field, c.name(), (l - top).exp(), l, sm, e, unit));
         }
-        let sm = response::summarise(&own, rd, e, seed ^ 0x5bd1_e995, false);
-        rows.push(row(field, c.name(), (l - top).exp(), l, &sm, e, unit));
     }
     (rows, curve)
 }
