@@ -8,6 +8,15 @@ use std::path::Path;
 /// `plotsieve check`.
 pub fn check(trial: &Path, set: &[String]) -> Result<()> {
     let t = load(trial, set)?;
+    let a = &t.cfg.adjust;
+    if !a.rates.is_empty() {
+        let rates: Vec<String> = a.rates.iter().map(|(t, r)| format!("{t} {r}")).collect();
+        println!(
+            "read: rate trial, rates in {}: {}",
+            a.rate_unit,
+            rates.join(", ")
+        );
+    }
     if !t.cfg.inputs.plot_table.is_empty() {
         return check_plot_table(trial, &t);
     }

@@ -60,18 +60,57 @@ pub struct Trial {
 pub fn load(trial: &Path, set: &[String]) -> Result<Trial> {
     let text = std::fs::read_to_string(trial)
         .with_context(|| format!("reading trial file {}", trial.display()))?;
-    let cfg = TrialConfig::from_toml(&text, &trial.display().to_string(), set)?;
+    let mut cfg = TrialConfig::from_toml(&text, &trial.display().to_string(), set)?;
     let base = trial.parent().map(Path::to_path_buf).unwrap_or_default();
     let base = if base.as_os_str().is_empty() {
         PathBuf::from(".")
     } else {
         base
     };
+    table_rates(&mut cfg, &base)?;
+    if let Some(p) = cfg.adjust.price_without_rates() {
+        anyhow::bail!("invalid settings:\n  {p}");
+    }
     Ok(Trial {
         path: trial.to_path_buf(),
         base,
         cfg,
     })
+}
+
+/// A rate trial's rates from a `rate_<unit>` column of the design table or of a CSV plot
+/// table, into `adjust.rates` and `adjust.rate_unit` (so the manifest records them). A table
+/// that cannot be read is left to ingest to report.
+fn table_rates(cfg: &mut TrialConfig, base: &Path) -> Result<()> {
+    let tables = [&cfg.inputs.design, &cfg.inputs.plot_table];
+    for name in tables.into_iter().filter(|n| !n.is_empty()) {
+        let lower = name.to_ascii_lowercase();
+        if !(lower.ends_with(".csv") || lower.ends_with(".txt")) {
+            continue;
+        }
+        let Ok(text) = std::fs::read_to_string(base.join(name)) else {
+            continue;
+        };
+        let Some((unit, rates)) =
+            ingest::rate_column::rates_of_table(&text, name).map_err(anyhow::Error::msg)?
+        else {
+            continue;
+        };
+        if !cfg.adjust.rates.is_empty() {
+            anyhow::bail!(
+                "rates are given twice: in adjust.rates and in column rate_{unit} of {name}; keep one"
+            );
+        }
+        cfg.adjust.rates = rates;
+        cfg.adjust.rate_unit = unit;
+        let mut problems = Vec::new();
+        cfg.adjust.problems(&mut problems);
+        if !problems.is_empty() {
+            anyhow::bail!("{name}, column rate_{unit}: {}", problems.join("; "));
+        }
+        return Ok(());
+    }
+    Ok(())
 }
 
 /// `runs/<folder of the trial file>-<trial file name>`, so that trial files of the same name

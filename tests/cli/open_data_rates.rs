@@ -4,7 +4,9 @@
 //! curves and economic optimum per year against an independent fit of the same curves on the
 //! same strip means by non-linear least squares with scipy (`curve_fit`;
 //! `tests/fixtures/lasrosas/make_lasrosas_response.py`, versions in the JSON it wrote), at
-//! the published prices (corn 6.85 USD per quintal, N 0.4348 USD per kg).
+//! the published prices (corn 6.85 USD per quintal, N 0.4348 USD per kg). The yield points
+//! take the rates from the trial file (`adjust.rates`), the plot tables from a `rate_kg_ha`
+//! column.
 
 use crate::common::*;
 use crate::open_data::{counts_add_up, fixtures, points_trial, table_trial};
@@ -48,9 +50,26 @@ fn las_rosas_as_a_rate_trial_agrees_with_scipy_fits_of_the_same_curves() {
         let year_ref = &reference["years"][year];
         let section = rate_section(year_ref);
         let t_points = points_trial(&w, year, &section);
+        // The plot table carries each strip's rate in a rate_kg_ha column; its trial file
+        // only the prices.
         let t_table = table_trial(&w, year);
+        let rates: Vec<f64> = year_ref["rates_kg_ha"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|r| r.as_f64().unwrap())
+            .collect();
+        let table = t_table.with_file_name(format!("lasrosas_{year}_plots.csv"));
+        map_lines(&table, |i, l| {
+            if i == 0 {
+                format!("{l},rate_kg_ha")
+            } else {
+                let level: usize = l.split(',').nth(1).unwrap()[1..].parse().unwrap();
+                format!("{l},{}", rates[level])
+            }
+        });
         let mut text = read(&t_table);
-        text += &section;
+        text += "\n[adjust]\ngrain_price = 6.85\ngrain_price_unit = \"q\"\ninput_price = 0.4348\ninput_price_unit = \"kg\"\n";
         std::fs::write(&t_table, text).unwrap();
         let (rp, rt) = (w.path(&format!("p-{year}")), w.path(&format!("t-{year}")));
         for (t, r) in [(&t_points, &rp), (&t_table, &rt)] {

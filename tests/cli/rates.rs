@@ -111,3 +111,68 @@ fn rate_settings_that_cannot_make_a_curve_are_refused_naming_the_key() {
     );
     refused(&t, &[], "treatment(s) N200 have no rate in adjust.rates");
 }
+
+#[test]
+fn rates_from_a_design_column_give_the_trial_file_rates_results() {
+    // The same trial with each plot's rate in a rate_kg_ha column of its design table
+    // instead of adjust.rates: the same response tables, byte for byte.
+    let w = Workdir::new("rates-column");
+    let t = simulate(&w, "sim", &["--rates", "--seed", "6", "--blocks", "3"]);
+    run_trial(&w, &t, "by-file", &[]);
+    let text = read(&t);
+    let start = text.find("rates = {").unwrap();
+    let end = start + text[start..].find('\n').unwrap() + 1;
+    std::fs::write(&t, format!("{}{}", &text[..start], &text[end..])).unwrap();
+    let design = w.path("sim/design.csv");
+    map_lines(&design, |i, l| {
+        if i == 0 {
+            format!("{l},rate_kg_ha")
+        } else {
+            let trt = l.split(',').nth(1).unwrap();
+            format!("{l},{}", &trt[1..])
+        }
+    });
+    let said = checked(&w, t.to_str().unwrap());
+    assert!(
+        said.contains(
+            "read: rate trial, rates in kg_ha: N0 0, N120 120, N160 160, N200 200, N40 40, N80 80"
+        ),
+        "{said}"
+    );
+    run_trial(&w, &t, "by-column", &[]);
+    for f in ["response.csv", "response_curve.csv", "treatments.csv"] {
+        assert_eq!(
+            read(&w.path(&format!("by-file/4-adjust/{f}"))),
+            read(&w.path(&format!("by-column/4-adjust/{f}"))),
+            "{f}"
+        );
+    }
+    // A treatment given two rates is refused naming the line; rates given twice too.
+    let good = read(&design);
+    map_lines(&design, |i, l| {
+        if i == 2 {
+            format!("{l}1")
+        } else {
+            l.to_string()
+        }
+    });
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    assert!(!o.status.success());
+    assert!(
+        printed(&o).contains("column rate_kg_ha: treatment")
+            && (printed(&o).contains("on line 3 (a treatment has one rate)")
+                || printed(&o).contains("design.csv, line 3,")),
+        "{}",
+        printed(&o)
+    );
+    std::fs::write(&design, good).unwrap();
+    std::fs::write(&t, &text).unwrap();
+    let o = plotsieve(&w.0, &["check", t.to_str().unwrap()]);
+    assert!(
+        printed(&o).contains(
+            "rates are given twice: in adjust.rates and in column rate_kg_ha of design.csv"
+        ),
+        "{}",
+        printed(&o)
+    );
+}

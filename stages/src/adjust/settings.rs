@@ -255,6 +255,12 @@ impl AdjustSettings {
         out
     }
 
+    /// An input price without rates (after any rate column of the design or plot table has
+    /// filled `rates`).
+    pub fn price_without_rates(&self) -> Option<String> {
+        (self.input_price > 0.0 && self.rates.is_empty()).then(|| "adjust.input_price is set but the trial gives no rates: an input price belongs to a rate trial (give each treatment's rate in adjust.rates, or in a rate_<unit> column of the design or plot table)".to_string())
+    }
+
     /// Problems of the rate-trial settings, each naming its key.
     fn rate_problems(&self, p: &mut Vec<String>) {
         let a = self;
@@ -284,9 +290,6 @@ impl AdjustSettings {
                 a.input_price
             ));
         } else if a.input_price > 0.0 {
-            if a.rates.is_empty() {
-                p.push("adjust.input_price is set but adjust.rates is empty: an input price belongs to a rate trial (give each treatment's rate in adjust.rates)".into());
-            }
             if a.rate_unit
                 .cost_per_ha(a.input_price, a.input_price_unit)
                 .is_none()

@@ -26,6 +26,7 @@ pub mod layout_checks;
 pub mod memory;
 pub mod plot_checks;
 pub mod plot_table;
+pub mod rate_column;
 #[cfg(test)]
 mod robustness;
 pub mod settings;
