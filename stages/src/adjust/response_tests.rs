@@ -164,3 +164,110 @@ fn the_optimum_interval_covers_the_true_optimum_about_as_often_as_it_says() {
     );
     assert!(in95 >= 90, "95 % interval covered {in95} of {n}");
 }
+
+#[test]
+fn a_curve_s_factored_likelihood_equals_the_stacked_dense_model() {
+    // Two fields at fixed hyperparameters, treatments chk, a, b at rates 0, 50 and 100:
+    // Sum_f REML_f + log C of a curve (its coefficients N(0, tau^2 I) integrated, an
+    // interaction SD s per field and product) equals the REML density of all plots stacked
+    // with covariance blockdiag(K_f + s_n^2 I) + tau^2 (Z A)(Z A)' + Z s^2 Z' and flat field
+    // means, from one dense Cholesky (as the unordered model's test in tests.rs).
+    use super::response::{pieces, PostPoint};
+    use faer::linalg::solvers::Solve;
+    use faer::{Mat, Side};
+    let mut plots = super::tests::trend_field("F", 3, 5, 0.2, 3);
+    plots.extend(super::tests::trend_field("G", 3, 4, 0.4, 4));
+    let s = FitSettings::new("chk");
+    let preps: Vec<Prepared> = ["F", "G"]
+        .iter()
+        .map(|f| prepare(f, plots.iter().filter(|p| p.field == *f).collect(), &s).unwrap())
+        .collect();
+    let (_, _, maps) = effect_priors(&preps, &s);
+    let hyper = [(25.0, 0.6, 0.3), (40.0, 0.4, 0.2)];
+    let (si, tau) = (0.15, 0.7);
+    let fits: Vec<spectral::Inner> = preps
+        .iter()
+        .zip(hyper)
+        .map(|(p, (l, sf, sn))| {
+            spectral::Repr::exact(&p.model.design, (l, l))
+                .unwrap()
+                .evaluate(sf, sn)
+                .unwrap()
+        })
+        .collect();
+    let rd = RateDesign::new(&[50.0, 100.0], 0.0);
+    let point = PostPoint {
+        w: 1.0,
+        fits: fits.iter().collect(),
+        s: si,
+        log_c: 0.0,
+    };
+    let ps = pieces(std::slice::from_ref(&point), &maps, &rd, tau);
+    let reml: f64 = fits.iter().map(|f| f.reml).sum();
+    for curve in Curve::ALL {
+        // The heaviest join of the curve (the quadratic has one node, of prior weight 1).
+        let p = ps
+            .iter()
+            .filter(|p| p.curve == curve)
+            .max_by(|a, b| a.log_w.total_cmp(&b.log_w))
+            .unwrap();
+        let lprior = if curve == Curve::Quadratic {
+            0.0
+        } else {
+            -(30f64).ln()
+        };
+        let factored = reml + p.log_w - lprior;
+        // Each plot's field, position, yield and curve row (zero for the check).
+        let mut rows: Vec<(usize, (f64, f64), f64, usize, [f64; 2])> = Vec::new();
+        for (f, pr) in preps.iter().enumerate() {
+            let d = &pr.model.design;
+            for i in 0..d.n() {
+                let prod = (1..3).find(|&j| d.x[i * d.p + j] == 1.0).unwrap_or(0);
+                let a = if prod == 0 {
+                    [0.0, 0.0]
+                } else {
+                    curve.basis(rd.u[prod - 1], p.x)
+                };
+                rows.push((f, d.coords[i], d.y[i], prod, a));
+            }
+        }
+        let n = rows.len();
+        let cov = Mat::from_fn(n, n, |i, j| {
+            let (fi, ai, _, pi, ri) = rows[i];
+            let (fj, aj, _, pj, rj) = rows[j];
+            let mut v = tau * tau * (ri[0] * rj[0] + ri[1] * rj[1]);
+            if fi == fj {
+                let (l, sf, sn) = hyper[fi];
+                let dd = ((ai.0 - aj.0).powi(2) + (ai.1 - aj.1).powi(2)).sqrt();
+                v += Kernel::Matern52.cov(dd, l, sf);
+                if i == j {
+                    v += sn * sn;
+                }
+                if pi > 0 && pi == pj {
+                    v += si * si;
+                }
+            }
+            v
+        });
+        let y = Mat::from_fn(n, 1, |i, _| rows[i].2);
+        let x0 = Mat::from_fn(n, 2, |i, j| if rows[i].0 == j { 1.0 } else { 0.0 });
+        let llt = cov.llt(Side::Lower).unwrap();
+        let l = llt.L();
+        let logdet: f64 = (0..n).map(|i| 2.0 * l[(i, i)].ln()).sum();
+        let a = x0.transpose() * llt.solve(&x0);
+        let a_llt = a.llt(Side::Lower).unwrap();
+        let al = a_llt.L();
+        let logdet_a: f64 = (0..2).map(|i| 2.0 * al[(i, i)].ln()).sum();
+        let b = a_llt.solve(&(x0.transpose() * llt.solve(&y)));
+        let r = &y - &x0 * &b;
+        let cr = llt.solve(&r);
+        let quad: f64 = (0..n).map(|i| r[(i, 0)] * cr[(i, 0)]).sum();
+        let direct =
+            -0.5 * ((n - 2) as f64 * (2.0 * std::f64::consts::PI).ln() + logdet + logdet_a + quad);
+        assert!(
+            ((factored - direct) / direct).abs() < 1e-9,
+            "{curve:?} at join {}: {factored} vs {direct}",
+            p.x
+        );
+    }
+}

@@ -116,7 +116,13 @@ fn degenerate_designs_give_clear_messages() {
 
 /// A field of `rows` x `cols` plots (18 m x 66 m) with a smooth trend, noise and
 /// treatments "chk", "a", "b" in rotation; "a" adds `effect`.
-fn trend_field(name: &str, rows: usize, cols: usize, effect: f64, seed: u64) -> Vec<PlotStats> {
+pub(crate) fn trend_field(
+    name: &str,
+    rows: usize,
+    cols: usize,
+    effect: f64,
+    seed: u64,
+) -> Vec<PlotStats> {
     let mut rng = crate::util::Rng::new(seed);
     (0..rows * cols)
         .map(|i| {
