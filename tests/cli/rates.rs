@@ -29,6 +29,22 @@ fn a_simulated_nitrogen_rate_trial_finds_the_true_optimum_and_reports_it_first()
         "{pooled:?}"
     );
     assert!(num(pooled, "p_optimum_beats_lowest") > 0.95, "{pooled:?}");
+    // A field that was not in the trial: a wider interval around the same optimum
+    // (measured 60-139 against 66-119 kg N/ha); only the pooled average has one.
+    let (lo, hi) = (
+        num(pooled, "new_field_optimum_lo90"),
+        num(pooled, "new_field_optimum_hi90"),
+    );
+    assert!(
+        lo <= num(pooled, "optimum_lo90")
+            && num(pooled, "optimum_hi90") <= hi
+            && hi - lo > 1.2 * (num(pooled, "optimum_hi90") - num(pooled, "optimum_lo90")),
+        "{pooled:?}"
+    );
+    assert!(rows
+        .iter()
+        .filter(|r| r["field"] != "all" || r["model"] != "averaged")
+        .all(|r| r["new_field_optimum_lo90"].is_empty()));
     assert_eq!(pooled["rate_unit"], "kg_ha");
     // The averaged curve at each rate tested holds the true gain in its 95 % band.
     let rises = truth["effects_t_ha"].as_object().unwrap();
@@ -52,6 +68,7 @@ fn a_simulated_nitrogen_rate_trial_finds_the_true_optimum_and_reports_it_first()
         &first[..200]
     );
     assert!(md.contains("Input: 1.1 per kg (rates in kg_ha)."), "{md}");
+    assert!(md.contains("| new field: 90 % interval |"), "{md}");
     assert!(md.contains("local rules and limits on nutrient rates come first"));
     let html = read(&w.path("run/5-report/report.html"));
     assert!(html.contains("The averaged response curve (pooled)"));

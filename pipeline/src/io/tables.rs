@@ -227,6 +227,15 @@ impl Table for ResponseRow {
             num!("p_optimum_beats_current", p_optimum_beats_current, 4),
             num!("flat_top_lo", flat_top_lo, 3),
             num!("flat_top_hi", flat_top_hi, 3),
+            num!("new_field_optimum_lo90", new_field_lo90, 3),
+            num!("new_field_optimum_hi90", new_field_hi90, 3),
+            num!("new_field_optimum_lo95", new_field_lo95, 3),
+            num!("new_field_optimum_hi95", new_field_hi95, 3),
+            num!(
+                "p_new_field_optimum_beats_lowest",
+                p_new_field_beats_lowest,
+                4
+            ),
             text!("note", note),
         ]
     }

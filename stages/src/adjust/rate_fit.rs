@@ -32,6 +32,14 @@ pub struct ResponseRow {
     pub p_optimum_beats_current: f64,
     pub flat_top_lo: f64,
     pub flat_top_hi: f64,
+    /// A joint fit's pooled average: the optimum's 90 and 95 % intervals in a field that
+    /// was not in the trial (the shared curve plus a new draw of the treatment x field
+    /// interaction at each rate tested), and P(the optimum beats the lowest rate there).
+    pub new_field_lo90: f64,
+    pub new_field_hi90: f64,
+    pub new_field_lo95: f64,
+    pub new_field_hi95: f64,
+    pub p_new_field_beats_lowest: f64,
     pub note: String,
 }
 
@@ -122,6 +130,7 @@ fn rows_for(
     e: &Economics,
     unit: &str,
     seed: u64,
+    new_field: bool,
 ) -> (Vec<ResponseRow>, Vec<ResponseCurveRow>) {
     let lbf = response::log_bayes_factors(ps);
     let top = field::log_sum_exp(lbf.iter().copied());
@@ -131,11 +140,12 @@ fn rows_for(
         .into_par_iter()
         .map(|k| {
             if k == 0 {
-                return Some(response::summarise(ps, rd, e, seed, true));
+                return Some(response::summarise(ps, rd, e, seed, true, new_field));
             }
             let c = Curve::ALL[k - 1];
             let own: Vec<Piece> = ps.iter().filter(|p| p.curve == c).cloned().collect();
-            (!own.is_empty()).then(|| response::summarise(&own, rd, e, seed ^ 0x5bd1_e995, false))
+            (!own.is_empty())
+                .then(|| response::summarise(&own, rd, e, seed ^ 0x5bd1_e995, false, false))
         })
         .collect();
     let mut rows = Vec::new();
@@ -212,6 +222,11 @@ fn row(
         p_optimum_beats_current: s.p_optimum_beats_current,
         flat_top_lo: s.flat_top.0,
         flat_top_hi: s.flat_top.1,
+        new_field_lo90: s.new_field_q[0],
+        new_field_hi90: s.new_field_q[1],
+        new_field_lo95: s.new_field_q[2],
+        new_field_hi95: s.new_field_q[3],
+        p_new_field_beats_lowest: s.new_field_beats_lowest,
         note: notes.join("; "),
     }
 }
@@ -265,7 +280,15 @@ pub(crate) fn response_rows(
             ));
             continue;
         }
-        let (rows, curve) = rows_for(&model.name, &ps, &rd, &e, unit, s.seed ^ (j as u64 + 1));
+        let (rows, curve) = rows_for(
+            &model.name,
+            &ps,
+            &rd,
+            &e,
+            unit,
+            s.seed ^ (j as u64 + 1),
+            false,
+        );
         if own.len() == 1 && jf.is_none() {
             let relabel = |mut x: ResponseRow| {
                 x.field = "all".into();
@@ -304,7 +327,7 @@ pub(crate) fn response_rows(
             out.warnings
                 .push("no pooled response curve could be fitted (every joint draw failed)".into());
         } else {
-            pooled = Some(rows_for("all", &ps, &rd, &e, unit, s.seed));
+            pooled = Some(rows_for("all", &ps, &rd, &e, unit, s.seed, true));
         }
     } else if own.len() > 1 {
         out.warnings.push("no pooled response curve: the fields were fitted separately (adjust.pooling = \"joint\" pools the curve)".into());

@@ -137,6 +137,8 @@ pub struct Piece {
     pub log_w: f64,
     pub mean: [f64; 2],
     pub chol: [f64; 3],
+    /// The treatment x field interaction SD at the piece's point (0 for a field alone).
+    pub s: f64,
 }
 
 /// One field's terms at a point: W^-1, W^-1 c and log N(c; 0, W), W = V + s^2 I.
@@ -262,6 +264,7 @@ fn pieces_at(pt: &PostPoint, maps: &[FieldMap], designs: &Designs, tau2: f64) ->
                 log_w: pt.w.ln() + lprior + log_c - pt.log_c,
                 mean: [m0, if q == 2 { m1 } else { 0.0 }],
                 chol: [k0, if q == 2 { k1 } else { 0.0 }, k2],
+                s: pt.s,
             });
         }
     }

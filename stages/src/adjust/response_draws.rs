@@ -81,6 +81,11 @@ pub struct CurveSummary {
     /// On the band rates: rate, gain mean, lo95, hi95, net return mean, lo95, hi95,
     /// P(beats lowest), P(beats current).
     pub grid: Vec<[f64; 9]>,
+    /// In a field that was not in the trial (a joint fit's pooled rows; NaN elsewhere): the
+    /// optimum's 5, 95, 2.5 and 97.5 % quantiles and P(the pooled optimum beats the lowest
+    /// rate there).
+    pub new_field_q: [f64; 4],
+    pub new_field_beats_lowest: f64,
 }
 
 /// Grid of scaled rates the expected net return is maximised on.
@@ -133,13 +138,15 @@ impl Draw<'_> {
 }
 
 /// Summarise the pieces (already restricted to what the row covers). With `bands`, the
-/// curve's band on every tenth grid rate and at each rate tested.
+/// curve's band on every tenth grid rate and at each rate tested; with `new_field`, the
+/// optimum in a field that was not in the trial.
 pub fn summarise(
     ps: &[Piece],
     rd: &RateDesign,
     e: &Economics,
     seed: u64,
     bands: bool,
+    new_field: bool,
 ) -> CurveSummary {
     let top = super::field::log_sum_exp(ps.iter().map(|p| p.log_w));
     let ws: Vec<f64> = ps.iter().map(|p| (p.log_w - top).exp()).collect();
@@ -273,7 +280,16 @@ pub fn summarise(
             ]
         })
         .collect();
+    let (new_field_q, new_field_beats_lowest) = if new_field {
+        let us: Vec<f64> = grid.iter().map(|g| g.0).collect();
+        let jlow = us.iter().position(|&u| u == 0.0).unwrap_or(0);
+        new_field_optima(&draws, rd, &us, &objective, &mut rng, jopt, jlow)
+    } else {
+        ([f64::NAN; 4], f64::NAN)
+    };
     CurveSummary {
+        new_field_q,
+        new_field_beats_lowest,
         log_bayes_factor: top,
         optimum: rd.rate(uopt),
         optimum_q: [q(0.05), q(0.95), q(0.025), q(0.975)],
@@ -286,6 +302,71 @@ pub fn summarise(
         flat_top: (rd.rate(grid[a].0), rd.rate(grid[b].0)),
         grid: bands_at,
     }
+}
+
+/// A new field's optimum: each draw's curve plus the field's own deviation at each rate
+/// tested (N(0, s^2) of the draw's interaction SD, none at the check's rate, as the joint
+/// model's treatment x field interaction), linear between the rates tested; its best rate on
+/// the grid `us`. The optimum's quantiles (rates) and the share of draws in which the grid's
+/// `jopt` beats its `jlow`.
+fn new_field_optima(
+    draws: &[Draw],
+    rd: &RateDesign,
+    us: &[f64],
+    objective: &dyn Fn(f64, f64) -> f64,
+    rng: &mut Rng,
+    jopt: usize,
+    jlow: usize,
+) -> ([f64; 4], f64) {
+    // The rates tested in order: (scaled rate, product index or None for the check).
+    let mut tested: Vec<(f64, Option<usize>)> =
+        rd.u.iter()
+            .enumerate()
+            .map(|(k, &u)| (u, Some(k)))
+            .collect();
+    tested.push((rd.uc, None));
+    tested.sort_by(|a, b| a.0.total_cmp(&b.0));
+    // Each grid rate between two rates tested: (left, right, weight of the right).
+    let brackets: Vec<(usize, usize, f64)> = us
+        .iter()
+        .map(|&u| {
+            let r = tested.partition_point(|t| t.0 < u).min(tested.len() - 1);
+            let l = r.saturating_sub(1);
+            let span = tested[r].0 - tested[l].0;
+            if r == l || span <= 0.0 {
+                (r, r, 0.0)
+            } else {
+                (l, r, ((u - tested[l].0) / span).clamp(0.0, 1.0))
+            }
+        })
+        .collect();
+    let mut optima = Vec::with_capacity(draws.len());
+    let mut beats = 0usize;
+    let mut dev = vec![0.0; tested.len()];
+    for d in draws {
+        for (k, t) in tested.iter().enumerate() {
+            dev[k] = t.1.map_or(0.0, |_| d.p.s * rng.normal());
+        }
+        let at = |j: usize| {
+            let (l, r, w) = brackets[j];
+            objective(d.gain(us[j]) + (1.0 - w) * dev[l] + w * dev[r], us[j])
+        };
+        let mut best = (f64::NEG_INFINITY, 0);
+        for j in 0..us.len() {
+            let o = at(j);
+            if o > best.0 + 1e-12 {
+                best = (o, j);
+            }
+        }
+        optima.push(us[best.1]);
+        beats += usize::from(at(jopt) > at(jlow));
+    }
+    optima.sort_by(f64::total_cmp);
+    let q = |p: f64| rd.rate(quantile_sorted(&optima, p));
+    (
+        [q(0.05), q(0.95), q(0.025), q(0.975)],
+        beats as f64 / draws.len() as f64,
+    )
 }
 
 /// Two quantiles of unsorted values (reordered), interpolated as [`quantile_sorted`], by

@@ -31,7 +31,10 @@ lowest rate tested (without prices, the highest expected yield), averaged over t
 quadratic, quadratic-plateau and linear-plateau curves by their probabilities; its \
 intervals hold 90 and 95 % of the posterior's optima. A rate is never extrapolated: an \
 optimum at the highest rate tested says the best rate may lie beyond it. The flat top is \
-the range of rates whose expected net return is within reach of the best.";
+the range of rates whose expected net return is within reach of the best. With several \
+fields, the new-field interval is where the optimum lies in a field that was not in the \
+trial (the pooled curve plus that field's own departure at each rate, as the fields \
+departed from it).";
 
 fn f(x: f64, d: usize) -> String {
     if x.is_finite() {
@@ -57,12 +60,20 @@ fn decision_cells(r: &RateReport, unit_label: &str) -> (Vec<String>, Vec<Vec<Str
         "P(optimum beats current)".into(),
         "note".into(),
     ];
+    let new_field = r
+        .rows
+        .iter()
+        .any(|x| x.model == "averaged" && x.new_field_lo90.is_finite());
+    let mut head = head;
+    if new_field {
+        head.insert(4, "new field: 90 % interval".into());
+    }
     let cells = r
         .rows
         .iter()
         .filter(|x| x.model == "averaged")
         .map(|x| {
-            vec![
+            let mut row = vec![
                 x.field.clone(),
                 f(x.optimum_rate, 0),
                 format!("{}-{}", f(x.optimum_lo90, 0), f(x.optimum_hi90, 0)),
@@ -74,7 +85,16 @@ fn decision_cells(r: &RateReport, unit_label: &str) -> (Vec<String>, Vec<Vec<Str
                 super::prob3(x.p_optimum_beats_lowest),
                 super::prob3(x.p_optimum_beats_current),
                 x.note.clone(),
-            ]
+            ];
+            if new_field {
+                let nf = if x.new_field_lo90.is_finite() {
+                    format!("{}-{}", f(x.new_field_lo90, 0), f(x.new_field_hi90, 0))
+                } else {
+                    String::new()
+                };
+                row.insert(4, nf);
+            }
+            row
         })
         .collect();
     (head, cells)
