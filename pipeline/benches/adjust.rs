@@ -145,6 +145,55 @@ fn uplift(out: &AdjustOutput, field: &str, t: &str) -> (f64, f64) {
     (r.uplift, r.uplift_sd)
 }
 
+/// A 200-plot field and the 92-field harvest fitted as rate trials and as unordered
+/// treatments (see the module notes).
+fn rates() {
+    let as_rates = |s: &mut FitSettings| {
+        s.grain_price_per_t = 180.0;
+        s.rates = Some(RateSettings {
+            by_treatment: ["chk", "a", "b", "c", "d", "e"]
+                .iter()
+                .zip([0.0, 40.0, 80.0, 120.0, 160.0, 200.0])
+                .map(|(t, r)| (t.to_string(), r))
+                .collect(),
+            unit: RateUnit::KgHa,
+            cost_per_ha: 1.1,
+            current: None,
+            flat_top_within_per_ha: 0.0,
+        });
+    };
+    let plots = field("R", 200, 21);
+    let plain = FitSettings::new("chk");
+    let mut rated = FitSettings::new("chk");
+    as_rates(&mut rated);
+    let (mut tp, mut tr) = (Vec::new(), Vec::new());
+    for _ in 0..7 {
+        tp.push(timed(&plots, &plain).0);
+        tr.push(timed(&plots, &rated).0);
+    }
+    let med = |v: &mut Vec<f64>| {
+        v.sort_by(f64::total_cmp);
+        v[v.len() / 2]
+    };
+    let (a, b) = (med(&mut tp), med(&mut tr));
+    println!(
+            "200 plots, six rates: {b:.3} s as a rate trial, {a:.3} s unordered (median of 7, alternating): {:.2}x (target 1.5x: {})",
+            b / a,
+            if b / a <= 1.5 { "met" } else { "not met" }
+        );
+    let plots: Vec<PlotStats> = (0..92)
+        .flat_map(|f| field(&format!("H{f:02}"), 360, 500 + f))
+        .collect();
+    let (a, _) = timed(&plots, &plain);
+    let (b, out) = timed(&plots, &rated);
+    println!(
+            "92 fields x 360 plots: {b:.2} s as a rate trial ({} response rows), {a:.2} s unordered: {:.2}x (target 2x: {})",
+            out.response.len(),
+            b / a,
+            if b / a <= 2.0 { "met" } else { "not met" }
+        );
+}
+
 fn main() {
     let part: Option<String> = std::env::args().skip(1).find(|a| !a.starts_with('-'));
     let want = |p: &str| part.as_deref().is_none_or(|x| x == p);
@@ -269,50 +318,7 @@ fn main() {
         );
     }
     if want("rates") {
-        let as_rates = |s: &mut FitSettings| {
-            s.grain_price_per_t = 180.0;
-            s.rates = Some(RateSettings {
-                by_treatment: ["chk", "a", "b", "c", "d", "e"]
-                    .iter()
-                    .zip([0.0, 40.0, 80.0, 120.0, 160.0, 200.0])
-                    .map(|(t, r)| (t.to_string(), r))
-                    .collect(),
-                unit: RateUnit::KgHa,
-                cost_per_ha: 1.1,
-                current: None,
-                flat_top_within_per_ha: 0.0,
-            });
-        };
-        let plots = field("R", 200, 21);
-        let plain = FitSettings::new("chk");
-        let mut rated = FitSettings::new("chk");
-        as_rates(&mut rated);
-        let (mut tp, mut tr) = (Vec::new(), Vec::new());
-        for _ in 0..7 {
-            tp.push(timed(&plots, &plain).0);
-            tr.push(timed(&plots, &rated).0);
-        }
-        let med = |v: &mut Vec<f64>| {
-            v.sort_by(f64::total_cmp);
-            v[v.len() / 2]
-        };
-        let (a, b) = (med(&mut tp), med(&mut tr));
-        println!(
-            "200 plots, six rates: {b:.3} s as a rate trial, {a:.3} s unordered (median of 7, alternating): {:.2}x (target 1.5x: {})",
-            b / a,
-            if b / a <= 1.5 { "met" } else { "not met" }
-        );
-        let plots: Vec<PlotStats> = (0..92)
-            .flat_map(|f| field(&format!("H{f:02}"), 360, 500 + f))
-            .collect();
-        let (a, _) = timed(&plots, &plain);
-        let (b, out) = timed(&plots, &rated);
-        println!(
-            "92 fields x 360 plots: {b:.2} s as a rate trial ({} response rows), {a:.2} s unordered: {:.2}x (target 2x: {})",
-            out.response.len(),
-            b / a,
-            if b / a <= 2.0 { "met" } else { "not met" }
-        );
+        rates();
     }
     if want("harvest") {
         let plots: Vec<PlotStats> = (0..92)

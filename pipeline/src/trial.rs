@@ -88,7 +88,12 @@ fn table_rates(cfg: &mut TrialConfig, base: &Path) -> Result<()> {
         if !(lower.ends_with(".csv") || lower.ends_with(".txt")) {
             continue;
         }
-        let Ok(text) = std::fs::read_to_string(base.join(name)) else {
+        // Only a regular file: a pipe or device is read once, by ingest.
+        let path = base.join(name);
+        if !std::fs::metadata(&path).is_ok_and(|m| m.is_file()) {
+            continue;
+        }
+        let Ok(text) = std::fs::read_to_string(&path) else {
             continue;
         };
         let Some((unit, rates)) =

@@ -178,22 +178,7 @@ pub fn summarise(
     // The grid: GRID + 1 even steps and the rates tested exactly; bands on every tenth step
     // and at the rates tested.
     let to_u = |r: f64| ((r - rd.lo) / (rd.hi - rd.lo)).clamp(0.0, 1.0);
-    let mut pts: Vec<(f64, bool)> = (0..=GRID)
-        .map(|i| (i as f64 / GRID as f64, bands && i % 10 == 0))
-        .collect();
-    pts.extend(
-        rd.u.iter()
-            .chain(std::iter::once(&rd.uc))
-            .map(|&u| (u, bands)),
-    );
-    pts.sort_by(|a, b| a.0.total_cmp(&b.0));
-    let mut grid: Vec<(f64, bool)> = Vec::with_capacity(pts.len());
-    for (u, b) in pts {
-        match grid.last_mut() {
-            Some(last) if (u - last.0).abs() < 1e-12 => last.1 |= b,
-            _ => grid.push((u, b)),
-        }
-    }
+    let grid = rate_grid(rd, bands);
     let mean_obj: Vec<f64> = grid
         .iter()
         .map(|g| objective(mean_gain(g.0), g.0))
@@ -206,15 +191,7 @@ pub fn summarise(
         }
     });
     let uopt = grid[jopt].0;
-    // The flat top: the rates around the optimum whose expected objective is within reach.
-    let near = |j: usize| mean_obj[j] >= mean_obj[jopt] - e.within;
-    let (mut a, mut b) = (jopt, jopt);
-    while a > 0 && near(a - 1) {
-        a -= 1;
-    }
-    while b + 1 < grid.len() && near(b + 1) {
-        b += 1;
-    }
+    let (a, b) = flat_top(&mean_obj, jopt, e.within);
     // Seeded draws of the curve.
     let mut cdf = Vec::with_capacity(ws.len());
     let mut acc = 0.0;
@@ -302,6 +279,43 @@ pub fn summarise(
         flat_top: (rd.rate(grid[a].0), rd.rate(grid[b].0)),
         grid: bands_at,
     }
+}
+
+/// The scaled rates the expected net return is maximised on: GRID + 1 even steps and the
+/// rates tested exactly, each marked where a band is wanted (every tenth step and the rates
+/// tested, with `bands`).
+fn rate_grid(rd: &RateDesign, bands: bool) -> Vec<(f64, bool)> {
+    let mut pts: Vec<(f64, bool)> = (0..=GRID)
+        .map(|i| (i as f64 / GRID as f64, bands && i % 10 == 0))
+        .collect();
+    pts.extend(
+        rd.u.iter()
+            .chain(std::iter::once(&rd.uc))
+            .map(|&u| (u, bands)),
+    );
+    pts.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let mut grid: Vec<(f64, bool)> = Vec::with_capacity(pts.len());
+    for (u, b) in pts {
+        match grid.last_mut() {
+            Some(last) if (u - last.0).abs() < 1e-12 => last.1 |= b,
+            _ => grid.push((u, b)),
+        }
+    }
+    grid
+}
+
+/// The flat top: the grid indices around `jopt` whose expected objective is within `within`
+/// of its.
+fn flat_top(mean_obj: &[f64], jopt: usize, within: f64) -> (usize, usize) {
+    let near = |j: usize| mean_obj[j] >= mean_obj[jopt] - within;
+    let (mut a, mut b) = (jopt, jopt);
+    while a > 0 && near(a - 1) {
+        a -= 1;
+    }
+    while b + 1 < mean_obj.len() && near(b + 1) {
+        b += 1;
+    }
+    (a, b)
 }
 
 /// A new field's optimum: each draw's curve plus the field's own deviation at each rate
