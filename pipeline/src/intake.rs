@@ -70,6 +70,12 @@ pub(crate) struct SeasonMeta {
     /// fields' plot yields (as in a trial's joint fit).
     #[serde(default)]
     pub(crate) interaction_sd_u: f64,
+    /// A season of rate trials: the input's price per `input_price_unit` (0 = none).
+    #[serde(default)]
+    pub(crate) input_price: f64,
+    /// "kg", "lb", "l" or "1000_seeds" [default: "kg"].
+    #[serde(default)]
+    pub(crate) input_price_unit: Option<plotsieve_stages::crop::InputUnit>,
 }
 
 #[derive(Debug, Deserialize)]

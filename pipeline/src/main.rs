@@ -12,6 +12,7 @@ mod io;
 mod lock;
 mod run;
 mod season;
+mod season_rates;
 mod simulate_files;
 mod stage;
 mod trial;

@@ -43,6 +43,8 @@ struct TrialRead {
     crop: plotsieve_stages::crop::Crop,
     /// The trial's adjust warnings about fields missing from its result.
     missing: Vec<String>,
+    /// The rate unit and rates its run used (empty for a product trial).
+    rates: (String, BTreeMap<String, f64>),
 }
 
 fn read_trial(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Result<TrialRead> {
@@ -98,6 +100,7 @@ fn read_trial(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Result<Trial
         crop,
         contrasts,
         missing,
+        rates: crate::season_rates::rates_of_run(&manifest.config),
     })
 }
 
@@ -191,6 +194,11 @@ fn fit_and_write(
     let s = season_settings(season_file, meta, check, first, k)?;
     let locs = locations(&trials, &mut warnings);
     let fit = season::fit(&locs, &s).map_err(|e| anyhow!("{}: {e}", season_file.display()))?;
+    let named: Vec<_> = trials
+        .iter()
+        .map(|t| (t.name.clone(), t.rates.0.clone(), t.rates.1.clone()))
+        .collect();
+    let rates = crate::season_rates::season_rates(&named, meta.input_price, meta.input_price_unit)?;
     product_warnings(&fit, meta, &mut warnings);
     let parent = out
         .parent()
@@ -210,6 +218,9 @@ fn fit_and_write(
         io::write_table(&tmp.join("products.csv"), &fit.products, &unit)?;
         io::write_table(&tmp.join("locations.csv"), &fit.locations, &unit)?;
         io::write_table(&tmp.join("product_x_field_sd.csv"), &fit.nodes, &unit)?;
+        if let Some(r) = &rates {
+            crate::season_rates::write_curves(&tmp, &locs, &s, r, &unit)?;
+        }
         let shown = unit.as_written();
         let products: Vec<TreatmentRow> =
             io::read_table(&tmp.join("products.csv"), &shown, "rerun plotsieve season")?;

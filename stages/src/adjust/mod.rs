@@ -87,7 +87,7 @@ pub use lattice::*;
 pub use optimise::*;
 pub use output::*;
 pub use prepare::*;
-pub use rate_fit::{rate_problems, ResponseCurveRow, ResponseRow};
+pub use rate_fit::{pooled_response, rate_problems, ResponseCurveRow, ResponseRow};
 #[cfg(test)]
 pub use reference::*;
 pub use settings::{AdjustSettings, FitSettings, Pooling, RandomEffect, RateSettings};

@@ -183,6 +183,9 @@ pub struct StageOne {
     pub plots: u64,
     /// SD of the field's plot yields (sets the season's default priors as in a joint fit).
     pub yield_sd_kg_ha: f64,
+    /// Mean of the field's plot yields (0 in files from before it was written).
+    #[serde(default)]
+    pub yield_mean_kg_ha: f64,
     /// The field's centre (mean of the plot centres), WGS 84; the pipeline fills it in.
     #[serde(default)]
     pub lon: Option<f64>,

@@ -338,3 +338,38 @@ pub(crate) fn response_rows(
     }
     Ok(())
 }
+
+/// A season's pooled response (stage two over every trial's fields, see
+/// `season::fit_curves`): the rows of field "all" with the new-field optimum.
+pub fn pooled_response(
+    points: &[PostPoint],
+    maps: &[FieldMap],
+    products: &[String],
+    s: &FitSettings,
+    r: &RateSettings,
+    tau: f64,
+    mean_yields: &[f64],
+) -> Result<(Vec<ResponseRow>, Vec<ResponseCurveRow>), String> {
+    let missing: Vec<&str> = products
+        .iter()
+        .map(|t| t.as_str())
+        .chain(std::iter::once(s.check.as_str()))
+        .filter(|t| !r.by_treatment.contains_key(*t))
+        .collect();
+    if !missing.is_empty() {
+        return Err(format!(
+            "treatment(s) {} have no rate in the trials' rates",
+            missing.join(", ")
+        ));
+    }
+    let rates: Vec<f64> = products.iter().map(|t| r.by_treatment[t]).collect();
+    let rd = RateDesign::new(&rates, r.by_treatment[&s.check]);
+    let known: Vec<f64> = mean_yields.iter().copied().filter(|y| *y > 0.0).collect();
+    let mean_yield = known.iter().sum::<f64>() / known.len().max(1) as f64;
+    let e = Economics::new(r, s.grain_price_per_t, mean_yield);
+    let ps = response::pieces(points, maps, &rd, tau);
+    if ps.is_empty() {
+        return Err("no response curve could be fitted across the season".into());
+    }
+    Ok(rows_for("all", &ps, &rd, &e, r.unit.as_str(), s.seed, true))
+}

@@ -59,6 +59,7 @@ fn stage_one(prep: &Prepared, lat: &Lattice) -> StageOne {
         field: m.name.clone(),
         plots: m.design.n() as u64,
         yield_sd_kg_ha: m.sy,
+        yield_mean_kg_ha: m.design.y.iter().sum::<f64>() / m.design.y.len().max(1) as f64,
         lon: None,
         lat: None,
         products: m.treatments[1..].to_vec(),

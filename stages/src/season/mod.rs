@@ -29,8 +29,12 @@
 
 use crate::adjust::field::log_sum_exp;
 use crate::adjust::joint::{combine, Component, EffectPrior, FieldMap, Mixture, Moments};
+use crate::adjust::response::PostPoint;
 use crate::adjust::spectral::Inner;
-use crate::adjust::{pooled_row, treatment_row, FitSettings, StageOne, Summary, TreatmentRow};
+use crate::adjust::{
+    pooled_row, treatment_row, FitSettings, ResponseCurveRow, ResponseRow, StageOne, Summary,
+    TreatmentRow,
+};
 use std::collections::BTreeSet;
 
 /// Rungs of the product x field SD's ladder (0.01 U to 4 U): fine, as each costs one small
@@ -139,7 +143,19 @@ fn check_location(l: &Location) -> Result<(), String> {
 
 /// Stage two over `locs` with the priors and economics of `s` (kg/ha; `s.check` names the
 /// check). Needs two or more locations.
-pub fn fit(locs: &[Location], s: &FitSettings) -> Result<SeasonFit, String> {
+/// Stage two's pieces: the products (global order), their prior, each location's map and
+/// stage-one fit, and per product x location SD node (log weight, log prior, SD, component).
+struct StageTwo {
+    products: Vec<String>,
+    prior: EffectPrior,
+    maps: Vec<FieldMap>,
+    inners: Vec<Inner>,
+    comps: Vec<(f64, f64, f64, Component)>,
+    /// The weak prior SD of the product effects.
+    weak: f64,
+}
+
+fn stage_two(locs: &[Location], s: &FitSettings) -> Result<StageTwo, String> {
     if locs.len() < 2 {
         return Err(format!(
             "a season fit needs two or more fields; found {}",
@@ -201,6 +217,25 @@ pub fn fit(locs: &[Location], s: &FitSettings) -> Result<SeasonFit, String> {
     if comps.is_empty() {
         return Err("the season's stage-one covariances are not positive definite".into());
     }
+    Ok(StageTwo {
+        products,
+        prior,
+        maps,
+        inners,
+        comps,
+        weak,
+    })
+}
+
+pub fn fit(locs: &[Location], s: &FitSettings) -> Result<SeasonFit, String> {
+    let StageTwo {
+        products,
+        prior,
+        maps: _,
+        inners: _,
+        comps,
+        weak: _,
+    } = stage_two(locs, s)?;
     let z = log_sum_exp(comps.iter().map(|c| c.0));
     let w: Vec<f64> = comps.iter().map(|c| (c.0 - z).exp()).collect();
     let nodes = comps
@@ -278,6 +313,40 @@ pub fn fit(locs: &[Location], s: &FitSettings) -> Result<SeasonFit, String> {
         interaction_sd,
         nodes,
     })
+}
+
+/// A season of rate trials: the response curves across every trial's fields (stage two with
+/// the products' effects a curve of their rates, see `adjust::response`), pooled rows and the
+/// averaged curve, with the optimum in a new field.
+pub fn fit_curves(
+    locs: &[Location],
+    s: &FitSettings,
+    rates: &crate::adjust::RateSettings,
+) -> Result<(Vec<ResponseRow>, Vec<ResponseCurveRow>), String> {
+    let two = stage_two(locs, s)?;
+    let z = log_sum_exp(two.comps.iter().map(|c| c.0));
+    let points: Vec<PostPoint> = two
+        .comps
+        .iter()
+        .map(|(lw, _, sv, c)| PostPoint {
+            w: (lw - z).exp(),
+            fits: two.inners.iter().collect(),
+            s: *sv,
+            log_c: c.log_c,
+        })
+        .collect();
+    crate::adjust::pooled_response(
+        &points,
+        &two.maps,
+        &two.products,
+        s,
+        rates,
+        two.weak,
+        &locs
+            .iter()
+            .map(|l| l.one.yield_mean_kg_ha)
+            .collect::<Vec<_>>(),
+    )
 }
 
 /// The stage-one file every adjust run writes (`4-adjust/contrasts.json`): each fitted

@@ -35,6 +35,7 @@ fn location(field: &str, products: &[&str], up: &[f64], cov: &[&[f64]]) -> Locat
             field: field.into(),
             plots: 20,
             yield_sd_kg_ha: 500.0,
+            yield_mean_kg_ha: 10_000.0,
             lon: None,
             lat: None,
             products: products.iter().map(|s| s.to_string()).collect(),
