@@ -32,8 +32,8 @@ const SMALL_FIELD_PLOTS: u64 = 30;
 
 const FORMAT: &str = "plotsieve-season-1";
 
-struct TrialRead {
-    name: String,
+pub(crate) struct TrialRead {
+    pub(crate) name: String,
     file: String,
     run_folder: String,
     sha256: String,
@@ -44,7 +44,7 @@ struct TrialRead {
     /// The trial's adjust warnings about fields missing from its result.
     missing: Vec<String>,
     /// The rate unit and rates its run used (empty for a product trial).
-    rates: (String, BTreeMap<String, f64>),
+    pub(crate) rates: (String, BTreeMap<String, f64>),
 }
 
 fn read_trial(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Result<TrialRead> {
@@ -194,11 +194,7 @@ fn fit_and_write(
     let s = season_settings(season_file, meta, check, first, k)?;
     let locs = locations(&trials, &mut warnings);
     let fit = season::fit(&locs, &s).map_err(|e| anyhow!("{}: {e}", season_file.display()))?;
-    let named: Vec<_> = trials
-        .iter()
-        .map(|t| (t.name.clone(), t.rates.0.clone(), t.rates.1.clone()))
-        .collect();
-    let rates = crate::season_rates::season_rates(&named, meta.input_price, meta.input_price_unit)?;
+    let rates = crate::season_rates::of_trials(&trials, meta)?;
     product_warnings(&fit, meta, &mut warnings);
     let parent = out
         .parent()
@@ -218,9 +214,18 @@ fn fit_and_write(
         io::write_table(&tmp.join("products.csv"), &fit.products, &unit)?;
         io::write_table(&tmp.join("locations.csv"), &fit.locations, &unit)?;
         io::write_table(&tmp.join("product_x_field_sd.csv"), &fit.nodes, &unit)?;
-        if let Some(r) = &rates {
-            crate::season_rates::write_curves(&tmp, &locs, &s, r, &unit)?;
-        }
+        let rate_report = match &rates {
+            Some(r) => Some(crate::season_rates::write_curves(
+                &tmp,
+                &locs,
+                &s,
+                r,
+                &unit,
+                (meta.input_price, meta.input_price_unit),
+                first.decimals,
+            )?),
+            None => None,
+        };
         let shown = unit.as_written();
         let products: Vec<TreatmentRow> =
             io::read_table(&tmp.join("products.csv"), &shown, "rerun plotsieve season")?;
@@ -263,37 +268,19 @@ fn fit_and_write(
             trials: &listed,
             warnings: &warnings,
             money: Some(&s.money),
+            rates: rate_report.as_ref(),
         };
         io::write_atomic(&tmp.join("report.html"), report::render(&input).as_bytes())?;
         io::write_atomic(&tmp.join("report.md"), report::markdown(&input).as_bytes())?;
-        let round = |x: f64| (x * 1e6).round() / 1e6;
-        let summary = serde_json::json!({
-            "format": FORMAT,
-            "season": meta.name,
-            "method": "two-stage: each trial's stage-one contrasts and covariance (4-adjust/contrasts.json), then products x fields with a product x field SD (Piepho et al. 2012)",
-            "crop": crop,
-            "check": check,
-            "unit": unit.label(),
-            "trials": trials.iter().map(|t| serde_json::json!({
-                "trial": t.name, "file": t.file, "run_folder": t.run_folder,
-                "contrasts_sha256": t.sha256,
-                "fields": t.contrasts.fields.iter().map(|f| f.field.clone()).collect::<Vec<_>>(),
-            })).collect::<Vec<_>>(),
-            "fields": locs.len(),
-            "products": fit.products.iter().map(|r| r.treatment.clone()).collect::<Vec<_>>(),
-            "product_x_field_sd": {
-                "mean": round(interaction_sd.mean), "lo95": round(interaction_sd.lo95),
-                "hi95": round(interaction_sd.hi95),
-            },
-            "settings": {
-                "grain_price": meta.grain_price,
-                "grain_price_unit": meta.grain_price_unit.unwrap_or(PriceUnit::Tonne),
-                "product_cost": meta.product_cost,
-                "product_cost_unit": meta.product_cost_unit.unwrap_or(AreaUnit::Hectare),
-                "interaction_sd_u": meta.interaction_sd_u,
-            },
-            "warnings": warnings,
-        });
+        let summary = summary_json(
+            meta,
+            &trials,
+            (crop, check, unit.label()),
+            locs.len(),
+            &fit,
+            interaction_sd,
+            &warnings,
+        );
         io::write_json(&tmp.join("summary.json"), &summary)?;
         Ok(())
     })();
@@ -320,6 +307,46 @@ fn fit_and_write(
         );
     }
     Ok(())
+}
+
+/// The season folder's summary.json.
+fn summary_json(
+    meta: &crate::intake::SeasonMeta,
+    trials: &[TrialRead],
+    (crop, check, unit_label): (&str, &str, &str),
+    fields: usize,
+    fit: &season::SeasonFit,
+    interaction_sd: plotsieve_stages::adjust::Summary,
+    warnings: &[String],
+) -> serde_json::Value {
+    let round = |x: f64| (x * 1e6).round() / 1e6;
+    serde_json::json!({
+        "format": FORMAT,
+        "season": meta.name,
+        "method": "two-stage: each trial's stage-one contrasts and covariance (4-adjust/contrasts.json), then products x fields with a product x field SD (Piepho et al. 2012)",
+        "crop": crop,
+        "check": check,
+        "unit": unit_label,
+        "trials": trials.iter().map(|t| serde_json::json!({
+            "trial": t.name, "file": t.file, "run_folder": t.run_folder,
+            "contrasts_sha256": t.sha256,
+            "fields": t.contrasts.fields.iter().map(|f| f.field.clone()).collect::<Vec<_>>(),
+        })).collect::<Vec<_>>(),
+        "fields": fields,
+        "products": fit.products.iter().map(|r| r.treatment.clone()).collect::<Vec<_>>(),
+        "product_x_field_sd": {
+            "mean": round(interaction_sd.mean), "lo95": round(interaction_sd.lo95),
+            "hi95": round(interaction_sd.hi95),
+        },
+        "settings": {
+            "grain_price": meta.grain_price,
+            "grain_price_unit": meta.grain_price_unit.unwrap_or(PriceUnit::Tonne),
+            "product_cost": meta.product_cost,
+            "product_cost_unit": meta.product_cost_unit.unwrap_or(AreaUnit::Hectare),
+            "interaction_sd_u": meta.interaction_sd_u,
+        },
+        "warnings": warnings,
+    })
 }
 
 /// One crop and one check across the season's trials, and a name for each trial.

@@ -22,6 +22,18 @@ pub(crate) fn rates_of_run(config: &serde_json::Value) -> (String, BTreeMap<Stri
     (a["rate_unit"].as_str().unwrap_or("").to_string(), rates)
 }
 
+/// [`season_rates`] of the season's trials with its input price.
+pub(crate) fn of_trials(
+    trials: &[crate::season::TrialRead],
+    meta: &crate::intake::SeasonMeta,
+) -> Result<Option<RateSettings>> {
+    let named: Vec<_> = trials
+        .iter()
+        .map(|t| (t.name.clone(), t.rates.0.clone(), t.rates.1.clone()))
+        .collect();
+    season_rates(&named, meta.input_price, meta.input_price_unit)
+}
+
 /// The season's rates: None when no trial is a rate trial; an error when only some are, or
 /// when two trials give a treatment different rates or units.
 pub(crate) fn season_rates(
@@ -91,17 +103,38 @@ pub(crate) fn season_rates(
     }))
 }
 
-/// The season's curves, written as `response.csv` and `response_curve.csv` in `dir`.
+/// The season's curves, written as `response.csv` and `response_curve.csv` in `dir`, and
+/// read back (in the output unit) for the season's reports.
 pub(crate) fn write_curves(
     dir: &std::path::Path,
     locs: &[plotsieve_stages::season::Location],
     s: &FitSettings,
     rates: &RateSettings,
     unit: &plotsieve_stages::crop::YieldUnit,
-) -> Result<()> {
+    input_price: (f64, Option<InputUnit>),
+    decimals: usize,
+) -> Result<plotsieve_stages::report::rates::RateReport> {
     let (rows, curve) =
         plotsieve_stages::season::fit_curves(locs, s, rates).map_err(anyhow::Error::msg)?;
     crate::io::write_table(&dir.join("response.csv"), &rows, unit)?;
     crate::io::write_table(&dir.join("response_curve.csv"), &curve, unit)?;
-    Ok(())
+    let shown = unit.as_written();
+    let again = "rerun plotsieve season";
+    Ok(plotsieve_stages::report::rates::RateReport {
+        rows: crate::io::read_table(&dir.join("response.csv"), &shown, again)?,
+        curve: crate::io::read_table(&dir.join("response_curve.csv"), &shown, again)?,
+        plots: Vec::new(),
+        rate_unit: rates.unit.as_str().to_string(),
+        input_price: if input_price.0 > 0.0 {
+            format!(
+                "Input: {} per {} (rates in {}).",
+                input_price.0,
+                input_price.1.unwrap_or(InputUnit::Kg),
+                rates.unit
+            )
+        } else {
+            "No input price: the optimum pays for the grain only.".into()
+        },
+        decimals,
+    })
 }

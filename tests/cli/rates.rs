@@ -261,6 +261,13 @@ fn a_season_of_rate_trials_fits_one_curve_across_their_fields() {
         "{avg:?}"
     );
     assert!(w.path("season-run/response_curve.csv").exists());
+    let md = read(&w.path("season-run/report.md"));
+    assert!(
+        md.find("## Decision: the rate that pays best").unwrap()
+            < md.find("across the season").unwrap(),
+        "{md}"
+    );
+    assert!(md.contains("Input: 1.1 per kg (rates in kg_ha)."), "{md}");
     // A rerun gives the same bytes.
     let before = read(&w.path("season-run/response.csv"));
     ok(&plotsieve(&w.0, &["season", "season.toml", "--quiet"]));

@@ -37,6 +37,8 @@ pub struct SeasonInput<'a> {
     pub warnings: &'a [String],
     /// The prices as the season file gave them (None: no economics).
     pub money: Option<&'a crate::adjust::settings::Money>,
+    /// A season of rate trials: the curve across all the fields (None: products).
+    pub rates: Option<&'a super::rates::RateReport>,
 }
 
 /// What the season's decision table says, in plain words (both reports).
@@ -256,6 +258,9 @@ pub fn render(r: &SeasonInput) -> String {
         }
         let _ = write!(s, "</ul></section>");
     }
+    if let Some(rt) = r.rates {
+        super::rates::html(&mut s, rt, r.unit_label, super::prices_line(r.money));
+    }
     let rows = decision_rows(r.products);
     let _ = write!(
         s,
@@ -344,6 +349,9 @@ pub fn markdown(r: &SeasonInput) -> String {
             let _ = writeln!(s, "- **{w}**");
         }
         let _ = writeln!(s);
+    }
+    if let Some(rt) = r.rates {
+        super::rates::markdown(&mut s, rt, r.unit_label, super::prices_line(r.money));
     }
     let rows = decision_rows(r.products);
     let _ = writeln!(
