@@ -85,6 +85,32 @@ fn las_rosas_as_a_rate_trial_agrees_with_scipy_fits_of_the_same_curves() {
             ));
         }
         counts_add_up(&rp);
+        // The adjust summary carries the rate trial; in 1999 a third of the posterior puts
+        // the optimum at the highest rate tested, which is a warning, not only a note.
+        let summary = json(&rp.join("4-adjust/summary.json"));
+        let trial = &summary["details"]["rate_trial"];
+        let probs: f64 = trial["curve_probabilities"]
+            .as_object()
+            .unwrap()
+            .values()
+            .map(|v| v.as_f64().unwrap())
+            .sum();
+        assert!((probs - 1.0).abs() < 1e-3, "{trial}");
+        let warned = summary["details"]["warnings"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|w| {
+                w.as_str()
+                    .unwrap()
+                    .contains("the optimum is the highest rate tested (131.5 kg_ha)")
+            });
+        assert_eq!(
+            warned,
+            year == "1999",
+            "{year}: {}",
+            summary["details"]["warnings"]
+        );
         for run in [&rp, &rt] {
             let rows = pooled_rows(run);
             assert_eq!(rows.len(), 4, "{rows:?}");

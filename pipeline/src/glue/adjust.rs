@@ -108,6 +108,32 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             serde_json::json!((o.joint_ess * 10.0).round() / 10.0),
         );
     }
+    if let Some(r) = o
+        .response
+        .iter()
+        .find(|r| r.field == "all" && r.model == "averaged")
+    {
+        let p = |m: &str| {
+            o.response
+                .iter()
+                .find(|x| x.field == "all" && x.model == m)
+                .map_or(f64::NAN, |x| (x.probability * 1e4).round() / 1e4)
+        };
+        summary.details.insert(
+            "rate_trial".into(),
+            serde_json::json!({
+                "rate_unit": r.rate_unit,
+                "rates": cfg.adjust.rates,
+                "optimum_rate": (r.optimum_rate * 1e3).round() / 1e3,
+                "optimum_90": [(r.optimum_lo90 * 1e3).round() / 1e3, (r.optimum_hi90 * 1e3).round() / 1e3],
+                "curve_probabilities": {
+                    "quadratic": p("quadratic"),
+                    "quadratic_plateau": p("quadratic_plateau"),
+                    "linear_plateau": p("linear_plateau"),
+                },
+            }),
+        );
+    }
     write_stage_tables(&dir, &rejections, &summary)?;
     Ok(summary)
 }

@@ -336,6 +336,22 @@ pub(crate) fn response_rows(
         out.response.extend(rows);
         out.response_curve.extend(curve);
     }
+    // An optimum that may lie beyond the rates tested is a warning, not only a note.
+    for r in out.response.iter().filter(|r| r.model == "averaged") {
+        if r.p_optimum_at_highest >= 0.05 {
+            let at = if r.field == "all" {
+                "pooled over the fields".to_string()
+            } else {
+                format!("field {}", r.field)
+            };
+            out.warnings.push(format!(
+                "rate trial, {at}: the optimum is the highest rate tested ({} {}) in {:.0} % of the posterior; the best rate may lie beyond the rates tested, which is not extrapolated",
+                rd.hi,
+                r.rate_unit,
+                100.0 * r.p_optimum_at_highest
+            ));
+        }
+    }
     Ok(())
 }
 
