@@ -223,6 +223,7 @@ fn fit_and_write(
                 &unit,
                 (meta.input_price, meta.input_price_unit),
                 first.decimals,
+                s.money.product_cost_unit,
             )?),
             None => None,
         };

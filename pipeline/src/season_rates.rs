@@ -113,6 +113,7 @@ pub(crate) fn write_curves(
     unit: &plotsieve_stages::crop::YieldUnit,
     input_price: (f64, Option<InputUnit>),
     decimals: usize,
+    area: plotsieve_stages::crop::AreaUnit,
 ) -> Result<plotsieve_stages::report::rates::RateReport> {
     let (rows, curve) =
         plotsieve_stages::season::fit_curves(locs, s, rates).map_err(anyhow::Error::msg)?;
@@ -136,5 +137,6 @@ pub(crate) fn write_curves(
             "No input price: the optimum pays for the grain only.".into()
         },
         decimals,
+        area,
     })
 }

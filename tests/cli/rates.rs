@@ -72,6 +72,17 @@ fn a_simulated_nitrogen_rate_trial_finds_the_true_optimum_and_reports_it_first()
     assert!(md.contains("local rules and limits on nutrient rates come first"));
     let html = read(&w.path("run/5-report/report.html"));
     assert!(html.contains("The averaged response curve (pooled)"));
+    // Net returns in the report per the trial's cost area: per acre, 0.40468564224 of the
+    // per-hectare figure in response.csv.
+    run_trial(&w, &t, "run-ac", &["adjust.product_cost_unit = \"ac\""]);
+    let md_ac = read(&w.path("run-ac/5-report/report.md"));
+    let per_ha: f64 = num(pooled, "net_return_at_optimum_per_ha");
+    let line = md_ac.lines().find(|l| l.starts_with("| all |")).unwrap();
+    assert!(md_ac.contains("net return at optimum (per ac)"), "{md_ac}");
+    assert!(
+        line.contains(&format!("| {:.2} |", per_ha * 0.40468564224)),
+        "{line}: {per_ha} per ha"
+    );
     // A rerun of adjust and report gives the same bytes (the draws are seeded).
     let before = folder_hashes(&w.path("run/4-adjust"));
     run_stages(&w, &t, "run", &["adjust", "report"]);

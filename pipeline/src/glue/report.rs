@@ -193,6 +193,7 @@ fn rate_report(
             "No input price: the optimum pays for the grain only.".into()
         },
         decimals: c.t.cfg.report.decimals as usize,
+        area: a.product_cost_unit,
     }))
 }
 

@@ -17,6 +17,8 @@ pub struct RateReport {
     /// The input's price in words ("input 1.1 per kg"), empty without one.
     pub input_price: String,
     pub decimals: usize,
+    /// The area net returns are shown per (the trial's `product_cost_unit`).
+    pub area: crate::crop::AreaUnit,
 }
 
 pub(crate) const HEADING: &str = "Decision: the rate that pays best";
@@ -54,7 +56,7 @@ fn decision_cells(r: &RateReport, unit_label: &str) -> (Vec<String>, Vec<Vec<Str
         "95 % interval".into(),
         "P(optimum at highest rate)".into(),
         format!("gain at optimum ({unit_label})"),
-        "net return at optimum (per ha)".into(),
+        format!("net return at optimum (per {})", r.area),
         format!("flat top ({u})"),
         "P(optimum beats lowest)".into(),
         "P(optimum beats current)".into(),
@@ -80,7 +82,7 @@ fn decision_cells(r: &RateReport, unit_label: &str) -> (Vec<String>, Vec<Vec<Str
                 format!("{}-{}", f(x.optimum_lo95, 0), f(x.optimum_hi95, 0)),
                 super::prob3(x.p_optimum_at_highest),
                 f(x.gain_at_optimum, r.decimals),
-                f(x.net_return_at_optimum_per_ha, 2),
+                f(x.net_return_at_optimum_per_ha * r.area.ha(), 2),
                 format!("{}-{}", f(x.flat_top_lo, 0), f(x.flat_top_hi, 0)),
                 super::prob3(x.p_optimum_beats_lowest),
                 super::prob3(x.p_optimum_beats_current),
@@ -187,9 +189,9 @@ pub fn html(s: &mut String, r: &RateReport, unit_label: &str, prices: Option<Str
         .map(|c| {
             (
                 c.rate,
-                c.net_return_per_ha,
-                c.net_return_lo95_per_ha,
-                c.net_return_hi95_per_ha,
+                c.net_return_per_ha * r.area.ha(),
+                c.net_return_lo95_per_ha * r.area.ha(),
+                c.net_return_hi95_per_ha * r.area.ha(),
             )
         })
         .filter(|x| x.1.is_finite())
@@ -200,7 +202,7 @@ pub fn html(s: &mut String, r: &RateReport, unit_label: &str, prices: Option<Str
             &money,
             &[],
             &format!("rate ({})", r.rate_unit),
-            "net return over the lowest rate (per ha)",
+            &format!("net return over the lowest rate (per {})", r.area),
             "Expected net return against rate (pooled) with its 95 % band",
         );
     }
