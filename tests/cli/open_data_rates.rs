@@ -121,8 +121,8 @@ fn las_rosas_as_a_rate_trial_agrees_with_scipy_fits_of_the_same_curves() {
             assert!((total - 1.0).abs() < 1e-5, "{total}");
             // Each curve's optimum by least squares on the strip means lies inside
             // plotsieve's 90 % interval for the same curve (measured: 1999 quadratic 77.4 in
-            // 61.8-131.5, linear-plateau 102.4 in 85.5-131.5; 2001 quadratic 44.4 in
-            // 12.1-57.9, linear-plateau 85.5 in 0-93.5 kg N/ha).
+            // 62.3-131.5, linear-plateau 102.4 in 85.1-131.5; 2001 quadratic 44.4 in
+            // 15.1-57.7, linear-plateau 85.5 in 0-93.6 kg N/ha).
             for (m, fit) in year_ref["models"].as_object().unwrap() {
                 let want = fit["eonr_kg_ha"].as_f64().unwrap();
                 let r = &rows[m];
