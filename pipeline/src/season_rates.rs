@@ -126,16 +126,11 @@ pub(crate) fn write_curves(
         curve: crate::io::read_table(&dir.join("response_curve.csv"), &shown, again)?,
         plots: Vec::new(),
         rate_unit: rates.unit.as_str().to_string(),
-        input_price: if input_price.0 > 0.0 {
-            format!(
-                "Input: {} per {} (rates in {}).",
-                input_price.0,
-                input_price.1.unwrap_or(InputUnit::Kg),
-                rates.unit
-            )
-        } else {
-            "No input price: the optimum pays for the grain only.".into()
-        },
+        input_price: plotsieve_stages::report::rates::input_price_words(
+            input_price.0,
+            input_price.1.unwrap_or(InputUnit::Kg),
+            rates.unit,
+        ),
         decimals,
         area,
     })

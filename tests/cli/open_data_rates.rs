@@ -73,16 +73,7 @@ fn las_rosas_as_a_rate_trial_agrees_with_scipy_fits_of_the_same_curves() {
         std::fs::write(&t_table, text).unwrap();
         let (rp, rt) = (w.path(&format!("p-{year}")), w.path(&format!("t-{year}")));
         for (t, r) in [(&t_points, &rp), (&t_table, &rt)] {
-            ok(&plotsieve(
-                &w.0,
-                &[
-                    "run",
-                    t.to_str().unwrap(),
-                    "--out",
-                    r.to_str().unwrap(),
-                    "--quiet",
-                ],
-            ));
+            run_trial(&w, t, r.to_str().unwrap(), &[]);
         }
         counts_add_up(&rp);
         // The adjust summary carries the rate trial; in 1999 a third of the posterior puts

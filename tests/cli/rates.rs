@@ -227,16 +227,12 @@ fn a_season_of_rate_trials_fits_one_curve_across_their_fields() {
         ],
     );
     for t in ["north", "south"] {
-        ok(&plotsieve(
-            &w.0,
-            &[
-                "run",
-                &format!("{t}/trial.toml"),
-                "--out",
-                &format!("runs/{t}"),
-                "--quiet",
-            ],
-        ));
+        run_trial(
+            &w,
+            &w.path(&format!("{t}/trial.toml")),
+            &format!("runs/{t}"),
+            &[],
+        );
     }
     let season = "[season]\nname = \"N rates\"\ngrain_price = 180\ninput_price = 1.1\ninput_price_unit = \"kg\"\n\n[[trial]]\nfile = \"north/trial.toml\"\nout = \"runs/north\"\n\n[[trial]]\nfile = \"south/trial.toml\"\nout = \"runs/south\"\n";
     std::fs::write(w.path("season.toml"), season).unwrap();

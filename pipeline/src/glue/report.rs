@@ -184,14 +184,11 @@ fn rate_report(
         curve: io::read_table(&adj.join("response_curve.csv"), &shown, ADJUST_FIRST)?,
         plots: rate_dots(adjusted, &a.rates),
         rate_unit: a.rate_unit.as_str().to_string(),
-        input_price: if a.input_price > 0.0 {
-            format!(
-                "Input: {} per {} (rates in {}).",
-                a.input_price, a.input_price_unit, a.rate_unit
-            )
-        } else {
-            "No input price: the optimum pays for the grain only.".into()
-        },
+        input_price: report::rates::input_price_words(
+            a.input_price,
+            a.input_price_unit,
+            a.rate_unit,
+        ),
         decimals: c.t.cfg.report.decimals as usize,
         area: a.product_cost_unit,
     }))

@@ -308,6 +308,16 @@ fn random_columns(
     Ok((out, width, groups))
 }
 
+/// SD of the weak default prior on product effects (and on a rate curve's coefficients):
+/// `adjust.weak_prior_sd`, or ten times `mean_sy`, the mean SD of the fields' plot yields.
+pub(crate) fn weak_prior_sd(s: &FitSettings, mean_sy: f64) -> f64 {
+    if s.weak_prior_sd > 0.0 {
+        s.weak_prior_sd
+    } else {
+        10.0 * mean_sy
+    }
+}
+
 /// The prior on product effects in the global product order, and each field's map into it.
 pub(crate) fn effect_priors(
     preps: &[Prepared],
@@ -320,11 +330,7 @@ pub(crate) fn effect_priors(
         .into_iter()
         .collect();
     let mean_sy = preps.iter().map(|p| p.model.sy).sum::<f64>() / preps.len().max(1) as f64;
-    let weak = if s.weak_prior_sd > 0.0 {
-        s.weak_prior_sd
-    } else {
-        10.0 * mean_sy
-    };
+    let weak = weak_prior_sd(s, mean_sy);
     let (mean, var) = products
         .iter()
         .map(|t| match s.product_prior.get(t) {

@@ -245,11 +245,7 @@ pub(crate) fn response_rows(
     let (rates, check_rate) = rates_of(r, c.preps, c.products, &s.check)?;
     let rd = RateDesign::new(&rates, check_rate);
     let mean_sy = c.preps.iter().map(|p| p.model.sy).sum::<f64>() / c.preps.len().max(1) as f64;
-    let tau = if s.weak_prior_sd > 0.0 {
-        s.weak_prior_sd
-    } else {
-        10.0 * mean_sy
-    };
+    let tau = weak_prior_sd(s, mean_sy);
     let kept: Vec<f64> = c
         .preps
         .iter()
@@ -290,19 +286,10 @@ pub(crate) fn response_rows(
             false,
         );
         if own.len() == 1 && jf.is_none() {
-            let relabel = |mut x: ResponseRow| {
-                x.field = "all".into();
-                x
-            };
-            let curve_all = curve
-                .iter()
-                .cloned()
-                .map(|mut x| {
-                    x.field = "all".into();
-                    x
-                })
-                .collect();
-            pooled = Some((rows.iter().cloned().map(relabel).collect(), curve_all));
+            let (mut r, mut c) = (rows.clone(), curve.clone());
+            r.iter_mut().for_each(|x| x.field = "all".into());
+            c.iter_mut().for_each(|x| x.field = "all".into());
+            pooled = Some((r, c));
         }
         out.response.extend(rows);
         out.response_curve.extend(curve);
@@ -337,7 +324,12 @@ pub(crate) fn response_rows(
         out.response_curve.extend(curve);
     }
     // An optimum that may lie beyond the rates tested is a warning, not only a note.
-    for r in out.response.iter().filter(|r| r.model == "averaged") {
+    // A single field's pooled rows are its own: said once.
+    for r in out
+        .response
+        .iter()
+        .filter(|r| r.model == "averaged" && (r.field != "all" || jf.is_some()))
+    {
         if r.p_optimum_at_highest >= 0.05 {
             let at = if r.field == "all" {
                 "pooled over the fields".to_string()

@@ -212,61 +212,59 @@ fn pieces_at(pt: &PostPoint, maps: &[FieldMap], designs: &Designs, tau2: f64) ->
     for (curve, x, lprior, a) in designs {
         let (curve, x, lprior) = (*curve, *x, *lprior);
         let q = curve.q();
-        {
-            let mut prec = [1.0 / tau2, 0.0, if q == 2 { 1.0 / tau2 } else { 1.0 }];
-            let mut h = [0.0; 2];
-            for (t, m) in ts.iter().zip(maps) {
-                let d = t.d;
-                for i in 0..d {
-                    let ai = a[m.index[i]];
-                    h[0] += ai[0] * t.wic[i];
-                    h[1] += ai[1] * t.wic[i];
-                    for j in 0..d {
-                        let aj = a[m.index[j]];
-                        let wij = t.wi[i * d + j];
-                        prec[0] += ai[0] * wij * aj[0];
-                        prec[1] += ai[1] * wij * aj[0];
-                        prec[2] += ai[1] * wij * aj[1];
-                    }
+        let mut prec = [1.0 / tau2, 0.0, if q == 2 { 1.0 / tau2 } else { 1.0 }];
+        let mut h = [0.0; 2];
+        for (t, m) in ts.iter().zip(maps) {
+            let d = t.d;
+            for i in 0..d {
+                let ai = a[m.index[i]];
+                h[0] += ai[0] * t.wic[i];
+                h[1] += ai[1] * t.wic[i];
+                for j in 0..d {
+                    let aj = a[m.index[j]];
+                    let wij = t.wi[i * d + j];
+                    prec[0] += ai[0] * wij * aj[0];
+                    prec[1] += ai[1] * wij * aj[0];
+                    prec[2] += ai[1] * wij * aj[1];
                 }
             }
-            if q == 1 {
-                prec[1] = 0.0;
-                prec[2] = 1.0;
-                h[1] = 0.0;
-            }
-            // Cholesky of the 2 x 2 precision [p0 p1; p1 p2].
-            let l0 = prec[0].sqrt();
-            let l1 = prec[1] / l0;
-            let l2 = (prec[2] - l1 * l1).sqrt();
-            if !(l0 > 0.0 && l2 > 0.0) {
-                continue;
-            }
-            let z0 = h[0] / l0;
-            let z1 = (h[1] - l1 * z0) / l2;
-            let m1 = z1 / l2;
-            let m0 = (z0 - l1 * m1) / l0;
-            let logdet = 2.0 * (l0.ln() + l2.ln());
-            let log_c = log_n - 0.5 * (q as f64 * tau2.ln() + logdet - (z0 * z0 + z1 * z1));
-            // Covariance = Prec^-1 and its Cholesky factor.
-            let det = prec[0] * prec[2] - prec[1] * prec[1];
-            let (c0, c1, c2) = (prec[2] / det, -prec[1] / det, prec[0] / det);
-            let k0 = c0.sqrt();
-            let k1 = c1 / k0;
-            let k2 = if q == 2 {
-                (c2 - k1 * k1).max(0.0).sqrt()
-            } else {
-                0.0
-            };
-            out.push(Piece {
-                curve,
-                x,
-                log_w: pt.w.ln() + lprior + log_c - pt.log_c,
-                mean: [m0, if q == 2 { m1 } else { 0.0 }],
-                chol: [k0, if q == 2 { k1 } else { 0.0 }, k2],
-                s: pt.s,
-            });
         }
+        if q == 1 {
+            prec[1] = 0.0;
+            prec[2] = 1.0;
+            h[1] = 0.0;
+        }
+        // Cholesky of the 2 x 2 precision [p0 p1; p1 p2].
+        let l0 = prec[0].sqrt();
+        let l1 = prec[1] / l0;
+        let l2 = (prec[2] - l1 * l1).sqrt();
+        if !(l0 > 0.0 && l2 > 0.0) {
+            continue;
+        }
+        let z0 = h[0] / l0;
+        let z1 = (h[1] - l1 * z0) / l2;
+        let m1 = z1 / l2;
+        let m0 = (z0 - l1 * m1) / l0;
+        let logdet = 2.0 * (l0.ln() + l2.ln());
+        let log_c = log_n - 0.5 * (q as f64 * tau2.ln() + logdet - (z0 * z0 + z1 * z1));
+        // Covariance = Prec^-1 and its Cholesky factor.
+        let det = prec[0] * prec[2] - prec[1] * prec[1];
+        let (c0, c1, c2) = (prec[2] / det, -prec[1] / det, prec[0] / det);
+        let k0 = c0.sqrt();
+        let k1 = c1 / k0;
+        let k2 = if q == 2 {
+            (c2 - k1 * k1).max(0.0).sqrt()
+        } else {
+            0.0
+        };
+        out.push(Piece {
+            curve,
+            x,
+            log_w: pt.w.ln() + lprior + log_c - pt.log_c,
+            mean: [m0, if q == 2 { m1 } else { 0.0 }],
+            chol: [k0, if q == 2 { k1 } else { 0.0 }, k2],
+            s: pt.s,
+        });
     }
     out
 }

@@ -173,8 +173,7 @@ fn a_curve_s_factored_likelihood_equals_the_stacked_dense_model() {
     // with covariance blockdiag(K_f + s_n^2 I) + tau^2 (Z A)(Z A)' + Z s^2 Z' and flat field
     // means, from one dense Cholesky (as the unordered model's test in tests.rs).
     use super::response::{pieces, PostPoint};
-    use faer::linalg::solvers::Solve;
-    use faer::{Mat, Side};
+    use faer::Mat;
     let mut plots = super::tests::trend_field("F", 3, 5, 0.2, 3);
     plots.extend(super::tests::trend_field("G", 3, 4, 0.4, 4));
     let s = FitSettings::new("chk");
@@ -250,20 +249,8 @@ fn a_curve_s_factored_likelihood_equals_the_stacked_dense_model() {
             v
         });
         let y = Mat::from_fn(n, 1, |i, _| rows[i].2);
-        let x0 = Mat::from_fn(n, 2, |i, j| if rows[i].0 == j { 1.0 } else { 0.0 });
-        let llt = cov.llt(Side::Lower).unwrap();
-        let l = llt.L();
-        let logdet: f64 = (0..n).map(|i| 2.0 * l[(i, i)].ln()).sum();
-        let a = x0.transpose() * llt.solve(&x0);
-        let a_llt = a.llt(Side::Lower).unwrap();
-        let al = a_llt.L();
-        let logdet_a: f64 = (0..2).map(|i| 2.0 * al[(i, i)].ln()).sum();
-        let b = a_llt.solve(&(x0.transpose() * llt.solve(&y)));
-        let r = &y - &x0 * &b;
-        let cr = llt.solve(&r);
-        let quad: f64 = (0..n).map(|i| r[(i, 0)] * cr[(i, 0)]).sum();
-        let direct =
-            -0.5 * ((n - 2) as f64 * (2.0 * std::f64::consts::PI).ln() + logdet + logdet_a + quad);
+        let field: Vec<usize> = rows.iter().map(|r| r.0).collect();
+        let direct = super::tests::stacked_reml(&cov, &y, &field, 2);
         assert!(
             ((factored - direct) / direct).abs() < 1e-9,
             "{curve:?} at join {}: {factored} vs {direct}",

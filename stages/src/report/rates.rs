@@ -21,6 +21,19 @@ pub struct RateReport {
     pub area: crate::crop::AreaUnit,
 }
 
+/// The input's price in words, for [`RateReport::input_price`].
+pub fn input_price_words(
+    price: f64,
+    unit: crate::crop::InputUnit,
+    rate_unit: crate::crop::RateUnit,
+) -> String {
+    if price > 0.0 {
+        format!("Input: {price} per {unit} (rates in {rate_unit}).")
+    } else {
+        "No input price: the optimum pays for the grain only.".into()
+    }
+}
+
 pub(crate) const HEADING: &str = "Decision: the rate that pays best";
 
 /// The cautions of a rate trial.

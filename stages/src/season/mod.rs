@@ -172,11 +172,7 @@ fn stage_two(locs: &[Location], s: &FitSettings) -> Result<StageTwo, String> {
         .into_iter()
         .collect();
     let mean_sy = locs.iter().map(|l| l.one.yield_sd_kg_ha).sum::<f64>() / locs.len() as f64;
-    let weak = if s.weak_prior_sd > 0.0 {
-        s.weak_prior_sd
-    } else {
-        10.0 * mean_sy
-    };
+    let weak = crate::adjust::weak_prior_sd(s, mean_sy);
     let (mean, var): (Vec<f64>, Vec<f64>) = products
         .iter()
         .map(|t| match s.product_prior.get(t) {
