@@ -16,6 +16,17 @@ pub fn check(trial: &Path, set: &[String]) -> Result<()> {
             a.rate_unit,
             rates.join(", ")
         );
+        if let Some(c) = &t.cfg.columns.applied_rate {
+            println!(
+                "read: as-applied rates from column {} in {}; the curves place each treatment at its {}",
+                c.name,
+                c.unit,
+                match a.rate_source {
+                    plotsieve_stages::adjust::settings::RateSource::Applied => "as-applied mean",
+                    plotsieve_stages::adjust::settings::RateSource::Target => "target rate",
+                }
+            );
+        }
     }
     if !t.cfg.inputs.plot_table.is_empty() {
         return check_plot_table(trial, &t);

@@ -134,6 +134,10 @@ enum Command {
         /// response with grain and N prices (truth.json gives the true optimum rate).
         #[arg(long, conflicts_with = "strips")]
         rates: bool,
+        /// With --rates: each record logs the spreader's as-applied N rate (N120
+        /// under-applied by 15 %), and the yields respond to the applied rates.
+        #[arg(long, requires = "rates")]
+        applied: bool,
     },
     /// Take a harvest's exports from an inbox: match each to the trials its points fall in,
     /// copy it there, and rerun only the trials that got something new.
@@ -201,6 +205,7 @@ fn main() -> ExitCode {
             labels,
             prescription,
             rates,
+            applied,
         } => match simulate::SimForm::from_name(&form) {
             None => Err(anyhow::anyhow!(
                 "--form {}",
@@ -208,6 +213,9 @@ fn main() -> ExitCode {
             )),
             Some(_) if !(5.0..=1000.0).contains(&plot_length) => Err(anyhow::anyhow!(
                 "--plot-length {plot_length}: expected 5-1000 metres"
+            )),
+            Some(simulate::SimForm::TaskData) if applied => Err(anyhow::anyhow!(
+                "--applied goes with the text, distance_text, yield_points, geopackage and shapefile forms (the task-data writer logs no rate)"
             )),
             Some(simulate::SimForm::TaskData) if labels => Err(anyhow::anyhow!(
                 "--labels goes with the text, distance_text, yield_points, geopackage and shapefile forms (task data carries no label column)"
@@ -231,6 +239,7 @@ fn main() -> ExitCode {
                     labels,
                     prescription,
                     rates,
+                    applied,
                     ..Default::default()
                 },
             ),

@@ -45,6 +45,8 @@ pub(crate) struct TrialRead {
     missing: Vec<String>,
     /// The rate unit and rates its run used (empty for a product trial).
     pub(crate) rates: (String, BTreeMap<String, f64>),
+    /// Its run placed the treatments at their as-applied means (`adjust.rate_source`).
+    pub(crate) rate_source_applied: bool,
 }
 
 fn read_trial(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Result<TrialRead> {
@@ -101,6 +103,7 @@ fn read_trial(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Result<Trial
         contrasts,
         missing,
         rates: crate::season_rates::rates_of_run(&manifest.config),
+        rate_source_applied: manifest.config["adjust"]["rate_source"] == "applied",
     })
 }
 
@@ -195,6 +198,9 @@ fn fit_and_write(
     let locs = locations(&trials, &mut warnings);
     let fit = season::fit(&locs, &s).map_err(|e| anyhow!("{}: {e}", season_file.display()))?;
     let rates = crate::season_rates::of_trials(&trials, meta)?;
+    if rates.is_some() {
+        warnings.extend(crate::season_rates::applied_warnings(&trials));
+    }
     product_warnings(&fit, meta, &mut warnings);
     let parent = out
         .parent()

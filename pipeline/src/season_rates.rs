@@ -22,6 +22,20 @@ pub(crate) fn rates_of_run(config: &serde_json::Value) -> (String, BTreeMap<Stri
     (a["rate_unit"].as_str().unwrap_or("").to_string(), rates)
 }
 
+/// Trials whose own curves placed the treatments at their as-applied means
+/// (`adjust.rate_source = "applied"`): the season places them at their target rates, and
+/// says so.
+pub(crate) fn applied_warnings(trials: &[crate::season::TrialRead]) -> Vec<String> {
+    trials
+        .iter()
+        .filter(|t| t.rate_source_applied)
+        .map(|t| format!(
+            "trial {}: its own curves place each treatment at its as-applied mean (adjust.rate_source = \"applied\"); the season's curve places every treatment at its target rate, one rate per treatment across the season",
+            t.name
+        ))
+        .collect()
+}
+
 /// [`season_rates`] of the season's trials with its input price.
 pub(crate) fn of_trials(
     trials: &[crate::season::TrialRead],
@@ -122,6 +136,8 @@ pub(crate) fn write_curves(
     let shown = unit.as_written();
     let again = "rerun plotsieve season";
     Ok(plotsieve_stages::report::rates::RateReport {
+        applied: Vec::new(),
+        at_applied: false,
         rows: crate::io::read_table(&dir.join("response.csv"), &shown, again)?,
         curve: crate::io::read_table(&dir.join("response_curve.csv"), &shown, again)?,
         plots: Vec::new(),

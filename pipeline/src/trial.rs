@@ -71,6 +71,12 @@ pub fn load(trial: &Path, set: &[String]) -> Result<Trial> {
     if let Some(p) = cfg.adjust.price_without_rates() {
         anyhow::bail!("invalid settings:\n  {p}");
     }
+    if let Some(p) = cfg
+        .adjust
+        .applied_problems(cfg.columns.applied_rate.as_ref())
+    {
+        anyhow::bail!("invalid settings:\n  {p}");
+    }
     Ok(Trial {
         path: trial.to_path_buf(),
         base,

@@ -30,6 +30,9 @@ pub struct Point {
     pub hdop: f64,
     /// GPS fix quality; NaN when absent.
     pub fix_quality: f64,
+    /// As-applied rate of a rate trial's input where the record was cut, in base units
+    /// (kg, l or seeds) per hectare; NaN when the export has none there.
+    pub applied_rate: f64,
     /// Yield at standard moisture, kg/ha, as a yield-point export gives it; NaN for a
     /// monitor export (clean computes it from flow, speed and swath).
     pub yield_kg_ha: f64,
@@ -224,6 +227,19 @@ pub struct PlotStats {
     pub across_m: f64,
     /// The net plot ring (projected metres), empty when the trims leave nothing.
     pub net_ring: Vec<(f64, f64)>,
+    /// The as-applied rate of the plot's records, when the exports log one.
+    pub applied: Option<AppliedRate>,
+}
+
+/// A plot's as-applied rate from the records it keeps, in base units (kg, l or seeds) per
+/// hectare.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct AppliedRate {
+    /// Records with a rate (a record with an empty rate cell has none).
+    pub points: u64,
+    /// Their mean and SD (NaN without such records; SD NaN with one).
+    pub mean: f64,
+    pub sd: f64,
 }
 
 impl PlotStats {
@@ -262,6 +278,7 @@ impl PlotStats {
             along_m: f64::NAN,
             across_m: f64::NAN,
             net_ring: Vec::new(),
+            applied: None,
         }
     }
 }

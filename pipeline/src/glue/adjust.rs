@@ -3,9 +3,11 @@
 
 use super::{read_plots, write_stage_tables, Ctx};
 use crate::io;
+use crate::stage::Stage;
 use anyhow::{bail, Result};
 use plotsieve_stages::adjust;
 use plotsieve_stages::adjust::priors::PriorsFile;
+use plotsieve_stages::adjust::settings::RateSource;
 use plotsieve_stages::table::{PlotStats, Rejection, StageSummary};
 
 /// Run the stage against the run folder.
@@ -17,7 +19,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let unit = c.unit;
     let crop = &c.crop;
     let progress = c.progress;
-    let plots = if cfg.adjust.plot_table.is_empty() {
+    let mut plots = if cfg.adjust.plot_table.is_empty() {
         read_plots(out, &unit)?
     } else {
         // The analyst's own table fitted directly: every row must be usable.
@@ -41,11 +43,23 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         }
         table.plots
     };
-    let mut s = cfg
-        .adjust
-        .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb);
+    let applied = applied_rates(c, &mut plots)?;
+    let mut s = match &applied {
+        Some((_, _, Some(means))) => {
+            let mut a = cfg.adjust.clone();
+            a.rates = means.clone();
+            a.checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb)
+        }
+        _ => cfg
+            .adjust
+            .checked(&cfg.trial.check, unit.kg_ha_per_unit(), crop.bushel_lb),
+    };
     let carried = carry_priors(t, &mut s)?;
     let mut o = adjust::run_with(&plots, &s, progress)?;
+    if let Some((rows, warnings, _)) = &applied {
+        o.warnings.extend(warnings.iter().cloned());
+        io::write_table(&dir.join("applied_rates.csv"), rows, &unit)?;
+    }
     if !o.missing_fields.is_empty() {
         if !cfg.adjust.allow_missing_fields {
             bail!(
@@ -123,7 +137,8 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             "rate_trial".into(),
             serde_json::json!({
                 "rate_unit": r.rate_unit,
-                "rates": cfg.adjust.rates,
+                "rates": s.rates.as_ref().map(|r| r.by_treatment.clone()).unwrap_or_default(),
+                "rate_source": cfg.adjust.rate_source,
                 "optimum_rate": (r.optimum_rate * 1e3).round() / 1e3,
                 "optimum_90": [(r.optimum_lo90 * 1e3).round() / 1e3, (r.optimum_hi90 * 1e3).round() / 1e3],
                 "curve_probabilities": {
@@ -210,4 +225,53 @@ fn write_contrasts(c: &Ctx, o: &adjust::AdjustOutput, plots: &[PlotStats]) -> Re
         },
     )?;
     Ok(())
+}
+
+/// A rate trial's as-applied rates (`columns.applied_rate`): each plot's rate from
+/// `3-plots/applied_rates.csv`, the treatments' rows against their targets, the warnings, and
+/// with `adjust.rate_source = "applied"` the treatments' as-applied means. None for a trial
+/// without the column (or without rates).
+type Applied = (
+    Vec<adjust::applied::AppliedRow>,
+    Vec<String>,
+    Option<std::collections::BTreeMap<String, f64>>,
+);
+
+fn applied_rates(c: &Ctx, plots: &mut [PlotStats]) -> Result<Option<Applied>> {
+    let cfg = &c.t.cfg;
+    let a = &cfg.adjust;
+    let Some(col) = cfg.columns.applied_rate.as_ref() else {
+        return Ok(None);
+    };
+    if a.rates.is_empty() || !a.plot_table.is_empty() {
+        return Ok(None);
+    }
+    let path = c.out.join(Stage::Plots.dir()).join("applied_rates.csv");
+    let mut warnings = Vec::new();
+    if path.exists() {
+        io::read_plot_rates(&path, plots, col.unit)?;
+    } else if a.rate_source == RateSource::Applied {
+        bail!(
+            "adjust.rate_source = \"applied\", but no record kept by clean has an as-applied rate in column {} (3-plots/applied_rates.csv was not written)",
+            col.name
+        );
+    } else {
+        warnings.push(format!(
+            "as-applied rates: columns.applied_rate maps column {}, but no record kept by clean has a rate in it; the curve uses the target rates",
+            col.name
+        ));
+    }
+    let rows = adjust::applied::applied_rows(plots, &a.rates, a.rate_unit);
+    let use_applied = a.rate_source == RateSource::Applied;
+    warnings.extend(adjust::applied::applied_warnings(
+        &rows,
+        a.applied_rate_tolerance_pct,
+        use_applied,
+    ));
+    let means = if use_applied {
+        Some(adjust::applied::applied_means(&rows).map_err(anyhow::Error::msg)?)
+    } else {
+        None
+    };
+    Ok(Some((rows, warnings, means)))
 }

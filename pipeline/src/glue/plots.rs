@@ -89,6 +89,12 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
                 },
                 || {
                     io::write_table(&dir.join("plots.csv"), &o.plots, &unit)?;
+                    // As-applied rates, where the exports log them.
+                    if let Some(a) = &cfg.columns.applied_rate {
+                        if o.plots.iter().any(|p| p.applied.is_some()) {
+                            io::write_plot_rates(&dir.join("applied_rates.csv"), &o.plots, a.unit)?;
+                        }
+                    }
                     write_stage_tables(dir, &o.rejections, &o.summary)
                 },
             )

@@ -179,10 +179,34 @@ fn rate_report(
     }
     let shown = c.unit.as_written();
     let adj = c.out.join(Stage::Adjust.dir());
+    // As-applied rates against the targets, where adjust set them so.
+    let applied_path = adj.join("applied_rates.csv");
+    let applied: Vec<plotsieve_stages::adjust::applied::AppliedRow> = if applied_path.exists() {
+        io::read_table::<plotsieve_stages::adjust::applied::AppliedRow>(
+            &applied_path,
+            &shown,
+            ADJUST_FIRST,
+        )?
+        .into_iter()
+        .filter(|r| r.field == "all")
+        .collect()
+    } else {
+        Vec::new()
+    };
+    let at_applied = a.rate_source == plotsieve_stages::adjust::settings::RateSource::Applied
+        && !applied.is_empty();
+    // The plots sit at the rates the curves were fitted at.
+    let rates = if at_applied {
+        plotsieve_stages::adjust::applied::applied_means(&applied).map_err(anyhow::Error::msg)?
+    } else {
+        a.rates.clone()
+    };
     Ok(Some(report::rates::RateReport {
         rows: io::read_table(&adj.join("response.csv"), &shown, ADJUST_FIRST)?,
         curve: io::read_table(&adj.join("response_curve.csv"), &shown, ADJUST_FIRST)?,
-        plots: rate_dots(adjusted, &a.rates),
+        plots: rate_dots(adjusted, &rates),
+        applied,
+        at_applied,
         rate_unit: a.rate_unit.as_str().to_string(),
         input_price: report::rates::input_price_words(
             a.input_price,

@@ -7,11 +7,13 @@
 //! name) and `tables` (the run folder's row types), `points` (Parquet point tables),
 //! `plots` (GeoJSON plot layers and the analyst's plot table).
 
+mod applied;
 mod plots;
 mod points;
 pub mod table;
 mod tables;
 
+pub use applied::{read_plot_rates, write_plot_rates};
 pub use plots::{plot_properties, write_plots_wgs84, write_projected_plots};
 pub use points::{as_read_back, read_clean_points, read_points, write_clean_points, write_points};
 pub use table::{read_table, write_table};

@@ -64,6 +64,7 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point>) -> V
     ];
     let mut vals: [Vec<f64>; 12] = std::array::from_fn(|_| Vec::with_capacity(n));
     let mut given: Vec<f64> = Vec::with_capacity(n);
+    let mut applied: Vec<f64> = Vec::with_capacity(n);
     for p in pts {
         ids.push(p.id);
         names.push(files[p.file as usize].as_str());
@@ -87,6 +88,7 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point>) -> V
             ],
         );
         given.push(p.yield_kg_ha);
+        applied.push(p.applied_rate);
     }
     let mut cols = vec![
         Column::new("point_id".into(), ids),
@@ -98,6 +100,10 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point>) -> V
     // Yields given by a yield-point export (the column only where there are some).
     if given.iter().any(|v| v.is_finite()) {
         cols.push(Column::new("yield_given_kg_ha".into(), given));
+    }
+    // As-applied rates (base units per hectare; the column only where there are some).
+    if applied.iter().any(|v| v.is_finite()) {
+        cols.push(Column::new("applied_rate_per_ha".into(), applied));
     }
     cols
 }
@@ -264,6 +270,7 @@ fn read_base<T>(
                 work_state: f64::NAN,
                 hdop: f64::NAN,
                 fix_quality: f64::NAN,
+                applied_rate: f64::NAN,
                 yield_kg_ha: f64::NAN,
             })
         })
@@ -290,6 +297,11 @@ fn read_base<T>(
     if df.column("yield_given_kg_ha").is_ok() {
         fill_f64(df, "yield_given_kg_ha", path, &mut rows, |r, v| {
             base(r).yield_kg_ha = v
+        })?;
+    }
+    if df.column("applied_rate_per_ha").is_ok() {
+        fill_f64(df, "applied_rate_per_ha", path, &mut rows, |r, v| {
+            base(r).applied_rate = v
         })?;
     }
     Ok((files, rows))
@@ -421,6 +433,7 @@ mod tests {
             work_state: 1.0,
             hdop: f64::NAN,
             fix_quality: 4.0,
+            applied_rate: f64::NAN,
             yield_kg_ha: given,
         }
     }

@@ -3,6 +3,7 @@
 //! `hyperparameters.csv`, and the season's `locations.csv` and `product_x_field_sd.csv`. Each column is named, written and read in one place.
 
 use super::table::{col, count, number, yield_col, Col, Table};
+use plotsieve_stages::adjust::applied::AppliedRow;
 use plotsieve_stages::adjust::{
     AdjustedPlot, Comparison, FieldHyper, ResponseCurveRow, ResponseRow, TreatmentRow,
 };
@@ -436,6 +437,25 @@ impl Table for plotsieve_stages::season::TauNode {
             yld!(format!("product_x_field_sd_{unit}"), sd, 6),
             num!("prior_mass", prior, 8),
             num!("posterior_weight", posterior, 8),
+        ]
+    }
+}
+
+impl Table for AppliedRow {
+    fn columns(_unit: &str) -> Vec<Col<Self>> {
+        vec![
+            text!("field", field),
+            text!("treatment", treatment),
+            text!("rate_unit", rate_unit),
+            num!("target_rate", target_rate, 3),
+            whole!("plots", plots),
+            whole!("plots_with_rate", plots_with_rate),
+            num!("applied_mean", applied_mean, 3),
+            num!("applied_sd", applied_sd, 3),
+            num!("applied_min", applied_min, 3),
+            num!("applied_max", applied_max, 3),
+            num!("difference", difference, 3),
+            num!("difference_pct", difference_pct, 2),
         ]
     }
 }

@@ -56,6 +56,7 @@
 //! (brute-force quadrature, slice sampler) and `reference` (dense Cholesky evaluations),
 //! and `tests`.
 
+pub mod applied;
 mod assemble;
 mod compare;
 pub mod field;

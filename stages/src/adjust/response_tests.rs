@@ -313,3 +313,63 @@ fn a_new_field_s_optimum_interval_covers_held_out_fields() {
     assert!(new_width > pooled_width);
     assert!(covered >= 26, "{covered} of {n}");
 }
+
+/// [`rate_plots`] with a spreader that applies `factor` x each target rate (x (1 + 3 %
+/// noise) per plot): the yields respond to the applied rates, which each plot records.
+fn applied_plots(seed: u64, factor: f64) -> Vec<PlotStats> {
+    let mut plots = rate_plots(seed, 500.0, 350.0);
+    let mut rng = crate::util::Rng::new(seed + 77);
+    for p in &mut plots {
+        let k = RATE_TREATMENTS
+            .iter()
+            .position(|t| t.0 == p.treatment)
+            .unwrap();
+        let applied = RATES_KG_HA[k] * factor * (1.0 + 0.03 * rng.normal());
+        p.yield_mean += true_rate_gain(applied, 1.0) - true_rate_gain(RATES_KG_HA[k], 1.0);
+        p.applied = Some(crate::table::AppliedRate {
+            points: 30,
+            mean: applied,
+            sd: 1.0,
+        });
+    }
+    plots
+}
+
+#[test]
+fn as_applied_rates_keep_the_optimum_interval_honest_when_the_spreader_is_off() {
+    // Known truth: 100 trials whose spreader applied 80 % of every target rate. Placed at
+    // their targets, the treatments stretch the curve and the interval misses the true
+    // optimum; placed at their as-applied means, it covers it as often as it says.
+    let truth = true_rate_optimum(1.0);
+    let s = rate_settings();
+    let targets = s.rates.as_ref().unwrap().by_treatment.clone();
+    let (mut at_target, mut at_applied) = (0, 0);
+    let (mut bias_target, mut bias_applied) = (0.0, 0.0);
+    let n = 100;
+    for seed in 0..n {
+        let plots = applied_plots(3000 + seed, 0.8);
+        let fit = |s: &FitSettings| {
+            let avg = run(&plots, s).unwrap().response[0].clone();
+            let inside = avg.optimum_lo90 <= truth && truth <= avg.optimum_hi90;
+            (usize::from(inside), avg.optimum_rate - truth)
+        };
+        let (c, b) = fit(&s);
+        (at_target, bias_target) = (at_target + c, bias_target + b / n as f64);
+        let rows = applied::applied_rows(&plots, &targets, crate::crop::RateUnit::KgHa);
+        let mut sa = s.clone();
+        sa.rates.as_mut().unwrap().by_treatment = applied::applied_means(&rows).unwrap();
+        let (c, b) = fit(&sa);
+        (at_applied, bias_applied) = (at_applied + c, bias_applied + b / n as f64);
+    }
+    eprintln!("over {n} trials with an 80 % spreader, the optimum's mean error and 90 % interval coverage: at target rates {bias_target:+.1} kg/ha, {at_target}; at as-applied means {bias_applied:+.1} kg/ha, {at_applied}");
+    // At the targets the curve is stretched by 1 / 0.8: the optimum lands about 25 % high.
+    assert!(bias_target > 15.0, "at target rates: {bias_target}");
+    assert!(
+        bias_applied.abs() < 8.0,
+        "at as-applied means: {bias_applied}"
+    );
+    assert!(
+        (83..=97).contains(&at_applied) && at_target < at_applied,
+        "coverage at as-applied means {at_applied}, at targets {at_target}, of {n}"
+    );
+}

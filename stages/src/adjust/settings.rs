@@ -7,6 +7,16 @@ use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 
 crate::choice! {
+    /// `adjust.rate_source`: the rate a rate trial's curve places each treatment at.
+    pub enum RateSource {
+        /// The rate the trial gives (`adjust.rates` or the rate column).
+        Target = "target",
+        /// The mean as-applied rate of the treatment's kept plots (`columns.applied_rate`).
+        Applied = "applied",
+    }
+}
+
+crate::choice! {
     /// `adjust.pooling`: how fields are combined.
     pub enum Pooling {
         /// One model for all fields: shared product effects with a treatment x field
@@ -167,6 +177,12 @@ pub struct AdjustSettings {
     /// The flat top: rates whose expected net return is within this much (per
     /// `product_cost_unit`) of the best; 0 = the price of 1 % of the trial's mean yield.
     pub flat_top_within: f64,
+    /// With as-applied rates (`columns.applied_rate`): where each treatment sits on the
+    /// curve, at its target rate or at the mean as-applied rate of its kept plots.
+    pub rate_source: RateSource,
+    /// A treatment whose mean as-applied rate is further than this from its target
+    /// (percent of the target; of the highest target for a zero target) is a warning.
+    pub applied_rate_tolerance_pct: f64,
 }
 
 impl AdjustSettings {
@@ -259,6 +275,32 @@ impl AdjustSettings {
     /// filled `rates`).
     pub fn price_without_rates(&self) -> Option<String> {
         (self.input_price > 0.0 && self.rates.is_empty()).then(|| "adjust.input_price is set but the trial gives no rates: an input price belongs to a rate trial (give each treatment's rate in adjust.rates, or in a rate_<unit> column of the design or plot table)".to_string())
+    }
+
+    /// As-applied rates against the rate-trial settings: the column goes with rates of a
+    /// unit measuring the same quantity, and `rate_source = "applied"` needs the column.
+    pub fn applied_problems(
+        &self,
+        applied: Option<&crate::ingest::settings::AppliedRateColumn>,
+    ) -> Option<String> {
+        let a = self;
+        match applied {
+            None if a.rate_source == RateSource::Applied => Some(
+                "adjust.rate_source = \"applied\" needs the exports' as-applied rate column (columns.applied_rate = { name = ..., unit = ... })".into(),
+            ),
+            Some(_) if a.rates.is_empty() => Some(
+                "columns.applied_rate is read for a rate trial, and this trial gives no rates (give each treatment's target rate in adjust.rates, or in a rate_<unit> column of the design table)".into(),
+            ),
+            Some(c) if c.unit.parts().0 != a.rate_unit.parts().0 => Some(format!(
+                "columns.applied_rate.unit = \"{}\" does not measure what adjust.rate_unit = \"{}\" does (mass, volume or seeds)",
+                c.unit, a.rate_unit
+            )),
+            _ if !(a.applied_rate_tolerance_pct > 0.0) => Some(format!(
+                "adjust.applied_rate_tolerance_pct must be above 0 (got {})",
+                a.applied_rate_tolerance_pct
+            )),
+            _ => None,
+        }
     }
 
     /// Problems of the rate-trial settings, each naming its key.

@@ -388,6 +388,7 @@ fn project_points(raw: &[formats::RawPoint], utm: &Utm) -> Result<Vec<Point>, In
             work_state: r.optional[0],
             hdop: r.optional[1],
             fix_quality: r.optional[2],
+            applied_rate: r.optional[3],
             yield_kg_ha: r.yield_kg_ha,
         })
         .collect())

@@ -211,6 +211,12 @@ pub struct ColumnsSection {
     /// Optional: GPS fix quality (NMEA GGA: 0 invalid, 1 GPS, 2 DGPS, 4 RTK fixed, 5 RTK float).
     #[serde(default)]
     pub fix_quality: String,
+    /// Optional, for a rate trial: the input's rate the machine logged where each record
+    /// was cut (as-applied; an empty cell = none there), with its unit. Plots summarise it
+    /// per plot (`3-plots/applied_rates.csv`) and adjust sets it against each treatment's
+    /// target rate.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub applied_rate: Option<AppliedRateColumn>,
     /// A strip trial without plot polygons: the column naming the treatment applied where
     /// each record was cut (as-applied or prescription label; empty text = none). The plots
     /// and the design are then built from the labels ([`crate::ingest::strips`]).
@@ -224,6 +230,22 @@ pub struct ColumnsSection {
     /// from neighbouring strips).
     #[serde(default, skip_serializing_if = "String::is_empty")]
     pub replicate: String,
+}
+
+/// The as-applied rate column of a monitor export and its unit.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AppliedRateColumn {
+    pub name: String,
+    pub unit: crate::crop::RateUnit,
+}
+
+impl AppliedRateColumn {
+    /// Factor from the column's unit to base units (kg, l or seeds) per hectare.
+    pub fn to_per_ha(&self) -> f64 {
+        let (_, base, area) = self.unit.parts();
+        base / area.ha()
+    }
 }
 
 /// Time column and its format.
@@ -422,6 +444,13 @@ impl ColumnsSection {
         }
         if self.treatment.is_empty() && !(self.strip.is_empty() && self.replicate.is_empty()) {
             p.push("columns.strip and columns.replicate go with columns.treatment (plots built from treatment labels)".into());
+        }
+        if self
+            .applied_rate
+            .as_ref()
+            .is_some_and(|a| a.name.is_empty())
+        {
+            p.push("columns.applied_rate needs a column name".into());
         }
         if !self.interval.is_empty() && self.distance.is_none() {
             p.push("columns.interval is only read with columns.distance".into());

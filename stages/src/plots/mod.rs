@@ -35,7 +35,7 @@ pub mod settings;
 
 pub use crate::table::PlotStats;
 use crate::table::{
-    CleanPoint, DesignRow, PlotCounts, PlotPolygon, Rejection, StageSummary, Texts,
+    AppliedRate, CleanPoint, DesignRow, PlotCounts, PlotPolygon, Rejection, StageSummary, Texts,
 };
 use crate::util::{mean, median, sd};
 use geo::{Area, Centroid, Contains, LineString, Polygon};
@@ -188,7 +188,7 @@ pub fn run(
     let coverages = coverages(&members, points, &nets, &footprint, s);
     let stats = statistics(&members, points, s);
     for (k, (d, _)) in ordered.iter().enumerate() {
-        let [y_mean, y_median, y_trimmed, y_sd, m_mean] = stats[k];
+        let ([y_mean, y_median, y_trimmed, y_sd, m_mean], applied) = stats[k].clone();
         let net_ring = nets[k].clone().unwrap_or_default();
         let net_area = geometry::signed_area(&net_ring).abs();
         let cov = coverages[k];
@@ -244,6 +244,7 @@ pub fn run(
             along_m: local[k].0,
             across_m: local[k].1,
             net_ring,
+            applied,
         });
     }
     let mut per_field: BTreeMap<String, u64> = BTreeMap::new();
@@ -436,19 +437,40 @@ fn coverages(
 
 /// Each plot's yield mean, median, trimmed mean and SD and its mean moisture, plots in
 /// parallel.
-fn statistics(members: &[Vec<usize>], points: &[CleanPoint], s: &PlotsSettings) -> Vec<[f64; 5]> {
+fn statistics(
+    members: &[Vec<usize>],
+    points: &[CleanPoint],
+    s: &PlotsSettings,
+) -> Vec<([f64; 5], Option<AppliedRate>)> {
+    // As-applied rates only where the exports log them.
+    let logged = points.iter().any(|p| p.base.applied_rate.is_finite());
     members
         .par_iter()
         .map(|m| {
             let ys: Vec<f64> = m.iter().map(|&i| points[i].yield_std_kg_ha).collect();
             let ms: Vec<f64> = m.iter().map(|&i| points[i].moisture_shifted_pct).collect();
-            [
-                mean(&ys),
-                median(&ys),
-                trimmed_mean(&ys, s.trim_fraction),
-                sd(&ys),
-                mean(&ms),
-            ]
+            let applied = logged.then(|| {
+                let rs: Vec<f64> = m
+                    .iter()
+                    .map(|&i| points[i].base.applied_rate)
+                    .filter(|r| r.is_finite())
+                    .collect();
+                AppliedRate {
+                    points: rs.len() as u64,
+                    mean: mean(&rs),
+                    sd: sd(&rs),
+                }
+            });
+            (
+                [
+                    mean(&ys),
+                    median(&ys),
+                    trimmed_mean(&ys, s.trim_fraction),
+                    sd(&ys),
+                    mean(&ms),
+                ],
+                applied,
+            )
         })
         .collect()
 }

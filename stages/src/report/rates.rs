@@ -3,6 +3,7 @@
 //! and the net return against rate.
 
 use super::svg::{esc, table};
+use crate::adjust::applied::AppliedRow;
 use crate::adjust::{ResponseCurveRow, ResponseRow};
 use std::fmt::Write as _;
 
@@ -19,6 +20,43 @@ pub struct RateReport {
     pub decimals: usize,
     /// The area net returns are shown per (the trial's `product_cost_unit`).
     pub area: crate::crop::AreaUnit,
+    /// As-applied rates against the targets over the trial (`all` rows; empty without
+    /// `columns.applied_rate`), and whether the curve places the treatments at them.
+    pub applied: Vec<AppliedRow>,
+    pub at_applied: bool,
+}
+
+/// The as-applied table's heading, columns and rows, and the sentence under it.
+fn applied_cells(r: &RateReport) -> (Vec<String>, Vec<Vec<String>>, &'static str) {
+    let u = &r.rate_unit;
+    let head = vec![
+        "treatment".to_string(),
+        format!("target ({u})"),
+        "plots with a rate".into(),
+        format!("as applied, mean ({u})"),
+        format!("SD between plots ({u})"),
+        "difference (%)".into(),
+    ];
+    let cells = r
+        .applied
+        .iter()
+        .map(|a| {
+            vec![
+                a.treatment.clone(),
+                f(a.target_rate, 1),
+                format!("{} of {}", a.plots_with_rate, a.plots),
+                f(a.applied_mean, 1),
+                f(a.applied_sd, 1),
+                format!("{:+.1}", a.difference_pct),
+            ]
+        })
+        .collect();
+    let words = if r.at_applied {
+        "Each plot's rate is the mean of what the machine logged on the records it keeps. The curves place each treatment at its as-applied mean (adjust.rate_source = \"applied\"). A zero target's difference is a percentage of the highest target."
+    } else {
+        "Each plot's rate is the mean of what the machine logged on the records it keeps. The curves place each treatment at its target rate; a treatment far from its target is a warning (adjust.rate_source = \"applied\" places it where it was applied). A zero target's difference is a percentage of the highest target."
+    };
+    (head, cells, words)
 }
 
 /// The input's price in words, for [`RateReport::input_price`].
@@ -162,6 +200,12 @@ pub fn markdown(s: &mut String, r: &RateReport, unit_label: &str, prices: Option
     let (head, cells) = curve_cells(r);
     super::markdown_table(s, &head, &cells, 2);
     let _ = writeln!(s);
+    if !r.applied.is_empty() {
+        let (head, cells, words) = applied_cells(r);
+        let _ = writeln!(s, "### As applied against target\n\n{words}\n");
+        super::markdown_table(s, &head, &cells, 1);
+        let _ = writeln!(s);
+    }
 }
 
 /// The HTML section, with the pooled curve and net return drawn.
@@ -222,6 +266,15 @@ pub fn html(s: &mut String, r: &RateReport, unit_label: &str, prices: Option<Str
     let _ = write!(s, "<h3>Response curves</h3>");
     let (head, cells) = curve_cells(r);
     table(s, &head, &cells, 2);
+    if !r.applied.is_empty() {
+        let (head, cells, words) = applied_cells(r);
+        let _ = write!(
+            s,
+            "<h3>As applied against target</h3><p class=\"note\">{}</p>",
+            esc(words)
+        );
+        table(s, &head, &cells, 1);
+    }
     let _ = write!(s, "</section>");
 }
 

@@ -42,6 +42,20 @@ pub(super) struct Field {
     pub layout: Vec<Vec<usize>>,
     /// Per block and column, the plot's own yield noise, kg/ha.
     pub plot_noise: Vec<Vec<f64>>,
+    /// Per block and column, the as-applied N rate (`--applied`; empty without it).
+    pub applied: Vec<Vec<f64>>,
+}
+
+impl Field {
+    /// The true effect of the treatment in plot (b, c), kg/ha before `effect_scale` is
+    /// applied to a product's: with `--applied`, the response at the plot's applied rate.
+    fn effect(&self, o: &SimOptions, b: usize, c: usize) -> f64 {
+        let t = self.layout[b][c];
+        match self.applied.get(b) {
+            Some(row) => super::true_rate_gain(row[c], o.effect_scale),
+            None => super::treatments(o)[t].1 * o.effect_scale,
+        }
+    }
 }
 
 impl Field {
@@ -135,7 +149,8 @@ pub(super) fn plots(
     for b in 0..o.blocks {
         for c in 0..ncol {
             let id = format!("{fname}-{}{:02}", b + 1, c + 1);
-            let (t, eff) = super::treatments(o)[layout[b][c]];
+            let t = super::treatments(o)[layout[b][c]].0;
+            let eff = field.effect(o, b, c);
             let _ = writeln!(design, "{id},{t},{},{fname}", b + 1);
             let u0 = headland + b as f64 * (o.plot_length_m + alley);
             let (u1, v0, v1) = (
@@ -172,11 +187,15 @@ pub(super) fn plots(
             let (cu, cv) = (0.5 * (u0 + u1), 0.5 * (v0 + v1));
             let (ce, cn) = frame.en(cu, cv);
             let tr = trend.at(ce, cn);
-            truth_plots.push(json!({
+            let mut truth = json!({
                 "plot_id": id, "field": fname, "treatment": t, "block": (b + 1).to_string(),
                 "trend_t_ha": tr / 1000.0,
-                "true_yield_t_ha": (base + tr + eff * o.effect_scale + plot_noise[b][c]) / 1000.0,
-            }));
+                "true_yield_t_ha": (base + tr + eff + plot_noise[b][c]) / 1000.0,
+            });
+            if let Some(row) = field.applied.get(b) {
+                truth["applied_kg_ha"] = json!(row[c]);
+            }
+            truth_plots.push(truth);
         }
     }
 }
@@ -239,9 +258,7 @@ pub(super) fn passes(rng: &mut Rng, site: &Site, field: &Field, t0: f64) -> Vec<
                 + trend.at(e, n)
                 + field
                     .plot_at(site, pu, v)
-                    .map(|(b, c)| {
-                        super::treatments(o)[layout[b][c]].1 * o.effect_scale + plot_noise[b][c]
-                    })
+                    .map(|(b, c)| field.effect(o, b, c) + plot_noise[b][c])
                     .unwrap_or(0.0)
                 + o.point_noise_kg_ha * rng.normal();
             let m = (18.0 + moist.at(e, n) + 0.2 * rng.normal()).clamp(14.0, 24.0);
@@ -266,11 +283,14 @@ pub(super) fn passes(rng: &mut Rng, site: &Site, field: &Field, t0: f64) -> Vec<
             if k == partial_pass {
                 labels.push("partial_swath");
             }
-            let label = field
-                .plot_at(site, pu, v)
-                .map(|(b, c)| super::treatments(site.o)[layout[b][c]].0);
+            let cell = field.plot_at(site, pu, v);
+            let label = cell.map(|(b, c)| super::treatments(site.o)[layout[b][c]].0);
+            let applied = cell
+                .and_then(|(b, c)| field.applied.get(b).map(|row| row[c]))
+                .unwrap_or(f64::NAN);
             rows.push(Rec {
                 label,
+                applied,
                 t,
                 pu,
                 v,
@@ -314,6 +334,7 @@ pub(super) fn passes(rng: &mut Rng, site: &Site, field: &Field, t0: f64) -> Vec<
                 let pv = v + r * (1.0 - a.cos());
                 rows.push(Rec {
                     label: None,
+                    applied: f64::NAN,
                     t,
                     pu,
                     v: pv,
@@ -433,6 +454,22 @@ pub(super) fn export(
             _ => ",treatment\n",
         });
     }
+    if o.applied {
+        csv.pop();
+        csv.push_str(match o.form {
+            SimForm::DistanceText => ";Applied_N_kg_ha\n",
+            SimForm::Shapefile => ",applied_n\n",
+            _ => ",applied_n_kg_ha\n",
+        });
+    }
+    // The spreader's log varies a little along a plot (1 % per record), from its own stream.
+    let mut spread = crate::util::Rng::new(
+        o.seed.wrapping_mul(999_983).wrapping_add(
+            fname
+                .bytes()
+                .fold(0u64, |h, b| h.wrapping_mul(31).wrapping_add(b as u64)),
+        ),
+    );
     let file_name = format!(
         "monitor/field-{fname}.{}",
         match o.form {
@@ -537,6 +574,25 @@ pub(super) fn export(
                 ','
             });
             csv.push_str(rows[i].label.unwrap_or(""));
+            csv.push('\n');
+        }
+        if o.applied {
+            csv.pop();
+            csv.push(if o.form == SimForm::DistanceText {
+                ';'
+            } else {
+                ','
+            });
+            let a = rows[i].applied;
+            if a.is_finite() {
+                let logged = (a * (1.0 + 0.01 * spread.normal())).max(0.0);
+                let text = format!("{logged:.2}");
+                csv.push_str(&if o.form == SimForm::DistanceText {
+                    text.replace('.', ",")
+                } else {
+                    text
+                });
+            }
             csv.push('\n');
         }
     }

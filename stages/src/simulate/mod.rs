@@ -72,6 +72,11 @@ pub struct SimOptions {
     /// steps of 40) on the true quadratic-plateau curve [`true_rate_gain`], with grain and N
     /// prices in the trial file (see [`RATE_TRUTH`]).
     pub rates: bool,
+    /// With `rates`: the spreader's as-applied N rate logged on each record (a last
+    /// `applied_n_kg_ha` column, empty outside plots; not for the task-data form). Each
+    /// plot's applied rate is its target x [`APPLIED_FACTORS`] x (1 + 3 % noise), the yield
+    /// responds to the applied rate, and truth.json gives each plot's.
+    pub applied: bool,
 }
 
 crate::choice! {
@@ -119,6 +124,7 @@ impl Default for SimOptions {
             labels: false,
             prescription: false,
             rates: false,
+            applied: false,
         }
     }
 }
@@ -145,6 +151,28 @@ pub const RATE_TREATMENTS: &[(&str, f64)] = &[
     ("N200", 1800.0),
 ];
 pub const RATES_KG_HA: [f64; 6] = [0.0, 40.0, 80.0, 120.0, 160.0, 200.0];
+
+/// `--applied`: the spreader's calibration per treatment (as-applied / target): N120 is
+/// under-applied by 15 %, the others on target.
+pub const APPLIED_FACTORS: [f64; 6] = [1.0, 1.0, 1.0, 0.85, 1.0, 1.0];
+
+/// `--applied`: each plot's as-applied N rate (kg/ha) per block and column, drawn from its
+/// own stream so the rest of the trial is drawn as without it.
+fn applied_rates(o: &SimOptions, field: usize, layout: &[Vec<usize>]) -> Vec<Vec<f64>> {
+    let mut rng = Rng::new(
+        o.seed
+            .wrapping_mul(1_000_003)
+            .wrapping_add(7 + field as u64),
+    );
+    layout
+        .iter()
+        .map(|row| {
+            row.iter()
+                .map(|&t| RATES_KG_HA[t] * APPLIED_FACTORS[t] * (1.0 + 0.03 * rng.normal()))
+                .collect()
+        })
+        .collect()
+}
 
 /// The invented truth of a rate trial: a quadratic-plateau response (rise to the plateau,
 /// kg/ha; the join, kg N/ha) and the prices (grain per tonne, N per kg).
@@ -281,6 +309,11 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         let trend = Trend::new(&mut rng, 70.0, o.trend_sd_kg_ha);
         let moist = Trend::new(&mut rng, 120.0, 2.5);
         let (layout, plot_noise) = harvest::layout(&mut rng, o, ncol);
+        let applied = if o.applied {
+            applied_rates(o, f, &layout)
+        } else {
+            Vec::new()
+        };
         let field = harvest::Field {
             name: fname,
             frame,
@@ -288,6 +321,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             moist,
             layout,
             plot_noise,
+            applied,
         };
         harvest::plots(&site, &field, &mut design, &mut features, &mut truth_plots);
         let mut rows = harvest::passes(&mut rng, &site, &field, t_start + 7200.0 * f as f64);
@@ -338,6 +372,9 @@ pub fn generate(o: &SimOptions) -> SimTrial {
             "n_price_per_kg": t.n_price_per_kg,
             "optimum_kg_ha": true_rate_optimum(o.effect_scale),
         });
+        if o.applied {
+            truth["response"]["applied_factors"] = json!(APPLIED_FACTORS);
+        }
     }
     files.push((
         "truth.json".into(),
@@ -353,6 +390,8 @@ pub fn generate(o: &SimOptions) -> SimTrial {
 struct Rec {
     /// The treatment of the plot the record was cut in.
     label: Option<&'static str>,
+    /// That plot's as-applied rate (`--applied`; NaN outside plots or without it).
+    applied: f64,
     t: f64,
     pu: f64,
     v: f64,

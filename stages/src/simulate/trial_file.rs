@@ -72,6 +72,9 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
     if o.rates {
         how += " --rates";
     }
+    if o.applied {
+        how += " --applied";
+    }
     // Plots as polygons with a design table, or built from the records' labels.
     let plots = if o.prescription {
         "prescription = \"prescription.geojson\"\nprescription_property = \"product\"\n"
@@ -85,6 +88,15 @@ pub(super) fn trial_toml(o: &SimOptions) -> String {
         (true, SimForm::DistanceText) => "treatment = \"Treatment\"\n",
         (true, _) => "treatment = \"treatment\"\n",
     };
+    let applied = match (o.applied, o.form) {
+        (false, _) => "",
+        (true, SimForm::DistanceText) => {
+            "applied_rate = { name = \"Applied_N_kg_ha\", unit = \"kg_ha\" }\n"
+        }
+        (true, SimForm::Shapefile) => "applied_rate = { name = \"applied_n\", unit = \"kg_ha\" }\n",
+        (true, _) => "applied_rate = { name = \"applied_n_kg_ha\", unit = \"kg_ha\" }\n",
+    };
+    let label = format!("{label}{applied}");
     let columns = match o.form {
         SimForm::Text | SimForm::GeoPackage => TEXT_COLUMNS,
         // Task data names its quantities by DDI: no [columns] section.

@@ -160,6 +160,7 @@ pub(crate) mod testing {
                 work_state: f64::NAN,
                 hdop: f64::NAN,
                 fix_quality: f64::NAN,
+                applied_rate: f64::NAN,
                 yield_kg_ha: f64::NAN,
             })
             .collect()

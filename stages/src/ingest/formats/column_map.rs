@@ -22,7 +22,7 @@ pub(super) struct ColumnIndex {
     /// None: a yield-point export without moisture.
     pub(super) moisture: Option<usize>,
     /// Optional columns: (index, name) when mapped.
-    pub(super) optional: [Option<(usize, String)>; 3],
+    pub(super) optional: [Option<(usize, String)>; 4],
     /// Treatment, strip and replicate label columns when mapped (strip trials without
     /// plot polygons).
     pub(super) labels: [Option<usize>; 3],
@@ -130,12 +130,19 @@ pub(super) fn column_index(
             (&c.work_state, "work_state"),
             (&c.hdop, "hdop"),
             (&c.fix_quality, "fix_quality"),
+            (
+                c.applied_rate
+                    .as_ref()
+                    .map(|a| &a.name)
+                    .unwrap_or(&String::new()),
+                "applied_rate.name",
+            ),
         ]
         .map(|(name, key)| opt(name, key).map(|i| i.map(|i| (i, name.clone()))))
         .into_iter()
         .collect::<Result<Vec<_>, _>>()?
         .try_into()
-        .expect("three optional columns"),
+        .expect("four optional columns"),
         labels: [
             opt(&c.treatment, "treatment")?,
             opt(&c.strip, "strip")?,

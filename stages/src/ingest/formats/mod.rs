@@ -105,8 +105,10 @@ pub struct RawPoint {
     pub speed_m_s: f64,
     pub width_m: f64,
     pub moisture_pct: f64,
-    /// Work state, HDOP, fix quality; NaN where the export has no such column.
-    pub optional: [f64; 3],
+    /// Work state, HDOP, fix quality and the as-applied rate (base units per hectare, see
+    /// [`crate::ingest::settings::AppliedRateColumn`]); NaN where the export has no such column (or,
+    /// for the rate, an empty cell).
+    pub optional: [f64; 4],
     /// Yield at standard moisture, kg/ha, of a yield-point export; NaN otherwise.
     pub yield_kg_ha: f64,
     /// Index into [`ExportRead::labels`]: the record's treatment, strip and replicate
@@ -384,7 +386,7 @@ mod tests {
                 speed_m_s: f64::NAN,
                 width_m: 9.0,
                 moisture_pct: 18.0,
-                optional: [f64::NAN; 3],
+                optional: [f64::NAN; 4],
                 yield_kg_ha: f64::NAN,
                 label: 0,
             });

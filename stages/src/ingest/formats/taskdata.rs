@@ -368,7 +368,7 @@ fn read_log(
             speed_m_s: value(picks.speed).map_or(f64::NAN, |v| v * 1e-3),
             width_m: value(picks.width).map_or(fixed_width_m, |v| v * 1e-3),
             moisture_pct: moisture,
-            optional: [state, hdop, status],
+            optional: [state, hdop, status, f64::NAN],
             yield_kg_ha: given,
             label: 0,
         });

@@ -288,7 +288,7 @@ impl<'a> Rows<'a> {
         record: &csv::StringRecord,
         line: u64,
         vals: &mut [f64; MAX_NUMBERS],
-    ) -> Result<[f64; 3], Rejection> {
+    ) -> Result<[f64; 4], Rejection> {
         let unparseable =
             |cname: &str, text: &str| self.reject(line, "unparseable", cname, text, "a number");
         for (k, (ci, cname)) in self.cols.iter().enumerate() {
@@ -297,14 +297,25 @@ impl<'a> Rows<'a> {
                 None => return Err(unparseable(cname, &record[*ci])),
             }
         }
-        let mut optional = [f64::NAN; 3];
+        let mut optional = [f64::NAN; 4];
         for (k, o) in self.idx.optional.iter().enumerate() {
             if let Some((ci, cname)) = o {
-                match number(&record[*ci], self.comma) {
+                let text = &record[*ci];
+                // An as-applied rate may be missing where nothing was applied or logged.
+                if k == 3 && text.trim().is_empty() {
+                    continue;
+                }
+                match number(text, self.comma) {
+                    Some(v) if k == 3 && v < 0.0 => {
+                        return Err(self.reject(line, "negative_value", cname, text, ">= 0"))
+                    }
                     Some(v) => optional[k] = v,
-                    None => return Err(unparseable(cname, &record[*ci])),
+                    None => return Err(unparseable(cname, text)),
                 }
             }
+        }
+        if let Some(a) = &self.c.applied_rate {
+            optional[3] *= a.to_per_ha();
         }
         Ok(optional)
     }

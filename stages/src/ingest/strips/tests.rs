@@ -18,6 +18,7 @@ fn pt(file: u32, t: f64, x: f64, y: f64, w: f64) -> Point {
         work_state: 1.0,
         hdop: f64::NAN,
         fix_quality: f64::NAN,
+        applied_rate: f64::NAN,
         yield_kg_ha: f64::NAN,
     }
 }
