@@ -6,6 +6,7 @@
 mod common;
 
 mod adjust;
+mod applied_rates;
 mod calibration;
 mod catalogue;
 mod cleaning;
