@@ -76,6 +76,11 @@ pub(crate) struct SeasonMeta {
     /// "kg", "lb", "l" or "1000_seeds" [default: "kg"].
     #[serde(default)]
     pub(crate) input_price_unit: Option<plotsieve_stages::crop::InputUnit>,
+    /// Fit the season without trials whose run did not finish (no run folder, or a stage
+    /// failed or stale), each left out with a warning naming it and the stage; otherwise
+    /// such a trial is an error.
+    #[serde(default)]
+    pub(crate) allow_failed_trials: bool,
 }
 
 #[derive(Debug, Deserialize)]

@@ -72,6 +72,12 @@ enum Command {
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
     },
+    /// Print every file a run of the trial reads, one per line, the trial file first (for a
+    /// workflow engine's inputs; paths as the trial file's path gives them).
+    Inputs {
+        /// Trial configuration (TOML).
+        trial: PathBuf,
+    },
     /// Write a complete invented trial (exports, plots, design, trial.toml, truth.json).
     Simulate {
         /// Folder to write to (created; existing files of the same names are replaced).
@@ -154,6 +160,11 @@ enum Command {
         /// Season file listing the trials ([[trial]] file = ..., out = ...); each trial must
         /// have been run into its `out` folder.
         season: PathBuf,
+        /// Fit nothing: remove the season folder (under its lock), so that it cannot be
+        /// taken for the result of trials that have changed or failed since (a workflow
+        /// engine calls this when a trial job fails).
+        #[arg(long)]
+        withdraw: bool,
     },
 }
 
@@ -185,8 +196,21 @@ fn main() -> ExitCode {
             set,
         } => run::run_one(name, &trial, out, &set, cli.quiet),
         Command::Check { trial, set } => check::check(&trial, &set),
+        Command::Inputs { trial } => trial::load(&trial, &[])
+            .and_then(|t| trial::input_paths(&t))
+            .map(|paths| {
+                for p in paths {
+                    println!("{}", p.display());
+                }
+            }),
         Command::Intake { inbox, season } => intake::intake(&inbox, &season, cli.quiet),
-        Command::Season { season } => season::season(&season, cli.quiet),
+        Command::Season { season, withdraw } => {
+            if withdraw {
+                season::withdraw(&season)
+            } else {
+                season::season(&season, cli.quiet)
+            }
+        }
         Command::Simulate {
             dir,
             seed,

@@ -107,6 +107,42 @@ fn read_trial(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Result<Trial
     })
 }
 
+/// Why a trial's run did not finish, naming the stage and its error from the run's
+/// manifest; None when its adjust stage is done.
+fn unfinished_run(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Option<String> {
+    let out = season_dir.join(&t.out);
+    let manifest = match crate::trial::read_manifest(&out) {
+        Ok(Some(m)) => m,
+        Ok(None) => return Some(format!("run folder {} has no manifest.json", out.display())),
+        Err(e) => return Some(format!("{e:#}")),
+    };
+    if manifest
+        .stages
+        .get("adjust")
+        .is_some_and(|r| r.status == "done")
+    {
+        return None;
+    }
+    let failed = crate::stage::Stage::ALL.iter().find_map(|s| {
+        manifest
+            .stages
+            .get(s.name())
+            .filter(|r| r.status == "failed")
+            .map(|r| (s, r))
+    });
+    Some(match failed {
+        Some((s, r)) => format!("its run failed at stage {}: {}", s.name(), r.error),
+        None => format!(
+            "its adjust stage in {} is {}",
+            out.join("manifest.json").display(),
+            manifest
+                .stages
+                .get("adjust")
+                .map_or("missing", |r| r.status.as_str())
+        ),
+    })
+}
+
 /// Replace `out` by the folder `tmp` (a sibling). Refuses to replace a folder that is not a
 /// season folder.
 fn swap_in(tmp: &Path, out: &Path) -> Result<()> {
@@ -146,17 +182,46 @@ fn is_season_folder(out: &Path) -> bool {
         .is_some_and(|v| v.get("format").and_then(|f| f.as_str()) == Some(FORMAT))
 }
 
-/// `plotsieve season SEASON.toml`. On failure an earlier season folder is removed, so that
-/// it cannot be taken for the result of the trials as they are now.
-pub fn season(season_file: &Path, quiet: bool) -> Result<()> {
-    let (season, season_dir) = read_season(season_file)?;
-    let out = season_dir.join(
+/// The season's folder: `[season] out`, relative to the season file [default: season-run].
+fn season_out(season: &crate::intake::Season, season_dir: &Path) -> PathBuf {
+    season_dir.join(
         season
             .season
             .out
             .clone()
             .unwrap_or_else(|| PathBuf::from("season-run")),
+    )
+}
+
+/// `plotsieve season SEASON.toml --withdraw`: remove the season folder, saying so; a folder
+/// that is not a season folder is refused, a missing one is no error.
+pub fn withdraw(season_file: &Path) -> Result<()> {
+    let (season, season_dir) = read_season(season_file)?;
+    let out = season_out(&season, &season_dir);
+    let _lock = crate::lock::FolderLock::acquire(&out, "season folder")?;
+    if !out.exists() {
+        eprintln!("no season folder {} to withdraw", out.display());
+        return Ok(());
+    }
+    if !is_season_folder(&out) {
+        bail!(
+            "{} is not a season folder (no summary.json of format {FORMAT}); left as it is",
+            out.display()
+        );
+    }
+    std::fs::remove_dir_all(&out).with_context(|| format!("removing {}", out.display()))?;
+    eprintln!(
+        "withdrew the season folder {} so that it cannot be taken for a current result; fit the season again once its trials have run",
+        out.display()
     );
+    Ok(())
+}
+
+/// `plotsieve season SEASON.toml`. On failure an earlier season folder is removed, so that
+/// it cannot be taken for the result of the trials as they are now.
+pub fn season(season_file: &Path, quiet: bool) -> Result<()> {
+    let (season, season_dir) = read_season(season_file)?;
+    let out = season_out(&season, &season_dir);
     let _lock = crate::lock::FolderLock::acquire(&out, "season folder")?;
     match fit_and_write(season_file, &season, &season_dir, &out, quiet) {
         Ok(()) => Ok(()),
@@ -183,9 +248,27 @@ fn fit_and_write(
     if season.trial.is_empty() {
         bail!("{}: lists no [[trial]]", season_file.display());
     }
-    let trials: Vec<TrialRead> = season
-        .trial
-        .iter()
+    // Trials whose run did not finish: an error, or with allow_failed_trials left out loudly.
+    let mut left_out: Vec<String> = Vec::new();
+    let mut listed = Vec::new();
+    for t in &season.trial {
+        match unfinished_run(season_dir, t) {
+            Some(why) if meta.allow_failed_trials => left_out.push(format!(
+                "trial {} left out of the season (allow_failed_trials = true): {why}",
+                t.file.display()
+            )),
+            _ => listed.push(t),
+        }
+    }
+    if listed.is_empty() {
+        bail!(
+            "{}: no trial of the season finished its run:\n  {}",
+            season_file.display(),
+            left_out.join("\n  ")
+        );
+    }
+    let trials: Vec<TrialRead> = listed
+        .into_iter()
         .map(|t| read_trial(season_dir, t))
         .collect::<Result<_>>()?;
     let first = &trials[0];
@@ -193,7 +276,7 @@ fn fit_and_write(
     check_trials(&trials)?;
     let unit = YieldUnit::new(meta.output_unit.unwrap_or(first.unit), &first.crop);
     let k = unit.kg_ha_per_unit();
-    let mut warnings: Vec<String> = Vec::new();
+    let mut warnings: Vec<String> = left_out;
     let s = season_settings(season_file, meta, check, first, k)?;
     let locs = locations(&trials, &mut warnings);
     let fit = season::fit(&locs, &s).map_err(|e| anyhow!("{}: {e}", season_file.display()))?;

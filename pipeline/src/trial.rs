@@ -155,6 +155,30 @@ pub(crate) fn sha256_file(path: &Path) -> Result<(u64, String)> {
 }
 
 pub(crate) fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
+    let paths = input_paths(t)?;
+    // Files hashed in parallel (a harvest's exports are hundreds of MB), listed in order.
+    let hashed: Vec<Result<InputHash>> = paths
+        .par_iter()
+        .map(|p| {
+            let (bytes, sha256) = sha256_file(p)?;
+            let shown = p
+                .strip_prefix(&t.base)
+                .unwrap_or(p)
+                .to_string_lossy()
+                .replace('\\', "/");
+            Ok(InputHash {
+                path: shown,
+                bytes,
+                sha256,
+            })
+        })
+        .collect();
+    hashed.into_iter().collect()
+}
+
+/// Every file a run of the trial reads, the trial file first (as the manifest lists them;
+/// `plotsieve inputs` prints them for a workflow engine).
+pub(crate) fn input_paths(t: &Trial) -> Result<Vec<PathBuf>> {
     let mut paths = vec![t.path.clone()];
     if !t.cfg.inputs.plot_table.is_empty() {
         paths.push(t.base.join(&t.cfg.inputs.plot_table));
@@ -194,24 +218,7 @@ pub(crate) fn hash_inputs(t: &Trial) -> Result<Vec<InputHash>> {
         .flat_map(|p| ingest::layers::companions(p))
         .collect();
     paths.extend(sidecars);
-    // Files hashed in parallel (a harvest's exports are hundreds of MB), listed in order.
-    let hashed: Vec<Result<InputHash>> = paths
-        .par_iter()
-        .map(|p| {
-            let (bytes, sha256) = sha256_file(p)?;
-            let shown = p
-                .strip_prefix(&t.base)
-                .unwrap_or(p)
-                .to_string_lossy()
-                .replace('\\', "/");
-            Ok(InputHash {
-                path: shown,
-                bytes,
-                sha256,
-            })
-        })
-        .collect();
-    hashed.into_iter().collect()
+    Ok(paths)
 }
 
 pub(crate) fn read_manifest(out: &Path) -> Result<Option<Manifest>> {

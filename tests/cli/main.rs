@@ -27,3 +27,4 @@ mod season;
 mod settings;
 mod strips;
 mod warnings;
+mod workflow;
