@@ -238,8 +238,12 @@ fn main() -> ExitCode {
             Some(_) if !(5.0..=1000.0).contains(&plot_length) => Err(anyhow::anyhow!(
                 "--plot-length {plot_length}: expected 5-1000 metres"
             )),
-            Some(simulate::SimForm::TaskData) if applied => Err(anyhow::anyhow!(
-                "--applied goes with the text, distance_text, yield_points, geopackage and shapefile forms (the task-data writer logs no rate)"
+            Some(
+                simulate::SimForm::TaskData
+                | simulate::SimForm::GeoPackage
+                | simulate::SimForm::Shapefile,
+            ) if applied => Err(anyhow::anyhow!(
+                "--applied goes with the text, distance_text and yield_points forms (the layer and task-data writers write no empty rate cell)"
             )),
             Some(simulate::SimForm::TaskData) if labels => Err(anyhow::anyhow!(
                 "--labels goes with the text, distance_text, yield_points, geopackage and shapefile forms (task data carries no label column)"

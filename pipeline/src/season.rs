@@ -107,6 +107,35 @@ fn read_trial(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Result<Trial
     })
 }
 
+/// The trials to fit, and warnings for those left out: a trial whose run did not finish is
+/// left out with `allow_failed_trials` (an error when none remains), else kept (read_trial
+/// then refuses it).
+fn finished_trials<'a>(
+    season_file: &Path,
+    season: &'a crate::intake::Season,
+    season_dir: &Path,
+) -> Result<(Vec<&'a crate::intake::SeasonTrial>, Vec<String>)> {
+    let mut left_out: Vec<String> = Vec::new();
+    let mut listed = Vec::new();
+    for t in &season.trial {
+        match unfinished_run(season_dir, t) {
+            Some(why) if season.season.allow_failed_trials => left_out.push(format!(
+                "trial {} left out of the season (allow_failed_trials = true): {why}",
+                t.file.display()
+            )),
+            _ => listed.push(t),
+        }
+    }
+    if listed.is_empty() {
+        bail!(
+            "{}: no trial of the season finished its run:\n  {}",
+            season_file.display(),
+            left_out.join("\n  ")
+        );
+    }
+    Ok((listed, left_out))
+}
+
 /// Why a trial's run did not finish, naming the stage and its error from the run's
 /// manifest; None when its adjust stage is done.
 fn unfinished_run(season_dir: &Path, t: &crate::intake::SeasonTrial) -> Option<String> {
@@ -248,25 +277,7 @@ fn fit_and_write(
     if season.trial.is_empty() {
         bail!("{}: lists no [[trial]]", season_file.display());
     }
-    // Trials whose run did not finish: an error, or with allow_failed_trials left out loudly.
-    let mut left_out: Vec<String> = Vec::new();
-    let mut listed = Vec::new();
-    for t in &season.trial {
-        match unfinished_run(season_dir, t) {
-            Some(why) if meta.allow_failed_trials => left_out.push(format!(
-                "trial {} left out of the season (allow_failed_trials = true): {why}",
-                t.file.display()
-            )),
-            _ => listed.push(t),
-        }
-    }
-    if listed.is_empty() {
-        bail!(
-            "{}: no trial of the season finished its run:\n  {}",
-            season_file.display(),
-            left_out.join("\n  ")
-        );
-    }
+    let (listed, left_out) = finished_trials(season_file, season, season_dir)?;
     let trials: Vec<TrialRead> = listed
         .into_iter()
         .map(|t| read_trial(season_dir, t))

@@ -441,27 +441,7 @@ pub(super) fn export(
     let (mixed, flows_out, moist_out, hdop_out) =
         (&sensed.mixed, &sensed.flows, &sensed.moisture, &sensed.hdop);
     let n = rows.len();
-    let mut csv = String::from(match o.form {
-        SimForm::Text | SimForm::GeoPackage | SimForm::TaskData => "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
-        SimForm::DistanceText => "Date;Time;Longitude;Latitude;Flow_lb_s;Distance_in;Interval_s;Swath_ft;Moisture_pct;Heading_deg;Header;HDOP\n",
-        SimForm::YieldPoints => "time_utc,lon_deg,lat_deg,dry_yield_t_ha,moisture_pct,heading_deg,header_state\n",
-        SimForm::Shapefile => "time_utc,lon_deg,lat_deg,flow_lb_s,speed_mph,swath_ft,moist_pct,heading,header,hdop\n",
-    });
-    if o.labels {
-        csv.pop();
-        csv.push_str(match o.form {
-            SimForm::DistanceText => ";Treatment\n",
-            _ => ",treatment\n",
-        });
-    }
-    if o.applied {
-        csv.pop();
-        csv.push_str(match o.form {
-            SimForm::DistanceText => ";Applied_N_kg_ha\n",
-            SimForm::Shapefile => ",applied_n\n",
-            _ => ",applied_n_kg_ha\n",
-        });
-    }
+    let mut csv = header(o);
     // The spreader's log varies a little along a plot (1 % per record), from its own stream.
     let mut spread = crate::util::Rng::new(
         o.seed.wrapping_mul(999_983).wrapping_add(
@@ -567,34 +547,59 @@ pub(super) fn export(
             }
         }
         if o.labels {
-            csv.pop();
-            csv.push(if o.form == SimForm::DistanceText {
-                ';'
-            } else {
-                ','
-            });
-            csv.push_str(rows[i].label.unwrap_or(""));
-            csv.push('\n');
+            last_cell(&mut csv, o.form, rows[i].label.unwrap_or(""));
         }
         if o.applied {
-            csv.pop();
-            csv.push(if o.form == SimForm::DistanceText {
-                ';'
-            } else {
-                ','
-            });
             let a = rows[i].applied;
-            if a.is_finite() {
-                let logged = (a * (1.0 + 0.01 * spread.normal())).max(0.0);
-                let text = format!("{logged:.2}");
-                csv.push_str(&if o.form == SimForm::DistanceText {
-                    text.replace('.', ",")
-                } else {
-                    text
-                });
-            }
-            csv.push('\n');
+            let text = if a.is_finite() {
+                let logged = format!("{:.2}", (a * (1.0 + 0.01 * spread.normal())).max(0.0));
+                match o.form {
+                    SimForm::DistanceText => logged.replace('.', ","),
+                    _ => logged,
+                }
+            } else {
+                String::new()
+            };
+            last_cell(&mut csv, o.form, &text);
         }
     }
     (file_name, csv, labels_out, logged.len())
+}
+
+/// Append a last cell to the line just written (its delimiter first).
+fn last_cell(csv: &mut String, form: SimForm, text: &str) {
+    csv.pop();
+    csv.push(if form == SimForm::DistanceText {
+        ';'
+    } else {
+        ','
+    });
+    csv.push_str(text);
+    csv.push('\n');
+}
+
+/// The header line of an export in the simulator's form `o.form`.
+fn header(o: &SimOptions) -> String {
+    let mut csv = String::from(match o.form {
+        SimForm::Text | SimForm::GeoPackage | SimForm::TaskData => "time_utc,lon_deg,lat_deg,mass_flow_lb_s,speed_mph,swath_ft,moisture_pct,heading_deg,header_state,hdop\n",
+        SimForm::DistanceText => "Date;Time;Longitude;Latitude;Flow_lb_s;Distance_in;Interval_s;Swath_ft;Moisture_pct;Heading_deg;Header;HDOP\n",
+        SimForm::YieldPoints => "time_utc,lon_deg,lat_deg,dry_yield_t_ha,moisture_pct,heading_deg,header_state\n",
+        SimForm::Shapefile => "time_utc,lon_deg,lat_deg,flow_lb_s,speed_mph,swath_ft,moist_pct,heading,header,hdop\n",
+    });
+    if o.labels {
+        csv.pop();
+        csv.push_str(match o.form {
+            SimForm::DistanceText => ";Treatment\n",
+            _ => ",treatment\n",
+        });
+    }
+    if o.applied {
+        csv.pop();
+        csv.push_str(match o.form {
+            SimForm::DistanceText => ";Applied_N_kg_ha\n",
+            SimForm::Shapefile => ",applied_n\n",
+            _ => ",applied_n_kg_ha\n",
+        });
+    }
+    csv
 }

@@ -73,7 +73,7 @@ pub struct SimOptions {
     /// prices in the trial file (see [`RATE_TRUTH`]).
     pub rates: bool,
     /// With `rates`: the spreader's as-applied N rate logged on each record (a last
-    /// `applied_n_kg_ha` column, empty outside plots; not for the task-data form). Each
+    /// `applied_n_kg_ha` column, empty outside plots; text forms only). Each
     /// plot's applied rate is its target x [`APPLIED_FACTORS`] x (1 + 3 % noise), the yield
     /// responds to the applied rate, and truth.json gives each plot's.
     pub applied: bool,
@@ -362,19 +362,7 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         "artifacts": artifacts,
     });
     if o.rates {
-        let t = RATE_TRUTH;
-        truth["response"] = json!({
-            "curve": "quadratic_plateau",
-            "rates_kg_ha": RATES_KG_HA,
-            "rise_t_ha": t.rise_kg_ha * o.effect_scale / 1000.0,
-            "join_kg_ha": t.join_kg_ha,
-            "grain_price_per_t": t.grain_price_per_t,
-            "n_price_per_kg": t.n_price_per_kg,
-            "optimum_kg_ha": true_rate_optimum(o.effect_scale),
-        });
-        if o.applied {
-            truth["response"]["applied_factors"] = json!(APPLIED_FACTORS);
-        }
+        truth["response"] = rate_truth_json(o);
     }
     files.push((
         "truth.json".into(),
@@ -385,6 +373,24 @@ pub fn generate(o: &SimOptions) -> SimTrial {
         files,
         points: total_points,
     }
+}
+
+/// A rate trial's truth for truth.json: the curve, the prices, the true optimum.
+fn rate_truth_json(o: &SimOptions) -> serde_json::Value {
+    let t = RATE_TRUTH;
+    let mut v = json!({
+        "curve": "quadratic_plateau",
+        "rates_kg_ha": RATES_KG_HA,
+        "rise_t_ha": t.rise_kg_ha * o.effect_scale / 1000.0,
+        "join_kg_ha": t.join_kg_ha,
+        "grain_price_per_t": t.grain_price_per_t,
+        "n_price_per_kg": t.n_price_per_kg,
+        "optimum_kg_ha": true_rate_optimum(o.effect_scale),
+    });
+    if o.applied {
+        v["applied_factors"] = json!(APPLIED_FACTORS);
+    }
+    v
 }
 
 struct Rec {
