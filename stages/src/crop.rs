@@ -211,6 +211,12 @@ impl RateUnit {
         }
     }
 
+    /// Base units (kg, l or seeds) per hectare in one rate unit.
+    pub fn per_ha(self) -> f64 {
+        let (_, base, area) = self.parts();
+        base / area.ha()
+    }
+
     /// The cost per hectare of one rate unit at `price` per `unit`, or None when the price's
     /// quantity does not measure what the rate does (a price per litre for a rate in kg).
     pub fn cost_per_ha(self, price: f64, unit: InputUnit) -> Option<f64> {

@@ -165,14 +165,7 @@ fn as_applied_rates_are_summarised_per_plot_and_set_against_their_targets() {
 fn as_applied_settings_and_rates_that_cannot_be_used_are_refused_by_name() {
     let w = Workdir::new("applied-refused");
     let refused = |trial: &std::path::Path, sets: &[&str], want: &str| {
-        let mut args = vec!["run", trial.to_str().unwrap(), "--out", "run", "--quiet"];
-        for s in sets {
-            args.extend(["--set", s]);
-        }
-        let o = plotsieve(&w.0, &args);
-        let said = printed(&o);
-        assert!(!o.status.success(), "{sets:?}: {said}");
-        assert!(said.contains(want), "{sets:?}: {said}");
+        run_refused(&w, trial, "run", sets, want)
     };
     // Curves at as-applied means without an as-applied column.
     let plain = simulate(&w, "plain", &["--rates", "--seed", "5", "--blocks", "2"]);

@@ -385,6 +385,19 @@ pub fn run_trial(w: &Workdir, trial: &Path, out: &str, sets: &[&str]) -> Output 
     o
 }
 
+/// `plotsieve run TRIAL --out OUT --quiet` with `--set` for each of `sets`, which must fail
+/// saying `want`.
+pub fn run_refused(w: &Workdir, trial: &Path, out: &str, sets: &[&str], want: &str) {
+    let mut args = vec!["run", trial.to_str().unwrap(), "--out", out, "--quiet"];
+    for s in sets {
+        args.extend(["--set", s]);
+    }
+    let o = plotsieve(&w.0, &args);
+    let said = printed(&o);
+    assert!(!o.status.success(), "{sets:?}: {said}");
+    assert!(said.contains(want), "{sets:?}: {said}");
+}
+
 /// `plotsieve stage NAME TRIAL --out OUT --quiet` for each of `stages` in turn, each asserted
 /// to succeed.
 pub fn run_stages(w: &Workdir, trial: &Path, out: &str, stages: &[&str]) {

@@ -113,14 +113,7 @@ fn rate_settings_that_cannot_make_a_curve_are_refused_naming_the_key() {
         ),
     ];
     let refused = |trial: &std::path::Path, sets: &[&str], want: &str| {
-        let mut args = vec!["run", trial.to_str().unwrap(), "--out", "run", "--quiet"];
-        for s in sets {
-            args.extend(["--set", s]);
-        }
-        let o = plotsieve(&w.0, &args);
-        let said = printed(&o);
-        assert!(!o.status.success(), "{sets:?}: {said}");
-        assert!(said.contains(want), "{sets:?}: {said}");
+        run_refused(&w, trial, "run", sets, want);
         assert!(!w.path("run/4-adjust/response.csv").exists(), "{sets:?}");
     };
     for (sets, want) in cases {

@@ -10,12 +10,6 @@ use plotsieve_stages::util::fmt;
 use std::collections::HashMap;
 use std::path::Path;
 
-/// Base units (kg, l or seeds) per hectare in one `unit`.
-fn per_ha(unit: RateUnit) -> f64 {
-    let (_, base, area) = unit.parts();
-    base / area.ha()
-}
-
 /// Write the table (every plot, in plot order).
 pub fn write_plot_rates(path: &Path, plots: &[PlotStats], unit: RateUnit) -> Result<()> {
     let mut w = csv::Writer::from_writer(Vec::new());
@@ -29,7 +23,7 @@ pub fn write_plot_rates(path: &Path, plots: &[PlotStats], unit: RateUnit) -> Res
         &format!("applied_mean_{unit}"),
         &format!("applied_sd_{unit}"),
     ])?;
-    let f = per_ha(unit);
+    let f = unit.per_ha();
     for p in plots {
         let a = p.applied.clone().unwrap_or(AppliedRate {
             points: 0,
@@ -82,7 +76,7 @@ pub fn read_plot_rates(path: &Path, plots: &mut [PlotStats], unit: RateUnit) -> 
             )
         })
     };
-    let f = per_ha(unit);
+    let f = unit.per_ha();
     let mut by_id: HashMap<String, AppliedRate> = HashMap::new();
     for rec in r.records() {
         let rec = rec.with_context(|| format!("reading {}", path.display()))?;

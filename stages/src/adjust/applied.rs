@@ -32,11 +32,10 @@ pub struct AppliedRow {
 
 /// A plot's mean as-applied rate in `unit` (None without as-applied records).
 fn plot_rate(p: &PlotStats, unit: RateUnit) -> Option<f64> {
-    let (_, base, area) = unit.parts();
     p.applied
         .as_ref()
         .filter(|a| a.points > 0 && a.mean.is_finite())
-        .map(|a| a.mean / (base / area.ha()))
+        .map(|a| a.mean / unit.per_ha())
 }
 
 /// The rows per field and over the trial (`all`, last), for the treatments with a target

@@ -243,8 +243,7 @@ pub struct AppliedRateColumn {
 impl AppliedRateColumn {
     /// Factor from the column's unit to base units (kg, l or seeds) per hectare.
     pub fn to_per_ha(&self) -> f64 {
-        let (_, base, area) = self.unit.parts();
-        base / area.ha()
+        self.unit.per_ha()
     }
 }
 
