@@ -7,7 +7,6 @@ use crate::trial::{read_manifest, read_summary};
 use anyhow::Result;
 use plotsieve_stages::table::{Rejection, StageSummary};
 use plotsieve_stages::{clean, ingest, report};
-use std::collections::HashMap;
 use std::sync::Arc;
 
 /// Run the stage against the run folder.
@@ -49,21 +48,23 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     // for plot-table entry: no records, no polygons).
     let ing = out.join(Stage::Ingest.dir());
     // The records, the two rejection logs and the plot layer are read side by side.
+    // Of the rejection logs only the columns the maps take.
     let read_rejections = |st: Stage| {
-        io::read_table::<Rejection>(
+        io::read_table_columns::<Rejection>(
             &out.join(st.dir()).join("rejected.csv"),
             &shown,
             "rerun its stage",
+            &["source_file", "id", "rule"],
         )
     };
     let ((pts, polygons), (clean_rej, plots_rej)) = rayon::join(
         || {
             rayon::join(
-                || -> Result<plotsieve_stages::table::PointSet> {
+                || -> Result<Vec<plotsieve_stages::table::Point>> {
                     if c.table_entry() {
-                        Ok(plotsieve_stages::table::PointSet::default())
+                        Ok(Vec::new())
                     } else {
-                        io::read_points(&ing.join("points.parquet"), c.epsg()?)
+                        io::read_map_points(&ing.join("points.parquet"))
                     }
                 },
                 || -> Result<Vec<plotsieve_stages::table::PlotPolygon>> {
@@ -89,23 +90,28 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let (pts, polygons) = (pts?, polygons?);
     // The first rule (clean before plots) that removed each record, by point id: a log's id
     // names a record when it is the id's decimal text.
-    let mut removed: HashMap<u64, Arc<str>> = HashMap::new();
+    // Point ids are ingest's record numbers, so the rules go in a table by id (an id beyond
+    // every record's names none).
+    let ids = pts.iter().map(|p| p.id as usize + 1).max().unwrap_or(0);
+    let mut removed: Vec<Option<Arc<str>>> = vec![None; ids];
     for r in clean_rej?.into_iter().chain(plots_rej?) {
         if !r.id.is_empty() && *r.source_file != *cfg.design_name() {
-            if let Some(id) = r.id.parse::<u64>().ok().filter(|n| n.to_string() == r.id) {
-                removed.entry(id).or_insert(r.rule);
+            if let Some(slot) = point_id(&r.id).and_then(|id| removed.get_mut(id as usize)) {
+                slot.get_or_insert(r.rule);
             }
         }
     }
     let kept_rule: Arc<str> = Arc::from("");
     let map_points: Vec<report::html::MapPoint> = pts
-        .points
         .iter()
         .map(|p| report::html::MapPoint {
             x: p.x_m,
             y: p.y_m,
             yield_unit: unit.to_unit(clean::record_yield_kg_ha(p, crop)),
-            rule: removed.get(&p.id).unwrap_or(&kept_rule).clone(),
+            rule: removed[p.id as usize]
+                .as_ref()
+                .unwrap_or(&kept_rule)
+                .clone(),
         })
         .collect();
     drop(pts);
@@ -153,6 +159,15 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .insert("warnings_shown".into(), serde_json::json!(warnings.len()));
     io::write_json(&dir.join("summary.json"), &summary)?;
     Ok(summary)
+}
+
+/// The record a rejection's id names: the id is a point id's decimal text (digits, no sign,
+/// no leading zero) and not a plot's id.
+fn point_id(id: &str) -> Option<u64> {
+    let canonical = !id.is_empty()
+        && id.bytes().all(|b| b.is_ascii_digit())
+        && (id.len() == 1 || !id.starts_with('0'));
+    canonical.then(|| id.parse::<u64>().ok()).flatten()
 }
 
 /// Every stage's warnings, each led by its stage.
@@ -241,4 +256,30 @@ fn rate_dots(
             (a.adjusted.is_finite() && n > 0.0).then(|| (a.field.clone(), r, a.adjusted - sum / n))
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    #[test]
+    fn a_rejection_names_a_record_by_its_ids_decimal_text_only() {
+        // The same as parsing and comparing the number's text, without the text.
+        for id in [
+            "0",
+            "7",
+            "120",
+            "007",
+            "+5",
+            "-1",
+            "",
+            "1e3",
+            "P-12",
+            "18446744073709551615",
+            "18446744073709551616",
+            " 4",
+            "٣",
+        ] {
+            let reference = id.parse::<u64>().ok().filter(|n| n.to_string() == id);
+            assert_eq!(super::point_id(id), reference, "{id:?}");
+        }
+    }
 }

@@ -256,30 +256,26 @@ fn read_base<T>(
     let id = col_u64(df, "point_id", path)?;
     let row = col_u64(df, "source_row", path)?;
     let mut rows: Vec<T> = (0..idx.len())
-        .map(|i| {
-            new(Point {
-                id: id[i],
-                file: idx[i],
-                row: row[i],
-                time_s: f64::NAN,
-                lon: f64::NAN,
-                lat: f64::NAN,
-                x_m: f64::NAN,
-                y_m: f64::NAN,
-                flow_kg_s: f64::NAN,
-                speed_m_s: f64::NAN,
-                width_m: f64::NAN,
-                moisture_pct: f64::NAN,
-                work_state: f64::NAN,
-                hdop: f64::NAN,
-                fix_quality: f64::NAN,
-                applied_rate: f64::NAN,
-                yield_kg_ha: f64::NAN,
-            })
-        })
+        .map(|i| new(blank_point(id[i], idx[i], row[i])))
         .collect();
     drop((id, row, idx));
-    let fields: [(&str, fn(&mut Point, f64)); 12] = [
+    for (name, set) in point_values() {
+        // Yields given by a yield-point export and as-applied rates: their columns only
+        // where some record has one.
+        if OPTIONAL.contains(&name) && df.column(name).is_err() {
+            continue;
+        }
+        fill_f64(df, name, path, &mut rows, |r, v| set(base(r), v))?;
+    }
+    Ok((files, rows))
+}
+
+/// The value columns a point table may lack (written only where some record has a value).
+const OPTIONAL: [&str; 2] = ["yield_given_kg_ha", "applied_rate_per_ha"];
+
+/// Every value column of a point table and the field of a record it fills.
+fn point_values() -> [(&'static str, fn(&mut Point, f64)); 14] {
+    [
         ("time_s", |p, v| p.time_s = v),
         ("lon_deg", |p, v| p.lon = v),
         ("lat_deg", |p, v| p.lat = v),
@@ -292,22 +288,9 @@ fn read_base<T>(
         ("work_state", |p, v| p.work_state = v),
         ("hdop", |p, v| p.hdop = v),
         ("fix_quality", |p, v| p.fix_quality = v),
-    ];
-    for (name, set) in fields {
-        fill_f64(df, name, path, &mut rows, |r, v| set(base(r), v))?;
-    }
-    // Yields given by a yield-point export (the column only where there are some).
-    if df.column("yield_given_kg_ha").is_ok() {
-        fill_f64(df, "yield_given_kg_ha", path, &mut rows, |r, v| {
-            base(r).yield_kg_ha = v
-        })?;
-    }
-    if df.column("applied_rate_per_ha").is_ok() {
-        fill_f64(df, "applied_rate_per_ha", path, &mut rows, |r, v| {
-            base(r).applied_rate = v
-        })?;
-    }
-    Ok((files, rows))
+        ("yield_given_kg_ha", |p, v| p.yield_kg_ha = v),
+        ("applied_rate_per_ha", |p, v| p.applied_rate = v),
+    ]
 }
 
 /// Read ingest's points back.
@@ -319,6 +302,70 @@ pub fn read_points(path: &Path, epsg: u32) -> Result<PointSet> {
         points,
         epsg,
     })
+}
+
+/// A record with its id, file and row and every value missing.
+fn blank_point(id: u64, file: u32, row: u64) -> Point {
+    Point {
+        id,
+        file,
+        row,
+        time_s: f64::NAN,
+        lon: f64::NAN,
+        lat: f64::NAN,
+        x_m: f64::NAN,
+        y_m: f64::NAN,
+        flow_kg_s: f64::NAN,
+        speed_m_s: f64::NAN,
+        width_m: f64::NAN,
+        moisture_pct: f64::NAN,
+        work_state: f64::NAN,
+        hdop: f64::NAN,
+        fix_quality: f64::NAN,
+        applied_rate: f64::NAN,
+        yield_kg_ha: f64::NAN,
+    }
+}
+
+/// Ingest's records with only what the report's maps take: id, position and the values a
+/// record's yield comes from (every other value missing, file and row 0). Only those
+/// columns are read from the file.
+pub fn read_map_points(path: &Path) -> Result<Vec<Point>> {
+    let f = std::fs::File::open(path).with_context(|| {
+        format!(
+            "{} is missing: run stage ingest first (plotsieve stage ingest ...)",
+            path.display()
+        )
+    })?;
+    let mut reader = ParquetReader::new(f);
+    let schema = reader
+        .schema()
+        .with_context(|| format!("reading {}", path.display()))?;
+    let wanted = [
+        "x_m",
+        "y_m",
+        "flow_kg_s",
+        "speed_m_s",
+        "width_m",
+        "moisture_pct",
+        "yield_given_kg_ha",
+    ];
+    let values: Vec<_> = point_values()
+        .into_iter()
+        .filter(|(n, _)| wanted.contains(n) && (!OPTIONAL.contains(n) || schema.contains(n)))
+        .collect();
+    let mut names = vec!["point_id".to_string()];
+    names.extend(values.iter().map(|(n, _)| n.to_string()));
+    let mut df = reader
+        .with_columns(Some(names))
+        .finish()
+        .with_context(|| format!("reading {}", path.display()))?;
+    let id = col_u64(&mut df, "point_id", path)?;
+    let mut rows: Vec<Point> = id.into_iter().map(|i| blank_point(i, 0, 0)).collect();
+    for (name, set) in values {
+        fill_f64(&mut df, name, path, &mut rows, set)?;
+    }
+    Ok(rows)
 }
 
 /// What reading a point table back gives for `files` and for the records' given yields, made
@@ -497,6 +544,42 @@ mod tests {
         assert_eq!(mem_files, ["", "b.csv"]);
         assert_eq!(cf, mem_files);
         assert_eq!(format!("{cp:?}"), format!("{clean:?}"));
+        std::fs::remove_dir_all(&dir).ok();
+    }
+
+    #[test]
+    fn map_points_carry_the_full_reads_ids_positions_and_yield_values() {
+        let dir = std::env::temp_dir().join(format!("plotsieve-mappts-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("points.parquet");
+        // With given yields on some records, and without the column at all.
+        for given in [[2500.5, f64::NAN, 7.0], [f64::NAN; 3]] {
+            let set = PointSet {
+                files: vec!["a.csv".into(), "b.csv".into()],
+                points: (0..3)
+                    .map(|i| point(i, i as u32 % 2, given[i as usize]))
+                    .collect(),
+                epsg: 32614,
+            };
+            write_points(&path, &set).unwrap();
+            let full = read_points(&path, 32614).unwrap().points;
+            let map = read_map_points(&path).unwrap();
+            let want: Vec<Point> = full
+                .iter()
+                .map(|p| Point {
+                    x_m: p.x_m,
+                    y_m: p.y_m,
+                    flow_kg_s: p.flow_kg_s,
+                    speed_m_s: p.speed_m_s,
+                    width_m: p.width_m,
+                    moisture_pct: p.moisture_pct,
+                    yield_kg_ha: p.yield_kg_ha,
+                    ..blank_point(p.id, 0, 0)
+                })
+                .collect();
+            assert_eq!(format!("{map:?}"), format!("{want:?}"));
+            assert_eq!(map[0].yield_kg_ha.is_finite(), given[0].is_finite());
+        }
         std::fs::remove_dir_all(&dir).ok();
     }
 }

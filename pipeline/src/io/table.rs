@@ -119,6 +119,26 @@ pub fn write_table<T: Table>(path: &Path, rows: &[T], u: &YieldUnit) -> Result<(
 /// Read a table back by header name, yields to kg/ha. A missing file says `hint` (what to
 /// run); extra columns are ignored.
 pub fn read_table<T: Table>(path: &Path, u: &YieldUnit, hint: &str) -> Result<Vec<T>> {
+    read_columns_of(path, u, hint, None)
+}
+
+/// Read only the named columns of a table (the row's other fields keep their defaults), for
+/// a reader that needs a few columns of a long table; otherwise as [`read_table`].
+pub fn read_table_columns<T: Table>(
+    path: &Path,
+    u: &YieldUnit,
+    hint: &str,
+    names: &[&str],
+) -> Result<Vec<T>> {
+    read_columns_of(path, u, hint, Some(names))
+}
+
+fn read_columns_of<T: Table>(
+    path: &Path,
+    u: &YieldUnit,
+    hint: &str,
+    only: Option<&[&str]>,
+) -> Result<Vec<T>> {
     let unit = u.suffix();
     let mut rdr = csv::Reader::from_path(path)
         .with_context(|| format!("{} is missing: {hint}", path.display()))?;
@@ -126,7 +146,10 @@ pub fn read_table<T: Table>(path: &Path, u: &YieldUnit, hint: &str) -> Result<Ve
         .headers()
         .with_context(|| format!("reading {}", path.display()))?
         .clone();
-    let cols = T::columns(unit);
+    let mut cols = T::columns(unit);
+    if let Some(names) = only {
+        cols.retain(|c| names.contains(&c.name.as_str()));
+    }
     let mut idx = Vec::with_capacity(cols.len());
     for c in &cols {
         match header.iter().position(|h| h == c.name) {
@@ -225,6 +248,20 @@ mod tests {
             e.ends_with("line 2, column value_t_ha: expected a number, found \"lots\""),
             "{e}"
         );
+        // Only the named columns: a bad cell elsewhere is not read, the field keeps its
+        // default; a named column the file lacks is still an error.
+        let only: Vec<Pair> = read_table_columns(&p, &t_ha, "", &["name"]).unwrap();
+        assert_eq!(
+            only,
+            vec![Pair {
+                name: "a".into(),
+                value: 0.0
+            }]
+        );
+        let e = read_table_columns::<Pair>(&p, &bu_ac, "hint", &["value_bu_ac"])
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("no column value_bu_ac"), "{e}");
         std::fs::remove_dir_all(&dir).unwrap();
     }
 }

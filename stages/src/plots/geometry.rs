@@ -191,7 +191,6 @@ pub fn coverage(polygon: &[(f64, f64)], footprints: &[&[(f64, f64)]], cell: f64)
     if ring.first() != ring.last() {
         ring.push(ring[0]);
     }
-    let poly = Polygon::new(LineString::from(ring.clone()), vec![]);
     let (mut x0, mut y0, mut x1, mut y1) = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
     for &(x, y) in &ring {
         x0 = x0.min(x);
@@ -199,70 +198,126 @@ pub fn coverage(polygon: &[(f64, f64)], footprints: &[&[(f64, f64)]], cell: f64)
         x1 = x1.max(x);
         y1 = y1.max(y);
     }
-    let nx = ((x1 - x0) / cell).ceil().max(1.0) as usize;
-    let ny = ((y1 - y0) / cell).ceil().max(1.0) as usize;
-    let mut inside = vec![false; nx * ny];
-    let mut covered = vec![false; nx * ny];
-    let cx = |i: usize| x0 + (i as f64 + 0.5) * cell;
-    let cy = |j: usize| y0 + (j as f64 + 0.5) * cell;
-    let band = EXACT_BAND_M;
-    let mut xs: Vec<f64> = Vec::new();
-    for j in 0..ny {
-        let y = cy(j);
-        // A row through (or next to) a vertex, or crossing a nearly horizontal edge: exact.
-        let mut exact = false;
-        xs.clear();
-        for e in ring.windows(2) {
-            let (a, b) = (e[0], e[1]);
-            if (a.1 - y).abs() < band || (b.1 - y).abs() < band {
-                exact = true;
-            }
-            if (a.1 > y) != (b.1 > y) {
-                if (b.1 - a.1).abs() < FLAT_M {
-                    exact = true;
-                }
-                xs.push(a.0 + (y - a.1) * (b.0 - a.0) / (b.1 - a.1));
-            }
-        }
-        let row = &mut inside[j * nx..(j + 1) * nx];
-        if exact {
-            for (i, v) in row.iter_mut().enumerate() {
-                *v = poly.contains(&geo::Point::new(cx(i), y));
-            }
-            continue;
-        }
-        // Between each pair of sorted crossings (even-odd); centres next to one, exactly.
-        xs.sort_by(f64::total_cmp);
-        for pair in xs.chunks_exact(2) {
-            let (a, b) = (pair[0], pair[1]);
-            for i in cells_between(a - band, b + band, x0, cell, 0, nx) {
-                let x = cx(i);
-                row[i] = if (x - a).abs() < band || (x - b).abs() < band {
-                    poly.contains(&geo::Point::new(x, y))
-                } else {
-                    x > a && x < b
-                };
-            }
-        }
-    }
+    let r = Raster {
+        x0,
+        y0,
+        cell,
+        nx: ((x1 - x0) / cell).ceil().max(1.0) as usize,
+        ny: ((y1 - y0) / cell).ceil().max(1.0) as usize,
+    };
+    let inside = r.inside(&ring);
+    let mut covered = vec![false; r.nx * r.ny];
     let mut c: Vec<(f64, f64)> = Vec::new();
     for fp in footprints {
-        let (mut fx0, mut fy0, mut fx1, mut fy1) = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
-        for &(x, y) in fp.iter() {
-            fx0 = fx0.min(x);
-            fy0 = fy0.min(y);
-            fx1 = fx1.max(x);
-            fy1 = fy1.max(y);
-        }
-        let i0 = (((fx0 - x0) / cell).floor().max(0.0)) as usize;
-        let j0 = (((fy0 - y0) / cell).floor().max(0.0)) as usize;
-        let i1 = (((fx1 - x0) / cell).ceil().max(0.0) as usize).min(nx);
-        let j1 = (((fy1 - y0) / cell).ceil().max(0.0) as usize).min(ny);
         c.clear();
         c.extend_from_slice(fp);
         if signed_area(&c) < 0.0 {
             c.reverse();
         }
+        r.cover(&c, &inside, &mut covered);
+    }
+    let n_in = inside.iter().filter(|&&b| b).count();
+    if n_in == 0 {
+        return 0.0;
+    }
+    covered.iter().filter(|&&b| b).count() as f64 / n_in as f64
+}
+
+/// The coverage raster: `nx` x `ny` cells of `cell` metres from (`x0`, `y0`), by rows.
+struct Raster {
+    x0: f64,
+    y0: f64,
+    cell: f64,
+    nx: usize,
+    ny: usize,
+}
+
+impl Raster {
+    fn cx(&self, i: usize) -> f64 {
+        self.x0 + (i as f64 + 0.5) * self.cell
+    }
+
+    fn cy(&self, j: usize) -> f64 {
+        self.y0 + (j as f64 + 0.5) * self.cell
+    }
+
+    /// The cells whose centres lie inside the closed ring.
+    fn inside(&self, ring: &[(f64, f64)]) -> Vec<bool> {
+        let (nx, band) = (self.nx, EXACT_BAND_M);
+        let poly = Polygon::new(LineString::from(ring.to_vec()), vec![]);
+        let mut inside = vec![false; nx * self.ny];
+        let mut xs: Vec<f64> = Vec::new();
+        for j in 0..self.ny {
+            let y = self.cy(j);
+            // A row through (or next to) a vertex, or crossing a nearly horizontal edge: exact.
+            let mut exact = false;
+            xs.clear();
+            for e in ring.windows(2) {
+                let (a, b) = (e[0], e[1]);
+                if (a.1 - y).abs() < band || (b.1 - y).abs() < band {
+                    exact = true;
+                }
+                if (a.1 > y) != (b.1 > y) {
+                    if (b.1 - a.1).abs() < FLAT_M {
+                        exact = true;
+                    }
+                    xs.push(a.0 + (y - a.1) * (b.0 - a.0) / (b.1 - a.1));
+                }
+            }
+            let row = &mut inside[j * nx..(j + 1) * nx];
+            if exact {
+                for (i, v) in row.iter_mut().enumerate() {
+                    *v = poly.contains(&geo::Point::new(self.cx(i), y));
+                }
+                continue;
+            }
+            // Between each pair of sorted crossings (even-odd); centres next to one, exactly.
+            xs.sort_by(f64::total_cmp);
+            for pair in xs.chunks_exact(2) {
+                let (a, b) = (pair[0], pair[1]);
+                let mut one = |i: usize| {
+                    let x = self.cx(i);
+                    row[i] = if (x - a).abs() < band || (x - b).abs() < band {
+                        poly.contains(&geo::Point::new(x, y))
+                    } else {
+                        x > a && x < b
+                    };
+                };
+                // Cells whose centres lie at least the band inside both crossings are inside
+                // (one run, the centres growing with i); the others are decided one by one.
+                let cells = cells_between(a - band, b + band, self.x0, self.cell, 0, nx);
+                let (mut lo, mut hi) = (cells.start, cells.end);
+                while lo < hi && self.cx(lo) - a < band {
+                    one(lo);
+                    lo += 1;
+                }
+                while hi > lo && b - self.cx(hi - 1) < band {
+                    one(hi - 1);
+                    hi -= 1;
+                }
+                if lo < hi {
+                    row[lo..hi].fill(true);
+                }
+            }
+        }
+        inside
+    }
+
+    /// Mark the cells inside the plot that the convex footprint `c` (counterclockwise)
+    /// covers.
+    fn cover(&self, c: &[(f64, f64)], inside: &[bool], covered: &mut [bool]) {
+        let (nx, band) = (self.nx, EXACT_BAND_M);
+        let (mut fx0, mut fy0, mut fx1, mut fy1) = (f64::MAX, f64::MAX, f64::MIN, f64::MIN);
+        for &(x, y) in c {
+            fx0 = fx0.min(x);
+            fy0 = fy0.min(y);
+            fx1 = fx1.max(x);
+            fy1 = fy1.max(y);
+        }
+        let i0 = (((fx0 - self.x0) / self.cell).floor().max(0.0)) as usize;
+        let j0 = (((fy0 - self.y0) / self.cell).floor().max(0.0)) as usize;
+        let i1 = (((fx1 - self.x0) / self.cell).ceil().max(0.0) as usize).min(nx);
+        let j1 = (((fy1 - self.y0) / self.cell).ceil().max(0.0) as usize).min(self.ny);
         let n = c.len();
         // The exact test of a cell centre against every edge (counterclockwise: inside is
         // to the left of each).
@@ -273,7 +328,7 @@ pub fn coverage(polygon: &[(f64, f64)], footprints: &[&[(f64, f64)]], cell: f64)
             })
         };
         for j in j0..j1 {
-            let y = cy(j);
+            let y = self.cy(j);
             // Bounds on x from the edges that are not nearly horizontal; those that are
             // decide every cell exactly.
             let (mut lo, mut hi) = (f64::NEG_INFINITY, f64::INFINITY);
@@ -293,25 +348,40 @@ pub fn coverage(polygon: &[(f64, f64)], footprints: &[&[(f64, f64)]], cell: f64)
                     lo = lo.max(xc);
                 }
             }
-            for i in cells_between(lo - band, hi + band, x0, cell, i0, i1) {
+            let cells = cells_between(lo - band, hi + band, self.x0, self.cell, i0, i1);
+            // A cell not certainly inside the footprint: tested exactly.
+            let mut edge = |i: usize| {
                 let k = j * nx + i;
-                if covered[k] || !inside[k] {
-                    continue;
+                let x = self.cx(i);
+                if !covered[k] && inside[k] && x >= lo - band && x <= hi + band {
+                    covered[k] = hit(x, y);
                 }
-                let x = cx(i);
-                if x < lo - band || x > hi + band {
-                    continue;
-                }
-                let certain = x > lo + band && x < hi - band && !flat;
-                covered[k] = certain || hit(x, y);
+            };
+            if flat {
+                cells.for_each(&mut edge);
+                continue;
+            }
+            // The centres strictly within the bounds less the band are certainly inside and
+            // make one run of cells (the centres grow with i): the cells before and after
+            // it are tested one by one, the run is covered wherever the plot is.
+            let (mut a, mut b) = (cells.start, cells.end);
+            while a < b && self.cx(a) <= lo + band {
+                edge(a);
+                a += 1;
+            }
+            while b > a && self.cx(b - 1) >= hi - band {
+                edge(b - 1);
+                b -= 1;
+            }
+            if a >= b {
+                continue;
+            }
+            let (s, e) = (j * nx + a, j * nx + b);
+            for (c, &ins) in covered[s..e].iter_mut().zip(&inside[s..e]) {
+                *c |= ins;
             }
         }
     }
-    let n_in = inside.iter().filter(|&&b| b).count();
-    if n_in == 0 {
-        return 0.0;
-    }
-    covered.iter().filter(|&&b| b).count() as f64 / n_in as f64
 }
 
 /// The cells of a row, within `i0..i1`, whose centres (`x0 + (i + 0.5) cell`) may lie in

@@ -8,6 +8,7 @@ use super::{HtmlInput, MapPoint};
 use crate::adjust::AdjustedPlot;
 use crate::table::{PlotPolygon, PlotStats};
 use crate::util::fmt;
+use rayon::prelude::*;
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
 
@@ -89,8 +90,18 @@ pub(super) fn fields(s: &mut String, r: &HtmlInput) {
         yhi,
         by_x,
     };
-    for (field, idx) in &fields {
-        field_section(s, r, &sh, field, idx);
+    // Fields drawn in parallel, written in field order.
+    let fields: Vec<(&str, Vec<usize>)> = fields.into_iter().collect();
+    let sections: Vec<String> = fields
+        .par_iter()
+        .map(|(field, idx)| {
+            let mut t = String::new();
+            field_section(&mut t, r, &sh, field, idx);
+            t
+        })
+        .collect();
+    for t in sections {
+        s.push_str(&t);
     }
 }
 
