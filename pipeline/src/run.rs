@@ -16,6 +16,7 @@ use anyhow::{bail, Context, Result};
 use indicatif::{MultiProgress, ProgressBar, ProgressDrawTarget, ProgressStyle};
 use plotsieve_stages::config::TrialConfig;
 use plotsieve_stages::progress::{Event, Progress};
+use plotsieve_stages::table::StageSummary;
 use std::collections::BTreeMap;
 use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
@@ -99,6 +100,65 @@ fn progress(n: u64, quiet: bool) -> (MultiProgress, ProgressBar, ProgressBar) {
     (mp, pb, inner)
 }
 
+/// A stage done computing whose files may still be being written.
+struct Finishing {
+    stage: Stage,
+    summary: StageSummary,
+    /// Seconds from its start to the end of its computing.
+    seconds: f64,
+    later: glue::Later,
+}
+
+/// Waits for the stage's files, then records it done in the manifest (its seconds count the
+/// wait); a failed write records it failed, clears its folder and returns the error.
+fn finish(
+    w: Finishing,
+    t: &Trial,
+    out: &Path,
+    stages: &[Stage],
+    manifest: &mut Manifest,
+) -> Result<()> {
+    let start = Instant::now();
+    let Finishing {
+        stage,
+        summary,
+        seconds,
+        later,
+    } = w;
+    if let Err(e) = later.finish() {
+        let e = e.context(format!("stage {}", stage.name()));
+        clear_stage(out, stage)?;
+        manifest
+            .stages
+            .insert(stage.name().into(), unfinished("failed", format!("{e:#}")));
+        io::write_json(&out.join("manifest.json"), manifest)?;
+        return Err(e);
+    }
+    let seconds = seconds + start.elapsed().as_secs_f64();
+    manifest.stages.insert(
+        stage.name().into(),
+        StageRecord {
+            status: "done".into(),
+            seconds: (seconds * 1000.0).round() / 1000.0,
+            unit: summary.unit.clone(),
+            count_in: summary.count_in,
+            kept: summary.kept,
+            rejected: summary.rejected,
+            settings: settings_of(&t.cfg, stage),
+            error: String::new(),
+        },
+    );
+    for later in Stage::ALL.iter().filter(|s| **s > stage) {
+        if let Some(r) = manifest.stages.get_mut(later.name()) {
+            if !stages.contains(later) {
+                r.status = "stale".into();
+            }
+        }
+    }
+    manifest.config = serde_json::to_value(&t.cfg)?;
+    io::write_json(&out.join("manifest.json"), manifest)
+}
+
 /// Run the given stages in order, updating the manifest after each.
 fn run_stages(
     stages: &[Stage],
@@ -120,6 +180,9 @@ fn run_stages(
     });
     // Point tables handed from one stage to the next (each stage still writes its files).
     let handoff = std::sync::Mutex::new(glue::Handoff::default());
+    // The stage before, done computing, whose files may still be being written while this
+    // one runs: recorded done once they are (see `glue::Later`).
+    let mut writing: Option<Finishing> = None;
     for &stage in stages {
         pb.set_message(stage.name());
         inner.set_message("");
@@ -141,10 +204,28 @@ fn run_stages(
             .insert(stage.name().into(), unfinished("running", String::new()));
         io::write_json(&out.join("manifest.json"), &manifest)?;
         let start = Instant::now();
-        let summary = match glue::execute(stage, t, out, &report, &handoff) {
+        let later = glue::Later::default();
+        let result = glue::execute(stage, t, out, &report, &handoff, &later);
+        let seconds = start.elapsed().as_secs_f64();
+        // The stage before is recorded done once its files are written (or failed).
+        if let Some(w) = writing.take() {
+            if let Err(e) = finish(w, t, out, stages, &mut manifest) {
+                later.finish().ok();
+                clear_stage(out, stage)?;
+                manifest.stages.insert(
+                    stage.name().into(),
+                    unfinished("stale", "the stage before it failed".into()),
+                );
+                io::write_json(&out.join("manifest.json"), &manifest)?;
+                return Err(e);
+            }
+        }
+        let summary = match result {
             Ok(s) => s,
             Err(e) => {
                 let e = e.context(format!("stage {}", stage.name()));
+                // Files it left to be written are waited for before its folder is cleared.
+                later.finish().ok();
                 clear_stage(out, stage)?;
                 manifest
                     .stages
@@ -157,29 +238,23 @@ fn run_stages(
         for w in summary.warnings() {
             eprintln!("warning: stage {}: {w}", stage.name());
         }
-        manifest.stages.insert(
-            stage.name().into(),
-            StageRecord {
-                status: "done".into(),
-                seconds: (start.elapsed().as_secs_f64() * 1000.0).round() / 1000.0,
-                unit: summary.unit.clone(),
-                count_in: summary.count_in,
-                kept: summary.kept,
-                rejected: summary.rejected,
-                settings: settings_of(&t.cfg, stage),
-                error: String::new(),
-            },
-        );
-        for later in Stage::ALL.iter().filter(|s| **s > stage) {
-            if let Some(r) = manifest.stages.get_mut(later.name()) {
-                if !stages.contains(later) {
-                    r.status = "stale".into();
-                }
-            }
+        let done = Finishing {
+            stage,
+            summary,
+            seconds,
+            later,
+        };
+        // A stage with every file written is recorded done now (the report reads the
+        // manifest's record of the stage before it).
+        if done.later.is_empty() {
+            finish(done, t, out, stages, &mut manifest)?;
+        } else {
+            writing = Some(done);
         }
-        manifest.config = serde_json::to_value(&t.cfg)?;
-        io::write_json(&out.join("manifest.json"), &manifest)?;
         pb.inc(1);
+    }
+    if let Some(w) = writing.take() {
+        finish(w, t, out, stages, &mut manifest)?;
     }
     inner.finish_and_clear();
     pb.finish_and_clear();

@@ -31,7 +31,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let ing = out.join(Stage::Ingest.dir());
     let pts = match c.take_ingested() {
         Some(p) => p,
-        None => io::read_points(&ing.join("points.parquet"), c.epsg()?)?,
+        None => std::sync::Arc::new(io::read_points(&ing.join("points.parquet"), c.epsg()?)?),
     };
     // The plots by treatment, so that rules comparing a record with its neighbours never
     // compare across treatments.
@@ -44,29 +44,21 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let zones = clean::zones::Zones::new(&polygons, &design);
     let o = clean::run_with(&pts, &cfg.clean, crop, Some(&zones), progress);
     // The kept points carry their records: the records read back are no longer needed.
-    let files = pts.files;
-    drop(pts.points);
+    let files = pts.files.clone();
+    drop(pts);
     let y: Vec<f64> = o
         .points
         .iter()
         .map(|p| unit.to_unit(p.yield_std_kg_ha))
         .collect();
     let col = format!("yield_{}", unit.suffix());
-    // The point table and the rejection log are independent: written side by side.
-    let (points, tables) = rayon::join(
-        || {
-            io::write_clean_points(
-                &dir.join("points.parquet"),
-                &files,
-                &o.points,
-                Some((&col, y)),
-                None,
-            )
-        },
-        || write_stage_tables(dir, &o.rejections, &o.summary),
-    );
-    points?;
-    tables?;
-    c.hand_cleaned(&files, o.points);
+    // The point table and the rejection log are written on threads of their own while the
+    // next stage runs on the points handed to it (the same points: see `Ctx::hand_cleaned`).
+    let points = c.hand_cleaned(&files, o.points);
+    let path = dir.join("points.parquet");
+    c.write_later(move || io::write_clean_points(&path, &files, &points, Some((&col, y)), None));
+    let (dir, rejections) = (dir.clone(), o.rejections);
+    let summary = o.summary.clone();
+    c.write_later(move || write_stage_tables(&dir, &rejections, &summary));
     Ok(o.summary)
 }

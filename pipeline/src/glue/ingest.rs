@@ -18,30 +18,26 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     }
     let o = ingest::run_with(&cfg.for_ingest(), &t.base, progress)?;
     let utm = plotsieve_stages::projection::Utm::from_epsg(o.points.epsg)?;
-    // The stage's files are independent of each other: the point table is written beside
-    // the rest.
-    let (points, rest) = rayon::join(
-        || io::write_points(&dir.join("points.parquet"), &o.points),
-        || -> Result<()> {
-            io::write_projected_plots(&dir.join("plots.geojson"), &o.polygons, o.points.epsg)?;
-            io::write_plots_wgs84(
-                &dir.join("plots_wgs84.geojson"),
-                &utm,
-                o.polygons.iter().map(|p| {
-                    (
-                        p.plot_id.as_str(),
-                        p.exterior.as_slice(),
-                        serde_json::Map::new(),
-                    )
-                }),
-            )?;
-            io::write_table(&dir.join("design.csv"), &o.design, &c.unit)?;
-            write_stage_tables(dir, &o.rejections, &o.summary)
-        },
-    );
-    points?;
-    rest?;
-    c.hand_ingested(o.points);
+    let epsg = o.points.epsg;
+    // The point table is written on a thread of its own while the next stage runs on the
+    // records handed to it (the same records: see `Ctx::hand_ingested`).
+    let set = c.hand_ingested(o.points);
+    let path = dir.join("points.parquet");
+    c.write_later(move || io::write_points(&path, &set));
+    io::write_projected_plots(&dir.join("plots.geojson"), &o.polygons, epsg)?;
+    io::write_plots_wgs84(
+        &dir.join("plots_wgs84.geojson"),
+        &utm,
+        o.polygons.iter().map(|p| {
+            (
+                p.plot_id.as_str(),
+                p.exterior.as_slice(),
+                serde_json::Map::new(),
+            )
+        }),
+    )?;
+    io::write_table(&dir.join("design.csv"), &o.design, &c.unit)?;
+    write_stage_tables(dir, &o.rejections, &o.summary)?;
     Ok(o.summary)
 }
 

@@ -20,7 +20,8 @@ use plotsieve_stages::plots::PlotStats;
 use plotsieve_stages::progress::Progress;
 use plotsieve_stages::table::{CleanPoint, PointSet, Rejection, StageSummary};
 use std::path::{Path, PathBuf};
-use std::sync::Mutex;
+use std::sync::{Arc, Mutex};
+use std::thread::JoinHandle;
 
 /// What a missing adjust table says to do.
 pub(crate) const ADJUST_FIRST: &str = "run stage adjust first";
@@ -33,9 +34,9 @@ pub(crate) const ADJUST_FIRST: &str = "run stage adjust first";
 #[derive(Default)]
 pub struct Handoff {
     /// Ingest's records, as `1-ingest/points.parquet` holds them.
-    ingested: Option<PointSet>,
+    ingested: Option<Arc<PointSet>>,
     /// Clean's kept points and their source files, as `2-clean/points.parquet` holds them.
-    cleaned: Option<(Vec<String>, Vec<CleanPoint>)>,
+    cleaned: Option<(Vec<String>, Arc<Vec<CleanPoint>>)>,
 }
 
 impl Handoff {
@@ -73,6 +74,7 @@ pub struct Ctx<'a> {
     pub progress: &'a Progress,
     /// Tables from the stage before, when it ran in this same process.
     handoff: &'a Mutex<Handoff>,
+    later: &'a Later,
 }
 
 impl<'a> Ctx<'a> {
@@ -82,25 +84,49 @@ impl<'a> Ctx<'a> {
     }
 
     /// Ingest's records handed on in memory (see [`Handoff`]), if ingest ran just before.
-    pub fn take_ingested(&self) -> Option<PointSet> {
+    pub fn take_ingested(&self) -> Option<Arc<PointSet>> {
         lock(self.handoff).ingested.take()
     }
 
     /// Clean's points handed on in memory, if clean ran just before.
-    pub fn take_cleaned(&self) -> Option<(Vec<String>, Vec<CleanPoint>)> {
+    pub fn take_cleaned(&self) -> Option<(Vec<String>, Arc<Vec<CleanPoint>>)> {
         lock(self.handoff).cleaned.take()
     }
 
-    /// Hands ingest's records to the next stage, as reading them back would give them.
-    pub fn hand_ingested(&self, mut set: PointSet) {
+    /// Ingest's records as reading them back would give them, handed to the next stage
+    /// (shared with the writer of the point table, whose bytes are the same either way:
+    /// see [`io::as_read_back`]).
+    pub fn hand_ingested(&self, mut set: PointSet) -> Arc<PointSet> {
         set.files = io::as_read_back(&set.files, &mut set.points, |p| p);
-        lock(self.handoff).ingested = Some(set);
+        let set = Arc::new(set);
+        lock(self.handoff).ingested = Some(set.clone());
+        set
     }
 
-    /// Hands clean's points to the next stage, as reading them back would give them.
-    pub fn hand_cleaned(&self, files: &[String], mut points: Vec<CleanPoint>) {
+    /// Clean's points as reading them back would give them, handed to the next stage (and
+    /// shared with the writer of the point table, as for ingest).
+    pub fn hand_cleaned(
+        &self,
+        files: &[String],
+        mut points: Vec<CleanPoint>,
+    ) -> Arc<Vec<CleanPoint>> {
         let files = io::as_read_back(files, &mut points, |c| &mut c.base);
-        lock(self.handoff).cleaned = Some((files, points));
+        let points = Arc::new(points);
+        lock(self.handoff).cleaned = Some((files, points.clone()));
+        points
+    }
+
+    /// Writes a file of the stage on a thread of its own, so that the next stage of a `run`
+    /// computes meanwhile (see [`Later`]). Only for files no later stage of a `run` reads
+    /// before the stage is recorded done: the point tables (handed on in memory) and what
+    /// only the report reads.
+    pub fn write_later(&self, write: impl FnOnce() -> Result<()> + Send + 'static) {
+        let handle = std::thread::spawn(write);
+        self.later
+            .0
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .push(handle);
     }
 
     /// The EPSG code of the projected coordinates, from ingest's summary.
@@ -123,6 +149,7 @@ pub fn execute(
     out: &Path,
     progress: &Progress,
     handoff: &Mutex<Handoff>,
+    later: &Later,
 ) -> Result<StageSummary> {
     let crop = t.cfg.crop()?;
     let c = Ctx {
@@ -133,6 +160,7 @@ pub fn execute(
         crop,
         progress,
         handoff,
+        later,
     };
     // A table is handed to the stage right after the one that made it, or to none.
     let handed = std::mem::take(&mut *lock(handoff));
@@ -143,6 +171,35 @@ pub fn execute(
         Stage::Plots => plots::run(&c),
         Stage::Adjust => adjust::run(&c),
         Stage::Report => report::run(&c),
+    }
+}
+
+/// The files a stage left to be written on threads of their own ([`Ctx::write_later`]): the
+/// run records the stage done only after [`Later::finish`], and waits for them before it
+/// clears the stage's folder after a failure.
+#[derive(Default)]
+pub struct Later(Mutex<Vec<JoinHandle<Result<()>>>>);
+
+impl Later {
+    /// Whether the stage left no file to be written.
+    pub fn is_empty(&self) -> bool {
+        self.0.lock().unwrap_or_else(|e| e.into_inner()).is_empty()
+    }
+
+    /// Waits for every file left to be written; the first error (a writer that panicked is
+    /// an error too).
+    pub fn finish(&self) -> Result<()> {
+        let handles = std::mem::take(&mut *self.0.lock().unwrap_or_else(|e| e.into_inner()));
+        let mut result = Ok(());
+        for h in handles {
+            let r = h
+                .join()
+                .unwrap_or_else(|_| Err(anyhow!("writing a file of the stage panicked")));
+            if result.is_ok() {
+                result = r;
+            }
+        }
+        result
     }
 }
 
@@ -160,4 +217,43 @@ fn read_plots(out: &Path, u: &YieldUnit) -> Result<Vec<PlotStats>> {
         bail!("{}: no plots", path.display());
     }
     Ok(plots)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn files_written_later_are_all_waited_for_and_the_first_failure_is_said() {
+        let later = Later::default();
+        assert!(later.is_empty());
+        assert!(later.finish().is_ok());
+        let done = Arc::new(std::sync::atomic::AtomicUsize::new(0));
+        let push = |f: Box<dyn FnOnce() -> Result<()> + Send>| {
+            later.0.lock().unwrap().push(std::thread::spawn(f));
+        };
+        let d = done.clone();
+        push(Box::new(move || {
+            std::thread::sleep(std::time::Duration::from_millis(50));
+            d.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
+            Ok(())
+        }));
+        push(Box::new(|| bail!("disk full writing points.parquet")));
+        push(Box::new(|| panic!("a writer panicked")));
+        let d = done.clone();
+        push(Box::new(move || {
+            d.fetch_add(1, std::sync::atomic::Ordering::SeqCst);
+            bail!("second failure")
+        }));
+        assert!(!later.is_empty());
+        let e = later.finish().unwrap_err().to_string();
+        assert_eq!(e, "disk full writing points.parquet");
+        // Every writer ran to its end before finish returned, and none is left.
+        assert_eq!(done.load(std::sync::atomic::Ordering::SeqCst), 2);
+        assert!(later.is_empty());
+        // A panic alone is an error too.
+        push(Box::new(|| panic!("a writer panicked")));
+        let e = later.finish().unwrap_err().to_string();
+        assert!(e.contains("panicked"), "{e}");
+    }
 }

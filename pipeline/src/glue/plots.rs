@@ -28,7 +28,11 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let unit = c.unit;
     let (files, pts) = match c.take_cleaned() {
         Some(handed) => handed,
-        None => io::read_clean_points(&out.join(Stage::Clean.dir()).join("points.parquet"))?,
+        None => {
+            let (files, pts) =
+                io::read_clean_points(&out.join(Stage::Clean.dir()).join("points.parquet"))?;
+            (files, std::sync::Arc::new(pts))
+        }
     };
     let ing = out.join(Stage::Ingest.dir());
     let polys = ingest::read_geojson(
@@ -49,11 +53,8 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let kept: Vec<_> = o.assignment.iter().map(|&(i, _)| pts[i].clone()).collect();
     // The points kept in plots are copied out: the rest are no longer needed.
     drop(pts);
-    let ids: Vec<&str> = o
-        .assignment
-        .iter()
-        .map(|&(_, k)| o.plots[k].plot_id.as_str())
-        .collect();
+    let plot_ids: Vec<String> = o.plots.iter().map(|p| p.plot_id.clone()).collect();
+    let plot_of: Vec<usize> = o.assignment.iter().map(|&(_, k)| k).collect();
     let y: Vec<f64> = kept
         .iter()
         .map(|p| unit.to_unit(p.yield_std_kg_ha))
@@ -61,47 +62,37 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let col = format!("yield_{}", unit.suffix());
     let epsg = c.epsg()?;
     let utm = plotsieve_stages::projection::Utm::from_epsg(epsg)?;
-    // The stage's files are independent of each other: written side by side.
-    let (points, (layer, tables)) = rayon::join(
-        || {
-            io::write_clean_points(
-                &dir.join("points.parquet"),
-                &files,
-                &kept,
-                Some((&col, y)),
-                Some(ids),
-            )
-        },
-        || {
-            rayon::join(
-                || {
-                    io::write_plots_wgs84(
-                        &dir.join("plots.geojson"),
-                        &utm,
-                        o.plots.iter().filter(|p| !p.net_ring.is_empty()).map(|p| {
-                            (
-                                p.plot_id.as_str(),
-                                p.net_ring.as_slice(),
-                                io::plot_properties(p, &unit),
-                            )
-                        }),
-                    )
-                },
-                || {
-                    io::write_table(&dir.join("plots.csv"), &o.plots, &unit)?;
-                    // As-applied rates, where the exports log them.
-                    if let Some(a) = &cfg.columns.applied_rate {
-                        if o.plots.iter().any(|p| p.applied.is_some()) {
-                            io::write_plot_rates(&dir.join("applied_rates.csv"), &o.plots, a.unit)?;
-                        }
-                    }
-                    write_stage_tables(dir, &o.rejections, &o.summary)
-                },
-            )
-        },
-    );
-    points?;
-    layer?;
-    tables?;
+    // The plot table the next stage reads is written now; the point table, the net plot
+    // layer, the rejection log and the summary on threads of their own while the next
+    // stage runs (only the report reads them).
+    io::write_table(&dir.join("plots.csv"), &o.plots, &unit)?;
+    // As-applied rates, where the exports log them.
+    if let Some(a) = &cfg.columns.applied_rate {
+        if o.plots.iter().any(|p| p.applied.is_some()) {
+            io::write_plot_rates(&dir.join("applied_rates.csv"), &o.plots, a.unit)?;
+        }
+    }
+    let path = dir.join("points.parquet");
+    c.write_later(move || {
+        let ids: Vec<&str> = plot_of.iter().map(|&k| plot_ids[k].as_str()).collect();
+        io::write_clean_points(&path, &files, &kept, Some((&col, y)), Some(ids))
+    });
+    let path = dir.join("plots.geojson");
+    let plots = o.plots;
+    c.write_later(move || {
+        io::write_plots_wgs84(
+            &path,
+            &utm,
+            plots.iter().filter(|p| !p.net_ring.is_empty()).map(|p| {
+                (
+                    p.plot_id.as_str(),
+                    p.net_ring.as_slice(),
+                    io::plot_properties(p, &unit),
+                )
+            }),
+        )
+    });
+    let (dir, rejections, summary) = (dir.clone(), o.rejections, o.summary.clone());
+    c.write_later(move || write_stage_tables(&dir, &rejections, &summary));
     Ok(o.summary)
 }
