@@ -17,7 +17,6 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let unit = c.unit;
     // The report presents the tables as they were written, in the output unit.
     let shown = unit.as_written();
-    let crop = &c.crop;
     let summaries: Vec<StageSummary> = [Stage::Ingest, Stage::Clean, Stage::Plots, Stage::Adjust]
         .iter()
         .map(|s| read_summary(out, *s))
@@ -46,75 +45,7 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     io::write_atomic(&dir.join("report.md"), md.as_bytes())?;
     // The HTML report: maps of every record, of what each rule removed, of the plots (none
     // for plot-table entry: no records, no polygons).
-    let ing = out.join(Stage::Ingest.dir());
-    // The records, the two rejection logs and the plot layer are read side by side.
-    // Of the rejection logs only the columns the maps take.
-    let read_rejections = |st: Stage| {
-        io::read_table_columns::<Rejection>(
-            &out.join(st.dir()).join("rejected.csv"),
-            &shown,
-            "rerun its stage",
-            &["source_file", "id", "rule"],
-        )
-    };
-    let ((pts, polygons), (clean_rej, plots_rej)) = rayon::join(
-        || {
-            rayon::join(
-                || -> Result<Vec<plotsieve_stages::table::Point>> {
-                    if c.table_entry() {
-                        Ok(Vec::new())
-                    } else {
-                        io::read_map_points(&ing.join("points.parquet"))
-                    }
-                },
-                || -> Result<Vec<plotsieve_stages::table::PlotPolygon>> {
-                    if c.table_entry() {
-                        Ok(Vec::new())
-                    } else {
-                        Ok(ingest::read_geojson(
-                            &ing.join("plots.geojson"),
-                            "1-ingest/plots.geojson",
-                            "plot_id",
-                        )?)
-                    }
-                },
-            )
-        },
-        || {
-            rayon::join(
-                || read_rejections(Stage::Clean),
-                || read_rejections(Stage::Plots),
-            )
-        },
-    );
-    let (pts, polygons) = (pts?, polygons?);
-    // The first rule (clean before plots) that removed each record, by point id: a log's id
-    // names a record when it is the id's decimal text.
-    // Point ids are ingest's record numbers, so the rules go in a table by id (an id beyond
-    // every record's names none).
-    let ids = pts.iter().map(|p| p.id as usize + 1).max().unwrap_or(0);
-    let mut removed: Vec<Option<Arc<str>>> = vec![None; ids];
-    for r in clean_rej?.into_iter().chain(plots_rej?) {
-        if !r.id.is_empty() && *r.source_file != *cfg.design_name() {
-            if let Some(slot) = point_id(&r.id).and_then(|id| removed.get_mut(id as usize)) {
-                slot.get_or_insert(r.rule);
-            }
-        }
-    }
-    let kept_rule: Arc<str> = Arc::from("");
-    let map_points: Vec<report::html::MapPoint> = pts
-        .iter()
-        .map(|p| report::html::MapPoint {
-            x: p.x_m,
-            y: p.y_m,
-            yield_unit: unit.to_unit(clean::record_yield_kg_ha(p, crop)),
-            rule: removed[p.id as usize]
-                .as_ref()
-                .unwrap_or(&kept_rule)
-                .clone(),
-        })
-        .collect();
-    drop(pts);
+    let (map_points, polygons) = map_inputs(c, &shown)?;
     let plots_tab = read_plots(out, &shown)?;
     let comparisons = io::read_table(&adj.join("comparison.csv"), &shown, ADJUST_FIRST)?;
     let settings: Vec<(String, serde_json::Value)> = match read_manifest(out)? {
@@ -159,6 +90,107 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
         .insert("warnings_shown".into(), serde_json::json!(warnings.len()));
     io::write_json(&dir.join("summary.json"), &summary)?;
     Ok(summary)
+}
+
+/// The records as the HTML report's maps draw them (position, yield in the output unit, the
+/// first rule that removed each) and the plot layer: none for plot-table entry.
+fn map_inputs(
+    c: &Ctx,
+    shown: &plotsieve_stages::crop::YieldUnit,
+) -> Result<(
+    Vec<report::html::MapPoint>,
+    Vec<plotsieve_stages::table::PlotPolygon>,
+)> {
+    let (cfg, out, unit, crop) = (&c.t.cfg, c.out, c.unit, &c.crop);
+    let ing = out.join(Stage::Ingest.dir());
+    // The records, the two rejection logs and the plot layer are read side by side. Of the
+    // rejection logs only the columns the maps take, and only the rows naming a record.
+    let design = cfg.design_name();
+    let read_rejections = |st: Stage| -> Result<Vec<(u64, Arc<str>)>> {
+        let mut rules: Vec<Arc<str>> = Vec::new();
+        let mut named = Vec::new();
+        io::for_each_row::<Rejection>(
+            &out.join(st.dir()).join("rejected.csv"),
+            shown,
+            "rerun its stage",
+            Some(&["source_file", "id", "rule"]),
+            |r| {
+                if *r.source_file != *design {
+                    if let Some(id) = point_id(&r.id) {
+                        // One copy of each rule's name.
+                        let rule = match rules.iter().find(|x| **x == r.rule) {
+                            Some(x) => x.clone(),
+                            None => {
+                                rules.push(r.rule.clone());
+                                r.rule
+                            }
+                        };
+                        named.push((id, rule));
+                    }
+                }
+                Ok(())
+            },
+        )?;
+        Ok(named)
+    };
+    let ((pts, polygons), (clean_rej, plots_rej)) = rayon::join(
+        || {
+            rayon::join(
+                || -> Result<Vec<io::MapRecord>> {
+                    if c.table_entry() {
+                        Ok(Vec::new())
+                    } else {
+                        io::read_map_points(&ing.join("points.parquet"), |p| {
+                            clean::record_yield_kg_ha(p, crop)
+                        })
+                    }
+                },
+                || -> Result<Vec<plotsieve_stages::table::PlotPolygon>> {
+                    if c.table_entry() {
+                        Ok(Vec::new())
+                    } else {
+                        Ok(ingest::read_geojson(
+                            &ing.join("plots.geojson"),
+                            "1-ingest/plots.geojson",
+                            "plot_id",
+                        )?)
+                    }
+                },
+            )
+        },
+        || {
+            rayon::join(
+                || read_rejections(Stage::Clean),
+                || read_rejections(Stage::Plots),
+            )
+        },
+    );
+    let (pts, polygons) = (pts?, polygons?);
+    // The first rule (clean before plots) that removed each record, by point id: a log's id
+    // names a record when it is the id's decimal text. Point ids are ingest's record
+    // numbers, so the rules go in a table by id (an id beyond every record's names none).
+    let ids = pts.iter().map(|p| p.id as usize + 1).max().unwrap_or(0);
+    let mut removed: Vec<Option<Arc<str>>> = vec![None; ids];
+    for (id, rule) in clean_rej?.into_iter().chain(plots_rej?) {
+        if let Some(slot) = removed.get_mut(id as usize) {
+            slot.get_or_insert(rule);
+        }
+    }
+    let kept_rule: Arc<str> = Arc::from("");
+    let map_points: Vec<report::html::MapPoint> = pts
+        .iter()
+        .map(|p| report::html::MapPoint {
+            x: p.x_m,
+            y: p.y_m,
+            yield_unit: unit.to_unit(p.yield_kg_ha),
+            rule: removed[p.id as usize]
+                .as_ref()
+                .unwrap_or(&kept_rule)
+                .clone(),
+        })
+        .collect();
+    drop(removed);
+    Ok((map_points, polygons))
 }
 
 /// The record a rejection's id names: the id is a point id's decimal text (digits, no sign,

@@ -16,9 +16,10 @@ mod tables;
 pub use applied::{read_plot_rates, write_plot_rates};
 pub use plots::{plot_properties, write_plots_wgs84, write_projected_plots};
 pub use points::{
-    as_read_back, read_clean_points, read_map_points, read_points, write_clean_points, write_points,
+    as_read_back, read_clean_points, read_map_points, read_points, write_clean_points,
+    write_points, MapRecord,
 };
-pub use table::{read_table, read_table_columns, write_table};
+pub use table::{for_each_row, read_table, write_table};
 
 use anyhow::{anyhow, Context, Result};
 use std::io::Write;

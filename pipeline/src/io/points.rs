@@ -327,10 +327,19 @@ fn blank_point(id: u64, file: u32, row: u64) -> Point {
     }
 }
 
-/// Ingest's records with only what the report's maps take: id, position and the values a
-/// record's yield comes from (every other value missing, file and row 0). Only those
-/// columns are read from the file.
-pub fn read_map_points(path: &Path) -> Result<Vec<Point>> {
+/// A record as the report's maps take it: id, position and yield.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct MapRecord {
+    pub id: u64,
+    pub x_m: f64,
+    pub y_m: f64,
+    pub yield_kg_ha: f64,
+}
+
+/// Ingest's records as the report's maps take them, the yield of each by `yield_of` from a
+/// record holding only the values a yield comes from (every other value missing, file and
+/// row 0). Only those columns are read, and no whole record is held.
+pub fn read_map_points(path: &Path, yield_of: impl Fn(&Point) -> f64) -> Result<Vec<MapRecord>> {
     let f = std::fs::File::open(path).with_context(|| {
         format!(
             "{} is missing: run stage ingest first (plotsieve stage ingest ...)",
@@ -361,11 +370,29 @@ pub fn read_map_points(path: &Path) -> Result<Vec<Point>> {
         .finish()
         .with_context(|| format!("reading {}", path.display()))?;
     let id = col_u64(&mut df, "point_id", path)?;
-    let mut rows: Vec<Point> = id.into_iter().map(|i| blank_point(i, 0, 0)).collect();
-    for (name, set) in values {
-        fill_f64(&mut df, name, path, &mut rows, set)?;
+    let mut cols: Vec<Vec<f64>> = Vec::with_capacity(values.len());
+    for (name, _) in &values {
+        let mut v = vec![f64::NAN; id.len()];
+        fill_f64(&mut df, name, path, &mut v, |r, x| *r = x)?;
+        cols.push(v);
     }
-    Ok(rows)
+    drop(df);
+    Ok(id
+        .iter()
+        .enumerate()
+        .map(|(i, &id)| {
+            let mut p = blank_point(id, 0, 0);
+            for (c, (_, set)) in cols.iter().zip(&values) {
+                set(&mut p, c[i]);
+            }
+            MapRecord {
+                id,
+                x_m: p.x_m,
+                y_m: p.y_m,
+                yield_kg_ha: yield_of(&p),
+            }
+        })
+        .collect())
 }
 
 /// What reading a point table back gives for `files` and for the records' given yields, made
@@ -563,22 +590,27 @@ mod tests {
             };
             write_points(&path, &set).unwrap();
             let full = read_points(&path, 32614).unwrap().points;
-            let map = read_map_points(&path).unwrap();
-            let want: Vec<Point> = full
+            // The yield from the values a record's yield comes from (a made-up formula
+            // that uses each of them).
+            let yield_of = |p: &Point| {
+                if p.yield_kg_ha.is_finite() {
+                    p.yield_kg_ha
+                } else {
+                    p.flow_kg_s / (p.speed_m_s * p.width_m) * (100.0 - p.moisture_pct)
+                }
+            };
+            let map = read_map_points(&path, yield_of).unwrap();
+            let want: Vec<MapRecord> = full
                 .iter()
-                .map(|p| Point {
+                .map(|p| MapRecord {
+                    id: p.id,
                     x_m: p.x_m,
                     y_m: p.y_m,
-                    flow_kg_s: p.flow_kg_s,
-                    speed_m_s: p.speed_m_s,
-                    width_m: p.width_m,
-                    moisture_pct: p.moisture_pct,
-                    yield_kg_ha: p.yield_kg_ha,
-                    ..blank_point(p.id, 0, 0)
+                    yield_kg_ha: yield_of(p),
                 })
                 .collect();
             assert_eq!(format!("{map:?}"), format!("{want:?}"));
-            assert_eq!(map[0].yield_kg_ha.is_finite(), given[0].is_finite());
+            assert_eq!(map[0].yield_kg_ha == 2500.5, given[0].is_finite());
         }
         std::fs::remove_dir_all(&dir).ok();
     }

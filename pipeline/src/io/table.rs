@@ -122,23 +122,29 @@ pub fn read_table<T: Table>(path: &Path, u: &YieldUnit, hint: &str) -> Result<Ve
     read_columns_of(path, u, hint, None)
 }
 
-/// Read only the named columns of a table (the row's other fields keep their defaults), for
-/// a reader that needs a few columns of a long table; otherwise as [`read_table`].
-pub fn read_table_columns<T: Table>(
-    path: &Path,
-    u: &YieldUnit,
-    hint: &str,
-    names: &[&str],
-) -> Result<Vec<T>> {
-    read_columns_of(path, u, hint, Some(names))
-}
-
 fn read_columns_of<T: Table>(
     path: &Path,
     u: &YieldUnit,
     hint: &str,
     only: Option<&[&str]>,
 ) -> Result<Vec<T>> {
+    let mut out = Vec::new();
+    for_each_row(path, u, hint, only, |row| {
+        out.push(row);
+        Ok(())
+    })?;
+    Ok(out)
+}
+
+/// Each row of a table in turn (only the named columns, when given), as [`read_table`]
+/// reads them, without holding the table: for a reader that folds a long table.
+pub fn for_each_row<T: Table>(
+    path: &Path,
+    u: &YieldUnit,
+    hint: &str,
+    only: Option<&[&str]>,
+    mut f: impl FnMut(T) -> Result<()>,
+) -> Result<()> {
     let unit = u.suffix();
     let mut rdr = csv::Reader::from_path(path)
         .with_context(|| format!("{} is missing: {hint}", path.display()))?;
@@ -162,18 +168,20 @@ fn read_columns_of<T: Table>(
             ),
         }
     }
-    let mut out = Vec::new();
-    for rec in rdr.records() {
-        let rec = rec.with_context(|| format!("reading {}", path.display()))?;
+    let mut rec = csv::StringRecord::new();
+    while rdr
+        .read_record(&mut rec)
+        .with_context(|| format!("reading {}", path.display()))?
+    {
         let line = rec.position().map(|p| p.line()).unwrap_or(0);
         let mut row = T::default();
         for (c, &i) in cols.iter().zip(&idx) {
             c.read(&mut row, rec.get(i).unwrap_or(""), u)
                 .map_err(|e| anyhow!("{}, line {line}, column {}: {e}", path.display(), c.name))?;
         }
-        out.push(row);
+        f(row)?;
     }
-    Ok(out)
+    Ok(())
 }
 
 #[cfg(test)]
@@ -250,7 +258,15 @@ mod tests {
         );
         // Only the named columns: a bad cell elsewhere is not read, the field keeps its
         // default; a named column the file lacks is still an error.
-        let only: Vec<Pair> = read_table_columns(&p, &t_ha, "", &["name"]).unwrap();
+        let read_only = |u: &YieldUnit, names: &[&str]| {
+            let mut v: Vec<Pair> = Vec::new();
+            for_each_row(&p, u, "hint", Some(names), |r| {
+                v.push(r);
+                Ok(())
+            })
+            .map(|_| v)
+        };
+        let only = read_only(&t_ha, &["name"]).unwrap();
         assert_eq!(
             only,
             vec![Pair {
@@ -258,9 +274,7 @@ mod tests {
                 value: 0.0
             }]
         );
-        let e = read_table_columns::<Pair>(&p, &bu_ac, "hint", &["value_bu_ac"])
-            .unwrap_err()
-            .to_string();
+        let e = read_only(&bu_ac, &["value_bu_ac"]).unwrap_err().to_string();
         assert!(e.contains("no column value_bu_ac"), "{e}");
         std::fs::remove_dir_all(&dir).unwrap();
     }
