@@ -109,6 +109,24 @@ struct Finishing {
     later: glue::Later,
 }
 
+/// A stage that did not finish: the files it left to be written are waited for (their
+/// errors are not the first cause), then its folder is removed and the manifest says why.
+fn abandon(
+    out: &Path,
+    manifest: &mut Manifest,
+    stage: Stage,
+    later: &glue::Later,
+    status: &str,
+    why: String,
+) -> Result<()> {
+    later.finish().ok();
+    clear_stage(out, stage)?;
+    manifest
+        .stages
+        .insert(stage.name().into(), unfinished(status, why));
+    io::write_json(&out.join("manifest.json"), manifest)
+}
+
 /// Waits for the stage's files, then records it done in the manifest (its seconds count the
 /// wait); a failed write records it failed, clears its folder and returns the error.
 fn finish(
@@ -127,11 +145,7 @@ fn finish(
     } = w;
     if let Err(e) = later.finish() {
         let e = e.context(format!("stage {}", stage.name()));
-        clear_stage(out, stage)?;
-        manifest
-            .stages
-            .insert(stage.name().into(), unfinished("failed", format!("{e:#}")));
-        io::write_json(&out.join("manifest.json"), manifest)?;
+        abandon(out, manifest, stage, &later, "failed", format!("{e:#}"))?;
         return Err(e);
     }
     let seconds = seconds + start.elapsed().as_secs_f64();
@@ -210,13 +224,8 @@ fn run_stages(
         // The stage before is recorded done once its files are written (or failed).
         if let Some(w) = writing.take() {
             if let Err(e) = finish(w, t, out, stages, &mut manifest) {
-                later.finish().ok();
-                clear_stage(out, stage)?;
-                manifest.stages.insert(
-                    stage.name().into(),
-                    unfinished("stale", "the stage before it failed".into()),
-                );
-                io::write_json(&out.join("manifest.json"), &manifest)?;
+                let why = "the stage before it failed".to_string();
+                abandon(out, &mut manifest, stage, &later, "stale", why)?;
                 return Err(e);
             }
         }
@@ -224,13 +233,14 @@ fn run_stages(
             Ok(s) => s,
             Err(e) => {
                 let e = e.context(format!("stage {}", stage.name()));
-                // Files it left to be written are waited for before its folder is cleared.
-                later.finish().ok();
-                clear_stage(out, stage)?;
-                manifest
-                    .stages
-                    .insert(stage.name().into(), unfinished("failed", format!("{e:#}")));
-                io::write_json(&out.join("manifest.json"), &manifest)?;
+                abandon(
+                    out,
+                    &mut manifest,
+                    stage,
+                    &later,
+                    "failed",
+                    format!("{e:#}"),
+                )?;
                 return Err(e);
             }
         };

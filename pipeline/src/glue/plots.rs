@@ -53,7 +53,6 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
     let kept: Vec<_> = o.assignment.iter().map(|&(i, _)| pts[i].clone()).collect();
     // The points kept in plots are copied out: the rest are no longer needed.
     drop(pts);
-    let plot_ids: Vec<String> = o.plots.iter().map(|p| p.plot_id.clone()).collect();
     let plot_of: Vec<usize> = o.assignment.iter().map(|&(_, k)| k).collect();
     let y: Vec<f64> = kept
         .iter()
@@ -72,13 +71,15 @@ pub fn run(c: &Ctx) -> Result<StageSummary> {
             io::write_plot_rates(&dir.join("applied_rates.csv"), &o.plots, a.unit)?;
         }
     }
+    // The plots are shared by the two writers that read them.
+    let plots = std::sync::Arc::new(o.plots);
     let path = dir.join("points.parquet");
+    let by_id = plots.clone();
     c.write_later(move || {
-        let ids: Vec<&str> = plot_of.iter().map(|&k| plot_ids[k].as_str()).collect();
+        let ids: Vec<&str> = plot_of.iter().map(|&k| by_id[k].plot_id.as_str()).collect();
         io::write_clean_points(&path, &files, &kept, Some((&col, y)), Some(ids))
     });
     let path = dir.join("plots.geojson");
-    let plots = o.plots;
     c.write_later(move || {
         io::write_plots_wgs84(
             &path,
