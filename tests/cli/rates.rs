@@ -358,12 +358,19 @@ fn a_rate_trial_in_bushels_pounds_and_acres_gives_the_metric_trial_s_optimum() {
         // The yields in another unit differ by rounding, which moves the draws' quantiles a
         // little: within 0.5 kg/ha in a field's own rows (measured 0.31), within 4 in the
         // joint fit's pooled rows, whose importance draws pick other points (measured 2.7,
-        // on intervals 40-60 kg N/ha wide). The optimum itself agrees to the table's digits.
-        let tol = if a["field"] == "all" { 4.0 } else { 0.5 };
+        // on intervals 40-60 kg N/ha wide). The optimum itself agrees to the table's digits
+        // in a field's own rows; in the pooled rows, whose expected returns come from those
+        // draws, to one step of the rate grid (0.5 kg/ha here; measured: one pooled row of four
+        // one step apart).
+        let (tol, step) = if a["field"] == "all" {
+            (4.0, 0.51)
+        } else {
+            (0.5, 0.01)
+        };
         let k = "optimum_rate";
         let (x, y): (f64, f64) = (a[k].parse().unwrap(), b[k].parse().unwrap());
         assert!(
-            (x - y * lb_ac).abs() < 0.01,
+            (x - y * lb_ac).abs() < step,
             "{k}: {x} kg/ha against {y} lb/ac"
         );
         for k in [

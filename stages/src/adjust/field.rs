@@ -271,11 +271,17 @@ pub fn log_sum_exp(v: impl Iterator<Item = f64>) -> f64 {
     m + v.iter().map(|x| (x - m).exp()).sum::<f64>().ln()
 }
 
-/// The lattice of length-scale nodes: coarse over the bounds, then refined over the box that
-/// holds the mass. `dims` is 1 or 2; `masses` evaluates a batch of lattice nodes (integer
-/// coordinates on the fine lattice) and returns each one's log mass (prior + log Z); with the
-/// refined box's new nodes it is also given the coarse nodes that stay in it. Returns
-/// the fine nodes of the box, the fine spacing per axis and whether the box touches a bound.
+/// The lattice of length-scale nodes: coarse over the bounds, then refined where the mass is.
+/// `dims` is 1 or 2; `masses` evaluates a batch of lattice nodes (integer coordinates on the
+/// fine lattice) and returns each one's log mass (prior + log Z); it is also given, when
+/// nodes may be let go, the nodes that stay (every other node's spectral form is freed).
+/// Returns the fine nodes kept, the fine spacing per axis and whether the mass touches a
+/// bound.
+///
+/// One axis: a walk over the coarse nodes (`coarse_walk`), then the same walk over the fine
+/// nodes from the best coarse one (`fine_walk`): the fine nodes kept are a run from the one
+/// below to the one above those within e^10 of the highest. Two axes: every coarse node,
+/// then every fine node of the box one coarse step beyond the coarse nodes within e^10.
 pub fn range_lattice(
     dims: usize,
     bounds: [(f64, f64); 2],
@@ -287,16 +293,16 @@ pub fn range_lattice(
     let h: Vec<f64> = (0..2)
         .map(|d| (bounds[d].1 - bounds[d].0) / ((nc - 1) * refine) as f64)
         .collect();
-    let span1 = if dims == 2 { nc } else { 1 };
-    let (coarse_nodes, m) = if dims == 1 {
-        coarse_walk(nc, refine, masses)
-    } else {
-        let nodes: Vec<(i64, i64)> = (0..nc)
-            .flat_map(|i| (0..span1).map(move |j| (i * refine, j * refine)))
-            .collect();
-        let m = masses(&nodes, None);
-        (nodes, m)
-    };
+    let maxc = (nc - 1) * refine;
+    if dims == 1 {
+        let (coarse_nodes, m) = coarse_walk(nc, refine, masses);
+        let (keys, at_bound) = fine_walk(&coarse_nodes, &m, refine, maxc, masses);
+        return (keys, [h[0], h[1]], [at_bound, false]);
+    }
+    let coarse_nodes: Vec<(i64, i64)> = (0..nc)
+        .flat_map(|i| (0..nc).map(move |j| (i * refine, j * refine)))
+        .collect();
+    let m = masses(&coarse_nodes, None);
     let top = m.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
     let sig: Vec<(i64, i64)> = coarse_nodes
         .iter()
@@ -304,17 +310,13 @@ pub fn range_lattice(
         .filter(|(_, v)| **v > top - 10.0)
         .map(|(n, _)| *n)
         .collect();
-    let maxc = (nc - 1) * refine;
-    let lo0 = (sig.iter().map(|n| n.0).min().unwrap_or(0) - refine).max(0);
-    let hi0 = (sig.iter().map(|n| n.0).max().unwrap_or(maxc) + refine).min(maxc);
-    let (lo1, hi1) = if dims == 2 {
+    let span = |f: fn(&(i64, i64)) -> i64| {
         (
-            (sig.iter().map(|n| n.1).min().unwrap_or(0) - refine).max(0),
-            (sig.iter().map(|n| n.1).max().unwrap_or(maxc) + refine).min(maxc),
+            (sig.iter().map(f).min().unwrap_or(0) - refine).max(0),
+            (sig.iter().map(f).max().unwrap_or(maxc) + refine).min(maxc),
         )
-    } else {
-        (0, 0)
     };
+    let ((lo0, hi0), (lo1, hi1)) = (span(|n| n.0), span(|n| n.1));
     let fine: Vec<(i64, i64)> = (lo0..=hi0)
         .flat_map(|i| (lo1..=hi1).map(move |j| (i, j)))
         .collect();
@@ -334,9 +336,135 @@ pub fn range_lattice(
     // The box touches a bound where mass is not negligible there.
     let at_bound = [
         sig.iter().any(|n| n.0 == 0 || n.0 == maxc),
-        dims == 2 && sig.iter().any(|n| n.1 == 0 || n.1 == maxc),
+        sig.iter().any(|n| n.1 == 0 || n.1 == maxc),
     ];
     (fine, [h[0], h[1]], at_bound)
+}
+
+/// How far below the highest fine node (log mass) the fine walk goes on: 30, as far as the
+/// joint fit's screen of its cells reaches (it leaves out cells below e^-30 of the largest),
+/// so that every node the joint fit could draw from is kept, and its cells keep their places
+/// (each cell's draws are seeded by its place).
+const FINE_KEEP: f64 = 30.0;
+
+/// The fine nodes of one length-scale axis, by the walk of [`coarse_walk`] on the fine
+/// lattice: from the best coarse node uphill to the highest fine node, then outwards on each
+/// side until a node's log mass falls more than [`FINE_KEEP`] below it (or the box's end is
+/// reached).
+/// `coarse`/`m` are the coarse walk's nodes and log masses (fine coordinates). Returns the
+/// run of fine nodes from one end to the other (every one evaluated) and whether a node within
+/// e^10 of the highest lies on a bound.
+///
+/// The walk stays inside the box one coarse step beyond the coarse nodes within e^10 (the
+/// box the two-axis lattice evaluates whole, and the one lattice before the fine walk), and
+/// where the mass has one mode the nodes of that box it leaves out each carry less than
+/// e^-30 of the highest node's mass: the shared range of many fields, whose mass sits on one
+/// or two fine nodes, needs a few fine nodes instead of the whole box.
+fn fine_walk(
+    coarse: &[(i64, i64)],
+    m: &[f64],
+    refine: i64,
+    maxc: i64,
+    masses: &mut dyn FnMut(&[(i64, i64)], Option<&[(i64, i64)]>) -> Vec<f64>,
+) -> (Vec<(i64, i64)>, bool) {
+    let mut seen: BTreeMap<i64, f64> = coarse.iter().map(|k| k.0).zip(m.iter().copied()).collect();
+    let coarse_top = m.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+    // The coarse nodes that may stay: those of the box one coarse step beyond the coarse
+    // nodes within e^10 (the others free their forms before any fine node is evaluated).
+    let sig: Vec<i64> = seen
+        .iter()
+        .filter(|(_, v)| **v > coarse_top - 10.0)
+        .map(|(i, _)| *i)
+        .collect();
+    let box_lo = (sig.iter().min().copied().unwrap_or(0) - refine).max(0);
+    let box_hi = (sig.iter().max().copied().unwrap_or(maxc) + refine).min(maxc);
+    let mut kept: Option<Vec<(i64, i64)>> = Some(
+        seen.keys()
+            .filter(|i| (box_lo..=box_hi).contains(*i))
+            .map(|&i| (i, 0))
+            .collect(),
+    );
+    let mut eval = |idx: &[i64], seen: &mut BTreeMap<i64, f64>| {
+        let todo: Vec<i64> = idx
+            .iter()
+            .copied()
+            .filter(|i| (box_lo..=box_hi).contains(i) && !seen.contains_key(i))
+            .collect();
+        let keys: Vec<(i64, i64)> = todo.iter().map(|&i| (i, 0)).collect();
+        let release = kept.take();
+        if todo.is_empty() && release.is_none() {
+            return;
+        }
+        for (i, v) in todo.into_iter().zip(masses(&keys, release.as_deref())) {
+            seen.insert(i, if v.is_nan() { f64::NEG_INFINITY } else { v });
+        }
+    };
+    let best = *seen
+        .iter()
+        .max_by(|a, b| a.1.total_cmp(b.1).then(b.0.cmp(a.0)))
+        .map(|(i, _)| i)
+        .unwrap_or(&0);
+    eval(&[best - 1, best + 1], &mut seen);
+    let (lo, hi, top) = walk(&mut seen, best, box_lo..=box_hi, FINE_KEEP, &mut eval);
+    let keys: Vec<(i64, i64)> = (lo..=hi).map(|i| (i, 0)).collect();
+    // Only the kept nodes hold forms from here on.
+    masses(&[], Some(&keys));
+    let at_bound = [0, maxc]
+        .into_iter()
+        .any(|i| (lo..=hi).contains(&i) && at(&seen, i) > top - 10.0);
+    (keys, at_bound)
+}
+
+/// The log mass of node `i` as far as seen (no mass where not evaluated).
+fn at(seen: &BTreeMap<i64, f64>, i: i64) -> f64 {
+    seen.get(&i).copied().unwrap_or(f64::NEG_INFINITY)
+}
+
+/// The walk both axes' lattices share: from `best` (whose neighbours `seen` holds) uphill one
+/// node at a time to the highest, evaluating the neighbours of each node it reaches, then
+/// outwards on each side until a node's log mass falls more than `drop` below the highest or
+/// `range` ends (both sides in one batch, so that their nodes are evaluated side by side).
+/// `eval` evaluates the nodes it is given that are in range and not yet seen. Returns the
+/// run's ends and the highest log mass.
+fn walk(
+    seen: &mut BTreeMap<i64, f64>,
+    mut best: i64,
+    range: std::ops::RangeInclusive<i64>,
+    drop: f64,
+    eval: &mut dyn FnMut(&[i64], &mut BTreeMap<i64, f64>),
+) -> (i64, i64, f64) {
+    loop {
+        let (l, r, here) = (at(seen, best - 1), at(seen, best + 1), at(seen, best));
+        let next = if l > here && l >= r {
+            best - 1
+        } else if r > here {
+            best + 1
+        } else {
+            break;
+        };
+        best = next;
+        eval(&[best - 1, best + 1], seen);
+    }
+    let top = at(seen, best);
+    let (mut lo, mut hi) = (best, best);
+    loop {
+        let open = |seen: &BTreeMap<i64, f64>, i: i64, step: i64| {
+            range.contains(&(i + step)) && at(seen, i) > top - drop
+        };
+        let (go_lo, go_hi) = (open(seen, lo, -1), open(seen, hi, 1));
+        if !go_lo && !go_hi {
+            break;
+        }
+        let next: Vec<i64> = [(go_lo, lo - 1), (go_hi, hi + 1)]
+            .into_iter()
+            .filter(|x| x.0)
+            .map(|x| x.1)
+            .collect();
+        eval(&next, seen);
+        lo -= i64::from(go_lo);
+        hi += i64::from(go_hi);
+    }
+    (lo, hi, top)
 }
 
 /// The coarse nodes of one length-scale axis that decide the refined box, found by a walk
@@ -367,44 +495,9 @@ fn coarse_walk(
             seen.insert(i, if v.is_nan() { f64::NEG_INFINITY } else { v });
         }
     };
-    let at = |seen: &BTreeMap<i64, f64>, i: i64| seen.get(&i).copied().unwrap_or(f64::NEG_INFINITY);
-    let mut best = (nc - 1) / 2;
+    let best = (nc - 1) / 2;
     eval(&[best - 1, best, best + 1], &mut seen);
-    // Uphill, one coarse node at a time.
-    loop {
-        let (l, r) = (at(&seen, best - 1), at(&seen, best + 1));
-        let here = at(&seen, best);
-        let next = if l > here && l >= r {
-            best - 1
-        } else if r > here {
-            best + 1
-        } else {
-            break;
-        };
-        best = next;
-        eval(&[best - 1, best + 1], &mut seen);
-    }
-    let top = at(&seen, best);
-    // Outwards until a node is more than 10 below the top, on each side (both sides in one
-    // batch, so that their nodes are evaluated side by side).
-    let (mut lo, mut hi) = (best, best);
-    loop {
-        let open = |seen: &BTreeMap<i64, f64>, i: i64, step: i64| {
-            (0..nc).contains(&(i + step)) && at(seen, i) > top - 10.0
-        };
-        let (go_lo, go_hi) = (open(&seen, lo, -1), open(&seen, hi, 1));
-        let next: Vec<i64> = [(go_lo, lo - 1), (go_hi, hi + 1)]
-            .into_iter()
-            .filter(|x| x.0)
-            .map(|x| x.1)
-            .collect();
-        if next.is_empty() {
-            break;
-        }
-        eval(&next, &mut seen);
-        lo -= i64::from(go_lo);
-        hi += i64::from(go_hi);
-    }
+    walk(&mut seen, best, 0..=nc - 1, 10.0, &mut eval);
     seen.into_iter().map(|(i, v)| ((i * refine, 0), v)).unzip()
 }
 
@@ -427,38 +520,65 @@ mod tests {
     }
 
     #[test]
-    fn the_coarse_walk_finds_the_full_scans_box_with_fewer_nodes_for_one_mode() {
+    fn the_walks_keep_the_mass_of_the_full_scans_box_with_fewer_nodes() {
         // Log masses with one mode anywhere on the axis (also at either bound), narrow and
-        // wide: the walk's refined box is the full scan's, and a narrow mode needs fewer
-        // coarse nodes than the 9 of the full scan.
+        // wide. The full scan evaluates every coarse node and then every fine node of the box
+        // one coarse step beyond those within e^10. The walks keep a run of fine nodes inside
+        // that box holding every node within e^10 of the highest fine node (the nodes left
+        // out hold less than 1e-4 of the box's mass), say whether such a node lies on a
+        // bound, evaluate no more nodes than the full scan and, for a narrow mode, fewer.
         let bounds = [(0.0, 1.0), (0.0, 0.0)];
         let (nc, refine) = (9i64, 3i64);
         let mut fewer = 0;
         let mut cases = 0;
         for mu in [-4.0, 0.0, 2.0, 5.5, 12.0, 17.0, 23.0, 24.0, 30.0] {
-            for sd in [0.7, 2.0, 5.0, 40.0] {
+            for sd in [0.3, 0.7, 2.0, 5.0, 40.0] {
                 let f = |x: i64| -0.5 * ((x as f64 - mu) / sd).powi(2);
-                let mut coarse_seen = 0;
-                let mut masses = |keys: &[(i64, i64)], kept: Option<&[(i64, i64)]>| -> Vec<f64> {
-                    if kept.is_none() {
-                        coarse_seen += keys.len();
-                    }
+                let mut evaluated = std::collections::BTreeSet::new();
+                let mut masses = |keys: &[(i64, i64)], _: Option<&[(i64, i64)]>| -> Vec<f64> {
+                    evaluated.extend(keys.iter().map(|k| k.0));
                     keys.iter().map(|k| f(k.0)).collect()
                 };
                 let (fine, _, at_bound) = range_lattice(1, bounds, nc as usize, &mut masses);
-                let (lo, hi, bound) = full_scan_box(&f, nc, refine);
-                let walked = (fine[0].0, fine[fine.len() - 1].0, at_bound[0]);
-                assert_eq!(walked, (lo, hi, bound), "mode at {mu}, SD {sd}");
-                assert_eq!(fine.len() as i64, hi - lo + 1);
-                assert!(coarse_seen <= 9, "{coarse_seen} coarse nodes");
-                fewer += usize::from(coarse_seen < 9);
+                let (lo, hi, _) = full_scan_box(&f, nc, refine);
+                let full = (nc + (hi - lo + 1)
+                    - (lo..=hi).filter(|i| i % refine == 0).count() as i64)
+                    as usize;
+                let (a, b) = (fine[0].0, fine[fine.len() - 1].0);
+                assert!(
+                    lo <= a && b <= hi,
+                    "mode at {mu}, SD {sd}: {a}..{b} in {lo}..{hi}"
+                );
+                assert_eq!(fine.len() as i64, b - a + 1);
+                assert!(fine.iter().all(|k| evaluated.contains(&k.0)));
+                let top = (lo..=hi).map(f).fold(f64::NEG_INFINITY, f64::max);
+                let heavy: Vec<i64> = (lo..=hi).filter(|&i| f(i) > top - 10.0).collect();
+                assert!(
+                    heavy.iter().all(|i| (a..=b).contains(i)),
+                    "mode at {mu}, SD {sd}"
+                );
+                let mass =
+                    |r: &mut dyn Iterator<Item = i64>| r.map(|i| (f(i) - top).exp()).sum::<f64>();
+                let left = mass(&mut (lo..=hi).filter(|i| !(a..=b).contains(i)));
+                assert!(
+                    left < 1e-4 * mass(&mut (lo..=hi)),
+                    "mode at {mu}, SD {sd}: {left}"
+                );
+                let bound = heavy.iter().any(|&i| i == 0 || i == (nc - 1) * refine);
+                assert_eq!(at_bound[0], bound, "mode at {mu}, SD {sd}");
+                assert!(
+                    evaluated.len() <= full,
+                    "{} nodes, full scan {full}",
+                    evaluated.len()
+                );
+                fewer += usize::from(evaluated.len() < full);
                 cases += 1;
+                if sd < 1.0 {
+                    assert!(evaluated.len() < full, "mode at {mu}, SD {sd}");
+                }
             }
         }
-        assert!(
-            fewer * 2 > cases,
-            "fewer coarse nodes in {fewer} of {cases} cases"
-        );
+        assert!(fewer * 2 > cases, "fewer nodes in {fewer} of {cases} cases");
     }
 
     #[test]

@@ -365,7 +365,7 @@ pub(crate) fn joint_plots(prep: &Prepared, f: usize, jf: &JointFit) -> Vec<Adjus
                 .map(|k| sm2[k] / w - mean_b[k / p] * mean_b[k % p])
                 .collect();
             let parts =
-                repr.spatial_parts(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit);
+                repr.spatial_parts(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit)?;
             let n = m.design.n();
             let mean = (0..n)
                 .map(|j| parts.mean[j] + parts.shift(j, &pt.fit.b, &mean_b))

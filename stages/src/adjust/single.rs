@@ -111,7 +111,7 @@ fn effect_at(m: &FieldModel, k: &(i64, i64), i: usize) -> Option<(Vec<f64>, Vec<
     let node: &Node = &m.nodes[k];
     let pt = &node.points[i];
     let repr = node.repr.as_ref()?;
-    Some(repr.spatial(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit))
+    repr.spatial(&m.design, pt.theta[2].exp(), pt.theta[3].exp(), &pt.fit)
 }
 
 /// The spatial effect (weight, mean, variance) at each of `pts` that has a spectral form,

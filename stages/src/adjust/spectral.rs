@@ -83,14 +83,27 @@ pub struct Repr {
     pub yy_c: f64,
     pub xx_c: Vec<f64>,
     pub xy_c: Vec<f64>,
-    /// Exact: U (n x r). Reduced rank: Phi (n x m) and S^1/2 Q diag(w)^-1/2 (m x r); U = Phi B,
-    /// made when first asked for (the spatial effects at every lattice point of this length
-    /// scale share it; an n m r product each time was most of a large field's fit).
-    u: Option<Mat<f64>>,
+    /// Exact: the length scales; U and the eigenvalues and U'X that go with it are made from
+    /// the design when first asked for (see [`Full`]). Reduced rank: Phi (n x m) and
+    /// S^1/2 Q diag(w)^-1/2 (m x r); U = Phi B, made when first asked for (the spatial effects
+    /// at every lattice point of this length scale share it; an n m r product each time was
+    /// most of a large field's fit).
+    exact_l: Option<(f64, f64)>,
+    full: std::sync::OnceLock<Option<Full>>,
     phi_b: Option<(Arc<Mat<f64>>, Mat<f64>)>,
     u_made: std::sync::OnceLock<Mat<f64>>,
     /// Reduced rank: basis functions per axis and whether the size cap bound.
     pub basis: Option<(usize, usize, bool)>,
+}
+
+/// An exact form's eigendecomposition with its eigenvectors: U, its eigenvalues and U'X (r x p,
+/// row major), from one decomposition (the likelihood's w and U'X come from the projections
+/// of [`projected::eigen_projected`], equal to these up to rounding; the spatial effects take
+/// all three from here, so that they are consistent with each other).
+struct Full {
+    u: Mat<f64>,
+    w: Vec<f64>,
+    ux: Vec<f64>,
 }
 
 /// Everything at one (s_f, s_n) given the length scale.
@@ -154,6 +167,21 @@ fn with_kernel_buffer<R>(n: usize, f: impl FnOnce(&mut Mat<f64>) -> R) -> R {
     })
 }
 
+/// The unit-variance kernel matrix of `d`'s plots at length scales `l`, its lower triangle
+/// only (the eigendecompositions read no other; the upper one of the reused matrix keeps
+/// whatever an earlier length scale left there).
+fn fill_kernel(k1: &mut Mat<f64>, d: &Design, l: (f64, f64)) {
+    let n = d.n();
+    for j in 0..n {
+        let b = d.coords[j];
+        for (i, v) in k1.col_mut(j).iter_mut().enumerate().skip(j) {
+            let a = d.coords[i];
+            let h = (((a.0 - b.0) / l.0).powi(2) + ((a.1 - b.1) / l.1).powi(2)).sqrt();
+            *v = d.kernel.cov(h, 1.0, 1.0);
+        }
+    }
+}
+
 /// The symmetric eigendecomposition of `a` from its lower triangle, as faer's
 /// `self_adjoint_eigen` computes it (same routine, parameters and parallelism), with its
 /// scratch memory kept per thread instead of allocated afresh for every length scale.
@@ -162,7 +190,6 @@ fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
     use faer::dyn_stack::{MemBuffer, MemStack};
     use faer::linalg::evd;
     use std::cell::RefCell;
-    WORK[0].fetch_add(1, std::sync::atomic::Ordering::Relaxed);
     thread_local! {
         static SCRATCH: RefCell<Option<MemBuffer>> = const { RefCell::new(None) };
     }
@@ -204,42 +231,64 @@ fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
 }
 
 impl Repr {
-    /// The exact spectral form of the kernel at length scales `l`.
+    /// The exact spectral form of the kernel at length scales `l`: its eigenvalues and the
+    /// projections U'y, U'X, without U (see [`projected`]); U is made when the spatial effects
+    /// first ask for it.
     pub fn exact(d: &Design, l: (f64, f64)) -> Option<Repr> {
-        let n = d.n();
-        // The lower triangle only: the eigendecomposition reads no other (the upper one of
-        // the reused matrix keeps whatever an earlier length scale left there).
-        let (u, w) = with_kernel_buffer(n, |k1| {
-            for j in 0..n {
-                let b = d.coords[j];
-                for (i, v) in k1.col_mut(j).iter_mut().enumerate().skip(j) {
-                    let a = d.coords[i];
-                    let h = (((a.0 - b.0) / l.0).powi(2) + ((a.1 - b.1) / l.1).powi(2)).sqrt();
-                    *v = d.kernel.cov(h, 1.0, 1.0);
+        let (n, p) = (d.n(), d.p);
+        let z = Mat::from_fn(
+            n,
+            p + 1,
+            |i, j| {
+                if j == 0 {
+                    d.y[i]
+                } else {
+                    d.x[i * p + j - 1]
                 }
-            }
-            eigen_lower(k1.as_ref())
+            },
+        );
+        WORK[0].fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+        let (w, proj) = with_kernel_buffer(n, |k1| {
+            fill_kernel(k1, d, l);
+            projected::eigen_projected(k1.as_mut(), z.as_ref())
         })?;
-        let y = Mat::from_fn(n, 1, |i, _| d.y[i]);
-        let uy_m = u.transpose() * &y;
-        let ux_m = u.transpose() * d.x_mat();
-        linalg::after_faer();
+        let k = p + 1;
+        let ux_m = Mat::from_fn(n, p, |i, j| proj[i * k + 1 + j]);
         Some(Repr {
             n,
-            p: d.p,
+            p,
             groups: d.groups.clone(),
-            w,
-            uy: (0..n).map(|i| uy_m[(i, 0)]).collect(),
-            ux: (0..n * d.p).map(|k| ux_m[(k / d.p, k % d.p)]).collect(),
-            uxt: transposed(&ux_m, d.p),
+            w: w.into_iter().map(|v: f64| v.max(0.0)).collect(),
+            uy: (0..n).map(|i| proj[i * k]).collect(),
+            ux: (0..n * p).map(|t| ux_m[(t / p, t % p)]).collect(),
+            uxt: transposed(&ux_m, p),
             yy_c: 0.0,
-            xx_c: vec![0.0; d.p * d.p],
-            xy_c: vec![0.0; d.p],
-            u: Some(u),
+            xx_c: vec![0.0; p * p],
+            xy_c: vec![0.0; p],
+            exact_l: Some(l),
+            full: Default::default(),
             u_made: Default::default(),
             phi_b: None,
             basis: None,
         })
+    }
+
+    /// The exact form's eigendecomposition with U (see [`Full`]), made on first use.
+    fn full(&self, d: &Design) -> Option<&Full> {
+        let l = self.exact_l?;
+        self.full
+            .get_or_init(|| {
+                let n = d.n();
+                let (u, w) = with_kernel_buffer(n, |k1| {
+                    fill_kernel(k1, d, l);
+                    eigen_lower(k1.as_ref())
+                })?;
+                let ux_m = u.transpose() * d.x_mat();
+                linalg::after_faer();
+                let ux = (0..n * d.p).map(|k| ux_m[(k / d.p, k % d.p)]).collect();
+                Some(Full { u, w, ux })
+            })
+            .as_ref()
     }
 
     /// No spatial field (rank 0): K_y = s_n^2 I, for the model without it.
@@ -267,7 +316,8 @@ impl Repr {
             yy_c: d.y.iter().map(|v| v * v).sum(),
             xx_c,
             xy_c,
-            u: None,
+            exact_l: None,
+            full: Default::default(),
             u_made: Default::default(),
             phi_b: None,
             basis: None,
@@ -395,43 +445,60 @@ impl Repr {
         })
     }
 
-    fn u(&self) -> &Mat<f64> {
-        match (&self.u, &self.phi_b) {
-            (Some(u), _) => u,
-            (None, Some((phi, b))) => self.u_made.get_or_init(|| {
-                let u = &**phi * b;
-                linalg::after_faer();
-                u
-            }),
-            _ => unreachable!("a representation holds U or its factors"),
+    /// U, the eigenvalues and U'X (r x p, row major) the spatial effects use: an exact form's
+    /// full eigendecomposition, or a reduced-rank form's own w and U'X with U = Phi B. None
+    /// when the exact form's eigendecomposition fails.
+    fn parts(&self, d: &Design) -> Option<(&Mat<f64>, &[f64], &[f64])> {
+        if self.exact_l.is_some() {
+            return self.full(d).map(|f| (&f.u, &f.w[..], &f.ux[..]));
         }
+        let (phi, b) = self.phi_b.as_ref()?;
+        let u = self.u_made.get_or_init(|| {
+            let u = &**phi * b;
+            linalg::after_faer();
+            u
+        });
+        Some((u, &self.w, &self.ux))
+    }
+
+    /// U (n x r), made on first use (tests).
+    #[cfg(test)]
+    fn u(&self, d: &Design) -> &Mat<f64> {
+        self.parts(d).expect("a representation with U").0
     }
 
     /// Posterior mean and variance of the spatial effect at the plots given (s_f, s_n) and
     /// the GLS fit `fit`, including the uncertainty of the mean parameters (R&W 2006 eq. 2.42):
     /// mean K Ky^-1 r; variance diag(K - K Ky^-1 K + R' cov(b) R), R = X' Ky^-1 K.
-    pub fn spatial(&self, d: &Design, sf: f64, sn: f64, fit: &Inner) -> (Vec<f64>, Vec<f64>) {
-        let parts = self.spatial_parts(d, sf, sn, fit);
+    /// None when U cannot be made (an exact form's eigendecomposition fails).
+    pub fn spatial(
+        &self,
+        d: &Design,
+        sf: f64,
+        sn: f64,
+        fit: &Inner,
+    ) -> Option<(Vec<f64>, Vec<f64>)> {
+        let parts = self.spatial_parts(d, sf, sn, fit)?;
         let quad = parts.quads(&fit.cov);
         let var = (0..self.n).map(|i| parts.cond_var[i] + quad[i]).collect();
-        (parts.mean, var)
+        Some((parts.mean, var))
     }
 
     /// The pieces of [`Repr::spatial`]: the mean at the GLS fit, the variance with the mean
     /// parameters known, and R' = K Ky^-1 X (n x p), so that other mean-parameter moments
     /// (from a joint fit) give mean + R'(b_hat - E b) and cond + diag(R' Cov b R).
-    pub fn spatial_parts(&self, d: &Design, sf: f64, sn: f64, fit: &Inner) -> SpatialParts {
-        let (n, p, r) = (self.n, self.p, self.w.len());
-        let u = self.u();
+    pub fn spatial_parts(&self, d: &Design, sf: f64, sn: f64, fit: &Inner) -> Option<SpatialParts> {
+        let (u, w, ux) = self.parts(d)?;
+        let (n, p, r) = (self.n, self.p, w.len());
         let (vf, vn) = (sf * sf, sn * sn);
-        let g: Vec<f64> = self.w.iter().map(|w| vf * w / (vf * w + vn)).collect();
+        let g: Vec<f64> = w.iter().map(|w| vf * w / (vf * w + vn)).collect();
         let resid = Mat::from_fn(n, 1, |i, _| {
             d.y[i] - (0..p).map(|j| d.x[i * p + j] * fit.b[j]).sum::<f64>()
         });
         let ur = u.transpose() * &resid;
         let gur = Mat::from_fn(r, 1, |i, _| g[i] * ur[(i, 0)]);
         let mean_m = u * &gur;
-        let gux = Mat::from_fn(r, p, |i, j| g[i] * self.ux[i * p + j]);
+        let gux = Mat::from_fn(r, p, |i, j| g[i] * ux[i * p + j]);
         let rt_m = u * &gux;
         linalg::after_faer();
         // Random groups belong to the position too: the effect at plot i is g_i + z_i'u,
@@ -448,7 +515,7 @@ impl Repr {
                 }
             }
         }
-        SpatialParts {
+        Some(SpatialParts {
             p,
             mean,
             cond_var: {
@@ -463,7 +530,7 @@ impl Repr {
                 acc
             },
             rt,
-        }
+        })
     }
 }
 
@@ -566,6 +633,7 @@ impl LogSum {
 }
 
 mod basis;
+mod projected;
 
 #[cfg(test)]
 mod tests;

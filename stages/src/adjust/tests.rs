@@ -529,7 +529,7 @@ fn spectral_evaluation_equals_the_dense_cholesky_evaluation() {
                     assert!((e.cov[a * d.p + b] - dense.cov_b[(a, b)]).abs() < 1e-9);
                 }
             }
-            let (m, v) = rep.spatial(d, sf, sn, &e);
+            let (m, v) = rep.spatial(d, sf, sn, &e).unwrap();
             for i in 0..d.n() {
                 assert!((m[i] - dense.spatial_mean[i]).abs() < 1e-8);
                 assert!((v[i] - dense.spatial_var[i]).abs() < 1e-8);
