@@ -10,17 +10,45 @@ use polars::prelude::{
 };
 use std::path::Path;
 
-fn write_parquet(path: &Path, columns: Vec<Column>) -> Result<()> {
-    let height = columns.first().map(|c| c.len()).unwrap_or(0);
-    let mut df = DataFrame::new(height, columns)?;
+/// Rows per row group of a point table: polars' own default, so that a table of up to this
+/// many rows is written exactly as one `finish` writes it.
+const ROW_GROUP: usize = 512 * 512;
+
+/// A point table of `n` rows as Parquet, its columns made by `group` for one run of rows at a
+/// time: a table of up to [`ROW_GROUP`] rows in one frame, a longer one a row group at a
+/// time, so that no copy of the whole table is held beside the records it comes from (on
+/// the 2.07 M-point harvest the writer of clean's table, running beside the plots stage,
+/// held the whole run's peak memory).
+fn write_parquet(
+    path: &Path,
+    n: usize,
+    group: impl Fn(std::ops::Range<usize>) -> Vec<Column>,
+) -> Result<()> {
+    let frame = |rows: std::ops::Range<usize>| -> Result<DataFrame> {
+        let height = rows.len();
+        Ok(DataFrame::new(height, group(rows))?)
+    };
     // LZ4 (the Parquet codec LZ4_RAW): on the 2.07 M-point harvest the front half inside
     // `run` took 15.0 s against 17.9 s with zstd (medians of alternating runs), for files
     // 38 % larger; the tables read back are the same (docs/benchmarks.md).
-    write_atomic_with(path, |w| {
+    fn writer<W: std::io::Write>(w: W) -> ParquetWriter<W> {
         ParquetWriter::new(w)
             .with_compression(ParquetCompression::Lz4Raw)
             .set_parallel(true)
-            .finish(&mut df)?;
+    }
+    write_atomic_with(path, |w| {
+        if n <= ROW_GROUP {
+            writer(w).finish(&mut frame(0..n)?)?;
+            return Ok(());
+        }
+        let first = frame(0..ROW_GROUP)?;
+        let mut batched = writer(w).batched(first.schema())?;
+        batched.write_batch(&first)?;
+        drop(first);
+        for start in (ROW_GROUP..n).step_by(ROW_GROUP) {
+            batched.write_batch(&frame(start..(start + ROW_GROUP).min(n))?)?;
+        }
+        batched.finish()?;
         Ok(())
     })
 }
@@ -43,7 +71,29 @@ fn f64_columns<const N: usize>(
         .map(|(name, v)| Column::new(name.into(), v))
 }
 
-fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point>) -> Vec<Column> {
+/// Which of the optional base columns a table has: yields given by a yield-point export and
+/// as-applied rates, each only where some record has one (decided over the whole table, so
+/// that every row group has the same columns).
+#[derive(Clone, Copy)]
+struct Optional {
+    given: bool,
+    applied: bool,
+}
+
+impl Optional {
+    fn of<'a>(mut pts: impl Iterator<Item = &'a Point> + Clone) -> Optional {
+        Optional {
+            given: pts.clone().any(|p| p.yield_kg_ha.is_finite()),
+            applied: pts.any(|p| p.applied_rate.is_finite()),
+        }
+    }
+}
+
+fn base_columns<'a>(
+    files: &[String],
+    pts: impl Iterator<Item = &'a Point>,
+    optional: Optional,
+) -> Vec<Column> {
     // One pass over the records into every column (a record is 128 bytes: a pass per column
     // would stream the whole table once per column).
     let n = pts.size_hint().0;
@@ -101,11 +151,11 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point>) -> V
     ];
     cols.extend(f64_columns(F64, vals));
     // Yields given by a yield-point export (the column only where there are some).
-    if given.iter().any(|v| v.is_finite()) {
+    if optional.given {
         cols.push(Column::new("yield_given_kg_ha".into(), given));
     }
     // As-applied rates (base units per hectare; the column only where there are some).
-    if applied.iter().any(|v| v.is_finite()) {
+    if optional.applied {
         cols.push(Column::new("applied_rate_per_ha".into(), applied));
     }
     cols
@@ -113,10 +163,14 @@ fn base_columns<'a>(files: &[String], pts: impl Iterator<Item = &'a Point>) -> V
 
 /// Ingest's `points.parquet`.
 pub fn write_points(path: &Path, set: &PointSet) -> Result<()> {
-    write_parquet(path, base_columns(&set.files, set.points.iter()))
+    let optional = Optional::of(set.points.iter());
+    write_parquet(path, set.points.len(), |rows| {
+        base_columns(&set.files, set.points[rows].iter(), optional)
+    })
 }
 
-/// Clean's (and, with plot ids, plots') `points.parquet`.
+/// Clean's (and, with plot ids, plots') `points.parquet`: `yield_out` and `plot_ids` hold a
+/// value per point.
 pub fn write_clean_points(
     path: &Path,
     files: &[String],
@@ -124,7 +178,23 @@ pub fn write_clean_points(
     yield_out: Option<(&str, Vec<f64>)>,
     plot_ids: Option<Vec<&str>>,
 ) -> Result<()> {
-    let mut cols = base_columns(files, pts.iter().map(|p| &p.base));
+    let optional = Optional::of(pts.iter().map(|p| &p.base));
+    write_parquet(path, pts.len(), |rows| {
+        clean_columns(files, pts, rows, optional, &yield_out, &plot_ids)
+    })
+}
+
+/// The columns of rows `rows` of a clean point table (see [`write_clean_points`]).
+fn clean_columns(
+    files: &[String],
+    pts: &[CleanPoint],
+    rows: std::ops::Range<usize>,
+    optional: Optional,
+    yield_out: &Option<(&str, Vec<f64>)>,
+    plot_ids: &Option<Vec<&str>>,
+) -> Vec<Column> {
+    let pts = &pts[rows.clone()];
+    let mut cols = base_columns(files, pts.iter().map(|p| &p.base), optional);
     let n = pts.len();
     let mut pass: Vec<u32> = Vec::with_capacity(n);
     let mut vals: [Vec<f64>; 4] = std::array::from_fn(|_| Vec::with_capacity(n));
@@ -151,12 +221,12 @@ pub fn write_clean_points(
         vals,
     ));
     if let Some((name, v)) = yield_out {
-        cols.push(Column::new(name.into(), v));
+        cols.push(Column::new((*name).into(), &v[rows.clone()]));
     }
     if let Some(ids) = plot_ids {
-        cols.push(Column::new("plot_id".into(), ids));
+        cols.push(Column::new("plot_id".into(), &ids[rows]));
     }
-    write_parquet(path, cols)
+    cols
 }
 
 fn read_df(path: &Path, upstream: &str) -> Result<DataFrame> {
@@ -462,156 +532,4 @@ pub fn read_clean_points(path: &Path) -> Result<(Vec<String>, Vec<CleanPoint>)> 
 }
 
 #[cfg(test)]
-mod tests {
-    use super::*;
-    use polars::prelude::{ChunkedArray, Float64Type, IntoColumn, IntoSeries, NamedFrom};
-
-    #[test]
-    fn f64_columns_are_copied_chunk_by_chunk_with_missing_values_as_nan() {
-        // Three chunks (as row groups read back give), nulls in the second, against the
-        // value-by-value reading.
-        let a: ChunkedArray<Float64Type> =
-            ChunkedArray::new("v".into(), &[Some(1.5), Some(-0.0), Some(f64::NAN)]);
-        let b: ChunkedArray<Float64Type> =
-            ChunkedArray::new("v".into(), &[None, Some(2.0), None, Some(f64::INFINITY)]);
-        let c: ChunkedArray<Float64Type> = ChunkedArray::new("v".into(), &[Some(7.0)]);
-        let mut ca = a;
-        ca.append(&b).unwrap();
-        ca.append(&c).unwrap();
-        assert_eq!(ca.chunks().len(), 3);
-        let expected: Vec<f64> = ca.iter().map(|v| v.unwrap_or(f64::NAN)).collect();
-        let mut df = DataFrame::new(8, vec![ca.into_series().into_column()]).unwrap();
-        let mut rows = vec![0.25f64; 8];
-        fill_f64(&mut df, "v", Path::new("t.parquet"), &mut rows, |r, v| {
-            *r = v
-        })
-        .unwrap();
-        let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<u64>>();
-        assert_eq!(bits(&rows), bits(&expected));
-        assert!(rows[3].is_nan() && rows[5].is_nan() && rows[1].is_sign_negative());
-        // The column is gone from the frame once copied.
-        assert!(df.column("v").is_err());
-    }
-
-    fn point(id: u64, file: u32, given: f64) -> Point {
-        Point {
-            id,
-            file,
-            row: id + 2,
-            time_s: 1.0e9 + id as f64,
-            lon: -97.8 + 1e-7 * id as f64,
-            lat: 40.6,
-            x_m: 601_551.696_9 + 0.1 * id as f64,
-            y_m: 4_495_092.999_9,
-            flow_kg_s: if id == 1 { -0.0 } else { 1.0 / 3.0 },
-            speed_m_s: 2.0,
-            width_m: 9.144,
-            moisture_pct: f64::NAN,
-            work_state: 1.0,
-            hdop: f64::NAN,
-            fix_quality: 4.0,
-            applied_rate: f64::NAN,
-            yield_kg_ha: given,
-        }
-    }
-
-    #[test]
-    fn a_table_handed_on_in_memory_is_the_table_read_back() {
-        // Four exports: the first and third without records, the last without records; a
-        // given yield that is infinite (not finite: the column is not written).
-        let dir = std::env::temp_dir().join(format!("plotsieve-handoff-{}", std::process::id()));
-        std::fs::create_dir_all(&dir).unwrap();
-        let path = dir.join("points.parquet");
-        let files: Vec<String> = ["a.csv", "b.csv", "c.csv", "d.csv", "e.csv"]
-            .map(String::from)
-            .to_vec();
-        let points: Vec<Point> = (0..5)
-            .map(|i| point(i, [1, 3, 1, 3, 1][i as usize], f64::INFINITY))
-            .collect();
-        let set = PointSet {
-            files: files.clone(),
-            points,
-            epsg: 32614,
-        };
-        write_points(&path, &set).unwrap();
-        let back = read_points(&path, 32614).unwrap();
-        let mut mem = set.points.clone();
-        let mem_files = as_read_back(&set.files, &mut mem, |p| p);
-        assert_eq!(mem_files, ["", "b.csv", "", "d.csv"]);
-        assert_eq!(back.files, mem_files);
-        // Debug text: NaN equals NaN there, and -0.0 differs from 0.0.
-        assert_eq!(format!("{:?}", back.points), format!("{:?}", mem));
-        assert!(mem.iter().all(|p| p.yield_kg_ha.is_nan()));
-        // Clean's table, with its derived columns, likewise.
-        let mut clean: Vec<CleanPoint> = mem
-            .iter()
-            .map(|p| CleanPoint {
-                base: Point {
-                    yield_kg_ha: 7.5,
-                    ..p.clone()
-                },
-                pass: p.id as u32 * 3,
-                flow_shifted_kg_s: 0.1,
-                moisture_shifted_pct: f64::NAN,
-                yield_wet_kg_ha: 1e4 / 3.0,
-                yield_std_kg_ha: -0.0,
-            })
-            .filter(|c| c.base.file != 3)
-            .collect();
-        write_clean_points(
-            &path,
-            &back.files,
-            &clean,
-            Some(("yield_t_ha", vec![1.0; 3])),
-            None,
-        )
-        .unwrap();
-        let (cf, cp) = read_clean_points(&path).unwrap();
-        let mem_files = as_read_back(&back.files, &mut clean, |c| &mut c.base);
-        assert_eq!(mem_files, ["", "b.csv"]);
-        assert_eq!(cf, mem_files);
-        assert_eq!(format!("{cp:?}"), format!("{clean:?}"));
-        std::fs::remove_dir_all(&dir).ok();
-    }
-
-    #[test]
-    fn map_points_carry_the_full_reads_ids_positions_and_yield_values() {
-        let dir = std::env::temp_dir().join(format!("plotsieve-mappts-{}", std::process::id()));
-        std::fs::create_dir_all(&dir).unwrap();
-        let path = dir.join("points.parquet");
-        // With given yields on some records, and without the column at all.
-        for given in [[2500.5, f64::NAN, 7.0], [f64::NAN; 3]] {
-            let set = PointSet {
-                files: vec!["a.csv".into(), "b.csv".into()],
-                points: (0..3)
-                    .map(|i| point(i, i as u32 % 2, given[i as usize]))
-                    .collect(),
-                epsg: 32614,
-            };
-            write_points(&path, &set).unwrap();
-            let full = read_points(&path, 32614).unwrap().points;
-            // The yield from the values a record's yield comes from (a made-up formula
-            // that uses each of them).
-            let yield_of = |p: &Point| {
-                if p.yield_kg_ha.is_finite() {
-                    p.yield_kg_ha
-                } else {
-                    p.flow_kg_s / (p.speed_m_s * p.width_m) * (100.0 - p.moisture_pct)
-                }
-            };
-            let map = read_map_points(&path, yield_of).unwrap();
-            let want: Vec<MapRecord> = full
-                .iter()
-                .map(|p| MapRecord {
-                    id: p.id,
-                    x_m: p.x_m,
-                    y_m: p.y_m,
-                    yield_kg_ha: yield_of(p),
-                })
-                .collect();
-            assert_eq!(format!("{map:?}"), format!("{want:?}"));
-            assert_eq!(map[0].yield_kg_ha == 2500.5, given[0].is_finite());
-        }
-        std::fs::remove_dir_all(&dir).ok();
-    }
-}
+mod tests;
