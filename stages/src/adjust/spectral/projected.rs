@@ -87,6 +87,23 @@ pub(crate) fn eigen_projected(
     Some((w, proj))
 }
 
+/// sqrt(a^2 + b^2) without overflow or underflow, as the larger magnitude times
+/// sqrt(1 + t^2), t the ratio of the smaller to it: one division and one square root (the
+/// C library's `hypot`, exact to the last bit, was a third of the rotations' time). Differs
+/// from it in the last bits only.
+fn hypot(a: f64, b: f64) -> f64 {
+    if a.is_nan() || b.is_nan() {
+        return f64::NAN;
+    }
+    let (a, b) = (a.abs(), b.abs());
+    let (big, small) = if a >= b { (a, b) } else { (b, a) };
+    if big == 0.0 || big.is_infinite() {
+        return big;
+    }
+    let t = small / big;
+    big * (1.0 + t * t).sqrt()
+}
+
 /// The implicit QL algorithm on the symmetric tridiagonal matrix with diagonal `d` and
 /// subdiagonal `e` (e[i] couples i and i + 1; e[n - 1] is not read): `d` becomes the
 /// eigenvalues (unordered) and each of the k vectors held in `z` (row major n x k: row i holds
@@ -98,6 +115,14 @@ pub(crate) fn ql_implicit(d: &mut [f64], e: &mut [f64], z: &mut [f64], k: usize)
         return Some(());
     }
     e[n - 1] = 0.0;
+    // A subdiagonal below eps times the matrix's norm is negligible however small the
+    // diagonal beside it: an eigenvalue is then found to eps |T| absolutely (the likelihood
+    // adds the noise variance to every eigenvalue, so no more is needed), and the many tiny
+    // eigenvalues of a smooth kernel do not take iterations to resolve relatively.
+    let norm = (0..n)
+        .map(|i| d[i].abs() + e[i].abs() + if i > 0 { e[i - 1].abs() } else { 0.0 })
+        .fold(0.0, f64::max);
+    let small = f64::EPSILON * norm;
     for l in 0..n {
         let mut iter = 0;
         loop {
@@ -105,7 +130,7 @@ pub(crate) fn ql_implicit(d: &mut [f64], e: &mut [f64], z: &mut [f64], k: usize)
             let mut m = l;
             while m + 1 < n {
                 let dd = d[m].abs() + d[m + 1].abs();
-                if e[m].abs() <= f64::EPSILON * dd {
+                if e[m].abs() <= f64::EPSILON * dd || e[m].abs() <= small {
                     break;
                 }
                 m += 1;
@@ -119,7 +144,7 @@ pub(crate) fn ql_implicit(d: &mut [f64], e: &mut [f64], z: &mut [f64], k: usize)
             }
             // Shift from the leading 2 x 2 block.
             let mut g = (d[l + 1] - d[l]) / (2.0 * e[l]);
-            let mut r = g.hypot(1.0);
+            let mut r = hypot(g, 1.0);
             g = d[m] - d[l] + e[l] / (g + r.copysign(g));
             let (mut s, mut c, mut p) = (1.0, 1.0, 0.0);
             let mut i = m;
@@ -128,7 +153,7 @@ pub(crate) fn ql_implicit(d: &mut [f64], e: &mut [f64], z: &mut [f64], k: usize)
                 i -= 1;
                 let f = s * e[i];
                 let b = c * e[i];
-                r = f.hypot(g);
+                r = hypot(f, g);
                 e[i + 1] = r;
                 if r == 0.0 {
                     // Recover from underflow: the matrix splits here.
@@ -223,6 +248,23 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn hypot_agrees_with_the_library_s_to_the_last_bits() {
+        let mut rng = Rng::new(9);
+        let mut worst: f64 = 0.0;
+        for _ in 0..100_000 {
+            let a = rng.normal() * 10f64.powf(rng.range(-300.0, 300.0));
+            let b = rng.normal() * 10f64.powf(rng.range(-300.0, 300.0));
+            let (mine, lib) = (hypot(a, b), a.hypot(b));
+            worst = worst.max((mine - lib).abs() / lib);
+        }
+        assert!(worst < 4.0 * f64::EPSILON, "{worst}");
+        assert_eq!(hypot(0.0, -0.0), 0.0);
+        assert_eq!(hypot(3.0, -4.0), 5.0);
+        assert_eq!(hypot(f64::INFINITY, 1.0), f64::INFINITY);
+        assert!(hypot(f64::NAN, 0.0).is_nan());
     }
 
     #[test]
