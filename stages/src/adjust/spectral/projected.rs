@@ -122,7 +122,18 @@ pub(crate) fn ql_implicit(d: &mut [f64], e: &mut [f64], z: &mut [f64], k: usize)
     let norm = (0..n)
         .map(|i| d[i].abs() + e[i].abs() + if i > 0 { e[i - 1].abs() } else { 0.0 })
         .fold(0.0, f64::max);
-    let small = f64::EPSILON * norm;
+    if !(norm > 0.0 && norm.is_finite()) {
+        return (norm == 0.0).then_some(());
+    }
+    // Scaled by a power of two (exactly) to a norm in (1/2, 1], so that the rotations'
+    // sqrt(f^2 + g^2) neither overflows nor, for any value not negligible against the
+    // norm, underflows: one square root and one division a rotation, where a careful
+    // hypot and two divisions were half of the QL's time.
+    let scale = 2f64.powi(-(norm.log2().ceil() as i32));
+    for v in d.iter_mut().chain(e.iter_mut()) {
+        *v *= scale;
+    }
+    let small = f64::EPSILON * norm * scale;
     for l in 0..n {
         let mut iter = 0;
         loop {
@@ -153,7 +164,7 @@ pub(crate) fn ql_implicit(d: &mut [f64], e: &mut [f64], z: &mut [f64], k: usize)
                 i -= 1;
                 let f = s * e[i];
                 let b = c * e[i];
-                r = hypot(f, g);
+                r = (f * f + g * g).sqrt();
                 e[i + 1] = r;
                 if r == 0.0 {
                     // Recover from underflow: the matrix splits here.
@@ -162,8 +173,9 @@ pub(crate) fn ql_implicit(d: &mut [f64], e: &mut [f64], z: &mut [f64], k: usize)
                     underflow = true;
                     break;
                 }
-                s = f / r;
-                c = g / r;
+                let inv = 1.0 / r;
+                s = f * inv;
+                c = g * inv;
                 g = d[i + 1] - p;
                 r = (d[i] - g) * s + 2.0 * c * b;
                 p = s * r;
@@ -183,6 +195,9 @@ pub(crate) fn ql_implicit(d: &mut [f64], e: &mut [f64], z: &mut [f64], k: usize)
             e[l] = g;
             e[m] = 0.0;
         }
+    }
+    for v in d.iter_mut() {
+        *v /= scale;
     }
     Some(())
 }
