@@ -404,7 +404,6 @@ fn fine_walk(
         .max_by(|a, b| a.1.total_cmp(b.1).then(b.0.cmp(a.0)))
         .map(|(i, _)| i)
         .unwrap_or(&0);
-    eval(&[best - 1, best + 1], &mut seen);
     let (lo, hi, top) = walk(&mut seen, best, box_lo..=box_hi, FINE_KEEP, &mut eval);
     let keys: Vec<(i64, i64)> = (lo..=hi).map(|i| (i, 0)).collect();
     // Only the kept nodes hold forms from here on.
@@ -420,8 +419,10 @@ fn at(seen: &BTreeMap<i64, f64>, i: i64) -> f64 {
     seen.get(&i).copied().unwrap_or(f64::NEG_INFINITY)
 }
 
-/// The walk both axes' lattices share: from `best` (whose neighbours `seen` holds) uphill one
-/// node at a time to the highest, evaluating the neighbours of each node it reaches, then
+/// The walk both axes' lattices share: from `best` uphill one node at a time to the highest,
+/// evaluating the neighbours of each node it reaches (the left one only where the right one
+/// is not higher or the left one was seen: a walk that starts uphill to the right never
+/// needs the node left of its start), then
 /// outwards on each side until a node's log mass falls more than `drop` below the highest or
 /// `range` ends (both sides in one batch, so that their nodes are evaluated side by side).
 /// `eval` evaluates the nodes it is given that are in range and not yet seen. Returns the
@@ -434,16 +435,23 @@ fn walk(
     eval: &mut dyn FnMut(&[i64], &mut BTreeMap<i64, f64>),
 ) -> (i64, i64, f64) {
     loop {
-        let (l, r, here) = (at(seen, best - 1), at(seen, best + 1), at(seen, best));
-        let next = if l > here && l >= r {
+        let here = at(seen, best);
+        eval(&[best + 1], seen);
+        // Uphill to the right with the left neighbour not seen: no need to see it.
+        let left_unseen = range.contains(&(best - 1)) && !seen.contains_key(&(best - 1));
+        if left_unseen && at(seen, best + 1) > here {
+            best += 1;
+            continue;
+        }
+        eval(&[best - 1], seen);
+        let (l, r) = (at(seen, best - 1), at(seen, best + 1));
+        best = if l > here && l >= r {
             best - 1
         } else if r > here {
             best + 1
         } else {
             break;
         };
-        best = next;
-        eval(&[best - 1, best + 1], seen);
     }
     let top = at(seen, best);
     let (mut lo, mut hi) = (best, best);
