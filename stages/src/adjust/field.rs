@@ -276,7 +276,7 @@ pub fn log_sum_exp(v: impl Iterator<Item = f64>) -> f64 {
 /// fine lattice) and returns each one's log mass (prior + log Z); it is also given, when
 /// nodes may be let go, the nodes that stay (every other node's spectral form is freed).
 /// Returns the fine nodes kept, the fine spacing per axis and whether the mass touches a
-/// bound.
+/// bound. `eager`: the fine walk evaluates both neighbours of a node at once (see [`walk`]).
 ///
 /// One axis: a walk over the coarse nodes (`coarse_walk`), then the same walk over the fine
 /// nodes from the best coarse one (`fine_walk`): the fine nodes kept are a run from the one
@@ -286,6 +286,7 @@ pub fn range_lattice(
     dims: usize,
     bounds: [(f64, f64); 2],
     coarse: usize,
+    eager: bool,
     masses: &mut dyn FnMut(&[(i64, i64)], Option<&[(i64, i64)]>) -> Vec<f64>,
 ) -> (Vec<(i64, i64)>, [f64; 2], [bool; 2]) {
     let refine: i64 = if dims == 1 { 3 } else { 2 };
@@ -296,7 +297,7 @@ pub fn range_lattice(
     let maxc = (nc - 1) * refine;
     if dims == 1 {
         let (coarse_nodes, m) = coarse_walk(nc, refine, masses);
-        let (keys, at_bound) = fine_walk(&coarse_nodes, &m, refine, maxc, masses);
+        let (keys, at_bound) = fine_walk(&coarse_nodes, &m, refine, maxc, eager, masses);
         return (keys, [h[0], h[1]], [at_bound, false]);
     }
     let coarse_nodes: Vec<(i64, i64)> = (0..nc)
@@ -365,6 +366,7 @@ fn fine_walk(
     m: &[f64],
     refine: i64,
     maxc: i64,
+    eager: bool,
     masses: &mut dyn FnMut(&[(i64, i64)], Option<&[(i64, i64)]>) -> Vec<f64>,
 ) -> (Vec<(i64, i64)>, bool) {
     let mut seen: BTreeMap<i64, f64> = coarse.iter().map(|k| k.0).zip(m.iter().copied()).collect();
@@ -404,7 +406,14 @@ fn fine_walk(
         .max_by(|a, b| a.1.total_cmp(b.1).then(b.0.cmp(a.0)))
         .map(|(i, _)| i)
         .unwrap_or(&0);
-    let (lo, hi, top) = walk(&mut seen, best, box_lo..=box_hi, FINE_KEEP, &mut eval);
+    let (lo, hi, top) = walk(
+        &mut seen,
+        best,
+        box_lo..=box_hi,
+        FINE_KEEP,
+        eager,
+        &mut eval,
+    );
     let keys: Vec<(i64, i64)> = (lo..=hi).map(|i| (i, 0)).collect();
     // Only the kept nodes hold forms from here on.
     masses(&[], Some(&keys));
@@ -420,9 +429,10 @@ fn at(seen: &BTreeMap<i64, f64>, i: i64) -> f64 {
 }
 
 /// The walk both axes' lattices share: from `best` uphill one node at a time to the highest,
-/// evaluating the neighbours of each node it reaches (the left one only where the right one
-/// is not higher or the left one was seen: a walk that starts uphill to the right never
-/// needs the node left of its start), then
+/// evaluating the neighbours of each node it reaches (both at once when `eager`, so that they
+/// are evaluated side by side; otherwise the left one only where the right one is not higher
+/// or the left one was seen: a walk that starts uphill to the right never needs the node left
+/// of its start, which saves a node where other work keeps the threads busy), then
 /// outwards on each side until a node's log mass falls more than `drop` below the highest or
 /// `range` ends (both sides in one batch, so that their nodes are evaluated side by side).
 /// `eval` evaluates the nodes it is given that are in range and not yet seen. Returns the
@@ -432,11 +442,16 @@ fn walk(
     mut best: i64,
     range: std::ops::RangeInclusive<i64>,
     drop: f64,
+    eager: bool,
     eval: &mut dyn FnMut(&[i64], &mut BTreeMap<i64, f64>),
 ) -> (i64, i64, f64) {
     loop {
         let here = at(seen, best);
-        eval(&[best + 1], seen);
+        if eager {
+            eval(&[best - 1, best + 1], seen);
+        } else {
+            eval(&[best + 1], seen);
+        }
         // Uphill to the right with the left neighbour not seen: no need to see it.
         let left_unseen = range.contains(&(best - 1)) && !seen.contains_key(&(best - 1));
         if left_unseen && at(seen, best + 1) > here {
@@ -505,7 +520,7 @@ fn coarse_walk(
     };
     let best = (nc - 1) / 2;
     eval(&[best - 1, best, best + 1], &mut seen);
-    walk(&mut seen, best, 0..=nc - 1, 10.0, &mut eval);
+    walk(&mut seen, best, 0..=nc - 1, 10.0, true, &mut eval);
     seen.into_iter().map(|(i, v)| ((i * refine, 0), v)).unzip()
 }
 
@@ -539,15 +554,19 @@ mod tests {
         let (nc, refine) = (9i64, 3i64);
         let mut fewer = 0;
         let mut cases = 0;
-        for mu in [-4.0, 0.0, 2.0, 5.5, 12.0, 17.0, 23.0, 24.0, 30.0] {
-            for sd in [0.3, 0.7, 2.0, 5.0, 40.0] {
+        for (mu, sd, eager) in [-4.0, 0.0, 2.0, 5.5, 12.0, 17.0, 23.0, 24.0, 30.0]
+            .into_iter()
+            .flat_map(|mu| [0.3, 0.7, 2.0, 5.0, 40.0].map(|sd| (mu, sd)))
+            .flat_map(|(mu, sd)| [(mu, sd, false), (mu, sd, true)])
+        {
+            {
                 let f = |x: i64| -0.5 * ((x as f64 - mu) / sd).powi(2);
                 let mut evaluated = std::collections::BTreeSet::new();
                 let mut masses = |keys: &[(i64, i64)], _: Option<&[(i64, i64)]>| -> Vec<f64> {
                     evaluated.extend(keys.iter().map(|k| k.0));
                     keys.iter().map(|k| f(k.0)).collect()
                 };
-                let (fine, _, at_bound) = range_lattice(1, bounds, nc as usize, &mut masses);
+                let (fine, _, at_bound) = range_lattice(1, bounds, nc as usize, eager, &mut masses);
                 let (lo, hi, _) = full_scan_box(&f, nc, refine);
                 let full = (nc + (hi - lo + 1)
                     - (lo..=hi).filter(|i| i % refine == 0).count() as i64)
@@ -604,7 +623,7 @@ mod tests {
                 })
                 .collect()
         };
-        let (fine, _, at_bound) = range_lattice(1, bounds, 9, &mut masses);
+        let (fine, _, at_bound) = range_lattice(1, bounds, 9, false, &mut masses);
         assert_eq!(
             (fine[0].0, fine[fine.len() - 1].0, at_bound[0]),
             (0, 6, false)

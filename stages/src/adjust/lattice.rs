@@ -74,8 +74,8 @@ pub(crate) fn lattice_h(dims: usize, bounds: [(f64, f64); 2], coarse: usize) -> 
     ]
 }
 
-/// Scans one field's length scales on its own lattice.
-pub(crate) fn scan_own(m: &mut FieldModel, s: &FitSettings) -> Lattice {
+/// Scans one field's length scales on its own lattice (`eager`: see `field::range_lattice`).
+pub(crate) fn scan_own(m: &mut FieldModel, s: &FitSettings, eager: bool) -> Lattice {
     let dims = if m.anisotropic { 2 } else { 1 };
     let bounds = m.bounds;
     let h = lattice_h(dims, bounds, s.range_grid_points);
@@ -92,7 +92,7 @@ pub(crate) fn scan_own(m: &mut FieldModel, s: &FitSettings) -> Lattice {
             })
             .collect()
     };
-    lattice(dims, bounds, rho0, s.range_grid_points, &mut masses)
+    lattice(dims, bounds, rho0, s.range_grid_points, eager, &mut masses)
 }
 
 /// Frees the spectral forms of the nodes other than `keys`: called with the coarse nodes that
@@ -107,8 +107,9 @@ fn release_unused(m: &mut FieldModel, keys: &[(i64, i64)]) {
     }
 }
 
-/// Scans all fields on one shared lattice of length scales.
-pub(crate) fn scan_shared(models: &mut [FieldModel], s: &FitSettings) -> Lattice {
+/// Scans all fields on one shared lattice of length scales (`eager`: see
+/// `field::range_lattice`).
+pub(crate) fn scan_shared(models: &mut [FieldModel], s: &FitSettings, eager: bool) -> Lattice {
     let aniso = models[0].anisotropic;
     let dims = if aniso { 2 } else { 1 };
     let bounds = [0, 1].map(|d| {
@@ -149,7 +150,7 @@ pub(crate) fn scan_shared(models: &mut [FieldModel], s: &FitSettings) -> Lattice
             })
             .collect()
     };
-    lattice(dims, bounds, rho0, s.range_grid_points, &mut masses)
+    lattice(dims, bounds, rho0, s.range_grid_points, eager, &mut masses)
 }
 
 /// The refined length-scale lattice (`field::range_lattice`) as a [`Lattice`].
@@ -158,9 +159,10 @@ pub(crate) fn lattice(
     bounds: [(f64, f64); 2],
     rho0: (f64, f64),
     coarse: usize,
+    eager: bool,
     masses: &mut dyn FnMut(&[(i64, i64)], Option<&[(i64, i64)]>) -> Vec<f64>,
 ) -> Lattice {
-    let (keys, h, at_bound) = range_lattice(dims, bounds, coarse, masses);
+    let (keys, h, at_bound) = range_lattice(dims, bounds, coarse, eager, masses);
     Lattice {
         keys,
         bounds,

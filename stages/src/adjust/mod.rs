@@ -79,6 +79,7 @@ pub mod response;
 mod response_draws;
 pub mod settings;
 mod single;
+mod spacing;
 pub mod spectral;
 
 pub use compare::*;
@@ -233,12 +234,16 @@ pub fn run_with(
         2 * preps.len() as u64 + u64::from(joint),
         "field scans and fits",
     );
+    // Fewer fields than threads: a field's walk over the length scales evaluates both
+    // neighbours of a node side by side (with more, the fields keep the threads busy and the
+    // walk saves the node it can).
+    let eager = preps.len() < rayon::current_num_threads();
     let lats: Vec<Lattice> = if shared {
         let mut models: Vec<FieldModel> = preps
             .iter_mut()
             .map(|p| std::mem::replace(&mut p.model, placeholder()))
             .collect();
-        let lat = scan_shared(&mut models, s);
+        let lat = scan_shared(&mut models, s, eager);
         for (p, m) in preps.iter_mut().zip(models) {
             p.model = m;
             progress.step();
@@ -248,7 +253,7 @@ pub fn run_with(
         preps
             .par_iter_mut()
             .map(|p| {
-                let lat = scan_own(&mut p.model, s);
+                let lat = scan_own(&mut p.model, s, eager);
                 progress.step();
                 lat
             })

@@ -87,7 +87,7 @@ pub fn prepare<'a>(
             }
         })
         .collect();
-    let (dmin, dmax, amin) = spacing(&coords);
+    let (dmin, dmax, amin) = super::spacing::spacing(&coords);
     if !dmin.is_finite() {
         return Err(format!("field {field}: all plots share one position"));
     }
@@ -189,41 +189,6 @@ fn fixed_columns(
         }
     }
     x
-}
-
-/// The plots' spacing: the smallest and largest distance between two positions, and along
-/// each axis the smallest separation above a quarter of the smallest distance.
-fn spacing(coords: &[(f64, f64)]) -> (f64, f64, [f64; 2]) {
-    let n = coords.len();
-    let mut dmin = f64::INFINITY;
-    let mut dmax: f64 = 0.0;
-    let mut amin = [f64::INFINITY; 2];
-    for i in 0..n {
-        for j in i + 1..n {
-            let (a, b) = (coords[i], coords[j]);
-            let d = ((a.0 - b.0).powi(2) + (a.1 - b.1).powi(2)).sqrt();
-            if d > 0.0 {
-                dmin = dmin.min(d);
-            }
-            dmax = dmax.max(d);
-        }
-    }
-    for i in 0..n {
-        for j in i + 1..n {
-            for (k, dk) in [
-                (coords[i].0 - coords[j].0).abs(),
-                (coords[i].1 - coords[j].1).abs(),
-            ]
-            .into_iter()
-            .enumerate()
-            {
-                if dk > 0.25 * dmin {
-                    amin[k] = amin[k].min(dk);
-                }
-            }
-        }
-    }
-    (dmin, dmax, amin)
 }
 
 /// The level of each plot in a design factor: its block, or its row or column of the plot

@@ -160,7 +160,7 @@ fn lattice_integration_matches_brute_force_quadrature_and_a_slice_sampler() {
     let out = run(&plots, &s).unwrap();
     let refs: Vec<&PlotStats> = plots.iter().collect();
     let mut prep = prepare("F", refs, &s).unwrap();
-    let _ = scan_own(&mut prep.model, &s);
+    let _ = scan_own(&mut prep.model, &s, true);
     let (_, global, maps) = effect_priors(std::slice::from_ref(&prep), &s);
     let (prior, _) = local_prior(&global, &maps[0]);
     let brute = oracle::brute_force(&prep, prior.clone(), 36);
@@ -628,7 +628,7 @@ fn deferred_own_effects_and_rows_equal_those_made_in_the_fit_bit_for_bit() {
     let s = settings();
     let refs: Vec<&PlotStats> = plots.iter().collect();
     let mut prep = prepare("F", refs, &s).unwrap();
-    let lat = scan_own(&mut prep.model, &s);
+    let lat = scan_own(&mut prep.model, &s, true);
     let (_, global, maps) = effect_priors(std::slice::from_ref(&prep), &s);
     let now = fit_own(&prep, &lat, &global, &maps[0], &s, true).unwrap();
     let mut later = fit_own(&prep, &lat, &global, &maps[0], &s, false).unwrap();

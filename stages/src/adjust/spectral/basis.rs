@@ -19,10 +19,15 @@ struct BasisProducts {
     ptx: Mat<f64>,
 }
 
-/// A design's last [`BasisProducts`] (one entry: the capped basis is the one length scales
-/// share). Shared by the threads that scan length scales; a clone starts empty.
+/// A design's last two [`BasisProducts`] used, the latest first: the capped basis is the one length
+/// scales share, and a walk over the length scales that steps onto an uncapped node and back
+/// (the fine walk looks at each neighbour of the best node) keeps it. Shared by the threads
+/// that scan length scales; a clone starts empty.
 #[derive(Default)]
-pub struct BasisCache(Mutex<Option<Arc<BasisProducts>>>);
+pub struct BasisCache(Mutex<Vec<Arc<BasisProducts>>>);
+
+/// How many bases a [`BasisCache`] keeps.
+const CACHED_BASES: usize = 2;
 
 impl Clone for BasisCache {
     fn clone(&self) -> Self {
@@ -36,7 +41,7 @@ impl std::fmt::Debug for BasisCache {
     }
 }
 
-fn lock_cache(c: &BasisCache) -> std::sync::MutexGuard<'_, Option<Arc<BasisProducts>>> {
+fn lock_cache(c: &BasisCache) -> std::sync::MutexGuard<'_, Vec<Arc<BasisProducts>>> {
     c.0.lock().unwrap_or_else(|e| e.into_inner())
 }
 
@@ -111,15 +116,22 @@ impl Repr {
         let m = m0 * m1;
         let freq = |j: usize, big_l: f64| std::f64::consts::PI * j as f64 / (2.0 * big_l);
         let key = (m0, m1, big_l0.to_bits(), big_l1.to_bits());
-        let cached = lock_cache(&d.basis_cache)
-            .as_ref()
-            .filter(|b| b.key == key)
-            .cloned();
+        // The latest used first: a hit moves to the front.
+        let cached = {
+            let mut cache = lock_cache(&d.basis_cache);
+            cache.iter().position(|b| b.key == key).map(|i| {
+                let b = cache.remove(i);
+                cache.insert(0, b.clone());
+                b
+            })
+        };
         let products = match cached {
             Some(b) => b,
             None => {
                 let b = Arc::new(basis_products(d, key, (c0, c1)));
-                *lock_cache(&d.basis_cache) = Some(b.clone());
+                let mut cache = lock_cache(&d.basis_cache);
+                cache.insert(0, b.clone());
+                cache.truncate(CACHED_BASES);
                 b
             }
         };
