@@ -52,7 +52,7 @@ fn an_export_too_large_for_this_machine_is_refused_before_it_is_read() {
     // ingest.max_memory_share (0.7) of the machine's memory is refused at once, by check and
     // by run, naming the export. The export here is a real one whose file is extended to a
     // quarter of the machine's memory with a hole (sparse: no disk space, nothing written);
-    // at about 100 bytes a record it bounds some 2.9 times the machine's memory.
+    // at about 100 bytes a record it bounds some 1.6 times the machine's memory.
     let w = Workdir::new("forms-too-large");
     let t = simulate(&w, "sim", &["--seed", "2", "--quiet"]);
     let meminfo = read(Path::new("/proc/meminfo"));

@@ -7,9 +7,11 @@ use super::formats::{for_file, MonitorFormat};
 use super::IngestError;
 use std::path::Path;
 
-/// Peak memory of a whole `run` per monitor record, bytes: measured 835 B (1.73 GB for the
-/// benchmark's 2.07 M records) and 817 B (6.78 GB for 8.3 M), rounded up.
-pub const BYTES_PER_RECORD: u64 = 900;
+/// Peak memory of a whole `run` per monitor record, bytes: measured 425 B (0.88 GB for the
+/// benchmark's 2.07 M records) and 427 B (3.54 GB for 8.3 M) on 2026-12-06, rounded up with
+/// a sixth to spare (835 and 817 B before the point tables were written a row group at a time
+/// and the exact spectral forms stopped holding eigenvectors).
+pub const BYTES_PER_RECORD: u64 = 500;
 
 /// The machine's memory in bytes: the smaller of the physical memory (`MemTotal` of
 /// `/proc/meminfo`) and the control group's limit (`/sys/fs/cgroup/memory.max`); `None`
