@@ -182,17 +182,37 @@ fn fill_kernel(k1: &mut Mat<f64>, d: &Design, l: (f64, f64)) {
     }
 }
 
-/// The symmetric eigendecomposition of `a` from its lower triangle, as faer's
-/// `self_adjoint_eigen` computes it (same routine, parameters and parallelism), with its
-/// scratch memory kept per thread instead of allocated afresh for every length scale.
-/// Returns U and the eigenvalues clamped at zero.
-fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
-    use faer::dyn_stack::{MemBuffer, MemStack};
-    use faer::linalg::evd;
+/// Runs `f` on this thread's faer scratch buffer, made (or made larger) when it is not large
+/// and aligned enough for `req`: the eigendecompositions of every length scale share it
+/// instead of allocating afresh.
+pub(crate) fn with_scratch<R>(
+    req: faer::dyn_stack::StackReq,
+    f: impl FnOnce(&mut faer::dyn_stack::MemBuffer) -> R,
+) -> R {
+    use faer::dyn_stack::MemBuffer;
     use std::cell::RefCell;
     thread_local! {
         static SCRATCH: RefCell<Option<MemBuffer>> = const { RefCell::new(None) };
     }
+    SCRATCH.with(|cell| {
+        let mut cell = cell.borrow_mut();
+        let fits = |b: &MemBuffer| {
+            b.len() >= req.size_bytes() && (b.as_ptr() as usize) % req.align_bytes() == 0
+        };
+        if !cell.as_ref().is_some_and(fits) {
+            *cell = Some(MemBuffer::new(req));
+        }
+        f(cell.as_mut().expect("scratch was just made"))
+    })
+}
+
+/// The symmetric eigendecomposition of `a` from its lower triangle, as faer's
+/// `self_adjoint_eigen` computes it (same routine, parameters and parallelism), with its
+/// scratch memory kept per thread ([`with_scratch`]). Returns U and the eigenvalues clamped
+/// at zero.
+fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
+    use faer::dyn_stack::MemStack;
+    use faer::linalg::evd;
     let n = a.nrows();
     let par = faer::get_global_parallelism();
     let req = evd::self_adjoint_evd_scratch::<f64>(
@@ -203,16 +223,7 @@ fn eigen_lower(a: faer::MatRef<'_, f64>) -> Option<(Mat<f64>, Vec<f64>)> {
     );
     let mut u = Mat::<f64>::zeros(n, n);
     let mut s = faer::diag::Diag::<f64>::zeros(n);
-    let ev = SCRATCH.with(|cell| {
-        let mut cell = cell.borrow_mut();
-        // A buffer serves when it is large and aligned enough for this request.
-        let fits = |b: &MemBuffer| {
-            b.len() >= req.size_bytes() && (b.as_ptr() as usize) % req.align_bytes() == 0
-        };
-        if !cell.as_ref().is_some_and(fits) {
-            *cell = Some(MemBuffer::new(req));
-        }
-        let buf = cell.as_mut().expect("scratch was just made");
+    let ev = with_scratch(req, |buf| {
         evd::self_adjoint_evd(
             a,
             s.as_mut(),

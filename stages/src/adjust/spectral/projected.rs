@@ -10,11 +10,10 @@
 //! instead of accumulated into V: then U'z = V'Q'z at O(n^2 k) beyond the reduction, where
 //! the eigenvectors cost O(n^3) more.
 
-use faer::dyn_stack::{MemBuffer, MemStack, StackReq};
+use faer::dyn_stack::{MemStack, StackReq};
 use faer::linalg::evd::tridiag;
 use faer::linalg::householder;
 use faer::{Mat, MatMut, MatRef};
-use std::cell::RefCell;
 
 /// The eigenvalues of the symmetric matrix whose lower triangle `a` holds (the rest of `a` is
 /// not read; all of it is overwritten), ascending, and U'z for each column z of `z` (n x k):
@@ -30,9 +29,6 @@ pub(crate) fn eigen_projected(
         let w = (0..n).map(|i| a[(i, i)]).collect();
         return Some((w, (0..n * k).map(|t| z[(t / k, t % k)]).collect()));
     }
-    thread_local! {
-        static SCRATCH: RefCell<Option<MemBuffer>> = const { RefCell::new(None) };
-    }
     let par = faer::get_global_parallelism();
     let bs = faer::linalg::qr::no_pivoting::factor::recommended_block_size::<f64>(n, n);
     let req =
@@ -44,15 +40,7 @@ pub(crate) fn eigen_projected(
         ]);
     let mut hh = Mat::<f64>::zeros(bs, n - 1);
     let mut zq = z.to_owned();
-    SCRATCH.with(|cell| {
-        let mut cell = cell.borrow_mut();
-        let fits = |b: &MemBuffer| {
-            b.len() >= req.size_bytes() && (b.as_ptr() as usize) % req.align_bytes() == 0
-        };
-        if !cell.as_ref().is_some_and(fits) {
-            *cell = Some(MemBuffer::new(req));
-        }
-        let buf = cell.as_mut().expect("scratch was just made");
+    super::with_scratch(req, |buf| {
         tridiag::tridiag_in_place(
             a.as_mut(),
             hh.as_mut(),
